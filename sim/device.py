@@ -1,0 +1,116 @@
+"""The device's lumped parameters in SI, derived once from a validated scenario.
+
+The engine model, the motor model, the strategies' designs and the static checks all read this.
+Symbols follow the reaction-wheel pendulum literature (see ../shared/references.md):
+J excludes the wheel's own spin inertia I_w but includes the wheel's and stator's mass at the
+wheel axis; mbar = sum(m_i * l_i) is the body's first moment of mass about the pivot.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .massprops import RigidProps, body_props, wheel_props
+
+
+@dataclass(frozen=True)
+class Device:
+    body: RigidProps                  # body parts + stator, about its COM (engine link 1)
+    wheel: RigidProps                 # wheel parts + rotor, about the wheel axis (engine link 2)
+    wheel_at_m: float
+    gravity_m_s2: float
+    J_kg_m2: float                    # body inertia about the pivot incl. wheel mass, excl. I_w
+    I_w_kg_m2: float                  # wheel spin inertia incl. rotor
+    mbar_kg_m: float                  # first moment of mass about the pivot (body + wheel)
+    k_e_v_s_rad: float
+    k_t_n_m_a: float
+    resistance_ohm: float
+    inductance_h: float
+    current_limit_a: float            # inf when the scenario sets none
+    supply_v: float
+    brake_torque_n_m: float | None
+    pivot_coulomb_n_m: float
+    pivot_viscous_n_m_s: float
+    wheel_coulomb_n_m: float
+    wheel_viscous_n_m_s: float
+    control_rate_hz: float
+    delay_s: float
+    locked: bool
+
+    @classmethod
+    def from_scenario(cls, sc) -> "Device":
+        w = sc.wheel
+        wheel = wheel_props(w.parts, rotor_inertia=sc.motor.rotor_inertia)
+        body = body_props(sc.body.parts, extra_point_masses=[(sc.motor.mass, w.at)] if sc.motor.mass else [])
+        mass_all = body.mass_kg + wheel.mass_kg
+        mbar = body.mass_kg * body.com_m + wheel.mass_kg * w.at
+        J = body.about_pivot_x() + wheel.mass_kg * w.at**2
+        return cls(
+            body=body, wheel=wheel, wheel_at_m=w.at, gravity_m_s2=sc.world.gravity,
+            J_kg_m2=J, I_w_kg_m2=wheel.inertia_com[0], mbar_kg_m=mbar if mass_all else 0.0,
+            k_e_v_s_rad=sc.motor.k_e, k_t_n_m_a=sc.motor.k_t, resistance_ohm=sc.motor.resistance,
+            inductance_h=sc.motor.inductance,
+            current_limit_a=sc.motor.current_limit if sc.motor.current_limit is not None else math.inf,
+            supply_v=sc.drive.supply, brake_torque_n_m=sc.drive.brake_torque,
+            pivot_coulomb_n_m=sc.body.pivot_friction.coulomb, pivot_viscous_n_m_s=sc.body.pivot_friction.viscous,
+            wheel_coulomb_n_m=w.bearing_friction.coulomb, wheel_viscous_n_m_s=w.bearing_friction.viscous,
+            control_rate_hz=sc.sensors.rate, delay_s=sc.sensors.delay, locked=sc.body.locked,
+        )
+
+    # -- derived figures used across the tool -------------------------------------------------
+    @property
+    def mass_kg(self) -> float:
+        return self.body.mass_kg + self.wheel.mass_kg
+
+    @property
+    def no_load_speed_rad_s(self) -> float:
+        """Wheel speed where back-EMF equals the supply: V / k_e, rad/s."""
+        return self.supply_v / self.k_e_v_s_rad
+
+    @property
+    def stall_torque_n_m(self) -> float:
+        """Torque at zero speed with full supply, limited by the current limit, N m."""
+        return self.k_t_n_m_a * min(self.supply_v / self.resistance_ohm, self.current_limit_a)
+
+    def available_torque_n_m(self, wheel_speed_rad_s: float, direction: float = 1.0) -> float:
+        """Largest torque magnitude the drive can give in `direction` at a relative wheel speed, N m."""
+        back_emf = self.k_e_v_s_rad * wheel_speed_rad_s * math.copysign(1.0, direction)
+        i = (self.supply_v - back_emf) / self.resistance_ohm
+        return max(0.0, self.k_t_n_m_a * min(i, self.current_limit_a))
+
+    @property
+    def gravity_torque_coeff_n_m(self) -> float:
+        """mbar * g: the gravity torque at 90 degrees from upright, N m."""
+        return self.mbar_kg_m * self.gravity_m_s2
+
+    @property
+    def open_loop_pole_rad_s(self) -> float:
+        """sqrt(mbar g / J): the upright equilibrium's unstable pole with torque input, rad/s."""
+        return math.sqrt(max(self.gravity_torque_coeff_n_m, 0.0) / self.J_kg_m2)
+
+    def body_energy_j(self, angle_rad: float, rate_rad_s: float) -> float:
+        """E = 1/2 J theta_d^2 + mbar g (cos(theta) - 1): 0 upright at rest, -2 mbar g hanging."""
+        return 0.5 * self.J_kg_m2 * rate_rad_s**2 + self.gravity_torque_coeff_n_m * (math.cos(angle_rad) - 1.0)
+
+    def linear_model(self) -> tuple[np.ndarray, np.ndarray]:
+        """Upright linearisation, x = [theta, theta_d, phi_d] (rad, rad/s, rad/s), input volts.
+
+        Follows the model in ../shared/references.md (inductance neglected), with the pivot's and
+        bearing's viscous friction added: J theta_dd = mbar g theta - tau - b_p theta_d,
+        I_w (theta_dd + phi_dd) = tau - b_w phi_d, tau = k_t (V - k_e phi_d) / R.
+        """
+        J, Iw = self.J_kg_m2, self.I_w_kg_m2
+        a = self.gravity_torque_coeff_n_m / J
+        c = self.k_t_n_m_a / self.resistance_ohm
+        d = c * self.k_e_v_s_rad + self.wheel_viscous_n_m_s      # total damping on phi_d, N m s
+        bp = self.pivot_viscous_n_m_s
+        A = np.array([
+            [0.0, 1.0, 0.0],
+            [a, -bp / J, d / J],
+            [-a, bp / J, -d * (1.0 / Iw + 1.0 / J)],
+        ])
+        B = c * np.array([[0.0], [-1.0 / J], [1.0 / Iw + 1.0 / J]])
+        return A, B

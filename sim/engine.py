@@ -1,0 +1,149 @@
+"""The 3D rigid-body model in pybullet (DIRECT mode, no display, CPU only).
+
+A fixed base; link 0 is the body on a revolute pivot joint about the world x axis through the
+origin; link 1 is the wheel on a revolute joint about x at `wheel_at` along the body axis. The
+body axis points along +z when the angle is 0 (upright). Masses, centres of mass and inertias are
+set from our own mass properties; pybullet's defaults that distort a fast wheel are switched off:
+the 100 rad/s joint-velocity clamp, link damping and the default joint velocity motors.
+
+Coulomb friction at both joints uses pybullet's velocity motors with a zero target and a force
+cap equal to the friction torque (sticks exactly below it, slides at it). Viscous friction and the
+motor's torque are applied by the caller as joint torques each step.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .device import Device
+
+PIVOT, WHEEL = 0, 1
+MAX_JOINT_SPEED = 1e5  # rad/s: well beyond any motor we model; pybullet's default is 100
+
+
+class EngineModel:
+    """One pybullet client holding one device. Not thread-safe; one per trial."""
+
+    def __init__(self, device: Device, *, step_s: float, start_angle_rad: float = 0.0, visual=None):
+        pb = import_pybullet()
+        self.pb = pb
+        self.device = device
+        self.step_s = step_s
+        self.client = pb.connect(pb.DIRECT)
+        self.locked = device.locked
+        self.locked_angle = start_angle_rad
+        cid = self.client
+        pb.resetSimulation(physicsClientId=cid)
+        pb.setGravity(0, 0, -device.gravity_m_s2, physicsClientId=cid)
+        pb.setTimeStep(step_s, physicsClientId=cid)
+        pb.setPhysicsEngineParameter(numSubSteps=0, physicsClientId=cid)
+        vis = visual.shapes(pb, cid) if visual is not None else (-1, -1, -1)
+        q_lock = pb.getQuaternionFromEuler([start_angle_rad, 0, 0]) if self.locked else [0, 0, 0, 1]
+        self.body_id = pb.createMultiBody(
+            baseMass=0.0, baseCollisionShapeIndex=-1, baseVisualShapeIndex=vis[0], basePosition=[0, 0, 0],
+            linkMasses=[device.body.mass_kg, device.wheel.mass_kg],
+            linkCollisionShapeIndices=[-1, -1], linkVisualShapeIndices=[vis[1], vis[2]],
+            linkPositions=[[0, 0, 0], [0, 0, device.wheel_at_m]],
+            linkOrientations=[q_lock, [0, 0, 0, 1]],
+            linkInertialFramePositions=[[0, 0, device.body.com_m], [0, 0, 0]],
+            linkInertialFrameOrientations=[[0, 0, 0, 1]] * 2,
+            linkParentIndices=[0, 1],
+            linkJointTypes=[pb.JOINT_FIXED if self.locked else pb.JOINT_REVOLUTE, pb.JOINT_REVOLUTE],
+            linkJointAxis=[[1, 0, 0], [1, 0, 0]],
+            physicsClientId=cid,
+        )
+        for link, props in ((PIVOT, device.body), (WHEEL, device.wheel)):
+            # inertia must be set in its own call: passing mass in the same call drops it (pybullet 3.2.7)
+            pb.changeDynamics(self.body_id, link, localInertiaDiagonal=list(props.inertia_com), physicsClientId=cid)
+            pb.changeDynamics(self.body_id, link, linearDamping=0.0, angularDamping=0.0, jointDamping=0.0,
+                              maxJointVelocity=MAX_JOINT_SPEED, physicsClientId=cid)
+        # hoisted for the per-step loop; a locked body's pivot is a fixed joint and takes no commands
+        self._joints = [PIVOT, WHEEL]
+        self._driven = [WHEEL] if self.locked else [PIVOT, WHEEL]
+        self._states = pb.getJointStates
+        self._torques = pb.setJointMotorControlArray
+        self._step = pb.stepSimulation
+        self._torque_mode = pb.TORQUE_CONTROL
+        self.set_dry_friction(pivot_n_m=device.pivot_coulomb_n_m, wheel_n_m=device.wheel_coulomb_n_m)
+
+    def set_dry_friction(self, *, pivot_n_m: float, wheel_n_m: float) -> None:
+        """Coulomb friction (or a brake) as zero-target velocity motors with a force cap, N m."""
+        pb = self.pb
+        forces = [wheel_n_m] if self.locked else [pivot_n_m, wheel_n_m]
+        pb.setJointMotorControlArray(self.body_id, self._driven, pb.VELOCITY_CONTROL,
+                                     targetVelocities=[0.0] * len(forces), forces=forces, physicsClientId=self.client)
+
+    def reset(self, *, angle_rad: float, rate_rad_s: float, wheel_angle_rad: float = 0.0,
+              wheel_speed_rad_s: float = 0.0) -> None:
+        """Set the joint states. Wheel speed is relative to the body."""
+        pb = self.pb
+        if not self.locked:
+            pb.resetJointState(self.body_id, PIVOT, angle_rad, rate_rad_s, physicsClientId=self.client)
+        pb.resetJointState(self.body_id, WHEEL, wheel_angle_rad, wheel_speed_rad_s, physicsClientId=self.client)
+
+    def read(self) -> tuple[float, float, float, float]:
+        """(angle rad, body rate rad/s, wheel angle rad, wheel speed rad/s), the angle unwrapped."""
+        s = self._states(self.body_id, self._joints, physicsClientId=self.client)
+        if self.locked:
+            return self.locked_angle, 0.0, s[1][0], s[1][1]
+        return s[0][0], s[0][1], s[1][0], s[1][1]
+
+    def advance(self, pivot_torque_n_m: float, wheel_torque_n_m: float) -> None:
+        """Apply joint torques for one step and step the world. The wheel torque's reaction acts on the body."""
+        forces = [wheel_torque_n_m] if self.locked else [pivot_torque_n_m, wheel_torque_n_m]
+        self._torques(self.body_id, self._driven, self._torque_mode, forces=forces, physicsClientId=self.client)
+        self._step(physicsClientId=self.client)
+
+    def close(self) -> None:
+        try:
+            self.pb.disconnect(physicsClientId=self.client)
+        except Exception:  # already gone: nothing to free
+            pass
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
+def import_pybullet():
+    """Import pybullet without its start-up banner on stdout (stdout may carry JSON or C output)."""
+    import sys
+
+    if "pybullet" in sys.modules:
+        return sys.modules["pybullet"]
+    import os
+
+    sys.stdout.flush()
+    saved = os.dup(1)
+    try:
+        with open(os.devnull, "w") as null:
+            os.dup2(null.fileno(), 1)
+            import pybullet
+            try:  # the banner sits in C's stdio buffer: flush it into /dev/null, not into our output
+                import ctypes
+                ctypes.CDLL(None).fflush(None)
+            except (OSError, AttributeError):
+                pass
+    finally:
+        os.dup2(saved, 1)
+        os.close(saved)
+    return pybullet
+
+
+def wrap_angle(angle_rad: float) -> float:
+    """Wrap to (-pi, pi]."""
+    a = math.fmod(angle_rad + math.pi, 2 * math.pi)
+    if a <= 0.0:
+        a += 2 * math.pi
+    return a - math.pi
+
+
+def wrap_angles(a: np.ndarray) -> np.ndarray:
+    """Vectorised `wrap_angle`."""
+    w = np.mod(a + np.pi, 2 * np.pi)
+    w[w == 0.0] = 2 * np.pi
+    return w - np.pi

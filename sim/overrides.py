@@ -1,0 +1,85 @@
+"""`--set key.path=value` overrides, applied to a scenario's raw mapping before validation.
+
+Paths are dotted keys with list indices: `drive.supply`, `wheel.parts[0].mass`. Values are read
+as YAML scalars or flow collections ("24V" stays a string for the unit parser; "3" is a number).
+"""
+
+from __future__ import annotations
+
+import copy
+import re
+from typing import Any
+
+import yaml
+
+from .errors import ScenarioError
+
+_TOKEN = re.compile(r"([A-Za-z_][A-Za-z0-9_]*)|\[(\d{1,6})\]")
+
+
+def parse_path(path: str, *, where: str) -> list[str | int]:
+    """Split 'a.b[0].c' into ['a', 'b', 0, 'c']; ScenarioError when malformed."""
+    parts: list[str | int] = []
+    pos = 0
+    text = path.strip()
+    if not text:
+        raise ScenarioError(f"{where}: empty key path")
+    while pos < len(text):
+        if parts and text[pos] == ".":
+            pos += 1
+        m = _TOKEN.match(text, pos)
+        if not m or (m.group(2) is not None and not parts):
+            raise ScenarioError(f"{where}: malformed key path {path!r} (expected e.g. wheel.parts[0].mass)")
+        parts.append(m.group(1) if m.group(1) is not None else int(m.group(2)))
+        pos = m.end()
+    return parts
+
+
+def parse_assignment(text: str, *, where: str = "--set") -> tuple[list[str | int], Any]:
+    """Split 'key.path=value' into (path, value)."""
+    if "=" not in text:
+        raise ScenarioError(f"{where} {text!r}: expected key.path=value")
+    key, _, value = text.partition("=")
+    path = parse_path(key, where=f"{where} {text!r}")
+    try:
+        parsed = yaml.safe_load(value) if value.strip() else None
+    except yaml.YAMLError:
+        raise ScenarioError(f"{where} {text!r}: the value is not readable") from None
+    if value.strip() and parsed is None:
+        parsed = value.strip()
+    return path, parsed
+
+
+def set_path(raw: dict, path: list[str | int], value: Any, *, where: str) -> None:
+    """Set `value` at `path` inside `raw`, creating missing mappings; lists must already hold the index."""
+    node: Any = raw
+    shown = ""
+    for i, key in enumerate(path):
+        last = i == len(path) - 1
+        shown += f"[{key}]" if isinstance(key, int) else (("." if shown else "") + key)
+        if isinstance(key, int):
+            if not isinstance(node, list) or key >= len(node):
+                raise ScenarioError(f"{where}: {shown}: no such list item")
+        elif not isinstance(node, dict):
+            raise ScenarioError(f"{where}: {shown}: the parent is not a mapping")
+        if last:
+            node[key] = value
+            return
+        nxt = node[key] if isinstance(key, int) else node.get(key)
+        if nxt is None:
+            if isinstance(path[i + 1], int):
+                raise ScenarioError(f"{where}: {shown}: no such list")
+            nxt = {}
+            node[key] = nxt
+        node = nxt
+
+
+def apply_overrides(raw: dict, overrides, *, where: str) -> dict:
+    """A deep copy of `raw` with each 'key.path=value' override applied in order."""
+    if not overrides:
+        return raw
+    out = copy.deepcopy(raw)
+    for text in overrides:
+        path, value = parse_assignment(text)
+        set_path(out, path, value, where=f"{where} (--set {text})")
+    return out

@@ -1,0 +1,81 @@
+"""The summary plot of one trial: angle, body rate, wheel speed against its limit, voltage, current."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .engine import wrap_angles
+
+INK, ACCENT, LIMIT, MUTED = "#1d2b3a", "#c2571a", "#8c1c13", "#7a8894"
+
+
+def summary_figure(result):
+    """A matplotlib Figure (Agg backend) summarising the trial."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    tr, dev = result.trace, result.device
+    t = tr.view("t")
+    fig, axes = plt.subplots(5, 1, figsize=(8.5, 9.5), sharex=True, constrained_layout=True)
+    title = f"{result.scenario.name}: {result.scenario.strategy.kind} -> {result.outcome}"
+    fig.suptitle(title, color=INK, fontsize=12, fontweight="bold")
+    ax = axes[0]
+    ax.plot(t, np.degrees(wrap_angles(tr.view("angle").copy())), color=INK, lw=1.2, label="true")
+    ax.plot(t, np.degrees(tr.view("meas_angle")), color=MUTED, lw=0.7, alpha=0.8, label="measured")
+    ax.set_ylabel("angle [deg]")
+    ax.legend(loc="upper right", fontsize=8, frameon=False)
+    axes[1].plot(t, np.degrees(tr.view("rate")), color=INK, lw=1.0)
+    axes[1].set_ylabel("body rate [deg/s]")
+    lim = dev.no_load_speed_rad_s
+    ax = axes[2]
+    ax.plot(t, tr.view("wheel_speed"), color=ACCENT, lw=1.2)
+    for s in (lim, -lim):
+        ax.axhline(s, color=LIMIT, ls="--", lw=0.9)
+    ax.text(t[0] if len(t) else 0, lim, " no-load speed at supply", color=LIMIT, fontsize=7, va="bottom")
+    ax.set_ylabel("wheel speed [rad/s]")
+    ax = axes[3]
+    ax.plot(t, tr.view("voltage"), color=INK, lw=0.9)
+    for s in (dev.supply_v, -dev.supply_v):
+        ax.axhline(s, color=LIMIT, ls="--", lw=0.9)
+    ax.set_ylabel("voltage [V]")
+    ax = axes[4]
+    ax.plot(t, tr.view("current"), color=ACCENT, lw=0.9)
+    if np.isfinite(dev.current_limit_a):
+        for s in (dev.current_limit_a, -dev.current_limit_a):
+            ax.axhline(s, color=LIMIT, ls="--", lw=0.9)
+    ax.set_ylabel("current [A]")
+    ax.set_xlabel("time [s]")
+    _shade_phases(axes, tr)
+    for a in axes:
+        a.grid(True, color="#dde3e8", lw=0.6)
+        a.spines[["top", "right"]].set_visible(False)
+    return fig
+
+
+def _shade_phases(axes, tr) -> None:
+    """Light bands showing each strategy phase, labelled on the top panel."""
+    if not tr.n or len(tr.phases) < 2:
+        return
+    mode, t = tr.view("mode"), tr.view("t")
+    edges = np.nonzero(np.diff(mode))[0] + 1
+    starts = np.concatenate([[0], edges])
+    ends = np.concatenate([edges, [len(mode) - 1]])
+    shades = ["#f3efe6", "#e6eef3", "#eef3e6", "#f3e6ee"]
+    for s, e in zip(starts, ends):
+        for a in axes:
+            a.axvspan(t[s], t[e], color=shades[mode[s] % len(shades)], lw=0, zorder=0)
+        axes[0].text(t[s], 1.0, " " + tr.phases[mode[s]], transform=axes[0].get_xaxis_transform(),
+                     fontsize=7, color=MUTED, va="top")
+
+
+def save_figure(fig, path) -> None:
+    """Save atomically as PNG and free the figure."""
+    import matplotlib.pyplot as plt
+
+    from .outputs import atomic_path
+
+    with atomic_path(path) as tmp:
+        fig.savefig(tmp, dpi=110, format="png")
+    plt.close(fig)

@@ -1,0 +1,466 @@
+"""Scenario files: YAML in, one validation pass, frozen typed objects in SI units out.
+
+Every value is checked here and nowhere later. Quantities accept unit strings ("80 g",
+"300 rpm/V"); bare numbers are SI. Unknown keys are rejected with the nearest known key.
+
+Conventions: body angle 0 = upright, +-pi = hanging, measured about the pivot axis by the
+right-hand rule. Wheel speed is relative to the body, about the same axis. Positive voltage
+accelerates the wheel in the positive sense; its reaction turns the body the negative way.
+"""
+
+from __future__ import annotations
+
+import difflib
+from pathlib import Path
+from typing import Annotated, Any, Literal
+
+import yaml
+from pydantic import (BaseModel, BeforeValidator, ConfigDict, Field, ValidationError,
+                      ValidationInfo, field_validator, model_validator)
+
+from .errors import ScenarioError
+from .strategies.base import StrategySpec
+from .units import Q
+
+MAX_STEPS = 5_000_000          # physics steps in one trial; more is a typo, not a plan
+MAX_FILE_BYTES = 1_000_000
+MAX_ALIASES = 100
+
+
+Length = Q("length")
+PositiveLength = Q("length", gt=0)
+PositiveMass = Q("mass", gt=0)
+Fraction = Q("fraction", gt=0, le=1)
+
+
+class Strict(BaseModel):
+    """Base for scenario sections: frozen, unknown keys rejected."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True, arbitrary_types_allowed=True)
+
+
+class World(Strict):
+    gravity: Q("acceleration", ge=0, le=1000) = 9.81
+    """Gravitational acceleration, m/s^2 (0 allowed)."""
+    step: Q("time", gt=0, le=0.01) = 1e-3
+    """Physics step, s."""
+
+
+class Friction(Strict):
+    coulomb: Q("torque", ge=0) = 0.0
+    """Coulomb (dry) friction torque, N m."""
+    viscous: Q("viscous", ge=0) = 0.0
+    """Viscous friction coefficient, N m s/rad."""
+
+
+class MaterialSpec(Strict):
+    """A material given inline instead of by name."""
+
+    name: str = "custom"
+    density: Q("density", gt=0) | None = None
+    tensile_strength: Q("stress", gt=0) | None = None
+    poisson_ratio: Annotated[float, Field(gt=-1, lt=0.5)] = 0.33
+    printed: bool = False
+
+
+SHAPE_SIZES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
+    # shape: (required sizes, optional sizes)
+    "point": ((), ()),
+    "rod": (("length",), ("radius",)),
+    "box": (("length", "width", "thickness"), ()),
+    "disk": (("radius",), ("thickness",)),
+    "ring": (("outer_radius", "inner_radius"), ("thickness",)),
+}
+
+
+class Part(Strict):
+    """A primitive part. Body parts: `at` is the distance of the part's centre from the pivot
+    along the body axis (negative below the pivot). Wheel parts: `at` is the radial distance of
+    the part's centre from the wheel axis, with `count` copies spaced evenly around it.
+
+    Orientation: rods and boxes lie with `length` along the body axis (for wheel parts, across
+    the wheel axis); `width` is in the swing plane; `thickness` is along the pivot axis. Disks
+    and rings have their axis parallel to the pivot axis.
+    """
+
+    name: str | None = None
+    shape: Literal["point", "rod", "box", "disk", "ring"]
+    length: PositiveLength | None = None
+    width: PositiveLength | None = None
+    thickness: PositiveLength | None = None
+    radius: PositiveLength | None = None
+    outer_radius: PositiveLength | None = None
+    inner_radius: Q("length", ge=0) | None = None
+    mass: PositiveMass | None = None
+    material: str | MaterialSpec | None = None
+    infill: Fraction | None = None
+    at: Length = 0.0
+    count: Annotated[int, Field(ge=1, le=1000, strict=True)] = 1
+
+    @model_validator(mode="after")
+    def _sizes_fit_shape(self):
+        needed, optional = SHAPE_SIZES[self.shape]
+        for key in needed:
+            if getattr(self, key) is None:
+                raise ValueError(f"@{key}: a {self.shape} needs '{key}'")
+        for key in ("length", "width", "thickness", "radius", "outer_radius", "inner_radius"):
+            if getattr(self, key) is not None and key not in needed + optional:
+                raise ValueError(f"@{key}: a {self.shape} takes no '{key}' (it takes {', '.join(needed + optional) or 'no sizes'})")
+        if self.shape == "ring" and self.inner_radius >= self.outer_radius:
+            raise ValueError("@inner_radius: must be smaller than outer_radius")
+        if isinstance(self.material, str):
+            from .materials import known_names, lookup
+            if lookup(self.material) is None:
+                raise ValueError(f"@material: unknown material {self.material!r}; known: {', '.join(known_names())}, "
+                                 "or a mapping with density and tensile_strength")
+        if self.mass is None:
+            from .massprops import part_volume
+            if self.density_kg_m3 is None:
+                raise ValueError("@mass: give a mass, or a material with a density")
+            if part_volume(self) is None:
+                raise ValueError(f"@mass: give a mass, or the sizes that fix a {self.shape}'s volume "
+                                 "(a rod's radius, a disk's or ring's thickness)")
+        if self.infill is not None and not self.is_printed:
+            raise ValueError("@infill: infill applies to printed materials only")
+        return self
+
+    @property
+    def material_props(self):
+        """The part's `materials.Material`, or None when no material is given."""
+        from .materials import Material, lookup
+        if self.material is None:
+            return None
+        if isinstance(self.material, str):
+            return lookup(self.material)
+        m = self.material
+        return Material(m.name, m.density, m.tensile_strength, poisson_ratio=m.poisson_ratio, printed=m.printed)
+
+    @property
+    def is_printed(self) -> bool:
+        mat = self.material_props
+        return bool(mat and mat.printed)
+
+    @property
+    def density_kg_m3(self) -> float | None:
+        """Effective density (infill applied), kg/m^3, or None."""
+        mat = self.material_props
+        if mat is None or mat.density_kg_m3 is None:
+            return None
+        return mat.density_kg_m3 * (self.infill if self.infill is not None else 1.0)
+
+
+class Body(Strict):
+    parts: Annotated[list[Part], Field(min_length=1, max_length=200)]
+    pivot_friction: Friction = Friction()
+    locked: bool = False
+    """True clamps the body at its start angle (a bench test of the wheel drive)."""
+
+
+class Wheel(Strict):
+    at: PositiveLength
+    """Pivot-to-wheel-axis distance, m."""
+    parts: Annotated[list[Part], Field(min_length=1, max_length=200)]
+    bearing_friction: Friction = Friction()
+
+    @field_validator("parts")
+    @classmethod
+    def _balanced(cls, parts):
+        for i, p in enumerate(parts):
+            if p.count == 1 and p.at != 0.0:
+                raise ValueError(f"@[{i}].at: a single part off the wheel axis unbalances the wheel; "
+                                 "give count >= 2 for evenly spaced copies")
+        return parts
+
+
+class Motor(Strict):
+    name: str | None = None
+    speed_constant: Q("speed_constant", gt=0) | None = None
+    """Kv, stored in rad/s per V."""
+    back_emf_constant: Q("back_emf", gt=0) | None = None
+    """k_e, V s/rad."""
+    torque_constant: Q("torque_constant", gt=0) | None = None
+    """k_t, N m/A (defaults to k_e: equal in SI for an ideal motor)."""
+    resistance: Q("resistance", gt=0)
+    inductance: Q("inductance", ge=0) = 0.0
+    current_limit: Q("current", gt=0) | None = None
+    rotor_inertia: Q("inertia", ge=0) = 0.0
+    mass: Q("mass", ge=0) = 0.0
+
+    @model_validator(mode="after")
+    def _one_speed_constant(self):
+        if (self.speed_constant is None) == (self.back_emf_constant is None):
+            raise ValueError("@speed_constant: give exactly one of speed_constant (Kv) and back_emf_constant")
+        return self
+
+    @property
+    def k_e(self) -> float:
+        """Back-EMF constant, V s/rad."""
+        return self.back_emf_constant if self.back_emf_constant is not None else 1.0 / self.speed_constant
+
+    @property
+    def k_t(self) -> float:
+        """Torque constant, N m/A."""
+        return self.torque_constant if self.torque_constant is not None else self.k_e
+
+
+class Drive(Strict):
+    supply: Q("voltage", gt=0, le=1000)
+    """Supply voltage, V; the commanded voltage is clamped to +-supply."""
+    brake_torque: Q("torque", gt=0) | None = None
+    """A mechanical brake on the wheel (for brake-to-jump strategies), N m."""
+
+
+class AngleSensor(Strict):
+    counts_per_rev: Annotated[int, Field(ge=4, le=2**31, strict=True)] | None = None
+    noise: Q("angle", ge=0) = 0.0
+    bias: Q("angle") = 0.0
+
+
+class RateGyro(Strict):
+    noise: Q("angular_speed", ge=0) = 0.0
+    bias: Q("angular_speed") = 0.0
+
+
+class WheelSensor(Strict):
+    counts_per_rev: Annotated[int, Field(ge=4, le=2**31, strict=True)] | None = None
+    noise: Q("angular_speed", ge=0) = 0.0
+
+
+class Sensors(Strict):
+    rate: Q("frequency", gt=0, le=100_000) = 500.0
+    """Control loop rate, Hz."""
+    delay: Q("time", ge=0, le=1.0) = 0.0
+    """Measurement delay, s (rounded to whole physics steps)."""
+    angle: AngleSensor = AngleSensor()
+    rate_gyro: RateGyro | None = None
+    """Absent: the body rate is estimated from successive angle readings."""
+    wheel: WheelSensor = WheelSensor()
+
+
+class Start(Strict):
+    angle: Q("angle") = 0.0
+    rate: Q("angular_speed") = 0.0
+    wheel_speed: Q("angular_speed") = 0.0
+
+
+class Push(Strict):
+    at: Q("time", ge=0)
+    impulse: Q("impulse")
+    """Angular impulse about the pivot, N m s, applied over one physics step."""
+
+
+class Trial(Strict):
+    duration: Q("time", gt=0) = 10.0
+    start: Start = Start()
+    pushes: Annotated[list[Push], Field(max_length=1000)] = []
+    seed: Annotated[int, Field(ge=0, lt=2**63, strict=True)] = 0
+    stop_early: bool = False
+    """True ends the trial as soon as its outcome is settled (used by sweeps and bisection)."""
+
+
+def _strategy_from_raw(raw: Any, info: ValidationInfo) -> StrategySpec:
+    from .strategies import resolve_spec
+    base_dir = (info.context or {}).get("base_dir", Path.cwd())
+    return resolve_spec(raw, base_dir=base_dir)
+
+
+class Scenario(Strict):
+    name: str = "unnamed"
+    description: str = ""
+    world: World = World()
+    body: Body
+    wheel: Wheel
+    motor: Motor
+    drive: Drive
+    sensors: Sensors = Sensors()
+    strategy: Annotated[StrategySpec, BeforeValidator(_strategy_from_raw)]
+    trial: Trial = Trial()
+    source: str = "<memory>"
+    """Where the scenario came from (for messages)."""
+
+    @model_validator(mode="after")
+    def _step_counts(self):
+        steps = self.trial.duration / self.world.step
+        if steps > MAX_STEPS:
+            raise ValueError(f"@trial.duration: {self.trial.duration:g} s at a {self.world.step:g} s step needs "
+                             f"{steps:.3g} steps; the limit is {MAX_STEPS:.0e}")
+        ratio = 1.0 / (self.sensors.rate * self.world.step)
+        if ratio < 0.999 or abs(ratio - round(ratio)) > 1e-6 * ratio:
+            raise ValueError(f"@sensors.rate: the control period (1/{self.sensors.rate:g} Hz) must be a whole "
+                             f"number of physics steps ({self.world.step:g} s)")
+        if self.trial.pushes and max(p.at for p in self.trial.pushes) > self.trial.duration:
+            raise ValueError("@trial.pushes: a push comes after the end of the trial")
+        return self
+
+    @property
+    def control_steps(self) -> int:
+        """Physics steps per control tick."""
+        return int(round(1.0 / (self.sensors.rate * self.world.step)))
+
+    @property
+    def n_steps(self) -> int:
+        return int(round(self.trial.duration / self.world.step))
+
+
+# ----------------------------------------------------------------------------- loading
+
+class _GuardedLoader(yaml.SafeLoader):
+    """PyYAML's safe loader, with a cap on aliases (a small file must not expand into a huge one)."""
+
+    def compose_node(self, parent, index):
+        if self.check_event(yaml.AliasEvent):
+            self._aliases = getattr(self, "_aliases", 0) + 1
+            if self._aliases > MAX_ALIASES:
+                raise yaml.YAMLError(f"more than {MAX_ALIASES} aliases")
+        return super().compose_node(parent, index)
+
+
+def read_yaml(path: Path) -> Any:
+    """Parse a YAML file safely. Raises ScenarioError naming the file on any problem."""
+    try:
+        size = path.stat().st_size
+    except OSError as exc:
+        raise ScenarioError(f"{path}: cannot read ({exc.strerror or exc})") from None
+    if not path.is_file():
+        raise ScenarioError(f"{path}: not a file")
+    if size > MAX_FILE_BYTES:
+        raise ScenarioError(f"{path}: {size} bytes is too large for a scenario (limit {MAX_FILE_BYTES})")
+    try:
+        text = path.read_text(encoding="utf-8")
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ScenarioError(f"{path}: cannot read as UTF-8 text ({exc})") from None
+    return parse_yaml_text(text, where=str(path))
+
+
+def parse_yaml_text(text: str, *, where: str) -> Any:
+    try:
+        return yaml.load(text, Loader=_GuardedLoader)  # noqa: S506 - a SafeLoader subclass
+    except yaml.constructor.ConstructorError as exc:
+        raise ScenarioError(f"{where}: YAML tags that construct objects are not allowed ({_yaml_where(exc)})") from None
+    except yaml.YAMLError as exc:
+        raise ScenarioError(f"{where}: YAML syntax error {_yaml_where(exc)}".rstrip()) from None
+    except RecursionError:
+        raise ScenarioError(f"{where}: YAML nested too deeply") from None
+
+
+def _yaml_where(exc: yaml.YAMLError) -> str:
+    mark = getattr(exc, "problem_mark", None)
+    problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+    if mark is not None:
+        return f"at line {mark.line + 1}, column {mark.column + 1}: {problem}"
+    return str(problem)
+
+
+def load_scenario(path: str | Path | None = None, *, overrides: tuple[str, ...] | list[str] = (),
+                  data: dict | None = None) -> Scenario:
+    """Load, override and validate a scenario.
+
+    Parameters
+    ----------
+    path : file to read; None means the bundled default demo (unless `data` is given).
+    overrides : "key.path=value" strings, applied to the raw mapping before validation.
+    data : an already-parsed mapping (then `path` only names it in messages).
+    """
+    if path is None and data is None:
+        path = default_scenario_path()
+    where = str(path) if path is not None else "<scenario>"
+    raw = read_yaml(Path(path)) if data is None else data
+    if raw is None:
+        raise ScenarioError(f"{where}: the file is empty")
+    if not isinstance(raw, dict):
+        raise ScenarioError(f"{where}: expected a mapping of scenario keys at the top, found {type(raw).__name__}")
+    from .overrides import apply_overrides
+    raw = apply_overrides(raw, overrides, where=where)
+    return validate_scenario(raw, where=where)
+
+
+def validate_scenario(raw: dict, *, where: str) -> Scenario:
+    base_dir = Path(where).parent if where and not where.startswith("<") else Path.cwd()
+    raw = dict(raw)
+    raw.pop("source", None)
+    try:
+        sc = Scenario.model_validate(raw, context={"base_dir": base_dir})
+    except ValidationError as exc:
+        raise ScenarioError(f"{where}: {describe_validation_error(exc, Scenario)}") from None
+    except RecursionError:
+        raise ScenarioError(f"{where}: scenario nested too deeply") from None
+    return sc.model_copy(update={"source": where})
+
+
+def default_scenario_path() -> Path:
+    return Path(__file__).parent / "data" / "desk_pendulum.yaml"
+
+
+def describe_validation_error(exc: ValidationError, model: type[BaseModel] | None = None) -> str:
+    """One sentence for the first error: dotted key path, what was expected, what was found."""
+    err = exc.errors(include_url=False)[0]
+    loc = [x for x in err["loc"] if not (isinstance(x, str) and x.startswith("function-"))]
+    msg = err["msg"].removeprefix("Value error, ")
+    if msg.startswith("@"):  # a validator named a sub-key: "@key: message"
+        sub, _, msg = msg[1:].partition(": ")
+        loc = loc + [sub]
+    path = format_path(loc)
+    kind = err["type"]
+    if kind == "extra_forbidden":
+        return f"{path}: unknown key{_suggest(loc, model)}"
+    if kind == "missing":
+        return f"{path}: required key is missing"
+    if kind == "literal_error":
+        return f"{path}: expected {msg.removeprefix('Input should be ')}, found {err.get('input')!r}"
+    found = err.get("input")
+    if kind in ("greater_than", "greater_than_equal", "less_than", "less_than_equal"):
+        return f"{path}: {msg.replace('Input should be', 'must be')} (found {found!r}, in SI)"
+    if kind.endswith("_type") or kind.startswith("int_"):
+        return f"{path}: {msg.replace('Input should be', 'expected')}, found {found!r}"
+    return f"{path}: {msg}"
+
+
+def format_path(loc: list) -> str:
+    out = ""
+    for part in loc:
+        if isinstance(part, int):
+            out += f"[{part}]"
+        elif isinstance(part, str) and part.startswith("["):
+            out += part.split(".")[0] + ("." + ".".join(part.split(".")[1:]) if "." in part else "")
+        else:
+            out += ("." if out else "") + str(part)
+    return out or "<top>"
+
+
+def _suggest(loc: list, model: type[BaseModel] | None) -> str:
+    """' (did you mean ...?)' from the known keys at that level of the model."""
+    known = _known_keys(loc[:-1], model)
+    if not known:
+        return ""
+    close = difflib.get_close_matches(str(loc[-1]), known, n=1, cutoff=0.5)
+    if close:
+        return f" (did you mean '{close[0]}'?)"
+    return f" (known keys: {', '.join(sorted(known))})"
+
+
+def _known_keys(loc: list, model: type[BaseModel] | None) -> list[str]:
+    import typing
+    current: Any = model
+    for part in loc:
+        if isinstance(part, int) or current is None:
+            continue
+        if not (isinstance(current, type) and issubclass(current, BaseModel)):
+            return []
+        field = current.model_fields.get(part)
+        if field is None:
+            return []
+        current = _model_in(field.annotation, typing)
+    if isinstance(current, type) and issubclass(current, BaseModel):
+        return [k for k in current.model_fields if k != "source"]
+    return []
+
+
+def _model_in(annotation: Any, typing) -> Any:
+    """The BaseModel class inside an annotation such as `list[Part]` or `Friction | None`."""
+    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
+        return annotation
+    for arg in typing.get_args(annotation):
+        found = _model_in(arg, typing)
+        if found is not None:
+            return found
+    return None

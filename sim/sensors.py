@@ -1,0 +1,73 @@
+"""Sensors: what the strategy sees of the true state, at the control rate.
+
+Each reading is taken from the true state `delay` seconds earlier (rounded to whole physics
+steps), then:
+- angle: quantised by an encoder (floor to whole counts), plus a fixed bias and white noise,
+  wrapped to (-pi, pi];
+- body rate: a rate gyro (true rate + bias + noise), or, with no gyro, the backward difference
+  of successive angle readings over one control period;
+- wheel speed: from encoder counts over one control period when `counts_per_rev` is set,
+  else the true relative speed; plus white noise.
+Noise is Gaussian with the given standard deviation, drawn from the trial's seeded generator.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .engine import wrap_angle
+
+
+class SensorSuite:
+    """Turns true-state history into measured values. `read(k)` is called on control ticks only."""
+
+    def __init__(self, sensors, *, step_s: float, n_ticks: int, rng: np.random.Generator):
+        self.delay_steps = int(round(sensors.delay / step_s))
+        self.period_s = 1.0 / sensors.rate
+        a, g, w = sensors.angle, sensors.rate_gyro, sensors.wheel
+        self.angle_res = 2 * math.pi / a.counts_per_rev if a.counts_per_rev else 0.0
+        self.angle_bias, self.angle_noise = a.bias, a.noise
+        self.has_gyro = g is not None
+        self.gyro_bias = g.bias if g else 0.0
+        self.gyro_noise = g.noise if g else 0.0
+        self.wheel_res = 2 * math.pi / w.counts_per_rev if w.counts_per_rev else 0.0
+        self.wheel_noise = w.noise
+        # all noise for the trial, drawn up front: one stream, no per-tick allocation
+        self.noise = rng.standard_normal((max(n_ticks, 1), 3))
+        self.tick = 0
+        self.prev_angle: float | None = None
+        self.prev_wheel_counts = 0.0
+
+    def read(self, k: int, angle: np.ndarray, rate: np.ndarray, wheel_angle: np.ndarray,
+             wheel_speed: np.ndarray) -> tuple[float, float, float]:
+        """(angle rad, body rate rad/s, wheel speed rad/s) as measured at physics step k.
+
+        The arrays are the true-state history (the trace's columns), filled up to index k.
+        """
+        j = k - self.delay_steps
+        if j < 0:
+            j = 0
+        n = self.noise[self.tick if self.tick < len(self.noise) else -1]
+        self.tick += 1
+        theta = angle[j]
+        if self.angle_res:
+            theta = math.floor(theta / self.angle_res) * self.angle_res
+        theta_m = wrap_angle(theta + self.angle_bias + self.angle_noise * n[0])
+        if self.has_gyro:
+            rate_m = rate[j] + self.gyro_bias + self.gyro_noise * n[1]
+        elif self.prev_angle is None:
+            rate_m = 0.0
+        else:
+            rate_m = wrap_angle(theta_m - self.prev_angle) / self.period_s
+        self.prev_angle = theta_m
+        if self.wheel_res:
+            counts = math.floor(wheel_angle[j] / self.wheel_res)
+            if self.tick == 1:
+                self.prev_wheel_counts = math.floor(wheel_angle[j] / self.wheel_res - wheel_speed[j] * self.period_s / self.wheel_res)
+            wheel_m = (counts - self.prev_wheel_counts) * self.wheel_res / self.period_s
+            self.prev_wheel_counts = counts
+        else:
+            wheel_m = wheel_speed[j]
+        return theta_m, rate_m, wheel_m + self.wheel_noise * n[2]

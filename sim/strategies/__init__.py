@@ -1,0 +1,131 @@
+"""Strategy registry: built-in kinds by name, plug-ins by path or entry point.
+
+`resolve_spec(raw, base_dir=...)` turns the scenario's `strategy:` mapping into a
+`StrategySpec` (class + validated parameters). It is called once, at scenario load.
+"""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+import importlib
+import importlib.util
+import sys
+from pathlib import Path
+from typing import Any
+
+from pydantic import ValidationError
+
+from .base import Reading, Strategy, StrategyParams, StrategySpec
+
+__all__ = ["BUILTIN", "Reading", "Strategy", "StrategyParams", "StrategySpec", "resolve_spec", "known_kinds"]
+
+# name -> "module:Class"; imported only when used, to keep start-up short
+BUILTIN: dict[str, str] = {
+    "coast": "sim.strategies.bench:Coast",
+    "fixed_voltage": "sim.strategies.bench:FixedVoltage",
+    "lqr": "sim.strategies.lqr:LqrBalance",
+}
+
+ENTRY_POINT_GROUP = "wheelbench.strategies"
+
+
+def known_kinds() -> list[str]:
+    names = set(BUILTIN)
+    names.update(ep.name for ep in _entry_points())
+    return sorted(names)
+
+
+def _entry_points():
+    from importlib.metadata import entry_points
+    try:
+        return list(entry_points(group=ENTRY_POINT_GROUP))
+    except Exception:  # a broken installed distribution must not stop a built-in from loading
+        return []
+
+
+def builtin_class(kind: str) -> type[Strategy]:
+    module, _, name = BUILTIN[kind].partition(":")
+    return getattr(importlib.import_module(module), name)
+
+
+def resolve_spec(raw: Any, *, base_dir: Path) -> StrategySpec:
+    """Validate a `strategy:` mapping. Raises ValueError("@key: ...") for the scenario loader."""
+    if isinstance(raw, StrategySpec):
+        return raw
+    if not isinstance(raw, dict):
+        raise ValueError(f"expected a mapping with 'kind' or 'plugin', found {type(raw).__name__}")
+    raw = dict(raw)
+    kind, plugin = raw.pop("kind", None), raw.pop("plugin", None)
+    if (kind is None) == (plugin is None):
+        raise ValueError("@kind: give exactly one of 'kind' (a built-in) and 'plugin' (file.py:Class or module:Class)")
+    if kind is not None:
+        cls, name = _class_for_kind(kind), str(kind)
+    else:
+        cls, name = _class_for_plugin(plugin, base_dir), str(plugin)
+    try:
+        params = cls.Params.model_validate(raw, context={"base_dir": base_dir})
+    except ValidationError as exc:
+        from ..scenario import describe_validation_error
+        raise ValueError("@" + describe_validation_error(exc, cls.Params)) from None
+    return StrategySpec(kind=name, cls=cls, params=params)
+
+
+def _class_for_kind(kind: Any) -> type[Strategy]:
+    if not isinstance(kind, str):
+        raise ValueError(f"@kind: expected a strategy name, found {kind!r}")
+    if kind in BUILTIN:
+        return builtin_class(kind)
+    for ep in _entry_points():
+        if ep.name == kind:
+            return _checked(_load_entry_point(ep), f"entry point {kind!r}")
+    close = difflib.get_close_matches(kind, known_kinds(), n=1)
+    hint = f" (did you mean '{close[0]}'?)" if close else ""
+    raise ValueError(f"@kind: unknown strategy {kind!r}{hint}; known: {', '.join(known_kinds())}")
+
+
+def _load_entry_point(ep):
+    try:
+        return ep.load()
+    except Exception as exc:
+        raise ValueError(f"@kind: loading entry point {ep.name!r} failed: {type(exc).__name__}: {exc}") from None
+
+
+def _class_for_plugin(plugin: Any, base_dir: Path) -> type[Strategy]:
+    if not isinstance(plugin, str) or plugin.count(":") != 1:
+        raise ValueError(f"@plugin: expected 'path/to/file.py:ClassName' or 'package.module:ClassName', found {plugin!r}")
+    target, _, cls_name = plugin.partition(":")
+    if target.endswith(".py"):
+        module = _import_file(Path(target) if Path(target).is_absolute() else base_dir / target, plugin)
+    else:
+        try:
+            module = importlib.import_module(target)
+        except Exception as exc:
+            raise ValueError(f"@plugin: cannot import module {target!r} ({type(exc).__name__}: {exc})") from None
+    cls = getattr(module, cls_name, None)
+    if cls is None:
+        raise ValueError(f"@plugin: {target!r} has no class {cls_name!r}")
+    return _checked(cls, plugin)
+
+
+def _import_file(path: Path, plugin: str):
+    if not path.is_file():
+        raise ValueError(f"@plugin: no such file {str(path)!r}")
+    name = "wheelbench_plugin_" + hashlib.sha1(str(path.resolve()).encode()).hexdigest()[:12]
+    if name in sys.modules:
+        return sys.modules[name]
+    spec = importlib.util.spec_from_file_location(name, path)
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[name] = module
+    try:
+        spec.loader.exec_module(module)
+    except Exception as exc:
+        sys.modules.pop(name, None)
+        raise ValueError(f"@plugin: importing {str(path)!r} failed ({type(exc).__name__}: {exc})") from None
+    return module
+
+
+def _checked(cls: Any, where: str) -> type[Strategy]:
+    if not (isinstance(cls, type) and issubclass(cls, Strategy)):
+        raise ValueError(f"@plugin: {where} is not a subclass of sim.strategies.Strategy")
+    return cls

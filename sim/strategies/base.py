@@ -1,0 +1,119 @@
+"""The strategy contract: the one extension point for balance and swing-up laws."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any, ClassVar
+
+from pydantic import BaseModel, ConfigDict
+
+from ..errors import StrategyError
+from ..units import Q
+
+
+class StrategyParams(BaseModel):
+    """Base for a strategy's parameters: validated once at scenario load, frozen, unknown keys rejected."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True, arbitrary_types_allowed=True)
+
+    release_angle: Q("angle", gt=0, le=math.pi) = math.radians(30)
+    """Balancing strategies: the body counts as fallen beyond this angle from upright, rad."""
+
+
+class Reading:
+    """What the sensors report at one control tick (SI; conventions as in `sim.scenario`).
+
+    One object is reused for the whole trial: copy values out if a strategy keeps them.
+    """
+
+    __slots__ = ("t_s", "angle_rad", "rate_rad_s", "wheel_speed_rad_s")
+
+    def __init__(self) -> None:
+        self.t_s = 0.0
+        self.angle_rad = 0.0
+        self.rate_rad_s = 0.0
+        self.wheel_speed_rad_s = 0.0
+
+
+class Strategy:
+    """Base class of every strategy. The contract:
+
+    1. Construction. The runner builds one instance per trial as
+       ``Cls(device=..., params=..., rng=...)``: `device` is the `sim.device.Device` (lumped SI
+       parameters, including `supply_v`, `control_rate_hz` and `delay_s`); `params` is an
+       instance of the class's `Params` (a `StrategyParams` subclass), already validated when
+       the scenario loaded; `rng` is the trial's seeded numpy Generator, the only randomness
+       a strategy may use. Designs (gains, predictors) are computed in `__init__`.
+    2. The law. A subclass implements ``decide(reading) -> float``: the voltage it wants across
+       the motor winding, in volts, positive accelerating the wheel in the positive sense. It is
+       called once per control tick, in time order; the runner holds the result until the
+       next tick (zero-order hold). It sees only the `Reading` (measured angle, body rate,
+       wheel speed and time), never the true state or the engine.
+    3. Limits. The base clamps the voltage to +-supply and counts the ticks where it had to;
+       a non-finite voltage ends the trial with outcome `strategy_failed`, as does any
+       exception raised by `decide`.
+    4. Phase. `self.phase` names what the law is doing now, in a few words ("balance",
+       "swing up", ...); the trace's `mode` column reports it.
+    5. Goal. `goal = "balance"` for strategies that aim to hold the body upright (the runner
+       then judges balanced / fell / not caught), None for bench strategies (outcome
+       `completed`). `self.balancing` is True while the balance law is in charge; a balance-only
+       strategy is balancing from the start.
+    6. Brake and open circuit. A strategy for a device with `drive.brake_torque` may set
+       `self.brake = True` to clamp the wheel to the body with the brake, and False to release
+       it. `self.open_circuit = True` floats the winding: no current flows whatever the voltage
+       (a driver switched off, as opposed to one holding 0 V, which brakes by back-EMF).
+    7. Registration. Built-ins are named in `sim.strategies.BUILTIN`; a plug-in is any subclass
+       named in a scenario by "file.py:Class" or "package.module:Class", or registered under the
+       entry-point group "wheelbench.strategies".
+    """
+
+    kind: ClassVar[str] = "custom"
+    goal: ClassVar[str | None] = "balance"
+
+    class Params(StrategyParams):
+        model_config = ConfigDict(extra="allow", frozen=True)
+
+    def __init__(self, *, device, params: StrategyParams, rng) -> None:
+        self.device = device
+        self.params = params
+        self.rng = rng
+        self.phase = "balance" if self.goal == "balance" else "bench"
+        self.balancing = self.goal == "balance"
+        self.brake = False
+        self.open_circuit = False
+        self.supply_v = device.supply_v
+        self.saturated_ticks = 0
+
+    def decide(self, reading: Reading) -> float:  # pragma: no cover - the contract
+        raise NotImplementedError
+
+    def command(self, reading: Reading) -> float:
+        """The base's part of each tick: call `decide`, check and clamp. Returns volts."""
+        v = self.decide(reading)
+        try:
+            v = float(v)
+        except (TypeError, ValueError):
+            raise StrategyError(f"decide() returned {type(v).__name__}, not a voltage") from None
+        if not math.isfinite(v):
+            raise StrategyError(f"decide() returned a non-finite voltage ({v})")
+        if v > self.supply_v:
+            self.saturated_ticks += 1
+            return self.supply_v
+        if v < -self.supply_v:
+            self.saturated_ticks += 1
+            return -self.supply_v
+        return v
+
+
+@dataclass(frozen=True)
+class StrategySpec:
+    """A resolved strategy: its name, its class and its validated parameters."""
+
+    kind: str
+    cls: Any
+    params: Any
+
+    def build(self, device, *, rng) -> Strategy:
+        """A fresh strategy instance for one trial."""
+        return self.cls(device=device, params=self.params, rng=rng)
