@@ -58,7 +58,8 @@ class Strategy:
     5. Goal. `goal = "balance"` for strategies that aim to hold the body upright (the runner
        then judges balanced / fell / not caught), None for bench strategies (outcome
        `completed`). `self.balancing` is True while the balance law is in charge; a balance-only
-       strategy is balancing from the start.
+       strategy is balancing from the start. `swings_up = True` marks strategies that can bring
+       the body up from hanging (the `check` battery then tries a swing-up).
     6. Brake and open circuit. A strategy for a device with `drive.brake_torque` may set
        `self.brake = True` to clamp the wheel to the body with the brake, and False to release
        it. `self.open_circuit = True` floats the winding: no current flows whatever the voltage
@@ -70,6 +71,7 @@ class Strategy:
 
     kind: ClassVar[str] = "custom"
     goal: ClassVar[str | None] = "balance"
+    swings_up: ClassVar[bool] = False   # True when the strategy can bring the body up from hanging
 
     class Params(StrategyParams):
         model_config = ConfigDict(extra="allow", frozen=True)
