@@ -1,0 +1,80 @@
+"""Shared fixtures: a small test device built here, independent of the demo scenarios.
+
+The demo files in `scenarios/` and `sim/data/` are retuned by others; tests build their own
+mapping with `scenario_dict(...)` and validate it with `make_scenario(...)`. All numbers below
+are invented for tests (not a real device).
+"""
+
+from __future__ import annotations
+
+import copy
+from pathlib import Path
+
+import pytest
+import yaml
+
+
+def base_scenario() -> dict:
+    """A raw scenario mapping: a 0.2 m rod with a 0.1 kg tip mass and a 30 g steel-ish disk wheel.
+
+    No friction, no sensor imperfections, a fixed-voltage bench strategy at 0 V, 0.5 s long.
+    """
+    return {
+        "name": "test pendulum",
+        "world": {"gravity": 9.81, "step": 0.001},
+        "body": {
+            "parts": [
+                {"name": "arm", "shape": "rod", "length": 0.2, "mass": 0.05, "at": 0.1},
+                {"name": "tip", "shape": "point", "mass": 0.1, "at": 0.2},
+            ],
+        },
+        "wheel": {
+            "at": 0.2,
+            "parts": [{"name": "disk", "shape": "disk", "radius": 0.05, "thickness": 0.005, "mass": 0.1}],
+        },
+        "motor": {"speed_constant": "300 rpm/V", "resistance": 2.0, "mass": 0.0},
+        "drive": {"supply": 12.0},
+        "strategy": {"kind": "fixed_voltage", "volts": 0.0},
+        "trial": {"duration": 0.5, "start": {"angle": 0.0}},
+    }
+
+
+def deep_merge(base: dict, extra: dict) -> dict:
+    """`base` with `extra` merged in: nested mappings merge key by key, anything else replaces."""
+    out = copy.deepcopy(base)
+    for key, value in extra.items():
+        if isinstance(value, dict) and isinstance(out.get(key), dict):
+            out[key] = deep_merge(out[key], value)
+        else:
+            out[key] = copy.deepcopy(value)
+    return out
+
+
+def scenario_dict(**sections) -> dict:
+    """The test mapping with sections merged in, e.g. scenario_dict(drive={"supply": 24}).
+
+    `strategy` replaces the whole strategy mapping (parameters of one kind do not fit another).
+    """
+    out = deep_merge(base_scenario(), {k: v for k, v in sections.items() if k != "strategy"})
+    if "strategy" in sections:
+        out["strategy"] = copy.deepcopy(sections["strategy"])
+    return out
+
+
+def make_scenario(**sections):
+    """A validated `Scenario` from the test mapping with `sections` merged in."""
+    from sim.scenario import validate_scenario
+
+    return validate_scenario(scenario_dict(**sections), where="<test scenario>")
+
+
+def write_scenario(path: Path, mapping: dict) -> Path:
+    """Write `mapping` as YAML to `path` and return the path."""
+    path.write_text(yaml.safe_dump(mapping, sort_keys=False), encoding="utf-8")
+    return path
+
+
+@pytest.fixture
+def scenario_file(tmp_path) -> Path:
+    """The test scenario written to a YAML file in a fresh temporary folder."""
+    return write_scenario(tmp_path / "test.yaml", base_scenario())
