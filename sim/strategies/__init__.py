@@ -25,6 +25,9 @@ BUILTIN: dict[str, str] = {
     "coast": "sim.strategies.bench:Coast",
     "fixed_voltage": "sim.strategies.bench:FixedVoltage",
     "lqr": "sim.strategies.lqr:LqrBalance",
+    "energy": "sim.strategies.swingup:EnergySwingUp",
+    "pump": "sim.strategies.swingup:PumpSwingUp",
+    "swing_and_catch": "sim.strategies.supervisor:SwingAndCatch",
 }
 
 ENTRY_POINT_GROUP = "wheelbench.strategies"
