@@ -9,7 +9,7 @@ wheel axis; mbar = sum(m_i * l_i) is the body's first moment of mass about the p
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -43,8 +43,10 @@ class Device:
     @classmethod
     def from_scenario(cls, sc) -> "Device":
         w = sc.wheel
-        wheel = wheel_props(w.parts, rotor_inertia=sc.motor.rotor_inertia)
+        wheel = _corrected(wheel_props(w.parts, rotor_inertia=sc.motor.rotor_inertia), w.inertia_correction)
         body = body_props(sc.body.parts, extra_point_masses=[(sc.motor.mass, w.at)] if sc.motor.mass else [])
+        # a correction about the pivot is the same about the centre of mass (parallel axes)
+        body = _corrected(body, sc.body.inertia_correction)
         mass_all = body.mass_kg + wheel.mass_kg
         mbar = body.mass_kg * body.com_m + wheel.mass_kg * w.at
         J = body.about_pivot_x() + wheel.mass_kg * w.at**2
@@ -114,3 +116,11 @@ class Device:
         ])
         B = c * np.array([[0.0], [-1.0 / J], [1.0 / Iw + 1.0 / J]])
         return A, B
+
+
+def _corrected(props: RigidProps, correction_kg_m2: float) -> RigidProps:
+    """`props` with `correction_kg_m2` added to the inertia about the x (pivot/spin) axis."""
+    if not correction_kg_m2:
+        return props
+    ix, iy, iz = props.inertia_com
+    return replace(props, inertia_com=(ix + correction_kg_m2, iy, iz))

@@ -154,6 +154,8 @@ class Body(Strict):
     pivot_friction: Friction = Friction()
     locked: bool = False
     """True clamps the body at its start angle (a bench test of the wheel drive)."""
+    inertia_correction: Q("inertia") = 0.0
+    """Signed, kg m^2: added to the body's inertia about the pivot (e.g. from `wheelbench fit`)."""
 
 
 class Wheel(Strict):
@@ -161,6 +163,8 @@ class Wheel(Strict):
     """Pivot-to-wheel-axis distance, m."""
     parts: Annotated[list[Part], Field(min_length=1, max_length=200)]
     bearing_friction: Friction = Friction()
+    inertia_correction: Q("inertia") = 0.0
+    """Signed, kg m^2: added to the wheel's spin inertia (e.g. from `wheelbench fit`)."""
 
     @field_validator("parts")
     @classmethod
@@ -290,6 +294,25 @@ class Scenario(Strict):
                              f"number of physics steps ({self.world.step:g} s)")
         if self.trial.pushes and max(p.at for p in self.trial.pushes) > self.trial.duration:
             raise ValueError("@trial.pushes: a push comes after the end of the trial")
+        return self
+
+    @model_validator(mode="after")
+    def _corrected_inertias_positive(self):
+        # a fitted correction may be negative; the corrected inertias must stay physical
+        from .massprops import body_props, wheel_props
+        corr = self.body.inertia_correction
+        if corr:
+            extra = [(self.motor.mass, self.wheel.at)] if self.motor.mass else []
+            own = body_props(self.body.parts, extra_point_masses=extra).inertia_com[0]
+            if own + corr <= 0.0:
+                raise ValueError(f"@body.inertia_correction: {corr:.4g} kg m^2 would make the body's inertia "
+                                 f"about its centre of mass ({own:.4g} kg m^2) zero or negative")
+        corr = self.wheel.inertia_correction
+        if corr:
+            own = wheel_props(self.wheel.parts, rotor_inertia=self.motor.rotor_inertia).inertia_com[0]
+            if own + corr <= 0.0:
+                raise ValueError(f"@wheel.inertia_correction: {corr:.4g} kg m^2 would make the wheel's spin "
+                                 f"inertia ({own:.4g} kg m^2) zero or negative")
         return self
 
     @property
