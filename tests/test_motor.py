@@ -1,0 +1,128 @@
+"""The motor and drive against the DC-motor equations, on a locked body (a bench test of the drive).
+
+Model (references.md, "Motor"): L di/dt = V - R i - k_e w, tau = k_t i, w relative to the body.
+With the body locked and no friction: I_w dw/dt = k_t i, so from rest at a fixed voltage
+w(t) = (V/k_e) (1 - exp(-t/tau_m)), tau_m = I_w R / (k_t k_e) (inductance neglected).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+
+from conftest import make_scenario
+from sim.device import Device
+from sim.metrics import trial_metrics
+from sim.trial import run_trial
+
+# 80 g disk of radius 50 mm: I_w = m r^2 / 2 = 1e-4 kg m^2 (the check value's J in references.md)
+WHEEL_1E4 = {"at": 0.2, "parts": [{"shape": "disk", "radius": 0.05, "thickness": 0.005, "mass": 0.08}]}
+
+
+def bench(*, volts=12.0, kv="100 rpm/V", resistance="1 ohm", duration=0.15, step=1e-3, wheel=WHEEL_1E4, **motor):
+    """A locked-body fixed-voltage trial; returns the TrialResult."""
+    sc = make_scenario(world={"step": step}, body={"locked": True}, wheel=wheel,
+                       motor={"speed_constant": kv, "resistance": resistance, **motor},
+                       drive={"supply": max(abs(volts), 1.0)},
+                       strategy={"kind": "fixed_voltage", "volts": volts}, trial={"duration": duration})
+    return run_trial(sc)
+
+
+def test_reference_check_values_from_the_scenario():
+    # references.md, "Motor", check value [calc]: Kv 100 rpm/V, 12 V, R 1 ohm, J 1e-4 kg m^2 ->
+    # k_e 0.095493 V s/rad, no-load 125.66 rad/s, stall 1.1459 N m, tau_m 10.97 ms.
+    # k_e = 60 / (2 pi Kv) (references.md [mem, standard]). Tolerance: the 5 digits quoted, rtol 5e-5.
+    sc = make_scenario(body={"locked": True}, wheel=WHEEL_1E4,
+                       motor={"speed_constant": "100 rpm/V", "resistance": "1 ohm"}, drive={"supply": "12 V"})
+    d = Device.from_scenario(sc)
+    tau_m = d.I_w_kg_m2 * d.resistance_ohm / (d.k_t_n_m_a * d.k_e_v_s_rad)
+    assert_allclose([d.k_e_v_s_rad, d.no_load_speed_rad_s, d.stall_torque_n_m, tau_m],
+                    [0.095493, 125.66, 1.1459, 10.97e-3], rtol=5e-4)
+    assert_allclose(d.k_e_v_s_rad, 60 / (2 * math.pi * 100), rtol=1e-12)
+    assert d.k_t_n_m_a == d.k_e_v_s_rad  # ideal motor: k_t = k_e in SI (references.md)
+
+
+@pytest.mark.parametrize("kt_factor", [1.0, 1.5], ids=["kt=ke", "kt=1.5ke"])
+def test_locked_body_fixed_voltage_speed_and_time_constant(kt_factor):
+    # No-load speed V/k_e and mechanical time constant tau_m = I_w R / (k_t k_e): the speed reaches
+    # 63.2% (1 - 1/e) of its final value at tau_m (references.md, "Motor"). A torque constant other
+    # than k_e changes tau_m but not the final speed.
+    # Tolerances: final speed rtol 1e-4 after ~14 tau_m (exp(-14) = 8e-7); 63.2% time rtol 1e-2
+    # (observed 1e-3 at a 1 ms step, thanks to the mid-step back-EMF); whole trace atol 1e-3 of V/k_e.
+    k_e = 60 / (2 * math.pi * 100)
+    r = bench(torque_constant=kt_factor * k_e)
+    d = r.device
+    t, w = r.trace.view("t"), r.trace.view("wheel_speed")
+    final = 12.0 / k_e
+    tau_m = d.I_w_kg_m2 * d.resistance_ohm / (kt_factor * k_e * k_e)
+    assert_allclose(w[-1], final, rtol=1e-4)
+    assert_allclose(np.interp((1 - math.exp(-1)) * final, w, t), tau_m, rtol=1e-2)
+    assert_allclose(w, final * (1 - np.exp(-t / tau_m)), atol=1e-3 * final)
+
+
+def test_wheel_spins_past_300_rad_s_as_the_motor_equations_say():
+    # Kv 300 rpm/V at 12 V: no-load 376.99 rad/s (V/k_e). pybullet's default 100 rad/s joint clamp
+    # (references.md, "pybullet facts") would hold the wheel at 100; the speed must follow
+    # w(t) = V/k_e (1 - exp(-t/tau_m)) to atol 1e-3 of V/k_e and pass 300 rad/s.
+    r = bench(kv="300 rpm/V", duration=0.6)
+    d = r.device
+    t, w = r.trace.view("t"), r.trace.view("wheel_speed")
+    final = 12.0 * 2 * math.pi * 300 / 60
+    tau_m = d.I_w_kg_m2 * d.resistance_ohm / (d.k_t_n_m_a * d.k_e_v_s_rad)
+    assert_allclose(w, final * (1 - np.exp(-t / tau_m)), atol=1e-3 * final)
+    assert w[-1] > 300.0
+    assert_allclose(trial_metrics(r)["wheel_speed_limit_rad_s"], final, rtol=1e-12)
+
+
+@pytest.mark.parametrize("volts", [12.0, -12.0])
+def test_current_limit_clamps_and_gives_constant_torque(volts):
+    # Stall current V/R = 12 A is clamped to 2 A; while clamped the torque is k_t * 2 A and the wheel
+    # accelerates uniformly: w = k_t I_lim t / I_w (Newton's second law for rotation). The clamp
+    # holds until the back-EMF brings (V - k_e w)/R below the limit, at w = (V - R I_lim)/k_e = 104.7 rad/s.
+    # Tolerances: current exact to 1e-12 A; speed rtol 1e-9 in the clamped phase.
+    limit = 2.0
+    r = bench(volts=volts, current_limit=limit, duration=0.1)
+    d = r.device
+    t, w, cur = r.trace.view("t"), r.trace.view("wheel_speed"), r.trace.view("current")
+    sign = math.copysign(1.0, volts)
+    assert_allclose(np.max(np.abs(cur)), limit, atol=1e-12)
+    clamped = np.abs(w) < 0.9 * (12.0 - 1.0 * limit) / d.k_e_v_s_rad
+    assert clamped.sum() > 40  # ~49 ms at 1910 rad/s^2
+    assert_allclose(cur[clamped], sign * limit, atol=1e-12)
+    assert_allclose(w[clamped], sign * d.k_t_n_m_a * limit * t[clamped] / d.I_w_kg_m2, rtol=1e-9, atol=1e-12)
+    assert_allclose(trial_metrics(r)["peak_current_a"], limit, atol=1e-12)
+
+
+def test_energy_from_supply_is_the_integral_of_v_times_i():
+    # E = integral V i dt. At a fixed V: E = V integral i dt, and k_t integral i dt = I_w w_end
+    # (angular impulse = change of angular momentum), so E = V I_w w_end / k_t (tolerance 1e-9:
+    # an exact identity of the discrete run too). Energy balance: E = 1/2 I_w w^2 + integral i^2 R dt
+    # (Joule heating); tolerance 2e-3, the step's discretisation of the heat integral.
+    r = bench(duration=0.1)
+    d = r.device
+    m = trial_metrics(r)
+    w_end_after_last_step = r.trace.view("wheel_speed")[-1] + d.k_t_n_m_a * r.trace.view("current")[-1] * 1e-3 / d.I_w_kg_m2
+    e_impulse = 12.0 * d.I_w_kg_m2 * w_end_after_last_step / d.k_t_n_m_a
+    assert_allclose(m["energy_from_supply_j"], e_impulse, rtol=1e-9)
+    heat = np.sum(r.trace.view("current") ** 2) * d.resistance_ohm * 1e-3
+    assert_allclose(m["energy_from_supply_j"], 0.5 * d.I_w_kg_m2 * w_end_after_last_step**2 + heat, rtol=2e-3)
+
+
+def test_inductance_current_rises_with_time_constant_l_over_r():
+    # With the wheel nearly still (a 10 kg, 0.2 m disk: I_w = 0.2 kg m^2, so tau_m ~ 200 s) the
+    # current rises as i = V/R (1 - exp(-t R / L)): 63.2% at L/R (first-order RL circuit, any
+    # circuits text). L 10 mH, R 1 ohm -> 10 ms; step 0.1 ms. Tolerance: one step on the 63.2% time,
+    # atol 1e-3 of V/R on the whole rise (back-EMF here is < 0.01% of V).
+    heavy = {"at": 0.2, "parts": [{"shape": "disk", "radius": 0.2, "thickness": 0.01, "mass": 10.0}]}
+    step = 1e-4
+    r = bench(kv="300 rpm/V", inductance="10 mH", duration=0.05, step=step, wheel=heavy)
+    cur = r.trace.view("current")
+    # row k holds the current at the end of step k (applied over that step): time (k + 1) * step
+    t_end = r.trace.view("t") + step
+    i_final = 12.0 / 1.0
+    assert_allclose(np.interp((1 - math.exp(-1)) * i_final, cur, t_end), 0.010, atol=step)
+    assert_allclose(cur, i_final * (1 - np.exp(-t_end / 0.010)), atol=1e-3 * i_final)
+    assert cur[0] < 0.02 * i_final  # the current does not jump: the inductance is in effect
