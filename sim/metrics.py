@@ -27,7 +27,7 @@ def trial_metrics(result) -> dict:
     rms = float(np.sqrt(np.mean(cur**2))) if tr.n else 0.0
     energy = float(np.sum(volt * cur) * dt)
     caught = result.caught_at_s
-    return {
+    metrics = {
         "outcome": result.outcome,
         "message": result.message,
         "strategy": result.scenario.strategy.kind,
@@ -55,6 +55,11 @@ def trial_metrics(result) -> dict:
         "physics_step_s": dt,
         "control_rate_hz": dev.control_rate_hz,
     }
+    # a strategy may report figures of its own (e.g. a jump's needed and reached wheel speed);
+    # they never replace the runner's keys
+    extra = getattr(result.strategy, "extra_metrics", None) or {}
+    metrics.update({k: v for k, v in extra.items() if k not in metrics})
+    return metrics
 
 
 def settle_time(angle: np.ndarray, dt: float, caught_at_s: float | None, pushes) -> float | None:

@@ -28,6 +28,8 @@ BUILTIN: dict[str, str] = {
     "energy": "sim.strategies.swingup:EnergySwingUp",
     "pump": "sim.strategies.swingup:PumpSwingUp",
     "swing_and_catch": "sim.strategies.supervisor:SwingAndCatch",
+    "pid": "sim.strategies.pid:PidBalance",
+    "jump": "sim.strategies.jump:BrakeJump",
 }
 
 ENTRY_POINT_GROUP = "wheelbench.strategies"

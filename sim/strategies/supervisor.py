@@ -100,6 +100,7 @@ class SwingAndCatch(Strategy):
         self.phase = self.active.phase
         self.region = self._catch_region() if self.params.catch_region else None
         self.handovers = 0
+        self.extra_metrics: dict = {"handover_count": 0}   # plus the sub-laws' own reports
 
     def _fresh(self, spec: StrategySpec) -> Strategy:
         law = spec.build(self.device, rng=self.rng)
@@ -133,6 +134,10 @@ class SwingAndCatch(Strategy):
         v = float(law.decide(reading))
         self.phase = law.phase
         self.brake, self.open_circuit = law.brake, law.open_circuit
+        extra = getattr(law, "extra_metrics", None)
+        if extra:
+            self.extra_metrics.update(extra)
+        self.extra_metrics["handover_count"] = self.handovers
         self._recent[:-1] = self._recent[1:]
         self._recent[-1] = min(max(v, -self.supply_v), self.supply_v)
         return v
