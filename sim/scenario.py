@@ -176,6 +176,23 @@ class Wheel(Strict):
         return parts
 
 
+class MotorThermal(Strict):
+    """Winding heating, first-order model (see `sim.thermal`). Temperatures in degC (bare numbers too).
+
+    Defaults: common practice for small hobby motors, no source; replace them with your motor's
+    datasheet figures.
+    """
+
+    thermal_resistance: Q("temperature_rise_per_watt", gt=0) = 10.0
+    """Winding-to-ambient thermal resistance, K/W."""
+    thermal_capacity: Q("heat_capacity", gt=0) = 20.0
+    """Heat capacity of winding and stator, J/K."""
+    ambient: Q("temperature", ge=-60, le=200) = 25.0
+    """Ambient temperature, degC."""
+    max_temperature: Q("temperature", gt=-60, le=400) = 100.0
+    """Highest acceptable winding temperature, degC (kept well below insulation class B, 130 degC)."""
+
+
 class Motor(Strict):
     name: str | None = None
     speed_constant: Q("speed_constant", gt=0) | None = None
@@ -189,6 +206,7 @@ class Motor(Strict):
     current_limit: Q("current", gt=0) | None = None
     rotor_inertia: Q("inertia", ge=0) = 0.0
     mass: Q("mass", ge=0) = 0.0
+    thermal: MotorThermal = MotorThermal()
 
     @model_validator(mode="after")
     def _one_speed_constant(self):
@@ -262,6 +280,28 @@ class Trial(Strict):
     """True ends the trial as soon as its outcome is settled (used by sweeps and bisection)."""
 
 
+class Requirements(Strict):
+    """Limits the `check` battery judges against. Defaults are our choice unless noted."""
+
+    wheel_speed_margin: Q("fraction", ge=0, lt=1) = 0.2
+    """Peak wheel speed must stay this far below the no-load speed at the supply."""
+    settle_time: Q("time", gt=0) = 2.0
+    """From the catch until the angle stays within 1 degree, s."""
+    swing_up_time: Q("time", gt=0) = 10.0
+    """From hanging to caught, s (strategies that swing up)."""
+    min_push: Q("impulse", ge=0) = 0.005
+    """Smallest angular impulse about the pivot the design must survive, N m s."""
+    burst_safety_factor: Annotated[float, Field(gt=0, le=1000, allow_inf_nan=False)] = 4.0
+    """On stress at the runaway speed; 4 on the across-layer strength is a suggested minimum for
+    printed parts (references.md, [mem])."""
+    pass_fraction: Q("fraction", ge=0, le=1) = 0.95
+    """Share of Monte Carlo trials over the tolerances that must pass."""
+    voltage_headroom: Q("fraction", ge=0, lt=1) = 0.1
+    """While holding: 1 - (99th percentile |V|) / supply."""
+    current_headroom: Q("fraction", ge=0, lt=1) = 0.1
+    """While holding: 1 - (99th percentile |i|) / (current limit, or stall current without one)."""
+
+
 def _strategy_from_raw(raw: Any, info: ValidationInfo) -> StrategySpec:
     from .strategies import resolve_spec
     base_dir = (info.context or {}).get("base_dir", Path.cwd())
@@ -279,6 +319,10 @@ class Scenario(Strict):
     sensors: Sensors = Sensors()
     strategy: Annotated[StrategySpec, BeforeValidator(_strategy_from_raw)]
     trial: Trial = Trial()
+    requirements: Requirements = Requirements()
+    tolerances: dict[str, float | str] | None = None
+    """Monte Carlo tolerances: dotted key -> "10%" (relative) or a quantity (absolute); see `sim.tolerances`.
+    None: the defaults in `sim.tolerances.DEFAULT_TOLERANCES`."""
     source: str = "<memory>"
     """Where the scenario came from (for messages)."""
 
@@ -294,6 +338,9 @@ class Scenario(Strict):
                              f"number of physics steps ({self.world.step:g} s)")
         if self.trial.pushes and max(p.at for p in self.trial.pushes) > self.trial.duration:
             raise ValueError("@trial.pushes: a push comes after the end of the trial")
+        if self.tolerances is not None:
+            from .tolerances import parse_tolerances
+            parse_tolerances(self, self.tolerances)  # raises ValueError("@tolerances.<key>: ...")
         return self
 
     @model_validator(mode="after")

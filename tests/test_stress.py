@@ -1,0 +1,100 @@
+"""Burst stress of spinning wheel parts against handbook formulas and check values."""
+
+import math
+
+import numpy as np
+import pytest
+
+from sim.device import Device
+from sim.scenario import load_scenario
+from sim.stress import (bored_disk_stress_pa, radial_bar_stress_pa, solid_disk_stress_pa, thin_ring_stress_pa,
+                        wheel_burst_check)
+
+RHO_AL, NU_AL = 2700.0, 0.33          # Al 6061-T6, references.md [mem, datasheet ranges]
+W_10K_RPM = 10_000 * 2 * math.pi / 60
+
+
+def test_solid_disk_check_value():
+    # references.md [calc]: aluminium disk R 50 mm at 10,000 rpm, solid: 3.08 MPa
+    # (Timoshenko & Goodier, Theory of Elasticity, rotating disk). Value given to 3 figures.
+    np.testing.assert_allclose(solid_disk_stress_pa(RHO_AL, W_10K_RPM, 0.050, NU_AL), 3.08e6, rtol=2e-3)
+
+
+def test_bored_disk_check_value():
+    # references.md [calc]: same disk with a 5 mm bore (read as diameter): 6.17 MPa
+    # (Timoshenko & Goodier; Shigley, rotating disks). Value given to 3 figures.
+    np.testing.assert_allclose(bored_disk_stress_pa(RHO_AL, W_10K_RPM, 0.050, 0.0025, NU_AL), 6.17e6, rtol=2e-3)
+
+
+def test_thin_ring_check_value():
+    # references.md [calc]: thin ring r 50 mm at 10,000 rpm: 7.40 MPa (sigma = rho v^2, Shigley).
+    np.testing.assert_allclose(thin_ring_stress_pa(RHO_AL, W_10K_RPM, 0.050), 7.40e6, rtol=2e-3)
+
+
+def test_tiny_hole_doubles_and_thin_bore_tends_to_ring():
+    # references.md (Timoshenko & Goodier): even a tiny hole doubles the solid-disk value; a bore
+    # close to the rim tends to the thin-ring value rho w^2 r^2.
+    solid = solid_disk_stress_pa(RHO_AL, 500.0, 0.04, NU_AL)
+    np.testing.assert_allclose(bored_disk_stress_pa(RHO_AL, 500.0, 0.04, 1e-7, NU_AL), 2 * solid, rtol=1e-6)
+    np.testing.assert_allclose(bored_disk_stress_pa(RHO_AL, 500.0, 0.04, 0.04 * (1 - 1e-6), NU_AL),
+                               thin_ring_stress_pa(RHO_AL, 500.0, 0.04), rtol=1e-5)
+
+
+def test_radial_bar_against_integrated_load():
+    # Tension at the root of a radial bar = integral of rho w^2 r dr from a to b (free body of the
+    # bar outboard of the root; statics, any mechanics text). Checked by numerical quadrature.
+    from scipy.integrate import quad
+    a, b, w = 0.01, 0.06, 300.0
+    ref, _ = quad(lambda r: RHO_AL * w**2 * r, a, b)
+    np.testing.assert_allclose(radial_bar_stress_pa(RHO_AL, w, a, b), ref, rtol=1e-9)
+
+
+def _wheel_scenario(parts, supply="12 V"):
+    return load_scenario(data={
+        "body": {"parts": [{"shape": "rod", "length": "200 mm", "mass": "50 g", "at": "100 mm"}]},
+        "wheel": {"at": "200 mm", "parts": parts},
+        "motor": {"speed_constant": "300 rpm/V", "resistance": "2 ohm"},
+        "drive": {"supply": supply}, "strategy": {"kind": "lqr"}})
+
+
+PLA_RIM = [{"name": "rim", "shape": "ring", "outer_radius": "60 mm", "inner_radius": "40 mm",
+            "thickness": "6 mm", "material": "PLA"}]
+
+
+def test_printed_ring_uses_across_layer_strength_at_runaway_speed():
+    sc = _wheel_scenario(PLA_RIM)
+    check = wheel_burst_check(sc, Device.from_scenario(sc))
+    # Runaway speed = no-load speed at full supply = V * Kv (references.md, "Motor").
+    w = 12 * 300 * 2 * math.pi / 60
+    np.testing.assert_allclose(check["runaway_speed_rad_s"], w, rtol=1e-12)
+    expect = bored_disk_stress_pa(1240.0, w, 0.060, 0.040, 0.36)   # PLA density and nu from sim.materials [mem]
+    row = check["parts"][0]
+    np.testing.assert_allclose(row["stress_pa"], expect, rtol=1e-9)
+    assert row["strength_pa"] == 35e6 and "across-layer" in row["strength_basis"]   # PLA across layers [mem]
+    np.testing.assert_allclose(check["safety_factor"], 35e6 / expect, rtol=1e-9)
+    # Stress grows with w^2 (references.md): doubling the supply quarters the safety factor.
+    sc2 = _wheel_scenario(PLA_RIM, supply="24 V")
+    np.testing.assert_allclose(wheel_burst_check(sc2, Device.from_scenario(sc2))["safety_factor"],
+                               check["safety_factor"] / 4, rtol=1e-9)
+
+
+def test_unknown_strength_is_reported_not_guessed():
+    sc = _wheel_scenario([{"name": "mystery disk", "shape": "disk", "radius": "50 mm", "mass": "40 g"},
+                          {"shape": "point", "mass": "2 g", "at": "45 mm", "count": 4}])
+    check = wheel_burst_check(sc, Device.from_scenario(sc))
+    assert check["safety_factor"] is None
+    assert check["unknown_parts"] == ["mystery disk"]
+    assert "strength unknown" in check["parts"][0]["note"]
+    assert check["parts"][1]["safety_factor"] is None and "point mass" in check["parts"][1]["note"]
+
+
+def test_given_mass_sets_the_mean_density():
+    # A steel disk whose given mass is half its solid mass: the mean density halves, so does the stress.
+    r, t = 0.03, 0.005
+    solid_mass = 7850.0 * math.pi * r**2 * t        # mild steel density from sim.materials [mem]
+    sc = _wheel_scenario([{"shape": "disk", "radius": r, "thickness": t, "material": "steel",
+                           "mass": solid_mass / 2}])
+    check = wheel_burst_check(sc, Device.from_scenario(sc))
+    w = check["runaway_speed_rad_s"]
+    np.testing.assert_allclose(check["parts"][0]["stress_pa"], solid_disk_stress_pa(7850.0 / 2, w, r, 0.29), rtol=1e-9)
+    assert check["parts"][0]["strength_basis"].startswith("tensile")

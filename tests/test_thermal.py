@@ -1,0 +1,60 @@
+"""Winding temperature: first-order model with the copper temperature coefficient."""
+
+import math
+
+import numpy as np
+from scipy.integrate import solve_ivp
+
+from sim.scenario import load_scenario
+from sim.thermal import COPPER_TEMPCO_PER_K, steady_temperature_c, temperature_history_c, winding_check
+
+
+def _rhs(i_of_t, r20, rth, cth, amb, alpha):
+    # references.md "Motor": C dT/dt = I^2 R(T) - (T - T_amb)/R_th, R(T) = R20 (1 + alpha (T - 20)) [mem]
+    return lambda t, y: [(i_of_t(t) ** 2 * r20 * (1 + alpha * (y[0] - 20.0)) - (y[0] - amb) / rth) / cth]
+
+
+def test_history_matches_an_independent_ode_integration():
+    # Reference: scipy's RK45 on the same equation, a current stepping between 3 A and 1 A.
+    r20, rth, cth, amb = 1.5, 8.0, 15.0, 25.0
+    dt, n = 0.05, 4000
+    current = np.where((np.arange(n) // 600) % 2 == 0, 3.0, 1.0)
+    ours = temperature_history_c(current, dt, resistance_20c_ohm=r20, thermal_resistance_k_w=rth,
+                                 thermal_capacity_j_k=cth, ambient_c=amb)
+    ref = solve_ivp(_rhs(lambda t: current[min(int(t / dt + 1e-9), n - 1)], r20, rth, cth, amb, COPPER_TEMPCO_PER_K),
+                    (0, n * dt), [amb], t_eval=np.arange(1, n + 1) * dt, max_step=dt / 2, rtol=1e-9, atol=1e-9)
+    np.testing.assert_allclose(ours, ref.y[0], atol=0.02)    # within 0.02 K
+
+
+def test_without_tempco_is_the_textbook_first_order_step():
+    # With alpha = 0: T = T_amb + I^2 R R_th (1 - exp(-t/tau)), tau = R_th C; 63.2% at t = tau
+    # (first-order step response, any control text; references.md uses the same 63.2% for tau_m).
+    rth, cth = 5.0, 40.0
+    tau = rth * cth
+    t = np.arange(1, 2001) * 0.5
+    temps = temperature_history_c(np.full(t.size, 2.0), 0.5, resistance_20c_ohm=1.0, thermal_resistance_k_w=rth,
+                                  thermal_capacity_j_k=cth, ambient_c=20.0, tempco_per_k=0.0)
+    np.testing.assert_allclose(temps, 20.0 + 4.0 * 5.0 * (1 - np.exp(-t / tau)), rtol=1e-9)
+    np.testing.assert_allclose(np.interp(tau, t, temps) - 20.0, 0.632 * 20.0, rtol=1e-3)
+
+
+def test_steady_state_is_the_fixed_point_and_runaway_is_reported():
+    r20, rth, amb = 2.0, 12.0, 30.0
+    steady = steady_temperature_c(1.2, resistance_20c_ohm=r20, thermal_resistance_k_w=rth, ambient_c=amb)
+    # Fixed point of T = T_amb + R_th I^2 R(T), checked by substitution (definition of steady state).
+    np.testing.assert_allclose(steady, amb + rth * 1.2**2 * r20 * (1 + COPPER_TEMPCO_PER_K * (steady - 20)), rtol=1e-12)
+    long_run = temperature_history_c(np.full(3000, 1.2), 1.0, resistance_20c_ohm=r20, thermal_resistance_k_w=rth,
+                                     thermal_capacity_j_k=10.0, ambient_c=amb)
+    np.testing.assert_allclose(long_run[-1], steady, rtol=1e-6)
+    # Heating beyond 1/alpha per kelvin of cooling has no steady state.
+    i_runaway = math.sqrt(1.0 / (rth * r20 * COPPER_TEMPCO_PER_K)) * 1.01
+    assert steady_temperature_c(i_runaway, resistance_20c_ohm=r20, thermal_resistance_k_w=rth, ambient_c=amb) == math.inf
+
+
+def test_scenario_thermal_section_and_defaults():
+    sc = load_scenario(overrides=["motor.thermal.ambient=40 degC", "motor.thermal.thermal_resistance=6 K/W"])
+    check = winding_check(sc.motor, 1.0)
+    assert check["ambient_c"] == 40.0 and check["max_winding_temperature_c"] == 100.0
+    np.testing.assert_allclose(check["steady_winding_temperature_c"],
+                               steady_temperature_c(1.0, resistance_20c_ohm=sc.motor.resistance,
+                                                    thermal_resistance_k_w=6.0, ambient_c=40.0), rtol=1e-12)
