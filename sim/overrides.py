@@ -80,6 +80,6 @@ def apply_overrides(raw: dict, overrides, *, where: str) -> dict:
         return raw
     out = copy.deepcopy(raw)
     for text in overrides:
-        path, value = parse_assignment(text)
+        path, value = parse_assignment(text, where=f"{where}: --set")  # name the file, as every error does
         set_path(out, path, value, where=f"{where} (--set {text})")
     return out
