@@ -53,6 +53,19 @@ def validate(scenario: Path = typer.Argument(..., help="Scenario YAML file."),
                f"stall torque {d.stall_torque_n_m * 1000:.1f} mN m, strategy {sc.strategy.kind}")
 
 
+@app.command()
+def gains(scenario: Optional[Path] = ScenarioArg,
+          format_: str = typer.Option("json", "--format", help="json or c (a C header)."),
+          set_: Optional[List[str]] = SetOpt):
+    """Print the balance law's LQR gains for firmware (stdout)."""
+    from .errors import InputError
+    from .gains import gains_report, to_c_header, to_json
+    if format_ not in ("json", "c"):
+        raise InputError(f"--format: expected 'json' or 'c', found {format_!r}")
+    report = gains_report(_load(scenario, set_))
+    typer.echo(to_json(report) if format_ == "json" else to_c_header(report), nl=format_ == "json")
+
+
 def _print_run(sc, m: dict, out: Path) -> None:
     from rich.console import Console
     from rich.table import Table
