@@ -1,14 +1,16 @@
 """The trial runner: one scenario, one strategy, one simulated trial -> trace + outcome.
 
 The loop, per physics step: read the joint states -> (on control ticks) sensors -> strategy ->
-(every step) drive and motor -> friction and pushes -> engine step. A strategy that raises or
-returns nonsense, and a state that turns non-finite or absurd, end the trial with an outcome;
-they never raise out of `run_trial`.
+(every step) drive and motor -> friction and pushes -> engine step. A strategy that raises,
+returns nonsense or runs past its time budget, and a state that turns non-finite or absurd, end
+the trial with an outcome; they never raise out of `run_trial`.
 """
 
 from __future__ import annotations
 
 import math
+import signal
+import threading
 import time
 from dataclasses import dataclass, field
 
@@ -25,11 +27,20 @@ from .trace import Trace
 OUTCOMES = ("balanced", "fell", "not_caught", "diverged", "strategy_failed", "completed")
 ABSURD_RATE_RAD_S = 1e4          # a body spinning at 1,600 rev/s is a numerical blow-up
 ABSURD_WHEEL_FACTOR = 20.0       # wheel beyond 20x its no-load speed: likewise
+ABSURD_ANGLE_RAD = 1e6           # ~160,000 turns: the unwrapped angle has run away
+STRATEGY_BUDGET_S = 60.0
+"""Default wall-clock budget, s, for all strategy work in one trial (building it and every
+control tick together). The built-in laws use well under 1 s for a minute of simulated time;
+a plug-in past the budget ends the trial with outcome `strategy_failed`."""
 
 
 @dataclass
 class TrialResult:
-    """What a trial produced. `outcome` is one of OUTCOMES; `message` explains failures."""
+    """What a trial produced. `outcome` is one of OUTCOMES; `message` explains failures.
+
+    `ended_at_s` is where simulated time stopped: the full duration, or the time of the step
+    at which the run diverged, the strategy failed or (with stop_early) the body fell.
+    """
 
     outcome: str
     message: str | None
@@ -46,8 +57,76 @@ class TrialResult:
     events: list = field(default_factory=list)
 
 
+class StrategyTimeout(BaseException):
+    """Raised inside strategy code that ran past the trial's budget.
+
+    A BaseException, so that a plug-in's own `except Exception` does not swallow it.
+    """
+
+
+class StrategyClock:
+    """Wall time spent in strategy code during one trial, held to a budget (s).
+
+    Wrap each strategy call in `enter()` ... `leave()`. In the main thread of a POSIX process
+    with no interval timer already running, a SIGALRM timer interrupts a call that runs past
+    the budget (even an endless loop, as long as it runs Python bytecode). Elsewhere (other
+    threads, Windows, a caller's own timer in use) the overrun is caught when the call returns;
+    an endless call there cannot be stopped. Use as a context manager: it restores the previous
+    SIGALRM handler on exit.
+    """
+
+    def __init__(self, budget_s: float):
+        if not budget_s > 0:
+            raise ValueError(f"strategy budget must be positive, got {budget_s!r}")
+        self.budget_s = float(budget_s)
+        self.used_s = 0.0
+        self.t_in: float | None = None
+        self.expired = False
+        self.interrupts = False
+        self._previous = None
+
+    def __enter__(self) -> "StrategyClock":
+        if (hasattr(signal, "setitimer") and math.isfinite(self.budget_s)
+                and threading.current_thread() is threading.main_thread()
+                and signal.getitimer(signal.ITIMER_REAL) == (0.0, 0.0)):
+            self._previous = signal.signal(signal.SIGALRM, self._on_alarm)
+            self.interrupts = True
+            signal.setitimer(signal.ITIMER_REAL, max(self.budget_s, 1e-3))
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if self.interrupts:
+            signal.setitimer(signal.ITIMER_REAL, 0.0)
+            signal.signal(signal.SIGALRM, self._previous)
+            self.interrupts = False
+
+    def enter(self) -> None:
+        self.t_in = time.perf_counter()
+
+    def leave(self) -> None:
+        """End a strategy call; raises StrategyTimeout when the budget is used up."""
+        self.used_s += time.perf_counter() - self.t_in
+        self.t_in = None
+        if self.used_s > self.budget_s:
+            self._expire()
+
+    def _expire(self):
+        self.expired = True
+        raise StrategyTimeout(f"strategy code used more than its {self.budget_s:g} s budget of wall time")
+
+    def _on_alarm(self, signum, frame) -> None:
+        # The timer counts wall time, which is never less than strategy time: when it fires,
+        # either the strategy is over budget now, or the timer is re-armed for what is left.
+        spent = self.used_s + (time.perf_counter() - self.t_in if self.t_in is not None else 0.0)
+        if self.t_in is not None and spent >= self.budget_s:
+            signal.setitimer(signal.ITIMER_REAL, 0.05)  # again soon, should the strategy swallow it
+            self._expire()
+        if not self.expired:
+            signal.setitimer(signal.ITIMER_REAL, max(self.budget_s - spent, 1e-3))
+
+
 def run_trial(scenario, *, seed: int | None = None, stop_early: bool | None = None,
-              visual=None, on_step=None) -> TrialResult:
+              visual=None, on_step=None, strategy_budget_s: float | None = None) -> TrialResult:
     """Simulate one trial of `scenario`.
 
     Parameters
@@ -56,70 +135,93 @@ def run_trial(scenario, *, seed: int | None = None, stop_early: bool | None = No
     stop_early : overrides `trial.stop_early` (end as soon as the outcome is settled).
     visual : optional visual model for rendering (see `sim.render`); None for none.
     on_step : optional callable(k, engine) after every engine step (rendering hooks).
+    strategy_budget_s : wall-clock budget for strategy code, s (default STRATEGY_BUDGET_S).
     """
     device = Device.from_scenario(scenario)
     dt = scenario.world.step
     n = scenario.n_steps
-    cs = scenario.control_steps
     seed = scenario.trial.seed if seed is None else seed
     stop_early = scenario.trial.stop_early if stop_early is None else stop_early
     rng = np.random.default_rng(seed)
     trace = Trace(n, step_s=dt)
     start = scenario.trial.start
     engine = EngineModel(device, step_s=dt, start_angle_rad=start.angle, visual=visual)
+    budget = STRATEGY_BUDGET_S if strategy_budget_s is None else strategy_budget_s
     try:
         engine.reset(angle_rad=start.angle, rate_rad_s=start.rate, wheel_speed_rad_s=start.wheel_speed)
-        sensors = SensorSuite(scenario.sensors, step_s=dt, n_ticks=n // cs + 1, rng=rng)
-        return _loop(scenario, device, engine, sensors, trace, rng, dt, n, cs, stop_early, on_step)
+        sensors = SensorSuite(scenario.sensors, step_s=dt, n_ticks=n // scenario.control_steps + 1, rng=rng)
+        with StrategyClock(budget) as clock:
+            strategy, failure = _build_strategy(scenario, device, rng, clock)
+            return _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock)
     finally:
         engine.close()
 
 
-def _loop(scenario, device, engine, sensors, trace, rng, dt, n, cs, stop_early, on_step) -> TrialResult:
-    outcome, message = None, None
+def _build_strategy(scenario, device, rng, clock):
+    """(strategy, None), or (None, message) when building it fails: an outcome, like failing later."""
     try:
+        clock.enter()
         strategy = scenario.strategy.build(device, rng=rng)
-    except Exception as exc:  # a strategy whose design fails is an outcome, like one that raises later
-        strategy = None
-        outcome, message = "strategy_failed", f"building the strategy failed: {type(exc).__name__}: {exc}"
+        clock.leave()
+        return strategy, None
+    except (Exception, SystemExit, StrategyTimeout) as exc:
+        clock.t_in = None
+        return None, f"building the strategy failed: {type(exc).__name__}: {exc}"
+
+
+def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock) -> TrialResult:
+    dt, n, cs = scenario.world.step, scenario.n_steps, scenario.control_steps
+    outcome, message = ("strategy_failed", failure) if failure else (None, None)
     reading = Reading()
     release = getattr(getattr(strategy, "params", None), "release_angle", math.pi)
     wants_balance = strategy is not None and strategy.goal == "balance"
     motor = MotorDrive(device, step_s=dt)
-    push_steps = sorted((int(round(p.at / dt)), p.impulse / dt) for p in scenario.trial.pushes)
-    push_i = 0
+    pushes = _push_schedule(scenario, dt, n)
+    next_push, push_torque = pushes.pop() if pushes else (-1, 0.0)
     wheel_limit = ABSURD_WHEEL_FACTOR * device.no_load_speed_rad_s + 100.0
     bp, bw = device.pivot_viscous_n_m_s, device.wheel_viscous_n_m_s
-    brake_on, open_circuit, volts, mode = False, False, 0.0, 0
+    brake_on, open_circuit, volts, mode, phase = False, False, 0.0, 0, None
     meas = (0.0, 0.0, 0.0)
     catch_k = fell_k = None
     fall_final = False
     ticks = 0
     t_angle, t_rate, t_wangle, t_wspeed = trace.angle, trace.rate, trace.wheel_angle, trace.wheel_speed
-    t_volt, t_cur, t_torq, t_mode, t_time = trace.voltage, trace.current, trace.torque, trace.mode, trace.t
+    t_volt, t_cur, t_torq, t_mode = trace.voltage, trace.current, trace.torque, trace.mode
     t_ma, t_mr, t_mw = trace.meas_angle, trace.meas_rate, trace.meas_wheel
-    read, advance = engine.read, engine.advance
-    wall0 = time.perf_counter()
+    read, advance = engine.io()
+    command = strategy.command if strategy is not None else None
+    sense, enter, leave, update = sensors.read, clock.enter, clock.leave, motor.update
+    if failure and n > 0:  # the strategy could not be built: still record where the body was
+        t_angle[0], t_rate[0], t_wangle[0], t_wspeed[0] = read()
     k = 0
+    wall0 = time.perf_counter()
     while k < n and outcome is None:
         th, thd, ph, phd = read()
-        t = k * dt
-        t_time[k], t_angle[k], t_rate[k], t_wangle[k], t_wspeed[k] = t, th, thd, ph, phd
-        if not (abs(thd) < ABSURD_RATE_RAD_S and abs(phd) < wheel_limit and abs(th) < 1e6):
-            outcome, message = "diverged", f"the state became non-finite or absurd at t = {t:.4f} s"
+        t_angle[k], t_rate[k], t_wangle[k], t_wspeed[k] = th, thd, ph, phd
+        # written as inside-the-range tests so that NaN fails them too
+        if not (-ABSURD_RATE_RAD_S < thd < ABSURD_RATE_RAD_S and -wheel_limit < phd < wheel_limit
+                and -ABSURD_ANGLE_RAD < th < ABSURD_ANGLE_RAD):
+            outcome, message = "diverged", f"the state became non-finite or absurd at t = {k * dt:.4f} s"
             break
         if k % cs == 0:
-            meas = sensors.read(k, t_angle, t_rate, t_wangle, t_wspeed)
+            t = k * dt
+            meas = sense(k, t_angle, t_rate, t_wangle, t_wspeed)
             reading.t_s, reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = t, meas[0], meas[1], meas[2]
             ticks += 1
             try:
-                volts = strategy.command(reading)
-                mode = trace.phase_code(str(strategy.phase))
+                enter()
+                volts = command(reading)
+                if strategy.phase != phase:
+                    phase = strategy.phase
+                    mode = trace.phase_code(str(phase))
                 if strategy.brake != brake_on:
                     brake_on = _set_brake(engine, device, bool(strategy.brake))
                 open_circuit = bool(strategy.open_circuit)
-            except Exception as exc:  # any failure inside the strategy is its outcome, not a crash
+                leave()
+            except (Exception, SystemExit, StrategyTimeout) as exc:  # the strategy's failure is its outcome
+                clock.t_in = None
                 outcome, message = "strategy_failed", _describe(exc, t)
+                t_ma[k], t_mr[k], t_mw[k] = meas
                 break
             if wants_balance:
                 inside = abs(wrap_angle(th)) <= release
@@ -130,15 +232,15 @@ def _loop(scenario, device, engine, sensors, trace, rng, dt, n, cs, stop_early, 
                     fell_k, catch_k = k, None
                     fall_final = strategy.balancing  # it did not hand over: nothing will catch it again
                     if stop_early and fall_final:
-                        outcome = "fell"
+                        outcome = "fell"  # this step still runs; the loop ends after it
         if open_circuit:
             motor.current, cur, torque = 0.0, 0.0, 0.0
         else:
-            cur, torque = motor.update(volts, phd)
+            cur, torque = update(volts, phd)
         pivot_torque = -bp * thd
-        if push_i < len(push_steps) and push_steps[push_i][0] == k:
-            pivot_torque += push_steps[push_i][1]
-            push_i += 1
+        if k == next_push:
+            pivot_torque += push_torque
+            next_push, push_torque = pushes.pop() if pushes else (-1, 0.0)
         advance(pivot_torque, torque - bw * phd)
         t_volt[k], t_cur[k], t_torq[k], t_mode[k] = (0.0 if open_circuit else volts), cur, torque, mode
         t_ma[k], t_mr[k], t_mw[k] = meas
@@ -146,13 +248,24 @@ def _loop(scenario, device, engine, sensors, trace, rng, dt, n, cs, stop_early, 
             on_step(k, engine)
         k += 1
     wall = time.perf_counter() - wall0
-    trace.n = k + 1 if outcome in ("diverged", "strategy_failed") and k < n else k
-    trace.n = min(trace.n, n)
-    ended = trace.n * dt
+    return _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, fall_final,
+                   wants_balance, ticks, wall)
+
+
+def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, fall_final,
+            wants_balance, ticks, wall) -> TrialResult:
+    """Close the trace and judge the outcome. `k` is the step the loop stopped at."""
+    dt, n = scenario.world.step, scenario.n_steps
+    if outcome in ("diverged", "strategy_failed") and k < n:
+        # row k holds the state at the failure (nothing was applied after it); time ends there
+        trace.n, ended = k + 1, k * dt
+    elif outcome == "fell":
+        trace.n, ended = k, (fell_k if fell_k is not None else k) * dt
+    else:
+        trace.n, ended = k, k * dt
+    trace.t[: trace.n] = np.arange(trace.n) * dt
     if outcome is None:
         outcome = _final_outcome(wants_balance, strategy, catch_k, fell_k, fall_final)
-    elif outcome == "fell":
-        ended = (fell_k or k) * dt
     return TrialResult(
         outcome=outcome, message=message, trace=trace, device=device, scenario=scenario,
         caught_at_s=catch_k * dt if (catch_k is not None and outcome == "balanced") else None,
@@ -160,6 +273,15 @@ def _loop(scenario, device, engine, sensors, trace, rng, dt, n, cs, stop_early, 
         control_ticks=ticks, saturated_ticks=getattr(strategy, "saturated_ticks", 0), wall_s=wall,
         strategy=strategy,
     )
+
+
+def _push_schedule(scenario, dt: float, n: int) -> list[tuple[int, float]]:
+    """Pushes as (step, torque N m) in reverse time order, to be popped; pushes on one step add up."""
+    torques: dict[int, float] = {}
+    for p in scenario.trial.pushes:
+        k = int(round(p.at / dt))
+        torques[k] = torques.get(k, 0.0) + p.impulse / dt
+    return sorted(torques.items(), reverse=True)
 
 
 def _final_outcome(wants_balance, strategy, catch_k, fell_k, fall_final) -> str:
