@@ -243,6 +243,120 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
     typer.echo(SAFETY)
 
 
+TrialsOpt = typer.Option(None, "--trials", help="Monte Carlo trials over the scenario's tolerances.")
+WorkersOpt = typer.Option(None, "--workers", help="Local worker processes (default: all cores).")
+ClusterOpt = typer.Option(None, "--cluster", help="Address of a running dask.distributed scheduler.")
+ForceOpt = typer.Option(False, "--force", help="Write into a non-empty folder not made by wheelbench.")
+
+
+def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]]):
+    from .tolerances import load_raw
+    return load_raw(scenario, tuple(overrides or ()))
+
+
+def _progress(label: str):
+    """A rich progress bar as an on_progress(done, total) callback, and the Progress to close."""
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+    bar = Progress(TextColumn(label), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(), transient=False)
+    task = bar.add_task(label, total=None)
+    return bar, lambda done, total: bar.update(task, completed=done, total=total)
+
+
+@app.command()
+def check(scenario: Optional[Path] = ScenarioArg,
+          out: Path = typer.Option(Path("runs/check"), "--out", help="Output folder."),
+          trials: Optional[int] = TrialsOpt, workers: Optional[int] = WorkersOpt,
+          cluster: Optional[str] = ClusterOpt, set_: Optional[List[str]] = SetOpt, force: bool = ForceOpt):
+    """Judge a design: swing-up, hold, largest push, Monte Carlo, burst and thermal checks.
+
+    Writes verdict.json, report.md and plots. Exit code 0 when every criterion passes, 1 when any fails.
+    """
+    from .errors import InputError
+    from .outputs import prepare_out_dir
+    from .scenario import validate_scenario
+    from .verdict_report import print_verdict, write_check_outputs
+    from .verdicts import DEFAULT_TRIALS, run_check
+    raw, where = _load_raw(scenario, set_)
+    validate_scenario(raw, where=where)
+    n = DEFAULT_TRIALS if trials is None else trials
+    if n < 1:
+        raise InputError(f"--trials: expected at least 1, found {n}")
+    out_dir = prepare_out_dir(out, force=force)
+    bar, update = _progress("Monte Carlo")
+    with bar:
+        done = [0]
+
+        def one_done():
+            done[0] += 1
+            update(done[0], n)
+        outcome = run_check(raw, where, trials=n, workers=workers, cluster=cluster,
+                            on_stage=lambda text: bar.console.print(f"[dim]{text}...[/dim]"), on_done=one_done)
+    write_check_outputs(outcome, out_dir)
+    print_verdict(outcome.verdict, out_dir)
+    if not outcome.verdict["passed"]:
+        raise SystemExit(1)
+
+
+@app.command()
+def sweep(scenario: Optional[Path] = ScenarioArg,
+          vary: List[str] = typer.Option(..., "--vary", help="KEY=LO..HI:N (units allowed) or KEY=a,b,c; repeatable."),
+          out: Path = typer.Option(Path("runs/sweep"), "--out", help="Output folder (re-run to resume)."),
+          trials: int = typer.Option(0, "--trials", help="Monte Carlo trials per point (0: the nominal design only)."),
+          workers: Optional[int] = WorkersOpt, cluster: Optional[str] = ClusterOpt,
+          set_: Optional[List[str]] = SetOpt, force: bool = ForceOpt):
+    """Run a design grid; write results.csv and a line plot (one key) or heat map (two keys)."""
+    from .outputs import prepare_out_dir
+    from .plots import save_figure
+    from .sweep import parse_vary, run_sweep, sweep_figure
+    raw, where = _load_raw(scenario, set_)
+    varies = [parse_vary(v) for v in vary]
+    out_dir = prepare_out_dir(out, force=force)
+    bar, update = _progress("sweep")
+    with bar:
+        rows = run_sweep(raw, where, varies, out_dir, trials=trials, workers=workers, cluster=cluster,
+                         on_progress=update)
+    fig = sweep_figure(varies, rows)
+    if fig is not None:
+        save_figure(fig, out_dir / "sweep.png")
+    passed = sum(bool(r.get("passed")) for r in rows.values())
+    typer.echo(f"{passed} of {len(rows)} points pass; wrote {out_dir}/results.csv"
+               + (", sweep.png" if fig is not None else " (no plot for more than two keys)"))
+    typer.echo(SAFETY)
+
+
+@app.command("catch-map")
+def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
+                  grid: int = typer.Option(21, "--grid", help="Cells per side."),
+                  angle_max: Optional[str] = typer.Option(None, "--angle-max", help="Largest start angle, e.g. '25 deg'."),
+                  rate_max: Optional[str] = typer.Option(None, "--rate-max", help="Largest start body rate, e.g. '3 rad/s'."),
+                  out: Path = typer.Option(Path("runs/catch_map"), "--out", help="Output folder."),
+                  workers: Optional[int] = WorkersOpt, cluster: Optional[str] = ClusterOpt,
+                  set_: Optional[List[str]] = SetOpt, force: bool = ForceOpt):
+    """Map which start states (angle, body rate) the balance law catches; catch_map.csv and .png."""
+    from .catchmap import catch_map, write_catch_map
+    from .errors import InputError
+    from .outputs import prepare_out_dir
+    from .units import parse_quantity
+    raw, where = _load_raw(scenario, set_)
+    limits = []
+    for name, text, kind in (("--angle-max", angle_max, "angle"), ("--rate-max", rate_max, "angular_speed")):
+        try:
+            limits.append(None if text is None else abs(parse_quantity(text, kind)))
+        except ValueError as exc:
+            raise InputError(f"{name}: {exc}") from None
+    out_dir = prepare_out_dir(out, force=force)
+    bar, update = _progress("catch map")
+    with bar:
+        result = catch_map(raw, where, grid=grid, angle_max=limits[0], rate_max=limits[1], workers=workers,
+                           cluster=cluster, on_progress=update)
+    write_catch_map(result, out_dir)
+    caught = sum(bool(r["caught"]) for r in result["rows"])
+    typer.echo(f"{caught} of {len(result['rows'])} start states caught by {result['strategy']} "
+               f"(angle +-{result['angle_max_rad']:.3f} rad, rate +-{result['rate_max_rad_s']:.3f} rad/s); "
+               f"wrote {out_dir}/catch_map.csv, catch_map.png")
+    typer.echo(SAFETY)
+
+
 def _print_run(sc, m: dict, out: Path) -> None:
     from rich.console import Console
     from rich.table import Table

@@ -1,0 +1,127 @@
+"""Running many independent simulations: in this process, on local processes, or on a dask cluster.
+
+Every task is a picklable payload handed to a module-level function; results come back in
+completion order with the task's index, so callers persist each as it arrives. At most a few
+tasks per worker are in flight at once, so memory stays flat however long the task list is.
+Results never depend on the worker count: each task carries its own seed.
+"""
+
+from __future__ import annotations
+
+import os
+from collections.abc import Callable, Iterable, Iterator
+from typing import Any
+
+from .errors import InputError
+
+IN_FLIGHT_PER_WORKER = 2
+
+
+def default_workers() -> int:
+    """All cores this process may use."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except AttributeError:  # not on Linux
+        return max(1, os.cpu_count() or 1)
+
+
+def run_tasks(fn: Callable[[Any], Any], tasks: Iterable[tuple[int, Any]], *, workers: int | None = None,
+              cluster: Any = None) -> Iterator[tuple[int, Any]]:
+    """Yield (index, fn(payload)) for each (index, payload) in `tasks`, in completion order.
+
+    Parameters
+    ----------
+    workers : local worker processes; 1 runs in this process; None means all cores.
+    cluster : a dask.distributed scheduler address (str) or Client; overrides `workers`.
+    """
+    if cluster is not None:
+        yield from _run_dask(fn, tasks, cluster)
+        return
+    workers = default_workers() if workers is None else workers
+    if workers < 1:
+        raise InputError(f"--workers: expected at least 1, found {workers}")
+    if workers == 1:
+        for index, payload in tasks:
+            yield index, fn(payload)
+        return
+    yield from _run_pool(fn, tasks, workers)
+
+
+def _warm_imports() -> None:
+    """Import the heavy libraries once here, so forked workers inherit them (seconds per worker otherwise)."""
+    import scipy.linalg  # noqa: F401
+    import scipy.signal  # noqa: F401
+
+    from .engine import import_pybullet
+    from .units import registry
+    import_pybullet()
+    registry()
+
+
+def _run_pool(fn, tasks, workers: int):
+    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+
+    _warm_imports()
+    with ProcessPoolExecutor(max_workers=workers) as pool:
+        pending: dict = {}
+        source = iter(tasks)
+        exhausted = False
+        try:
+            while pending or not exhausted:
+                while not exhausted and len(pending) < IN_FLIGHT_PER_WORKER * workers:
+                    item = next(source, None)
+                    if item is None:
+                        exhausted = True
+                        break
+                    pending[pool.submit(fn, item[1])] = item[0]
+                done, _ = wait(pending, return_when=FIRST_COMPLETED)
+                for fut in done:
+                    yield pending.pop(fut), fut.result()
+        finally:
+            for fut in pending:
+                fut.cancel()
+
+
+def _run_dask(fn, tasks, cluster):
+    try:
+        from distributed import Client, as_completed
+    except ImportError:
+        raise InputError("--cluster needs dask.distributed: pip install 'wheelbench[cluster]'") from None
+    own = isinstance(cluster, str)
+    if own:
+        try:
+            client = Client(cluster, timeout="10s")
+        except OSError as exc:
+            raise InputError(f"--cluster {cluster}: cannot reach the scheduler ({exc})") from None
+    else:
+        client = cluster
+    try:
+        width = max(1, sum(client.nthreads().values())) * IN_FLIGHT_PER_WORKER
+        source = iter(tasks)
+        index_of: dict = {}
+        queue = as_completed()
+        for item in _take(source, width):
+            fut = client.submit(fn, item[1], pure=False)
+            index_of[fut.key] = item[0]
+            queue.add(fut)
+        for fut in queue:
+            result = fut.result()
+            yield index_of.pop(fut.key), result
+            fut.release()
+            for item in _take(source, 1):
+                nxt = client.submit(fn, item[1], pure=False)
+                index_of[nxt.key] = item[0]
+                queue.add(nxt)
+    finally:
+        if own:
+            client.close()
+
+
+def _take(source: Iterator, n: int) -> list:
+    out = []
+    for _ in range(n):
+        item = next(source, None)
+        if item is None:
+            break
+        out.append(item)
+    return out

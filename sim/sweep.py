@@ -1,0 +1,353 @@
+"""Design sweeps: a grid over scenario keys, each point simulated and judged, persisted as it finishes.
+
+`--vary KEY=LO..HI:N` spaces N values evenly from LO to HI (units allowed: `drive.supply=6V..24V:4`);
+`--vary KEY=a,b,c` lists values. Points are the grid's cross product, numbered in row-major order
+(the first key varies slowest). Each point re-validates the raw scenario with its values set,
+runs the scenario's own trial, judges it against `requirements` and the wheel burst check, and,
+with `trials`, adds Monte Carlo trials over the tolerances around that point.
+
+Persistence: every finished point is appended to `sweep.jsonl` (flushed and fsynced), so a
+sweep killed at any moment loses nothing finished; `results.csv` is rewritten atomically from
+it every few seconds and at the end. Re-running the same sweep into the same folder skips the
+finished points. Seeds come from the base seed and the point's index, so the table is the same
+whatever the number of workers or the order points finish in.
+"""
+
+from __future__ import annotations
+
+import copy
+import csv
+import hashlib
+import json
+import os
+import re
+import time
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import yaml
+
+from .errors import InputError, ScenarioError
+from .outputs import atomic_path, clean_json
+from .overrides import parse_path, set_path
+from .parallel import run_tasks
+from .tolerances import trial_seed, value_at
+
+JOURNAL = "sweep.jsonl"
+RESULTS = "results.csv"
+CSV_EVERY_S = 3.0
+MAX_POINTS = 1_000_000
+METRIC_COLUMNS = ("point", "seed", "outcome", "caught_at_s", "settle_time_s", "peak_wheel_speed_rad_s",
+                  "wheel_speed_margin", "peak_current_a", "rms_current_a", "winding_temperature_c",
+                  "wheel_burst_safety_factor", "pushes_survived", "pushes", "mc_trials", "pass_fraction",
+                  "passed", "fail_reasons", "message")
+_RANGE = re.compile(r"^(?P<lo>.+?)\.\.(?P<hi>.+):(?P<n>\d+)$")
+
+
+@dataclass(frozen=True)
+class Vary:
+    """One varied key: `key` exactly as the user wrote it, its parsed path, the values to set."""
+
+    key: str
+    path: tuple
+    values: tuple
+
+
+def parse_vary(text: str) -> Vary:
+    """Parse `KEY=LO..HI:N` or `KEY=a,b,c`. Raises InputError naming the option."""
+    where = f"--vary {text!r}"
+    key, sep, spec = text.partition("=")
+    if not sep or not spec.strip():
+        raise InputError(f"{where}: expected KEY=LO..HI:N or KEY=a,b,c")
+    path = tuple(parse_path(key.strip(), where=where))
+    m = _RANGE.match(spec.strip())
+    values = _range_values(m, where) if m else _list_values(spec, where)
+    return Vary(key.strip(), path, tuple(values))
+
+
+def _range_values(m, where: str) -> list:
+    from .units import registry
+    n = int(m.group("n"))
+    if not 1 <= n <= 100_000:
+        raise InputError(f"{where}: N must be from 1 to 100000, found {n}")
+    try:
+        lo, hi = (registry().Quantity(m.group(g).strip()) for g in ("lo", "hi"))
+        hi = hi.to(lo.units)
+    except Exception:  # pint raises many kinds for unreadable or mismatched text
+        raise InputError(f"{where}: LO and HI must be numbers or quantities of the same kind "
+                         f"(e.g. 6V..24V:4), found {m.group('lo')!r} and {m.group('hi')!r}") from None
+    mags = np.linspace(float(lo.magnitude), float(hi.magnitude), n)
+    if lo.dimensionless and str(lo.units) == "dimensionless":
+        return [float(v) for v in mags]
+    return [f"{v:.12g} {lo.units:~}" if f"{lo.units:~}" else f"{v:.12g}" for v in mags]
+
+
+def _list_values(spec: str, where: str) -> list:
+    out = []
+    for item in spec.split(","):
+        item = item.strip()
+        if not item:
+            raise InputError(f"{where}: empty value in the list")
+        try:
+            value = yaml.safe_load(item)
+        except yaml.YAMLError:
+            value = item
+        out.append(item if value is None or isinstance(value, (dict, list)) else value)
+    return out
+
+
+def point_values(varies: list[Vary], index: int) -> list:
+    """The values of point `index` (row-major over the keys, the first key slowest)."""
+    shape = [len(v.values) for v in varies]
+    return [v.values[i] for v, i in zip(varies, np.unravel_index(index, shape))]
+
+
+def check_varies(raw: dict, where: str, varies: list[Vary]) -> None:
+    """Validate each value of each key once (with the other keys nominal): bad keys and values fail early."""
+    from .scenario import validate_scenario
+    if not varies:
+        raise InputError("sweep: give at least one --vary KEY=...")
+    total = int(np.prod([len(v.values) for v in varies], dtype=np.float64))
+    if total > MAX_POINTS:
+        raise InputError(f"sweep: {total} points is more than the limit of {MAX_POINTS}")
+    for v in varies:
+        for value in v.values:
+            trial = copy.deepcopy(raw)
+            set_path(trial, list(v.path), value, where=f"{where} (--vary {v.key}={value})")
+            try:
+                validate_scenario(trial, where=where)
+            except ScenarioError as exc:
+                raise ScenarioError(f"{exc} (from --vary {v.key}={value})") from None
+
+
+def point_task(payload: dict) -> dict:
+    """Simulate and judge one sweep point (module-level so worker processes can run it)."""
+    from .device import Device
+    from .scenario import validate_scenario
+    from .stress import wheel_burst_check
+    from .verdicts import judge_trial, monte_carlo_task
+    raw = copy.deepcopy(payload["raw"])
+    row: dict[str, Any] = {}
+    for key, path, value in payload["assign"]:
+        set_path(raw, list(path), value, where=payload["where"])
+        row[key] = value
+    seed = trial_seed(payload["base_seed"], payload["index"])
+    row.update(point=payload["index"], seed=seed)
+    try:
+        sc = validate_scenario(raw, where=payload["where"])
+    except ScenarioError as exc:
+        return row | {"outcome": "invalid", "passed": False, "fail_reasons": "invalid", "message": str(exc)}
+    for key, path, _ in payload["assign"]:
+        si = value_at(sc, path)
+        row[key] = si if isinstance(si, (int, float, str)) else str(si)
+    row.update(judge_trial(sc, seed=seed))
+    burst = wheel_burst_check(sc, Device.from_scenario(sc))["safety_factor"]
+    row["wheel_burst_safety_factor"] = burst
+    reasons = [r for r in row["fail_reasons"].split(";") if r]
+    if burst is None or burst < sc.requirements.burst_safety_factor:
+        reasons.append("burst safety factor")
+    trials = payload["trials"]
+    if trials:
+        passes = sum(bool(monte_carlo_task({"raw": raw, "where": payload["where"], "tolerances": _tolerances(sc),
+                                            "base_seed": seed, "index": j})["passed"]) for j in range(trials))
+        row.update(mc_trials=trials, pass_fraction=passes / trials)
+        if passes / trials < sc.requirements.pass_fraction:
+            reasons.append("Monte Carlo pass fraction")
+    row.update(passed=not reasons, fail_reasons=";".join(reasons))
+    return row
+
+
+def _tolerances(sc):
+    from .tolerances import scenario_tolerances
+    return scenario_tolerances(sc)
+
+
+# ----------------------------------------------------------------------------- the journal
+
+def sweep_spec(raw: dict, varies: list[Vary], trials: int) -> dict:
+    """What makes two sweeps the same sweep (to resume, the spec must match exactly)."""
+    text = json.dumps(clean_json(raw), sort_keys=True, default=str)
+    return {"scenario_sha256": hashlib.sha256(text.encode()).hexdigest(),
+            "vary": [[v.key, [str(x) for x in v.values]] for v in varies], "trials": trials}
+
+
+def read_journal(path: Path, spec: dict) -> dict[int, dict]:
+    """Finished rows by point index. Drops a torn last line (a kill mid-write) from the file."""
+    if not path.exists():
+        return {}
+    data = path.read_bytes()
+    good_end = data.rfind(b"\n") + 1
+    if good_end < len(data):
+        with open(path, "r+b") as fh:
+            fh.truncate(good_end)
+    lines = data[:good_end].decode("utf-8").splitlines()
+    if not lines:
+        return {}
+    header = json.loads(lines[0])
+    if header.get("spec") != spec:
+        raise InputError(f"--out {path.parent}: holds a different sweep (its {JOURNAL} was written for other "
+                         "settings); choose another folder to start a new one")
+    rows = {}
+    for line in lines[1:]:
+        entry = json.loads(line)
+        rows[int(entry["i"])] = entry["row"]
+    return rows
+
+
+class Journal:
+    """Append-only: one JSON line per finished point, flushed and fsynced before moving on."""
+
+    def __init__(self, path: Path, spec: dict):
+        new = not path.exists() or path.stat().st_size == 0
+        self.fh = open(path, "a", encoding="utf-8")
+        if new:
+            self._write({"wheelbench_sweep": 1, "spec": spec})
+
+    def add(self, index: int, row: dict) -> None:
+        self._write({"i": index, "row": clean_json(row)})
+
+    def _write(self, obj) -> None:
+        self.fh.write(json.dumps(obj) + "\n")
+        self.fh.flush()
+        os.fsync(self.fh.fileno())
+
+    def close(self) -> None:
+        self.fh.close()
+
+
+def write_results_csv(path: Path, varies: list[Vary], rows: dict[int, dict]) -> None:
+    """results.csv in point order: one column per varied key (as given), then metrics and verdict."""
+    columns = [v.key for v in varies] + list(METRIC_COLUMNS)
+    with atomic_path(path) as tmp, open(tmp, "w", newline="", encoding="utf-8") as fh:
+        writer = csv.DictWriter(fh, fieldnames=columns, extrasaction="ignore")
+        writer.writeheader()
+        for index in sorted(rows):
+            writer.writerow({k: ("" if rows[index].get(k) is None else rows[index].get(k)) for k in columns})
+
+
+# ----------------------------------------------------------------------------- running
+
+def run_sweep(raw: dict, where: str, varies: list[Vary], out_dir: Path, *, trials: int = 0,
+              workers: int | None = None, cluster=None, on_progress=None) -> dict[int, dict]:
+    """Run (or resume) a sweep into `out_dir` (already prepared). Returns the rows by point index.
+
+    `on_progress(done, total)` is called at the start and after every finished point.
+    """
+    if trials < 0:
+        raise InputError(f"--trials: expected 0 or more, found {trials}")
+    from .scenario import validate_scenario
+    base_seed = validate_scenario(raw, where=where).trial.seed
+    check_varies(raw, where, varies)
+    spec = sweep_spec(raw, varies, trials)
+    journal_path, csv_path = out_dir / JOURNAL, out_dir / RESULTS
+    rows = read_journal(journal_path, spec)
+    total = int(np.prod([len(v.values) for v in varies]))
+    write_results_csv(csv_path, varies, rows)
+    tasks = ((i, {"raw": raw, "where": where, "base_seed": base_seed, "index": i, "trials": trials,
+                  "assign": [(v.key, v.path, x) for v, x in zip(varies, point_values(varies, i))]})
+             for i in range(total) if i not in rows)
+    journal = Journal(journal_path, spec)
+    last_csv = time.monotonic()
+    try:
+        if on_progress:
+            on_progress(len(rows), total)
+        for index, row in run_tasks(point_task, tasks, workers=workers, cluster=cluster):
+            journal.add(index, row)
+            rows[index] = clean_json(row)
+            if on_progress:
+                on_progress(len(rows), total)
+            if time.monotonic() - last_csv > CSV_EVERY_S:
+                write_results_csv(csv_path, varies, rows)
+                last_csv = time.monotonic()
+    finally:
+        journal.close()
+        write_results_csv(csv_path, varies, rows)
+    return rows
+
+
+def grid_axes(varies: list[Vary], rows: dict[int, dict]) -> list[list]:
+    """Per key, the column values of the points along its axis (SI where numeric)."""
+    axes = []
+    for k, v in enumerate(varies):
+        values = []
+        for j in range(len(v.values)):
+            idx = [0] * len(varies)
+            idx[k] = j
+            index = int(np.ravel_multi_index(idx, [len(x.values) for x in varies]))
+            values.append(rows.get(index, {}).get(v.key, v.values[j]))
+        axes.append(values)
+    return axes
+
+
+def sweep_figure(varies: list[Vary], rows: dict[int, dict]):
+    """A line plot for one key, a heat map for two; None for more (the table has it all)."""
+    axes = grid_axes(varies, rows)
+    if len(varies) == 1:
+        return _line_plot(varies[0].key, axes[0], [rows.get(i) for i in range(len(axes[0]))])
+    if len(varies) == 2:
+        grid = [[rows.get(i * len(axes[1]) + j) for j in range(len(axes[1]))] for i in range(len(axes[0]))]
+        return _heat_map(varies, axes, grid)
+    return None
+
+
+def _positions(values: list) -> tuple[list, list | None]:
+    """Numeric axis values, or index positions with labels for text values (e.g. strategy kinds)."""
+    if all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values):
+        return list(values), None
+    return list(range(len(values))), [str(v) for v in values]
+
+
+def _shown_metric(rows) -> str:
+    return "pass_fraction" if any(r and r.get("mc_trials") for r in rows) else "wheel_speed_margin"
+
+
+def _pyplot():
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    return plt
+
+
+def _line_plot(key: str, xs: list, rows: list):
+    from .plots import ACCENT, INK, LIMIT
+    plt = _pyplot()
+    pos, labels = _positions(xs)
+    fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(7.5, 5.5), sharex=True, constrained_layout=True)
+    metric = _shown_metric(rows)
+    for ax, name, colour in ((ax1, metric, INK), (ax2, "settle_time_s", ACCENT)):
+        ys = [np.nan if (r is None or r.get(name) is None) else r[name] for r in rows]
+        ax.plot(pos, ys, color=colour, lw=1.2, marker="o", ms=3)
+        for x, y, r in zip(pos, ys, rows):
+            if r is not None and not r.get("passed"):
+                ax.plot([x], [0 if np.isnan(y) else y], marker="x", color=LIMIT, ms=7)
+        ax.set_ylabel(name)
+        ax.grid(True, color="#dde3e8", lw=0.6)
+    ax2.set_xlabel(key)
+    if labels:
+        ax2.set_xticks(pos, labels)
+    ax1.set_title(f"sweep over {key} (x = point failed)", color=INK, fontsize=10)
+    return fig
+
+
+def _heat_map(varies, axes, grid):
+    from .plots import INK
+    plt = _pyplot()
+    metric = _shown_metric([r for line in grid for r in line])
+    data = np.array([[np.nan if (r is None or r.get(metric) is None) else r[metric] for r in line] for line in grid])
+    fig, ax = plt.subplots(figsize=(7.5, 5.5), constrained_layout=True)
+    im = ax.imshow(data.T, origin="lower", aspect="auto", cmap="viridis", vmin=0.0, vmax=1.0)
+    fig.colorbar(im, ax=ax, label=metric)
+    for i, line in enumerate(grid):
+        for j, r in enumerate(line):
+            if r is not None:
+                ax.text(i, j, "pass" if r.get("passed") else "fail", ha="center", va="center", fontsize=7,
+                        color="white" if not r.get("passed") else "black")
+    for setter, values in ((ax.set_xticks, axes[0]), (ax.set_yticks, axes[1])):
+        setter(range(len(values)), [f"{v:.4g}" if isinstance(v, float) else str(v) for v in values])
+    ax.set_xlabel(varies[0].key)
+    ax.set_ylabel(varies[1].key)
+    ax.set_title(f"{metric} over the grid", color=INK, fontsize=10)
+    return fig

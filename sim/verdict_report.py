@@ -1,0 +1,113 @@
+"""Files of a `check`: verdict.json, report.md and its plots, and the terminal table."""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+from .outputs import write_json, write_text
+from .plots import INK, ACCENT, LIMIT, MUTED, save_figure, summary_figure
+from .verdicts import SAFETY_NOTES, CheckOutcome
+
+PASS_COLOUR, FAIL_COLOUR = "#2f7d4a", LIMIT
+
+
+def format_value(name: str, value) -> str:
+    """A criterion's value for people: units from the key's suffix, fractions as percentages."""
+    if value is None:
+        return "unknown"
+    if isinstance(value, float) and not math.isfinite(value):
+        return "inf"
+    if name.endswith(("_margin", "_headroom", "_fraction")):
+        return f"{100 * value:.1f}%"
+    for suffix, unit, scale in (("_n_m_s", "mN m s", 1e3), ("_time_s", "s", 1.0), ("_rad", "deg", 180 / math.pi),
+                                ("_c", "degC", 1.0), ("_s", "s", 1.0)):
+        if name.endswith(suffix):
+            return f"{value * scale:.4g} {unit}"
+    return f"{value:.4g}"
+
+
+def write_check_outputs(outcome: CheckOutcome, out_dir: Path) -> list[str]:
+    """Write the plots, report.md and verdict.json (last, so it only exists when all went well)."""
+    written = []
+    for name, result in outcome.runs.items():
+        save_figure(summary_figure(result), out_dir / f"{name}.png")
+        written.append(f"{name}.png")
+    save_figure(push_figure(outcome.pushes), out_dir / "pushes.png")
+    written.append("pushes.png")
+    write_text(out_dir / "report.md", report_markdown(outcome.verdict, written))
+    write_json(out_dir / "verdict.json", outcome.verdict)
+    return written + ["report.md", "verdict.json"]
+
+
+def push_figure(pushes: dict):
+    """The bisection's tries: impulse against survived, per direction."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    fig, ax = plt.subplots(figsize=(7.5, 2.8), constrained_layout=True)
+    for row, (direction, p) in enumerate(pushes.items()):
+        for order, (impulse, ok) in enumerate(p["evals"]):
+            ax.scatter(impulse * 1e3, row, color=PASS_COLOUR if ok else FAIL_COLOUR, marker="o" if ok else "x", zorder=3)
+            ax.annotate(str(order + 1), (impulse * 1e3, row), textcoords="offset points", xytext=(0, 7),
+                        fontsize=6, color=MUTED, ha="center")
+        ax.axvline(p["max_survived_n_m_s"] * 1e3, ymin=row / 2 + 0.05, ymax=row / 2 + 0.45, color=ACCENT, lw=1.5)
+    ax.set_yticks(range(len(pushes)), list(pushes))
+    ax.set_ylim(-0.6, len(pushes) - 0.4)
+    ax.set_xlabel("push: angular impulse about the pivot [mN m s]")
+    ax.set_title("largest push survived (o survived, x lost; numbers give the order tried)", color=INK, fontsize=9)
+    ax.grid(True, axis="x", color="#dde3e8", lw=0.6)
+    ax.spines[["top", "right"]].set_visible(False)
+    return fig
+
+
+def report_markdown(v: dict, images: list[str]) -> str:
+    lines = [f"# Check: {v['name']}", "",
+             f"Scenario `{v['scenario']}`, strategy `{v['strategy']}`.", "",
+             f"**Verdict: {'PASS' if v['passed'] else 'FAIL'}**", "",
+             "| criterion | value | limit | result | note |", "|---|---|---|---|---|"]
+    for c in v["criteria"]:
+        lines.append(f"| {c['name']} | {format_value(c['name'], c['value'])} | {format_value(c['name'], c['limit'])} "
+                     f"| {'pass' if c['passed'] else 'FAIL'} | {c['note']} |")
+    b = v["burst"]
+    lines += ["", "## Wheel burst check", "",
+              f"Runaway speed (no-load speed at full supply): {b['runaway_speed_rad_s']:.1f} rad/s "
+              f"({b['runaway_speed_rad_s'] * 60 / (2 * math.pi):.0f} rpm).", "",
+              "| part | material | stress | strength (basis) | safety factor | note |", "|---|---|---|---|---|---|"]
+    for p in b["parts"]:
+        stress = "-" if p["stress_pa"] is None else f"{p['stress_pa'] / 1e6:.3g} MPa"
+        strength = "unknown" if p["strength_pa"] is None else f"{p['strength_pa'] / 1e6:.3g} MPa ({p['strength_basis']})"
+        sf = "-" if p["safety_factor"] is None else f"{p['safety_factor']:.3g}"
+        lines.append(f"| {p['part']} | {p['material'] or '-'} | {stress} | {strength} | {sf} | {p['note']} |")
+    mc = v["monte_carlo"]
+    lines += ["", "## Monte Carlo", "",
+              f"{mc['passed_trials']} of {mc['trials']} trials passed; tolerances drawn uniformly within their band: "
+              + ", ".join(f"`{k}` {t}" for k, t in mc["tolerances"].items()) + ".",
+              ("Failures: " + ", ".join(f"{k} x{n}" for k, n in mc["failures"].items()) + ".") if mc["failures"] else "",
+              "", "## Largest push", "",
+              f"{v['max_push_survived_n_m_s'] * 1e3:.3g} mN m s in the worse ({v['max_push_direction']}) direction; "
+              + "; ".join(f"{d}: {p['max_survived_n_m_s'] * 1e3:.3g} mN m s" for d, p in v["pushes"].items())
+              + ". Bisection to 5%, from upright at rest, push after 0.5 s, 3 s to recover.", ""]
+    lines += ["## Plots", ""] + [f"![{Path(img).stem}]({img})" for img in images] + [""]
+    lines += ["## Safety", ""] + [f"- {s}" for s in SAFETY_NOTES] + [""]
+    return "\n".join(lines)
+
+
+def print_verdict(v: dict, out: Path) -> None:
+    """The terminal table, ending with the safety cautions."""
+    from rich.console import Console
+    from rich.table import Table
+
+    console = Console()
+    table = Table(title=f"{v['name']} - {v['strategy']}: {'PASS' if v['passed'] else 'FAIL'}")
+    for col in ("criterion", "value", "limit", "result", "note"):
+        table.add_column(col)
+    for c in v["criteria"]:
+        table.add_row(c["name"], format_value(c["name"], c["value"]), format_value(c["name"], c["limit"]),
+                      "[green]pass[/green]" if c["passed"] else "[bold red]FAIL[/bold red]", c["note"])
+    console.print(table)
+    console.print(f"wrote {out}/verdict.json, report.md and plots")
+    for s in SAFETY_NOTES:
+        console.print(f"[dim]Safety: {s}[/dim]")

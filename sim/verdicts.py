@@ -1,0 +1,369 @@
+"""The `check` battery: does a design hold, and by how much?
+
+Runs, on one scenario:
+1. the scenario's own trial (its start, pushes and duration: the "nominal" run);
+2. a hold: upright at rest for HOLD_S with the scenario's sensor noise and no pushes;
+3. a swing-up from hanging, when the strategy can swing up (`swings_up = True`);
+4. the largest push survived, by bisection on the impulse, in both directions;
+5. Monte Carlo over the scenario's `tolerances` (each trial re-validates a perturbed copy of the
+   raw scenario and runs its own trial);
+6. static checks: wheel burst safety factor at the runaway speed, winding temperature.
+
+Each criterion compares a value with a limit from `requirements`; a value that could not be
+found (a run that failed, a material with no known strength) fails its criterion and says why.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .device import Device
+from .metrics import SETTLE_BAND_RAD, trial_metrics
+from .parallel import run_tasks
+from .scenario import Push, validate_scenario
+from .stress import wheel_burst_check
+from .thermal import winding_check
+from .tolerances import perturbed_raw, scenario_tolerances, trial_seed
+from .trial import run_trial
+
+HOLD_S = 5.0            # long enough for the LQR-type laws to show drift from sensor bias (our choice)
+PUSH_AT_S = 0.5         # push after a short settled hold
+PUSH_RECOVER_S = 3.0    # time allowed to recover from a push before it counts as survived
+SETTLED_FOR_S = 0.5     # "clearly caught": within the settle band, slowly turning, for this long
+SETTLED_RATE_RAD_S = 0.2
+PUSH_REL_TOL = 0.05     # bisection stops when the bracket is within 5% of its upper end
+PUSH_MAX_EVALS = 24
+DEFAULT_TRIALS = 20
+
+SAFETY_NOTES = (
+    "Guard the wheel with a cover built to contain a burst, keep out of its plane, and retain the hub positively.",
+    "Set a software wheel-speed limit and a hardware stop; braking regenerates into the supply and can over-volt it.",
+    "Batteries: balance-charge LiPo packs (4.20 V per cell at most), never charge unattended, charge and store "
+    "them in a fire-resistant container, retire swollen packs.",
+    "These figures are model estimates; they do not replace local codes, a guard designed for burst "
+    "containment, or licensed practice.",
+)
+
+
+# ----------------------------------------------------------------------------- early stopping
+
+class _Stop(Exception):
+    def __init__(self, outcome: str, t_s: float):
+        super().__init__(outcome)
+        self.outcome, self.t_s = outcome, t_s
+
+
+class EarlyStop:
+    """An `on_step` hook for `run_trial` that ends a run once it is clearly caught or clearly lost.
+
+    Looks only on control ticks. Caught: after `not_before_s`, the true angle within the settle
+    band (1 degree) and the body rate below SETTLED_RATE_RAD_S for SETTLED_FOR_S. Lost: the angle
+    beyond the strategy's release angle once it is balancing. Also records the peak wheel speed
+    seen on ticks (rad/s), which stays available when the run is cut short.
+    """
+
+    def __init__(self, scenario, *, not_before_s: float = 0.0):
+        self.dt = scenario.world.step
+        self.every = scenario.control_steps
+        self.release = getattr(scenario.strategy.params, "release_angle", math.pi)
+        self.first_k = int(round(not_before_s / self.dt))
+        self.need = max(1, int(round(SETTLED_FOR_S / self.dt)))
+        self.settled_since: int | None = None
+        self.peak_wheel_rad_s = 0.0
+
+    def __call__(self, k: int, engine) -> None:
+        if k % self.every:
+            return
+        th, thd, _, phd = engine.read()
+        self.peak_wheel_rad_s = max(self.peak_wheel_rad_s, abs(phd))
+        angle = math.remainder(th, 2 * math.pi)
+        if abs(angle) > self.release:
+            raise _Stop("lost", k * self.dt)
+        if k < self.first_k or abs(angle) > SETTLE_BAND_RAD or abs(thd) > SETTLED_RATE_RAD_S:
+            self.settled_since = None
+            return
+        if self.settled_since is None:
+            self.settled_since = k
+        elif k - self.settled_since >= self.need:
+            raise _Stop("caught", k * self.dt)
+
+
+def run_until_clear(scenario, *, seed: int, not_before_s: float = 0.0) -> dict:
+    """Run a balance trial, stopping once clearly caught or lost. Returns caught, outcome, peak wheel speed."""
+    watch = EarlyStop(scenario, not_before_s=not_before_s)
+    try:
+        result = run_trial(scenario, seed=seed, stop_early=True, on_step=watch)
+        outcome = result.outcome
+        caught = outcome == "balanced" and all(_pushes_survived(result))
+        ended = result.ended_at_s
+    except _Stop as stop:
+        outcome, caught, ended = stop.outcome, stop.outcome == "caught", stop.t_s
+    return {"caught": caught, "outcome": outcome, "ended_at_s": ended, "peak_wheel_speed_rad_s": watch.peak_wheel_rad_s}
+
+
+def _pushes_survived(result) -> list[bool]:
+    from .engine import wrap_angles
+    from .metrics import push_outcomes
+    return [p["survived"] for p in push_outcomes(result, wrap_angles(result.trace.view("angle").copy()))]
+
+
+# ----------------------------------------------------------------------------- battery trials
+
+def with_trial(scenario, **changes):
+    """A copy of a validated scenario with its `trial` section changed (fields re-checked by pydantic)."""
+    trial = scenario.trial.model_validate({**scenario.trial.model_dump(), **changes})
+    return scenario.model_copy(update={"trial": trial})
+
+
+def hold_scenario(scenario):
+    return with_trial(scenario, duration=HOLD_S, start={"angle": 0.0, "rate": 0.0, "wheel_speed": 0.0}, pushes=[])
+
+
+def swing_up_scenario(scenario):
+    req = scenario.requirements
+    return with_trial(scenario, duration=req.swing_up_time + req.settle_time + 1.0,
+                      start={"angle": math.pi, "rate": 0.0, "wheel_speed": 0.0}, pushes=[])
+
+
+def push_survived(scenario, impulse_n_m_s: float, *, seed: int) -> bool:
+    """Does the design, held upright at rest, recover from one push of this angular impulse (N m s)?"""
+    sc = with_trial(scenario, duration=PUSH_AT_S + PUSH_RECOVER_S, pushes=[Push(at=PUSH_AT_S, impulse=impulse_n_m_s)],
+                    start={"angle": 0.0, "rate": 0.0, "wheel_speed": 0.0})
+    return run_until_clear(sc, seed=seed, not_before_s=PUSH_AT_S + sc.world.step)["caught"]
+
+
+def max_push(scenario, *, sign: float, seed: int, start_n_m_s: float, rel_tol: float = PUSH_REL_TOL,
+             max_evals: int = PUSH_MAX_EVALS) -> dict:
+    """Largest push survived in one direction, by doubling to bracket it and then bisection.
+
+    Assumes survival falls off monotonically with the impulse. Returns `max_survived_n_m_s` (0
+    when even the smallest tried push is lost), `smallest_lost_n_m_s` (None if none was lost
+    within the doubling cap), and `evals` [(impulse, survived)] in the order tried.
+    """
+    evals: list[tuple[float, bool]] = []
+
+    def survives(x: float) -> bool:
+        ok = push_survived(scenario, sign * x, seed=seed)
+        evals.append((x, ok))
+        return ok
+
+    lo, hi, x = 0.0, None, max(start_n_m_s, 1e-5)
+    while len(evals) < max_evals and hi is None:
+        if survives(x):
+            lo, x = x, 2.0 * x
+        else:
+            hi = x
+    while hi is not None and hi - lo > rel_tol * hi and len(evals) < max_evals:
+        mid = 0.5 * (lo + hi)
+        if survives(mid):
+            lo = mid
+        else:
+            hi = mid
+    return {"max_survived_n_m_s": lo, "smallest_lost_n_m_s": hi, "evals": evals}
+
+
+def judge_trial(scenario, *, seed: int) -> dict:
+    """Run a scenario's own trial and judge it against its requirements. A flat row, no traces."""
+    result = run_trial(scenario, seed=seed, stop_early=True)
+    m = trial_metrics(result)
+    req = scenario.requirements
+    reasons = []
+    if m["outcome"] not in ("balanced", "completed"):
+        reasons.append(m["outcome"])
+    if not all(p["survived"] for p in m["pushes"]):
+        reasons.append("push lost")
+    if result.strategy is not None and result.strategy.goal == "balance" and m["outcome"] == "balanced" and (
+            m["settle_time_s"] is None or m["settle_time_s"] > req.settle_time):
+        reasons.append("slow to settle")
+    if m["wheel_speed_margin"] is None or m["wheel_speed_margin"] < req.wheel_speed_margin:
+        reasons.append("wheel speed margin")
+    temp = winding_check(scenario.motor, m["rms_current_a"])["steady_winding_temperature_c"]
+    return {
+        "outcome": m["outcome"], "message": m["message"], "caught_at_s": m["caught_at_s"],
+        "settle_time_s": m["settle_time_s"], "peak_wheel_speed_rad_s": m["peak_wheel_speed_rad_s"],
+        "wheel_speed_margin": m["wheel_speed_margin"], "peak_current_a": m["peak_current_a"],
+        "rms_current_a": m["rms_current_a"], "winding_temperature_c": temp,
+        "pushes_survived": sum(p["survived"] for p in m["pushes"]), "pushes": len(m["pushes"]),
+        "passed": not reasons, "fail_reasons": ";".join(reasons),
+    }
+
+
+def monte_carlo_task(payload: dict) -> dict:
+    """One Monte Carlo trial (module-level so worker processes can run it).
+
+    payload: raw, where, tolerances (list of Tolerance), base_seed, index. Perturbs the raw
+    mapping, validates it again and judges its trial. An invalid perturbed design fails the trial.
+    """
+    from .errors import ScenarioError
+    rng = np.random.default_rng(trial_seed(payload["base_seed"], payload["index"], 1))
+    raw, drawn = perturbed_raw(payload["raw"], payload["tolerances"], rng)
+    try:
+        sc = validate_scenario(raw, where=payload["where"])
+    except ScenarioError as exc:
+        return {"outcome": "invalid", "message": str(exc), "passed": False, "fail_reasons": "invalid", "drawn": drawn}
+    row = judge_trial(sc, seed=trial_seed(payload["base_seed"], payload["index"]))
+    row["drawn"] = drawn
+    return row
+
+
+def monte_carlo(raw: dict, where: str, scenario, *, trials: int, workers: int | None = None, cluster=None,
+                on_done=None) -> dict:
+    """`trials` Monte Carlo trials over the scenario's tolerances; rows in trial order plus the pass fraction."""
+    tols = scenario_tolerances(scenario)
+    tasks = ((i, {"raw": raw, "where": where, "tolerances": tols, "base_seed": scenario.trial.seed, "index": i})
+             for i in range(trials))
+    rows: list = [None] * trials
+    for i, row in run_tasks(monte_carlo_task, tasks, workers=workers, cluster=cluster):
+        rows[i] = row
+        if on_done is not None:
+            on_done()
+    passed = sum(bool(r["passed"]) for r in rows)
+    return {"trials": trials, "passed_trials": passed, "pass_fraction": passed / trials if trials else None,
+            "tolerances": {t.key: (f"{t.band:.4g} (relative)" if t.relative else f"{t.band:.6g} (absolute, SI)")
+                           for t in tols},
+            "rows": rows}
+
+
+# ----------------------------------------------------------------------------- the battery
+
+@dataclass
+class CheckOutcome:
+    verdict: dict
+    runs: dict = field(default_factory=dict)       # name -> TrialResult, for the report's plots
+    pushes: dict = field(default_factory=dict)     # direction -> max_push() result
+
+
+def run_check(raw: dict, where: str, *, trials: int = DEFAULT_TRIALS, workers: int | None = None,
+              cluster=None, on_stage=None, on_done=None) -> CheckOutcome:
+    """Run the whole battery on a raw scenario mapping. `on_stage(text)` reports progress."""
+    stage = on_stage or (lambda text: None)
+    sc = validate_scenario(raw, where=where)
+    device = Device.from_scenario(sc)
+    runs, metrics = {}, {}
+    plan = [("nominal", sc), ("hold", hold_scenario(sc))]
+    if getattr(sc.strategy.cls, "swings_up", False):
+        plan.append(("swing_up", swing_up_scenario(sc)))
+    for name, scen in plan:
+        stage(f"{name} trial")
+        runs[name] = run_trial(scen)
+        metrics[name] = trial_metrics(runs[name])
+    pushes = {}
+    for direction, sign in (("positive", 1.0), ("negative", -1.0)):
+        stage(f"largest push, {direction} direction")
+        pushes[direction] = max_push(sc, sign=sign, seed=sc.trial.seed, start_n_m_s=max(sc.requirements.min_push, 1e-3))
+    stage(f"Monte Carlo, {trials} trials")
+    mc = monte_carlo(raw, where, sc, trials=trials, workers=workers, cluster=cluster, on_done=on_done)
+    hold_tr = runs["hold"].trace
+    verdict = build_verdict(sc, device, metrics, pushes, mc,
+                            hold_signals=(hold_tr.view("voltage").copy(), hold_tr.view("current").copy()),
+                            runs_current={name: r.trace.view("current") for name, r in runs.items()})
+    return CheckOutcome(verdict=verdict, runs=runs, pushes=pushes)
+
+
+def _headroom(values: np.ndarray, limit: float) -> float | None:
+    if values.size == 0 or not (limit > 0 and math.isfinite(limit)):
+        return None
+    return float(1.0 - np.percentile(np.abs(values), 99) / limit)
+
+
+def _criterion(name: str, value, limit, passed: bool, note: str = "") -> dict:
+    return {"name": name, "value": value, "limit": limit, "passed": bool(passed), "note": note}
+
+
+def _at_least(name, value, limit, note=""):
+    ok = value is not None and math.isfinite(value) and value >= limit
+    return _criterion(name, value, limit, ok, note if value is not None else (note or "could not be found"))
+
+
+def _at_most(name, value, limit, note=""):
+    ok = value is not None and value <= limit
+    return _criterion(name, value, limit, ok, note if value is not None else (note or "could not be found"))
+
+
+def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_signals, runs_current) -> dict:
+    """Criteria and the verdict dictionary written to verdict.json.
+
+    `hold_signals` = (voltage V, current A) arrays of the hold trial, for the headroom criteria;
+    `runs_current` = {run name: current array A}, for the transient winding temperatures.
+    """
+    req = sc.requirements
+    crit = []
+    if "swing_up" in metrics:
+        m = metrics["swing_up"]
+        crit.append(_at_most("swing_up_time_s", m["caught_at_s"] if m["outcome"] == "balanced" else None,
+                             req.swing_up_time, f"outcome {m['outcome']}"))
+    hold, nominal = metrics["hold"], metrics["nominal"]
+    crit.append(_criterion("hold_max_angle_rad", hold["max_angle_after_catch_rad"],
+                           getattr(sc.strategy.params, "release_angle", math.pi), hold["outcome"] == "balanced",
+                           f"{HOLD_S:g} s upright with sensor noise: {hold['outcome']}"))
+    crit.append(_at_most("settle_time_s", nominal["settle_time_s"], req.settle_time,
+                         f"the scenario's own trial: {nominal['outcome']}"))
+    worse = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
+    push_value = pushes[worse]["max_survived_n_m_s"]
+    crit.append(_at_least("max_push_survived_n_m_s", push_value, req.min_push, f"worse direction: {worse}"))
+    margins = [m["wheel_speed_margin"] for m in metrics.values()]
+    margin = None if any(v is None for v in margins) else min(margins)
+    crit.append(_at_least("wheel_speed_margin", margin, req.wheel_speed_margin, "lowest over the battery's runs"))
+    volts, amps = hold_signals
+    i_ref = device.current_limit_a if math.isfinite(device.current_limit_a) else device.supply_v / device.resistance_ohm
+    crit.append(_at_least("voltage_headroom", _headroom(volts, device.supply_v), req.voltage_headroom,
+                          "holding: 1 - p99(|V|)/supply"))
+    crit.append(_at_least("current_headroom", _headroom(amps, i_ref), req.current_headroom,
+                          "holding: 1 - p99(|i|)/" + ("current limit" if math.isfinite(device.current_limit_a) else "stall current")))
+    thermal = winding_check(sc.motor, hold["rms_current_a"])
+    thermal["peak_over_runs_c"] = _transient_peaks(sc, runs_current)
+    crit.append(_at_most("winding_temperature_c", thermal["steady_winding_temperature_c"], sc.motor.thermal.max_temperature,
+                         "steady state at the hold's RMS current (continuous balancing)"))
+    burst = wheel_burst_check(sc, device)
+    note = "at the runaway speed (no-load speed at full supply)"
+    if burst["unknown_parts"]:
+        note = f"strength unknown for {', '.join(burst['unknown_parts'])}: cannot confirm; " + note
+    crit.append(_criterion("wheel_burst_safety_factor", burst["safety_factor"], req.burst_safety_factor,
+                           burst["safety_factor"] is not None and not burst["unknown_parts"]
+                           and burst["safety_factor"] >= req.burst_safety_factor, note))
+    crit.append(_at_least("monte_carlo_pass_fraction", mc["pass_fraction"], req.pass_fraction,
+                          f"{mc['trials']} trials over the tolerances"))
+    return {
+        "passed": all(c["passed"] for c in crit),
+        "scenario": sc.source, "name": sc.name, "strategy": sc.strategy.kind,
+        "criteria": crit,
+        "max_push_survived_n_m_s": push_value,
+        "max_push_direction": worse,
+        "pushes": {d: {k: v for k, v in p.items()} for d, p in pushes.items()},
+        "wheel_burst_safety_factor": burst["safety_factor"],
+        "burst": burst,
+        "thermal": thermal,
+        "monte_carlo": {k: v for k, v in mc.items() if k != "rows"} | {"failures": _failure_counts(mc["rows"])},
+        "runs": {name: {k: m[k] for k in ("outcome", "message", "caught_at_s", "settle_time_s", "peak_wheel_speed_rad_s",
+                                          "wheel_speed_margin", "peak_current_a", "rms_current_a")}
+                 for name, m in metrics.items()},
+        "requirements": sc.requirements.model_dump(),
+        "safety": list(SAFETY_NOTES),
+    }
+
+
+def _transient_peaks(sc, runs_current: dict) -> dict:
+    """Peak winding temperature over each run, starting from ambient, degC (first-order model)."""
+    from .thermal import temperature_history_c
+    th = sc.motor.thermal
+    out = {}
+    for name, current in runs_current.items():
+        # one value per 10 ms is plenty for a time constant of minutes
+        stride = max(1, int(round(0.01 / sc.world.step)))
+        rms = np.sqrt(np.add.reduceat(current**2, np.arange(0, len(current), stride)) / stride) if len(current) else current
+        temps = temperature_history_c(rms, stride * sc.world.step, resistance_20c_ohm=sc.motor.resistance,
+                                      thermal_resistance_k_w=th.thermal_resistance,
+                                      thermal_capacity_j_k=th.thermal_capacity, ambient_c=th.ambient)
+        out[name] = float(temps.max()) if len(temps) else th.ambient
+    return out
+
+
+def _failure_counts(rows) -> dict:
+    counts: dict[str, int] = {}
+    for r in rows:
+        for reason in filter(None, (r.get("fail_reasons") or "").split(";")):
+            counts[reason] = counts.get(reason, 0) + 1
+    return counts
