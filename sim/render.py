@@ -1,0 +1,418 @@
+"""Pictures of a finished trial: a visual-only scene built from the scenario's own parts.
+
+Frames are drawn after the trial from its recorded trace (body angle, wheel angle), never by
+simulating again. Two pybullet clients in DIRECT mode (CPU only, no display) hold the scene:
+
+- a static one (floor, stand, pivot axle), drawn once per camera into a cached background
+  colour and depth image;
+- a moving one (the body's parts, the motor, the wheel's parts and its marks), posed for each
+  frame from the trace and drawn with pybullet's tiny software renderer, then laid over the
+  background by depth.
+
+Drawing the static scene once matters: the tiny renderer's cost grows with the pixels it fills,
+and a floor fills a third of the frame (measured: ~80 ms against ~20 ms per 960x540 frame).
+
+Geometry and signs follow `sim.engine`: the pivot is the world x axis through the origin, the
+body axis points along +z at angle 0, and a positive angle turns the body about +x (right-hand
+rule), so its tip moves towards -y. The wheel's angle is relative to the body. Distances in m.
+For the picture only, the motor and wheel sit beside the body along the pivot axis (+x, towards
+the default camera); that offset does not change the dynamics, which are planar about x.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .engine import import_pybullet
+
+CAMERAS = ("axis", "oblique")
+"""Camera presets: `axis` looks along the pivot axis at the swing plane; `oblique` from above and aside."""
+
+# Our own palette (linear 0..1 RGBA). Printed plastics are warm, metals cool, the motor dark.
+COLOURS = {
+    "printed": (0.93, 0.47, 0.30, 1.0),
+    "aluminium": (0.74, 0.77, 0.80, 1.0),
+    "steel": (0.52, 0.55, 0.58, 1.0),
+    "brass": (0.83, 0.66, 0.30, 1.0),
+    "other": (0.44, 0.52, 0.62, 1.0),
+    "motor": (0.17, 0.19, 0.22, 1.0),
+    "mark": (0.98, 0.93, 0.62, 1.0),
+    "bolt": (0.30, 0.32, 0.35, 1.0),
+    "stand": (0.33, 0.36, 0.40, 1.0),
+    "floor": (0.86, 0.85, 0.81, 1.0),
+}
+SKY_TOP, SKY_BOTTOM = np.array([206, 216, 224]), np.array([238, 240, 240])
+FOV_DEG = 30.0
+SCENE_FRACTION = 0.76   # the top share of the frame kept for the scene; the overlay's panel takes the rest
+
+
+def _qx(angle: float) -> tuple[float, float, float, float]:
+    """Quaternion (x, y, z, w) of a rotation by `angle` rad about +x."""
+    return (math.sin(angle / 2), 0.0, 0.0, math.cos(angle / 2))
+
+
+def _qmul(a, b) -> tuple[float, float, float, float]:
+    ax, ay, az, aw = a
+    bx, by, bz, bw = b
+    return (aw * bx + ax * bw + ay * bz - az * by, aw * by - ax * bz + ay * bw + az * bx,
+            aw * bz + ax * by - ay * bx + az * bw, aw * bw - ax * bx - ay * by - az * bz)
+
+
+# a turn about +y by 90 deg takes a primitive's local z (pybullet's cylinder axis) onto x
+Q_Z_TO_X = (0.0, math.sin(math.pi / 4), 0.0, math.cos(math.pi / 4))
+Q_NONE = (0.0, 0.0, 0.0, 1.0)
+
+
+@dataclass(frozen=True)
+class Piece:
+    """One visual primitive riding on the body or the wheel.
+
+    `x` is its offset along the pivot axis, `r` its distance from the link's origin along the
+    link's local z (the body axis, or a wheel radius), `psi` an extra turn about x (copies of a
+    wheel part), `q` its own orientation. `geom` is ("box", half extents), ("cyl", radius, length),
+    ("ring", outer, inner, thickness) or ("sphere", radius).
+    """
+
+    link: str
+    geom: tuple
+    colour: tuple
+    x: float = 0.0
+    r: float = 0.0
+    psi: float = 0.0
+    q: tuple = Q_NONE
+
+
+def _part_colour(part) -> tuple:
+    mat = part.material_props
+    if mat is None:
+        return COLOURS["other"]
+    if mat.printed:
+        return COLOURS["printed"]
+    name = (mat.name or "").lower()
+    return next((COLOURS[k] for k in ("aluminium", "steel", "brass") if k in name), COLOURS["other"])
+
+
+def _part_geom(part, scale: float) -> tuple[tuple, tuple]:
+    """(geometry, own orientation) of a part; sizes a part leaves open get a size for the picture."""
+    s = part.shape
+    if s == "box":
+        return ("box", (part.thickness / 2, part.width / 2, part.length / 2)), Q_NONE
+    if s == "rod":
+        return ("cyl", part.radius or 0.02 * part.length, part.length), Q_NONE
+    if s == "disk":
+        return ("cyl", part.radius, part.thickness or 0.15 * part.radius), Q_Z_TO_X
+    if s == "ring":
+        return ("ring", part.outer_radius, part.inner_radius, part.thickness or 0.15 * part.outer_radius), Q_NONE
+    return ("sphere", scale), Q_NONE
+
+
+def _x_half(geom, q=Q_NONE) -> float:
+    """Half the extent of a piece along the pivot axis (x)."""
+    kind = geom[0]
+    if kind == "box":
+        return geom[1][0]
+    if kind == "cyl":  # rods stand along z (x extent = radius); disks are turned to lie along x
+        return geom[2] / 2 if q == Q_Z_TO_X else geom[1]
+    if kind == "ring":
+        return geom[3] / 2
+    return geom[1]
+
+
+@dataclass(frozen=True)
+class Layout:
+    """The scene's pieces and sizes, derived from a scenario. Distances in m."""
+
+    pieces: tuple
+    reach_m: float          # furthest point of the device from the pivot
+    wheel_at_m: float
+    wheel_x_m: float        # the wheel plane's offset along the pivot axis
+    wheel_radius_m: float
+    floor_z_m: float
+
+    @classmethod
+    def from_scenario(cls, sc) -> "Layout":
+        wheel_r = max([_radial_extent(p) for p in sc.wheel.parts] + [0.01])
+        body_reach = max(abs(p.at) + (p.length / 2 if p.length else 0.0) for p in sc.body.parts)
+        reach = max(body_reach, sc.wheel.at + wheel_r)
+        pieces = []
+        for p in sc.body.parts:
+            geom, q = _part_geom(p, 0.035 * reach)
+            pieces.append(Piece("body", geom, _part_colour(p), r=p.at, q=q))
+        body_half_x = max(_x_half(pc.geom, pc.q) for pc in pieces)
+        wheel_pieces, wheel_t = _wheel_pieces(sc.wheel.parts, wheel_r)
+        motor_r, motor_len = 0.3 * wheel_r, 0.32 * wheel_r
+        wheel_x = body_half_x + motor_len + wheel_t / 2 + 0.02 * wheel_r
+        pieces.append(Piece("body", ("cyl", motor_r, motor_len), COLOURS["motor"], x=body_half_x + motor_len / 2,
+                            r=sc.wheel.at, q=Q_Z_TO_X))
+        pieces += [Piece("wheel", pc.geom, pc.colour, x=wheel_x + pc.x, r=pc.r, psi=pc.psi, q=pc.q)
+                   for pc in wheel_pieces]
+        return cls(tuple(pieces), reach, sc.wheel.at, wheel_x, wheel_r, -1.25 * reach)
+
+
+def _radial_extent(part) -> float:
+    if part.shape == "ring":
+        return part.outer_radius
+    if part.shape == "disk":
+        return part.radius
+    if part.shape in ("box", "rod"):
+        return part.at + part.length / 2
+    return part.at
+
+
+def _wheel_pieces(parts, wheel_r: float) -> tuple[list, float]:
+    """The wheel's parts plus our marks: three light spokes and a hub, so that its spin shows."""
+    solid = [_part_geom(p, 0.0) for p in parts if p.shape != "point"]
+    thick = max([2 * _x_half(g, q) for g, q in solid] + [0.0]) or 0.08 * wheel_r
+    pieces = []
+    for p in parts:
+        if p.shape == "point":  # a bolt through the rim: a short dark cylinder showing on both faces
+            geom, q, colour = ("cyl", 0.045 * wheel_r, 1.3 * thick), Q_Z_TO_X, COLOURS["bolt"]
+        else:
+            (geom, q), colour = _part_geom(p, 0.0), _part_colour(p)
+        pieces += [Piece("wheel", geom, colour, r=p.at, psi=2 * math.pi * j / p.count, q=q) for j in range(p.count)]
+    spoke_len = 0.8 * wheel_r
+    for j in range(3):  # marks standing just proud of both faces
+        pieces.append(Piece("wheel", ("box", (0.6 * thick, 0.05 * wheel_r, spoke_len / 2)), COLOURS["mark"],
+                            r=0.1 * wheel_r + spoke_len / 2, psi=2 * math.pi * j / 3))
+    pieces.append(Piece("wheel", ("cyl", 0.13 * wheel_r, 1.4 * thick), COLOURS["steel"], q=Q_Z_TO_X))
+    return pieces, thick
+
+
+def ring_mesh(outer: float, inner: float, thickness: float, segments: int = 48):
+    """Vertices, triangle indices and normals of an annular prism with its axis along x, m."""
+    a = np.linspace(0.0, 2 * math.pi, segments, endpoint=False)
+    c, s = np.cos(a), np.sin(a)
+    h = thickness / 2
+    verts, norms, idx = [], [], []
+
+    def add_band(r_lo, r_hi, x_lo, x_hi, normal_fn, flip):
+        base = len(verts)
+        for k in range(segments):
+            verts.append((x_lo, r_lo * c[k], r_lo * s[k]))
+            verts.append((x_hi, r_hi * c[k], r_hi * s[k]))
+            norms.extend([normal_fn(k)] * 2)
+        for k in range(segments):
+            i0, i1 = base + 2 * k, base + 2 * ((k + 1) % segments)
+            tri = [(i0, i1, i0 + 1), (i1, i1 + 1, i0 + 1)]
+            for t in tri:
+                idx.extend(t[::-1] if flip else t)
+
+    add_band(outer, outer, -h, h, lambda k: (0.0, c[k], s[k]), False)        # outer wall
+    if inner > 0:
+        add_band(inner, inner, -h, h, lambda k: (0.0, -c[k], -s[k]), True)   # inner wall
+    add_band(inner, outer, h, h, lambda k: (1.0, 0.0, 0.0), True)           # +x face
+    add_band(inner, outer, -h, -h, lambda k: (-1.0, 0.0, 0.0), False)       # -x face
+    return [list(v) for v in verts], idx, [list(n) for n in norms]
+
+
+def _visual_shape(pb, cid, geom, colour) -> int:
+    kind = geom[0]
+    if kind == "box":
+        return pb.createVisualShape(pb.GEOM_BOX, halfExtents=list(geom[1]), rgbaColor=colour, physicsClientId=cid)
+    if kind == "cyl":
+        return pb.createVisualShape(pb.GEOM_CYLINDER, radius=geom[1], length=geom[2], rgbaColor=colour,
+                                    physicsClientId=cid)
+    if kind == "ring":
+        v, i, n = ring_mesh(*geom[1:])
+        return pb.createVisualShape(pb.GEOM_MESH, vertices=v, indices=i, normals=n, rgbaColor=colour,
+                                    physicsClientId=cid)
+    return pb.createVisualShape(pb.GEOM_SPHERE, radius=geom[1], rgbaColor=colour, physicsClientId=cid)
+
+
+@dataclass(frozen=True)
+class Camera:
+    """A pinhole camera: pybullet's column-major view and projection matrices and a pixel size."""
+
+    width: int
+    height: int
+    view: tuple
+    proj: tuple
+    frustum: tuple          # (left, right, bottom, top) at the near plane, m
+    near_m: float
+    far_m: float
+
+    @classmethod
+    def framing(cls, layout: Layout, *, preset: str = "axis", width: int, height: int,
+                scene_share: float = SCENE_FRACTION) -> "Camera":
+        """Frame the whole swing circle, the stand and the floor in the top `scene_share` of the frame.
+
+        The body may swing a full turn (swing-up), so the frame is sized from the device's reach,
+        not from where this trial happened to go.
+        """
+        if preset not in CAMERAS:
+            raise ValueError(f"unknown camera {preset!r}; known: {', '.join(CAMERAS)}")
+        pb = import_pybullet()
+        reach = layout.reach_m
+        top, bottom = 1.1 * reach, layout.floor_z_m - 0.05 * reach
+        half_h = (top - bottom) / scene_share / 2
+        half_h = max(half_h, 1.25 * reach * height / width)   # narrow frames (side by side) fit the width
+        target = np.array([layout.wheel_x_m / 2, 0.0, top - half_h])
+        dist = half_h / math.tan(math.radians(FOV_DEG) / 2)
+        if preset == "axis":
+            direction = np.array([1.0, 0.0, 0.0])
+        else:  # from the wheel's side, turned and raised so the stand and the wheel's depth show
+            az, el = math.radians(38.0), math.radians(16.0)
+            direction = np.array([math.cos(el) * math.cos(az), -math.cos(el) * math.sin(az), math.sin(el)])
+            dist *= 1.08
+        eye = target + dist * direction
+        near, far = 0.2 * dist, 3.0 * dist
+        view = pb.computeViewMatrix(eye.tolist(), target.tolist(), [0, 0, 1])
+        t = near * math.tan(math.radians(FOV_DEG) / 2)
+        r = t * width / height
+        return cls._make(width, height, view, (-r, r, -t, t), near, far)
+
+    @classmethod
+    def _make(cls, width, height, view, frustum, near, far) -> "Camera":
+        proj = import_pybullet().computeProjectionMatrix(*frustum, near, far)
+        return cls(width, height, tuple(view), tuple(proj), tuple(frustum), near, far)
+
+    def top_rows(self, rows: int) -> "Camera":
+        """The same view cut to its top `rows` pixel rows (an off-centre frustum): pixels stay square."""
+        left, right, bottom, top = self.frustum
+        cut_bottom = top - (top - bottom) * rows / self.height
+        return Camera._make(self.width, rows, self.view, (left, right, cut_bottom, top), self.near_m, self.far_m)
+
+    def scaled(self, scale: float) -> "Camera":
+        """The same view at `scale` times the pixel size."""
+        w, h = max(16, int(round(self.width * scale))), max(16, int(round(self.height * scale)))
+        return Camera._make(w, h, self.view, self.frustum, self.near_m, self.far_m)
+
+    def project(self, points) -> np.ndarray:
+        """Pixel coordinates (column, row; row 0 at the top) of world points (N, 3), m."""
+        p = np.atleast_2d(np.asarray(points, dtype=float))
+        homo = np.hstack([p, np.ones((len(p), 1))])
+        view = np.array(self.view).reshape(4, 4).T     # pybullet matrices are column-major
+        proj = np.array(self.proj).reshape(4, 4).T
+        clip = homo @ (proj @ view).T
+        ndc = clip[:, :3] / clip[:, 3:4]
+        return np.column_stack([(ndc[:, 0] + 1) / 2 * self.width, (1 - ndc[:, 1]) / 2 * self.height])
+
+
+LIGHT = dict(lightDirection=[2.0, -1.2, 3.0], lightColor=[1.0, 0.98, 0.94], lightDistance=10.0,
+             lightAmbientCoeff=0.5, lightDiffuseCoeff=0.55, lightSpecularCoeff=0.12)
+
+
+def _static_pieces(layout: Layout) -> list[tuple]:
+    """(geometry, colour, position, orientation) of the floor, stand and pivot axle."""
+    reach = layout.reach_m
+    post_t, post_w = 0.05 * reach, 0.09 * reach
+    post_x = -(0.06 * reach + post_t / 2)
+    floor = layout.floor_z_m
+    post_top = 0.08 * reach
+    return [
+        (("box", (25 * reach, 25 * reach, 0.02 * reach)), COLOURS["floor"], (0, 0, floor - 0.02 * reach), Q_NONE),
+        (("box", (0.35 * reach, 0.45 * reach, 0.025 * reach)), COLOURS["stand"],
+         (post_x + 0.2 * reach, 0, floor + 0.025 * reach), Q_NONE),
+        (("box", (post_t / 2, post_w / 2, (post_top - floor) / 2)), COLOURS["stand"],
+         (post_x, 0, (post_top + floor) / 2), Q_NONE),
+        (("cyl", 0.018 * reach, -post_x), COLOURS["steel"], (post_x / 2, 0, 0), Q_Z_TO_X),
+    ]
+
+
+class Scene:
+    """The device's picture, posed frame by frame from recorded angles.
+
+    Parameters
+    ----------
+    scenario : a loaded scenario (its parts give the shapes, sizes and colours).
+    width, height : frame size, pixels.
+    camera : one of CAMERAS.
+    render_scale : the software renderer draws at this share of the frame size and the result
+        is scaled up (its cost grows with the pixels it fills; see benchmarks/render_speed.py).
+    scene_rows : draw only the top rows of the frame (the rest is left for an opaque panel);
+        None draws the whole frame.
+    """
+
+    def __init__(self, scenario, *, width: int, height: int, camera: str = "axis", render_scale: float = 1.0,
+                 scene_rows: int | None = None):
+        from PIL import Image
+
+        self.pb = import_pybullet()
+        self.layout = Layout.from_scenario(scenario)
+        self.rows = height if scene_rows is None else max(1, min(height, int(scene_rows)))
+        self.camera = Camera.framing(self.layout, preset=camera, width=width, height=height,
+                                     scene_share=SCENE_FRACTION if scene_rows is None else self.rows / height)
+        self._inner = self.camera.top_rows(self.rows).scaled(render_scale)
+        self._background, self._bg_depth = self._draw_static()
+        self._Image = Image
+        pb = self.pb
+        self._cid = pb.connect(pb.DIRECT)
+        self._ids = [pb.createMultiBody(0, -1, _visual_shape(pb, self._cid, pc.geom, pc.colour),
+                                        physicsClientId=self._cid) for pc in self.layout.pieces]
+
+    def _draw_static(self):
+        from PIL import Image
+
+        pb, cam = self.pb, self._inner
+        cid = pb.connect(pb.DIRECT)
+        try:
+            for geom, colour, pos, q in _static_pieces(self.layout):
+                pb.createMultiBody(0, -1, _visual_shape(pb, cid, geom, colour), list(pos), list(q), physicsClientId=cid)
+            rgb, depth, seg = self._snap(cid, shadow=True)
+        finally:
+            pb.disconnect(physicsClientId=cid)
+        rows = np.arange(cam.height)[:, None, None] / max(cam.height - 1, 1) * self.rows / self.camera.height
+        sky = (SKY_TOP * (1 - rows) + SKY_BOTTOM * rows).astype(np.uint8)
+        empty = (seg < 0)[..., None]
+        return Image.fromarray(np.where(empty, sky, rgb)), depth
+
+    def _snap(self, cid, *, shadow: bool):
+        cam = self._inner
+        _, _, rgba, depth, seg = self.pb.getCameraImage(
+            cam.width, cam.height, cam.view, cam.proj, renderer=self.pb.ER_TINY_RENDERER,
+            shadow=int(shadow), physicsClientId=cid, **LIGHT)
+        shape = (cam.height, cam.width)
+        return (np.asarray(rgba, dtype=np.uint8).reshape(shape + (4,))[..., :3],
+                np.asarray(depth, dtype=np.float32).reshape(shape), np.asarray(seg).reshape(shape))
+
+    def wheel_centre(self, angle_rad: float) -> np.ndarray:
+        """World position of the wheel's centre at body angle `angle_rad`, m."""
+        at = self.layout.wheel_at_m
+        return np.array([self.layout.wheel_x_m, -at * math.sin(angle_rad), at * math.cos(angle_rad)])
+
+    def pose(self, angle_rad: float, wheel_angle_rad: float) -> None:
+        """Place every moving piece for a body angle and a wheel angle (relative to the body), rad."""
+        pb, cid = self.pb, self._cid
+        hub = self.wheel_centre(angle_rad)
+        for body_id, pc in zip(self._ids, self.layout.pieces):
+            if pc.link == "body":
+                a, origin = angle_rad + pc.psi, (0.0, 0.0, 0.0)
+            else:
+                a, origin = angle_rad + wheel_angle_rad + pc.psi, (0.0, hub[1], hub[2])
+            pos = (origin[0] + pc.x, origin[1] - pc.r * math.sin(a), origin[2] + pc.r * math.cos(a))
+            pb.resetBasePositionAndOrientation(body_id, pos, _qmul(_qx(a), pc.q), physicsClientId=cid)
+
+    def draw_image(self, angle_rad: float, wheel_angle_rad: float):
+        """One frame as a PIL RGB image of the frame's size; rows below `scene_rows` are left dark."""
+        Image = self._Image
+        self.pose(angle_rad, wheel_angle_rad)
+        rgb, depth, _ = self._snap(self._cid, shadow=False)
+        front = Image.fromarray(depth < self._bg_depth)      # mode "1": where the moving pieces are nearer
+        img = Image.composite(Image.fromarray(rgb), self._background, front)
+        cam = self.camera
+        if img.size != (cam.width, self.rows):
+            img = img.resize((cam.width, self.rows), Image.BILINEAR)
+        if self.rows == cam.height:
+            return img
+        frame = Image.new("RGB", (cam.width, cam.height), (16, 24, 34))
+        frame.paste(img, (0, 0))
+        return frame
+
+    def draw(self, angle_rad: float, wheel_angle_rad: float) -> np.ndarray:
+        """One frame, (height, width, 3) uint8 RGB: the moving pieces laid over the cached background."""
+        return np.asarray(self.draw_image(angle_rad, wheel_angle_rad))
+
+    def close(self) -> None:
+        try:
+            self.pb.disconnect(physicsClientId=self._cid)
+        except Exception:  # already gone: nothing to free
+            pass
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()

@@ -1,0 +1,266 @@
+"""Clips of finished trials: MP4 (imageio with imageio-ffmpeg) or GIF, chosen by the file's suffix.
+
+Frame i shows the recorded state at t = i / fps (the trace row nearest that time): nothing is
+simulated again. A clip of a trial lasting D seconds has round(D * fps) frames. Side-by-side
+clips put two trials in one frame, each in its own labelled half; the shorter trial holds its
+last state until the longer one ends.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .errors import InputError
+from .outputs import MARKER, atomic_path
+from .overlay import Dashboard, readout, row_index
+from .render import CAMERAS, Scene
+
+SUFFIXES = (".mp4", ".gif")
+DEFAULT_FPS = 30
+DEFAULT_SIZE = (960, 540)
+RENDER_SCALE = 0.75
+"""The software renderer draws at this share of the frame size (measured in benchmarks/render_speed.py)."""
+
+
+@dataclass(frozen=True)
+class ClipInfo:
+    """What was written: path, frame count, clip length s, frames per second, wall time s."""
+
+    path: Path
+    frames: int
+    duration_s: float
+    fps: int
+    wall_s: float
+
+
+def parse_size(text: str) -> tuple[int, int]:
+    """'960x540' -> (960, 540). Both even (the MP4 encoder's colour format needs it), 64..4096 px."""
+    parts = str(text).lower().replace(" ", "").split("x")
+    try:
+        w, h = (int(p) for p in parts)
+    except ValueError:
+        raise InputError(f"--size {text}: expected WIDTHxHEIGHT in pixels, e.g. 960x540") from None
+    if not (64 <= w <= 4096 and 64 <= h <= 4096) or w % 2 or h % 2:
+        raise InputError(f"--size {text}: width and height must be even numbers from 64 to 4096")
+    return w, h
+
+
+def check_fps(fps: int) -> int:
+    if not 1 <= fps <= 240:
+        raise InputError(f"--fps {fps}: expected a whole number from 1 to 240")
+    return int(fps)
+
+
+def check_target(path: str | Path, *, force: bool = False) -> Path:
+    """Check a clip's path before anything is simulated; returns it as a Path.
+
+    The suffix picks the format. An existing file is replaced only inside a folder that
+    Wheelbench wrote (it holds our marker) or with `force`, so a user's file is never lost silently.
+    """
+    p = Path(path)
+    if p.suffix.lower() not in SUFFIXES:
+        raise InputError(f"--video {p}: the suffix picks the format; use .mp4 or .gif")
+    if p.is_dir():
+        raise InputError(f"--video {p}: is a folder; give a file name ending in .mp4 or .gif")
+    if p.exists() and not force and not (p.parent / MARKER).exists():
+        raise InputError(f"--video {p}: the file exists; choose another name or pass --force to replace it")
+    if not p.parent.exists():
+        try:
+            p.parent.mkdir(parents=True)
+        except OSError as exc:
+            raise InputError(f"--video {p}: cannot create its folder ({exc.strerror or exc})") from None
+    return p
+
+
+def clip_duration_s(result) -> float:
+    """How long a trial's clip runs: the recorded span, s."""
+    return result.trace.n * result.trace.step_s
+
+
+def frame_count(duration_s: float, fps: int) -> int:
+    """Frames in a clip of `duration_s` at `fps`: duration times fps, rounded."""
+    return int(round(duration_s * fps))
+
+
+class TrialPainter:
+    """Paints the frames of one trial at one size: the 3D scene plus the instrument panel."""
+
+    def __init__(self, result, *, width: int, height: int, camera: str = "axis", label: str | None = None,
+                 render_scale: float = RENDER_SCALE):
+        self.result = result
+        self.dash = Dashboard(width, height, label=label)
+        self.scene = Scene(result.scenario, width=width, height=height, camera=camera, render_scale=render_scale,
+                           scene_rows=self.dash.top)
+
+    def paint(self, t_s: float):
+        """(frame, Drawn) at time `t_s`: (height, width, 3) uint8 RGB and what the panel shows."""
+        tr = self.result.trace
+        k = row_index(tr, t_s)
+        angle, wheel = float(tr.angle[k]), float(tr.wheel_angle[k])
+        frame = self.scene.draw_image(angle, wheel)
+        r = readout(self.result, t_s)
+        arrow = self._push_arrow(angle, r.push_n_m_s) if r.push_n_m_s else None
+        return self.dash.draw(frame, r, push_arrow=arrow)
+
+    def _push_arrow(self, angle: float, impulse: float):
+        """Pixel tail and head of an arrow at the wheel, along the way the push turns the body."""
+        lay = self.scene.layout
+        # a positive impulse turns the body about +x: the tip moves along (0, -cos a, -sin a)
+        way = math.copysign(1.0, impulse) * np.array([0.0, -math.cos(angle), -math.sin(angle)])
+        hub = self.scene.wheel_centre(angle)
+        head = hub - way * 1.2 * lay.wheel_radius_m
+        tail = head - way * 0.45 * lay.reach_m
+        (x0, y0), (x1, y1) = self.scene.camera.project([tail, head])
+        return (x0, y0), (x1, y1)
+
+    def close(self) -> None:
+        self.scene.close()
+
+
+class _Sink:
+    """Frames to a file: MP4 streams to ffmpeg; GIF keeps palette frames and writes at the end."""
+
+    def __init__(self, path: Path, fps: int):
+        self.path, self.fps = path, fps
+        self.gif = path.suffix.lower() == ".gif"
+        self._frames = []
+        if not self.gif:
+            import imageio.v2 as iio
+            self._writer = iio.get_writer(str(path), format="FFMPEG", mode="I", fps=fps, codec="libx264",
+                                          pixelformat="yuv420p", macro_block_size=2, quality=None,
+                                          ffmpeg_log_level="error", output_params=["-preset", "veryfast", "-crf", "23"])
+
+    def add(self, frame: np.ndarray) -> None:
+        if self.gif:
+            from PIL import Image
+            # one palette per frame, no dithering: smaller files, and the scene's flat colours need none
+            self._frames.append(Image.fromarray(frame).quantize(colors=128, method=Image.Quantize.FASTOCTREE,
+                                                                dither=Image.Dither.NONE))
+        else:
+            self._writer.append_data(frame)
+
+    def close(self) -> None:
+        if self.gif:
+            if self._frames:  # GIF delays are whole hundredths of a second
+                self._frames[0].save(self.path, format="GIF", save_all=True, append_images=self._frames[1:],
+                                     duration=max(20, round(1000 / self.fps / 10) * 10), loop=0)
+        else:
+            self._writer.close()
+
+
+def _progress_bar(enabled: bool):
+    """A progress bar on stderr, shown only when stderr is a terminal."""
+    from rich.console import Console
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
+
+    console = Console(stderr=True)
+    return Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(),
+                    console=console, disable=not (enabled and console.is_terminal), transient=True)
+
+
+def _write(path: Path, painters, fps: int, duration_s: float, progress: bool) -> ClipInfo:
+    import os
+
+    n = frame_count(duration_s, fps)
+    if n < 1:
+        raise InputError(f"--video {path}: the trial lasted {duration_s:g} s, too short for one frame at {fps} fps")
+    wall0 = time.perf_counter()
+    with atomic_path(path) as tmp, _progress_bar(progress) as bar:
+        task = bar.add_task(f"rendering {path.name}", total=n)
+        sink = _Sink(tmp, fps)
+        try:
+            for i in range(n):
+                frames = [p.paint(i / fps)[0] for p in painters]
+                sink.add(frames[0] if len(frames) == 1 else _side_by_side(frames))
+                bar.advance(task)
+        finally:
+            sink.close()
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)   # the temporary file was private; the clip is an ordinary file
+    return ClipInfo(path, n, n / fps, fps, time.perf_counter() - wall0)
+
+
+def _side_by_side(frames) -> np.ndarray:
+    out = np.concatenate(frames, axis=1)
+    x = frames[0].shape[1]
+    out[:, max(0, x - 1): x + 1] = (16, 24, 34)   # a dark seam between the halves
+    return out
+
+
+def write_clip(result, path: str | Path, *, fps: int = DEFAULT_FPS, size: tuple[int, int] = DEFAULT_SIZE,
+               camera: str = "axis", label: str | None = None, progress: bool = True,
+               render_scale: float = RENDER_SCALE) -> ClipInfo:
+    """Write a clip of one finished trial (a TrialResult) to `path` (.mp4 or .gif), atomically.
+
+    `label` defaults to the scenario's name and strategy. Returns a ClipInfo.
+    """
+    if camera not in CAMERAS:
+        raise InputError(f"--camera {camera}: expected one of {', '.join(CAMERAS)}")
+    width, height = size
+    label = label if label is not None else f"{result.scenario.name} | {result.scenario.strategy.kind}"
+    painter = TrialPainter(result, width=width, height=height, camera=camera, label=label, render_scale=render_scale)
+    try:
+        return _write(Path(path), [painter], check_fps(fps), clip_duration_s(result), progress)
+    finally:
+        painter.close()
+
+
+def write_side_by_side(results, labels, path: str | Path, *, fps: int = DEFAULT_FPS,
+                       size: tuple[int, int] = DEFAULT_SIZE, camera: str = "axis", progress: bool = True,
+                       render_scale: float = RENDER_SCALE) -> ClipInfo:
+    """Write two finished trials side by side, each half labelled, to `path` (.mp4 or .gif).
+
+    `size` is the whole frame; each trial gets half its width. The clip runs as long as the
+    longer trial.
+    """
+    if len(results) != 2 or len(labels) != 2:
+        raise ValueError("a side-by-side clip takes two trials and two labels")
+    if camera not in CAMERAS:
+        raise InputError(f"--camera {camera}: expected one of {', '.join(CAMERAS)}")
+    width, height = size
+    halves = (width // 2, width - width // 2)
+    painters = []
+    try:
+        for res, lab, w in zip(results, labels, halves):
+            painters.append(TrialPainter(res, width=w, height=height, camera=camera, label=lab,
+                                         render_scale=render_scale))
+        duration = max(clip_duration_s(r) for r in results)
+        return _write(Path(path), painters, check_fps(fps), duration, progress)
+    finally:
+        for p in painters:
+            p.close()
+
+
+def clip_options(video: str | Path, *, fps: int = DEFAULT_FPS, size: str = "960x540", camera: str = "axis",
+                 force: bool = False) -> dict:
+    """Check the command line's clip options before anything is simulated.
+
+    Returns keyword arguments for `write_clip` / `write_side_by_side`; raises InputError naming
+    the option at fault.
+    """
+    if camera not in CAMERAS:
+        raise InputError(f"--camera {camera}: expected one of {', '.join(CAMERAS)}")
+    return dict(path=check_target(video, force=force), fps=check_fps(fps), size=parse_size(size), camera=camera)
+
+
+def compare_to_clip(scenarios, labels, *, seed: int | None = None, progress: bool = True, **clip) -> tuple:
+    """Run two loaded scenarios and write them side by side. Returns (results, ClipInfo).
+
+    `labels` : two labels, or None for "A: name | strategy" and "B: ...". `clip` : the keywords
+    from `clip_options`.
+    """
+    from .trial import run_trial
+
+    results = [run_trial(sc, seed=seed) for sc in scenarios]
+    if not labels:
+        labels = [f"{tag}: {r.scenario.name} | {r.scenario.strategy.kind}" for tag, r in zip("AB", results)]
+    if len(labels) != 2:
+        raise InputError(f"--label: give it twice (one per side), or not at all; found {len(labels)}")
+    info = write_side_by_side(results, list(labels), clip.pop("path"), progress=progress, **clip)
+    return results, info
