@@ -1,0 +1,119 @@
+"""Reading CSV bench logs: units from the header, wrapped angles, uneven times, clear errors.
+
+Unit factors checked here are definitions (1 rev = 2 pi rad, 1 min = 60 s, 1 deg = pi/180 rad;
+common practice, no source). Every bad-input case must raise InputError naming the file.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+
+from sim.errors import InputError
+from sim.logs import normalise_header, read_log, resample_uniform
+
+
+def write_csv(path, header: list[str], rows) -> str:
+    lines = [",".join(header)] + [",".join(str(v) for v in row) for row in rows]
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    return str(path)
+
+
+def test_trace_header_reads_si_and_ignores_other_columns(tmp_path):
+    t = np.arange(20) * 0.01
+    rows = [(ti, 0.1 * i, 1.0, 2.0 * i, 6.0, 0.5, 0.0, "hold") for i, ti in enumerate(t)]
+    header = ["t_s", "angle_rad", "rate_rad_s", "wheel_speed_rad_s", "voltage_v", "current_a",
+              "measured_angle_rad", "mode"]
+    log = read_log(write_csv(tmp_path / "a.csv", header, rows))
+    assert set(log.columns) == {"angle_rad", "wheel_speed_rad_s", "voltage_v", "current_a"}
+    assert_allclose(log.t_s, t, rtol=0, atol=1e-15)
+    assert_allclose(log.columns["wheel_speed_rad_s"], 2.0 * np.arange(20), rtol=1e-15)
+
+
+def test_other_units_convert_to_si(tmp_path):
+    # 1 rpm = 2 pi / 60 rad/s; 1 deg = pi / 180 rad; 1 ms = 1e-3 s (definitions; common practice, no source)
+    rows = [(10 * i, 3 * i, 60 * i, 500, 250) for i in range(12)]
+    log = read_log(write_csv(tmp_path / "b.csv", ["t_ms", "angle_deg", "wheel_speed_rpm", "voltage_mv",
+                                                   "current_ma"], rows))
+    i = np.arange(12)
+    assert_allclose(log.t_s, 0.01 * i, rtol=1e-12)
+    assert_allclose(log.columns["angle_rad"], math.radians(3) * i, rtol=1e-12)
+    assert_allclose(log.columns["wheel_speed_rad_s"], 2 * math.pi * i, rtol=1e-12)
+    assert_allclose(log.columns["voltage_v"], 0.5, rtol=1e-12)
+    assert_allclose(log.columns["current_a"], 0.25, rtol=1e-12)
+
+
+def test_bracketed_units_in_header(tmp_path):
+    assert normalise_header(" Wheel speed [rad/s] ") == "wheel_speed_rad_s"
+    assert normalise_header("angle (deg)") == "angle_deg"
+    rows = [(0.01 * i, 2 * i) for i in range(12)]
+    log = read_log(write_csv(tmp_path / "c.csv", ["t [s]", "Angle (deg)"], rows))
+    assert_allclose(log.columns["angle_rad"], np.radians(2.0 * np.arange(12)), rtol=1e-12)
+
+
+def test_wrapped_angles_are_unwrapped(tmp_path):
+    # a body hanging at pi and swinging 0.5 rad: logged wrapped to (-pi, pi] it jumps across the seam
+    t = np.linspace(0.0, 2.0, 400)
+    true = math.pi + 0.5 * np.sin(2 * math.pi * t)
+    wrapped = np.angle(np.exp(1j * true))
+    assert np.ptp(wrapped) > 6.0  # the log really does jump
+    log = read_log(write_csv(tmp_path / "d.csv", ["t_s", "angle_rad"], zip(t, wrapped)))
+    angle = log.columns["angle_rad"]
+    shift = angle[0] - true[0]
+    assert_allclose(shift / (2 * math.pi), round(shift / (2 * math.pi)), atol=1e-9)
+    assert_allclose(angle - shift, true, atol=1e-9)
+
+
+def test_uneven_times_accepted_and_resampled(tmp_path):
+    rng = np.random.default_rng(3)
+    t = np.sort(rng.uniform(0.0, 1.0, 200))
+    log = read_log(write_csv(tmp_path / "e.csv", ["t_s", "angle_rad"], zip(t, 2.0 * t)))
+    grid, x = resample_uniform(log.t_s, log.columns["angle_rad"])
+    assert_allclose(np.diff(grid), np.median(np.diff(t)), rtol=1e-9)
+    assert_allclose(x, 2.0 * grid, atol=1e-12)  # linear interpolation is exact on a line
+
+
+def test_comment_lines_and_blank_lines_skipped(tmp_path):
+    p = tmp_path / "f.csv"
+    p.write_text("# bench log, our own\n\nt_s,angle_rad\n" + "".join(f"{0.1 * i},{i}\n" for i in range(11)))
+    assert len(read_log(p).t_s) == 11
+
+
+@pytest.mark.parametrize("header, rows, words", [
+    (["angle_rad"], [(i,) for i in range(12)], ["missing column t_s"]),
+    (["t_s", "angle"], [(i, i) for i in range(12)], ["'angle' has no unit", "angle_rad"]),
+    (["t_s", "angle_grad"], [(i, i) for i in range(12)], ["unknown unit 'grad'"]),
+    (["t_s", "angle_rad", "angle_deg"], [(i, i, i) for i in range(12)], ["both give angle"]),
+    (["t_s", "angle_rad"], [(i, "x" if i == 5 else i) for i in range(12)], ["'angle_rad'", "data row 6", "'x'"]),
+    (["t_s", "angle_rad"], [(i if i != 7 else 3, i) for i in range(12)], ["'t_s' must increase", "data row 8"]),
+    (["t_s", "angle_rad"], [(i, i) for i in range(3)], ["only 3 data rows"]),
+    (["t_s", "angle_rad"], [(i, "nan") for i in range(12)], ["not finite"]),
+])
+def test_bad_logs_name_file_and_column(tmp_path, header, rows, words):
+    path = write_csv(tmp_path / "bad.csv", header, rows)
+    with pytest.raises(InputError) as info:
+        read_log(path)
+    message = str(info.value)
+    assert message.startswith(path)
+    for word in words:
+        assert word in message
+    assert "\n" not in message
+
+
+def test_missing_file_and_empty_file(tmp_path):
+    with pytest.raises(InputError, match="cannot read"):
+        read_log(tmp_path / "nope.csv")
+    (tmp_path / "empty.csv").write_text("# nothing\n")
+    with pytest.raises(InputError, match="empty"):
+        read_log(tmp_path / "empty.csv")
+
+
+def test_require_names_the_missing_column(tmp_path):
+    log = read_log(write_csv(tmp_path / "g.csv", ["t_s", "angle_rad"], [(i, i) for i in range(12)]))
+    with pytest.raises(InputError) as info:
+        log.require("wheel_speed_rad_s", why="a coast-down is fitted to the wheel speed")
+    message = str(info.value)
+    assert "g.csv" in message and "wheel_speed_rad_s" in message and "wheel_speed_rpm" in message
