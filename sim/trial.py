@@ -230,7 +230,9 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
                         catch_k, fell_k = k, None
                 elif catch_k is not None:
                     fell_k, catch_k = k, None
-                    fall_final = strategy.balancing  # it did not hand over: nothing will catch it again
+                    # a balance-only law that did not hand over will not catch it again; a swing-up
+                    # supervisor sees the angle through its sensors a little later and may catch it again
+                    fall_final = strategy.balancing and not getattr(strategy, "swings_up", False)
                     if stop_early and fall_final:
                         outcome = "fell"  # this step still runs; the loop ends after it
         if open_circuit:

@@ -17,6 +17,11 @@ The outer loop bleeds wheel speed by leaning the set-point:
 
 Holding the body at a lean angle_ref < 0 needs a steady negative wheel torque, which slows a
 positively spinning wheel; positive wheel gains therefore bleed wheel speed.
+
+Choosing the wheel gains: a lean L held for a time tau changes the wheel speed by about
+mbar g L tau / I_w, so wheel_kp = I_w / (mbar g tau) bleeds the wheel over roughly tau seconds;
+wheel_ki = wheel_kp / (4 tau) removes what is left. tau = 0.5 s held the test device; much
+larger gains fight the angle loop (the wheel loop is non-minimum-phase) and the body falls.
 """
 
 from __future__ import annotations
