@@ -77,6 +77,46 @@ def test_coasting_wheel_keeps_its_absolute_orientation():
     assert_allclose(absolute, 0.0, atol=1e-6)
 
 
+def test_pivot_coulomb_friction_amplitudes_and_rest_band():
+    # Dry friction T_c at the pivot: between turning points a_n and a_n+1 (on opposite sides of
+    # hanging) the energy lost equals the friction work, mbar g (cos a_n+1 - cos a_n) = T_c (a_n + a_n+1);
+    # for small angles this is the linear decay of 4 T_c/(mbar g) per full cycle, and the motion
+    # stops within |theta| < T_c/(mbar g) (references.md, "Coulomb"; Den Hartog, Mechanical
+    # Vibrations). Tolerance 2e-5 rad on each turning point (observed 1e-6; the decay is 9e-3 rad
+    # per half cycle, so a 1% error in the friction torque shows as ~1e-3 rad by the end).
+    from scipy.optimize import brentq
+
+    t_c, a0 = 2e-3, math.radians(6)
+    sc = make_scenario(sensors={"rate": 100}, body={"pivot_friction": {"coulomb": t_c}},
+                       strategy={"kind": "coast"}, trial={"duration": 6.0, "start": {"angle": math.pi - a0}})
+    r = run_trial(sc)
+    k = r.device.mbar_kg_m * r.device.gravity_m_s2
+    predicted = [a0]
+    while k * (1.0 - math.cos(predicted[-1])) > t_c * predicted[-1]:  # it still swings through hanging
+        a = predicted[-1]
+        predicted.append(brentq(lambda b: k * (math.cos(b) - math.cos(a)) - t_c * (a + b), 0.0, a))
+    x = wrap_angles(r.trace.view("angle") - math.pi)
+    ax = np.abs(x)
+    turning = ax[1:-1][(ax[1:-1] > ax[:-2]) & (ax[1:-1] >= ax[2:])]  # local maxima of |angle from hanging|
+    assert len(predicted) >= 10
+    assert_allclose(turning[: len(predicted) - 1], predicted[1:], atol=2e-5)
+    assert abs(x[-1]) < math.asin(t_c / k)          # at rest inside the dead band
+    assert_allclose(r.trace.view("rate")[-200:], 0.0, atol=1e-9)  # and held there by stiction
+
+
+def test_push_gives_the_body_impulse_over_inertia():
+    # An angular impulse P about the pivot changes the body's rate by P / J (impulse-momentum, any
+    # mechanics text); a coasting frictionless wheel takes no part, so J excludes I_w. Zero gravity.
+    # Tolerance 1e-9 relative.
+    impulse = 0.01
+    sc = make_scenario(world={"gravity": 0}, strategy={"kind": "coast"},
+                       trial={"duration": 0.2, "pushes": [{"at": 0.1, "impulse": impulse}]})
+    r = run_trial(sc)
+    rate = r.trace.view("rate")
+    assert_allclose(rate[:100], 0.0, atol=1e-12)
+    assert_allclose(rate[-1], impulse / r.device.J_kg_m2, rtol=1e-9)
+
+
 # ----------------------------------------------------------------------------- engine defaults off
 
 def test_engine_has_no_joint_speed_clamp_and_no_link_damping():
