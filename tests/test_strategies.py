@@ -206,3 +206,29 @@ def test_supervisor_catches_again_after_a_push_beyond_the_release_angle():
     assert m["pushes"][0]["survived"] is False
     assert m["outcome"] == "balanced" and m["caught_at_s"] > 4.0
     assert m["handover_count"] >= 3
+
+
+# ----------------------------------------------------------------------------- demo files say true things
+
+SCENARIOS = __import__("pathlib").Path(__file__).resolve().parents[1] / "scenarios"
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("name,overrides,expect", [
+    ("weak_motor.yaml", [], "fell"),
+    ("weak_motor.yaml", ["strategy.kind=lqr"], "balanced"),
+    ("jump_pendulum.yaml", [], "balanced"),
+    ("edge_cube.yaml", [], "balanced"),
+    ("heavy_push.yaml", [], "fell"),
+])
+def test_demo_scenarios_do_what_their_comments_say(name, overrides, expect):
+    # our own demos: the comment at the top of each file states these outcomes
+    res = run_trial(load_scenario(SCENARIOS / name, overrides=overrides))
+    m = trial_metrics(res)
+    assert m["outcome"] == expect
+    if name == "weak_motor.yaml" and expect == "fell":
+        assert m["peak_wheel_speed_rad_s"] > 0.8 * m["wheel_speed_limit_rad_s"]
+    if name == "jump_pendulum.yaml":
+        assert m["reached_wheel_speed_rad_s"] >= m["needed_wheel_speed_rad_s"]
+    if name == "heavy_push.yaml":
+        assert [p["survived"] for p in m["pushes"]] == [True, False]
