@@ -1,0 +1,130 @@
+"""Sweeps: --vary parsing, results table, resume after a real kill, worker-count independence, dask."""
+
+import csv
+import os
+import signal
+import subprocess
+import sys
+import time
+
+import numpy as np
+import pytest
+
+from sim.cli import main
+from sim.errors import InputError
+from sim.sweep import JOURNAL, parse_vary, run_sweep
+from sim.tolerances import load_raw
+from test_verdicts import fast_raw, write_scenario
+
+VARY = "drive.supply=6V..12V:6"
+
+
+def read_rows(path):
+    with open(path, newline="") as fh:
+        return list(csv.DictReader(fh))
+
+
+def test_parse_vary_ranges_lists_and_errors():
+    v = parse_vary("drive.supply=6V..24V:4")
+    assert v.key == "drive.supply" and v.path == ("drive", "supply") and len(v.values) == 4
+    from sim.units import parse_quantity
+    np.testing.assert_allclose([parse_quantity(x, "voltage") for x in v.values], [6, 12, 18, 24], rtol=1e-12)
+    mixed = parse_vary("motor.resistance=500 mohm..2 ohm:4")     # HI converted to LO's unit
+    np.testing.assert_allclose([parse_quantity(x, "resistance") for x in mixed.values], [0.5, 1.0, 1.5, 2.0], rtol=1e-12)
+    assert parse_vary("sensors.rate=250,500").values == (250, 500)
+    assert parse_vary("strategy.kind=lqr,pid").values == ("lqr", "pid")
+    assert parse_vary("wheel.parts[0].thickness=0.004..0.008:3").values == (0.004, 0.006, 0.008)
+    for bad in ("drive.supply", "drive.supply=", "drive.supply=6V..2A:3", "drive.supply=1..2:0", "[0]=1,2"):
+        with pytest.raises(InputError):
+            parse_vary(bad)
+
+
+def test_bad_vary_value_is_refused_before_running(tmp_path, capsys):
+    scen = write_scenario(tmp_path / "s.yaml", fast_raw())
+    out = tmp_path / "out"
+    assert main(["sweep", scen, "--vary", "drive.suply=6V,12V", "--out", str(out), "--workers", "1"]) == 2
+    assert "drive.suply" in capsys.readouterr().err
+    assert main(["sweep", scen, "--vary", "drive.supply=-3V,12V", "--out", str(out), "--workers", "1"]) == 2
+    assert not (out / "results.csv").exists()
+
+
+@pytest.fixture(scope="module")
+def reference(tmp_path_factory):
+    """An uninterrupted one-worker sweep (the reference table for the other tests)."""
+    d = tmp_path_factory.mktemp("sweep")
+    scen = write_scenario(d / "s.yaml", fast_raw())
+    assert main(["sweep", scen, "--vary", VARY, "--out", str(d / "ref"), "--workers", "1"]) == 0
+    return scen, d, read_rows(d / "ref" / "results.csv")
+
+
+def test_reference_table_columns_and_values(reference):
+    _, d, rows = reference
+    assert list(rows[0])[:3] == ["drive.supply", "point", "seed"]
+    # Column holds the SI value of each point: 6..12 V in six steps.
+    np.testing.assert_allclose([float(r["drive.supply"]) for r in rows], np.linspace(6, 12, 6), rtol=1e-12)
+    assert [int(r["point"]) for r in rows] == list(range(6))
+    assert all(r["outcome"] == "balanced" for r in rows)
+    # No-load speed = V * Kv (references.md, "Motor"), so the margin grows with the supply.
+    margins = [float(r["wheel_speed_margin"]) for r in rows]
+    assert margins == sorted(margins)
+    assert (d / "ref" / "sweep.png").exists()
+
+
+@pytest.mark.slow
+def test_resume_after_a_real_kill_gives_the_same_table(reference, tmp_path):
+    scen, _, ref_rows = reference
+    out = tmp_path / "killed"
+    cmd = [sys.executable, "-c", "import sys; from sim.cli import main; sys.exit(main(sys.argv[1:]))",
+           "sweep", scen, "--vary", VARY, "--out", str(out), "--workers", "1"]
+    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    journal = out / JOURNAL
+    deadline = time.monotonic() + 120
+    while time.monotonic() < deadline:    # kill once at least two points are persisted
+        if journal.exists() and journal.read_text().count("\n") >= 3:
+            break
+        time.sleep(0.05)
+    os.kill(proc.pid, signal.SIGKILL)
+    proc.wait()
+    done_before = journal.read_text().count("\n") - 1
+    assert 2 <= done_before < 6, "the kill must land mid-way for this test to mean anything"
+    assert main(["sweep", scen, "--vary", VARY, "--out", str(out), "--workers", "1"]) == 0
+    rows = read_rows(out / "results.csv")
+    assert [r["point"] for r in rows] == [str(i) for i in range(6)]      # complete, no duplicates
+    assert rows == ref_rows
+    lines = journal.read_text().splitlines()
+    assert len(lines) == 1 + 6      # finished points were skipped, not run again
+
+
+@pytest.mark.slow
+def test_two_workers_give_the_same_table(reference, tmp_path):
+    scen, _, ref_rows = reference
+    assert main(["sweep", scen, "--vary", VARY, "--out", str(tmp_path / "two"), "--workers", "2"]) == 0
+    assert read_rows(tmp_path / "two" / "results.csv") == ref_rows
+
+
+@pytest.mark.slow
+def test_dask_local_cluster_gives_the_same_table(reference, tmp_path):
+    distributed = pytest.importorskip("distributed")
+    scen, _, ref_rows = reference
+    raw, where = load_raw(scen)
+    with distributed.LocalCluster(processes=False, n_workers=1, threads_per_worker=1,
+                                  dashboard_address=None) as cluster, distributed.Client(cluster) as client:
+        out = tmp_path / "dask"
+        out.mkdir()
+        run_sweep(raw, where, [parse_vary(VARY)], out, cluster=client)
+    assert read_rows(out / "results.csv") == ref_rows
+
+
+@pytest.mark.slow
+def test_two_keys_with_monte_carlo_trials(tmp_path):
+    scen = write_scenario(tmp_path / "s.yaml", fast_raw())
+    out = tmp_path / "grid"
+    assert main(["sweep", scen, "--vary", "drive.supply=3V,12V", "--vary", "motor.resistance=1.8,3",
+                 "--trials", "1", "--out", str(out), "--workers", "1"]) == 0
+    rows = read_rows(out / "results.csv")
+    assert list(rows[0])[:2] == ["drive.supply", "motor.resistance"]
+    assert [(float(r["drive.supply"]), float(r["motor.resistance"])) for r in rows] == [(3, 1.8), (3, 3), (12, 1.8), (12, 3)]
+    assert all(r["mc_trials"] == "1" and r["pass_fraction"] in ("0.0", "1.0") for r in rows)
+    assert (out / "sweep.png").exists()
+    # Re-running a different sweep into the same folder is refused, not mixed in.
+    assert main(["sweep", scen, "--vary", "drive.supply=3V,6V", "--out", str(out), "--workers", "1"]) == 2

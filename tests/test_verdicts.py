@@ -1,0 +1,144 @@
+"""The check battery: exit codes, verdict contents, push bisection, tolerances and Monte Carlo.
+
+Scenarios here are test fixtures of our own invention (a desk pendulum at a 2 ms step, LQR only),
+sized so that each check runs in a few seconds.
+"""
+
+import copy
+import json
+import math
+
+import numpy as np
+import pytest
+import yaml
+
+from sim.cli import main
+from sim.errors import ScenarioError
+from sim.scenario import validate_scenario
+from sim.tolerances import load_raw, perturbed_raw, scenario_tolerances
+from sim.verdicts import max_push, push_survived
+
+FAST = {
+    "name": "fast test pendulum",
+    "world": {"step": "2 ms"},
+    "body": {"parts": [{"name": "arm", "shape": "box", "length": "220 mm", "width": "20 mm", "thickness": "6 mm",
+                        "material": "aluminium", "at": "110 mm"}],
+             "pivot_friction": {"viscous": "2e-5 N*m*s/rad"}},
+    "wheel": {"at": "200 mm", "parts": [
+        {"name": "rim", "shape": "ring", "outer_radius": "70 mm", "inner_radius": "55 mm", "thickness": "8 mm",
+         "material": "PLA"},
+        {"name": "web", "shape": "ring", "outer_radius": "55 mm", "inner_radius": "4 mm", "thickness": "2 mm",
+         "material": "PLA"}]},
+    "motor": {"speed_constant": "300 rpm/V", "resistance": "1.8 ohm", "current_limit": "4 A",
+              "rotor_inertia": "8e-6 kg*m^2", "mass": "55 g"},
+    "drive": {"supply": "12 V"},
+    "sensors": {"rate": "250 Hz", "angle": {"noise": "0.05 deg"}, "rate_gyro": {"noise": "0.02 rad/s"}},
+    "strategy": {"kind": "lqr"},
+    "trial": {"duration": "1.5 s", "start": {"angle": "3 deg"}, "seed": 3},
+}
+
+
+def fast_raw(**changes) -> dict:
+    """A deep copy of FAST with top-level sections updated."""
+    raw = copy.deepcopy(FAST)
+    for key, value in changes.items():
+        raw[key] = {**raw.get(key, {}), **value} if isinstance(value, dict) else value
+    return raw
+
+
+def write_scenario(path, raw) -> str:
+    path.write_text(yaml.safe_dump(raw, sort_keys=False))
+    return str(path)
+
+
+@pytest.mark.slow
+def test_check_exit_codes_for_a_passing_and_a_failing_design(tmp_path):
+    good = write_scenario(tmp_path / "good.yaml", fast_raw())
+    # The same device on a 1.5 V supply: it still balances, but cannot take a 5 mN m s push.
+    weak = write_scenario(tmp_path / "weak.yaml", fast_raw(drive={"supply": "1.5 V"}))
+    assert main(["check", good, "--out", str(tmp_path / "good"), "--trials", "2", "--workers", "1"]) == 0
+    assert main(["check", weak, "--out", str(tmp_path / "weak"), "--trials", "2", "--workers", "1"]) == 1
+    for name, passed in (("good", True), ("weak", False)):
+        v = json.loads((tmp_path / name / "verdict.json").read_text())
+        assert v["passed"] is passed
+        assert {"passed", "criteria", "max_push_survived_n_m_s", "wheel_burst_safety_factor", "monte_carlo"} <= set(v)
+        assert v["monte_carlo"]["trials"] == 2
+        assert all({"name", "value", "limit", "passed"} <= set(c) for c in v["criteria"])
+        assert v["passed"] == all(c["passed"] for c in v["criteria"])
+        report = (tmp_path / name / "report.md").read_text()
+        assert "![pushes](pushes.png)" in report and (tmp_path / name / "pushes.png").exists()
+        assert "licensed practice" in report.strip().splitlines()[-1]
+    weak_v = json.loads((tmp_path / "weak" / "verdict.json").read_text())
+    failed = {c["name"] for c in weak_v["criteria"] if not c["passed"]}
+    assert "max_push_survived_n_m_s" in failed
+    assert weak_v["max_push_survived_n_m_s"] < 0.005
+
+
+def test_check_bad_input_exits_2_and_writes_nothing(tmp_path, capsys):
+    bad = write_scenario(tmp_path / "bad.yaml", fast_raw(tolerances={"motor.resistanse": "10%"}))
+    out = tmp_path / "out"
+    assert main(["check", bad, "--out", str(out)]) == 2
+    err = capsys.readouterr().err
+    assert "tolerances.motor.resistanse" in err and "bad.yaml" in err and len(err.strip().splitlines()) == 1
+    assert not out.exists()
+
+
+def test_push_bisection_agrees_with_brute_force():
+    sc = validate_scenario(fast_raw(), where="fast.yaml")
+    found = max_push(sc, sign=1.0, seed=3, start_n_m_s=0.005, rel_tol=0.05)
+    # Brute force on a 1 mN m s grid around the expected range (reference for the bisection).
+    grid = np.arange(10, 25) * 1e-3
+    ok = [push_survived(sc, x, seed=3) for x in grid]
+    assert ok[0] and not ok[-1]
+    first_lost = ok.index(False)
+    assert all(not o for o in ok[first_lost:]), "survival must fall off monotonically for bisection to apply"
+    brute = grid[first_lost - 1]
+    # Both bracket the same threshold: within one grid step plus the bisection's 5% tolerance.
+    np.testing.assert_allclose(found["max_survived_n_m_s"], brute, atol=1e-3 + 0.05 * found["smallest_lost_n_m_s"])
+    assert found["smallest_lost_n_m_s"] > found["max_survived_n_m_s"]
+
+
+def test_tolerance_keys_are_checked_at_load():
+    cases = {
+        "motor.resistanse": "no such scenario key",
+        "wheel.parts[0].mass": "no value",            # the rim gives a material, not a mass
+        "sensors.angle.bias": None,                    # fine
+        "motor.current_limit": None,
+    }
+    for key, expect in cases.items():
+        raw = fast_raw(tolerances={key: "1 deg" if "bias" in key else "10%"})
+        if expect is None:
+            validate_scenario(raw, where="t.yaml")
+        else:
+            with pytest.raises(ScenarioError, match=expect):
+                validate_scenario(raw, where="t.yaml")
+    with pytest.raises(ScenarioError, match="tolerances.sensors.angle.bias: expected an angle"):
+        validate_scenario(fast_raw(tolerances={"sensors.angle.bias": "2 ohm"}), where="t.yaml")
+    with pytest.raises(ScenarioError, match="below 100%"):
+        validate_scenario(fast_raw(tolerances={"drive.supply": "120%"}), where="t.yaml")
+
+
+def test_perturbations_stay_in_band_and_revalidate():
+    raw = fast_raw(tolerances={"motor.resistance": "10%", "sensors.angle.bias": "1 deg",
+                               "wheel.at": "2 mm"})
+    sc = validate_scenario(raw, where="t.yaml")
+    tols = scenario_tolerances(sc)
+    rng = np.random.default_rng(0)
+    draws = []
+    for _ in range(60):
+        pert, drawn = perturbed_raw(raw, tols, rng)
+        psc = validate_scenario(pert, where="t.yaml")
+        draws.append((psc.motor.resistance, psc.sensors.angle.bias, psc.wheel.at))
+        assert drawn["motor.resistance"] == psc.motor.resistance
+    r, b, at = np.array(draws).T
+    assert r.min() >= 1.8 * 0.9 and r.max() <= 1.8 * 1.1 and r.max() - r.min() > 0.25   # spread over the band
+    assert np.abs(b).max() <= math.radians(1.0) and at.min() >= 0.198 and at.max() <= 0.202
+    assert raw["motor"]["resistance"] == "1.8 ohm"          # the nominal mapping is untouched
+
+
+def test_default_tolerances_apply_when_absent():
+    sc = validate_scenario(fast_raw(), where="t.yaml")
+    keys = {t.key for t in scenario_tolerances(sc)}
+    assert {"motor.resistance", "motor.speed_constant", "drive.supply", "sensors.angle.bias"} == keys
+    raw, where = load_raw(None)
+    assert raw and where.endswith(".yaml")
