@@ -126,8 +126,7 @@ def catch_figure(result: dict):
     da = np.degrees(angles[1] - angles[0]) / 2 if n > 1 else 1.0
     dr = (rates[1] - rates[0]) / 2 if n > 1 else 0.1
     extent = [np.degrees(angles[0]) - da, np.degrees(angles[-1]) + da, rates[0] - dr, rates[-1] + dr]
-    cmap = plt.get_cmap("viridis").copy()
-    cmap.set_bad("#e9e4dc")
+    cmap = plt.get_cmap("viridis").with_extremes(bad="#e9e4dc")
     im = ax.imshow(margin.T, origin="lower", extent=extent, aspect="auto", cmap=cmap, vmin=0.0, vmax=1.0)
     fig.colorbar(im, ax=ax, label="wheel speed margin (caught cells)")
     ax.set_xlabel("start angle [deg]")

@@ -185,14 +185,14 @@ def read_journal(path: Path, spec: dict) -> dict[int, dict]:
     lines = data[:good_end].decode("utf-8").splitlines()
     if not lines:
         return {}
-    header = json.loads(lines[0])
-    if header.get("spec") != spec:
+    try:
+        header = json.loads(lines[0])
+        rows = {int(e["i"]): e["row"] for e in map(json.loads, lines[1:])}
+    except (ValueError, KeyError, TypeError):
+        raise InputError(f"--out {path.parent}: {JOURNAL} is not a readable sweep journal; choose another folder") from None
+    if not isinstance(header, dict) or header.get("spec") != spec:
         raise InputError(f"--out {path.parent}: holds a different sweep (its {JOURNAL} was written for other "
                          "settings); choose another folder to start a new one")
-    rows = {}
-    for line in lines[1:]:
-        entry = json.loads(line)
-        rows[int(entry["i"])] = entry["row"]
     return rows
 
 
