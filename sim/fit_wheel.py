@@ -180,28 +180,16 @@ def fit_coast_down(log, *, device=None, scenario=None) -> FitResult:
     t, w, where = _speed(log, "a coast-down is fitted to the wheel speed")
     sgn = 1.0 if np.median(w) >= 0 else -1.0
     ws = sgn * w
-    sm = smooth_signal(ws, len(ws) / 100.0)
-    sigma = max(noise_sigma(t, ws), 1e-12)
-    i0 = int(np.argmax(sm))
-    low = np.nonzero(sm[i0:] < max(5.0 * sigma, 0.02 * sm[i0]))[0]
-    i1 = i0 + (int(low[0]) if low.size else len(ws) - i0)
-    if i1 - i0 < 20 or sm[i0] <= 0 or sm[i1 - 1] > 0.8 * sm[i0]:
-        raise InputError(f"{where}: does not look like a coast-down: the wheel speed does not fall by a fifth "
-                         "after its peak")
-    s, y = t[i0:i1] - t[i0], ws[i0:i1]
-    decel = (y[0] - y[-1]) / max(s[-1], 1e-12)
-    fit = least_squares(lambda p: coast_model(s, p) - y, [y[0], 0.1 / max(s[-1], 1e-9), 0.5 * decel],
-                        bounds=([0.0, 0.0, 0.0], np.inf), x_scale="jac")
-    sig = np.sqrt(np.diag(covariance(fit)))
-    w0, a, c = (float(v) for v in fit.x)
+    fit = _fit_coast(t, ws, where=where)
+    (w0, a, c, t0), sig, i0, i1 = fit["p"], fit["sigma"], fit["i0"], fit["i1"]
     res = FitResult("coast-down")
     res.put("start_speed_rad_s", sgn * w0, sig[0])
     res.put("viscous_decay_rate_1_s", a, sig[1])
     res.put("coulomb_deceleration_rad_s2", c, sig[2])
-    res.facts.update({"coast_start_s": float(t[i0]), "coast_end_s": float(t[i1 - 1]), "samples_used": int(i1 - i0),
-                      "residual_rms_rad_s": float(np.sqrt(np.mean(fit.fun**2)))})
+    res.facts.update({"coast_start_s": t0, "coast_end_s": float(t[i1 - 1]), "samples_used": int(i1 - i0),
+                      "residual_rms_rad_s": fit["rms"]})
     model = np.full(len(t), np.nan)
-    model[i0:i1] = sgn * coast_model(s, fit.x)
+    model[i0:i1] = sgn * coast_model(np.maximum(t[i0:i1] - t0, 0.0), fit["p"][:3])
     res.plot = {"t_s": t, "data": w, "model": model, "label": "wheel speed [rad/s]", "title": "coast-down"}
     res.notes.append("Assumes the body is held and the winding open (no current): a shorted or braking driver "
                      "adds electrical damping that shows up here as viscous friction.")
@@ -217,3 +205,33 @@ def fit_coast_down(log, *, device=None, scenario=None) -> FitResult:
     res.notes.append(f"Uses the scenario's wheel spin inertia ({iw:.4g} kg m^2), taken as exact.")
     res.patch = {"wheel": {"bearing_friction": {"coulomb": c * iw, "viscous": a * iw}}}
     return res
+
+
+def _fit_coast(t: np.ndarray, ws: np.ndarray, *, where: str) -> dict:
+    """Least-squares coast-down with a free start time (the speed holds until the coast begins).
+
+    The window runs from the speed's peak (a spin-up before it is left out) to where the wheel has
+    all but stopped. Returns {"p": (w0, a, c, t_start), "sigma", "i0", "i1", "rms"}.
+    """
+    sm = smooth_signal(ws, len(ws) / 100.0)
+    sigma = max(noise_sigma(t, ws), 1e-12)
+    i0 = int(np.argmax(sm))
+    peak = sm[i0]
+    low = np.nonzero(sm[i0:] < max(5.0 * sigma, 0.02 * peak))[0]
+    i1 = i0 + (int(low[0]) if low.size else len(ws) - i0)
+    if i1 - i0 < 20 or peak <= 0 or sm[i1 - 1] > 0.8 * peak:
+        raise InputError(f"{where}: does not look like a coast-down: the wheel speed does not fall by a fifth "
+                         "after its peak")
+    tt, y = t[i0:i1], ws[i0:i1]
+    falling = np.nonzero(sm[i0:i1] < peak - max(5.0 * sigma, 0.01 * peak))[0]
+    t_fall = tt[falling[0]] if falling.size else tt[0]
+    decel = (y[0] - y[-1]) / max(tt[-1] - t_fall, 1e-12)
+
+    def misfit(p):
+        return coast_model(np.maximum(tt - p[3], 0.0), p[:3]) - y
+
+    guess = [peak, 0.1 / max(tt[-1] - tt[0], 1e-9), 0.5 * decel, t_fall]
+    fit = least_squares(misfit, guess, bounds=([0.0, 0.0, 0.0, tt[0]], [np.inf, np.inf, np.inf, tt[-1]]),
+                        x_scale="jac")
+    return {"p": [float(v) for v in fit.x], "sigma": np.sqrt(np.diag(covariance(fit))), "i0": i0, "i1": i1,
+            "rms": float(np.sqrt(np.mean(fit.fun**2)))}
