@@ -191,15 +191,16 @@ class Dashboard:
         return max(2, int(0.09 * self.lay.unit))
 
     def draw(self, frame, r: Readout, *, push_arrow=None) -> tuple[np.ndarray, Drawn]:
-        """Paint the panel onto `frame` ((height, width, 3) uint8 array or PIL RGB image).
+        """Paint the panel onto `frame`: a (height, width, 3) uint8 array (left untouched) or a PIL
+        RGB image (painted in place, which saves a copy per frame).
 
-        Returns (new frame as an array, what was drawn). The panel is opaque: whatever the frame
+        Returns (the frame as an array, what was drawn). The panel is opaque: whatever the frame
         held below `self.top` is covered. `push_arrow` : ((x0, y0), (x1, y1)) pixel tail and head
         of an arrow marking a push, or None.
         """
         from PIL import Image, ImageDraw
 
-        img = frame.copy() if isinstance(frame, Image.Image) else Image.fromarray(frame)
+        img = frame if isinstance(frame, Image.Image) else Image.fromarray(frame)
         img.paste(self.panel, (0, self.top))
         d = ImageDraw.Draw(img)
         lay, pad = self.lay, int(0.03 * self.width)

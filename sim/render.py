@@ -335,32 +335,39 @@ class Scene:
         self.rows = height if scene_rows is None else max(1, min(height, int(scene_rows)))
         self.camera = Camera.framing(self.layout, preset=camera, width=width, height=height,
                                      scene_share=SCENE_FRACTION if scene_rows is None else self.rows / height)
-        self._inner = self.camera.top_rows(self.rows).scaled(render_scale)
-        self._background, self._bg_depth = self._draw_static()
+        self._full = self.camera.top_rows(self.rows)
+        self._inner = self._full.scaled(render_scale)
         self._Image = Image
+        self._background, self._bg_inner, self._bg_depth = self._draw_static()
         pb = self.pb
         self._cid = pb.connect(pb.DIRECT)
         self._ids = [pb.createMultiBody(0, -1, _visual_shape(pb, self._cid, pc.geom, pc.colour),
                                         physicsClientId=self._cid) for pc in self.layout.pieces]
 
     def _draw_static(self):
-        from PIL import Image
-
-        pb, cam = self.pb, self._inner
+        """The static scene: a full-size picture (with shadows) and, at the renderer's size, its colour and depth."""
+        pb, Image = self.pb, self._Image
         cid = pb.connect(pb.DIRECT)
         try:
             for geom, colour, pos, q in _static_pieces(self.layout):
                 pb.createMultiBody(0, -1, _visual_shape(pb, cid, geom, colour), list(pos), list(q), physicsClientId=cid)
-            rgb, depth, seg = self._snap(cid, shadow=True)
+            full = self._with_sky(*self._snap(cid, self._full, shadow=True))
+            small, depth = full, None
+            if self._inner.width != self._full.width:
+                small = self._with_sky(*self._snap(cid, self._inner, shadow=True))
+            depth = self._snap(cid, self._inner, shadow=False)[1]
         finally:
             pb.disconnect(physicsClientId=cid)
-        rows = np.arange(cam.height)[:, None, None] / max(cam.height - 1, 1) * self.rows / self.camera.height
-        sky = (SKY_TOP * (1 - rows) + SKY_BOTTOM * rows).astype(np.uint8)
-        empty = (seg < 0)[..., None]
-        return Image.fromarray(np.where(empty, sky, rgb)), depth
+        frame = Image.new("RGB", (self.camera.width, self.camera.height), (16, 24, 34))
+        frame.paste(Image.fromarray(full), (0, 0))
+        return frame, small, depth
 
-    def _snap(self, cid, *, shadow: bool):
-        cam = self._inner
+    def _with_sky(self, rgb, depth, seg) -> np.ndarray:
+        rows = np.arange(len(rgb))[:, None, None] / max(len(rgb) - 1, 1) * self.rows / self.camera.height
+        sky = (SKY_TOP * (1 - rows) + SKY_BOTTOM * rows).astype(np.uint8)
+        return np.where((seg < 0)[..., None], sky, rgb)
+
+    def _snap(self, cid, cam: Camera, *, shadow: bool):
         _, _, rgba, depth, seg = self.pb.getCameraImage(
             cam.width, cam.height, cam.view, cam.proj, renderer=self.pb.ER_TINY_RENDERER,
             shadow=int(shadow), physicsClientId=cid, **LIGHT)
@@ -386,19 +393,30 @@ class Scene:
             pb.resetBasePositionAndOrientation(body_id, pos, _qmul(_qx(a), pc.q), physicsClientId=cid)
 
     def draw_image(self, angle_rad: float, wheel_angle_rad: float):
-        """One frame as a PIL RGB image of the frame's size; rows below `scene_rows` are left dark."""
+        """One frame as a PIL RGB image of the frame's size; rows below `scene_rows` are left dark.
+
+        Only the box around the moving pieces is scaled up and laid over the full-size background,
+        with a soft mask, so the cost of scaling stays small.
+        """
         Image = self._Image
         self.pose(angle_rad, wheel_angle_rad)
-        rgb, depth, _ = self._snap(self._cid, shadow=False)
-        front = Image.fromarray(depth < self._bg_depth)      # mode "1": where the moving pieces are nearer
-        img = Image.composite(Image.fromarray(rgb), self._background, front)
-        cam = self.camera
-        if img.size != (cam.width, self.rows):
-            img = img.resize((cam.width, self.rows), Image.BILINEAR)
-        if self.rows == cam.height:
-            return img
-        frame = Image.new("RGB", (cam.width, cam.height), (16, 24, 34))
-        frame.paste(img, (0, 0))
+        rgb, depth, _ = self._snap(self._cid, self._inner, shadow=False)
+        near = depth < self._bg_depth
+        frame = self._background.copy()
+        rows = np.flatnonzero(near.any(axis=1))
+        if rows.size == 0:
+            return frame
+        cols = np.flatnonzero(near.any(axis=0))
+        r0, r1, c0, c1 = rows[0], rows[-1] + 1, cols[0], cols[-1] + 1
+        part = near[r0:r1, c0:c1]
+        crop = np.where(part[..., None], rgb[r0:r1, c0:c1], self._bg_inner[r0:r1, c0:c1])
+        crop_img, mask = Image.fromarray(crop), Image.fromarray(part.view(np.uint8) * 255)
+        sx, sy = self._full.width / self._inner.width, self._full.height / self._inner.height
+        x0, y0 = int(round(c0 * sx)), int(round(r0 * sy))
+        if sx != 1.0 or sy != 1.0:
+            size = (max(1, int(round(c1 * sx)) - x0), max(1, int(round(r1 * sy)) - y0))
+            crop_img, mask = crop_img.resize(size, Image.BILINEAR), mask.resize(size, Image.BILINEAR)
+        frame.paste(crop_img, (x0, y0), mask)
         return frame
 
     def draw(self, angle_rad: float, wheel_angle_rad: float) -> np.ndarray:

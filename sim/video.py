@@ -23,7 +23,7 @@ from .render import CAMERAS, Scene
 SUFFIXES = (".mp4", ".gif")
 DEFAULT_FPS = 30
 DEFAULT_SIZE = (960, 540)
-RENDER_SCALE = 0.75
+RENDER_SCALE = 0.6
 """The software renderer draws at this share of the frame size (measured in benchmarks/render_speed.py)."""
 
 
@@ -123,7 +123,11 @@ class TrialPainter:
 
 
 class _Sink:
-    """Frames to a file: MP4 streams to ffmpeg; GIF keeps palette frames and writes at the end."""
+    """Frames to a file: MP4 streams to ffmpeg; GIF keeps palette frames and writes at the end.
+
+    x264's fastest preset: it takes about a third less of the frame budget than
+    'veryfast' (measured with benchmarks/render_speed.py), for larger but still small files.
+    """
 
     def __init__(self, path: Path, fps: int):
         self.path, self.fps = path, fps
@@ -133,7 +137,7 @@ class _Sink:
             import imageio.v2 as iio
             self._writer = iio.get_writer(str(path), format="FFMPEG", mode="I", fps=fps, codec="libx264",
                                           pixelformat="yuv420p", macro_block_size=2, quality=None,
-                                          ffmpeg_log_level="error", output_params=["-preset", "veryfast", "-crf", "23"])
+                                          ffmpeg_log_level="error", output_params=["-preset", "ultrafast", "-crf", "23"])
 
     def add(self, frame: np.ndarray) -> None:
         if self.gif:

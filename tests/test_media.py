@@ -1,0 +1,158 @@
+"""Clips and pictures: frame counts, moving frames, the panel's dial against the trace, file formats, CLI.
+
+Small sizes and short trials keep these fast. The test device comes from conftest (invented).
+"""
+
+from __future__ import annotations
+
+import math
+
+import imageio.v2 as iio
+import numpy as np
+import pytest
+from numpy.testing import assert_allclose
+
+from sim.cli import main
+from sim.overlay import DIAL_SPAN, TEXT, Dashboard, readout
+from sim.render import Scene
+from sim.trial import run_trial
+from sim.video import TrialPainter, clip_duration_s, frame_count, write_clip, write_side_by_side
+
+from conftest import make_scenario, scenario_dict, write_scenario
+
+SMALL = (160, 90)
+
+
+def _falling():
+    # tilted 10 deg with the motor off: the body falls, so the picture must change
+    return run_trial(make_scenario(trial={"duration": 0.6, "start": {"angle": "10 deg"}}))
+
+
+def _spinning():
+    # body clamped, 6 V on the wheel: the wheel spins up while the body stays put
+    return run_trial(make_scenario(body={"locked": True}, strategy={"kind": "fixed_voltage", "volts": 6.0},
+                                   trial={"duration": 0.5}))
+
+
+def _count_frames(path) -> int:
+    with iio.get_reader(str(path)) as reader:
+        return sum(1 for _ in reader)
+
+
+@pytest.mark.parametrize("suffix", [".gif", ".mp4"])
+def test_clip_frame_count_is_duration_times_fps(tmp_path, suffix):
+    result = _falling()
+    fps = 20
+    info = write_clip(result, tmp_path / f"clip{suffix}", fps=fps, size=SMALL, progress=False)
+    # a clip of D seconds at f frames per second has D * f frames (common practice, no source)
+    duration = result.trace.n * result.scenario.world.step
+    assert_allclose(duration, 0.6, rtol=1e-9)
+    assert info.frames == round(duration * fps) == 12
+    # both formats open with imageio and hold that many frames of the requested size
+    assert _count_frames(info.path) == info.frames
+    first = iio.get_reader(str(info.path)).get_data(0)
+    assert first.shape[:2] == (SMALL[1], SMALL[0])
+
+
+def test_frames_change_while_the_body_moves_and_not_otherwise():
+    moving, still = _falling(), run_trial(make_scenario(trial={"duration": 0.6}))
+    for result, should_move in ((moving, True), (still, False)):
+        painter = TrialPainter(result, width=192, height=108, render_scale=1.0)
+        try:
+            top = painter.dash.top          # compare the scene only; the panel's clock always changes
+            a, _ = painter.paint(0.0)
+            b, _ = painter.paint(0.55)
+        finally:
+            painter.close()
+        changed = np.abs(a[:top].astype(int) - b[:top].astype(int)).max(axis=2) > 30
+        assert (changed.sum() > 50) == should_move, (should_move, int(changed.sum()))
+    # the fall itself: 10 deg at the start, well past it 0.55 s later
+    assert abs(moving.trace.state_at(0.55)["angle_rad"]) > math.radians(30)
+
+
+def test_dial_reads_the_trace_wheel_speed():
+    result = _spinning()
+    painter = TrialPainter(result, width=480, height=270, render_scale=1.0)
+    try:
+        for t in (0.05, 0.2, 0.45):
+            frame, drawn = painter.paint(t)
+            want = result.trace.state_at(t)["wheel_speed_rad_s"]
+            assert abs(want) > 5.0                      # the wheel is really turning
+            assert_allclose(drawn.dial_wheel_speed_rad_s, want, rtol=1e-9)
+            # and the needle is painted where that speed belongs: sample the frame along it
+            lay = painter.dash.lay
+            a = math.radians(90.0 - 90.0 * want / result.device.no_load_speed_rad_s / DIAL_SPAN)
+            x = lay.dial_c[0] + 0.6 * lay.dial_r * math.cos(a)
+            y = lay.dial_c[1] - 0.6 * lay.dial_r * math.sin(a)
+            near = frame[int(round(y)) - 1: int(round(y)) + 2, int(round(x)) - 1: int(round(x)) + 2].reshape(-1, 3)
+            assert np.abs(near.astype(int) - TEXT).max(axis=1).min() <= 40     # a needle pixel within 1 px
+    finally:
+        painter.close()
+
+
+def test_dial_limit_is_the_no_load_speed():
+    r = readout(_spinning(), 0.1)
+    # ideal DC motor no-load speed = Kv * V: 300 rpm/V * 12 V = 3600 rpm = 376.99 rad/s
+    # (common practice, no source; ignores friction)
+    assert_allclose(r.wheel_limit_rad_s, 3600 * 2 * math.pi / 60, rtol=1e-9)
+    assert_allclose(r.supply_v, 12.0)
+
+
+def test_notes_flag_voltage_at_supply():
+    result = run_trial(make_scenario(body={"locked": True}, strategy={"kind": "fixed_voltage", "volts": 12.0},
+                                     trial={"duration": 0.2}))
+    assert "voltage at supply" in readout(result, 0.1).notes
+    assert "voltage at supply" not in readout(_spinning(), 0.1).notes
+
+
+def test_camera_projects_positive_angle_to_the_left_in_axis_view():
+    with Scene(make_scenario(), width=192, height=108, camera="axis") as scene:
+        pivot, up, tilted = scene.camera.project([[0, 0, 0], scene.wheel_centre(0.0), scene.wheel_centre(0.5)])
+    assert up[1] < pivot[1]                     # upright: the wheel is above the pivot on screen
+    # +0.5 rad about +x moves the tip towards -y, which is screen-left with the camera on +x
+    assert tilted[0] < up[0] - 5
+
+
+def test_side_by_side_is_one_labelled_clip_as_long_as_the_longer_trial(tmp_path):
+    short, long_ = _spinning(), _falling()
+    info = write_side_by_side([short, long_], ["short", "long"], tmp_path / "both.gif", fps=10, size=(192, 108),
+                              progress=False)
+    assert info.frames == frame_count(max(clip_duration_s(short), clip_duration_s(long_)), 10) == 6
+    frame = iio.get_reader(str(info.path)).get_data(0)
+    assert frame.shape[:2] == (108, 192)
+
+
+def test_dashboard_leaves_an_array_input_untouched():
+    frame = np.full((90, 160, 3), 200, np.uint8)
+    out, _ = Dashboard(160, 90).draw(frame, readout(_spinning(), 0.1))
+    assert (frame == 200).all() and not (out == 200).all()
+
+
+def test_cli_run_writes_a_clip(tmp_path, scenario_file):
+    out, clip = tmp_path / "run", tmp_path / "clip.gif"
+    code = main(["run", str(scenario_file), "--out", str(out), "--video", str(clip), "--size", "128x72",
+                 "--fps", "10"])
+    assert code == 0
+    assert _count_frames(clip) == 5                 # 0.5 s at 10 fps
+
+
+def test_cli_refuses_bad_clip_options_before_simulating(tmp_path, scenario_file, capsys):
+    out = tmp_path / "run"
+    assert main(["run", str(scenario_file), "--out", str(out), "--video", str(tmp_path / "c.avi")]) == 2
+    assert main(["run", str(scenario_file), "--out", str(out), "--video", str(tmp_path / "c.gif"),
+                 "--size", "100x51"]) == 2
+    assert "--size" in capsys.readouterr().err
+    assert not out.exists()                          # nothing was simulated or written
+    mine = tmp_path / "mine.mp4"
+    mine.write_bytes(b"user data")
+    assert main(["run", str(scenario_file), "--out", str(out), "--video", str(mine)]) == 2
+    assert mine.read_bytes() == b"user data"
+
+
+def test_cli_compare_two_strategies(tmp_path):
+    path = write_scenario(tmp_path / "s.yaml", scenario_dict(trial={"duration": 0.3}))
+    clip = tmp_path / "cmp.gif"
+    code = main(["compare", str(path), "--set-b", "strategy.volts=3", "--video", str(clip), "--size", "192x108",
+                 "--fps", "10", "--label", "off", "--label", "3 V"])
+    assert code == 0
+    assert _count_frames(clip) == 3
