@@ -121,7 +121,8 @@ def fit_figure(result: FitResult):
     ax.legend(loc="upper right", fontsize=8, frameon=False)
     axr.plot(t, data - model, ".", color=INK, ms=1.5)
     axr.axhline(0.0, color=ACCENT, lw=0.8)
-    axr.set_ylabel("residual")
+    unit = p["label"].rpartition("[")[2].rstrip("]") if "[" in p["label"] else ""
+    axr.set_ylabel(f"residual [{unit}]" if unit else "residual")
     axr.set_xlabel("time [s]")
     for a in (ax, axr):
         a.grid(True, color="#dde3e8", lw=0.6)

@@ -141,7 +141,11 @@ def find_extremes(t: np.ndarray, x: np.ndarray, *, where: str) -> Extremes:
         raise InputError(f"{where}: sampled too slowly: {n_per:.1f} samples per {per:.3g} s swing "
                          f"(need at least {MIN_SAMPLES_PER_CYCLE})")
     sm = smooth_signal(xu, n_per / 10.0)
-    sigma = max(noise_sigma(t, x), 1e-9)
+    steps = np.abs(np.diff(x))
+    steps = steps[steps > 0.0]
+    # an encoder's counts leave no noise to measure: its step's own spread, q / sqrt(12), is the floor
+    quantum = float(np.min(steps)) / math.sqrt(12.0) if steps.size else 0.0
+    sigma = max(noise_sigma(t, x), quantum, 1e-9)
     # a held lead-in: the swing starts where the angle leaves its starting value
     moving = np.nonzero(np.abs(sm - sm[0]) > max(8.0 * sigma, 1e-3 * np.ptp(sm)))[0]
     start = (moving[0] if moving.size else 0) + n_per / 8.0

@@ -64,7 +64,12 @@ def fit_spin_up(log, *, device=None, scenario=None) -> FitResult:
     res.facts.update({"step_time_s": float(t[i0]), "lead_in_samples": i0, "samples_used": int(len(ts))})
     if i0 == 0:
         res.notes.append("The log starts at the voltage step (no quiet lead-in); the step is taken at the first sample.")
-    expo = _fit_exponential(ts, ws, where=where)
+    k = _current_limited(log, i0, sgn)
+    if k:
+        res.notes.append(f"The drive held the current at its limit for {ts[k]:.3g} s after the step; those samples are "
+                         "left out (the response is first order only once the limit lets go).")
+        res.facts["current_limited_s"] = float(ts[k])
+    expo = _fit_exponential(ts[k:], ws[k:], where=where)
     w_inf, tau = expo["w_inf"], expo["tau"]
     if ts[-1] < MIN_TIME_CONSTANTS * tau:
         raise InputError(f"{where}: the log ends {ts[-1]:.3g} s after the step, only {ts[-1] / tau:.2g} time "
@@ -80,10 +85,32 @@ def fit_spin_up(log, *, device=None, scenario=None) -> FitResult:
                          "its mean is used.")
     if log.has("angle_rad") and np.ptp(log.columns["angle_rad"]) > 0.05:
         res.notes.append("The body angle moved during the log; a spin-up assumes the body is held.")
-    k_e, r_ohm = _motor_constants(res, log, i0, sgn, abs(volts), w_inf, expo, device)
+    k_e, r_ohm = _motor_constants(res, log, i0 + k, sgn, abs(volts), w_inf, expo, device)
     if device is not None:
         _wheel_inertia(res, device, scenario, k_e, r_ohm, tau)
     return res
+
+
+def _current_limited(log, i0: int, sgn: float) -> int:
+    """Samples after the step during which the drive held the current at its limit (0 when none).
+
+    A limited current stays flat at its peak while the wheel gains speed; an unlimited one falls
+    as the wheel speeds up (i = (V - k_e w)/R), so a flat peak lasting while the speed rises by
+    more than 5% of its final value means a limit.
+    """
+    if not log.has("current_a"):
+        return 0
+    i = sgn * log.columns["current_a"][i0:]
+    w = sgn * log.columns["wheel_speed_rad_s"][i0:]
+    top = float(np.max(i))
+    if top <= 0.0:
+        return 0
+    at_top = i >= top - max(3.0 * noise_sigma(log.t_s[i0:], i), 0.01 * top)
+    first = int(np.argmax(at_top))
+    off = np.nonzero(~at_top[first:])[0]
+    end = first + (int(off[0]) if off.size else len(i) - first)
+    final = float(np.median(w[-max(len(w) // 10, 3):]))
+    return end if end < len(i) and w[end] - w[first] > 0.05 * abs(final) else 0
 
 
 def _step_model(s: np.ndarray, p) -> np.ndarray:

@@ -165,6 +165,21 @@ def test_free_swing_coulomb_decay_is_linear_and_matches_reference():
     assert res.facts["decay"] == "coulomb"
 
 
+def test_free_swing_from_a_quantised_encoder():
+    # a 4096-count encoder and no other noise: 1.5 mrad steps, nothing for a noise estimate to see
+    sc, dev = pendulum_scenario()
+    mgd = dev.mbar_kg_m * dev.gravity_m_s2
+    log = swing_log(w0=math.sqrt(mgd / dev.J_kg_m2), zeta=0.02, e=0.3e-3 / mgd, amplitude_deg=30.0, noise_rad=0.0,
+                    duration_s=20.0, n=20000)
+    count = 2 * math.pi / 4096
+    counts = BenchLog("encoder.csv", log.t_s, {"angle_rad": np.round(log.columns["angle_rad"] / count) * count}, {})
+    res = fit_log(counts, "free-swing", scenario=sc)
+    # tolerances: about 3x the errors seen (J 1.6e-4, zeta 1.5e-4, T_c 0.4%)
+    assert_allclose(res.value("body_inertia_about_pivot_kg_m2"), dev.J_kg_m2, rtol=5e-4)
+    assert_allclose(res.value("damping_ratio"), 0.02, rtol=5e-3)
+    assert_allclose(res.value("coulomb_torque_n_m"), 0.3e-3, rtol=0.02)
+
+
 def test_free_swing_large_amplitude_period_is_corrected():
     # at 90 degrees the measured period is 18% longer than T0 (references.md); the fit must undo it
     w0 = 5.0
@@ -327,11 +342,15 @@ def test_round_trip_engine_coast_down(tmp_path):
     assert_allclose(res.value("bearing_viscous_n_m_s_per_rad"), 5e-6, rtol=1e-3)
 
 
-def test_round_trip_engine_spin_up(tmp_path):
+@pytest.mark.parametrize("current_limit", [None, 1.5])
+def test_round_trip_engine_spin_up(tmp_path, current_limit):
+    # with a 1.5 A limit the drive holds the current flat for the first ~0.3 s; the fit must leave that out
+    motor = {"current_limit": current_limit} if current_limit else {}
     sc = make_scenario(body={"locked": True}, wheel={"bearing_friction": {"coulomb": 3e-4, "viscous": 1e-6}},
-                       strategy={"kind": "fixed_voltage", "volts": 6.0}, trial={"duration": 1.5})
+                       motor=motor, strategy={"kind": "fixed_voltage", "volts": 6.0}, trial={"duration": 1.5})
     dev = Device.from_scenario(sc)
     res = fit_log(_engine_log(tmp_path, sc), "spin-up", scenario=sc)
+    assert ("current_limited_s" in res.facts) == bool(current_limit)
     assert_allclose(res.value("back_emf_constant_v_s_per_rad"), dev.k_e_v_s_rad, rtol=1e-4)
     # the engine's mid-step back-EMF (sim/motor.py) makes the logged current read as R (1 + dt / (2 tau)):
     # 0.2% here, inside the 0.5% allowed
@@ -399,6 +418,26 @@ def test_cli_free_swing_writes_files_and_merged_scenario(tmp_path, capsys):
     assert_allclose(fitted.J_kg_m2, report["fitted"]["body_inertia_about_pivot_kg_m2"]["value"], rtol=1e-6)
     assert_allclose(fitted.pivot_viscous_n_m_s, report["fitted"]["pivot_viscous_n_m_s_per_rad"]["value"], rtol=1e-6)
     assert "natural_frequency_rad_s" in capsys.readouterr().out
+
+
+def test_cli_reads_rpm_and_milliseconds(tmp_path):
+    from sim.cli import main
+
+    rng = np.random.default_rng(RNG_SEED)
+    t = np.sort(rng.uniform(0.0, 22.0, 3000))
+    w = coast_truth(t, w0=300.0, start_s=1.0) + rng.normal(0, 0.3, len(t))
+    si = BenchLog("x", t, {"wheel_speed_rad_s": w}, {})
+    # 1 rpm = 2 pi / 60 rad/s, 1 s = 1000 ms (definitions)
+    other = tmp_path / "coast_rpm.csv"
+    np.savetxt(other, np.column_stack([1000 * t, w * 60 / (2 * math.pi)]), delimiter=",",
+               header="t_ms,wheel_speed_rpm", comments="", fmt="%.12g")
+    scen = write_scenario(tmp_path / "bench.yaml", scenario_dict(body={"locked": True}))
+    for name, csv in (("si", _save(tmp_path / "coast_si.csv", si)), ("other", str(other))):
+        assert main(["fit", csv, "--test", "coast-down", "--scenario", str(scen), "--out", str(tmp_path / name)]) == 0
+    a, b = (json.loads((tmp_path / n / "fit.json").read_text())["fitted"] for n in ("si", "other"))
+    for key in ("bearing_viscous_n_m_s_per_rad", "bearing_coulomb_torque_n_m", "start_speed_rad_s"):
+        assert_allclose(b[key]["value"], a[key]["value"], rtol=1e-6)
+    assert_allclose(a["bearing_coulomb_torque_n_m"]["value"], MOTOR["Tc"], rtol=0.015)
 
 
 def test_cli_spin_up_patch_replaces_speed_constant(tmp_path):
