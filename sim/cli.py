@@ -21,7 +21,18 @@ SAFETY = ("Safety: a spinning wheel stores energy and can burst. Guard it and st
 ScenarioArg = typer.Argument(None, help="Scenario YAML file (default: the bundled desk pendulum).",
                              show_default=False)
 SetOpt = typer.Option(None, "--set", help="Override a scenario value: key.path=value (repeatable).")
-SeedOpt = typer.Option(None, "--seed", help="Seed for all randomness (default: the scenario's trial.seed).")
+
+
+def _check_seed(value: Optional[int]) -> Optional[int]:
+    """Reject a seed numpy cannot take, as one line naming the option (not a traceback)."""
+    if value is not None and not 0 <= value < 2**63:
+        from .errors import InputError
+        raise InputError(f"--seed {value}: expected a whole number from 0 to 2^63 - 1 (as trial.seed)")
+    return value
+
+
+SeedOpt = typer.Option(None, "--seed", callback=_check_seed,
+                       help="Seed for all randomness (default: the scenario's trial.seed).")
 
 
 def _load(scenario: Optional[Path], overrides: Optional[List[str]]):
@@ -284,15 +295,28 @@ def main(argv: Optional[list[str]] = None) -> int:
     except SystemExit as exc:
         return exc.code if isinstance(exc.code, int) else 0
     except Exception as exc:  # click's usage errors arrive here in non-standalone mode
-        import click
-        if isinstance(exc, click.exceptions.ClickException):
-            exc.show()
+        usage_errors, aborts = _click_error_types()
+        if isinstance(exc, usage_errors):
+            if type(exc).__name__ == "NoArgsIsHelpError":  # bare `wheelbench`: the help is the answer
+                exc.show()
+            else:  # one line, like our own errors
+                print(f"wheelbench: {exc.format_message()} (see --help)", file=sys.stderr)
             return 2
-        if isinstance(exc, click.exceptions.Abort):
+        if isinstance(exc, aborts):
             print("wheelbench: aborted", file=sys.stderr)
             return 1
         raise
     return 0
+
+
+def _click_error_types() -> tuple[tuple, tuple]:
+    """(usage-error classes, abort classes) of click and of the click copy newer typer releases
+    ship inside themselves (typer 0.29 raises its own copies, which click's classes do not catch)."""
+    import click
+
+    usage = {click.exceptions.ClickException}
+    usage.update(c for c in typer.BadParameter.__mro__ if c.__name__ == "ClickException")
+    return tuple(usage), (click.exceptions.Abort, typer.Abort)
 
 
 if __name__ == "__main__":

@@ -131,7 +131,8 @@ class EngineModel:
 
 
 def import_pybullet():
-    """Import pybullet without its start-up banner on stdout (stdout may carry JSON or C output)."""
+    """Import pybullet without its start-up banner (stdout may carry JSON or C output; stderr carries
+    our one-line error messages). pybullet 3.2.x writes the banner to stderr."""
     import sys
 
     if "pybullet" in sys.modules:
@@ -139,10 +140,12 @@ def import_pybullet():
     import os
 
     sys.stdout.flush()
-    saved = os.dup(1)
+    sys.stderr.flush()
+    saved = {fd: os.dup(fd) for fd in (1, 2)}
     try:
         with open(os.devnull, "w") as null:
-            os.dup2(null.fileno(), 1)
+            for fd in saved:
+                os.dup2(null.fileno(), fd)
             import pybullet
             try:  # the banner sits in C's stdio buffer: flush it into /dev/null, not into our output
                 import ctypes
@@ -150,8 +153,9 @@ def import_pybullet():
             except (OSError, AttributeError):
                 pass
     finally:
-        os.dup2(saved, 1)
-        os.close(saved)
+        for fd, copy in saved.items():
+            os.dup2(copy, fd)
+            os.close(copy)
     return pybullet
 
 

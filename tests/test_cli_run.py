@@ -235,3 +235,28 @@ def test_installed_command_exit_code_and_stderr(tmp_path, command):
     assert proc.returncode == 2
     _assert_one_clean_line(proc.stderr, str(path), "motor.resistance", "ohm")
     assert not (tmp_path / "out").exists()
+
+
+@pytest.mark.parametrize("args, word", [
+    (["--seed", "-1"], "--seed -1"),
+    (["--seed", "abc"], "--seed"),
+    (["--bogus"], "--bogus"),
+])
+def test_run_bad_options_exit_2_with_one_line(tmp_path, capsys, args, word):
+    path = write_scenario(tmp_path / "s.yaml", scenario_dict())
+    out = tmp_path / "out"
+    code, _, err = run_cli(capsys, "run", path, "--out", out, *args)
+    assert code == 2
+    _assert_one_clean_line(err, word)
+    assert not out.exists()
+
+
+def test_installed_command_successful_run_keeps_stderr_clean(tmp_path):
+    # A run that works prints nothing on stderr (pybullet's start-up banner is silenced), so a
+    # script can treat any stderr line as a problem.
+    path = write_scenario(tmp_path / "s.yaml", scenario_dict(trial={"duration": 0.05}))
+    proc = subprocess.run([sys.executable, "-m", "sim.cli", "run", str(path), "--out", str(tmp_path / "o")],
+                          capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stderr == ""
+    assert (tmp_path / "o" / "metrics.json").exists()
