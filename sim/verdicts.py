@@ -289,6 +289,33 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
     `hold_signals` = (voltage V, current A) arrays of the hold trial, for the headroom criteria;
     `runs_current` = {run name: current array A}, for the transient winding temperatures.
     """
+    worse = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
+    thermal = winding_check(sc.motor, metrics["hold"]["rms_current_a"])
+    thermal["peak_over_runs_c"] = _transient_peaks(sc, runs_current)
+    burst = wheel_burst_check(sc, device)
+    crit = (_run_criteria(sc, metrics, pushes[worse]["max_survived_n_m_s"], worse)
+            + _static_criteria(sc, device, hold_signals, thermal, burst, mc))
+    return {
+        "passed": all(c["passed"] for c in crit),
+        "scenario": sc.source, "name": sc.name, "strategy": sc.strategy.kind,
+        "criteria": crit,
+        "max_push_survived_n_m_s": pushes[worse]["max_survived_n_m_s"],
+        "max_push_direction": worse,
+        "pushes": pushes,
+        "wheel_burst_safety_factor": burst["safety_factor"],
+        "burst": burst,
+        "thermal": thermal,
+        "monte_carlo": {k: v for k, v in mc.items() if k != "rows"} | {"failures": _failure_counts(mc["rows"])},
+        "runs": {name: {k: m[k] for k in ("outcome", "message", "caught_at_s", "settle_time_s", "peak_wheel_speed_rad_s",
+                                          "wheel_speed_margin", "peak_current_a", "rms_current_a")}
+                 for name, m in metrics.items()},
+        "requirements": sc.requirements.model_dump(),
+        "safety": list(SAFETY_NOTES),
+    }
+
+
+def _run_criteria(sc, metrics: dict, push_value: float, worse: str) -> list[dict]:
+    """Criteria judged from the simulated runs: swing-up, hold, settling, push, wheel speed."""
     req = sc.requirements
     crit = []
     if "swing_up" in metrics:
@@ -301,48 +328,35 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
                            f"{HOLD_S:g} s upright with sensor noise: {hold['outcome']}"))
     crit.append(_at_most("settle_time_s", nominal["settle_time_s"], req.settle_time,
                          f"the scenario's own trial: {nominal['outcome']}"))
-    worse = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
-    push_value = pushes[worse]["max_survived_n_m_s"]
     crit.append(_at_least("max_push_survived_n_m_s", push_value, req.min_push, f"worse direction: {worse}"))
     margins = [m["wheel_speed_margin"] for m in metrics.values()]
     margin = None if any(v is None for v in margins) else min(margins)
     crit.append(_at_least("wheel_speed_margin", margin, req.wheel_speed_margin, "lowest over the battery's runs"))
+    return crit
+
+
+def _static_criteria(sc, device, hold_signals, thermal: dict, burst: dict, mc: dict) -> list[dict]:
+    """Headroom, winding temperature, burst and Monte Carlo criteria."""
+    req = sc.requirements
     volts, amps = hold_signals
-    i_ref = device.current_limit_a if math.isfinite(device.current_limit_a) else device.supply_v / device.resistance_ohm
-    crit.append(_at_least("voltage_headroom", _headroom(volts, device.supply_v), req.voltage_headroom,
-                          "holding: 1 - p99(|V|)/supply"))
-    crit.append(_at_least("current_headroom", _headroom(amps, i_ref), req.current_headroom,
-                          "holding: 1 - p99(|i|)/" + ("current limit" if math.isfinite(device.current_limit_a) else "stall current")))
-    thermal = winding_check(sc.motor, hold["rms_current_a"])
-    thermal["peak_over_runs_c"] = _transient_peaks(sc, runs_current)
-    crit.append(_at_most("winding_temperature_c", thermal["steady_winding_temperature_c"], sc.motor.thermal.max_temperature,
-                         "steady state at the hold's RMS current (continuous balancing)"))
-    burst = wheel_burst_check(sc, device)
+    limited = math.isfinite(device.current_limit_a)
+    i_ref = device.current_limit_a if limited else device.supply_v / device.resistance_ohm
     note = "at the runaway speed (no-load speed at full supply)"
     if burst["unknown_parts"]:
         note = f"strength unknown for {', '.join(burst['unknown_parts'])}: cannot confirm; " + note
-    crit.append(_criterion("wheel_burst_safety_factor", burst["safety_factor"], req.burst_safety_factor,
-                           burst["safety_factor"] is not None and not burst["unknown_parts"]
-                           and burst["safety_factor"] >= req.burst_safety_factor, note))
-    crit.append(_at_least("monte_carlo_pass_fraction", mc["pass_fraction"], req.pass_fraction,
-                          f"{mc['trials']} trials over the tolerances"))
-    return {
-        "passed": all(c["passed"] for c in crit),
-        "scenario": sc.source, "name": sc.name, "strategy": sc.strategy.kind,
-        "criteria": crit,
-        "max_push_survived_n_m_s": push_value,
-        "max_push_direction": worse,
-        "pushes": {d: {k: v for k, v in p.items()} for d, p in pushes.items()},
-        "wheel_burst_safety_factor": burst["safety_factor"],
-        "burst": burst,
-        "thermal": thermal,
-        "monte_carlo": {k: v for k, v in mc.items() if k != "rows"} | {"failures": _failure_counts(mc["rows"])},
-        "runs": {name: {k: m[k] for k in ("outcome", "message", "caught_at_s", "settle_time_s", "peak_wheel_speed_rad_s",
-                                          "wheel_speed_margin", "peak_current_a", "rms_current_a")}
-                 for name, m in metrics.items()},
-        "requirements": sc.requirements.model_dump(),
-        "safety": list(SAFETY_NOTES),
-    }
+    return [
+        _at_least("voltage_headroom", _headroom(volts, device.supply_v), req.voltage_headroom,
+                  "holding: 1 - p99(|V|)/supply"),
+        _at_least("current_headroom", _headroom(amps, i_ref), req.current_headroom,
+                  "holding: 1 - p99(|i|)/" + ("current limit" if limited else "stall current")),
+        _at_most("winding_temperature_c", thermal["steady_winding_temperature_c"], sc.motor.thermal.max_temperature,
+                 "steady state at the hold's RMS current (continuous balancing)"),
+        _criterion("wheel_burst_safety_factor", burst["safety_factor"], req.burst_safety_factor,
+                   burst["safety_factor"] is not None and not burst["unknown_parts"]
+                   and burst["safety_factor"] >= req.burst_safety_factor, note),
+        _at_least("monte_carlo_pass_fraction", mc["pass_fraction"], req.pass_fraction,
+                  f"{mc['trials']} trials over the tolerances"),
+    ]
 
 
 def _transient_peaks(sc, runs_current: dict) -> dict:
