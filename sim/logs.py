@@ -22,6 +22,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import InputError
+from .textfiles import read_text_file
 
 MAX_LOG_BYTES = 200_000_000
 MIN_ROWS = 10
@@ -131,18 +132,8 @@ def read_log(path: str | Path) -> BenchLog:
 
 def _read_rows(path: Path) -> tuple[list[str], list[list[str]]]:
     where = str(path)
-    try:
-        size = path.stat().st_size
-    except OSError as exc:
-        raise InputError(f"{where}: cannot read the log ({exc.strerror or exc})") from None
-    if not path.is_file():
-        raise InputError(f"{where}: not a file")
-    if size > MAX_LOG_BYTES:
-        raise InputError(f"{where}: {size} bytes is too large for a bench log (limit {MAX_LOG_BYTES})")
-    try:
-        text = path.read_text(encoding="utf-8-sig")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"{where}: cannot read as UTF-8 text ({exc})") from None
+    # utf-8-sig: spreadsheet exports often start with a byte-order mark
+    text = read_text_file(path, max_bytes=MAX_LOG_BYTES, what="a bench log", encoding="utf-8-sig")
     lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
     if not lines:
         raise InputError(f"{where}: the log is empty")

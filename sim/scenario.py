@@ -387,18 +387,8 @@ class _GuardedLoader(yaml.SafeLoader):
 
 def read_yaml(path: Path) -> Any:
     """Parse a YAML file safely. Raises ScenarioError naming the file on any problem."""
-    try:
-        size = path.stat().st_size
-    except OSError as exc:
-        raise ScenarioError(f"{path}: cannot read ({exc.strerror or exc})") from None
-    if not path.is_file():
-        raise ScenarioError(f"{path}: not a file")
-    if size > MAX_FILE_BYTES:
-        raise ScenarioError(f"{path}: {size} bytes is too large for a scenario (limit {MAX_FILE_BYTES})")
-    try:
-        text = path.read_text(encoding="utf-8")
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ScenarioError(f"{path}: cannot read as UTF-8 text ({exc})") from None
+    from .textfiles import read_text_file
+    text = read_text_file(path, max_bytes=MAX_FILE_BYTES, what="a scenario", error=ScenarioError)
     return parse_yaml_text(text, where=str(path))
 
 
