@@ -23,8 +23,15 @@ from .render import CAMERAS, Scene
 SUFFIXES = (".mp4", ".gif")
 DEFAULT_FPS = 30
 DEFAULT_SIZE = (960, 540)
-RENDER_SCALE = 0.6
-"""The software renderer draws at this share of the frame size (measured in benchmarks/render_speed.py)."""
+RENDER_PIXELS = 200_000
+"""The software renderer draws about this many pixels at most; larger frames are drawn smaller and
+scaled up. Its cost grows with the pixels it fills: at 960x540 this keeps rendering within the
+clip's own duration on one core (see benchmarks/render_speed.py)."""
+
+
+def render_scale_for(width: int, height: int) -> float:
+    """The renderer's share of a frame's size: 1 up to RENDER_PIXELS, smaller above."""
+    return min(1.0, math.sqrt(RENDER_PIXELS / (width * height)))
 
 
 @dataclass(frozen=True)
@@ -91,8 +98,9 @@ class TrialPainter:
     """Paints the frames of one trial at one size: the 3D scene plus the instrument panel."""
 
     def __init__(self, result, *, width: int, height: int, camera: str = "axis", label: str | None = None,
-                 render_scale: float = RENDER_SCALE):
+                 render_scale: float | None = None):
         self.result = result
+        render_scale = render_scale_for(width, height) if render_scale is None else render_scale
         self.dash = Dashboard(width, height, label=label)
         self.scene = Scene(result.scenario, width=width, height=height, camera=camera, render_scale=render_scale,
                            scene_rows=self.dash.top)
@@ -132,7 +140,7 @@ class _Sink:
     def __init__(self, path: Path, fps: int):
         self.path, self.fps = path, fps
         self.gif = path.suffix.lower() == ".gif"
-        self._frames = []
+        self._frames, self._palette = [], None
         if not self.gif:
             import imageio.v2 as iio
             self._writer = iio.get_writer(str(path), format="FFMPEG", mode="I", fps=fps, codec="libx264",
@@ -140,13 +148,15 @@ class _Sink:
                                           ffmpeg_log_level="error", output_params=["-preset", "ultrafast", "-crf", "23"])
 
     def add(self, frame: np.ndarray) -> None:
-        if self.gif:
-            from PIL import Image
-            # one palette per frame, no dithering: smaller files, and the scene's flat colours need none
-            self._frames.append(Image.fromarray(frame).quantize(colors=128, method=Image.Quantize.FASTOCTREE,
-                                                                dither=Image.Dither.NONE))
-        else:
+        if not self.gif:
             self._writer.append_data(frame)
+            return
+        from PIL import Image
+        if self._palette is None:
+            self._palette = _gif_palette(frame)
+        # one palette for the whole clip (no flicker between frames), no dithering: the scene's
+        # colours are flat, and undithered frames compress far better
+        self._frames.append(Image.fromarray(frame).quantize(palette=self._palette, dither=Image.Dither.NONE))
 
     def close(self) -> None:
         if self.gif:
@@ -155,6 +165,28 @@ class _Sink:
                                      duration=max(20, round(1000 / self.fps / 10) * 10), loop=0)
         else:
             self._writer.close()
+
+
+def _gif_palette(first: np.ndarray):
+    """A 255-colour palette from the first frame plus swatches of the panel's colours.
+
+    The swatches keep colours that appear later (a push, a limit note) in the palette.
+    """
+    from PIL import Image
+
+    from . import overlay
+
+    colours = [overlay.WARN, overlay.PUSH, overlay.VOLT, overlay.CURR, overlay.WHEEL, overlay.TEXT, overlay.DIM,
+               overlay.TRACK, overlay.RULE[:3], (255, 246, 240), (16, 24, 34)]
+    block = 24
+    swatch = np.zeros((block, block * len(colours), 3), np.uint8)
+    for i, c in enumerate(colours):
+        swatch[:, i * block:(i + 1) * block] = c
+    width = max(first.shape[1], swatch.shape[1])
+    sheet = np.zeros((first.shape[0] + block, width, 3), np.uint8)
+    sheet[:first.shape[0], :first.shape[1]] = first
+    sheet[first.shape[0]:, :swatch.shape[1]] = swatch
+    return Image.fromarray(sheet).quantize(colors=255, method=Image.Quantize.FASTOCTREE, dither=Image.Dither.NONE)
 
 
 def _progress_bar(enabled: bool):
@@ -199,7 +231,7 @@ def _side_by_side(frames) -> np.ndarray:
 
 def write_clip(result, path: str | Path, *, fps: int = DEFAULT_FPS, size: tuple[int, int] = DEFAULT_SIZE,
                camera: str = "axis", label: str | None = None, progress: bool = True,
-               render_scale: float = RENDER_SCALE) -> ClipInfo:
+               render_scale: float | None = None) -> ClipInfo:
     """Write a clip of one finished trial (a TrialResult) to `path` (.mp4 or .gif), atomically.
 
     `label` defaults to the scenario's name and strategy. Returns a ClipInfo.
@@ -217,7 +249,7 @@ def write_clip(result, path: str | Path, *, fps: int = DEFAULT_FPS, size: tuple[
 
 def write_side_by_side(results, labels, path: str | Path, *, fps: int = DEFAULT_FPS,
                        size: tuple[int, int] = DEFAULT_SIZE, camera: str = "axis", progress: bool = True,
-                       render_scale: float = RENDER_SCALE) -> ClipInfo:
+                       render_scale: float | None = None) -> ClipInfo:
     """Write two finished trials side by side, each half labelled, to `path` (.mp4 or .gif).
 
     `size` is the whole frame; each trial gets half its width. The clip runs as long as the
