@@ -76,3 +76,14 @@ def test_a_raising_plugin_ends_with_strategy_failed_and_its_message_in_metrics(t
     assert metrics["outcome"] == "strategy_failed"
     assert "sensor bus lost" in metrics["message"] and "RuntimeError" in metrics["message"]
     assert (out / "trace.csv").stat().st_size > 0
+
+
+def test_a_nested_plugin_resolves_beside_the_scenario(tmp_path):
+    # swing_and_catch's nested specs go through the same resolver, with the scenario's folder as base
+    path = _scenario_with(tmp_path, {"kind": "swing_and_catch",
+                                     "balance": {"plugin": "simple_laws.py:ProportionalDamping", "gain": 130.0}})
+    sc = load_scenario(path)
+    assert sc.strategy.params.balance.cls.__name__ == "ProportionalDamping"
+    assert sc.strategy.params.balance.params.gain == 130.0
+    res = run_trial(sc)                     # starts at 3 deg: caught at once by the user's law
+    assert res.outcome == "balanced" and "user law" in res.trace.phases

@@ -15,7 +15,7 @@ jump, then engage the brake with the winding open. Needs `drive.brake_torque` in
 from __future__ import annotations
 
 import math
-from typing import Annotated
+from typing import Annotated, Literal
 
 from pydantic import Field
 
@@ -46,7 +46,7 @@ class BrakeJump(Strategy):
     class Params(StrategyParams):
         margin: Annotated[float, Field(ge=0.5, le=3.0)] = 1.1
         ramp_torque: Annotated[float, Field(gt=0, allow_inf_nan=False)] | None = None
-        direction: Annotated[int, Field(ge=-1, le=1)] = 1
+        direction: Literal[-1, 1] = 1
 
     def __init__(self, **kw) -> None:
         super().__init__(**kw)
@@ -56,7 +56,7 @@ class BrakeJump(Strategy):
         self.j_lock = d.J_kg_m2 + d.I_w_kg_m2
         mgl = d.gravity_torque_coeff_n_m
         self.ramp = p.ramp_torque if p.ramp_torque is not None else min(0.15 * mgl, d.stall_torque_n_m)
-        self.sign = 1.0 if p.direction >= 0 else -1.0
+        self.sign = float(p.direction)
         self.target = None
         self.w_ref = 0.0
         self.ref_done_s = None

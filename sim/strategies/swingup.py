@@ -12,7 +12,7 @@ reaction -tau on the body), dE/dt = -tau theta_d (friction aside), which both la
 from __future__ import annotations
 
 import math
-from typing import Annotated
+from typing import Annotated, Literal
 
 from pydantic import Field
 
@@ -93,7 +93,7 @@ class EnergySwingUp(_SwingUpBase):
         gain: PosFloat | None = None
         energy_target: Annotated[float, Field(allow_inf_nan=False)] = 0.0
         wheel_damping: NonNegFloat | None = None
-        kick_direction: Annotated[int, Field(ge=-1, le=1)] = 1
+        kick_direction: Literal[-1, 1] = 1
 
     def __init__(self, **kw) -> None:
         super().__init__(**kw)
@@ -102,7 +102,7 @@ class EnergySwingUp(_SwingUpBase):
         self.gain = p.gain if p.gain is not None else d.stall_torque_n_m / (self.mgl * rate)
         self.wheel_damping = (p.wheel_damping if p.wheel_damping is not None
                               else 0.1 * d.stall_torque_n_m / (0.5 * d.no_load_speed_rad_s))
-        self.kick = 1.0 if p.kick_direction >= 0 else -1.0
+        self.kick = float(p.kick_direction)
 
     def decide(self, reading: Reading) -> float:
         e = self.body_energy(reading)
@@ -122,7 +122,7 @@ class PumpSwingUp(_SwingUpBase):
     """Bang-bang pumping: a fixed voltage against the body's swing, until the energy suffices.
 
     volts = -level * sign(theta_d) while E < E_ref (this makes dE/dt = -tau theta_d >= 0 while the
-    torque follows the voltage's sign), 0 V once E >= E_ref. A body hanging at rest gets
+    torque follows the voltage's sign), winding open once E >= E_ref. A body hanging at rest gets
     +level until it moves. The simple hobby-style swing-up: no model of the motor's torque line,
     no wheel-speed care. Parameters: `level` V (default: half the supply), `energy_target` J.
     """
@@ -139,7 +139,10 @@ class PumpSwingUp(_SwingUpBase):
 
     def decide(self, reading: Reading) -> float:
         e = self.body_energy(reading)
-        if e >= self.params.energy_target:
+        # enough energy: float the winding, since 0 V across a spinning motor would brake the wheel
+        # and its reaction would stir the body's energy
+        self.open_circuit = e >= self.params.energy_target
+        if self.open_circuit:
             self.phase = "coast"
             return 0.0
         if self.needs_kick(e):
