@@ -30,7 +30,7 @@ import numpy as np
 from scipy.special import ellipe, ellipk
 
 from .errors import InputError
-from .fitting import FitResult, linear_fit, local_maxima, noise_sigma, ratio_sigma, smooth_signal
+from .fitting import FitResult, linear_fit, local_maxima, noise_sigma, smooth_signal
 from .logs import resample_uniform
 
 MIN_EXTREMES = 5            # turning points after the release: two full cycles
@@ -112,7 +112,7 @@ def fit_free_swing(log, *, device=None, scenario=None) -> FitResult:
     res.put("coulomb_amplitude_loss_rad_per_cycle", 4.0 * decay["e"], 4.0 * decay["e_sigma"])
     res.facts.update({
         "decay": decay["kind"], "turning_points_used": int(len(amps)),
-        "cycles_used": round((len(amps) - 1) / 2.0, 1), "release_amplitude_rad": float(amps[0]),
+        "cycles_used": round((len(amps) - 1) / 2.0, 1), "first_amplitude_rad": float(amps[0]),
         "last_amplitude_rad": float(amps[-1]), "hanging_angle_rad": float(centre),
         "angle_noise_rad": ext.noise_rad, "first_turning_point_s": float(ext.times[0]),
     })
@@ -283,9 +283,8 @@ def _with_scenario(res: FitResult, device, scenario, w0: float, period: dict, de
     res.put("body_inertia_about_pivot_kg_m2", J, 2.0 * J * rel_t0)
     res.facts["model_body_inertia_about_pivot_kg_m2"] = device.J_kg_m2
     res.facts["m_g_d_n_m"] = mgd
-    b = 2.0 * decay["zeta"] * w0 * J
-    res.put("pivot_viscous_n_m_s_per_rad", b,
-            ratio_sigma(b, decay["zeta_sigma"] / decay["zeta"] if decay["zeta"] else 0.0, rel_t0))
+    b = 2.0 * decay["zeta"] * w0 * J  # = 2 zeta m g d / w0
+    res.put("pivot_viscous_n_m_s_per_rad", b, 2.0 * mgd / w0 * math.hypot(decay["zeta_sigma"], decay["zeta"] * rel_t0))
     res.put("coulomb_torque_n_m", decay["e"] * mgd, decay["e_sigma"] * mgd)
     res.notes.append(f"Uncertainties treat the scenario's m g d ({mgd:.4g} N m) as exact.")
     if device.wheel_coulomb_n_m > 0.0 or device.wheel_viscous_n_m_s > 0.0:

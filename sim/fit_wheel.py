@@ -20,6 +20,7 @@ and say so in the notes.
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 from scipy.optimize import least_squares
@@ -37,19 +38,22 @@ def _speed(log, why: str) -> tuple[np.ndarray, np.ndarray, str]:
 
 # ----------------------------------------------------------------------------- spin-up
 
-def find_step(t: np.ndarray, v: np.ndarray, *, where: str) -> tuple[int, float]:
-    """(index of the first sample at the new voltage, step voltage V). Raises when there is no step.
+def find_step(t: np.ndarray, v: np.ndarray, *, where: str) -> tuple[int, int, float]:
+    """(first sample at the new voltage, one past the last, step voltage V). Raises when there is no step.
 
-    The step level is the median over the log's second half; the step is where |v| first
-    reaches half of it. A log that starts at the step (no quiet lead-in) is accepted.
+    The step level is the median of the samples above half the largest |v|; the step runs from
+    the first to the last sample at more than half that level (a voltage switched off again
+    later ends the window). A log that starts at the step (no quiet lead-in) is accepted.
     """
-    level = float(np.median(v[len(v) // 2:]))
-    if abs(level) < 1e-3 * max(np.max(np.abs(v)), 1e-12) or np.max(np.abs(v)) < 1e-6:
+    peak = float(np.max(np.abs(v)))
+    if peak < 1e-6:
         raise InputError(f"{where}: does not look like a spin-up: no voltage step found (the voltage stays near 0)")
-    above = np.nonzero(np.sign(level) * v >= 0.5 * abs(level))[0]
-    i0 = int(above[0])
-    after = v[i0:]
-    return i0, float(np.mean(after))
+    level = float(np.median(v[np.abs(v) >= 0.5 * peak]))
+    on = np.nonzero(np.sign(level) * v >= 0.5 * abs(level))[0]
+    i0, i1 = int(on[0]), int(on[-1]) + 1
+    if i1 - i0 < 10:
+        raise InputError(f"{where}: does not look like a spin-up: the voltage step lasts only {i1 - i0} samples")
+    return i0, i1, float(np.mean(v[i0:i1]))
 
 
 def fit_spin_up(log, *, device=None, scenario=None) -> FitResult:
@@ -57,8 +61,11 @@ def fit_spin_up(log, *, device=None, scenario=None) -> FitResult:
     scenario, the wheel's spin inertia."""
     t, w, where = _speed(log, "a spin-up is fitted to the wheel speed")
     v = log.require("voltage_v", why="a spin-up needs the applied voltage")
-    i0, volts = find_step(t, v, where=f"{log.path}: {log.label('voltage_v')}")
+    i0, i_end, volts = find_step(t, v, where=f"{log.path}: {log.label('voltage_v')}")
     sgn = math.copysign(1.0, volts)  # a negative step is fitted as a positive one, signs restored below
+    if i_end < len(t):  # the voltage was switched off again: fit the step's window only
+        log = replace(log, t_s=t[:i_end], columns={k: c[:i_end] for k, c in log.columns.items()})
+        t, w, v = t[:i_end], w[:i_end], v[:i_end]
     ts, ws = t[i0:] - t[i0], sgn * w[i0:]
     res = FitResult("spin-up")
     res.facts.update({"step_time_s": float(t[i0]), "lead_in_samples": i0, "samples_used": int(len(ts))})

@@ -262,6 +262,24 @@ def test_spin_up_without_friction_states_its_assumption():
     assert any("negligible" in n for n in res.notes)
 
 
+def test_spin_up_window_ends_where_the_voltage_is_switched_off():
+    # a step at 0.3 s, switched off at 2.3 s (winding open, the wheel coasts): only the step is fitted
+    sc, _ = wheel_scenario(coulomb=MOTOR["Tc"], viscous=MOTOR["b"])
+    rng = np.random.default_rng(RNG_SEED)
+    t = np.sort(rng.uniform(0.0, 4.0, 8000))
+    i, w = spin_up_truth(t, volts=6.0, step_s=0.3)
+    off = t >= 2.3
+    w = np.where(off, coast_truth(t, w0=float(np.interp(2.3, t, w)), start_s=2.3), w)
+    cols = {"wheel_speed_rad_s": w + rng.normal(0, 0.3, len(t)), "voltage_v": np.where((t >= 0.3) & ~off, 6.0, 0.0),
+            "current_a": np.where(off, 0.0, i) + rng.normal(0, 0.005, len(t))}
+    res = fit_log(BenchLog("on-off.csv", t, cols, {}), "spin-up", scenario=sc)
+    # same tolerances as the plain spin-up above
+    assert_allclose(res.value("back_emf_constant_v_s_per_rad"), MOTOR["k_e"], rtol=1e-3)
+    assert_allclose(res.value("resistance_ohm"), MOTOR["R"], rtol=2e-3)
+    assert_allclose(res.value("wheel_spin_inertia_kg_m2"), MOTOR["I"], rtol=2e-3)
+    assert res.facts["samples_used"] < np.count_nonzero(t >= 0.3)
+
+
 def coast_truth(t: np.ndarray, *, w0: float, start_s: float, m=MOTOR) -> np.ndarray:
     """I w' = -b w - T_c until the wheel stops (then it stays stopped)."""
     def stopped(_, y):
