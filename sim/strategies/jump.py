@@ -24,6 +24,8 @@ from .swingup import volts_for_torque
 
 SPEED_CAP = 0.95           # never aim above 95% of the no-load speed: the approach is exponential
 SPEED_LOOP_S = 0.05        # time constant of the wheel-speed correction, s (our choice)
+BOTTOM_BAND = 0.35         # rad from hanging: "back at the bottom" after a jump that fell short (our choice)
+RETRY_GAIN = 1.1           # each new try aims 10% faster, up to the cap
 SETTLE_S = 0.3             # brake anyway this long after the reference reached the target (friction
                            # or a weak supply may keep the wheel a little short of it)
 
@@ -35,8 +37,9 @@ class BrakeJump(Strategy):
     rise), `ramp_torque` (N m of wheel torque while spinning up; default 15% of mbar g, capped at
     the stall torque), `direction` (+1 or -1: the sign of the wheel speed, which is also the sign
     of the body rate the brake produces). Reports `needed_wheel_speed_rad_s` (from the first
-    reading's angle) and `reached_wheel_speed_rad_s` (measured when the brake was engaged) in
-    `extra_metrics`.
+    reading's angle), `reached_wheel_speed_rad_s` (measured when the brake was last engaged) and
+    `jump_count` in `extra_metrics`. A jump that falls short is tried again, 10% faster, once the
+    body has swung back to the bottom.
     """
 
     kind = "jump"
@@ -61,8 +64,9 @@ class BrakeJump(Strategy):
         self.w_ref = 0.0
         self.ref_done_s = None
         self.period = 1.0 / d.control_rate_hz
+        self.risen = False
         self.extra_metrics = {"needed_wheel_speed_rad_s": None, "reached_wheel_speed_rad_s": None,
-                              "jump_target_wheel_speed_rad_s": None, "braked_at_s": None}
+                              "jump_target_wheel_speed_rad_s": None, "braked_at_s": None, "jump_count": 0}
         self.phase = "spin up"
 
     def needed_speed(self, angle_rad: float) -> float:
@@ -78,13 +82,26 @@ class BrakeJump(Strategy):
             self.extra_metrics["needed_wheel_speed_rad_s"] = needed
             self.extra_metrics["jump_target_wheel_speed_rad_s"] = self.target
         if self.brake:
+            self._watch_fall_back(reading.angle_rad)
             return 0.0
         if self.phase == "hold" and reading.rate_rad_s * self.sign >= 0.0:
             self.brake, self.open_circuit, self.phase = True, True, "brake"
+            self.extra_metrics["jump_count"] += 1
             self.extra_metrics["reached_wheel_speed_rad_s"] = abs(float(w))
             self.extra_metrics["braked_at_s"] = float(reading.t_s)
             return 0.0
         return self._spin(w, reading.t_s)
+
+    def _watch_fall_back(self, angle_rad: float) -> None:
+        """A jump that fell short: once the body has risen and swung back to the bottom, try again
+        with the brake released and a 10% faster target (the swing's energy is a bonus)."""
+        if abs(angle_rad) < math.pi - BOTTOM_BAND:
+            self.risen = True
+        elif self.risen:
+            self.brake, self.open_circuit, self.risen, self.phase = False, False, False, "spin up"
+            self.w_ref, self.ref_done_s = 0.0, None
+            self.target = min(self.target * RETRY_GAIN, SPEED_CAP * self.device.no_load_speed_rad_s)
+            self.extra_metrics["jump_target_wheel_speed_rad_s"] = self.target
 
     def _spin(self, w: float, t_s: float) -> float:
         """Ramp the speed reference at `ramp` torque, follow it with a proportional correction."""
