@@ -221,7 +221,9 @@ class Dashboard:
 
     def _dial(self, d, r: Readout) -> tuple[float, float]:
         (cx, cy), rad, u = self.lay.dial_c, self.lay.dial_r, self.lay.unit
-        frac = max(-DIAL_SPAN, min(DIAL_SPAN, r.wheel_speed_rad_s / r.wheel_limit_rad_s)) / DIAL_SPAN
+        finite = math.isfinite(r.wheel_speed_rad_s)   # a diverged trial's last row may not be
+        ratio = r.wheel_speed_rad_s / r.wheel_limit_rad_s if finite else 0.0
+        frac = max(-DIAL_SPAN, min(DIAL_SPAN, ratio)) / DIAL_SPAN
         needle = 90.0 - 90.0 * frac          # degrees, counter-clockwise from +x: 90 = straight up = 0 rad/s
         box = [cx - rad, cy - rad, cx + rad, cy + rad]
         colour = WARN if abs(r.wheel_speed_rad_s) >= NEAR_NO_LOAD * r.wheel_limit_rad_s else WHEEL
@@ -237,7 +239,7 @@ class Dashboard:
         d.text((tx, ty + 0.17 * u), f"{r.wheel_speed_rad_s:+.0f} rad/s", font=self.f_mid, fill=TEXT, anchor="lt")
         d.text((tx, ty + 0.36 * u), f"limit {r.wheel_limit_rad_s:.0f}", font=self.f_small, fill=DIM, anchor="lt")
         # read the speed back from the needle as drawn: the tests compare this with the trace
-        read_back = (90.0 - needle) / 90.0 * DIAL_SPAN * r.wheel_limit_rad_s
+        read_back = (90.0 - needle) / 90.0 * DIAL_SPAN * r.wheel_limit_rad_s if finite else math.nan
         return needle, read_back
 
     def _bar(self, d, row: int, value: float, span: float, colour, text: str) -> None:

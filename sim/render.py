@@ -135,7 +135,7 @@ class Layout:
     @classmethod
     def from_scenario(cls, sc) -> "Layout":
         wheel_r = max([_radial_extent(p) for p in sc.wheel.parts] + [0.01])
-        body_reach = max(abs(p.at) + (p.length / 2 if p.length else 0.0) for p in sc.body.parts)
+        body_reach = max(_body_extent(p) for p in sc.body.parts)
         reach = max(body_reach, sc.wheel.at + wheel_r)
         pieces = []
         for p in sc.body.parts:
@@ -150,6 +150,18 @@ class Layout:
         pieces += [Piece("wheel", pc.geom, pc.colour, x=wheel_x + pc.x, r=pc.r, psi=pc.psi, q=pc.q)
                    for pc in wheel_pieces]
         return cls(tuple(pieces), reach, sc.wheel.at, wheel_x, wheel_r, -1.25 * reach)
+
+
+def _body_extent(part) -> float:
+    """Furthest point of a body part from the pivot, m (a box's corner, a disk's rim)."""
+    along = abs(part.at)
+    if part.shape == "box":
+        return math.hypot(along + part.length / 2, part.width / 2)
+    if part.shape == "rod":
+        return math.hypot(along + part.length / 2, part.radius or 0.0)
+    if part.shape in ("disk", "ring"):
+        return along + (part.radius if part.shape == "disk" else part.outer_radius)
+    return along
 
 
 def _radial_extent(part) -> float:

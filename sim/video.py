@@ -102,6 +102,7 @@ class TrialPainter:
         self.result = result
         render_scale = render_scale_for(width, height) if render_scale is None else render_scale
         self.dash = Dashboard(width, height, label=label)
+        self._last_pose = (0.0, 0.0)
         self.scene = Scene(result.scenario, width=width, height=height, camera=camera, render_scale=render_scale,
                            scene_rows=self.dash.top)
 
@@ -110,6 +111,9 @@ class TrialPainter:
         tr = self.result.trace
         k = row_index(tr, t_s)
         angle, wheel = float(tr.angle[k]), float(tr.wheel_angle[k])
+        if not (math.isfinite(angle) and math.isfinite(wheel)):
+            angle, wheel = self._last_pose   # a diverged trial's last row: hold the last drawable pose
+        self._last_pose = (angle, wheel)
         frame = self.scene.draw_image(angle, wheel)
         r = readout(self.result, t_s)
         arrow = self._push_arrow(angle, r.push_n_m_s) if r.push_n_m_s else None
