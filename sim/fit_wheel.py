@@ -85,7 +85,8 @@ def fit_spin_up(log, *, device=None, scenario=None) -> FitResult:
     res.put("final_speed_rad_s", sgn * w_inf, expo["w_inf_sigma"])
     res.put("time_constant_s", tau, expo["tau_sigma"])
     res.facts["residual_rms_rad_s"] = expo["rms"]
-    res.plot = {"t_s": t, "data": w, "model": np.where(t >= t[i0], sgn * _step_model(t - t[i0], expo["p"]), np.nan),
+    fitted = t >= t[i0 + k]  # the model is drawn where it was fitted (not over a current-limited start)
+    res.plot = {"t_s": t, "data": w, "model": np.where(fitted, sgn * _step_model(t - t[i0], expo["p"]), np.nan),
                 "label": "wheel speed [rad/s]", "title": "spin-up"}
     if float(np.std(v[i0:])) > 0.05 * abs(volts):
         res.notes.append(f"The voltage after the step varies ({np.std(v[i0:]):.3g} V rms about {volts:.3g} V); "
