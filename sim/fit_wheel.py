@@ -257,6 +257,10 @@ def _fit_coast(t: np.ndarray, ws: np.ndarray, *, where: str) -> dict:
     if i1 - i0 < 20 or peak <= 0 or sm[i1 - 1] > 0.8 * peak:
         raise InputError(f"{where}: does not look like a coast-down: the wheel speed does not fall by a fifth "
                          "after its peak")
+    # friction alone never turns a wheel round or speeds it up again
+    if np.min(sm[i0:]) < -max(5.0 * sigma, 0.05 * peak) or (i1 < len(sm) and np.max(sm[i1:]) > 0.5 * peak):
+        raise InputError(f"{where}: does not look like a coast-down: the wheel speed turns round or rises again "
+                         "after falling")
     tt, y = t[i0:i1], ws[i0:i1]
     falling = np.nonzero(sm[i0:i1] < peak - max(5.0 * sigma, 0.01 * peak))[0]
     t_fall = tt[falling[0]] if falling.size else tt[0]

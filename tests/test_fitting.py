@@ -329,6 +329,9 @@ def test_wrong_logs_raise_clear_errors():
     spin = spin_up_log()
     with pytest.raises(InputError, match="does not look like a coast-down"):
         fit_log(spin, "coast-down")
+    swinging = BenchLog("swing.csv", spin.t_s, {"wheel_speed_rad_s": 3.0 * np.sin(7.0 * spin.t_s)}, {})
+    with pytest.raises(InputError, match="turns round or rises again"):
+        fit_log(swinging, "coast-down")
     quiet = BenchLog("quiet.csv", spin.t_s, {**spin.columns, "voltage_v": np.zeros(len(spin.t_s))},
                      spin.source_names)
     with pytest.raises(InputError, match="no voltage step"):
