@@ -275,5 +275,6 @@ class Dashboard:
             d.polygon([(x1, y1), (x1 - s * math.cos(ang - 0.45), y1 - s * math.sin(ang - 0.45)),
                        (x1 - s * math.cos(ang + 0.45), y1 - s * math.sin(ang + 0.45))], fill=PUSH)
         text = f"push {r.push_n_m_s * 1000:+.1f} mN m s"
-        self._tag(d, (self.width - int(0.03 * self.width), int(0.04 * self.height)), text, fill=PUSH,
-                  ink=(16, 24, 34), right=True)
+        # bottom left, above the panel: clear of the device's upper half and of the limit notes (right)
+        self._tag(d, (int(0.03 * self.width), self.top - int(0.06 * self.lay.unit)), text, fill=PUSH,
+                  ink=(16, 24, 34), up=True)
