@@ -58,11 +58,21 @@ def _warm_imports() -> None:
     registry()
 
 
+def _die_with_parent() -> None:
+    """In a worker: ask Linux to end this process when its parent dies (a killed sweep leaves no orphans)."""
+    try:
+        import ctypes
+        import signal
+        ctypes.CDLL("libc.so.6", use_errno=True).prctl(1, int(signal.SIGKILL))   # 1 = PR_SET_PDEATHSIG
+    except (OSError, AttributeError):  # not Linux: orphans then finish their task and wait
+        pass
+
+
 def _run_pool(fn, tasks, workers: int):
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
     _warm_imports()
-    with ProcessPoolExecutor(max_workers=workers) as pool:
+    with ProcessPoolExecutor(max_workers=workers, initializer=_die_with_parent) as pool:
         pending: dict = {}
         source = iter(tasks)
         exhausted = False
