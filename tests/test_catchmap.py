@@ -25,7 +25,9 @@ def test_upright_at_rest_is_caught_and_a_hopeless_start_is_lost(tmp_path):
     assert cells[(0.0, 0.0)]["caught"] == "True"
     # 25 degrees out and still falling outward at 4 rad/s: past what the 12 V wheel can return.
     assert cells[(a, 4.0)]["caught"] == "False" and cells[(-a, -4.0)]["caught"] == "False"
-    # The device is symmetric about upright (no bias in this fixture), so the map is too.
+    # The equations of motion are odd in (theta, tau) (references.md, reaction-wheel pendulum
+    # dynamics: theta -> -theta, tau -> -tau maps a solution to a solution) and this fixture has
+    # no sensor bias and no dry friction, so the map must be point-symmetric about the origin.
     for (angle, rate), r in cells.items():
         assert cells[(-angle if angle else 0.0, -rate if rate else 0.0)]["caught"] == r["caught"]
     assert float(cells[(0.0, 0.0)]["wheel_speed_margin"]) > 0.9

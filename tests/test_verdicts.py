@@ -142,3 +142,14 @@ def test_default_tolerances_apply_when_absent():
     assert {"motor.resistance", "motor.speed_constant", "drive.supply", "sensors.angle.bias"} == keys
     raw, where = load_raw(None)
     assert raw and where.endswith(".yaml")
+
+
+def test_requirements_parse_units_and_defaults():
+    sc = validate_scenario(fast_raw(requirements={"min_push": "8 mN*m*s", "wheel_speed_margin": "30%",
+                                                  "settle_time": "500 ms", "pass_fraction": "90%"}), where="t.yaml")
+    req = sc.requirements
+    np.testing.assert_allclose([req.min_push, req.wheel_speed_margin, req.settle_time, req.pass_fraction],
+                               [0.008, 0.30, 0.5, 0.90], rtol=1e-12)
+    assert req.burst_safety_factor == 4.0     # suggested minimum for printed parts (references.md [mem])
+    with pytest.raises(ScenarioError, match="requirements.min_pusch"):
+        validate_scenario(fast_raw(requirements={"min_pusch": "8 mN*m*s"}), where="t.yaml")
