@@ -9,7 +9,7 @@ with `trials`, adds Monte Carlo trials over the tolerances around that point.
 Persistence: every finished point is appended to `sweep.jsonl` (flushed and fsynced), so a
 sweep killed at any moment loses nothing finished; `results.csv` is rewritten atomically from
 it every few seconds and at the end. Re-running the same sweep into the same folder skips the
-finished points. Seeds come from the base seed and the point's index, so the table is the same
+finished points. Seeds come from the point's trial.seed and its index, so the table is the same
 whatever the number of workers or the order points finish in.
 """
 
@@ -133,12 +133,13 @@ def point_task(payload: dict) -> dict:
     for key, path, value in payload["assign"]:
         set_path(raw, list(path), value, where=payload["where"])
         row[key] = value
-    seed = trial_seed(payload["base_seed"], payload["index"])
-    row.update(point=payload["index"], seed=seed)
+    row["point"] = payload["index"]
     try:
         sc = validate_scenario(raw, where=payload["where"])
     except ScenarioError as exc:
         return row | {"outcome": "invalid", "passed": False, "fail_reasons": "invalid", "message": str(exc)}
+    # from the point's own trial.seed (so a sweep over trial.seed means something) and its index
+    seed = row["seed"] = trial_seed(sc.trial.seed, payload["index"])
     for key, path, _ in payload["assign"]:
         si = value_at(sc, path)
         row[key] = si if isinstance(si, (int, float, str)) else str(si)
@@ -237,15 +238,13 @@ def run_sweep(raw: dict, where: str, varies: list[Vary], out_dir: Path, *, trial
     """
     if trials < 0:
         raise InputError(f"--trials: expected 0 or more, found {trials}")
-    from .scenario import validate_scenario
-    base_seed = validate_scenario(raw, where=where).trial.seed
     check_varies(raw, where, varies)
     spec = sweep_spec(raw, varies, trials)
     journal_path, csv_path = out_dir / JOURNAL, out_dir / RESULTS
     rows = read_journal(journal_path, spec)
     total = int(np.prod([len(v.values) for v in varies]))
     write_results_csv(csv_path, varies, rows)
-    tasks = ((i, {"raw": raw, "where": where, "base_seed": base_seed, "index": i, "trials": trials,
+    tasks = ((i, {"raw": raw, "where": where, "index": i, "trials": trials,
                   "assign": [(v.key, v.path, x) for v, x in zip(varies, point_values(varies, i))]})
              for i in range(total) if i not in rows)
     journal = Journal(journal_path, spec)
