@@ -19,8 +19,9 @@ Strength: a printed part uses its material's across-layer strength
 and a printed part fails first where its layers bond. A part with partial infill has its
 strength scaled by the infill fraction, like its density (our assumption, no source). A part
 with no material, or a material without a strength, is reported as unknown: no figure is
-guessed. Point masses (bolts, weights) carry no stress of their own here; the load they put on
-the part that holds them is not modelled, which makes the figure for that part optimistic.
+guessed. Each part is treated as spinning free: the load that outer parts (a heavy rim, bolts,
+weights) put on the part that holds them is not modelled, which makes the figure for an inner
+part optimistic; such parts are flagged in their note.
 """
 
 from __future__ import annotations
@@ -112,7 +113,13 @@ def wheel_burst_check(scenario, device) -> dict:
     whose strength is unknown), `burst_speed_rad_s` (runaway speed * sqrt(safety factor)).
     """
     speed = device.no_load_speed_rad_s
-    rows = [part_burst_check(p, i, speed) for i, p in enumerate(scenario.wheel.parts)]
+    parts = scenario.wheel.parts
+    rows = [part_burst_check(p, i, speed) for i, p in enumerate(parts)]
+    for row, part in zip(rows, parts):
+        carried = [r["part"] for r, q in zip(rows, parts) if q is not part and _loads(q, part)]
+        if carried and part.shape != "point":
+            row["note"] = (row["note"] + "; " if row["note"] else "") + \
+                f"load from {', '.join(carried)} not included: figure optimistic"
     known = [r["safety_factor"] for r in rows if r["safety_factor"] is not None]
     unknown = [r["part"] for r in rows if r["safety_factor"] is None and r["shape"] != "point"]
     factor = min(known) if known else None
@@ -123,3 +130,30 @@ def wheel_burst_check(scenario, device) -> dict:
         "unknown_parts": unknown,
         "burst_speed_rad_s": speed * math.sqrt(factor) if factor is not None and math.isfinite(factor) else None,
     }
+
+
+def _loads(other, part) -> bool:
+    """Does `other` hang its centrifugal load on `part` (lies outside it, or is a point mass on it)?"""
+    if other.shape == "point":
+        return _inner_edge(part) <= other.at <= _outer_edge(part) or other.at >= _outer_edge(part)
+    return _inner_edge(other) >= _outer_edge(part) * 0.999
+
+
+def _outer_edge(part) -> float:
+    """Largest radius the part reaches from the wheel axis, m."""
+    if part.shape == "disk":
+        return part.radius
+    if part.shape == "ring":
+        return part.outer_radius
+    if part.shape in ("rod", "box"):
+        return part.at + part.length / 2.0
+    return part.at
+
+
+def _inner_edge(part) -> float:
+    """Smallest radius of the part from the wheel axis, m."""
+    if part.shape == "ring":
+        return part.inner_radius
+    if part.shape in ("rod", "box"):
+        return max(part.at - part.length / 2.0, 0.0)
+    return 0.0 if part.shape == "disk" else part.at

@@ -98,3 +98,14 @@ def test_given_mass_sets_the_mean_density():
     w = check["runaway_speed_rad_s"]
     np.testing.assert_allclose(check["parts"][0]["stress_pa"], solid_disk_stress_pa(7850.0 / 2, w, r, 0.29), rtol=1e-9)
     assert check["parts"][0]["strength_basis"].startswith("tensile")
+
+
+def test_parts_carrying_outer_load_are_flagged():
+    # Each part is computed spinning free (Timoshenko & Goodier's free disk); a web carrying a rim
+    # sees more than that, so its figure must be marked optimistic rather than passed silently.
+    sc = _wheel_scenario(PLA_RIM + [{"name": "web", "shape": "ring", "outer_radius": "40 mm", "inner_radius": "4 mm",
+                                      "thickness": "2 mm", "material": "PLA"},
+                                     {"name": "bolts", "shape": "point", "mass": "1 g", "at": "50 mm", "count": 4}])
+    notes = {r["part"]: r["note"] for r in wheel_burst_check(sc, Device.from_scenario(sc))["parts"]}
+    assert "rim" in notes["web"] and "bolts" in notes["web"] and "optimistic" in notes["web"]
+    assert "bolts" in notes["rim"] and "web" not in notes["rim"]
