@@ -424,7 +424,9 @@ def test_cli_free_swing_writes_files_and_merged_scenario(tmp_path, capsys):
     sc, dev = pendulum_scenario()
     mgd = dev.mbar_kg_m * dev.gravity_m_s2
     log = swing_log(w0=1.02 * math.sqrt(mgd / dev.J_kg_m2), zeta=0.01, e=0.5e-3 / mgd, amplitude_deg=30.0)
-    csv = _save(tmp_path / "swing.csv", log)
+    wrapped = np.angle(np.exp(1j * log.columns["angle_rad"]))  # as a trace logs it: (-pi, pi], jumping at hanging
+    assert np.ptp(wrapped) > 6.0
+    csv = _save(tmp_path / "swing.csv", BenchLog("x", log.t_s, {"angle_rad": wrapped}, {}))
     scen = write_scenario(tmp_path / "pend.yaml", scenario_dict())
     out = tmp_path / "fit"
     assert main(["fit", csv, "--test", "free-swing", "--scenario", str(scen), "--out", str(out)]) == 0
