@@ -152,7 +152,10 @@ def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers:
     from .tolerances import load_raw
     if workers is not None and workers < 1:
         raise InputError(f"--workers: expected at least 1, found {workers}")
-    return load_raw(scenario, tuple(overrides or ()))
+    raw, where = load_raw(scenario, tuple(overrides or ()))
+    from .scenario import validate_scenario
+    validate_scenario(raw, where=where)  # bad input fails here, before an --out folder is made
+    return raw, where
 
 
 def _progress(label: str):

@@ -384,6 +384,17 @@ class _GuardedLoader(yaml.SafeLoader):
                 raise yaml.YAMLError(f"more than {MAX_ALIASES} aliases")
         return super().compose_node(parent, index)
 
+    def construct_mapping(self, node, deep=False):
+        # YAML forbids repeated keys; PyYAML keeps the last silently, hiding a typo'd edit
+        seen = set()
+        for key_node, _ in node.value:
+            key = key_node.value if isinstance(key_node, yaml.ScalarNode) else None
+            if key in seen and key != "<<":
+                raise yaml.MarkedYAMLError(problem=f"duplicate key {key!r}", problem_mark=key_node.start_mark)
+            if key is not None:
+                seen.add(key)
+        return super().construct_mapping(node, deep=deep)
+
 
 def read_yaml(path: Path) -> Any:
     """Parse a YAML file safely. Raises ScenarioError naming the file on any problem."""
@@ -466,13 +477,22 @@ def describe_validation_error(exc: ValidationError, model: type[BaseModel] | Non
     if kind == "missing":
         return f"{path}: required key is missing"
     if kind == "literal_error":
-        return f"{path}: expected {msg.removeprefix('Input should be ')}, found {err.get('input')!r}"
-    found = err.get("input")
+        return f"{path}: expected {msg.removeprefix('Input should be ')}, found {short_repr(err.get('input'))}"
+    found = short_repr(err.get("input"))
     if kind in ("greater_than", "greater_than_equal", "less_than", "less_than_equal"):
-        return f"{path}: {msg.replace('Input should be', 'must be')} (found {found!r}, in SI)"
+        return f"{path}: {msg.replace('Input should be', 'must be')} (found {found}, in SI)"
     if kind.endswith("_type") or kind.startswith("int_"):
-        return f"{path}: {msg.replace('Input should be', 'expected')}, found {found!r}"
+        return f"{path}: {msg.replace('Input should be', 'expected')}, found {found}"
     return f"{path}: {msg}"
+
+
+def short_repr(value: Any) -> str:
+    """repr() cut to a few items and characters: a message stays one readable line."""
+    import reprlib
+
+    r = reprlib.Repr()
+    r.maxlevel, r.maxlist, r.maxdict, r.maxstring, r.maxother = 2, 4, 4, 60, 60
+    return r.repr(value)
 
 
 def format_path(loc: list) -> str:

@@ -7,6 +7,7 @@ parsed by pint and converted to the SI unit the key expects. Percentages ("10%")
 from __future__ import annotations
 
 import math
+import re
 from functools import lru_cache
 
 # SI unit that each kind of quantity is stored in, with a readable name for messages.
@@ -78,6 +79,9 @@ def _parse_string(text: str, unit: str, label: str) -> float:
         if unit:
             raise ValueError(f"expected {label} in {unit}, found a percentage {text!r}")
         return number
+    if not _powers_are_small(text):
+        raise ValueError(f"expected {label}, found {text!r} (powers must be plain numbers up to "
+                         f"{MAX_POWER}, at most {MAX_POWERS} of them)")
     import pint
 
     reg = registry()
@@ -92,6 +96,27 @@ def _parse_string(text: str, unit: str, label: str) -> float:
     except Exception:  # pint raises several kinds for unparsable text
         expect = f"{label} in {unit}" if unit else label
         raise ValueError(f"expected {expect}, found unreadable {text!r}") from None
+
+
+MAX_POWER = 6      # m^3, s^-2 need little; pint evaluates 10**10**10 exactly and never returns
+MAX_POWERS = 3
+_POWER_OP = re.compile(r"\*\*|\^")
+_CHAINED = re.compile(r"\s*(\*\*|\^)")
+_EXPONENT = re.compile(r"\s*\(?\s*([-+]?\d+(?:\.\d+)?)\s*\)?")
+
+
+def _powers_are_small(text: str) -> bool:
+    """True when every power in `text` has a plain-number exponent of at most MAX_POWER."""
+    ops = list(_POWER_OP.finditer(text))
+    if len(ops) > MAX_POWERS:
+        return False
+    for op in ops:
+        m = _EXPONENT.match(text, op.end())
+        if m is None or abs(float(m.group(1))) > MAX_POWER:
+            return False
+        if _CHAINED.match(text, m.end()):  # a**b**c is a**(b**c): exponents multiply up
+            return False
+    return True
 
 
 def Q(kind: str, **limits: float):

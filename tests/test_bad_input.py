@@ -1,0 +1,250 @@
+"""The bad-input corpus: every command, fed broken scenarios, options and logs.
+
+Each case must give exit code 2, exactly one line on stderr that starts with "wheelbench:",
+names the file (or option) and the key, shows no traceback, and leaves nothing in --out
+(house style, "Check input once, at load" and "Errors"). Whole-file cases live as data in
+tests/bad_inputs/ (the first line says what the message must contain); key-level cases are
+built from the shared test scenario below. Commands are taken from the CLI as it stands, so a
+new command joins the corpus when it is added to COMMANDS.
+"""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+from conftest import scenario_dict, write_scenario
+from sim.cli import app, main
+
+HERE = Path(__file__).parent / "bad_inputs"
+
+
+def _commands() -> dict:
+    """argv builders, per command that takes a scenario file: (scenario path, out folder) -> argv."""
+    table = {
+        "validate": lambda f, out: ["validate", str(f)],
+        "run": lambda f, out: ["run", str(f), "--out", str(out)],
+        "gains": lambda f, out: ["gains", str(f)],
+        "check": lambda f, out: ["check", str(f), "--out", str(out), "--trials", "1", "--workers", "1"],
+        "sweep": lambda f, out: ["sweep", str(f), "--vary", "drive.supply=10..12:2", "--out", str(out),
+                                 "--workers", "1"],
+        "catch-map": lambda f, out: ["catch-map", str(f), "--grid", "2", "--out", str(out), "--workers", "1"],
+        "compare": lambda f, out: ["compare", str(f), "--video", str(out / "clip.gif")],
+    }
+    present = {c.name or c.callback.__name__ for c in app.registered_commands}
+    return {name: build for name, build in table.items() if name in present}
+
+
+COMMANDS = _commands()
+
+
+def run_cli(capsys, argv: list[str]) -> tuple[int, str, str]:
+    """Run the CLI in-process as the console script does; (exit code, stdout, stderr)."""
+    code = main(argv)
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
+
+
+def assert_rejected(code: int, err: str, *, names: list[str], out: Path | None = None) -> None:
+    lines = [line for line in err.splitlines() if line.strip()]
+    assert code == 2, err
+    assert len(lines) == 1, f"expected one stderr line, got: {err!r}"
+    assert lines[0].startswith("wheelbench: "), lines[0]
+    assert "Traceback" not in err
+    for fragment in names:
+        assert fragment in lines[0], f"{fragment!r} not in {lines[0]!r}"
+    if out is not None:
+        assert not out.exists() or not any(out.iterdir()), f"{out} was written: {list(out.iterdir())}"
+
+
+# --------------------------------------------------------------------- whole-file cases (data)
+
+def _file_cases():
+    for path in sorted(HERE.glob("*.yaml")):
+        first = path.read_bytes().split(b"\n", 1)[0].decode("utf-8", "replace")
+        expect = first.removeprefix("# expect: ") if first.startswith("# expect: ") else None
+        if path.name == "nul_bytes.yaml":  # a comment line cannot carry it: the NUL comes first
+            expect = "special characters are not allowed"
+        yield pytest.param(path, expect, id=path.stem)
+
+
+@pytest.mark.parametrize("command", sorted(COMMANDS))
+@pytest.mark.parametrize("path,expect", list(_file_cases()))
+def test_bad_file(capsys, tmp_path, command, path, expect):
+    assert expect, f"{path.name}: first line must be '# expect: ...'"
+    out = tmp_path / "out"
+    code, _, err = run_cli(capsys, COMMANDS[command](path, out))
+    assert_rejected(code, err, names=[str(path), expect], out=out)
+
+
+@pytest.mark.parametrize("command", sorted(COMMANDS))
+def test_empty_and_missing_files(capsys, tmp_path, command):
+    empty = tmp_path / "empty.yaml"
+    empty.write_bytes(b"")
+    out = tmp_path / "out"
+    code, _, err = run_cli(capsys, COMMANDS[command](empty, out))
+    assert_rejected(code, err, names=[str(empty), "the file is empty"], out=out)
+    missing = tmp_path / "no_such.yaml"
+    code, _, err = run_cli(capsys, COMMANDS[command](missing, out))
+    assert_rejected(code, err, names=[str(missing), "cannot read"], out=out)
+    code, _, err = run_cli(capsys, COMMANDS[command](tmp_path, out))  # a folder, not a file
+    assert_rejected(code, err, names=[str(tmp_path), "not a file"], out=out)
+
+
+def test_oversized_and_non_utf8_files(capsys, tmp_path):
+    big = tmp_path / "big.yaml"
+    big.write_text("# padding\n" * 200_000)
+    code, _, err = run_cli(capsys, ["validate", str(big)])
+    assert_rejected(code, err, names=[str(big), "too large"])
+    latin = tmp_path / "latin1.yaml"
+    latin.write_bytes("name: caf\u00e9\n".encode("latin-1"))
+    code, _, err = run_cli(capsys, ["validate", str(latin)])
+    assert_rejected(code, err, names=[str(latin), "UTF-8"])
+
+
+# --------------------------------------------------------------------- key-level cases
+
+KEY_CASES = {
+    # id: (sections merged into the test scenario, fragments the message must hold)
+    "wrong_type": ({"drive": {"supply": "twelve volts"}}, ["drive.supply", "unreadable"]),
+    "wrong_unit": ({"drive": {"supply": "12 kg"}}, ["drive.supply", "voltage"]),
+    "wrong_unit_length": ({"wheel": {"at": "200 g"}}, ["wheel.at", "length"]),
+    "step_too_long": ({"world": {"step": "1 s"}}, ["world.step", "less than or equal"]),
+    "negative_mass": ({"motor": {"mass": "-5 g"}}, ["motor.mass", "greater than or equal"]),
+    "zero_resistance": ({"motor": {"resistance": 0}}, ["motor.resistance", "greater than"]),
+    "negative_gravity": ({"world": {"gravity": -9.81}}, ["world.gravity"]),
+    "inner_radius_too_big": ({"wheel": {"parts": [{"shape": "ring", "outer_radius": 0.05, "inner_radius": 0.06,
+                                                   "thickness": 0.005, "mass": 0.1}]}},
+                             ["wheel.parts[0].inner_radius"]),
+    "unknown_top_key": ({"wheeel": {"at": 0.2}}, ["wheeel", "did you mean 'wheel'"]),
+    "unknown_nested_key": ({"motor": {"resistence": 2.0}}, ["motor.resistence", "did you mean 'resistance'"]),
+    "unknown_shape": ({"body": {"parts": [{"shape": "sphere", "mass": 0.1}]}}, ["body.parts[0].shape", "sphere"]),
+    "unknown_material": ({"body": {"parts": [{"shape": "rod", "length": 0.2, "radius": 0.005,
+                                              "material": "unobtainium"}]}}, ["body.parts[0].material"]),
+    "unknown_strategy": ({"strategy": {"kind": "lqrr"}}, ["strategy.kind", "did you mean 'lqr'"]),
+    "strategy_not_mapping": ({"strategy": "lqr"}, ["strategy", "mapping"]),
+    "missing_plugin_file": ({"strategy": {"plugin": "no_such_plugin.py:Law"}}, ["strategy.plugin", "no such file"]),
+    "malformed_plugin": ({"strategy": {"plugin": "a:b:c"}}, ["strategy.plugin"]),
+    "missing_required": ({"motor": {"resistance": None}}, ["motor.resistance"]),
+    "both_speed_constants": ({"motor": {"back_emf_constant": 0.03}}, ["motor.speed_constant", "exactly one"]),
+    "absurd_steps": ({"trial": {"duration": "1e9 s"}}, ["trial.duration", "steps"]),
+    "absurd_steps_tiny_step": ({"world": {"step": "1 ns"}, "trial": {"duration": 10}}, ["trial.duration", "steps"]),
+    "rate_not_whole_steps": ({"sensors": {"rate": "300 Hz"}}, ["sensors.rate", "whole number"]),
+    "float_count": ({"wheel": {"parts": [{"shape": "point", "mass": 0.01, "at": 0.05, "count": 2.5}]}},
+                    ["wheel.parts[0].count"]),
+    "string_seed": ({"trial": {"seed": "seven"}}, ["trial.seed"]),
+    "negative_seed": ({"trial": {"seed": -1}}, ["trial.seed"]),
+    "push_after_end": ({"trial": {"pushes": [{"at": 5.0, "impulse": 0.01}]}}, ["trial.pushes"]),
+    "parts_not_list": ({"body": {"parts": {"shape": "point", "mass": 0.1}}}, ["body.parts", "list"]),
+    "too_many_parts": ({"body": {"parts": [{"shape": "point", "mass": 0.001, "at": 0.1} for _ in range(201)]}},
+                       ["body.parts"]),
+    "long_unit_string": ({"drive": {"supply": "1" * 300 + " V"}}, ["drive.supply", "characters"]),
+}
+
+
+def _pairs(cases: dict, sample: set[str]) -> list:
+    """Every case on `validate` and `run`; a sample of them on the other commands.
+
+    The loader is shared, so the full list on two commands checks the messages; the sample on
+    the rest checks that each command loads (and fails) before it does anything else.
+    """
+    full = {"validate", "run"}
+    return [pytest.param(cmd, case, id=f"{case}-{cmd}") for cmd in sorted(COMMANDS) for case in sorted(cases)
+            if cmd in full or case in sample]
+
+
+@pytest.mark.parametrize("command,case", _pairs(KEY_CASES, {"wrong_unit", "unknown_nested_key",
+                                                            "missing_plugin_file", "absurd_steps"}))
+def test_bad_key(capsys, tmp_path, command, case):
+    sections, fragments = KEY_CASES[case]
+    mapping = scenario_dict(**{k: v for k, v in sections.items() if k in ("strategy",)})
+    for key, value in sections.items():
+        if key == "strategy":
+            continue
+        if isinstance(value, dict) and isinstance(mapping.get(key), dict):
+            mapping[key] = {**mapping[key], **value}
+        else:
+            mapping[key] = value
+    if case == "missing_required":
+        del mapping["motor"]["resistance"]
+    path = write_scenario(tmp_path / "bad.yaml", mapping)
+    out = tmp_path / "out"
+    code, _, err = run_cli(capsys, COMMANDS[command](path, out))
+    assert_rejected(code, err, names=[str(path), *fragments], out=out)
+
+
+# --------------------------------------------------------------------- --set, options, --out
+
+SET_CASES = {
+    "no_equals": ("drive.supply", ["--set 'drive.supply'", "key.path=value"]),
+    "empty_key": ("=3", ["--set '=3'", "empty key path"]),
+    "double_dot": ("drive..supply=3", ["malformed key path"]),
+    "index_first": ("[0]=1", ["malformed key path"]),
+    "index_out_of_range": ("wheel.parts[99].mass=3", ["wheel.parts[99]", "no such list item"]),
+    "into_scalar": ("drive.supply.x=1", ["drive.supply.x", "not a mapping"]),
+    "unclosed_value": ("drive.supply=[1, 2", ["--set 'drive.supply=[1, 2'", "not readable"]),
+    "object_tag": ("drive.supply=!!python/name:os.system", ["not readable"]),
+    "out_of_range_value": ("drive.supply=-3", ["drive.supply", "greater than"]),
+    "unknown_key": ("drive.suply=3", ["drive.suply", "did you mean 'supply'"]),
+    "wrong_unit": ("drive.supply=3 m", ["drive.supply", "voltage"]),
+    "self_alias": ("drive.supply=&a [*a]", ["drive.supply"]),
+}
+
+
+@pytest.mark.parametrize("command,case", _pairs(SET_CASES, {"no_equals", "index_out_of_range", "wrong_unit"}))
+def test_bad_set(capsys, tmp_path, scenario_file, command, case):
+    text, fragments = SET_CASES[case]
+    out = tmp_path / "out"
+    argv = COMMANDS[command](scenario_file, out) + ["--set", text]
+    code, _, err = run_cli(capsys, argv)
+    assert_rejected(code, err, names=[str(scenario_file), *fragments], out=out)
+
+
+@pytest.mark.parametrize("seed", ["-1", str(2**64)])
+def test_bad_seed(capsys, tmp_path, scenario_file, seed):
+    out = tmp_path / "out"
+    code, _, err = run_cli(capsys, ["run", str(scenario_file), "--out", str(out), "--seed", seed])
+    assert_rejected(code, err, names=["--seed"], out=out)
+
+
+def test_out_is_a_file(capsys, tmp_path, scenario_file):
+    target = tmp_path / "results.txt"
+    target.write_text("mine\n")
+    code, _, err = run_cli(capsys, ["run", str(scenario_file), "--out", str(target)])
+    assert_rejected(code, err, names=["--out", str(target), "not a folder"])
+    assert target.read_text() == "mine\n"
+
+
+@pytest.mark.parametrize("command", sorted(set(COMMANDS) & {"run", "check", "sweep", "catch-map"}))
+def test_out_is_someone_elses_folder(capsys, tmp_path, scenario_file, command):
+    out = tmp_path / "thesis"
+    out.mkdir()
+    (out / "chapter1.tex").write_text("years of work\n")
+    code, _, err = run_cli(capsys, COMMANDS[command](scenario_file, out))
+    assert_rejected(code, err, names=["--out", str(out), "--force"])
+    assert sorted(p.name for p in out.iterdir()) == ["chapter1.tex"]
+    assert (out / "chapter1.tex").read_text() == "years of work\n"
+
+
+def test_unknown_option_is_a_usage_error(capsys, tmp_path, scenario_file):
+    code, _, err = run_cli(capsys, ["run", str(scenario_file), "--outt", str(tmp_path / "o")])
+    assert code == 2 and "Traceback" not in err and "--outt" in err
+    assert not (tmp_path / "o").exists()
+
+
+# --------------------------------------------------------------------- as a user runs it
+
+@pytest.mark.parametrize("name", ["deep_nesting.yaml", "tag_apply.yaml"])
+def test_console_script_gives_one_line(tmp_path, name):
+    """Through a real process: no traceback, no banner, one line, exit 2, nothing written."""
+    path = HERE / name
+    out = tmp_path / "out"
+    proc = subprocess.run([sys.executable, "-m", "sim.cli", "run", str(path), "--out", str(out)],
+                          capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 2, proc.stderr
+    assert proc.stderr.count("\n") == 1 and proc.stderr.startswith(f"wheelbench: {path}: "), proc.stderr
+    assert proc.stdout == ""
+    assert not out.exists()
