@@ -123,7 +123,7 @@ def fit_figure(result: FitResult):
     axr.axhline(0.0, color=ACCENT, lw=0.8)
     unit = p["label"].rpartition("[")[2].rstrip("]") if "[" in p["label"] else ""
     axr.set_ylabel(f"residual [{unit}]" if unit else "residual")
-    axr.set_xlabel("time [s]")
+    axr.set_xlabel("time from the log's first sample [s]")
     for a in (ax, axr):
         a.grid(True, color="#dde3e8", lw=0.6)
         a.spines[["top", "right"]].set_visible(False)

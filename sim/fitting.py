@@ -62,24 +62,32 @@ def fit_log(log, test: str, *, scenario=None) -> FitResult:
     scenario : a validated `Scenario` giving the figures a fit cannot measure (m g d, the wheel's
         inertia, friction), or None.
 
+    Times in the result (facts, plot) count from the log's first sample, whose logged time is
+    `facts["log_start_s"]`: a log stamped in seconds since 1970 keeps full precision that way.
+
     Raises
     ------
     InputError : a missing column, too few cycles, a log that does not look like the test.
     """
+    from dataclasses import replace
+
+    if test not in TESTS:
+        raise InputError(f"--test: unknown test {test!r}; known: {', '.join(TESTS)}")
     device = None
     if scenario is not None:
         from .device import Device
         device = Device.from_scenario(scenario)
+    start = float(log.t_s[0])
+    log = replace(log, t_s=log.t_s - start)
     if test == "free-swing":
-        from .fit_swing import fit_free_swing
-        return fit_free_swing(log, device=device, scenario=scenario)
-    if test == "spin-up":
-        from .fit_wheel import fit_spin_up
-        return fit_spin_up(log, device=device, scenario=scenario)
-    if test == "coast-down":
-        from .fit_wheel import fit_coast_down
-        return fit_coast_down(log, device=device, scenario=scenario)
-    raise InputError(f"--test: unknown test {test!r}; known: {', '.join(TESTS)}")
+        from .fit_swing import fit_free_swing as fit
+    elif test == "spin-up":
+        from .fit_wheel import fit_spin_up as fit
+    else:
+        from .fit_wheel import fit_coast_down as fit
+    result = fit(log, device=device, scenario=scenario)
+    result.facts["log_start_s"] = start
+    return result
 
 
 # ----------------------------------------------------------------------------- shared helpers

@@ -315,6 +315,17 @@ def test_coast_down_recovers_bearing_friction():
 
 # ----------------------------------------------------------------------------- logs that do not fit the test
 
+def test_times_stamped_since_1970_keep_their_precision():
+    # the same spin-up stamped with an epoch offset: times near 1.7e9 s must not spoil the fit
+    plain = spin_up_log()
+    stamped = BenchLog("epoch.csv", plain.t_s + 1.7e9, plain.columns, plain.source_names)
+    a, b = fit_log(plain, "spin-up"), fit_log(stamped, "spin-up")
+    for key in ("time_constant_s", "back_emf_constant_v_s_per_rad", "resistance_ohm"):
+        assert_allclose(b.value(key), a.value(key), rtol=1e-6)
+    assert_allclose(b.facts["log_start_s"] - a.facts["log_start_s"], 1.7e9, rtol=1e-15)
+    assert_allclose(b.facts["step_time_s"], a.facts["step_time_s"], atol=1e-6)
+
+
 def test_wrong_logs_raise_clear_errors():
     flat = BenchLog("flat.csv", np.linspace(0, 5, 500), {"angle_rad": np.full(500, math.pi) +
                                                           np.random.default_rng(1).normal(0, 1e-3, 500)},
