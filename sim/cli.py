@@ -146,12 +146,15 @@ ClusterOpt = typer.Option(None, "--cluster", help="Address of a running dask.dis
 ForceOpt = typer.Option(False, "--force", help="Write into a non-empty folder not made by wheelbench.")
 
 
-def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers: Optional[int] = None):
+def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers: Optional[int] = None,
+              cluster: Optional[str] = None):
     """The raw scenario mapping (re-validated per trial by check, sweep and catch-map), options checked first."""
     from .errors import InputError
     from .tolerances import load_raw
     if workers is not None and workers < 1:
         raise InputError(f"--workers: expected at least 1, found {workers}")
+    if workers is not None and cluster is not None:
+        raise InputError("--workers and --cluster: give one (the cluster's scheduler decides its workers)")
     raw, where = load_raw(scenario, tuple(overrides or ()))
     from .scenario import validate_scenario
     validate_scenario(raw, where=where)  # bad input fails here, before an --out folder is made
@@ -180,7 +183,7 @@ def check(scenario: Optional[Path] = ScenarioArg,
     from .scenario import validate_scenario
     from .verdict_report import print_verdict, write_check_outputs
     from .verdicts import DEFAULT_TRIALS, run_check
-    raw, where = _load_raw(scenario, set_, workers)
+    raw, where = _load_raw(scenario, set_, workers, cluster)
     validate_scenario(raw, where=where)
     n = DEFAULT_TRIALS if trials is None else trials
     if n < 1:
@@ -212,7 +215,7 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
     from .outputs import prepare_out_dir
     from .plots import save_figure
     from .sweep import parse_vary, run_sweep, sweep_figure
-    raw, where = _load_raw(scenario, set_, workers)
+    raw, where = _load_raw(scenario, set_, workers, cluster)
     varies = [parse_vary(v) for v in vary]
     out_dir = prepare_out_dir(out, force=force)
     bar, update = _progress("sweep")
@@ -241,7 +244,7 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
     from .errors import InputError
     from .outputs import prepare_out_dir
     from .units import parse_quantity
-    raw, where = _load_raw(scenario, set_, workers)
+    raw, where = _load_raw(scenario, set_, workers, cluster)
     limits = []
     for name, text, kind in (("--angle-max", angle_max, "angle"), ("--rate-max", rate_max, "angular_speed")):
         try:
