@@ -374,15 +374,18 @@ def test_round_trip_engine_coast_down(tmp_path):
     assert_allclose(res.value("bearing_viscous_n_m_s_per_rad"), 5e-6, rtol=1e-3)
 
 
-@pytest.mark.parametrize("current_limit", [None, 1.5])
-def test_round_trip_engine_spin_up(tmp_path, current_limit):
-    # with a 1.5 A limit the drive holds the current flat for the first ~0.3 s; the fit must leave that out
+@pytest.mark.parametrize("current_limit, correction", [(None, 0.0), (1.5, 3e-5)])
+def test_round_trip_engine_spin_up(tmp_path, current_limit, correction):
+    # with a 1.5 A limit the drive holds the current flat for the first ~0.3 s; the fit must leave that
+    # out. A wheel.inertia_correction must reach the engine and come back from the fit.
     motor = {"current_limit": current_limit} if current_limit else {}
-    sc = make_scenario(body={"locked": True}, wheel={"bearing_friction": {"coulomb": 3e-4, "viscous": 1e-6}},
+    sc = make_scenario(body={"locked": True}, wheel={"bearing_friction": {"coulomb": 3e-4, "viscous": 1e-6},
+                                                     "inertia_correction": correction},
                        motor=motor, strategy={"kind": "fixed_voltage", "volts": 6.0}, trial={"duration": 1.5})
     dev = Device.from_scenario(sc)
     res = fit_log(_engine_log(tmp_path, sc), "spin-up", scenario=sc)
     assert ("current_limited_s" in res.facts) == bool(current_limit)
+    assert_allclose(res.patch["wheel"]["inertia_correction"], correction, atol=5e-3 * dev.I_w_kg_m2)
     assert_allclose(res.value("back_emf_constant_v_s_per_rad"), dev.k_e_v_s_rad, rtol=1e-4)
     # the engine's mid-step back-EMF (sim/motor.py) makes the logged current read as R (1 + dt / (2 tau)):
     # 0.2% here, inside the 0.5% allowed
