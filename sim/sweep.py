@@ -68,11 +68,13 @@ def parse_vary(text: str) -> Vary:
 
 
 def _range_values(m, where: str) -> list:
-    from .units import registry
+    from .units import powers_are_small, registry
     n = int(m.group("n"))
     if not 1 <= n <= 100_000:
         raise InputError(f"{where}: N must be from 1 to 100000, found {n}")
     try:
+        if not all(powers_are_small(m.group(g)) for g in ("lo", "hi")):
+            raise ValueError("a power too large to evaluate")  # pint would compute 10**10**10 exactly
         lo, hi = (registry().Quantity(m.group(g).strip()) for g in ("lo", "hi"))
         hi = hi.to(lo.units)
     except Exception:  # pint raises many kinds for unreadable or mismatched text
@@ -243,16 +245,17 @@ def run_sweep(raw: dict, where: str, varies: list[Vary], out_dir: Path, *, trial
     journal_path, csv_path = out_dir / JOURNAL, out_dir / RESULTS
     rows = read_journal(journal_path, spec)
     total = int(np.prod([len(v.values) for v in varies]))
-    write_results_csv(csv_path, varies, rows)
     tasks = ((i, {"raw": raw, "where": where, "index": i, "trials": trials,
                   "assign": [(v.key, v.path, x) for v, x in zip(varies, point_values(varies, i))]})
              for i in range(total) if i not in rows)
+    results = run_tasks(point_task, tasks, workers=workers, cluster=cluster)   # connects before files are written
+    write_results_csv(csv_path, varies, rows)
     journal = Journal(journal_path, spec)
     last_csv = time.monotonic()
     try:
         if on_progress:
             on_progress(len(rows), total)
-        for index, row in run_tasks(point_task, tasks, workers=workers, cluster=cluster):
+        for index, row in results:
             journal.add(index, row)
             rows[index] = clean_json(row)
             if on_progress:

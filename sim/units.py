@@ -79,7 +79,7 @@ def _parse_string(text: str, unit: str, label: str) -> float:
         if unit:
             raise ValueError(f"expected {label} in {unit}, found a percentage {text!r}")
         return number
-    if not _powers_are_small(text):
+    if not powers_are_small(text):
         raise ValueError(f"expected {label}, found {text!r} (powers must be plain numbers up to "
                          f"{MAX_POWER}, at most {MAX_POWERS} of them)")
     import pint
@@ -105,7 +105,7 @@ _CHAINED = re.compile(r"\s*(\*\*|\^)")
 _EXPONENT = re.compile(r"\s*\(?\s*([-+]?\d+(?:\.\d+)?)\s*\)?")
 
 
-def _powers_are_small(text: str) -> bool:
+def powers_are_small(text: str) -> bool:
     """True when every power in `text` has a plain-number exponent of at most MAX_POWER."""
     ops = list(_POWER_OP.finditer(text))
     if len(ops) > MAX_POWERS:

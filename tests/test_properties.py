@@ -1,0 +1,168 @@
+"""Property-based tests (hypothesis) of the scenario loader and the --set / --vary parsers.
+
+The property: any input either loads to a valid scenario or raises our ScenarioError /
+InputError; never another exception (house style, "Check input once, at load"). Example counts
+are kept modest for CI time; hypothesis shrinks any failure to a small reproducer.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+
+import pytest
+from hypothesis import HealthCheck, assume, given, settings
+from hypothesis import strategies as st
+
+from conftest import scenario_dict
+from sim.errors import InputError, ScenarioError
+from sim.overrides import apply_overrides, parse_assignment
+from sim.scenario import Scenario, parse_yaml_text, validate_scenario
+from sim.units import KINDS, parse_quantity
+
+SETTINGS = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+
+UNIT_WORDS = ["V", "mV", "kg", "g", "mm", "m", "s", "ms", "Hz", "rpm", "rpm/V", "deg", "rad", "rad/s",
+              "N*m", "mN*m", "ohm", "A", "mH", "kg*m^2", "%", "m/s^2", "furlong", "", "**", "^", "/"]
+KEYS = ["name", "world", "step", "gravity", "body", "parts", "shape", "mass", "at", "wheel", "motor",
+        "speed_constant", "resistance", "drive", "supply", "sensors", "rate", "delay", "strategy", "kind",
+        "plugin", "trial", "duration", "pushes", "seed", "count", "material", "x", "", "1"]
+
+numbers = st.one_of(st.integers(-10**20, 10**20), st.floats(allow_nan=True, allow_infinity=True))
+unit_strings = st.builds(lambda n, u: f"{n} {u}".strip(), numbers, st.sampled_from(UNIT_WORDS))
+scalars = st.one_of(st.none(), st.booleans(), numbers, unit_strings, st.text(max_size=12))
+values = st.recursive(
+    scalars,
+    lambda inner: st.one_of(st.lists(inner, max_size=4),
+                            st.dictionaries(st.sampled_from(KEYS), inner, max_size=4)),
+    max_leaves=12,
+)
+
+
+def _paths(node, prefix=()):
+    """Every key path inside a raw scenario mapping (dict keys and list indices)."""
+    yield prefix
+    if isinstance(node, dict):
+        for k, v in node.items():
+            yield from _paths(v, prefix + (k,))
+    elif isinstance(node, list):
+        for i, v in enumerate(node):
+            yield from _paths(v, prefix + (i,))
+
+
+BASE = scenario_dict(strategy={"kind": "lqr"})
+BASE_PATHS = [p for p in _paths(BASE) if p]
+
+
+def _loads_or_scenario_error(raw) -> None:
+    try:
+        sc = validate_scenario(raw, where="<property>")
+    except ScenarioError as exc:
+        assert str(exc).startswith("<property>: ") and "\n" not in str(exc)
+        return
+    assert isinstance(sc, Scenario)
+    assert math.isfinite(sc.world.step) and sc.world.step > 0 and sc.n_steps >= 1
+
+
+@SETTINGS
+@given(path=st.sampled_from(BASE_PATHS), value=values)
+def test_any_value_anywhere_loads_or_is_a_scenario_error(path, value):
+    raw = copy.deepcopy(BASE)
+    node = raw
+    for key in path[:-1]:
+        node = node[key]
+    node[path[-1]] = value
+    _loads_or_scenario_error(raw)
+
+
+@SETTINGS
+@given(section=st.sampled_from(sorted(BASE)), key=st.sampled_from(KEYS), value=values)
+def test_any_key_added_loads_or_is_a_scenario_error(section, key, value):
+    raw = copy.deepcopy(BASE)
+    if isinstance(raw[section], dict):
+        raw[section][key] = value
+    else:
+        raw[key] = value
+    _loads_or_scenario_error(raw)
+
+
+@SETTINGS
+@given(raw=st.dictionaries(st.sampled_from(KEYS), values, max_size=6))
+def test_any_mapping_loads_or_is_a_scenario_error(raw):
+    _loads_or_scenario_error(raw)
+
+
+YAML_BITS = ["a: 1\n", "- x\n", "&a [1]\n", "*a\n", "!!python/object:os.system\n", "{", "}", "[", "]", ": ",
+             "\t", "'", '"', "? ", "---\n", "...\n", "<<: *a\n", "!tag ", "%YAML 1.1\n", "\x00", "\ufeff", "#"]
+
+
+@SETTINGS
+@given(text=st.one_of(st.text(max_size=80), st.lists(st.sampled_from(YAML_BITS), max_size=12).map("".join)))
+def test_any_text_parses_or_is_a_scenario_error(text):
+    try:
+        parsed = parse_yaml_text(text, where="<text>")
+    except ScenarioError:
+        return
+    if isinstance(parsed, dict):
+        _loads_or_scenario_error(parsed)
+
+
+@SETTINGS
+@given(value=st.one_of(scalars, unit_strings, st.text(alphabet="0123456789.eE+-*/^() VmskgHzrpd%", max_size=24)),
+       kind=st.sampled_from(sorted(KINDS)))
+def test_parse_quantity_returns_a_finite_float_or_value_error(value, kind):
+    try:
+        q = parse_quantity(value, kind)
+    except ValueError:
+        return
+    assert isinstance(q, float) and math.isfinite(q)
+
+
+set_texts = st.one_of(
+    st.text(max_size=40),
+    st.builds(lambda p, v: f"{p}={v}",
+              st.lists(st.one_of(st.sampled_from(KEYS), st.integers(0, 3).map(lambda i: f"[{i}]")),
+                       min_size=1, max_size=4).map(lambda parts: ".".join(parts).replace(".[", "[")),
+              st.one_of(unit_strings, st.text(max_size=12), st.sampled_from(["[1, 2", "{a: 1}", "&a [*a]", "!!x 1"]))),
+)
+
+
+@SETTINGS
+@given(text=set_texts)
+def test_set_parses_applies_and_loads_or_is_a_scenario_error(text):
+    try:
+        parse_assignment(text)
+        raw = apply_overrides(BASE, [text], where="<property>")
+    except ScenarioError as exc:
+        assert "\n" not in str(exc)
+        return
+    _loads_or_scenario_error(raw)
+
+
+@SETTINGS
+@given(text=st.one_of(
+    st.text(max_size=40),
+    st.builds(lambda k, lo, hi, n: f"{k}={lo}..{hi}:{n}", st.sampled_from(["drive.supply", "a..b", "x[0]", ""]),
+              unit_strings, unit_strings, st.one_of(st.integers(-5, 300), st.just(100_001))),
+    st.builds(lambda k, items: f"{k}=" + ",".join(items), st.sampled_from(["drive.supply", "trial.seed"]),
+              st.lists(st.one_of(unit_strings, st.text(max_size=6)), max_size=4)),
+))
+def test_vary_parses_or_is_an_input_error(text):
+    sweep = pytest.importorskip("sim.sweep")
+    try:
+        vary = sweep.parse_vary(text)
+    except InputError as exc:  # ScenarioError is an InputError
+        assert "\n" not in str(exc)
+        return
+    assert 1 <= len(vary.values) <= 100_000
+    assume(len(vary.values) <= 3)
+    for value in vary.values:  # each point goes through the loader like a --set
+        raw = copy.deepcopy(BASE)
+        node = raw
+        try:
+            for key in vary.path[:-1]:
+                node = node.setdefault(key, {}) if isinstance(key, str) else node[key]
+            node[vary.path[-1]] = value
+        except (TypeError, IndexError, KeyError):
+            continue  # the path does not fit this scenario: the sweep reports that per point
+        _loads_or_scenario_error(raw)
