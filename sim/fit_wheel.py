@@ -76,6 +76,7 @@ def fit_spin_up(log, *, device=None, scenario=None) -> FitResult:
         res.notes.append(f"The drive held the current at its limit for {ts[k]:.3g} s after the step; those samples are "
                          "left out (the response is first order only once the limit lets go).")
         res.facts["current_limited_s"] = float(ts[k])
+        res.facts["samples_used"] = int(len(ts) - k)
     expo = _fit_exponential(ts[k:], ws[k:], where=where)
     w_inf, tau = expo["w_inf"], expo["tau"]
     if ts[-1] < MIN_TIME_CONSTANTS * tau:
@@ -194,8 +195,8 @@ def _wheel_inertia(res, device, scenario, k_e, r_ohm, tau) -> None:
         rel.append(res.values["resistance_ohm"][1] / r_ohm)
     res.put("wheel_spin_inertia_kg_m2", inertia, ratio_sigma(inertia, *rel))
     res.facts["model_wheel_spin_inertia_kg_m2"] = device.I_w_kg_m2
-    if r_ohm is None:
-        res.notes.append(f"The wheel's inertia uses the scenario's resistance ({r_used:.4g} ohm), taken as exact.")
+    res.notes.append("The wheel's inertia takes k_t = k_e (ideal motor)" + (
+        "." if r_ohm is not None else f" and the scenario's resistance ({r_used:.4g} ohm), taken as exact."))
     res.patch.setdefault("wheel", {})["inertia_correction"] = (scenario.wheel.inertia_correction
                                                                + inertia - device.I_w_kg_m2)
 
