@@ -34,17 +34,17 @@ def run_tasks(fn: Callable[[Any], Any], tasks: Iterable[tuple[int, Any]], *, wor
     workers : local worker processes; 1 runs in this process; None means all cores.
     cluster : a dask.distributed scheduler address (str) or Client; overrides `workers`.
     """
+    # Not a generator itself: bad options and an unreachable scheduler fail here, before a caller
+    # writes anything; the work starts when the returned iterator is first read.
     if cluster is not None:
-        yield from _run_dask(fn, tasks, cluster)
-        return
+        client, own = _connect(cluster)
+        return _run_dask(fn, tasks, client, own)
     workers = default_workers() if workers is None else workers
     if workers < 1:
         raise InputError(f"--workers: expected at least 1, found {workers}")
     if workers == 1:
-        for index, payload in tasks:
-            yield index, fn(payload)
-        return
-    yield from _run_pool(fn, tasks, workers)
+        return ((index, fn(payload)) for index, payload in tasks)
+    return _run_pool(fn, tasks, workers)
 
 
 def _warm_imports() -> None:
@@ -92,19 +92,22 @@ def _run_pool(fn, tasks, workers: int):
                 fut.cancel()
 
 
-def _run_dask(fn, tasks, cluster):
+def _connect(cluster):
+    """(client, owned): a new Client for an address (ours to close), or the caller's Client."""
     try:
-        from distributed import Client, as_completed
+        from distributed import Client
     except ImportError:
         raise InputError("--cluster needs dask.distributed: pip install 'wheelbench[cluster]'") from None
-    own = isinstance(cluster, str)
-    if own:
-        try:
-            client = Client(cluster, timeout="10s")
-        except OSError as exc:
-            raise InputError(f"--cluster {cluster}: cannot reach the scheduler ({exc})") from None
-    else:
-        client = cluster
+    if not isinstance(cluster, str):
+        return cluster, False
+    try:
+        return Client(cluster, timeout="10s"), True
+    except OSError as exc:
+        raise InputError(f"--cluster {cluster}: cannot reach the scheduler ({exc})") from None
+
+
+def _run_dask(fn, tasks, client, own: bool):
+    from distributed import as_completed
     try:
         width = max(1, sum(client.nthreads().values())) * IN_FLIGHT_PER_WORKER
         source = iter(tasks)
