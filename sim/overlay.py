@@ -165,6 +165,7 @@ class Dashboard:
         self.f_small = _font(int(0.11 * u))
         self.f_tag = _font(int(0.12 * u), bold=True)
         self.label = label
+        self._chips = {}
         self.panel = Image.new("RGB", (width, height - lay.top), PANEL[:3])
         d = ImageDraw.Draw(self.panel)
         d.rectangle([0, 0, width, max(1, int(u) // 40)], fill=RULE)
@@ -206,17 +207,17 @@ class Dashboard:
         lay, pad = self.lay, int(0.03 * self.width)
         d.text(lay.clock, f"{r.t_s:5.2f} s", font=self.f_big, fill=TEXT, anchor="lt")
         if r.phase:
-            self._tag(d, lay.phase, r.phase, fill=(40, 56, 72), ink=TEXT)
+            self._tag(img, lay.phase, r.phase, fill=(40, 56, 72), ink=TEXT)
         needle, read_back = self._dial(d, r)
         self._bar(d, 0, r.voltage_v, r.supply_v, VOLT, f"{r.voltage_v:+.2f} V / {r.supply_v:.0f}")
         self._bar(d, 1, r.current_a, r.current_limit_a, CURR, f"{r.current_a:+.2f} A / {r.current_limit_a:.1f}")
         y = self.top - int(0.06 * lay.unit)
         for note in r.notes:  # stacked upwards from the panel's top edge, right-aligned
-            y = self._tag(d, (self.width - pad, y), note.upper(), fill=WARN, ink=(255, 246, 240), right=True, up=True)
+            y = self._tag(img, (self.width - pad, y), note.upper(), fill=WARN, ink=(255, 246, 240), right=True, up=True)
         if self.label:
-            self._tag(d, (pad, int(0.04 * self.height)), self.label, fill=PANEL[:3], ink=TEXT)
+            self._tag(img, (pad, int(0.04 * self.height)), self.label, fill=PANEL[:3], ink=TEXT)
         if r.push_n_m_s is not None:
-            self._push(d, r, push_arrow)
+            self._push(img, d, r, push_arrow)
         return np.asarray(img), Drawn(r, needle, read_back, r.notes)
 
     def _dial(self, d, r: Readout) -> tuple[float, float]:
@@ -252,19 +253,35 @@ class Dashboard:
         d.rectangle([min(mid, end), y, max(mid, end), y + h], fill=WARN if at_edge else colour)
         d.text((x1, y - 0.1 * self.lay.unit), text, font=self.f_small, fill=TEXT, anchor="rs")
 
-    def _tag(self, d, xy, text: str, *, fill, ink, right: bool = False, up: bool = False) -> int:
-        """A rounded chip with text; returns the y where the next stacked chip goes."""
+    def _tag(self, img, xy, text: str, *, fill, ink, right: bool = False, up: bool = False) -> int:
+        """A rounded chip with text; returns the y where the next stacked chip goes.
+
+        Chips repeat from frame to frame (phase, notes, label), so each is drawn once and reused.
+        """
+        chip = self._chips.get((text, fill, ink))
+        if chip is None:
+            chip = self._chips[(text, fill, ink)] = self._make_chip(text, fill, ink)
         x, y = xy
-        box = d.textbbox((0, 0), text, font=self.f_tag)
+        w, h = chip.size
+        x0 = x - w if right else x
+        y0 = y - h if up else y
+        img.paste(chip, (int(x0), int(y0)), chip)
+        gap = max(2, h // 6)
+        return y0 - gap if up else y0 + h + gap
+
+    def _make_chip(self, text: str, fill, ink):
+        from PIL import Image, ImageDraw
+
+        box = self.f_tag.getbbox(text)
         w, h = box[2] - box[0], box[3] - box[1]
         px, py = int(0.5 * h) + 2, int(0.35 * h) + 2
-        x0 = x - w - 2 * px if right else x
-        y0 = y - h - 2 * py if up else y
-        d.rounded_rectangle([x0, y0, x0 + w + 2 * px, y0 + h + 2 * py], radius=h // 2 + py, fill=fill)
-        d.text((x0 + px - box[0], y0 + py - box[1]), text, font=self.f_tag, fill=ink)
-        return y0 - py if up else y0 + h + 3 * py
+        chip = Image.new("RGBA", (w + 2 * px, h + 2 * py), (0, 0, 0, 0))
+        cd = ImageDraw.Draw(chip)
+        cd.rounded_rectangle([0, 0, w + 2 * px - 1, h + 2 * py - 1], radius=h // 2 + py, fill=tuple(fill) + (255,))
+        cd.text((px - box[0], py - box[1]), text, font=self.f_tag, fill=tuple(ink) + (255,))
+        return chip
 
-    def _push(self, d, r: Readout, arrow) -> None:
+    def _push(self, img, d, r: Readout, arrow) -> None:
         fade = 1.0 - r.push_age_s / PUSH_SHOWN_S
         if arrow is not None:
             (x0, y0), (x1, y1) = arrow
@@ -276,5 +293,5 @@ class Dashboard:
                        (x1 - s * math.cos(ang + 0.45), y1 - s * math.sin(ang + 0.45))], fill=PUSH)
         text = f"push {r.push_n_m_s * 1000:+.1f} mN m s"
         # bottom left, above the panel: clear of the device's upper half and of the limit notes (right)
-        self._tag(d, (int(0.03 * self.width), self.top - int(0.06 * self.lay.unit)), text, fill=PUSH,
+        self._tag(img, (int(0.03 * self.width), self.top - int(0.06 * self.lay.unit)), text, fill=PUSH,
                   ink=(16, 24, 34), up=True)

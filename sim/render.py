@@ -193,6 +193,18 @@ def _wheel_pieces(parts, wheel_r: float) -> tuple[list, float]:
     return pieces, thick
 
 
+def _bounding_radius(geom) -> float:
+    """Radius of a sphere about a piece's centre that holds it, m."""
+    kind = geom[0]
+    if kind == "box":
+        return float(np.linalg.norm(geom[1]))
+    if kind == "cyl":
+        return math.hypot(geom[1], geom[2] / 2)
+    if kind == "ring":
+        return math.hypot(geom[1], geom[3] / 2)
+    return geom[1]
+
+
 def ring_mesh(outer: float, inner: float, thickness: float, segments: int = 48):
     """Vertices, triangle indices and normals of an annular prism with its axis along x, m."""
     a = np.linspace(0.0, 2 * math.pi, segments, endpoint=False)
@@ -281,16 +293,14 @@ class Camera:
         proj = import_pybullet().computeProjectionMatrix(*frustum, near, far)
         return cls(width, height, tuple(view), tuple(proj), tuple(frustum), near, far)
 
-    def top_rows(self, rows: int) -> "Camera":
-        """The same view cut to its top `rows` pixel rows (an off-centre frustum): pixels stay square."""
+    def crop(self, x0: int, y0: int, x1: int, y1: int, *, scale: float = 1.0) -> "Camera":
+        """The same view cut to the pixel box [x0, x1) x [y0, y1) (an off-centre frustum), drawn at
+        `scale` times its pixel size. Pixels stay square; the crop lines up with the full frame."""
         left, right, bottom, top = self.frustum
-        cut_bottom = top - (top - bottom) * rows / self.height
-        return Camera._make(self.width, rows, self.view, (left, right, cut_bottom, top), self.near_m, self.far_m)
-
-    def scaled(self, scale: float) -> "Camera":
-        """The same view at `scale` times the pixel size."""
-        w, h = max(16, int(round(self.width * scale))), max(16, int(round(self.height * scale)))
-        return Camera._make(w, h, self.view, self.frustum, self.near_m, self.far_m)
+        sx, sy = (right - left) / self.width, (top - bottom) / self.height
+        frustum = (left + sx * x0, left + sx * x1, top - sy * y1, top - sy * y0)
+        w, h = max(1, int(round((x1 - x0) * scale))), max(1, int(round((y1 - y0) * scale)))
+        return Camera._make(w, h, self.view, frustum, self.near_m, self.far_m)
 
     def project(self, points) -> np.ndarray:
         """Pixel coordinates (column, row; row 0 at the top) of world points (N, 3), m."""
@@ -332,10 +342,14 @@ class Scene:
     scenario : a loaded scenario (its parts give the shapes, sizes and colours).
     width, height : frame size, pixels.
     camera : one of CAMERAS.
-    render_scale : the software renderer draws at this share of the frame size and the result
-        is scaled up (its cost grows with the pixels it fills; see benchmarks/render_speed.py).
+    render_scale : the moving parts are drawn at this share of the frame's resolution and scaled
+        up (the renderer's cost grows with the pixels it covers; see benchmarks/render_speed.py).
     scene_rows : draw only the top rows of the frame (the rest is left for an opaque panel);
         None draws the whole frame.
+
+    Both camera presets look from the +x side, where the moving parts always stand in front of
+    the stand (at -x) and above the floor, so a frame is the cached background with the moving
+    parts pasted over it, without a depth test.
     """
 
     def __init__(self, scenario, *, width: int, height: int, camera: str = "axis", render_scale: float = 1.0,
@@ -343,41 +357,37 @@ class Scene:
         from PIL import Image
 
         self.pb = import_pybullet()
+        self._Image = Image
         self.layout = Layout.from_scenario(scenario)
         self.rows = height if scene_rows is None else max(1, min(height, int(scene_rows)))
         self.camera = Camera.framing(self.layout, preset=camera, width=width, height=height,
                                      scene_share=SCENE_FRACTION if scene_rows is None else self.rows / height)
-        self._full = self.camera.top_rows(self.rows)
-        self._inner = self._full.scaled(render_scale)
-        self._Image = Image
-        self._background, self._bg_inner, self._bg_depth = self._draw_static()
+        self.scale = render_scale
+        self._background = self._draw_static()
+        self._bg_array = np.asarray(self._background)
         pb = self.pb
         self._cid = pb.connect(pb.DIRECT)
         self._ids = [pb.createMultiBody(0, -1, _visual_shape(pb, self._cid, pc.geom, pc.colour),
                                         physicsClientId=self._cid) for pc in self.layout.pieces]
+        self._radii = np.array([_bounding_radius(pc.geom) for pc in self.layout.pieces])
+        self._centres = np.zeros((len(self._ids), 3))
 
     def _draw_static(self):
-        """The static scene: a full-size picture (with shadows) and, at the renderer's size, its colour and depth."""
+        """The static scene at full size, with shadows, on a sky; rows below `rows` left dark."""
         pb, Image = self.pb, self._Image
+        full = self.camera.crop(0, 0, self.camera.width, self.rows)
         cid = pb.connect(pb.DIRECT)
         try:
             for geom, colour, pos, q in _static_pieces(self.layout):
                 pb.createMultiBody(0, -1, _visual_shape(pb, cid, geom, colour), list(pos), list(q), physicsClientId=cid)
-            full = self._with_sky(*self._snap(cid, self._full, shadow=True))
-            small, depth = full, None
-            if self._inner.width != self._full.width:
-                small = self._with_sky(*self._snap(cid, self._inner, shadow=True))
-            depth = self._snap(cid, self._inner, shadow=False)[1]
+            rgb, _, seg = self._snap(cid, full, shadow=True)
         finally:
             pb.disconnect(physicsClientId=cid)
-        frame = Image.new("RGB", (self.camera.width, self.camera.height), (16, 24, 34))
-        frame.paste(Image.fromarray(full), (0, 0))
-        return frame, small, depth
-
-    def _with_sky(self, rgb, depth, seg) -> np.ndarray:
         rows = np.arange(len(rgb))[:, None, None] / max(len(rgb) - 1, 1) * self.rows / self.camera.height
         sky = (SKY_TOP * (1 - rows) + SKY_BOTTOM * rows).astype(np.uint8)
-        return np.where((seg < 0)[..., None], sky, rgb)
+        frame = Image.new("RGB", (self.camera.width, self.camera.height), (16, 24, 34))
+        frame.paste(Image.fromarray(np.where((seg < 0)[..., None], sky, rgb)), (0, 0))
+        return frame
 
     def _snap(self, cid, cam: Camera, *, shadow: bool):
         _, _, rgba, depth, seg = self.pb.getCameraImage(
@@ -386,6 +396,16 @@ class Scene:
         shape = (cam.height, cam.width)
         return (np.asarray(rgba, dtype=np.uint8).reshape(shape + (4,))[..., :3],
                 np.asarray(depth, dtype=np.float32).reshape(shape), np.asarray(seg).reshape(shape))
+
+    def _moving_box(self) -> tuple[int, int, int, int] | None:
+        """Pixel box (x0, y0, x1, y1) holding every moving piece as posed, or None when off-frame."""
+        r = self._radii[:, None]
+        lo, hi = (self._centres - r).min(axis=0), (self._centres + r).max(axis=0)
+        corners = np.array([[x, y, z] for x in (lo[0], hi[0]) for y in (lo[1], hi[1]) for z in (lo[2], hi[2])])
+        px = self.camera.project(corners)
+        x0, x1 = max(0, int(px[:, 0].min()) - 2), min(self.camera.width, int(np.ceil(px[:, 0].max())) + 2)
+        y0, y1 = max(0, int(px[:, 1].min()) - 2), min(self.rows, int(np.ceil(px[:, 1].max())) + 2)
+        return (x0, y0, x1, y1) if x1 - x0 >= 2 and y1 - y0 >= 2 else None
 
     def wheel_centre(self, angle_rad: float) -> np.ndarray:
         """World position of the wheel's centre at body angle `angle_rad`, m."""
@@ -396,39 +416,41 @@ class Scene:
         """Place every moving piece for a body angle and a wheel angle (relative to the body), rad."""
         pb, cid = self.pb, self._cid
         hub = self.wheel_centre(angle_rad)
-        for body_id, pc in zip(self._ids, self.layout.pieces):
+        for i, (body_id, pc) in enumerate(zip(self._ids, self.layout.pieces)):
             if pc.link == "body":
                 a, origin = angle_rad + pc.psi, (0.0, 0.0, 0.0)
             else:
                 a, origin = angle_rad + wheel_angle_rad + pc.psi, (0.0, hub[1], hub[2])
             pos = (origin[0] + pc.x, origin[1] - pc.r * math.sin(a), origin[2] + pc.r * math.cos(a))
             pb.resetBasePositionAndOrientation(body_id, pos, _qmul(_qx(a), pc.q), physicsClientId=cid)
+            self._centres[i] = pos
 
     def draw_image(self, angle_rad: float, wheel_angle_rad: float):
         """One frame as a PIL RGB image of the frame's size; rows below `scene_rows` are left dark.
 
-        Only the box around the moving pieces is scaled up and laid over the full-size background,
-        with a soft mask, so the cost of scaling stays small.
+        Only the box around the moving pieces is rendered (the renderer's cost follows its pixel
+        count), scaled up when `render_scale` < 1 and laid over the background with a soft mask.
         """
         Image = self._Image
         self.pose(angle_rad, wheel_angle_rad)
-        rgb, depth, _ = self._snap(self._cid, self._inner, shadow=False)
-        near = depth < self._bg_depth
         frame = self._background.copy()
-        rows = np.flatnonzero(near.any(axis=1))
-        if rows.size == 0:
+        box = self._moving_box()
+        if box is None:
             return frame
-        cols = np.flatnonzero(near.any(axis=0))
-        r0, r1, c0, c1 = rows[0], rows[-1] + 1, cols[0], cols[-1] + 1
-        part = near[r0:r1, c0:c1]
-        crop = np.where(part[..., None], rgb[r0:r1, c0:c1], self._bg_inner[r0:r1, c0:c1])
-        crop_img, mask = Image.fromarray(crop), Image.fromarray(part.view(np.uint8) * 255)
-        sx, sy = self._full.width / self._inner.width, self._full.height / self._inner.height
-        x0, y0 = int(round(c0 * sx)), int(round(r0 * sy))
-        if sx != 1.0 or sy != 1.0:
-            size = (max(1, int(round(c1 * sx)) - x0), max(1, int(round(r1 * sy)) - y0))
-            crop_img, mask = crop_img.resize(size, Image.BILINEAR), mask.resize(size, Image.BILINEAR)
-        frame.paste(crop_img, (x0, y0), mask)
+        x0, y0, x1, y1 = box
+        cam = self.camera.crop(x0, y0, x1, y1, scale=self.scale)
+        rgb, _, seg = self._snap(self._cid, cam, shadow=False)
+        drawn = seg >= 0
+        size = (x1 - x0, y1 - y0)
+        bg = self._bg_array[y0:y1, x0:x1]
+        if (cam.width, cam.height) != size:
+            # fill the crop's empty pixels with the background first, so scaling leaves no fringe
+            bg = np.asarray(Image.fromarray(bg).resize((cam.width, cam.height), Image.BILINEAR))
+        crop = Image.fromarray(np.where(drawn[..., None], rgb, bg))
+        mask = Image.fromarray(drawn.view(np.uint8) * 255)
+        if crop.size != size:
+            crop, mask = crop.resize(size, Image.BILINEAR), mask.resize(size, Image.BILINEAR)
+        frame.paste(crop, (x0, y0), mask)
         return frame
 
     def draw(self, angle_rad: float, wheel_angle_rad: float) -> np.ndarray:

@@ -23,10 +23,10 @@ from .render import CAMERAS, Scene
 SUFFIXES = (".mp4", ".gif")
 DEFAULT_FPS = 30
 DEFAULT_SIZE = (960, 540)
-RENDER_PIXELS = 200_000
-"""The software renderer draws about this many pixels at most; larger frames are drawn smaller and
-scaled up. Its cost grows with the pixels it fills: at 960x540 this keeps rendering within the
-clip's own duration on one core (see benchmarks/render_speed.py)."""
+RENDER_PIXELS = 600_000
+"""Frames up to this many pixels have their moving parts drawn at full resolution; larger ones
+draw them smaller and scale up. The renderer's cost follows the pixels it covers (see
+benchmarks/render_speed.py for the time against the clip's duration at the default size)."""
 
 
 def render_scale_for(width: int, height: int) -> float:
