@@ -295,7 +295,7 @@ def _fmt(value, unit: str) -> str:
 def main(argv: Optional[list[str]] = None) -> int:
     """Entry point: our errors become one line on stderr and exit code 2."""
     try:
-        app(args=argv, standalone_mode=False)
+        code = app(args=argv, standalone_mode=False)
     except WheelbenchError as exc:
         print(f"wheelbench: {exc}", file=sys.stderr)
         return 2
@@ -316,7 +316,10 @@ def main(argv: Optional[list[str]] = None) -> int:
             print("wheelbench: aborted", file=sys.stderr)
             return 1
         raise
-    return 0
+    if code == 130:  # typer turns Ctrl-C into Exit(130) and, in this mode, returns the code
+        print("wheelbench: interrupted", file=sys.stderr)
+        return 130
+    return code if isinstance(code, int) and not isinstance(code, bool) else 0
 
 
 def _click_error_types() -> tuple[tuple, tuple]:

@@ -1,8 +1,11 @@
 """Writing results safely: atomic files, and output folders that never clobber a user's files.
 
-Every file is written to a temporary name in the same folder and renamed into place, so a
-reader (or an interrupted run) sees either the complete file or none. An output folder is ours
-when it holds our marker file; a non-empty folder without it is refused unless forced.
+Every file is written to a temporary name in the same folder, flushed to disk and renamed into
+place, so a reader (or an interrupted run) sees either the complete file or none. Temporary names
+carry the writer's process id; a run killed outright (SIGKILL, power loss) can leave one behind,
+hidden (leading dot), and the next run into that folder removes those of dead processes. An
+output folder is ours when it holds our marker file; a non-empty folder without it is refused
+unless forced, and nothing else in it is ever deleted.
 """
 
 from __future__ import annotations
@@ -10,6 +13,7 @@ from __future__ import annotations
 import json
 import math
 import os
+import re
 import tempfile
 from contextlib import contextmanager
 from pathlib import Path
@@ -17,6 +21,7 @@ from pathlib import Path
 from .errors import InputError
 
 MARKER = ".wheelbench-output"
+_TEMP = re.compile(r"^\.(?P<name>.+)\.(?P<pid>\d+)\.[A-Za-z0-9_]{8}\.tmp(\.[A-Za-z0-9]+)?$")
 
 
 def prepare_out_dir(path: str | Path, *, force: bool = False) -> Path:
@@ -38,17 +43,48 @@ def prepare_out_dir(path: str | Path, *, force: bool = False) -> Path:
             marker.write_text("This folder holds wheelbench output; wheelbench may replace its own files here.\n")
     except OSError as exc:
         raise InputError(f"--out {out}: cannot create ({exc.strerror or exc})") from None
+    remove_stale_temps(out)
     return out
+
+
+def remove_stale_temps(out: Path) -> list[Path]:
+    """Delete our temporary files left in `out` by processes that no longer run. Returns them."""
+    removed = []
+    for path in out.iterdir():
+        m = _TEMP.match(path.name)
+        if m and path.is_file() and not _alive(int(m.group("pid"))):
+            try:
+                path.unlink()
+                removed.append(path)
+            except OSError:  # gone already, or not ours to remove: leave it
+                pass
+    return removed
+
+
+def _alive(pid: int) -> bool:
+    if pid == os.getpid():
+        return True
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except (PermissionError, OSError, OverflowError):  # someone else's live process, or unknown: keep
+        return True
+    return True
 
 
 @contextmanager
 def atomic_path(path: str | Path):
-    """Yield a temporary path beside `path`; on success rename it onto `path`, else remove it."""
+    """Yield a temporary path beside `path`; on success flush it to disk and rename it onto
+    `path` (with the usual umask permissions, not mkstemp's owner-only ones), else remove it."""
     path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp" + path.suffix, dir=path.parent)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.{os.getpid()}.", suffix=".tmp" + path.suffix,
+                               dir=path.parent)
     os.close(fd)
     try:
         yield Path(tmp)
+        _sync(tmp)
+        os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, path)
     except BaseException:
         try:
@@ -56,6 +92,26 @@ def atomic_path(path: str | Path):
         except OSError:
             pass
         raise
+
+
+def _sync(path: str) -> None:
+    """fsync the file, so the rename never exposes a name whose data is not yet on disk."""
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+_UMASK: list[int] = []
+
+
+def _umask() -> int:
+    if not _UMASK:  # reading it means setting it: done once, early, from the writing thread
+        mask = os.umask(0o022)
+        os.umask(mask)
+        _UMASK.append(mask)
+    return _UMASK[0]
 
 
 def write_text(path: str | Path, text: str) -> None:

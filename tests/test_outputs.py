@@ -1,0 +1,152 @@
+"""Output safety: atomic files, folders that never clobber a user's files, interrupted runs.
+
+House style: "nothing half-written, nothing of the user's overwritten". The interruption test
+kills a real `wheelbench run` with SIGKILL at seeded random moments and checks that every file
+present is complete; SIGINT must clean up after itself.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import random
+import signal
+import subprocess
+import sys
+import time
+
+import pytest
+
+from conftest import scenario_dict, write_scenario
+from sim.errors import InputError
+from sim.outputs import MARKER, atomic_path, prepare_out_dir, remove_stale_temps, write_json, write_text
+
+TRACE_FIELDS = 13  # trace.csv columns (README "trace.csv")
+
+
+def test_atomic_path_keeps_the_old_file_when_writing_fails(tmp_path):
+    target = tmp_path / "metrics.json"
+    target.write_text("old\n")
+    with pytest.raises(RuntimeError):
+        with atomic_path(target) as tmp:
+            tmp.write_text("half of the new")
+            raise RuntimeError("disk full, say")
+    assert target.read_text() == "old\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["metrics.json"]
+
+
+def test_atomic_write_replaces_whole_and_uses_umask_permissions(tmp_path):
+    target = tmp_path / "a.txt"
+    write_text(target, "first\n")
+    write_text(target, "second\n")
+    assert target.read_text() == "second\n"
+    mask = os.umask(0o022)
+    os.umask(mask)
+    assert target.stat().st_mode & 0o777 == 0o666 & ~mask  # not mkstemp's owner-only 0600
+    assert [p.name for p in tmp_path.iterdir()] == ["a.txt"]
+
+
+def test_write_json_is_strict_json(tmp_path):
+    import numpy as np
+
+    write_json(tmp_path / "m.json", {"x_a": float("nan"), "y_v": np.float64(2.5), "n": np.int64(3),
+                                    "ok": np.bool_(True), "arr": np.array([1.0, np.inf])})
+    data = json.loads((tmp_path / "m.json").read_text())  # strict: no NaN/Infinity tokens
+    assert data == {"x_a": None, "y_v": 2.5, "n": 3, "ok": True, "arr": [1.0, None]}
+
+
+def test_out_folder_rules(tmp_path):
+    fresh = prepare_out_dir(tmp_path / "new" / "deeper")
+    assert (fresh / MARKER).exists()
+    assert prepare_out_dir(fresh) == fresh  # ours: reused
+    empty = tmp_path / "empty"
+    empty.mkdir()
+    prepare_out_dir(empty)  # empty: taken
+    foreign = tmp_path / "foreign"
+    foreign.mkdir()
+    (foreign / "notes.txt").write_text("mine")
+    with pytest.raises(InputError, match="--force"):
+        prepare_out_dir(foreign)
+    assert [p.name for p in foreign.iterdir()] == ["notes.txt"]
+    prepare_out_dir(foreign, force=True)
+    assert (foreign / "notes.txt").read_text() == "mine"
+    a_file = tmp_path / "file"
+    a_file.write_text("x")
+    with pytest.raises(InputError, match="not a folder"):
+        prepare_out_dir(a_file)
+
+
+def test_stale_temps_of_dead_writers_only_are_removed(tmp_path):
+    out = prepare_out_dir(tmp_path / "o")
+    dead = subprocess.Popen([sys.executable, "-c", "pass"])
+    dead.wait()
+    stale = out / f".trace.csv.{dead.pid}.abcd1234.tmp.csv"
+    live = out / f".trace.csv.{os.getpid()}.abcd1234.tmp.csv"
+    user = out / ".notes.tmp"
+    for p in (stale, live, user):
+        p.write_text("x")
+    assert remove_stale_temps(out) == [stale]
+    assert live.exists() and user.exists() and not stale.exists()
+
+
+# --------------------------------------------------------------------- interrupted runs
+
+def _check_complete(out, n_rows: int) -> list[str]:
+    """The result files present in `out`, each checked to be whole."""
+    present = sorted(p.name for p in out.iterdir() if not p.name.startswith("."))
+    if "metrics.json" in present:
+        json.loads((out / "metrics.json").read_text())
+    if "trace.csv" in present:
+        text = (out / "trace.csv").read_text()
+        lines = text.split("\n")
+        assert text.endswith("\n") and len(lines) - 1 == n_rows + 1  # header + one row per step
+        assert all(line.count(",") == TRACE_FIELDS - 1 for line in lines[:-1])
+    if "summary.png" in present:
+        data = (out / "summary.png").read_bytes()
+        assert data.startswith(b"\x89PNG") and data.endswith(b"IEND\xaeB`\x82")  # PNG end chunk
+    return present
+
+
+@pytest.mark.slow
+def test_killed_run_leaves_complete_files_or_none(tmp_path):
+    duration = 8.0
+    scenario = write_scenario(tmp_path / "s.yaml", scenario_dict(trial={"duration": duration}))
+    n_rows = int(round(duration / 0.001))
+    argv = [sys.executable, "-m", "sim.cli", "run", str(scenario)]
+    t0 = time.perf_counter()
+    subprocess.run(argv + ["--out", str(tmp_path / "full")], check=True, capture_output=True, timeout=300)
+    full = time.perf_counter() - t0
+    assert _check_complete(tmp_path / "full", n_rows) == ["metrics.json", "summary.png", "trace.csv"]
+    rng = random.Random(20261201)
+    out = tmp_path / "killed"
+    for _ in range(2):
+        # late in the run, where the files are written (start-up and simulation come first)
+        proc = subprocess.Popen(argv + ["--out", str(out)], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+        time.sleep(rng.uniform(0.6, 1.0) * full)
+        proc.send_signal(signal.SIGKILL)
+        proc.wait()
+        if out.exists():
+            _check_complete(out, n_rows)
+    subprocess.run(argv + ["--out", str(out)], check=True, capture_output=True, timeout=300)
+    assert _check_complete(out, n_rows) == ["metrics.json", "summary.png", "trace.csv"]
+    assert sorted(p.name for p in out.iterdir() if p.name.startswith(".")) == [MARKER]  # stale temps gone
+
+
+@pytest.mark.slow
+def test_interrupted_run_cleans_up(tmp_path):
+    scenario = write_scenario(tmp_path / "s.yaml", scenario_dict(trial={"duration": 200.0}))
+    out = tmp_path / "o"
+    # a child of a background job inherits SIGINT ignored; Ctrl-C at a terminal is not ignored
+    start = ("import signal, sys; signal.signal(signal.SIGINT, signal.default_int_handler); "
+             "from sim.cli import main; sys.exit(main(sys.argv[1:]))")
+    proc = subprocess.Popen([sys.executable, "-c", start, "run", str(scenario), "--out", str(out)],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + 120
+    while not (out / MARKER).exists() and time.monotonic() < deadline and proc.poll() is None:
+        time.sleep(0.05)  # the folder exists: the simulation has begun
+    time.sleep(0.3)
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == 130, err
+    assert err.strip().splitlines()[-1] == "wheelbench: interrupted"
+    assert sorted(p.name for p in out.iterdir()) == [MARKER]
