@@ -237,8 +237,12 @@ def _visual_shape(pb, cid, geom, colour) -> int:
     if kind == "box":
         return pb.createVisualShape(pb.GEOM_BOX, halfExtents=list(geom[1]), rgbaColor=colour, physicsClientId=cid)
     if kind == "cyl":
-        return pb.createVisualShape(pb.GEOM_CYLINDER, radius=geom[1], length=geom[2], rgbaColor=colour,
-                                    physicsClientId=cid)
+        # our own mesh: pybullet's cylinder in the tiny renderer has cone-like caps that bulge over
+        # whatever sits on its faces. Axis along local z, as pybullet's cylinders have it: the
+        # x-axis mesh's coordinates are turned cyclically (x, y, z) -> (y, z, x).
+        v, i, n = ring_mesh(geom[1], 0.0, geom[2], segments=32)
+        return pb.createVisualShape(pb.GEOM_MESH, vertices=[[a[1], a[2], a[0]] for a in v], indices=i,
+                                    normals=[[a[1], a[2], a[0]] for a in n], rgbaColor=colour, physicsClientId=cid)
     if kind == "ring":
         v, i, n = ring_mesh(*geom[1:])
         return pb.createVisualShape(pb.GEOM_MESH, vertices=v, indices=i, normals=n, rgbaColor=colour,
@@ -371,6 +375,10 @@ class Scene:
                                         physicsClientId=self._cid) for pc in self.layout.pieces]
         self._radii = np.array([_bounding_radius(pc.geom) for pc in self.layout.pieces])
         self._centres = np.zeros((len(self._ids), 3))
+        self._marks = [i for i, pc in enumerate(self.layout.pieces) if pc.colour == COLOURS["mark"]]
+        faces = [pc.colour for pc in self.layout.pieces if pc.link == "wheel" and pc.geom[0] in ("ring", "cyl")]
+        self._wheel_colour = np.array(faces[0] if faces else COLOURS["other"])
+        self._blur_level = 0
 
     def _draw_static(self):
         """The static scene at full size, with shadows, on a sky; rows below `rows` left dark."""
@@ -425,13 +433,29 @@ class Scene:
             pb.resetBasePositionAndOrientation(body_id, pos, _qmul(_qx(a), pc.q), physicsClientId=cid)
             self._centres[i] = pos
 
-    def draw_image(self, angle_rad: float, wheel_angle_rad: float):
+    def _blur_marks(self, wheel_step_rad: float) -> None:
+        """Wash the spokes into the wheel's colour when it turns far between frames, as a camera's
+        exposure would; sharp spokes would otherwise jump about (stroboscopic aliasing)."""
+        # spokes repeat every 120 deg: past ~35 deg a frame their motion reads wrongly
+        level = int(round(10 * min(1.0, max(0.0, (abs(wheel_step_rad) - 0.6) / 1.2))))
+        if level == self._blur_level:
+            return
+        self._blur_level = level
+        mix = 0.85 * level / 10
+        colour = ((1 - mix) * np.array(COLOURS["mark"]) + mix * self._wheel_colour).tolist()
+        for i in self._marks:
+            self.pb.changeVisualShape(self._ids[i], -1, rgbaColor=colour, physicsClientId=self._cid)
+
+    def draw_image(self, angle_rad: float, wheel_angle_rad: float, *, wheel_step_rad: float = 0.0):
         """One frame as a PIL RGB image of the frame's size; rows below `scene_rows` are left dark.
 
-        Only the box around the moving pieces is rendered (the renderer's cost follows its pixel
-        count), scaled up when `render_scale` < 1 and laid over the background with a soft mask.
+        `wheel_step_rad` : how far the wheel turns between frames (speed / frame rate), rad; large
+        steps blur its marks. Only the box around the moving pieces is rendered (the renderer's
+        cost follows its pixel count), scaled up when `render_scale` < 1 and laid over the
+        background with a soft mask.
         """
         Image = self._Image
+        self._blur_marks(wheel_step_rad)
         self.pose(angle_rad, wheel_angle_rad)
         frame = self._background.copy()
         box = self._moving_box()
@@ -453,9 +477,9 @@ class Scene:
         frame.paste(crop, (x0, y0), mask)
         return frame
 
-    def draw(self, angle_rad: float, wheel_angle_rad: float) -> np.ndarray:
+    def draw(self, angle_rad: float, wheel_angle_rad: float, *, wheel_step_rad: float = 0.0) -> np.ndarray:
         """One frame, (height, width, 3) uint8 RGB: the moving pieces laid over the cached background."""
-        return np.asarray(self.draw_image(angle_rad, wheel_angle_rad))
+        return np.asarray(self.draw_image(angle_rad, wheel_angle_rad, wheel_step_rad=wheel_step_rad))
 
     def close(self) -> None:
         try:

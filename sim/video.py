@@ -98,8 +98,8 @@ class TrialPainter:
     """Paints the frames of one trial at one size: the 3D scene plus the instrument panel."""
 
     def __init__(self, result, *, width: int, height: int, camera: str = "axis", label: str | None = None,
-                 render_scale: float | None = None):
-        self.result = result
+                 render_scale: float | None = None, fps: int = DEFAULT_FPS):
+        self.result, self.fps = result, fps
         render_scale = render_scale_for(width, height) if render_scale is None else render_scale
         self.dash = Dashboard(width, height, label=label)
         self._last_pose = (0.0, 0.0)
@@ -114,7 +114,7 @@ class TrialPainter:
         if not (math.isfinite(angle) and math.isfinite(wheel)):
             angle, wheel = self._last_pose   # a diverged trial's last row: hold the last drawable pose
         self._last_pose = (angle, wheel)
-        frame = self.scene.draw_image(angle, wheel)
+        frame = self.scene.draw_image(angle, wheel, wheel_step_rad=float(tr.wheel_speed[k]) / self.fps)
         r = readout(self.result, t_s)
         arrow = self._push_arrow(angle, r.push_n_m_s) if r.push_n_m_s else None
         return self.dash.draw(frame, r, push_arrow=arrow)
@@ -244,7 +244,8 @@ def write_clip(result, path: str | Path, *, fps: int = DEFAULT_FPS, size: tuple[
         raise InputError(f"--camera {camera}: expected one of {', '.join(CAMERAS)}")
     width, height = size
     label = label if label is not None else f"{result.scenario.name} | {result.scenario.strategy.kind}"
-    painter = TrialPainter(result, width=width, height=height, camera=camera, label=label, render_scale=render_scale)
+    painter = TrialPainter(result, width=width, height=height, camera=camera, label=label, render_scale=render_scale,
+                           fps=check_fps(fps))
     try:
         return _write(Path(path), [painter], check_fps(fps), clip_duration_s(result), progress)
     finally:
@@ -268,7 +269,7 @@ def write_side_by_side(results, labels, path: str | Path, *, fps: int = DEFAULT_
     painters = []
     try:
         for res, lab, w in zip(results, labels, halves):
-            painters.append(TrialPainter(res, width=w, height=height, camera=camera, label=lab,
+            painters.append(TrialPainter(res, width=w, height=height, camera=camera, label=lab, fps=check_fps(fps),
                                          render_scale=render_scale))
         duration = max(clip_duration_s(r) for r in results)
         return _write(Path(path), painters, check_fps(fps), duration, progress)

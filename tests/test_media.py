@@ -156,3 +156,12 @@ def test_cli_compare_two_strategies(tmp_path):
                  "--fps", "10", "--label", "off", "--label", "3 V"])
     assert code == 0
     assert _count_frames(clip) == 3
+
+
+def test_fast_wheel_washes_out_its_marks_slow_one_does_not():
+    with Scene(make_scenario(), width=640, height=360, camera="axis") as scene:   # big enough to show spokes
+        sharp = scene.draw(0.0, 0.3)
+        slow = scene.draw(0.0, 0.3, wheel_step_rad=0.3)     # 0.3 rad a frame: spokes still read right
+        fast = scene.draw(0.0, 0.3, wheel_step_rad=3.0)     # past the 120-deg spoke spacing: aliasing
+    assert (sharp == slow).all()
+    assert np.abs(sharp.astype(int) - fast.astype(int)).max() > 30
