@@ -58,6 +58,7 @@ def parse_size(text: str) -> tuple[int, int]:
 
 
 def check_fps(fps: int) -> int:
+    """A clip's frame rate, frames per second: a whole number from 1 to 240, else InputError."""
     if not 1 <= fps <= 240:
         raise InputError(f"--fps {fps}: expected a whole number from 1 to 240")
     return int(fps)
@@ -298,10 +299,10 @@ def compare_to_clip(scenarios, labels, *, seed: int | None = None, progress: boo
     """
     from .trial import run_trial
 
+    if labels and len(labels) != 2:
+        raise InputError(f"--label: give it twice (one per side), or not at all; found {len(labels)}")
     results = [run_trial(sc, seed=seed) for sc in scenarios]
     if not labels:
         labels = [f"{tag}: {r.scenario.name} | {r.scenario.strategy.kind}" for tag, r in zip("AB", results)]
-    if len(labels) != 2:
-        raise InputError(f"--label: give it twice (one per side), or not at all; found {len(labels)}")
     info = write_side_by_side(results, list(labels), clip.pop("path"), progress=progress, **clip)
     return results, info
