@@ -18,7 +18,7 @@ from scipy.special import ellipk
 
 from conftest import make_scenario
 from sim.device import Device
-from sim.engine import EngineModel, wrap_angles
+from sim.engine import EngineModel, wrap_angle, wrap_angles
 from sim.scenario import Sensors
 from sim.sensors import SensorSuite
 from sim.trial import run_trial
@@ -233,6 +233,19 @@ def test_engine_error_against_scipy_shrinks_with_the_step():
         ref = reference_solution(r.device, r.trace.view("t"), coulomb=BEARING_COULOMB)
         errors.append(np.max(np.abs(r.trace.view("angle") - ref[0])))
     assert errors[1] < errors[0] / 1.6
+
+
+# ----------------------------------------------------------------------------- angle wrapping
+
+@pytest.mark.parametrize("angle, wrapped", [
+    (math.pi, math.pi), (-math.pi, math.pi), (3 * math.pi, math.pi), (0.0, 0.0),
+    (2 * math.pi + 0.5, 0.5), (-2 * math.pi - 0.5, -0.5), (math.pi + 0.1, -math.pi + 0.1),
+])
+def test_angles_wrap_into_minus_pi_exclusive_to_pi_inclusive(angle, wrapped):
+    # Issue 2's convention: angles are reported in (-pi, pi]; hanging is +pi, never -pi.
+    # Tolerance 1e-12 rad (rounding in the modulo).
+    assert_allclose(wrap_angles(np.array([angle]))[0], wrapped, atol=1e-12)
+    assert_allclose(wrap_angle(angle), wrapped, atol=1e-12)
 
 
 # ----------------------------------------------------------------------------- sensors
