@@ -15,7 +15,8 @@ import yaml
 
 
 def base_scenario() -> dict:
-    """A raw scenario mapping: a 0.2 m rod with a 0.1 kg tip mass and a 30 g steel-ish disk wheel.
+    """A raw scenario mapping: a 0.2 m, 50 g rod with a 100 g tip mass and a 100 g, 50 mm disk wheel
+    at 0.2 m (J = 8.667e-3 kg m^2, I_w = 1.25e-4 kg m^2, mbar = 0.045 kg m), Kv 300 rpm/V, 2 ohm, 12 V.
 
     No friction, no sensor imperfections, a fixed-voltage bench strategy at 0 V, 0.5 s long.
     """

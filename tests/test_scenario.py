@@ -66,8 +66,10 @@ def test_defaults_are_ideal_and_si():
 
 
 def test_scenario_is_frozen():
+    from pydantic import ValidationError
+
     sc = make_scenario()
-    with pytest.raises(Exception):
+    with pytest.raises(ValidationError, match="frozen"):
         sc.drive.supply = 24.0
 
 
