@@ -285,6 +285,20 @@ def test_bias_and_delay():
         assert_allclose([a, r, w], [angle[k - 3] + 0.01, rate[k - 3] + 0.2, ws[k - 3]], atol=1e-12)
 
 
+def test_trial_trace_shows_the_delayed_readings():
+    # Through the whole runner: with a 3 ms delay and a reading every 1 ms step, the measured columns
+    # at row k equal the true state at row k - 3 (a delayed reading is the true state `delay`
+    # earlier; common practice, no source). Ideal sensors otherwise. Tolerance 1e-12.
+    sc = make_scenario(sensors={"rate": 1000, "delay": "3 ms", "rate_gyro": {}},
+                       strategy={"kind": "coast"},
+                       trial={"duration": 0.2, "start": {"angle": "150 deg", "wheel_speed": 20.0}})
+    tr = run_trial(sc).trace
+    assert np.ptp(tr.view("rate")) > 0.1  # the state changes, so a wrong delay shows
+    assert_allclose(tr.view("meas_angle")[3:], wrap_angles(tr.view("angle")[:-3]), atol=1e-12)
+    assert_allclose(tr.view("meas_rate")[3:], tr.view("rate")[:-3], atol=1e-12)
+    assert_allclose(tr.view("meas_wheel")[3:], tr.view("wheel_speed")[:-3], atol=1e-12)
+
+
 def test_rate_without_gyro_is_the_angle_difference_over_one_period():
     # Backward difference of successive angle readings over one control period (sim.sensors
     # docstring); exact for a constant rate. 500 Hz at 1 ms steps: one reading every 2 steps.
