@@ -22,8 +22,8 @@ def summary_figure(result):
     title = f"{result.scenario.name}: {result.scenario.strategy.kind} -> {result.outcome}"
     fig.suptitle(title, color=INK, fontsize=12, fontweight="bold")
     ax = axes[0]
-    ax.plot(t, np.degrees(wrap_angles(tr.view("angle").copy())), color=INK, lw=1.2, label="true")
-    ax.plot(t, np.degrees(tr.view("meas_angle")), color=MUTED, lw=0.7, alpha=0.8, label="measured")
+    ax.plot(t, _break_wraps(np.degrees(wrap_angles(tr.view("angle").copy()))), color=INK, lw=1.2, label="true")
+    ax.plot(t, _break_wraps(np.degrees(tr.view("meas_angle"))), color=MUTED, lw=0.7, alpha=0.8, label="measured")
     ax.set_ylabel("angle [deg]")
     ax.legend(loc="upper right", fontsize=8, frameon=False)
     axes[1].plot(t, np.degrees(tr.view("rate")), color=INK, lw=1.0)
@@ -52,6 +52,14 @@ def summary_figure(result):
         a.grid(True, color="#dde3e8", lw=0.6)
         a.spines[["top", "right"]].set_visible(False)
     return fig
+
+
+def _break_wraps(deg: np.ndarray) -> np.ndarray:
+    """A copy with NaN where the wrapped angle jumps by more than 180 deg, so no line crosses the plot."""
+    out = deg.astype(float).copy()
+    if out.size > 1:
+        out[1:][np.abs(np.diff(deg)) > 180.0] = np.nan
+    return out
 
 
 def _shade_phases(axes, tr) -> None:
