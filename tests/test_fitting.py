@@ -387,8 +387,8 @@ def test_round_trip_engine_spin_up(tmp_path, current_limit, correction):
     assert ("current_limited_s" in res.facts) == bool(current_limit)
     assert_allclose(res.patch["wheel"]["inertia_correction"], correction, atol=5e-3 * dev.I_w_kg_m2)
     assert_allclose(res.value("back_emf_constant_v_s_per_rad"), dev.k_e_v_s_rad, rtol=1e-4)
-    # the engine's mid-step back-EMF (sim/motor.py) makes the logged current read as R (1 + dt / (2 tau)):
-    # 0.2% here, inside the 0.5% allowed
+    # a trace row holds the speed at the step's start but the current over the step (sim/motor.py, sim/trace.py),
+    # so V = R i + k_e w reads R (1 + dt / (2 tau)): 0.2% here, inside the 0.5% allowed
     assert_allclose(res.value("resistance_ohm"), dev.resistance_ohm, rtol=5e-3)
     assert_allclose(res.value("wheel_spin_inertia_kg_m2"), dev.I_w_kg_m2, rtol=5e-3)
 
