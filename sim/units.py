@@ -71,6 +71,10 @@ def parse_quantity(value: object, kind: str) -> float:
 def _parse_string(text: str, unit: str, label: str) -> float:
     if len(text) > 100:
         raise ValueError(f"expected {label}, found a string of {len(text)} characters")
+    try:  # YAML 1.1 reads "2e-6" (no dot) as a string: a bare number is still SI
+        return float(text)
+    except ValueError:
+        pass
     if text.endswith("%"):
         try:
             number = float(text[:-1]) / 100.0
