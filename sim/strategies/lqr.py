@@ -32,13 +32,30 @@ class LqrBalance(Strategy):
         self.design = design_lqr(self.device, weights=self.params.weights, effort=self.params.effort)
         self.K = self.design.K_discrete
         self.predictor = DelayPredictor(self.design, delay_s=self.device.delay_s)
-        self._x = np.zeros(3)
+        self._gx, self._gu = self._folded_gains()
         self.phase = "balance"
 
+    def _folded_gains(self) -> tuple[tuple[float, float, float], np.ndarray]:
+        """K times the predictor, as gains on the reading and on the held commands.
+
+        The predictor is linear: x_now = Ad^n (Phi_f x_meas + Gam_f u0) + sum_i Ad^(n-1-i) Bd u(i+1),
+        so K x_now = g_x . x_meas + g_u . u. Precomputed once, this turns each tick's small
+        matrix products into three float products and a short dot product (same law, fewer steps).
+        """
+        pred, K = self.predictor, self.K
+        if not pred.active:
+            return tuple(float(k) for k in K), np.zeros(0)
+        powers = [np.eye(3)]
+        for _ in range(pred.n):
+            powers.append(pred.Ad @ powers[-1])
+        g_x = K @ powers[pred.n] @ pred.Phi_f
+        g_u = [K @ powers[pred.n] @ pred.Gam_f] + [K @ powers[pred.n - 1 - i] @ pred.Bd for i in range(pred.n)]
+        return tuple(float(g) for g in g_x), np.array(g_u, dtype=float)
+
     def decide(self, reading: Reading) -> float:
-        x = self._x
-        x[0], x[1], x[2] = reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s
-        x_now = self.predictor.present_state(x)
-        v = -float(self.K @ x_now)
-        self.predictor.record(min(max(v, -self.supply_v), self.supply_v))  # what the drive will apply
+        gx = self._gx
+        v = -(gx[0] * reading.angle_rad + gx[1] * reading.rate_rad_s + gx[2] * reading.wheel_speed_rad_s)
+        if self.predictor.active:
+            v -= float(self._gu @ self.predictor.u)
+            self.predictor.record(min(max(v, -self.supply_v), self.supply_v))  # what the drive will apply
         return v
