@@ -19,6 +19,8 @@ import numpy as np
 
 from .engine import wrap_angle
 
+NOISE_CHUNK = 4096  # control ticks of noise converted to Python floats at a time
+
 
 class SensorSuite:
     """Turns true-state history into measured values. `read(k)` is called on control ticks only."""
@@ -39,6 +41,18 @@ class SensorSuite:
         self.tick = 0
         self.prev_angle: float | None = None
         self.prev_wheel_counts = 0.0
+        self._chunk: list = []       # the next rows of `noise` as Python floats (cheaper per tick)
+        self._chunk_end = 0
+
+    def _noise_row(self) -> list:
+        """This tick's three standard-normal draws (the last row again if the trial outruns them)."""
+        i = self.tick
+        if i >= self._chunk_end:
+            if i >= len(self.noise):
+                return self.noise[-1].tolist()
+            self._chunk = self.noise[i:i + NOISE_CHUNK].tolist()
+            self._chunk_end = i + len(self._chunk)
+        return self._chunk[i - self._chunk_end + len(self._chunk)]
 
     def read(self, k: int, angle: np.ndarray, rate: np.ndarray, wheel_angle: np.ndarray,
              wheel_speed: np.ndarray) -> tuple[float, float, float]:
@@ -49,25 +63,25 @@ class SensorSuite:
         j = k - self.delay_steps
         if j < 0:
             j = 0
-        n = self.noise[self.tick if self.tick < len(self.noise) else -1]
+        n = self._noise_row()
         self.tick += 1
-        theta = angle[j]
+        theta = float(angle[j])
         if self.angle_res:
             theta = math.floor(theta / self.angle_res) * self.angle_res
         theta_m = wrap_angle(theta + self.angle_bias + self.angle_noise * n[0])
         if self.has_gyro:
-            rate_m = rate[j] + self.gyro_bias + self.gyro_noise * n[1]
+            rate_m = float(rate[j]) + self.gyro_bias + self.gyro_noise * n[1]
         elif self.prev_angle is None:
             rate_m = 0.0
         else:
             rate_m = wrap_angle(theta_m - self.prev_angle) / self.period_s
         self.prev_angle = theta_m
         if self.wheel_res:
-            counts = math.floor(wheel_angle[j] / self.wheel_res)
+            counts = math.floor(float(wheel_angle[j]) / self.wheel_res)
             if self.tick == 1:
                 self.prev_wheel_counts = math.floor(wheel_angle[j] / self.wheel_res - wheel_speed[j] * self.period_s / self.wheel_res)
             wheel_m = (counts - self.prev_wheel_counts) * self.wheel_res / self.period_s
             self.prev_wheel_counts = counts
         else:
-            wheel_m = wheel_speed[j]
+            wheel_m = float(wheel_speed[j])
         return theta_m, rate_m, wheel_m + self.wheel_noise * n[2]
