@@ -2,7 +2,7 @@
 
 State x = [angle rad, body rate rad/s, wheel speed rad/s], input = volts, law volts = -K x.
 Continuous design: scipy's continuous algebraic Riccati equation. Discrete design: the model
-discretised by zero-order hold at the control period (scipy.signal.cont2discrete), then the
+discretised by zero-order hold at the control period (`zoh_discretise`), then the
 discrete Riccati equation, so the gains are right for the loop rate, not a continuous
 approximation of it. Default weights follow Bryson's rule (Bryson & Ho, Applied Optimal
 Control, 1975): Q_ii = 1/x_i,max^2, R = 1/u_max^2.
@@ -48,14 +48,13 @@ def bryson_weights(device) -> tuple[np.ndarray, float]:
 def design_lqr(device, *, weights=None, effort=None) -> LqrDesign:
     """Continuous and discrete LQR gains at the device's control rate."""
     from scipy.linalg import solve_continuous_are, solve_discrete_are
-    from scipy.signal import cont2discrete
 
     q_default, r_default = bryson_weights(device)
     Q = np.diag(np.asarray(weights if weights is not None else q_default, dtype=float))
     R = float(effort if effort is not None else r_default)
     A, B = device.linear_model()
     T = 1.0 / device.control_rate_hz
-    Ad, Bd, *_ = cont2discrete((A, B, np.eye(3), np.zeros((3, 1))), T, method="zoh")
+    Ad, Bd = zoh_discretise(A, B, T)
     X = solve_continuous_are(A, B, Q, np.array([[R]]))
     Kc = (B.T @ X) / R
     Xd = solve_discrete_are(Ad, Bd, Q, np.array([[R]]))
@@ -63,6 +62,21 @@ def design_lqr(device, *, weights=None, effort=None) -> LqrDesign:
     return LqrDesign(A=A, B=B, Ad=Ad, Bd=Bd, Q=Q, R=R, K_continuous=Kc.ravel(), K_discrete=Kd.ravel(),
                      poles_continuous=np.linalg.eigvals(A - B @ Kc), poles_discrete=np.linalg.eigvals(Ad - Bd @ Kd),
                      period_s=T)
+
+
+def zoh_discretise(A: np.ndarray, B: np.ndarray, period_s: float) -> tuple[np.ndarray, np.ndarray]:
+    """(Ad, Bd) of x' = A x + B u with u held over `period_s` (zero-order hold).
+
+    expm([[A, B], [0, 0]] T) = [[Ad, Bd], [0, I]] (the standard block-matrix form; the same
+    method as scipy.signal.cont2discrete's "zoh", whose import alone costs about a second).
+    """
+    from scipy.linalg import expm
+
+    n, m = A.shape[0], B.shape[1]
+    block = np.zeros((n + m, n + m))
+    block[:n, :n], block[:n, n:] = A, B
+    M = expm(block * period_s)
+    return M[:n, :n], M[:n, n:]
 
 
 class DelayPredictor:
