@@ -480,7 +480,8 @@ def describe_validation_error(exc: ValidationError, model: type[BaseModel] | Non
         return f"{path}: expected {msg.removeprefix('Input should be ')}, found {short_repr(err.get('input'))}"
     found = short_repr(err.get("input"))
     if kind in ("greater_than", "greater_than_equal", "less_than", "less_than_equal"):
-        return f"{path}: {msg.replace('Input should be', 'must be')} (found {found}, in SI)"
+        bound = msg.replace('Input should be', 'must be')
+        return f"{path}: {bound} (the bound is in SI units; found {found})"
     if kind.endswith("_type") or kind.startswith("int_"):
         return f"{path}: {msg.replace('Input should be', 'expected')}, found {found}"
     return f"{path}: {msg}"
