@@ -100,8 +100,9 @@ class DelayPredictor:
         self.Phi_f, self.Gam_f = M[:3, :3], M[:3, 3:4].ravel()
         self.Ad, self.Bd = design.Ad, design.Bd.ravel()
         self.active = delay_s > 0
-        # command history: u[k-n-1 ... k-1] (the fractional step uses the one before the window)
-        self.u = np.zeros(self.n + 1)
+        # command history: u[k-n-1 ... k-1] (the fractional step uses the one before the window);
+        # a short Python list: shifting it each tick is cheaper than shifting an array
+        self.u = [0.0] * (self.n + 1)
 
     def present_state(self, x_meas: np.ndarray) -> np.ndarray:
         if not self.active:
@@ -113,5 +114,5 @@ class DelayPredictor:
 
     def record(self, volts: float) -> None:
         if self.active:
-            self.u[:-1] = self.u[1:]
-            self.u[-1] = volts
+            del self.u[0]
+            self.u.append(float(volts))

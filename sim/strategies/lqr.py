@@ -35,7 +35,7 @@ class LqrBalance(Strategy):
         self._gx, self._gu = self._folded_gains()
         self.phase = "balance"
 
-    def _folded_gains(self) -> tuple[tuple[float, float, float], np.ndarray]:
+    def _folded_gains(self) -> tuple[tuple[float, float, float], tuple[float, ...]]:
         """K times the predictor, as gains on the reading and on the held commands.
 
         The predictor is linear: x_now = Ad^n (Phi_f x_meas + Gam_f u0) + sum_i Ad^(n-1-i) Bd u(i+1),
@@ -44,18 +44,19 @@ class LqrBalance(Strategy):
         """
         pred, K = self.predictor, self.K
         if not pred.active:
-            return tuple(float(k) for k in K), np.zeros(0)
+            return tuple(float(k) for k in K), ()
         powers = [np.eye(3)]
         for _ in range(pred.n):
             powers.append(pred.Ad @ powers[-1])
         g_x = K @ powers[pred.n] @ pred.Phi_f
         g_u = [K @ powers[pred.n] @ pred.Gam_f] + [K @ powers[pred.n - 1 - i] @ pred.Bd for i in range(pred.n)]
-        return tuple(float(g) for g in g_x), np.array(g_u, dtype=float)
+        return tuple(float(g) for g in g_x), tuple(float(g) for g in g_u)
 
     def decide(self, reading: Reading) -> float:
         gx = self._gx
         v = -(gx[0] * reading.angle_rad + gx[1] * reading.rate_rad_s + gx[2] * reading.wheel_speed_rad_s)
         if self.predictor.active:
-            v -= float(self._gu @ self.predictor.u)
+            for g, u in zip(self._gu, self.predictor.u):
+                v -= g * u
             self.predictor.record(min(max(v, -self.supply_v), self.supply_v))  # what the drive will apply
         return v
