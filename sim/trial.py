@@ -221,8 +221,11 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
             except (Exception, SystemExit, StrategyTimeout) as exc:  # the strategy's failure is its outcome
                 clock.t_in = None
                 outcome, message = "strategy_failed", _describe(exc, t)
-                t_ma[k], t_mr[k], t_mw[k] = meas
+                t_ma[k], t_mr[k], t_mw[k], t_mode[k] = meas[0], meas[1], meas[2], mode
                 break
+            # held until the next tick: written once here, copied down the tick's rows at the end
+            t_volt[k], t_mode[k] = (0.0 if open_circuit else volts), mode
+            t_ma[k], t_mr[k], t_mw[k] = meas
             if wants_balance:
                 inside = abs(wrap_angle(th)) <= release
                 if strategy.balancing and inside:
@@ -244,8 +247,7 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
             pivot_torque += push_torque
             next_push, push_torque = pushes.pop() if pushes else (-1, 0.0)
         advance(pivot_torque, torque - bw * phd)
-        t_volt[k], t_cur[k], t_torq[k], t_mode[k] = (0.0 if open_circuit else volts), cur, torque, mode
-        t_ma[k], t_mr[k], t_mw[k] = meas
+        t_cur[k], t_torq[k] = cur, torque
         if on_step is not None:
             on_step(k, engine)
         k += 1
@@ -266,6 +268,9 @@ def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fel
     else:
         trace.n, ended = k, k * dt
     trace.t[: trace.n] = np.arange(trace.n) * dt
+    _hold_tick_values(trace, scenario.control_steps)
+    if outcome in ("diverged", "strategy_failed") and k < n:
+        trace.voltage[k] = 0.0  # nothing was applied after the failure
     if outcome is None:
         outcome = _final_outcome(wants_balance, strategy, catch_k, fell_k, fall_final)
     return TrialResult(
@@ -275,6 +280,14 @@ def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fel
         control_ticks=ticks, saturated_ticks=getattr(strategy, "saturated_ticks", 0), wall_s=wall,
         strategy=strategy,
     )
+
+
+def _hold_tick_values(trace: Trace, cs: int) -> None:
+    """Copy each control tick's held values (voltage, mode, measurements) down to the rows until
+    the next tick: the loop writes them on tick rows only."""
+    rows = (np.arange(trace.n) // cs) * cs
+    for col in (trace.voltage, trace.mode, trace.meas_angle, trace.meas_rate, trace.meas_wheel):
+        col[: trace.n] = col[rows]
 
 
 def _push_schedule(scenario, dt: float, n: int) -> list[tuple[int, float]]:
