@@ -294,10 +294,14 @@ def _fmt(value, unit: str) -> str:
 
 def main(argv: Optional[list[str]] = None) -> int:
     """Entry point: our errors become one line on stderr and exit code 2."""
+    from .outputs import forget_fresh_dirs
+    forget_fresh_dirs()  # only folders made by this command may be removed on its error
     try:
         code = app(args=argv, standalone_mode=False)
     except WheelbenchError as exc:
         print(f"wheelbench: {exc}", file=sys.stderr)
+        from .outputs import remove_fresh_dirs
+        remove_fresh_dirs()  # an --out folder made before the error was found: nothing written
         return 2
     except KeyboardInterrupt:
         print("wheelbench: interrupted", file=sys.stderr)

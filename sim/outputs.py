@@ -21,6 +21,7 @@ from pathlib import Path
 from .errors import InputError
 
 MARKER = ".wheelbench-output"
+_FRESH: list[Path] = []  # folders this process created, deepest first (see remove_fresh_dirs)
 _TEMP = re.compile(r"^\.(?P<name>.+)\.(?P<pid>\d+)\.[A-Za-z0-9_]{8}\.tmp(\.[A-Za-z0-9]+)?$")
 
 
@@ -37,7 +38,9 @@ def prepare_out_dir(path: str | Path, *, force: bool = False) -> Path:
         raise InputError(f"--out {out}: the folder is not empty and was not written by wheelbench "
                          "(choose another folder, or pass --force to write into it)")
     try:
+        created = [p for p in (out, *out.parents) if not p.exists()]
         out.mkdir(parents=True, exist_ok=True)
+        _FRESH.extend(created)
         marker = out / MARKER
         if not marker.exists():
             marker.write_text("This folder holds wheelbench output; wheelbench may replace its own files here.\n")
@@ -45,6 +48,27 @@ def prepare_out_dir(path: str | Path, *, force: bool = False) -> Path:
         raise InputError(f"--out {out}: cannot create ({exc.strerror or exc})") from None
     remove_stale_temps(out)
     return out
+
+
+def forget_fresh_dirs() -> None:
+    """Start a new command: folders made before it are not its to remove."""
+    _FRESH.clear()
+
+
+def remove_fresh_dirs() -> None:
+    """Remove the folders `prepare_out_dir` created in this process that hold nothing but our
+    marker: a command that fails on bad input after making its --out folder leaves no trace."""
+    while _FRESH:
+        path = _FRESH.pop(0)  # deepest first: the order prepare_out_dir recorded them
+        try:
+            names = [p.name for p in path.iterdir()]
+            if names == [MARKER]:
+                (path / MARKER).unlink()
+                names = []
+            if not names:
+                path.rmdir()
+        except OSError:  # in use, or not ours to touch after all: leave it
+            pass
 
 
 def remove_stale_temps(out: Path) -> list[Path]:

@@ -57,7 +57,7 @@ def assert_rejected(code: int, err: str, *, names: list[str], out: Path | None =
     for fragment in names:
         assert fragment in lines[0], f"{fragment!r} not in {lines[0]!r}"
     if out is not None:
-        assert not out.exists() or not any(out.iterdir()), f"{out} was written: {list(out.iterdir())}"
+        assert not out.exists(), f"{out} was made: {list(out.iterdir())}"
 
 
 # --------------------------------------------------------------------- whole-file cases (data)
@@ -248,3 +248,75 @@ def test_console_script_gives_one_line(tmp_path, name):
     assert proc.stderr.count("\n") == 1 and proc.stderr.startswith(f"wheelbench: {path}: "), proc.stderr
     assert proc.stdout == ""
     assert not out.exists()
+
+
+# --------------------------------------------------------------------- bench logs for `fit`
+
+_GOOD_LOG = "t_s,angle_rad\n" + "".join(f"{i * 0.01:g},{0.1 * (-1) ** i}\n" for i in range(50))
+LOG_CASES = {
+    # id: (log text, fragments the message must hold)
+    "empty": ("", ["the log is empty"]),
+    "header_only": ("t_s,angle_rad\n", ["only 0 data rows"]),
+    "too_few_rows": ("t_s,angle_rad\n0,0\n0.01,0\n", ["only 2 data rows"]),
+    "no_time_column": ("angle_rad\n" + "0.1\n" * 20, ["missing column t_s"]),
+    "no_unit": ("t,angle\n" + "0,0\n" * 20, ["column 't' has no unit"]),
+    "unknown_unit": ("t_s,angle_furlong\n" + "".join(f"{i},0\n" for i in range(20)), ["unknown unit 'furlong'"]),
+    "text_in_cell": (_GOOD_LOG.replace("0.1\n", "abc\n", 1), ["column 'angle_rad', data row", "'abc'"]),
+    "nan_in_cell": (_GOOD_LOG.replace("0.1\n", "nan\n", 1), ["column 'angle_rad', data row", "not finite"]),
+    "time_not_increasing": ("t_s,angle_rad\n" + "".join(f"{(i % 5) * 0.01},0.1\n" for i in range(20)),
+                            ["column 't_s' must increase"]),
+    "two_columns_one_quantity": ("t_s,angle_rad,angle_deg\n" + "".join(f"{i},0,0\n" for i in range(20)),
+                                 ["'angle_rad' and 'angle_deg' both give angle"]),
+}
+
+
+@pytest.mark.skipif("fit" not in {c.name or c.callback.__name__ for c in app.registered_commands},
+                    reason="no fit command yet")
+@pytest.mark.parametrize("case", sorted(LOG_CASES))
+def test_bad_log(capsys, tmp_path, case):
+    text, fragments = LOG_CASES[case]
+    log = tmp_path / "bench.csv"
+    log.write_text(text, encoding="utf-8")
+    out = tmp_path / "out"
+    code, _, err = run_cli(capsys, ["fit", str(log), "--test", "free-swing", "--out", str(out)])
+    assert_rejected(code, err, names=[str(log), *fragments], out=out)
+
+
+# --------------------------------------------------------------------- command options
+
+OPTION_CASES = {
+    # id: (command, extra argv after the scenario, fragments)
+    "vary_no_equals": ("sweep", ["--vary", "drive.supply"], ["--vary 'drive.supply'", "KEY=LO..HI:N"]),
+    "vary_zero_points": ("sweep", ["--vary", "drive.supply=1..2:0"], ["N must be from 1"]),
+    "vary_too_many_points": ("sweep", ["--vary", "drive.supply=1..2:999999"], ["N must be from 1"]),
+    "vary_mixed_units": ("sweep", ["--vary", "drive.supply=1 V..2 kg:3"], ["same kind"]),
+    "vary_power_bomb": ("sweep", ["--vary", "drive.supply=10**10**10..1:2"], ["LO and HI"]),
+    "vary_unknown_key": ("sweep", ["--vary", "drive.suply=1,2"], ["drive.suply", "unknown key"]),
+    "vary_bad_path": ("sweep", ["--vary", "drive..supply=1,2"], ["malformed key path"]),
+    "vary_empty_item": ("sweep", ["--vary", "drive.supply=1,,2"], ["empty value"]),
+    "vary_out_of_range": ("sweep", ["--vary", "drive.supply=-1,2"], ["drive.supply", "greater than"]),
+    "vary_no_such_item": ("sweep", ["--vary", "wheel.parts[99].mass=1,2"], ["wheel.parts[99]", "no such list item"]),
+    "sweep_negative_trials": ("sweep", ["--vary", "drive.supply=10,12", "--trials", "-1"], ["--trials"]),
+    "sweep_zero_workers": ("sweep", ["--vary", "drive.supply=10,12", "--workers", "0"], ["--workers"]),
+    "check_zero_trials": ("check", ["--trials", "0"], ["--trials"]),
+    "catch_map_grid": ("catch-map", ["--grid", "0"], ["--grid"]),
+    "catch_map_angle_unit": ("catch-map", ["--angle-max", "3 kg"], ["--angle-max", "angle"]),
+    "catch_map_rate_unit": ("catch-map", ["--rate-max", "fast"], ["--rate-max"]),
+    "gains_format": ("gains", ["--format", "xml"], ["--format", "'xml'"]),
+    "run_video_suffix": ("run", ["--video", "clip.avi"], ["--video clip.avi", ".mp4 or .gif"]),
+    "run_video_size": ("run", ["--video", "clip.gif", "--size", "big"], ["--size big"]),
+}
+
+
+@pytest.mark.parametrize("case", sorted(OPTION_CASES))
+def test_bad_option(capsys, tmp_path, scenario_file, case):
+    command, extra, fragments = OPTION_CASES[case]
+    if command not in COMMANDS:
+        pytest.skip(f"no {command} command yet")
+    out = tmp_path / "out"
+    argv = COMMANDS[command](scenario_file, out)
+    if command == "sweep":  # the table's default --vary is replaced by the case's own
+        i = argv.index("--vary")
+        del argv[i:i + 2]
+    code, _, err = run_cli(capsys, argv + extra)
+    assert_rejected(code, err, names=fragments, out=out)  # incl. a folder made before the error was found
