@@ -71,36 +71,32 @@ def test_repeat_cli_run_gives_identical_files(tmp_path, capsys):
     assert ma["seed"] == 5
 
 
+def _on_one_and_two_workers(tmp_path, capsys, trial: dict, argv: list[str], result: str) -> tuple[str, str]:
+    """The `result` file's text from the command run with --workers 1 and with --workers 2."""
+    path = write_scenario(tmp_path / "noisy.yaml", scenario_dict(**{**NOISY, "trial": {**NOISY["trial"], **trial}}))
+    for workers in ("1", "2"):
+        main([argv[0], str(path), *argv[1:], "--out", str(tmp_path / workers), "--workers", workers])
+    capsys.readouterr()
+    return tuple((tmp_path / w / result).read_text() for w in ("1", "2"))
+
+
 @pytest.mark.slow
 @pytest.mark.skipif("sweep" not in COMMANDS, reason="no sweep command yet")
 def test_sweep_is_the_same_on_one_and_two_workers(tmp_path, capsys):
-    path = write_scenario(tmp_path / "noisy.yaml", scenario_dict(**{**NOISY, "trial": {**NOISY["trial"], "duration": 0.6}}))
-    for workers in ("1", "2"):
-        main(["sweep", str(path), "--vary", "drive.supply=9..12:4", "--out", str(tmp_path / workers),
-              "--workers", workers])
-    capsys.readouterr()
-    a, b = ((tmp_path / w / "results.csv").read_text() for w in ("1", "2"))
+    a, b = _on_one_and_two_workers(tmp_path, capsys, {"duration": 0.6},
+                                   ["sweep", "--vary", "drive.supply=9..12:4"], "results.csv")
     assert a == b and a.count("\n") == 5
 
 
 @pytest.mark.slow
 @pytest.mark.skipif("catch-map" not in COMMANDS, reason="no catch-map command yet")
 def test_catch_map_is_the_same_on_one_and_two_workers(tmp_path, capsys):
-    path = write_scenario(tmp_path / "noisy.yaml", scenario_dict(**{**NOISY, "trial": {**NOISY["trial"], "pushes": []}}))
-    for workers in ("1", "2"):
-        assert main(["catch-map", str(path), "--grid", "3", "--out", str(tmp_path / workers),
-                     "--workers", workers]) == 0
-    capsys.readouterr()
-    a, b = ((tmp_path / w / "catch_map.csv").read_text() for w in ("1", "2"))
+    a, b = _on_one_and_two_workers(tmp_path, capsys, {"pushes": []}, ["catch-map", "--grid", "3"], "catch_map.csv")
     assert a == b and a.count("\n") == 10
 
 
 @pytest.mark.slow
 @pytest.mark.skipif("check" not in COMMANDS, reason="no check command yet")
 def test_check_is_the_same_on_one_and_two_workers(tmp_path, capsys):
-    path = write_scenario(tmp_path / "noisy.yaml", scenario_dict(**NOISY))
-    for workers in ("1", "2"):
-        main(["check", str(path), "--trials", "2", "--out", str(tmp_path / workers), "--workers", workers])
-    capsys.readouterr()
-    a, b = (json.loads((tmp_path / w / "verdict.json").read_text()) for w in ("1", "2"))
-    assert _timeless(a) == _timeless(b)
+    a, b = _on_one_and_two_workers(tmp_path, capsys, {}, ["check", "--trials", "2"], "verdict.json")
+    assert _timeless(json.loads(a)) == _timeless(json.loads(b))
