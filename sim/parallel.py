@@ -49,8 +49,7 @@ def run_tasks(fn: Callable[[Any], Any], tasks: Iterable[tuple[int, Any]], *, wor
 
 def _warm_imports() -> None:
     """Import the heavy libraries once here, so forked workers inherit them (seconds per worker otherwise)."""
-    import scipy.linalg  # noqa: F401
-    import scipy.signal  # noqa: F401
+    import scipy.linalg  # noqa: F401  (scipy.signal is no longer used: the LQR design does its own ZOH)
 
     from .engine import import_pybullet
     from .units import registry
