@@ -1,0 +1,109 @@
+"""Sweeps and catch maps: 2 workers against 1, and memory over a long sweep.
+
+    python benchmarks/bench_sweep.py [--points-speed 24] [--points-memory 10000]
+
+Speed: the same sweep (and catch map) run with workers=1 and workers=2 through the library
+functions the CLI calls; the figure is the wall-time ratio (target >= 1.8x on 2 cores).
+Memory: a sweep of --points-memory short trials on 2 workers; the resident memory of this
+process and of its workers is sampled as points finish (target: flat, i.e. the last tenth no
+higher than the first tenth plus a little). No assertion: figures are printed for the README.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import tempfile
+import threading
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent))
+
+SPEED = ["strategy={kind: lqr}", "trial.pushes=[]", "trial.start.angle=3 deg", "trial.duration=10"]
+MEMORY = ["strategy={kind: lqr}", "trial.pushes=[]", "trial.start.angle=3 deg", "trial.duration=0.05"]
+
+
+def _raw(overrides):
+    from sim.tolerances import load_raw
+
+    return load_raw(None, tuple(overrides))
+
+
+def _sweep(overrides, vary: list[str], workers: int, out: Path, on_progress=None) -> float:
+    from sim.outputs import prepare_out_dir
+    from sim.sweep import parse_vary, run_sweep
+
+    raw, where = _raw(overrides)
+    t0 = time.perf_counter()
+    run_sweep(raw, where, [parse_vary(v) for v in vary], prepare_out_dir(out), workers=workers,
+              on_progress=on_progress)
+    return time.perf_counter() - t0
+
+
+def _catch_map(workers: int, grid: int) -> float:
+    from sim.catchmap import catch_map
+
+    raw, where = _raw(SPEED[:3])
+    t0 = time.perf_counter()
+    catch_map(raw, where, grid=grid, workers=workers)
+    return time.perf_counter() - t0
+
+
+def rss_mb() -> float:
+    """Resident memory of this process and its children, MB."""
+    import psutil
+
+    me = psutil.Process()
+    total = me.memory_info().rss
+    for child in me.children(recursive=True):
+        try:
+            total += child.memory_info().rss
+        except psutil.Error:
+            pass
+    return total / 2**20
+
+
+def sweep_report(*, points_speed: int = 24, points_memory: int = 10_000, grid: int = 9) -> None:
+    """Print the speed figures, then (unless points_memory is 0) the memory figures."""
+    with tempfile.TemporaryDirectory() as tmp:
+        if points_speed:
+            vary = [f"drive.supply=10..14:{points_speed}"]
+            one = _sweep(SPEED, vary, 1, Path(tmp) / "s1")
+            two = _sweep(SPEED, vary, 2, Path(tmp) / "s2")
+            print(f"(e) sweep of {points_speed} points x 10 s: 1 worker {one:.1f} s, 2 workers {two:.1f} s: "
+                  f"{one / two:.2f}x (target >= 1.8x)")
+            one, two = _catch_map(1, grid), _catch_map(2, grid)
+            print(f"    catch map {grid}x{grid}: 1 worker {one:.1f} s, 2 workers {two:.1f} s: {one / two:.2f}x")
+        if points_memory:
+            side = int(round(points_memory ** 0.5))
+            vary = [f"drive.supply=10..14:{side}", f"motor.resistance=1.5..2.5:{side}"]
+            samples: list[tuple[int, float]] = []
+            lock = threading.Lock()
+
+            def progress(done, total):
+                if done % max(1, total // 20) == 0:
+                    with lock:
+                        samples.append((done, rss_mb()))
+
+            wall = _sweep(MEMORY, vary, 2, Path(tmp) / "mem", on_progress=progress)
+            first = [m for d, m in samples if 0 < d <= side * side // 10] or [samples[0][1]]
+            last = [m for d, m in samples if d >= side * side * 9 // 10]
+            print(f"    memory over a {side * side}-point sweep on 2 workers ({wall:.0f} s): "
+                  f"first tenth {max(first):.0f} MB, last tenth {max(last):.0f} MB, "
+                  f"peak {max(m for _, m in samples):.0f} MB (this process + workers)")
+            print("    samples (points done, MB): " + ", ".join(f"{d}:{m:.0f}" for d, m in samples))
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--points-speed", type=int, default=24)
+    ap.add_argument("--points-memory", type=int, default=10_000)
+    ap.add_argument("--grid", type=int, default=9)
+    args = ap.parse_args()
+    sweep_report(points_speed=args.points_speed, points_memory=args.points_memory, grid=args.grid)
+
+
+if __name__ == "__main__":
+    main()
