@@ -6,13 +6,13 @@ each file is then written atomically (`sim.outputs`), so a failure leaves nothin
 
 from __future__ import annotations
 
-import copy
 from pathlib import Path
 
 import numpy as np
 import yaml
 
 from .fitting import FitResult
+from .overrides import deep_merge
 from .outputs import prepare_out_dir, write_json, write_text
 
 CAUTION = ("Bench tests spin wheels and drive motors from batteries: guard the wheel and stay out of its plane, "
@@ -48,7 +48,7 @@ def merged_scenario(scenario_path: str | Path, patch: dict) -> dict:
 
     path = Path(scenario_path)
     raw = read_yaml(path)
-    merged = _deep_merge(raw, patch)
+    merged = deep_merge(raw, patch)
     if "back_emf_constant" in patch.get("motor", {}):
         merged.get("motor", {}).pop("speed_constant", None)
     strategy = merged.get("strategy")
@@ -58,16 +58,6 @@ def merged_scenario(scenario_path: str | Path, patch: dict) -> dict:
             strategy["plugin"] = f"{(path.parent / target).resolve()}:{cls}"
     validate_scenario(merged, where=f"{path} merged with the fit")
     return merged
-
-
-def _deep_merge(base: dict, extra: dict) -> dict:
-    out = copy.deepcopy(base)
-    for key, value in extra.items():
-        if isinstance(value, dict) and isinstance(out.get(key), dict):
-            out[key] = _deep_merge(out[key], value)
-        else:
-            out[key] = copy.deepcopy(value)
-    return out
 
 
 def _yaml_ready(value):

@@ -83,3 +83,14 @@ def apply_overrides(raw: dict, overrides, *, where: str) -> dict:
         path, value = parse_assignment(text, where=f"{where}: --set")  # name the file, as every error does
         set_path(out, path, value, where=f"{where} (--set {text})")
     return out
+
+
+def deep_merge(base: dict, extra: dict) -> dict:
+    """A copy of `base` with `extra` merged in: nested mappings merge key by key, anything else replaces."""
+    out = copy.deepcopy(base)
+    for key, value in extra.items():
+        if isinstance(value, dict) and isinstance(out.get(key), dict):
+            out[key] = deep_merge(out[key], value)
+        else:
+            out[key] = copy.deepcopy(value)
+    return out

@@ -13,6 +13,8 @@ from pathlib import Path
 import pytest
 import yaml
 
+from sim.overrides import deep_merge
+
 
 def base_scenario() -> dict:
     """A raw scenario mapping: a 0.2 m, 50 g rod with a 100 g tip mass and a 100 g, 50 mm disk wheel
@@ -38,17 +40,6 @@ def base_scenario() -> dict:
         "strategy": {"kind": "fixed_voltage", "volts": 0.0},
         "trial": {"duration": 0.5, "start": {"angle": 0.0}},
     }
-
-
-def deep_merge(base: dict, extra: dict) -> dict:
-    """`base` with `extra` merged in: nested mappings merge key by key, anything else replaces."""
-    out = copy.deepcopy(base)
-    for key, value in extra.items():
-        if isinstance(value, dict) and isinstance(out.get(key), dict):
-            out[key] = deep_merge(out[key], value)
-        else:
-            out[key] = copy.deepcopy(value)
-    return out
 
 
 def scenario_dict(**sections) -> dict:
