@@ -83,6 +83,9 @@ def _parse_string(text: str, unit: str, label: str) -> float:
         if unit:
             raise ValueError(f"expected {label} in {unit}, found a percentage {text!r}")
         return number
+    simple = _simple_quantity(text, unit)
+    if simple is not None:
+        return simple
     if not powers_are_small(text):
         raise ValueError(f"expected {label}, found {text!r} (powers must be plain numbers up to "
                          f"{MAX_POWER}, at most {MAX_POWERS} of them)")
@@ -100,6 +103,41 @@ def _parse_string(text: str, unit: str, label: str) -> float:
     except Exception:  # pint raises several kinds for unparsable text
         expect = f"{label} in {unit}" if unit else label
         raise ValueError(f"expected {expect}, found unreadable {text!r}") from None
+
+
+# "number unit" with one of these common units is converted without pint: importing pint and
+# building its registry costs about a second at every start-up, and most scenarios need nothing
+# more. unit as written -> (the SI unit it converts to, factor). The factors are the SI
+# definitions; tests/test_properties.py checks every entry against pint. Anything else goes to pint.
+_PI = math.pi
+SIMPLE_UNITS: dict[str, tuple[str, float]] = {
+    "m": ("m", 1.0), "cm": ("m", 1e-2), "mm": ("m", 1e-3), "um": ("m", 1e-6), "km": ("m", 1e3),
+    "kg": ("kg", 1.0), "g": ("kg", 1e-3), "mg": ("kg", 1e-6),
+    "s": ("s", 1.0), "ms": ("s", 1e-3), "us": ("s", 1e-6), "min": ("s", 60.0),
+    "Hz": ("Hz", 1.0), "kHz": ("Hz", 1e3),
+    "rad": ("rad", 1.0), "mrad": ("rad", 1e-3), "deg": ("rad", _PI / 180.0),
+    "rad/s": ("rad/s", 1.0), "deg/s": ("rad/s", _PI / 180.0), "rpm": ("rad/s", 2.0 * _PI / 60.0),
+    "m/s^2": ("m/s^2", 1.0),
+    "N*m": ("N*m", 1.0), "mN*m": ("N*m", 1e-3),
+    "N*m*s/rad": ("N*m*s/rad", 1.0), "N*m*s": ("N*m*s", 1.0), "mN*m*s": ("N*m*s", 1e-3),
+    "kg*m^2": ("kg*m^2", 1.0), "g*cm^2": ("kg*m^2", 1e-7),
+    "kg/m^3": ("kg/m^3", 1.0), "g/cm^3": ("kg/m^3", 1e3),
+    "Pa": ("Pa", 1.0), "kPa": ("Pa", 1e3), "MPa": ("Pa", 1e6), "GPa": ("Pa", 1e9),
+    "V": ("V", 1.0), "mV": ("V", 1e-3), "A": ("A", 1.0), "mA": ("A", 1e-3),
+    "ohm": ("ohm", 1.0), "mohm": ("ohm", 1e-3), "H": ("H", 1.0), "mH": ("H", 1e-3), "uH": ("H", 1e-6),
+    "rpm/V": ("rad/s/V", 2.0 * _PI / 60.0), "V*s/rad": ("V*s/rad", 1.0),
+    "N*m/A": ("N*m/A", 1.0), "mN*m/A": ("N*m/A", 1e-3), "K/W": ("K/W", 1.0), "J/K": ("J/K", 1.0),
+}
+_SIMPLE = re.compile(r"([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(\S+)")
+
+
+def _simple_quantity(text: str, unit: str) -> float | None:
+    """`text` in `unit` when it is a plain number and a unit of SIMPLE_UNITS of that kind, else None."""
+    m = _SIMPLE.fullmatch(text)
+    entry = SIMPLE_UNITS.get(m.group(2)) if m else None
+    if entry is None or entry[0] != unit:
+        return None
+    return float(m.group(1)) * entry[1]
 
 
 MAX_POWER = 6      # m^3, s^-2 need little; pint evaluates 10**10**10 exactly and never returns

@@ -166,3 +166,23 @@ def test_vary_parses_or_is_an_input_error(text):
         except (TypeError, IndexError, KeyError):
             continue  # the path does not fit this scenario: the sweep reports that per point
         _loads_or_scenario_error(raw)
+
+
+@SETTINGS
+@given(unit=st.sampled_from(sorted(__import__("sim.units", fromlist=["SIMPLE_UNITS"]).SIMPLE_UNITS)),
+       number=st.floats(min_value=-1e12, max_value=1e12, allow_nan=False).filter(lambda x: abs(x) > 1e-12))
+def test_fast_unit_path_agrees_with_pint(unit, number):
+    """Common units are converted without pint (start-up); pint itself is the reference.
+
+    Agreement to 1e-15 relative: for composite units pint rounds its own factor (g/cm^3 gives
+    999.9999999999999 kg/m^3 per g/cm^3), so the last bit may differ.
+    """
+    from numpy.testing import assert_allclose
+
+    from sim.units import SIMPLE_UNITS, registry
+
+    si = SIMPLE_UNITS[unit][0]
+    text = f"{number!r} {unit}"
+    expected = float(registry().Quantity(text).to(si).magnitude)
+    kind = next(k for k, (u, _) in KINDS.items() if u == si)
+    assert_allclose(parse_quantity(text, kind), expected, rtol=1e-15, atol=0)
