@@ -97,7 +97,8 @@ class StrategyClock:
     def __exit__(self, *exc) -> None:
         if self.interrupts:
             signal.setitimer(signal.ITIMER_REAL, 0.0)
-            signal.signal(signal.SIGALRM, self._previous)
+            # None: the old handler was not set from Python; the default is the closest we can restore
+            signal.signal(signal.SIGALRM, self._previous if self._previous is not None else signal.SIG_DFL)
             self.interrupts = False
 
     def enter(self) -> None:
