@@ -7,6 +7,7 @@ functions the CLI calls; the figure is the wall-time ratio (target >= 1.8x on 2 
 Memory: a sweep of --points-memory short trials on 2 workers; the resident memory of this
 process and of its workers is sampled as points finish (target: flat, i.e. the last tenth no
 higher than the first tenth plus a little). No assertion: figures are printed for the README.
+The memory figures need psutil (`pip install psutil`; not a Wheelbench dependency).
 """
 
 from __future__ import annotations
