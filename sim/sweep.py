@@ -111,6 +111,11 @@ def check_varies(raw: dict, where: str, varies: list[Vary]) -> None:
     from .scenario import validate_scenario
     if not varies:
         raise InputError("sweep: give at least one --vary KEY=...")
+    seen: set[tuple] = set()
+    for v in varies:
+        if tuple(v.path) in seen:
+            raise InputError(f"--vary {v.key}: the key is varied twice; give it once with all its values")
+        seen.add(tuple(v.path))
     total = int(np.prod([len(v.values) for v in varies], dtype=np.float64))
     if total > MAX_POINTS:
         raise InputError(f"sweep: {total} points is more than the limit of {MAX_POINTS}")

@@ -296,6 +296,8 @@ OPTION_CASES = {
     "vary_empty_item": ("sweep", ["--vary", "drive.supply=1,,2"], ["empty value"]),
     "vary_out_of_range": ("sweep", ["--vary", "drive.supply=-1,2"], ["drive.supply", "greater than"]),
     "vary_no_such_item": ("sweep", ["--vary", "wheel.parts[99].mass=1,2"], ["wheel.parts[99]", "no such list item"]),
+    "vary_same_key_twice": ("sweep", ["--vary", "drive.supply=10,12", "--vary", "drive.supply=8..9:2"],
+                            ["--vary drive.supply", "varied twice"]),
     "sweep_negative_trials": ("sweep", ["--vary", "drive.supply=10,12", "--trials", "-1"], ["--trials"]),
     "sweep_zero_workers": ("sweep", ["--vary", "drive.supply=10,12", "--workers", "0"], ["--workers"]),
     "check_zero_trials": ("check", ["--trials", "0"], ["--trials"]),
