@@ -87,6 +87,8 @@ def write_csv(trace: Trace, path) -> None:
     with open(path, "w", encoding="utf-8", newline="") as fh:
         fh.write(",".join(names + ["mode"]) + "\n")
         # one formatted block per row: repr-exact enough (9 significant digits) and fast
-        fmt = ",".join(["%.9g"] * len(names))
-        for row, mode in zip(data, modes):
-            fh.write(fmt % tuple(row) + "," + mode + "\n")
+        fmt = ",".join(["%.9g"] * len(names)) + ",%s\n"
+        rows = data.tolist()  # Python floats format about twice as fast as numpy scalars
+        for start in range(0, len(rows), 4096):
+            fh.write("".join([fmt % (*row, mode) for row, mode in
+                              zip(rows[start:start + 4096], modes[start:start + 4096])]))
