@@ -28,6 +28,17 @@ def part_volume(part) -> float | None:
     return None
 
 
+def wheel_part_outer_radius(part) -> float:
+    """Largest radius a wheel part reaches from the wheel axis, m (rods and boxes lie radially)."""
+    if part.shape == "disk":
+        return part.radius
+    if part.shape == "ring":
+        return part.outer_radius
+    if part.shape in ("rod", "box"):
+        return part.at + part.length / 2.0
+    return part.at
+
+
 def part_mass(part) -> float:
     """Mass of one copy, kg: the given mass, else effective density times volume."""
     if part.mass is not None:

@@ -27,6 +27,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .engine import import_pybullet
+from .massprops import wheel_part_outer_radius
 
 CAMERAS = ("axis", "oblique")
 """Camera presets: `axis` looks along the pivot axis at the swing plane; `oblique` from above and aside."""
@@ -134,7 +135,7 @@ class Layout:
 
     @classmethod
     def from_scenario(cls, sc) -> "Layout":
-        wheel_r = max([_radial_extent(p) for p in sc.wheel.parts] + [0.01])
+        wheel_r = max([wheel_part_outer_radius(p) for p in sc.wheel.parts] + [0.01])
         body_reach = max(_body_extent(p) for p in sc.body.parts)
         reach = max(body_reach, sc.wheel.at + wheel_r)
         pieces = []
@@ -162,16 +163,6 @@ def _body_extent(part) -> float:
     if part.shape in ("disk", "ring"):
         return along + (part.radius if part.shape == "disk" else part.outer_radius)
     return along
-
-
-def _radial_extent(part) -> float:
-    if part.shape == "ring":
-        return part.outer_radius
-    if part.shape == "disk":
-        return part.radius
-    if part.shape in ("box", "rod"):
-        return part.at + part.length / 2
-    return part.at
 
 
 def _wheel_pieces(parts, wheel_r: float) -> tuple[list, float]:

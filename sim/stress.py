@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import math
 
-from .massprops import part_volume
+from .massprops import part_volume, wheel_part_outer_radius
 
 
 def solid_disk_stress_pa(density_kg_m3: float, speed_rad_s: float, radius_m: float, poisson: float) -> float:
@@ -135,19 +135,8 @@ def wheel_burst_check(scenario, device) -> dict:
 def _loads(other, part) -> bool:
     """Does `other` hang its centrifugal load on `part` (lies outside it, or is a point mass on it)?"""
     if other.shape == "point":
-        return _inner_edge(part) <= other.at <= _outer_edge(part) or other.at >= _outer_edge(part)
-    return _inner_edge(other) >= _outer_edge(part) * 0.999
-
-
-def _outer_edge(part) -> float:
-    """Largest radius the part reaches from the wheel axis, m."""
-    if part.shape == "disk":
-        return part.radius
-    if part.shape == "ring":
-        return part.outer_radius
-    if part.shape in ("rod", "box"):
-        return part.at + part.length / 2.0
-    return part.at
+        return other.at >= _inner_edge(part)  # on the part or outside it
+    return _inner_edge(other) >= wheel_part_outer_radius(part) * 0.999
 
 
 def _inner_edge(part) -> float:
