@@ -62,6 +62,15 @@ def test_bad_plugins_are_refused_at_load_naming_the_key(tmp_path, plugin, needle
     assert needle in str(info.value)
 
 
+def test_a_plugin_that_never_finishes_importing_is_refused_within_the_budget(tmp_path, monkeypatch):
+    import sim.strategies
+
+    (tmp_path / "endless.py").write_text("while True:\n    pass\n")
+    monkeypatch.setattr(sim.strategies, "IMPORT_BUDGET_S", 0.3)
+    with pytest.raises(ScenarioError, match=r"strategy\.plugin: importing .*TimeoutError"):
+        load_scenario(_scenario_with(tmp_path, {"plugin": "endless.py:Law"}))
+
+
 def test_unknown_kind_names_the_nearest(tmp_path):
     with pytest.raises(ScenarioError, match="did you mean 'swing_and_catch'"):
         load_scenario(_scenario_with(tmp_path, {"kind": "swing_and_cach"}))

@@ -104,7 +104,7 @@ def _class_for_plugin(plugin: Any, base_dir: Path) -> type[Strategy]:
         module = _import_file(Path(target) if Path(target).is_absolute() else base_dir / target, plugin)
     else:
         try:
-            module = importlib.import_module(target)
+            module = _within_budget(lambda: importlib.import_module(target), target)
         except Exception as exc:
             raise ValueError(f"@plugin: cannot import module {target!r} ({type(exc).__name__}: {exc})") from None
     cls = getattr(module, cls_name, None)
@@ -123,11 +123,30 @@ def _import_file(path: Path, plugin: str):
     module = importlib.util.module_from_spec(spec)
     sys.modules[name] = module
     try:
-        spec.loader.exec_module(module)
+        _within_budget(lambda: spec.loader.exec_module(module), str(path))
     except Exception as exc:
         sys.modules.pop(name, None)
         raise ValueError(f"@plugin: importing {str(path)!r} failed ({type(exc).__name__}: {exc})") from None
     return module
+
+
+IMPORT_BUDGET_S = 30.0
+"""Wall time, s, a plug-in's import may take before loading gives up (an endless loop at import
+time must not hang `validate`; the trial's own budget covers the strategy's calls)."""
+
+
+def _within_budget(load, what: str):
+    """Run `load()` under the strategy clock; a plug-in import past the budget becomes a TimeoutError."""
+    from ..trial import StrategyClock, StrategyTimeout
+
+    with StrategyClock(IMPORT_BUDGET_S) as clock:
+        clock.enter()
+        try:
+            result = load()
+            clock.leave()
+        except StrategyTimeout:
+            raise TimeoutError(f"gave up after {IMPORT_BUDGET_S:g} s") from None
+    return result
 
 
 def _checked(cls: Any, where: str) -> type[Strategy]:
