@@ -52,9 +52,9 @@ def _warm_imports() -> None:
     import scipy.linalg  # noqa: F401  (scipy.signal is no longer used: the LQR design does its own ZOH)
 
     from .engine import import_pybullet
-    from .units import registry
     import_pybullet()
-    registry()
+    # pint's registry (about 1 s to build) is left out: common unit strings never need it, and a
+    # worker that does builds it on first use
 
 
 def _die_with_parent() -> None:
