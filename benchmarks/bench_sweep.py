@@ -27,7 +27,7 @@ MEMORY = ["strategy={kind: lqr}", "trial.pushes=[]", "trial.start.angle=3 deg", 
 
 
 def _raw(overrides):
-    from sim.tolerances import load_raw
+    from sim.scenario import load_raw
 
     return load_raw(None, tuple(overrides))
 

@@ -432,6 +432,15 @@ def load_scenario(path: str | Path | None = None, *, overrides: tuple[str, ...] 
     overrides : "key.path=value" strings, applied to the raw mapping before validation.
     data : an already-parsed mapping (then `path` only names it in messages).
     """
+    raw, where = load_raw(path, overrides, data=data)
+    return validate_scenario(raw, where=where)
+
+
+def load_raw(path: str | Path | None = None, overrides=(), *, data: dict | None = None) -> tuple[dict, str]:
+    """Read a scenario file (or the bundled default) and apply overrides: (raw mapping, where).
+
+    The raw mapping is what sweeps and Monte Carlo perturb and validate again per trial.
+    """
     if path is None and data is None:
         path = default_scenario_path()
     where = str(path) if path is not None else "<scenario>"
@@ -441,8 +450,7 @@ def load_scenario(path: str | Path | None = None, *, overrides: tuple[str, ...] 
     if not isinstance(raw, dict):
         raise ScenarioError(f"{where}: expected a mapping of scenario keys at the top, found {type(raw).__name__}")
     from .overrides import apply_overrides
-    raw = apply_overrides(raw, overrides, where=where)
-    return validate_scenario(raw, where=where)
+    return apply_overrides(raw, tuple(overrides or ()), where=where), where
 
 
 def validate_scenario(raw: dict, *, where: str) -> Scenario:

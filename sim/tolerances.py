@@ -17,7 +17,6 @@ import copy
 import math
 import typing
 from dataclasses import dataclass
-from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -155,24 +154,6 @@ def perturbed_raw(raw: dict, tolerances: list[Tolerance], rng: np.random.Generat
         set_path(out, list(tol.path), float(value), where=f"tolerances.{tol.key}")
         drawn[tol.key] = float(value)
     return out, drawn
-
-
-def load_raw(path: str | Path | None, overrides=()) -> tuple[dict, str]:
-    """Read a scenario file (or the bundled default) and apply overrides; returns (mapping, where).
-
-    The mapping is what sweeps and Monte Carlo perturb and validate again per trial.
-    """
-    from .overrides import apply_overrides
-    from .scenario import default_scenario_path, read_yaml
-
-    path = Path(path) if path is not None else default_scenario_path()
-    where = str(path)
-    raw = read_yaml(path)
-    if raw is None:
-        raise ScenarioError(f"{where}: the file is empty")
-    if not isinstance(raw, dict):
-        raise ScenarioError(f"{where}: expected a mapping of scenario keys at the top, found {type(raw).__name__}")
-    return apply_overrides(raw, tuple(overrides or ()), where=where), where
 
 
 def trial_seed(base_seed: int, *index: int) -> int:

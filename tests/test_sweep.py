@@ -13,7 +13,7 @@ import pytest
 from sim.cli import main
 from sim.errors import InputError
 from sim.sweep import JOURNAL, parse_vary, run_sweep
-from sim.tolerances import load_raw
+from sim.scenario import load_raw
 from test_verdicts import fast_raw, write_scenario
 
 VARY = "drive.supply=6V..12V:6"

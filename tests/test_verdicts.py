@@ -15,7 +15,8 @@ import yaml
 from sim.cli import main
 from sim.errors import ScenarioError
 from sim.scenario import validate_scenario
-from sim.tolerances import load_raw, perturbed_raw, scenario_tolerances
+from sim.scenario import load_raw
+from sim.tolerances import perturbed_raw, scenario_tolerances
 from sim.verdicts import max_push, push_survived
 
 FAST = {
