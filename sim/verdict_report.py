@@ -7,7 +7,8 @@ from pathlib import Path
 
 from .outputs import write_json, write_text
 from .plots import INK, ACCENT, LIMIT, MUTED, save_figure, summary_figure
-from .verdicts import SAFETY_NOTES, CheckOutcome
+from .safety import SAFETY_NOTES
+from .verdicts import CheckOutcome
 
 PASS_COLOUR, FAIL_COLOUR = "#2f7d4a", LIMIT
 

@@ -23,6 +23,7 @@ import numpy as np
 from .device import Device
 from .metrics import SETTLE_BAND_RAD, trial_metrics
 from .parallel import run_tasks
+from .safety import SAFETY_NOTES
 from .scenario import Push, validate_scenario
 from .stress import wheel_burst_check
 from .thermal import winding_check
@@ -37,15 +38,6 @@ SETTLED_RATE_RAD_S = 0.2
 PUSH_REL_TOL = 0.05     # bisection stops when the bracket is within 5% of its upper end
 PUSH_MAX_EVALS = 24
 DEFAULT_TRIALS = 20
-
-SAFETY_NOTES = (
-    "Guard the wheel with a cover built to contain a burst, keep out of its plane, and retain the hub positively.",
-    "Set a software wheel-speed limit and a hardware stop; braking regenerates into the supply and can over-volt it.",
-    "Batteries: balance-charge LiPo packs (4.20 V per cell at most), never charge unattended, charge and store "
-    "them in a fire-resistant container, retire swollen packs.",
-    "These figures are model estimates; they do not replace local codes, a guard designed for burst "
-    "containment, or licensed practice.",
-)
 
 
 # ----------------------------------------------------------------------------- early stopping
