@@ -9,14 +9,10 @@ from typing import List, Optional
 import typer
 
 from .errors import WheelbenchError
+from .safety import SAFETY_LINE as SAFETY
 
 app = typer.Typer(add_completion=False, pretty_exceptions_enable=False, no_args_is_help=True,
                   help="Design checks for reaction-wheel balancing devices.")
-
-SAFETY = ("Safety: a spinning wheel stores energy and can burst. Guard it and stay out of its plane; "
-          "retain the hub positively; set a software speed limit and a hardware stop; braking "
-          "regenerates into the supply; handle LiPo packs with a balance charger, never unattended. "
-          "Follow local codes and licensed practice.")
 
 ScenarioArg = typer.Argument(None, help="Scenario YAML file (default: the bundled desk pendulum).",
                              show_default=False)
@@ -150,7 +146,7 @@ def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers:
               cluster: Optional[str] = None):
     """The raw scenario mapping (re-validated per trial by check, sweep and catch-map), options checked first."""
     from .errors import InputError
-    from .tolerances import load_raw
+    from .scenario import load_raw
     if workers is not None and workers < 1:
         raise InputError(f"--workers: expected at least 1, found {workers}")
     if workers is not None and cluster is not None:
@@ -180,11 +176,9 @@ def check(scenario: Optional[Path] = ScenarioArg,
     """
     from .errors import InputError
     from .outputs import prepare_out_dir
-    from .scenario import validate_scenario
     from .verdict_report import print_verdict, write_check_outputs
     from .verdicts import DEFAULT_TRIALS, run_check
-    raw, where = _load_raw(scenario, set_, workers, cluster)
-    validate_scenario(raw, where=where)
+    raw, where = _load_raw(scenario, set_, workers, cluster)  # validated there
     n = DEFAULT_TRIALS if trials is None else trials
     if n < 1:
         raise InputError(f"--trials: expected at least 1, found {n}")
@@ -336,10 +330,10 @@ def _click_error_types() -> tuple[tuple, tuple]:
     return tuple(usage), (click.exceptions.Abort, typer.Abort)
 
 
-if __name__ == "__main__":
-    sys.exit(main())
-
-
 def entry() -> None:
     """Console-script wrapper: exit with main()'s code."""
     sys.exit(main())
+
+
+if __name__ == "__main__":
+    entry()

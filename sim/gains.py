@@ -118,7 +118,7 @@ def to_c_header(report: dict) -> str:
         f"#define WB_SUPPLY_V {_c_float(report['input']['limit_v'])}     /* clamp the command to +-supply, V */",
         f"#define WB_DELAY_S {_c_float(d['delay_s'])}      /* sensor delay the design assumed, s */",
         "",
-        f"/* discrete-time gains at WB_RATE_HZ (zero-order hold): voltage = -(K[0]*angle + K[1]*rate + K[2]*wheel) */",
+        "/* discrete-time gains at WB_RATE_HZ (zero-order hold): voltage = -(K[0]*angle + K[1]*rate + K[2]*wheel) */",
         f"static const float WB_K_DISCRETE[3] = {arr(report['discrete'])};",
         "/* continuous-time gains, for reference */",
         f"static const float WB_K_CONTINUOUS[3] = {arr(report['continuous'])};",
