@@ -66,6 +66,7 @@ class EngineModel:
         self._torques = pb.setJointMotorControlArray
         self._step = pb.stepSimulation
         self._torque_mode = pb.TORQUE_CONTROL
+        self._io = None
         self.set_dry_friction(pivot_n_m=device.pivot_coulomb_n_m, wheel_n_m=device.wheel_coulomb_n_m)
 
     def set_dry_friction(self, *, pivot_n_m: float, wheel_n_m: float) -> None:
@@ -85,36 +86,44 @@ class EngineModel:
 
     def read(self) -> tuple[float, float, float, float]:
         """(angle rad, body rate rad/s, wheel angle rad, wheel speed rad/s), the angle unwrapped."""
-        s = self._states(self.body_id, self._joints, physicsClientId=self.client)
-        if self.locked:
-            return self.locked_angle, 0.0, s[1][0], s[1][1]
-        return s[0][0], s[0][1], s[1][0], s[1][1]
+        return self.io()[0]()
 
     def advance(self, pivot_torque_n_m: float, wheel_torque_n_m: float) -> None:
         """Apply joint torques for one step and step the world. The wheel torque's reaction acts on the body."""
-        forces = [wheel_torque_n_m] if self.locked else [pivot_torque_n_m, wheel_torque_n_m]
-        self._torques(self.body_id, self._driven, self._torque_mode, forces=forces, physicsClientId=self.client)
-        self._step(physicsClientId=self.client)
+        self.io()[1](pivot_torque_n_m, wheel_torque_n_m)
 
     def io(self):
-        """(read, advance): the same as the methods, as closures with every lookup bound once.
+        """(read, advance) as closures with every lookup bound once (built on first use).
 
         For the per-step loop, where each attribute lookup and keyword parse is paid 1000 times
         per simulated second (pybullet parses a positional client id faster than a keyword).
+        A locked body's pivot is a fixed joint: it reads as the clamp angle and takes no torque.
         """
-        if self.locked:
-            return self.read, self.advance
+        if self._io is None:
+            self._io = self._bind_io()
+        return self._io
+
+    def _bind_io(self):
         states, torques, step = self._states, self._torques, self._step
         body, cid, joints, mode = self.body_id, self.client, tuple(self._joints), self._torque_mode
+        if self.locked:
+            clamp, wheel_only = self.locked_angle, (WHEEL,)
 
-        def read() -> tuple[float, float, float, float]:
-            pivot, wheel = states(body, joints, cid)
-            return pivot[0], pivot[1], wheel[0], wheel[1]
+            def read() -> tuple[float, float, float, float]:
+                wheel = states(body, joints, cid)[1]
+                return clamp, 0.0, wheel[0], wheel[1]
 
-        def advance(pivot_torque_n_m: float, wheel_torque_n_m: float) -> None:
-            torques(body, joints, mode, forces=(pivot_torque_n_m, wheel_torque_n_m), physicsClientId=cid)
-            step(cid)
+            def advance(pivot_torque_n_m: float, wheel_torque_n_m: float) -> None:
+                torques(body, wheel_only, mode, forces=(wheel_torque_n_m,), physicsClientId=cid)
+                step(cid)
+        else:
+            def read() -> tuple[float, float, float, float]:
+                pivot, wheel = states(body, joints, cid)
+                return pivot[0], pivot[1], wheel[0], wheel[1]
 
+            def advance(pivot_torque_n_m: float, wheel_torque_n_m: float) -> None:
+                torques(body, joints, mode, forces=(pivot_torque_n_m, wheel_torque_n_m), physicsClientId=cid)
+                step(cid)
         return read, advance
 
     def close(self) -> None:
