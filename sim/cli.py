@@ -158,9 +158,9 @@ def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers:
 
 
 def _progress(label: str):
-    """A rich progress bar as an on_progress(done, total) callback, and the Progress to close."""
-    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
-    bar = Progress(TextColumn(label), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(), transient=False)
+    """A progress bar (sim.progress) as an on_progress(done, total) callback, and the Progress to close."""
+    from .progress import progress_bar
+    bar = progress_bar()
     task = bar.add_task(label, total=None)
     return bar, lambda done, total: bar.update(task, completed=done, total=total)
 

@@ -86,7 +86,7 @@ def write_csv(trace: Trace, path) -> None:
     modes = trace.modes()
     with open(path, "w", encoding="utf-8", newline="") as fh:
         fh.write(",".join(names + ["mode"]) + "\n")
-        # one formatted block per row: repr-exact enough (9 significant digits) and fast
+        # 9 significant digits (a float32-level record of float64 state), written in blocks of rows
         fmt = ",".join(["%.9g"] * len(names)) + ",%s\n"
         rows = data.tolist()  # Python floats format about twice as fast as numpy scalars
         for start in range(0, len(rows), 4096):

@@ -17,6 +17,7 @@ import numpy as np
 
 from .errors import InputError
 from .outputs import MARKER, atomic_path
+from .progress import progress_bar
 from .overlay import Dashboard, readout, row_index
 from .render import CAMERAS, Scene
 
@@ -194,24 +195,12 @@ def _gif_palette(first: np.ndarray):
     return Image.fromarray(sheet).quantize(colors=255, method=Image.Quantize.FASTOCTREE, dither=Image.Dither.NONE)
 
 
-def _progress_bar(enabled: bool):
-    """A progress bar on stderr, shown only when stderr is a terminal."""
-    from rich.console import Console
-    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeRemainingColumn
-
-    console = Console(stderr=True)
-    return Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(), TimeRemainingColumn(),
-                    console=console, disable=not (enabled and console.is_terminal), transient=True)
-
-
 def _write(path: Path, painters, fps: int, duration_s: float, progress: bool) -> ClipInfo:
-    import os
-
     n = frame_count(duration_s, fps)
     if n < 1:
         raise InputError(f"--video {path}: the trial lasted {duration_s:g} s, too short for one frame at {fps} fps")
     wall0 = time.perf_counter()
-    with atomic_path(path) as tmp, _progress_bar(progress) as bar:
+    with atomic_path(path) as tmp, progress_bar(enabled=progress) as bar:
         task = bar.add_task(f"rendering {path.name}", total=n)
         sink = _Sink(tmp, fps)
         try:
@@ -221,9 +210,6 @@ def _write(path: Path, painters, fps: int, duration_s: float, progress: bool) ->
                 bar.advance(task)
         finally:
             sink.close()
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)   # the temporary file was private; the clip is an ordinary file
     return ClipInfo(path, n, n / fps, fps, time.perf_counter() - wall0)
 
 
