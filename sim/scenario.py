@@ -303,9 +303,8 @@ class Requirements(Strict):
 
 
 def _strategy_from_raw(raw: Any, info: ValidationInfo) -> StrategySpec:
-    from .strategies import resolve_spec
-    base_dir = (info.context or {}).get("base_dir", Path.cwd())
-    return resolve_spec(raw, base_dir=base_dir)
+    from .strategies import spec_from_raw
+    return spec_from_raw(raw, info)
 
 
 class Scenario(Strict):

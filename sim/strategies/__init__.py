@@ -54,6 +54,12 @@ def builtin_class(kind: str) -> type[Strategy]:
     return getattr(importlib.import_module(module), name)
 
 
+def spec_from_raw(raw: Any, info) -> StrategySpec:
+    """A pydantic BeforeValidator: resolve a `strategy:` mapping (or a nested one) relative to the
+    scenario file's folder, which the loader passes in the validation context as `base_dir`."""
+    return resolve_spec(raw, base_dir=(info.context or {}).get("base_dir", Path.cwd()))
+
+
 def resolve_spec(raw: Any, *, base_dir: Path) -> StrategySpec:
     """Validate a `strategy:` mapping. Raises ValueError("@key: ...") for the scenario loader."""
     if isinstance(raw, StrategySpec):

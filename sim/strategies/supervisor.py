@@ -10,21 +10,14 @@ start clean. The trace's `mode` shows the active law's phase ("kick", "swing up"
 from __future__ import annotations
 
 import math
-from typing import Annotated, Any
+from typing import Annotated
 
 import numpy as np
-from pydantic import BeforeValidator, Field, ValidationInfo, model_validator
+from pydantic import BeforeValidator, Field, model_validator
 
 from ..units import Q
+from . import spec_from_raw
 from .base import Reading, Strategy, StrategyParams, StrategySpec
-
-
-def _nested_spec(raw: Any, info: ValidationInfo) -> StrategySpec:
-    from pathlib import Path
-
-    from . import resolve_spec
-    base_dir = (info.context or {}).get("base_dir", Path.cwd())
-    return resolve_spec(raw, base_dir=base_dir)
 
 
 def _is_lqr(cls) -> bool:
@@ -56,7 +49,7 @@ def lqr_catch_region(device, lqr_params, *, catch_angle_rad: float) -> tuple[np.
     return P, catch_angle_rad**2 / float(Pinv[0, 0])
 
 
-NestedSpec = Annotated[StrategySpec, BeforeValidator(_nested_spec)]
+NestedSpec = Annotated[StrategySpec, BeforeValidator(spec_from_raw)]
 
 
 class SwingAndCatch(Strategy):
