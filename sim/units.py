@@ -41,7 +41,7 @@ KINDS: dict[str, tuple[str, str]] = {
 
 @lru_cache(maxsize=1)
 def registry():
-    """The one pint unit registry (built lazily: pint's start-up costs ~0.3 s)."""
+    """The one pint unit registry, built lazily: importing pint and building it costs about 1 s."""
     import pint
 
     reg = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
