@@ -45,23 +45,44 @@ def bryson_weights(device) -> tuple[np.ndarray, float]:
     return 1.0 / x_max**2, 1.0 / device.supply_v**2
 
 
-def design_lqr(device, *, weights=None, effort=None) -> LqrDesign:
-    """Continuous and discrete LQR gains at the device's control rate."""
-    from scipy.linalg import solve_continuous_are, solve_discrete_are
+# Designs already solved in this process, by their exact inputs. A design is a pure function of
+# (A, B, Q, R, T); catch maps, push bisections and Monte Carlo runs build the same law hundreds of
+# times, and the two Riccati solutions were ~15% of a short trial's time. Cached arrays are made
+# read-only, so no caller can change a design another trial shares.
+_DESIGNS: dict[bytes, "LqrDesign"] = {}
+_DESIGNS_KEPT = 64
 
+
+def design_lqr(device, *, weights=None, effort=None) -> LqrDesign:
+    """Continuous and discrete LQR gains at the device's control rate (solved once per distinct input)."""
     q_default, r_default = bryson_weights(device)
     Q = np.diag(np.asarray(weights if weights is not None else q_default, dtype=float))
     R = float(effort if effort is not None else r_default)
     A, B = device.linear_model()
     T = 1.0 / device.control_rate_hz
+    key = b"".join(np.ascontiguousarray(a, dtype=float).tobytes() for a in (A, B, Q, np.array([R, T])))
+    design = _DESIGNS.get(key)
+    if design is None:
+        if len(_DESIGNS) >= _DESIGNS_KEPT:
+            _DESIGNS.pop(next(iter(_DESIGNS)))  # the oldest: sweeps move on and rarely come back
+        design = _DESIGNS[key] = _solve_lqr(A, B, Q, R, T)
+    return design
+
+
+def _solve_lqr(A: np.ndarray, B: np.ndarray, Q: np.ndarray, R: float, T: float) -> LqrDesign:
+    from scipy.linalg import solve_continuous_are, solve_discrete_are
+
+    A, B, Q = (np.array(a, dtype=float) for a in (A, B, Q))
     Ad, Bd = zoh_discretise(A, B, T)
     X = solve_continuous_are(A, B, Q, np.array([[R]]))
     Kc = (B.T @ X) / R
     Xd = solve_discrete_are(Ad, Bd, Q, np.array([[R]]))
     Kd = np.linalg.solve(np.array([[R]]) + Bd.T @ Xd @ Bd, Bd.T @ Xd @ Ad)
-    return LqrDesign(A=A, B=B, Ad=Ad, Bd=Bd, Q=Q, R=R, K_continuous=Kc.ravel(), K_discrete=Kd.ravel(),
-                     poles_continuous=np.linalg.eigvals(A - B @ Kc), poles_discrete=np.linalg.eigvals(Ad - Bd @ Kd),
-                     period_s=T)
+    arrays = dict(A=A, B=B, Ad=Ad, Bd=Bd, Q=Q, K_continuous=Kc.ravel(), K_discrete=Kd.ravel(),
+                  poles_continuous=np.linalg.eigvals(A - B @ Kc), poles_discrete=np.linalg.eigvals(Ad - Bd @ Kd))
+    for a in arrays.values():
+        a.setflags(write=False)
+    return LqrDesign(R=R, period_s=T, **arrays)
 
 
 def zoh_discretise(A: np.ndarray, B: np.ndarray, period_s: float) -> tuple[np.ndarray, np.ndarray]:
