@@ -7,6 +7,9 @@ tick, held (zero-order hold), as the strategy saw them.
 
 from __future__ import annotations
 
+import os
+import tempfile
+
 import numpy as np
 
 from .engine import wrap_angles
@@ -19,18 +22,39 @@ CSV_COLUMNS = (
 )
 
 
+IN_MEMORY_ROWS = 1_000_000
+"""Above this many rows (about 90 MB of columns, a 1,000 s trial at 1 kHz) the columns live in a
+temporary file mapped into memory instead of in anonymous memory: the kernel can write those pages
+out under memory pressure, so a trial near the 5,000,000-step limit (about 450 MB of trace)
+cannot push the machine into swap or the out-of-memory killer."""
+
+
 class Trace:
-    """Preallocated columns for `capacity` rows; `n` rows are filled."""
+    """Preallocated columns for `capacity` rows; `n` rows are filled.
+
+    `shared=True` backs the columns with a temporary file mapped MAP_SHARED, so that a process
+    forked after construction writes rows its parent can read; long traces are backed that way too
+    (see IN_MEMORY_ROWS). Either way the columns are plain numpy arrays to their users.
+    """
 
     FLOAT_COLUMNS = ("t", "angle", "rate", "wheel_angle", "wheel_speed", "voltage", "current", "torque",
                      "meas_angle", "meas_rate", "meas_wheel")
 
-    def __init__(self, capacity: int, *, step_s: float):
+    def __init__(self, capacity: int, *, step_s: float, shared: bool = False):
         self.step_s = step_s
         self.n = 0
-        for name in self.FLOAT_COLUMNS:
-            setattr(self, name, np.zeros(capacity))
-        self.mode = np.zeros(capacity, dtype=np.int16)
+        n_float = len(self.FLOAT_COLUMNS)
+        mapped = _file_backed(capacity * (8 * n_float + 2)) if (shared or capacity > IN_MEMORY_ROWS) else None
+        self.file_backed = mapped is not None
+        if mapped is None:
+            if shared and capacity > 0:
+                raise OSError("no room for a shared trace in the temporary directory")
+            floats, self.mode = np.zeros((n_float, capacity)), np.zeros(capacity, dtype=np.int16)
+        else:
+            floats = mapped[: 8 * n_float * capacity].view(np.float64).reshape(n_float, capacity)
+            self.mode = mapped[8 * n_float * capacity:].view(np.int16)
+        for i, name in enumerate(self.FLOAT_COLUMNS):
+            setattr(self, name, floats[i])
         self.phases: list[str] = []
 
     def phase_code(self, phase: str) -> int:
@@ -54,20 +78,7 @@ class Trace:
 
     def columns(self) -> dict[str, np.ndarray]:
         """The CSV columns (numeric ones), named with units."""
-        return {
-            "t_s": self.view("t"),
-            "angle_rad": wrap_angles(self.view("angle").copy()),
-            "rate_rad_s": self.view("rate"),
-            "wheel_speed_rad_s": self.view("wheel_speed"),
-            "voltage_v": self.view("voltage"),
-            "current_a": self.view("current"),
-            "torque_n_m": self.view("torque"),
-            "power_w": self.power,
-            "wheel_angle_rad": self.view("wheel_angle"),
-            "measured_angle_rad": self.view("meas_angle"),
-            "measured_rate_rad_s": self.view("meas_rate"),
-            "measured_wheel_speed_rad_s": self.view("meas_wheel"),
-        }
+        return _block_columns(self, 0, self.n)
 
     def state_at(self, t_s: float) -> dict[str, float]:
         """The row nearest time `t_s` (for frame overlays and checks)."""
@@ -78,17 +89,60 @@ class Trace:
         return row
 
 
+def _file_backed(n_bytes: int) -> np.ndarray | None:
+    """A zeroed uint8 array of `n_bytes` mapped from an unlinked temporary file, or None when the
+    temporary directory has no room. The file's blocks are reserved up front (posix_fallocate):
+    a mapped page that cannot be written back later would kill the process with SIGBUS."""
+    if n_bytes == 0:
+        return None
+    try:
+        with tempfile.TemporaryFile(prefix="wheelbench-trace-") as fh:
+            if hasattr(os, "posix_fallocate"):
+                os.posix_fallocate(fh.fileno(), 0, n_bytes)
+            else:
+                fh.truncate(n_bytes)
+            return np.memmap(fh, dtype=np.uint8, mode="r+", shape=(n_bytes,))  # the mapping outlives the file
+    except OSError:
+        return None
+
+
+CSV_BLOCK_ROWS = 4096
+
+
 def write_csv(trace: Trace, path) -> None:
-    """Write the trace as CSV (header with units) to `path` (caller handles atomicity)."""
-    cols = trace.columns()
-    names = list(cols)
-    data = np.column_stack([cols[n] for n in names]) if trace.n else np.zeros((0, len(names)))
-    modes = trace.modes()
+    """Write the trace as CSV (header with units) to `path` (caller handles atomicity).
+
+    Written a block of rows at a time: memory beyond the trace itself stays a few MB however long
+    the trial (one table of Python floats for a 5,000,000-row trace would take gigabytes).
+    """
+    names = list(CSV_COLUMNS[:-1])
     with open(path, "w", encoding="utf-8", newline="") as fh:
         fh.write(",".join(names + ["mode"]) + "\n")
-        # 9 significant digits (a float32-level record of float64 state), written in blocks of rows
+        # 9 significant digits (a float32-level record of float64 state)
         fmt = ",".join(["%.9g"] * len(names)) + ",%s\n"
-        rows = data.tolist()  # Python floats format about twice as fast as numpy scalars
-        for start in range(0, len(rows), 4096):
-            fh.write("".join([fmt % (*row, mode) for row, mode in
-                              zip(rows[start:start + 4096], modes[start:start + 4096])]))
+        phases = trace.phases
+        for start in range(0, trace.n, CSV_BLOCK_ROWS):
+            stop = min(start + CSV_BLOCK_ROWS, trace.n)
+            cols = _block_columns(trace, start, stop)
+            rows = np.column_stack([cols[n] for n in names]).tolist()  # Python floats format ~2x faster
+            modes = [phases[c] for c in trace.mode[start:stop]] if phases else [""] * (stop - start)
+            fh.write("".join([fmt % (*row, mode) for row, mode in zip(rows, modes)]))
+
+
+def _block_columns(trace: Trace, start: int, stop: int) -> dict[str, np.ndarray]:
+    """The CSV's numeric columns for rows start..stop-1 (same values as `Trace.columns`)."""
+    s = slice(start, stop)
+    return {
+        "t_s": trace.t[s],
+        "angle_rad": wrap_angles(trace.angle[s].copy()),
+        "rate_rad_s": trace.rate[s],
+        "wheel_speed_rad_s": trace.wheel_speed[s],
+        "voltage_v": trace.voltage[s],
+        "current_a": trace.current[s],
+        "torque_n_m": trace.torque[s],
+        "power_w": trace.voltage[s] * trace.current[s],
+        "wheel_angle_rad": trace.wheel_angle[s],
+        "measured_angle_rad": trace.meas_angle[s],
+        "measured_rate_rad_s": trace.meas_rate[s],
+        "measured_wheel_speed_rad_s": trace.meas_wheel[s],
+    }

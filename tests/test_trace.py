@@ -1,0 +1,68 @@
+"""The trace: long trials are backed by a temporary file, with the same numbers and the same CSV."""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+import pytest
+
+from sim import trace as trace_mod
+from sim.scenario import load_raw, validate_scenario
+from sim.trace import Trace, write_csv
+from sim.trial import run_trial
+
+
+def _short_scenario():
+    raw, where = load_raw(None, ("strategy={kind: lqr}", "trial.pushes=[]", "trial.start.angle=3 deg",
+                                 "trial.duration=0.5"))
+    return validate_scenario(raw, where=where)
+
+
+def test_long_trace_is_file_backed_and_writes_the_same_csv(tmp_path, monkeypatch):
+    sc = _short_scenario()
+    in_memory = run_trial(sc, seed=3)
+    assert not in_memory.trace.file_backed
+    monkeypatch.setattr(trace_mod, "IN_MEMORY_ROWS", 100)   # this 500-row trial now counts as long
+    on_file = run_trial(sc, seed=3)
+    assert on_file.trace.file_backed
+    write_csv(in_memory.trace, tmp_path / "a.csv")
+    write_csv(on_file.trace, tmp_path / "b.csv")
+    assert (tmp_path / "a.csv").read_bytes() == (tmp_path / "b.csv").read_bytes()
+    assert on_file.trace.n == 500
+
+
+def test_csv_blocks_join_without_gaps_or_repeats(tmp_path, monkeypatch):
+    monkeypatch.setattr(trace_mod, "CSV_BLOCK_ROWS", 7)     # 50 rows: 7 full blocks and one of 1
+    tr = Trace(60, step_s=0.01)
+    tr.n = 50
+    tr.t[:50] = np.arange(50) * 0.01
+    tr.angle[:50] = np.linspace(-4, 4, 50)                  # crosses the wrap at +-pi
+    tr.mode[:50] = np.arange(50) % 2
+    tr.phases = ["swing", "balance"]
+    write_csv(tr, tmp_path / "t.csv")
+    lines = (tmp_path / "t.csv").read_text().splitlines()
+    assert len(lines) == 51
+    body = np.array([[float(x) for x in line.split(",")[:-1]] for line in lines[1:]])
+    assert np.allclose(body[:, 0], tr.t[:50])
+    assert np.allclose(body[:, 1], np.remainder(tr.angle[:50] + np.pi, 2 * np.pi) - np.pi)
+    assert [line.rsplit(",", 1)[1] for line in lines[1:]] == ["swing", "balance"] * 25
+
+
+def test_shared_trace_shows_a_forked_childs_rows():
+    if not hasattr(os, "fork"):
+        pytest.skip("needs fork")
+    tr = Trace(10, step_s=0.001, shared=True)
+    pid = os.fork()
+    if pid == 0:  # the child writes one value and leaves at once
+        tr.rate[3] = 42.0
+        os._exit(0)
+    os.waitpid(pid, 0)
+    assert tr.rate[3] == 42.0
+    plain = Trace(10, step_s=0.001)
+    pid = os.fork()
+    if pid == 0:
+        plain.rate[3] = 42.0
+        os._exit(0)
+    os.waitpid(pid, 0)
+    assert plain.rate[3] == 0.0  # the control: without sharing the parent sees nothing
