@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import copy
 import csv
+import json
 import math
 from pathlib import Path
 
@@ -50,21 +51,35 @@ def default_ranges(scenario) -> tuple[float, float]:
     return angle, pole * angle if pole > 0 else angle
 
 
+# Per process: the balance scenario of the map being run, validated once (key -> (scenario, limit)).
+# Every cell differs only in its start state, so a cell re-checks just its `trial` section.
+_BASE: dict = {}
+
+
+def _base_scenario(payload: dict):
+    """(validated balance scenario with the cell window, wheel no-load speed rad/s), cached by key."""
+    key = payload["key"]
+    if key not in _BASE:
+        from .device import Device
+        from .scenario import validate_scenario
+        raw = copy.deepcopy(payload["raw"])
+        raw["trial"] = {**(raw.get("trial") or {}), "duration": payload["window_s"], "pushes": []}
+        sc = validate_scenario(raw, where=payload["where"])
+        _BASE.clear()
+        _BASE[key] = (sc, Device.from_scenario(sc).no_load_speed_rad_s)
+    return _BASE[key]
+
+
 def cell_task(payload: dict) -> dict:
     """Run one cell (module-level so worker processes can run it)."""
-    from .scenario import validate_scenario
-    from .verdicts import run_until_clear
-    raw = copy.deepcopy(payload["raw"])
-    raw["trial"] = {**(raw.get("trial") or {}), "duration": payload["window_s"], "pushes": [],
-                    "start": {"angle": payload["angle"], "rate": payload["rate"], "wheel_speed": 0.0}}
+    from .verdicts import run_until_clear, with_trial
     row = {"angle_rad": payload["angle"], "rate_rad_s": payload["rate"]}
     try:
-        sc = validate_scenario(raw, where=payload["where"])
-    except ScenarioError as exc:
-        return row | {"caught": False, "outcome": "invalid", "message": str(exc)}
+        base, limit = _base_scenario(payload)
+        sc = with_trial(base, start={"angle": payload["angle"], "rate": payload["rate"], "wheel_speed": 0.0})
+    except (ScenarioError, ValueError) as exc:  # pydantic's ValidationError is a ValueError
+        return row | {"caught": False, "outcome": "invalid", "message": str(exc).splitlines()[0]}
     res = run_until_clear(sc, seed=payload["seed"])
-    from .device import Device
-    limit = Device.from_scenario(sc).no_load_speed_rad_s
     return row | {"caught": res["caught"], "outcome": res["outcome"], "ended_at_s": res["ended_at_s"],
                   "peak_wheel_speed_rad_s": res["peak_wheel_speed_rad_s"],
                   "wheel_speed_margin": 1.0 - res["peak_wheel_speed_rad_s"] / limit}
@@ -86,7 +101,8 @@ def catch_map(raw: dict, where: str, *, grid: int = 21, angle_max: float | None 
     r_max = r_def if rate_max is None else rate_max
     angles = np.linspace(-a_max, a_max, grid) if grid > 1 else np.array([0.0])
     rates = np.linspace(-r_max, r_max, grid) if grid > 1 else np.array([0.0])
-    tasks = ((i, {"raw": braw, "where": where, "window_s": window_s, "angle": float(angles[i // grid]),
+    key = f"{where}|{window_s!r}|{json.dumps(braw, sort_keys=True, default=repr)}"
+    tasks = ((i, {"raw": braw, "where": where, "key": key, "window_s": window_s, "angle": float(angles[i // grid]),
                   "rate": float(rates[i % grid]), "seed": trial_seed(sc.trial.seed, i)})
              for i in range(grid * grid))
     rows: list = [None] * (grid * grid)
