@@ -31,17 +31,39 @@ class EngineModel:
         self.pb = pb
         self.device = device
         self.step_s = step_s
-        self.client = _take_client(pb)
         self.locked = device.locked
         self.locked_angle = start_angle_rad
+        # the same device on an idle client is reused as it is: only its joints and friction are
+        # reset (rebuilding costs ~4 ms, a fifth of a short catch-map cell); a body drawn for video
+        # carries visual shapes and is always built anew
+        self.body_key = None if visual is not None else _body_key(device, step_s, start_angle_rad if self.locked else None)
+        self.client, self.body_id = _take_client(pb, self.body_key)
+        if self.body_id is None:
+            self.body_id = self._build(visual)
+        else:
+            for joint in ([WHEEL] if self.locked else [PIVOT, WHEEL]):
+                pb.resetJointState(self.body_id, joint, 0.0, 0.0, physicsClientId=self.client)
+        # hoisted for the per-step loop; a locked body's pivot is a fixed joint and takes no commands
+        self._joints = [PIVOT, WHEEL]
+        self._driven = [WHEEL] if self.locked else [PIVOT, WHEEL]
+        self._states = pb.getJointStates
+        self._torques = pb.setJointMotorControlArray
+        self._step = pb.stepSimulation
+        self._torque_mode = pb.TORQUE_CONTROL
+        self._io = None
+        self.set_dry_friction(pivot_n_m=device.pivot_coulomb_n_m, wheel_n_m=device.wheel_coulomb_n_m)
+
+    def _build(self, visual) -> int:
+        """Empty the client and build the device in it; returns the multibody's id."""
+        pb, device, start_angle_rad = self.pb, self.device, self.locked_angle
         cid = self.client
         pb.resetSimulation(physicsClientId=cid)
         pb.setGravity(0, 0, -device.gravity_m_s2, physicsClientId=cid)
-        pb.setTimeStep(step_s, physicsClientId=cid)
+        pb.setTimeStep(self.step_s, physicsClientId=cid)
         pb.setPhysicsEngineParameter(numSubSteps=0, physicsClientId=cid)
         vis = visual.shapes(pb, cid) if visual is not None else (-1, -1, -1)
         q_lock = pb.getQuaternionFromEuler([start_angle_rad, 0, 0]) if self.locked else [0, 0, 0, 1]
-        self.body_id = pb.createMultiBody(
+        body_id = pb.createMultiBody(
             baseMass=0.0, baseCollisionShapeIndex=-1, baseVisualShapeIndex=vis[0], basePosition=[0, 0, 0],
             linkMasses=[device.body.mass_kg, device.wheel.mass_kg],
             linkCollisionShapeIndices=[-1, -1], linkVisualShapeIndices=[vis[1], vis[2]],
@@ -56,18 +78,10 @@ class EngineModel:
         )
         for link, props in ((PIVOT, device.body), (WHEEL, device.wheel)):
             # inertia must be set in its own call: passing mass in the same call drops it (pybullet 3.2.7)
-            pb.changeDynamics(self.body_id, link, localInertiaDiagonal=list(props.inertia_com), physicsClientId=cid)
-            pb.changeDynamics(self.body_id, link, linearDamping=0.0, angularDamping=0.0, jointDamping=0.0,
+            pb.changeDynamics(body_id, link, localInertiaDiagonal=list(props.inertia_com), physicsClientId=cid)
+            pb.changeDynamics(body_id, link, linearDamping=0.0, angularDamping=0.0, jointDamping=0.0,
                               maxJointVelocity=MAX_JOINT_SPEED, physicsClientId=cid)
-        # hoisted for the per-step loop; a locked body's pivot is a fixed joint and takes no commands
-        self._joints = [PIVOT, WHEEL]
-        self._driven = [WHEEL] if self.locked else [PIVOT, WHEEL]
-        self._states = pb.getJointStates
-        self._torques = pb.setJointMotorControlArray
-        self._step = pb.stepSimulation
-        self._torque_mode = pb.TORQUE_CONTROL
-        self._io = None
-        self.set_dry_friction(pivot_n_m=device.pivot_coulomb_n_m, wheel_n_m=device.wheel_coulomb_n_m)
+        return body_id
 
     def set_dry_friction(self, *, pivot_n_m: float, wheel_n_m: float) -> None:
         """Coulomb friction (or a brake) as zero-target velocity motors with a force cap, N m."""
@@ -127,10 +141,10 @@ class EngineModel:
         return read, advance
 
     def close(self) -> None:
-        """Hand the client back for the next trial in this process (or disconnect it)."""
+        """Hand the client (and the body in it) back for the next trial in this process."""
         client, self.client = self.client, None
         if client is not None:
-            _give_back_client(self.pb, client)
+            _give_back_client(self.pb, client, self.body_key, self.body_id)
 
     def __enter__(self):
         return self
@@ -139,26 +153,33 @@ class EngineModel:
         self.close()
 
 
-# One idle DIRECT client kept per process: connecting costs ~20 ms, half of a short catch-map
-# trial. A reused client is emptied with resetSimulation when it is taken and set up exactly as a new one (the
-# determinism tests compare runs on fresh and reused clients across worker counts).
-_IDLE_CLIENTS: list[int] = []
+# One idle DIRECT client kept per process, with the body it last held: connecting costs ~20 ms and
+# building a body ~4 ms, most of a short catch-map trial. A reused client whose body is a different
+# device is emptied with resetSimulation and built exactly as a new one; the same device is only
+# reset (joint states, friction motors). The determinism tests compare runs on fresh and reused
+# clients and bodies across worker counts, byte for byte.
+_IDLE_CLIENTS: list[tuple[int, tuple | None, int]] = []   # (client id, body key, body id)
 
 
-def _take_client(pb) -> int:
+def _body_key(device: Device, step_s: float, locked_angle_rad: float | None) -> tuple:
+    """Everything the engine's body is built from (equal keys build identical bodies)."""
+    return (step_s, device.gravity_m_s2, device.wheel_at_m, device.body, device.wheel, device.locked,
+            locked_angle_rad)
+
+
+def _take_client(pb, key: tuple | None) -> tuple[int, int | None]:
+    """(client id, body id to reuse or None)."""
     while _IDLE_CLIENTS:
-        cid = _IDLE_CLIENTS.pop()
+        cid, held, body = _IDLE_CLIENTS.pop()
         if pb.isConnected(physicsClientId=cid):
-            return cid
-    return pb.connect(pb.DIRECT)
+            return cid, (body if key is not None and held == key else None)
+    return pb.connect(pb.DIRECT), None
 
 
-def _give_back_client(pb, cid: int) -> None:
-    # not emptied here: the next EngineModel empties it anyway (resetSimulation costs ~2.7 ms, a
-    # tenth of a catch-map cell), and an idle client holding one small body costs nothing
+def _give_back_client(pb, cid: int, key: tuple | None, body: int) -> None:
     try:
         if not _IDLE_CLIENTS and pb.isConnected(physicsClientId=cid):
-            _IDLE_CLIENTS.append(cid)
+            _IDLE_CLIENTS.append((cid, key, body))
         else:
             pb.disconnect(physicsClientId=cid)
     except Exception:  # already gone: nothing to free

@@ -1,0 +1,68 @@
+"""A pybullet body reused from the previous trial in this process gives exactly the numbers a
+newly built one gives (the engine resets joints and friction instead of rebuilding the same device)."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from sim import engine as engine_mod
+from sim.scenario import load_raw, validate_scenario
+from sim.trial import run_trial
+from tests.conftest import make_scenario
+
+
+def _demo(*overrides):
+    raw, where = load_raw(None, tuple(overrides))
+    return validate_scenario(raw, where=where)
+
+
+def _columns(result):
+    return {name: result.trace.view(name).copy() for name in result.trace.FLOAT_COLUMNS} | {
+        "mode": result.trace.view("mode").copy()}
+
+
+def _fresh(scenario, seed):
+    engine_mod._IDLE_CLIENTS.clear()          # nothing to reuse: connect and build anew
+    return run_trial(scenario, seed=seed)
+
+
+CASES = {
+    # (warm-up trial that leaves the body spinning, fast and braked; the trial compared)
+    "balance after a swing-up": (lambda: _demo(), lambda: _demo("strategy={kind: lqr}", "trial.start.angle=4 deg")),
+    "swing-up after a push trial": (lambda: _demo("strategy={kind: lqr}", "trial.start.angle=4 deg"), lambda: _demo()),
+    "locked body after a free one": (lambda: make_scenario(strategy={"kind": "fixed_voltage", "volts": 6.0}),
+                                     lambda: make_scenario(body={"locked": True}, strategy={"kind": "fixed_voltage", "volts": 6.0})),
+    "the same device twice, other start": (lambda: make_scenario(strategy={"kind": "fixed_voltage", "volts": 12.0}),
+                                           lambda: make_scenario(trial={"start": {"angle": 0.3, "rate": -1.0}})),
+}
+
+
+@pytest.mark.parametrize("case", list(CASES))
+def test_reused_body_gives_the_numbers_of_a_new_one(case):
+    warm, compared = CASES[case]
+    first, second = warm(), compared()
+    expected = _columns(_fresh(second, seed=11))
+    _fresh(first, seed=5)                       # leaves its client and body idle for the next trial
+    assert engine_mod._IDLE_CLIENTS, "the warm-up trial did not hand its client back"
+    reused = run_trial(second, seed=11)
+    got = _columns(reused)
+    for name, column in expected.items():
+        assert np.array_equal(got[name], column), f"column {name} differs on a reused body"
+
+
+def test_same_device_is_reused_and_another_is_rebuilt():
+    a = make_scenario()
+    b = make_scenario(wheel={"parts": [{"name": "disk", "shape": "disk", "radius": 0.06, "thickness": 0.005, "mass": 0.1}]})
+    _fresh(a, seed=1)
+    (cid, _, body), = engine_mod._IDLE_CLIENTS
+    built = []
+    real = engine_mod.EngineModel._build
+    engine_mod.EngineModel._build = lambda self, visual: built.append(1) or real(self, visual)
+    try:
+        run_trial(a, seed=1)
+        assert built == [] and engine_mod._IDLE_CLIENTS[0][0] == cid   # same client, same body
+        run_trial(b, seed=1)
+        assert built == [1]                                              # a different wheel: rebuilt
+    finally:
+        engine_mod.EngineModel._build = real
