@@ -26,13 +26,16 @@ def default_workers() -> int:
 
 
 def run_tasks(fn: Callable[[Any], Any], tasks: Iterable[tuple[int, Any]], *, workers: int | None = None,
-              cluster: Any = None) -> Iterator[tuple[int, Any]]:
+              cluster: Any = None, batch: int = 1) -> Iterator[tuple[int, Any]]:
     """Yield (index, fn(payload)) for each (index, payload) in `tasks`, in completion order.
 
     Parameters
     ----------
     workers : local worker processes; 1 runs in this process; None means all cores.
     cluster : a dask.distributed scheduler address (str) or Client; overrides `workers`.
+    batch : payloads sent to a local worker per round trip. For tasks of a few tens of ms (catch-map
+        cells) the parent's share of each round trip (pickling, queue threads, waking up) takes
+        time from the workers on a 2-core machine; results still come back one per task.
     """
     # Not a generator itself: bad options and an unreachable scheduler fail here, before a caller
     # writes anything; the work starts when the returned iterator is first read.
@@ -44,7 +47,9 @@ def run_tasks(fn: Callable[[Any], Any], tasks: Iterable[tuple[int, Any]], *, wor
         raise InputError(f"--workers: expected at least 1, found {workers}")
     if workers == 1:
         return ((index, fn(payload)) for index, payload in tasks)
-    return _run_pool(fn, tasks, workers)
+    if batch < 1:
+        raise ValueError(f"batch must be at least 1, found {batch}")
+    return _run_pool(fn, tasks, workers, batch)
 
 
 def _warm_imports() -> None:
@@ -67,7 +72,12 @@ def _die_with_parent() -> None:
         pass
 
 
-def _run_pool(fn, tasks, workers: int):
+def _run_batch(fn, payloads: list) -> list:
+    """In a worker: fn over a batch of payloads (module-level so it pickles by reference)."""
+    return [fn(p) for p in payloads]
+
+
+def _run_pool(fn, tasks, workers: int, batch: int):
     from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
     _warm_imports()
@@ -78,14 +88,14 @@ def _run_pool(fn, tasks, workers: int):
         try:
             while pending or not exhausted:
                 while not exhausted and len(pending) < IN_FLIGHT_PER_WORKER * workers:
-                    item = next(source, None)
-                    if item is None:
+                    items = _take(source, batch)
+                    if not items:
                         exhausted = True
                         break
-                    pending[pool.submit(fn, item[1])] = item[0]
+                    pending[pool.submit(_run_batch, fn, [p for _, p in items])] = [i for i, _ in items]
                 done, _ = wait(pending, return_when=FIRST_COMPLETED)
                 for fut in done:
-                    yield pending.pop(fut), fut.result()
+                    yield from zip(pending.pop(fut), fut.result())
         finally:
             for fut in pending:
                 fut.cancel()
