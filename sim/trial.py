@@ -12,15 +12,17 @@ import math
 import signal
 import threading
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
+from . import isolation
 from .device import Device
 from .engine import EngineModel, wrap_angle
 from .errors import StrategyError
 from .motor import MotorDrive
 from .sensors import SensorSuite
+from .strategies import plugins_in
 from .strategies.base import Reading
 from .trace import Trace
 
@@ -84,6 +86,7 @@ class StrategyClock:
         self.expired = False
         self.interrupts = False
         self._previous = None
+        self.strategy = None    # the strategy being timed, once built (for subclasses' bookkeeping)
 
     def __enter__(self) -> "StrategyClock":
         if (hasattr(signal, "setitimer") and math.isfinite(self.budget_s)
@@ -101,7 +104,8 @@ class StrategyClock:
             signal.signal(signal.SIGALRM, self._previous if self._previous is not None else signal.SIG_DFL)
             self.interrupts = False
 
-    def enter(self) -> None:
+    def enter(self, k: int = -1) -> None:
+        """Start a strategy call at physics step `k` (-1: building the strategy)."""
         self.t_in = time.perf_counter()
 
     def leave(self) -> None:
@@ -110,6 +114,10 @@ class StrategyClock:
         self.t_in = None
         if self.used_s > self.budget_s:
             self._expire()
+
+    def abandon(self) -> None:
+        """End a strategy call that raised (the trial ends; its time is not counted)."""
+        self.t_in = None
 
     def _expire(self):
         self.expired = True
@@ -126,8 +134,30 @@ class StrategyClock:
             signal.setitimer(signal.ITIMER_REAL, max(self.budget_s - spent, 1e-3))
 
 
+class _WatchedClock(StrategyClock):
+    """A StrategyClock that also keeps the watchdog's heartbeat: isolated trials only (see
+    `sim.isolation`), so that the in-process loop pays nothing for it."""
+
+    def __init__(self, budget_s: float, beat: isolation.Heartbeat):
+        super().__init__(budget_s)
+        self.beat = beat
+
+    def enter(self, k: int = -1) -> None:
+        super().enter(k)
+        self.beat.entered(k, self.t_in + max(self.budget_s - self.used_s, 0.0) + isolation.GRACE_S)
+
+    def leave(self) -> None:
+        self.beat.left(getattr(self.strategy, "saturated_ticks", 0))
+        super().leave()
+
+    def abandon(self) -> None:
+        self.beat.left(getattr(self.strategy, "saturated_ticks", 0))
+        super().abandon()
+
+
 def run_trial(scenario, *, seed: int | None = None, stop_early: bool | None = None,
-              visual=None, on_step=None, strategy_budget_s: float | None = None) -> TrialResult:
+              visual=None, on_step=None, strategy_budget_s: float | None = None,
+              isolate: bool | None = None) -> TrialResult:
     """Simulate one trial of `scenario`.
 
     Parameters
@@ -137,25 +167,83 @@ def run_trial(scenario, *, seed: int | None = None, stop_early: bool | None = No
     visual : optional visual model for rendering (see `sim.render`); None for none.
     on_step : optional callable(k, engine) after every engine step (rendering hooks).
     strategy_budget_s : wall-clock budget for strategy code, s (default STRATEGY_BUDGET_S).
+    isolate : run the trial in a forked child process watched by this one (`sim.isolation`), so
+        that strategy code stuck in compiled code or crashing ends as `strategy_failed` instead of
+        hanging or killing this process. None (default): exactly when the strategy, or one nested
+        in it, is a plug-in, no `visual` is given and the platform can fork. The numbers are the
+        same either way; an `on_step` hook then runs in the child (its exceptions and attributes
+        come back, other side effects stay there).
     """
     device = Device.from_scenario(scenario)
-    dt = scenario.world.step
-    n = scenario.n_steps
     seed = scenario.trial.seed if seed is None else seed
     stop_early = scenario.trial.stop_early if stop_early is None else stop_early
+    budget = STRATEGY_BUDGET_S if strategy_budget_s is None else strategy_budget_s
+    if isolate is None:
+        isolate = visual is None and isolation.AVAILABLE and bool(plugins_in(scenario.strategy))
+    if not isolate:
+        trace = Trace(scenario.n_steps, step_s=scenario.world.step)
+        return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
+                         visual=visual, on_step=on_step)
+    if visual is not None or not isolation.AVAILABLE:
+        raise ValueError("isolate=True needs os.fork and no visual (rendering runs in this process only)")
+    return _run_isolated(scenario, device, budget, seed=seed, stop_early=stop_early, on_step=on_step)
+
+
+def _simulate(scenario, device, trace, clock, *, seed, stop_early, visual, on_step) -> TrialResult:
+    """The trial in this process, its rows into `trace`, its strategy timed by `clock`."""
+    dt, n = scenario.world.step, scenario.n_steps
     rng = np.random.default_rng(seed)
-    trace = Trace(n, step_s=dt)
     start = scenario.trial.start
     engine = EngineModel(device, step_s=dt, start_angle_rad=start.angle, visual=visual)
-    budget = STRATEGY_BUDGET_S if strategy_budget_s is None else strategy_budget_s
     try:
         engine.reset(angle_rad=start.angle, rate_rad_s=start.rate, wheel_speed_rad_s=start.wheel_speed)
+        if n > 0:  # where the body starts, recorded even if the strategy cannot be built
+            trace.angle[0], trace.rate[0], trace.wheel_angle[0], trace.wheel_speed[0] = engine.read()
         sensors = SensorSuite(scenario.sensors, step_s=dt, n_ticks=n // scenario.control_steps + 1, rng=rng)
-        with StrategyClock(budget) as clock:
+        with clock:
             strategy, failure = _build_strategy(scenario, device, rng, clock)
+            clock.strategy = strategy
             return _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock)
     finally:
         engine.close()
+
+
+def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step) -> TrialResult:
+    """The trial in a forked child (`sim.isolation`): its rows land in a shared trace, the rest of
+    its result comes back pickled. A child stuck in strategy code or dead ends as strategy_failed."""
+    trace = Trace(scenario.n_steps, step_s=scenario.world.step, shared=True)
+    clock = _WatchedClock(budget, isolation.Heartbeat())
+
+    def work():
+        result = _simulate(scenario, device, trace, clock, seed=seed, stop_early=stop_early, visual=None,
+                           on_step=on_step)
+        clock.enter(max(trace.n - 1, 0))  # reading the strategy's attributes may run its code as well
+        strategy = isolation.pack_strategy(result.strategy)
+        clock.abandon()
+        return replace(result, trace=None, device=None, scenario=None, strategy=strategy), trace.n, trace.phases
+
+    sent, lost = isolation.run_in_child(work, beat=clock.beat, mirror=on_step)
+    if lost is not None:
+        return _lost_child_result(scenario, device, trace, budget, lost)
+    result, trace.n, trace.phases = sent
+    return replace(result, trace=trace, device=device, scenario=scenario,
+                   strategy=isolation.unpack_strategy(result.strategy, device=device))
+
+
+def _lost_child_result(scenario, device, trace, budget: float, lost: isolation.LostChild) -> TrialResult:
+    """strategy_failed at the step of the lost child's last strategy call, with the conventions of the
+    in-process failure: row k holds the state at the failure, the tick's measurements and held mode."""
+    dt, cs = scenario.world.step, scenario.control_steps
+    building, k = lost.step < 0, max(lost.step, 0)
+    cause = (f"strategy code did not return within its {budget:g} s budget (stuck in compiled code?)"
+             if lost.stuck else f"the strategy's process died ({lost.how})")
+    message = f"building the strategy failed: {cause}" if building else f"{cause} at t = {k * dt:.4f} s"
+    if not building:  # the call never returned: the phase is the one held from the tick before
+        trace.mode[k] = trace.mode[k - cs] if k >= cs else 0
+    strategy = isolation.record_from_spec(scenario.strategy, device=device, saturated_ticks=lost.saturated)
+    ticks = 0 if building else k // cs + 1
+    return _result(scenario, device, trace, strategy, "strategy_failed", message, k, None, None, False,
+                   False, ticks, lost.wall_s)
 
 
 def _build_strategy(scenario, device, rng, clock):
@@ -166,7 +254,7 @@ def _build_strategy(scenario, device, rng, clock):
         clock.leave()
         return strategy, None
     except (Exception, SystemExit, StrategyTimeout) as exc:
-        clock.t_in = None
+        clock.abandon()
         return None, f"building the strategy failed: {type(exc).__name__}: {exc}"
 
 
@@ -192,8 +280,6 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
     read, advance = engine.io()
     command = strategy.command if strategy is not None else None
     sense, enter, leave, update = sensors.read, clock.enter, clock.leave, motor.update
-    if failure and n > 0:  # the strategy could not be built: still record where the body was
-        t_angle[0], t_rate[0], t_wangle[0], t_wspeed[0] = read()
     k = 0
     wall0 = time.perf_counter()
     while k < n and outcome is None:
@@ -209,8 +295,9 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
             meas = sense(k, t_angle, t_rate, t_wangle, t_wspeed)
             reading.t_s, reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = t, meas[0], meas[1], meas[2]
             ticks += 1
+            t_ma[k], t_mr[k], t_mw[k] = meas
             try:
-                enter()
+                enter(k)
                 volts = command(reading)
                 if strategy.phase != phase:
                     phase = strategy.phase
@@ -220,13 +307,12 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
                 open_circuit = bool(strategy.open_circuit)
                 leave()
             except (Exception, SystemExit, StrategyTimeout) as exc:  # the strategy's failure is its outcome
-                clock.t_in = None
+                clock.abandon()
                 outcome, message = "strategy_failed", _describe(exc, t)
-                t_ma[k], t_mr[k], t_mw[k], t_mode[k] = meas[0], meas[1], meas[2], mode
+                t_mode[k] = mode
                 break
             # held until the next tick: written once here, copied down the tick's rows at the end
             t_volt[k], t_mode[k] = (0.0 if open_circuit else volts), mode
-            t_ma[k], t_mr[k], t_mw[k] = meas
             if wants_balance:
                 inside = abs(wrap_angle(th)) <= release
                 if strategy.balancing and inside:

@@ -18,7 +18,8 @@ from pydantic import ValidationError
 
 from .base import Reading, Strategy, StrategyParams, StrategySpec
 
-__all__ = ["BUILTIN", "Reading", "Strategy", "StrategyParams", "StrategySpec", "resolve_spec", "known_kinds"]
+__all__ = ["BUILTIN", "Reading", "Strategy", "StrategyParams", "StrategySpec", "resolve_spec", "known_kinds",
+           "plugins_in"]
 
 # name -> "module:Class"; imported only when used, to keep start-up short
 BUILTIN: dict[str, str] = {
@@ -47,6 +48,21 @@ def _entry_points():
         return list(entry_points(group=ENTRY_POINT_GROUP))
     except Exception:  # a broken installed distribution must not stop a built-in from loading
         return []
+
+
+def plugins_in(spec: StrategySpec) -> list[str]:
+    """The names of the plug-ins in `spec`, depth first: itself unless its kind is a built-in, then
+    any strategy nested in its parameters (e.g. swing_and_catch's `swing_up` and `balance`).
+
+    A plug-in is anything not named in BUILTIN: a "file.py:Class" or "module:Class" path, or an
+    entry point (a built-in name always wins over an entry point of the same name).
+    """
+    found = [] if spec.kind in BUILTIN else [spec.kind]
+    for _, value in (spec.params if spec.params is not None else ()):
+        for item in (value if isinstance(value, (list, tuple)) else (value,)):
+            if isinstance(item, StrategySpec):
+                found += plugins_in(item)
+    return found
 
 
 def builtin_class(kind: str) -> type[Strategy]:
