@@ -91,8 +91,9 @@ def test_sweep_is_the_same_on_one_and_two_workers(tmp_path, capsys):
 @pytest.mark.slow
 @pytest.mark.skipif("catch-map" not in COMMANDS, reason="no catch-map command yet")
 def test_catch_map_is_the_same_on_one_and_two_workers(tmp_path, capsys):
-    a, b = _on_one_and_two_workers(tmp_path, capsys, {"pushes": []}, ["catch-map", "--grid", "3"], "catch_map.csv")
-    assert a == b and a.count("\n") == 10
+    # 8 x 8: enough cells that two workers get them two per round trip (sim.catchmap batches)
+    a, b = _on_one_and_two_workers(tmp_path, capsys, {"pushes": []}, ["catch-map", "--grid", "8"], "catch_map.csv")
+    assert a == b and a.count("\n") == 65
 
 
 @pytest.mark.slow
