@@ -7,8 +7,8 @@ runs a plug-in's trial through `run_in_child`, and this process stays in charge 
 
 What is shared. Memory the child writes after the fork is its own, except for two MAP_SHARED
 mappings made before it: the trial's trace columns (`sim.trace.Trace(shared=True)`), so the rows the
-child writes are this process's rows, and a `Heartbeat` (three float64 slots) saying which step the
-child's trial has reached and until when its current strategy call may run.
+child writes are this process's rows, and a `Heartbeat` (a few float64 slots and the phase names)
+saying which step the child's trial has reached and until when its current strategy call may run.
 
 What is sent. When its work is done, the child pickles what the work returned (or the exception it
 raised), plus the attributes of a `mirror` object such as an `on_step` hook, into a pipe, and leaves
@@ -27,6 +27,7 @@ The child ignores SIGINT: Ctrl-C reaches the whole process group, and the parent
 
 from __future__ import annotations
 
+import json
 import mmap
 import os
 import pickle
@@ -57,15 +58,19 @@ class Heartbeat:
     Slots: `step`, the physics step of the latest strategy call (-1 while the strategy is built);
     `deadline`, the time.perf_counter() value (s) after which the current call counts as stuck, 0
     outside strategy code (perf_counter is CLOCK_MONOTONIC on Linux: one clock for both processes);
-    `saturated`, the strategy's saturated ticks so far (its one figure the parent still reports when
-    the child is lost).
+    `saturated`, the strategy's saturated ticks so far. After the slots, the trace's phase names as
+    JSON (up to PHASE_BYTES). Saturated ticks and phases are what the parent still needs from the
+    strategy's side when it has to report a lost child; it reads them only once the child is gone.
     """
 
-    STEP, DEADLINE, SATURATED = range(3)
+    STEP, DEADLINE, SATURATED, PHASE_COUNT, PHASE_LENGTH = range(5)
+    PHASE_BYTES = 4096
 
     def __init__(self) -> None:
-        self._map = mmap.mmap(-1, 8 * 3)        # anonymous; MAP_SHARED is mmap's default on POSIX
-        self.slots = memoryview(self._map).cast("d")
+        head = 8 * 5
+        self._map = mmap.mmap(-1, head + self.PHASE_BYTES)     # anonymous; MAP_SHARED is the default on POSIX
+        self.slots = memoryview(self._map)[:head].cast("d")
+        self._text = memoryview(self._map)[head:]
         self.slots[self.STEP] = -1.0
 
     def entered(self, step: int, deadline: float) -> None:
@@ -78,17 +83,33 @@ class Heartbeat:
         self.slots[self.DEADLINE] = 0.0
         self.slots[self.SATURATED] = saturated
 
+    def publish_phases(self, phases: list[str]) -> None:
+        """The trace's phase names so far (as many as fit; the parent names the others by number)."""
+        keep = list(phases)
+        data = json.dumps(keep).encode()
+        while len(data) > self.PHASE_BYTES:
+            keep.pop()
+            data = json.dumps(keep).encode()
+        self._text[: len(data)] = data
+        self.slots[self.PHASE_LENGTH], self.slots[self.PHASE_COUNT] = len(data), len(phases)
+
+    def phases(self) -> list[str]:
+        length, count = int(self.slots[self.PHASE_LENGTH]), int(self.slots[self.PHASE_COUNT])
+        names = json.loads(bytes(self._text[:length])) if length else []
+        return names + [f"phase {i}" for i in range(len(names), count)]
+
 
 @dataclass(frozen=True)
 class LostChild:
     """A child that sent nothing back: killed by the watchdog (`stuck`), or dead on its own (`how`,
-    e.g. "signal 11, SIGSEGV" or "exit status 3"). `step` and `saturated` are the heartbeat's last
-    values; `wall_s` is the time from the fork to the end, s."""
+    e.g. "signal 11, SIGSEGV" or "exit status 3"). `step`, `saturated` and `phases` are the
+    heartbeat's last values; `wall_s` is the time from the fork to the end, s."""
 
     stuck: bool
     how: str
     step: int
     saturated: int
+    phases: list[str]
     wall_s: float
 
 
@@ -226,7 +247,8 @@ def _lost(child: _Child, beat: Heartbeat, started: float, *, stuck: bool) -> Los
     else:
         how = f"exit status {code}"
     return LostChild(stuck=stuck, how=how, step=int(beat.slots[Heartbeat.STEP]),
-                     saturated=int(beat.slots[Heartbeat.SATURATED]), wall_s=time.perf_counter() - started)
+                     saturated=int(beat.slots[Heartbeat.SATURATED]), phases=beat.phases(),
+                     wall_s=time.perf_counter() - started)
 
 
 # ----------------------------------------------------------------------------- what crosses the pipe

@@ -155,6 +155,22 @@ class _WatchedClock(StrategyClock):
         super().abandon()
 
 
+class _PublishedTrace(Trace):
+    """A shared trace whose phase names also go to the heartbeat as they appear (isolated trials):
+    the parent cannot ask a child it had to kill for them."""
+
+    def __init__(self, capacity: int, *, step_s: float, beat: isolation.Heartbeat):
+        super().__init__(capacity, step_s=step_s, shared=True)
+        self.beat = beat
+
+    def phase_code(self, phase: str) -> int:
+        known = len(self.phases)
+        code = super().phase_code(phase)
+        if len(self.phases) != known:
+            self.beat.publish_phases(self.phases)
+        return code
+
+
 def run_trial(scenario, *, seed: int | None = None, stop_early: bool | None = None,
               visual=None, on_step=None, strategy_budget_s: float | None = None,
               isolate: bool | None = None) -> TrialResult:
@@ -211,8 +227,9 @@ def _simulate(scenario, device, trace, clock, *, seed, stop_early, visual, on_st
 def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step) -> TrialResult:
     """The trial in a forked child (`sim.isolation`): its rows land in a shared trace, the rest of
     its result comes back pickled. A child stuck in strategy code or dead ends as strategy_failed."""
-    trace = Trace(scenario.n_steps, step_s=scenario.world.step, shared=True)
-    clock = _WatchedClock(budget, isolation.Heartbeat())
+    beat = isolation.Heartbeat()
+    trace = _PublishedTrace(scenario.n_steps, step_s=scenario.world.step, beat=beat)
+    clock = _WatchedClock(budget, beat)
 
     def work():
         result = _simulate(scenario, device, trace, clock, seed=seed, stop_early=stop_early, visual=None,
@@ -222,7 +239,7 @@ def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step)
         clock.abandon()
         return replace(result, trace=None, device=None, scenario=None, strategy=strategy), trace.n, trace.phases
 
-    sent, lost = isolation.run_in_child(work, beat=clock.beat, mirror=on_step)
+    sent, lost = isolation.run_in_child(work, beat=beat, mirror=on_step)
     if lost is not None:
         return _lost_child_result(scenario, device, trace, budget, lost)
     result, trace.n, trace.phases = sent
@@ -240,6 +257,7 @@ def _lost_child_result(scenario, device, trace, budget: float, lost: isolation.L
     message = f"building the strategy failed: {cause}" if building else f"{cause} at t = {k * dt:.4f} s"
     if not building:  # the call never returned: the phase is the one held from the tick before
         trace.mode[k] = trace.mode[k - cs] if k >= cs else 0
+    trace.phases = list(lost.phases)
     strategy = isolation.record_from_spec(scenario.strategy, device=device, saturated_ticks=lost.saturated)
     ticks = 0 if building else k // cs + 1
     return _result(scenario, device, trace, strategy, "strategy_failed", message, k, None, None, False,
