@@ -3,7 +3,9 @@
 The loop, per physics step: read the joint states -> (on control ticks) sensors -> strategy ->
 (every step) drive and motor -> friction and pushes -> engine step. A strategy that raises,
 returns nonsense or runs past its time budget, and a state that turns non-finite or absurd, end
-the trial with an outcome; they never raise out of `run_trial`.
+the trial with an outcome; they never raise out of `run_trial`. A plug-in's trial runs in a forked
+child process (`sim.isolation`), so that strategy code stuck in compiled code, or crashing, is an
+outcome too.
 """
 
 from __future__ import annotations
@@ -313,7 +315,7 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
             meas = sense(k, t_angle, t_rate, t_wangle, t_wspeed)
             reading.t_s, reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = t, meas[0], meas[1], meas[2]
             ticks += 1
-            t_ma[k], t_mr[k], t_mw[k] = meas
+            t_ma[k], t_mr[k], t_mw[k] = meas  # before the call: an isolated child may never come back
             try:
                 enter(k)
                 volts = command(reading)
