@@ -1,9 +1,11 @@
 """Sweeps and catch maps: 2 workers against 1, and memory over a long sweep.
 
-    python benchmarks/bench_sweep.py [--points-speed 24] [--points-memory 10000]
+    python benchmarks/bench_sweep.py [--points-speed 24] [--points-memory 10000] [--grid 9] [--rounds 3]
 
 Speed: the same sweep (and catch map) run with workers=1 and workers=2 through the library
-functions the CLI calls; the figure is the wall-time ratio (target >= 1.8x on 2 cores).
+functions the CLI calls; the figure is the wall-time ratio (target >= 1.8x on 2 cores). Beside
+it, a yardstick measured in the same rounds: two forked processes running half the same tasks
+each with no pool at all, i.e. what this machine gives two processes doing this work.
 Memory: a sweep of --points-memory short trials on 2 workers; the resident memory of this
 process and of its workers is sampled as points finish (target: flat, i.e. the last tenth no
 higher than the first tenth plus a little). No assertion: figures are printed for the README.
@@ -52,28 +54,29 @@ def _catch_map(workers: int, grid: int) -> float:
     return time.perf_counter() - t0
 
 
-def _cell_payloads(grid: int) -> list[dict]:
-    """The catch map's own cell payloads (the same cells `catch_map` runs)."""
-    import sim.catchmap as cm
-
+def _captured(module, run) -> tuple:
+    """(task function, payloads) that `run()` hands to `module.run_tasks`, captured without running them."""
     captured: list = []
-    real = cm.run_tasks
-    cm.run_tasks = lambda fn, tasks, **kw: ((i, captured.append(p) or {}) for i, p in tasks)
+    fns: list = []
+    real = module.run_tasks
+
+    def capture(fn, tasks, **kw):
+        fns.append(fn)
+        return ((i, captured.append(p) or {}) for i, p in tasks)
+
+    module.run_tasks = capture
     try:
-        raw, where = _raw(SPEED[:3])
-        cm.catch_map(raw, where, grid=grid, workers=1)
+        run()
     finally:
-        cm.run_tasks = real
-    return captured
+        module.run_tasks = real
+    return fns[0], captured
 
 
-def _two_bare_processes(payloads: list[dict]) -> float:
-    """Yardstick: wall time for two forked processes to run half the cells each, with no pool,
+def _two_bare_processes(fn, payloads: list) -> float:
+    """Yardstick: wall time for two forked processes to run half the tasks each, with no pool,
     no queues and no result traffic: the most any 2-process scheme can get out of this machine
     for this work (what two such processes slow each other by is the machine's, not ours)."""
     import os
-
-    from sim.catchmap import cell_task
 
     t0 = time.perf_counter()
     pids = []
@@ -82,7 +85,7 @@ def _two_bare_processes(payloads: list[dict]) -> float:
         if pid == 0:
             try:
                 for p in half:
-                    cell_task(p)
+                    fn(p)
             finally:
                 os._exit(0)
         pids.append(pid)
@@ -91,26 +94,44 @@ def _two_bare_processes(payloads: list[dict]) -> float:
     return time.perf_counter() - t0
 
 
-def catch_map_report(grid: int, rounds: int) -> None:
+def _compare(name: str, one_worker, two_workers, fn, payloads: list, rounds: int) -> None:
     """1 worker, 2 workers and the two-bare-processes yardstick, interleaved over `rounds` rounds
     (this machine is shared: interleaving spreads its load changes over all three); medians."""
     from statistics import median
 
-    from sim.catchmap import cell_task
-
-    payloads = _cell_payloads(grid)
-    cell_task(payloads[0])  # warm this process as the workers are warmed: imports, first design
+    fn(payloads[0])  # warm this process as the workers are warmed: imports, first design
     one, two, bare = [], [], []
     for _ in range(rounds):
-        one.append(_catch_map(1, grid))
-        two.append(_catch_map(2, grid))
-        bare.append(_two_bare_processes(payloads))
+        one.append(one_worker())
+        two.append(two_workers())
+        bare.append(_two_bare_processes(fn, payloads))
     m1, m2, mb = median(one), median(two), median(bare)
-    print(f"    catch map {grid}x{grid}, median of {rounds} interleaved rounds: 1 worker {m1:.2f} s, "
+    print(f"    {name}, median of {rounds} interleaved rounds: 1 worker {m1:.2f} s, "
           f"2 workers {m2:.2f} s: {m1 / m2:.2f}x (target >= 1.8x)")
-    print(f"      yardstick, two bare processes with half the cells each: {mb:.2f} s: {m1 / mb:.2f}x "
+    print(f"      yardstick, two bare processes with half the tasks each: {mb:.2f} s: {m1 / mb:.2f}x "
           f"is this machine's ceiling for this work; the pool reaches {mb / m2:.0%} of it")
     print("      rounds (1w / 2w / bare, s): " + ", ".join(f"{a:.2f}/{b:.2f}/{c:.2f}" for a, b, c in zip(one, two, bare)))
+
+
+def catch_map_report(grid: int, rounds: int) -> None:
+    import sim.catchmap as cm
+
+    raw, where = _raw(SPEED[:3])
+    fn, payloads = _captured(cm, lambda: cm.catch_map(raw, where, grid=grid, workers=1))
+    _compare(f"catch map {grid}x{grid}", lambda: _catch_map(1, grid), lambda: _catch_map(2, grid), fn, payloads, rounds)
+
+
+def sweep_speed_report(points: int, rounds: int, tmp: Path) -> None:
+    import sim.sweep as sw
+    from sim.outputs import prepare_out_dir
+
+    vary = [f"drive.supply=10..14:{points}"]
+    raw, where = _raw(SPEED)
+    fn, payloads = _captured(sw, lambda: sw.run_sweep(raw, where, [sw.parse_vary(v) for v in vary],
+                                                       prepare_out_dir(tmp / "capture"), workers=1))
+    runs = iter(range(10**6))
+    _compare(f"sweep of {points} points x 10 s", lambda: _sweep(SPEED, vary, 1, tmp / f"s{next(runs)}"),
+             lambda: _sweep(SPEED, vary, 2, tmp / f"s{next(runs)}"), fn, payloads, rounds)
 
 
 def rss_mb() -> float:
@@ -127,15 +148,12 @@ def rss_mb() -> float:
     return total / 2**20
 
 
-def sweep_report(*, points_speed: int = 24, points_memory: int = 10_000, grid: int = 9, rounds: int = 5) -> None:
+def sweep_report(*, points_speed: int = 24, points_memory: int = 10_000, grid: int = 9, rounds: int = 3) -> None:
     """Print the speed figures, then (unless points_memory is 0) the memory figures."""
     with tempfile.TemporaryDirectory() as tmp:
         if points_speed:
-            vary = [f"drive.supply=10..14:{points_speed}"]
-            one = _sweep(SPEED, vary, 1, Path(tmp) / "s1")
-            two = _sweep(SPEED, vary, 2, Path(tmp) / "s2")
-            print(f"(e) sweep of {points_speed} points x 10 s: 1 worker {one:.1f} s, 2 workers {two:.1f} s: "
-                  f"{one / two:.2f}x (target >= 1.8x)")
+            print("(e) 2 workers against 1")
+            sweep_speed_report(points_speed, rounds, Path(tmp))
             catch_map_report(grid, rounds)
         if points_memory:
             side = int(round(points_memory ** 0.5))
@@ -162,7 +180,7 @@ def main() -> None:
     ap.add_argument("--points-speed", type=int, default=24)
     ap.add_argument("--points-memory", type=int, default=10_000)
     ap.add_argument("--grid", type=int, default=9)
-    ap.add_argument("--rounds", type=int, default=5, help="interleaved rounds of the catch-map figures")
+    ap.add_argument("--rounds", type=int, default=3, help="interleaved rounds of the 2-worker figures")
     args = ap.parse_args()
     sweep_report(points_speed=args.points_speed, points_memory=args.points_memory, grid=args.grid,
                  rounds=args.rounds)
