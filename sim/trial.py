@@ -229,6 +229,11 @@ def _simulate(scenario, device, trace, clock, *, seed, stop_early, visual, on_st
 def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step) -> TrialResult:
     """The trial in a forked child (`sim.isolation`): its rows land in a shared trace, the rest of
     its result comes back pickled. A child stuck in strategy code or dead ends as strategy_failed."""
+    from .parallel import _warm_imports
+    # What a child would otherwise build for itself every time, it inherits: the heavy modules, and
+    # an idle engine client holding this device's body (connecting and building cost ~25 ms).
+    _warm_imports()
+    EngineModel(device, step_s=scenario.world.step, start_angle_rad=scenario.trial.start.angle).close()
     beat = isolation.Heartbeat()
     trace = _PublishedTrace(scenario.n_steps, step_s=scenario.world.step, beat=beat)
     clock = _WatchedClock(budget, beat)
