@@ -19,7 +19,7 @@ import numpy as np
 
 from .engine import wrap_angle
 
-NOISE_CHUNK = 4096  # control ticks of noise converted to Python floats at a time
+NOISE_CHUNK = 4096  # control ticks of noise drawn and converted to Python floats at a time
 
 
 class SensorSuite:
@@ -36,8 +36,16 @@ class SensorSuite:
         self.gyro_noise = g.noise if g else 0.0
         self.wheel_res = 2 * math.pi / w.counts_per_rev if w.counts_per_rev else 0.0
         self.wheel_noise = w.noise
-        # all noise for the trial, drawn up front: one stream, no per-tick allocation
-        self.noise = rng.standard_normal((max(n_ticks, 1), 3))
+        # The trial's noise is the first n_ticks x 3 standard normals of the trial's generator, as if
+        # drawn up front, but read a chunk at a time from a private copy of the stream (a 5,000 s
+        # trial would otherwise hold 60 MB of it); the trial's generator is moved past the same
+        # draws, a chunk at a time, so whatever draws from it next sees the same numbers.
+        self.n_ticks = max(n_ticks, 1)
+        self._noise_rng = np.random.Generator(type(rng.bit_generator)())
+        self._noise_rng.bit_generator.state = rng.bit_generator.state
+        for start in range(0, self.n_ticks, NOISE_CHUNK):
+            rng.standard_normal((min(NOISE_CHUNK, self.n_ticks - start), 3))
+        self._last_row: list = []
         self.tick = 0
         self.prev_angle: float | None = None
         self.prev_wheel_counts = 0.0
@@ -48,10 +56,11 @@ class SensorSuite:
         """This tick's three standard-normal draws (the last row again if the trial outruns them)."""
         i = self.tick
         if i >= self._chunk_end:
-            if i >= len(self.noise):
-                return self.noise[-1].tolist()
-            self._chunk = self.noise[i:i + NOISE_CHUNK].tolist()
+            if i >= self.n_ticks:
+                return self._last_row
+            self._chunk = self._noise_rng.standard_normal((min(NOISE_CHUNK, self.n_ticks - i), 3)).tolist()
             self._chunk_end = i + len(self._chunk)
+            self._last_row = self._chunk[-1]
         return self._chunk[i - self._chunk_end + len(self._chunk)]
 
     def read(self, k: int, angle: np.ndarray, rate: np.ndarray, wheel_angle: np.ndarray,
