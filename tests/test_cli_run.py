@@ -260,3 +260,29 @@ def test_installed_command_successful_run_keeps_stderr_clean(tmp_path):
     assert proc.returncode == 0, proc.stderr
     assert proc.stderr == ""
     assert (tmp_path / "o" / "metrics.json").exists()
+
+
+def test_summary_plot_drawn_beside_the_csv_matches_one_drawn_here(tmp_path, monkeypatch):
+    """The plot drawn in a forked child is byte for byte the one this process draws; a child that
+    fails leaves the drawing to this process."""
+    import os
+
+    import sim.runfiles as runfiles
+    from sim.scenario import load_scenario
+
+    sc = load_scenario(None, overrides=["trial.duration=1", "trial.pushes=[]"])
+    runfiles.run_to_folder(sc, tmp_path / "forked")
+    monkeypatch.delattr(os, "fork")                       # no fork: drawn in this process
+    runfiles.run_to_folder(sc, tmp_path / "here")
+    monkeypatch.undo()
+    assert (tmp_path / "forked" / "summary.png").read_bytes() == (tmp_path / "here" / "summary.png").read_bytes()
+
+    parent, real = os.getpid(), runfiles.save_figure
+    def fails_in_a_child(fig, path):
+        if os.getpid() != parent:
+            raise RuntimeError("drawing failed in the child")
+        real(fig, path)
+    monkeypatch.setattr(runfiles, "save_figure", fails_in_a_child)
+    runfiles.run_to_folder(sc, tmp_path / "fallback")
+    assert (tmp_path / "fallback" / "summary.png").read_bytes() == (tmp_path / "here" / "summary.png").read_bytes()
+    assert not [p for p in (tmp_path / "fallback").iterdir() if p.name.startswith(".summary")]
