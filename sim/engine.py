@@ -224,7 +224,9 @@ def wrap_angle(angle_rad: float) -> float:
 
 
 def wrap_angles(a: np.ndarray) -> np.ndarray:
-    """Vectorised `wrap_angle`."""
-    w = np.mod(a + np.pi, 2 * np.pi)
+    """Vectorised `wrap_angle` (a new array; one full-length temporary, for long traces)."""
+    w = a + np.pi
+    np.mod(w, 2 * np.pi, out=w)
     w[w == 0.0] = 2 * np.pi
-    return w - np.pi
+    w -= np.pi
+    return w

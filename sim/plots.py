@@ -7,6 +7,7 @@ import numpy as np
 from .engine import wrap_angles
 
 INK, ACCENT, LIMIT, MUTED = "#1d2b3a", "#c2571a", "#8c1c13", "#7a8894"
+DEG = 180.0 / np.pi   # rad -> deg, as np.degrees
 
 
 def summary_figure(result):
@@ -22,12 +23,12 @@ def summary_figure(result):
     title = f"{result.scenario.name}: {result.scenario.strategy.kind} -> {result.outcome}"
     fig.suptitle(title, color=INK, fontsize=12, fontweight="bold")
     ax = axes[0]
-    ax.plot(*_thin(t, np.degrees(wrap_angles(tr.view("angle").copy())), wraps=True), color=INK, lw=1.2, label="true")
-    ax.plot(*_thin(t, np.degrees(tr.view("meas_angle")), wraps=True), color=MUTED, lw=0.7, alpha=0.8,
+    ax.plot(*_thin(t, wrap_angles(tr.view("angle").copy()), scale=DEG, wraps=True), color=INK, lw=1.2, label="true")
+    ax.plot(*_thin(t, tr.view("meas_angle"), scale=DEG, wraps=True), color=MUTED, lw=0.7, alpha=0.8,
             label="measured")
     ax.set_ylabel("angle [deg]")
     ax.legend(loc="upper right", fontsize=8, frameon=False)
-    axes[1].plot(*_thin(t, np.degrees(tr.view("rate"))), color=INK, lw=1.0)
+    axes[1].plot(*_thin(t, tr.view("rate"), scale=DEG), color=INK, lw=1.0)
     axes[1].set_ylabel("body rate [deg/s]")
     lim = dev.no_load_speed_rad_s
     ax = axes[2]
@@ -55,21 +56,24 @@ def summary_figure(result):
     return fig
 
 
-def _thin(t: np.ndarray, y: np.ndarray, *, wraps: bool = False, buckets: int = 2000):
-    """(t, y) cut to each bucket's minimum and maximum, in time order, when longer than 2 buckets.
+def _thin(t: np.ndarray, y: np.ndarray, *, scale: float = 1.0, wraps: bool = False, buckets: int = 2000):
+    """(t, y * scale) cut to each bucket's minimum and maximum, in time order, when longer than 2 buckets.
 
     A 60 s trace has 60,000 rows per line; a 900-pixel-wide panel shows at most a few thousand
     of them. Keeping each bucket's extremes keeps every peak and limit hit the eye would see
-    while drawing ~15x fewer points.
+    while drawing ~15x fewer points. Scaled after thinning (`scale` > 0), so a long trace costs
+    no full-length temporaries beyond a NaN-free copy when it has NaN.
     """
     n = len(y)
     if n > 2 * buckets:
         width = n // buckets
-        blocks = np.nan_to_num(y[: width * buckets]).reshape(buckets, width)
+        head = y[: width * buckets]
+        blocks = (np.nan_to_num(head) if np.isnan(head).any() else head).reshape(buckets, width)
         base = np.arange(buckets)[:, None] * width
         pair = np.sort(np.stack([blocks.argmin(axis=1), blocks.argmax(axis=1)], axis=1), axis=1) + base
         idx = np.concatenate([pair.ravel(), np.arange(width * buckets, n)])
         t, y = t[idx], y[idx]
+    y = y * scale
     return t, (_break_wraps(y) if wraps else y)
 
 
