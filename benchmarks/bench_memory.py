@@ -4,7 +4,7 @@
 
 Each run is the bundled demo balancing with LQR (no pushes) for the given number of 1 ms physics
 steps, run as a user runs it (subprocess, trace.csv, metrics.json and the summary plot written).
-The sampler reads /proc/<pid>/status every 50 ms: RssAnon (anonymous memory: heap and arrays,
+The sampler reads /proc/<pid>/status (and its children's) every 50 ms: RssAnon (anonymous memory: heap and arrays,
 which only swap can take back) and RssFile (mapped files, which the kernel can write out and drop
 under memory pressure; long traces live there, see sim/trace.py). The yardstick is the trace's
 own size, 90 bytes a row. Linux only. No assertion: figures are printed for the README.
@@ -24,15 +24,25 @@ ROW_BYTES = 11 * 8 + 2   # sim.trace.Trace: eleven float64 columns and an int16 
 
 
 def _status_mb(pid: int) -> dict[str, float]:
-    out = {}
-    try:
-        for line in Path(f"/proc/{pid}/status").read_text().splitlines():
-            key, _, value = line.partition(":")
-            if key in ("RssAnon", "RssFile", "VmRSS"):
-                out[key] = int(value.split()[0]) / 1024
-    except (OSError, ValueError):
-        pass
+    """RssAnon, RssFile and VmRSS of `pid` and its children (the summary plot is drawn in a forked
+    child), MB. Pages a child shares with its parent count twice: an upper bound."""
+    out: dict[str, float] = {}
+    for p in [pid, *_children(pid)]:
+        try:
+            for line in Path(f"/proc/{p}/status").read_text().splitlines():
+                key, _, value = line.partition(":")
+                if key in ("RssAnon", "RssFile", "VmRSS"):
+                    out[key] = out.get(key, 0.0) + int(value.split()[0]) / 1024
+        except (OSError, ValueError):
+            pass
     return out
+
+
+def _children(pid: int) -> list[int]:
+    try:
+        return [int(c) for c in Path(f"/proc/{pid}/task/{pid}/children").read_text().split()]
+    except (OSError, ValueError):
+        return []
 
 
 def run_and_sample(steps: int, out: Path) -> dict:
