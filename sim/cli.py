@@ -214,13 +214,12 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
     out_dir = prepare_out_dir(out, force=force)
     bar, update = _progress("sweep")
     with bar:
-        rows = run_sweep(raw, where, varies, out_dir, trials=trials, workers=workers, cluster=cluster,
-                         on_progress=update)
-    fig = sweep_figure(varies, rows)
+        points = run_sweep(raw, where, varies, out_dir, trials=trials, workers=workers, cluster=cluster,
+                           on_progress=update)
+    fig = sweep_figure(varies, points)
     if fig is not None:
         save_figure(fig, out_dir / "sweep.png")
-    passed = sum(bool(r.get("passed")) for r in rows.values())
-    typer.echo(f"{passed} of {len(rows)} points pass; wrote {out_dir}/results.csv"
+    typer.echo(f"{points.n_passed} of {len(points)} points pass; wrote {out_dir}/results.csv"
                + (", sweep.png" if fig is not None else " (no plot for more than two keys)"))
     typer.echo(SAFETY)
 

@@ -8,7 +8,8 @@ with `trials`, adds Monte Carlo trials over the tolerances around that point.
 
 Persistence: every finished point is appended to `sweep.jsonl` (flushed and fsynced), so a
 sweep killed at any moment loses nothing finished; `results.csv` is rewritten atomically from
-it every few seconds and at the end. Re-running the same sweep into the same folder skips the
+it (in point order) every few seconds and at the end. Only a compact summary of each point stays
+in memory (`PointSummaries`), so memory does not grow as points finish. Re-running the same sweep into the same folder skips the
 finished points. Seeds come from the point's trial.seed and its index, so the table is the same
 whatever the number of workers or the order points finish in.
 """
@@ -181,27 +182,91 @@ def sweep_spec(raw: dict, varies: list[Vary], trials: int) -> dict:
             "vary": [[v.key, [str(x) for x in v.values]] for v in varies], "trials": trials}
 
 
-def read_journal(path: Path, spec: dict) -> dict[int, dict]:
-    """Finished rows by point index. Drops a torn last line (a kill mid-write) from the file."""
+def read_journal(path: Path, spec: dict, summaries: "PointSummaries") -> None:
+    """Add the journal's finished points to `summaries`. Drops a torn last line (a kill mid-write)
+    from the file. Reads a line at a time: the journal can be far larger than memory needs to be."""
     if not path.exists():
-        return {}
-    data = path.read_bytes()
-    good_end = data.rfind(b"\n") + 1
-    if good_end < len(data):
+        return
+    size = path.stat().st_size
+    with open(path, "rb") as fh:
+        good_end = 0
+        try:
+            header = None
+            for line in fh:
+                if not line.endswith(b"\n"):
+                    break                      # torn: written up to a kill, never finished
+                entry = json.loads(line)
+                if header is None:
+                    header = entry
+                    if not isinstance(header, dict) or header.get("spec") != spec:
+                        raise InputError(f"--out {path.parent}: holds a different sweep (its {JOURNAL} was written "
+                                         "for other settings); choose another folder to start a new one")
+                else:
+                    summaries.add(int(entry["i"]), entry["row"])
+                good_end += len(line)
+        except InputError:
+            raise
+        except (ValueError, KeyError, TypeError, IndexError):  # InputError is a ValueError too: above
+            raise InputError(f"--out {path.parent}: {JOURNAL} is not a readable sweep journal; choose another folder") from None
+    if good_end < size:
         with open(path, "r+b") as fh:
             fh.truncate(good_end)
-    lines = data[:good_end].decode("utf-8").splitlines()
-    if not lines:
-        return {}
-    try:
-        header = json.loads(lines[0])
-        rows = {int(e["i"]): e["row"] for e in map(json.loads, lines[1:])}
-    except (ValueError, KeyError, TypeError):
-        raise InputError(f"--out {path.parent}: {JOURNAL} is not a readable sweep journal; choose another folder") from None
-    if not isinstance(header, dict) or header.get("spec") != spec:
-        raise InputError(f"--out {path.parent}: holds a different sweep (its {JOURNAL} was written for other "
-                         "settings); choose another folder to start a new one")
-    return rows
+
+
+class PointSummaries:
+    """What the figure and the closing line need of each point, in arrays sized to the grid when
+    the sweep starts. The full rows live only in the journal, so memory does not grow as points
+    finish (a 1,000,000-point sweep holds ~40 MB here instead of ~2 GB of rows).
+
+    `get(index)` gives a small dict (the figure's fields, and the varied keys' values for points on
+    the figure's axes) or None for a point not finished.
+    """
+
+    FIELDS = ("wheel_speed_margin", "pass_fraction", "settle_time_s", "mc_trials")
+
+    def __init__(self, varies: list[Vary]):
+        self.varies = varies
+        self.shape = [len(v.values) for v in varies]
+        total = int(np.prod(self.shape))
+        self.done = np.zeros(total, dtype=bool)
+        self.passed = np.zeros(total, dtype=bool)
+        self.values = np.full((total, len(self.FIELDS)), np.nan)
+        self.axis_points = set(axis_indices(self.shape))
+        self.axis_values: dict[int, dict] = {}
+
+    def add(self, index: int, row: dict) -> None:
+        self.done[index] = True
+        self.passed[index] = bool(row.get("passed"))
+        self.values[index] = [np.nan if row.get(f) is None else row[f] for f in self.FIELDS]
+        if index in self.axis_points:
+            self.axis_values[index] = {v.key: row.get(v.key) for v in self.varies if row.get(v.key) is not None}
+
+    def get(self, index: int, default=None):
+        if not (0 <= index < len(self.done)) or not self.done[index]:
+            return default
+        out = {f: (None if np.isnan(x) else float(x)) for f, x in zip(self.FIELDS, self.values[index])}
+        return out | {"passed": bool(self.passed[index])} | self.axis_values.get(index, {})
+
+    def __len__(self) -> int:
+        return int(self.done.sum())
+
+    def __contains__(self, index: int) -> bool:
+        return bool(self.done[index])
+
+    @property
+    def n_passed(self) -> int:
+        return int(self.passed.sum())
+
+
+def axis_indices(shape: list[int]) -> list[int]:
+    """Point indices on each key's axis (the other keys at their first value), row-major order."""
+    out = []
+    for k, n in enumerate(shape):
+        for j in range(n):
+            idx = [0] * len(shape)
+            idx[k] = j
+            out.append(int(np.ravel_multi_index(idx, shape)))
+    return out
 
 
 class Journal:
@@ -214,7 +279,8 @@ class Journal:
             self._write({"wheelbench_sweep": 1, "spec": spec})
 
     def add(self, index: int, row: dict) -> None:
-        self._write({"i": index, "row": clean_json(row)})
+        """`row` JSON-safe already (`clean_json`)."""
+        self._write({"i": index, "row": row})
 
     def _write(self, obj) -> None:
         self.fh.write(json.dumps(obj) + "\n")
@@ -225,21 +291,47 @@ class Journal:
         self.fh.close()
 
 
-def write_results_csv(path: Path, varies: list[Vary], rows: dict[int, dict]) -> None:
-    """results.csv in point order: one column per varied key (as given), then metrics and verdict."""
+def write_results_csv(path: Path, varies: list[Vary], journal_path: Path) -> None:
+    """results.csv in point order: one column per varied key (as given), then metrics and verdict.
+
+    Streamed from the journal (rows are in finishing order there): one pass finds each point's
+    line, a second writes them in point order, so memory is one offset per point, not one row.
+    """
     columns = [v.key for v in varies] + list(METRIC_COLUMNS)
-    with atomic_path(path) as tmp, open(tmp, "w", newline="", encoding="utf-8") as fh:
-        writer = csv.DictWriter(fh, fieldnames=columns, extrasaction="ignore")
+    offsets = np.full(int(np.prod([len(v.values) for v in varies])), -1, dtype=np.int64)
+    if journal_path.exists():
+        with open(journal_path, "rb") as fh:
+            fh.readline()                               # the header
+            at = fh.tell()
+            for line in fh:
+                if line.endswith(b"\n"):
+                    offsets[_journal_index(line)] = at
+                at += len(line)
+    with atomic_path(path) as tmp, open(tmp, "w", newline="", encoding="utf-8") as out:
+        writer = csv.DictWriter(out, fieldnames=columns, extrasaction="ignore")
         writer.writeheader()
-        for index in sorted(rows):
-            writer.writerow({k: ("" if rows[index].get(k) is None else rows[index].get(k)) for k in columns})
+        if not (offsets >= 0).any():
+            return
+        with open(journal_path, "rb") as fh:
+            for at in offsets[offsets >= 0]:
+                fh.seek(at)
+                row = json.loads(fh.readline())["row"]
+                writer.writerow({k: ("" if row.get(k) is None else row.get(k)) for k in columns})
+
+
+def _journal_index(line: bytes) -> int:
+    """The point index of a journal line, read from its head (`{"i": N, ...`) without parsing the row."""
+    head = line[:32]
+    start = head.index(b":") + 1
+    return int(head[start:head.index(b",", start)])
 
 
 # ----------------------------------------------------------------------------- running
 
 def run_sweep(raw: dict, where: str, varies: list[Vary], out_dir: Path, *, trials: int = 0,
-              workers: int | None = None, cluster=None, on_progress=None) -> dict[int, dict]:
-    """Run (or resume) a sweep into `out_dir` (already prepared). Returns the rows by point index.
+              workers: int | None = None, cluster=None, on_progress=None) -> PointSummaries:
+    """Run (or resume) a sweep into `out_dir` (already prepared). Returns the points' summaries
+    (the full rows are in results.csv and the journal).
 
     `on_progress(done, total)` is called at the start and after every finished point.
     """
@@ -248,33 +340,52 @@ def run_sweep(raw: dict, where: str, varies: list[Vary], out_dir: Path, *, trial
     check_varies(raw, where, varies)
     spec = sweep_spec(raw, varies, trials)
     journal_path, csv_path = out_dir / JOURNAL, out_dir / RESULTS
-    rows = read_journal(journal_path, spec)
-    total = int(np.prod([len(v.values) for v in varies]))
+    summaries = PointSummaries(varies)
+    read_journal(journal_path, spec, summaries)
+    total = len(summaries.done)
     tasks = ((i, {"raw": raw, "where": where, "index": i, "trials": trials,
                   "assign": [(v.key, v.path, x) for v, x in zip(varies, point_values(varies, i))]})
-             for i in range(total) if i not in rows)
+             for i in range(total) if i not in summaries)
     results = run_tasks(point_task, tasks, workers=workers, cluster=cluster)   # connects before files are written
-    write_results_csv(csv_path, varies, rows)
     journal = Journal(journal_path, spec)
-    last_csv = time.monotonic()
+    rewrite = CsvRewrites(csv_path, varies, journal_path)
+    rewrite.now()
     try:
         if on_progress:
-            on_progress(len(rows), total)
+            on_progress(len(summaries), total)
         for index, row in results:
+            row = clean_json(row)
             journal.add(index, row)
-            rows[index] = clean_json(row)
+            summaries.add(index, row)
             if on_progress:
-                on_progress(len(rows), total)
-            if time.monotonic() - last_csv > CSV_EVERY_S:
-                write_results_csv(csv_path, varies, rows)
-                last_csv = time.monotonic()
+                on_progress(len(summaries), total)
+            rewrite.when_due()
     finally:
         journal.close()
-        write_results_csv(csv_path, varies, rows)
-    return rows
+        rewrite.now()
+    return summaries
 
 
-def grid_axes(varies: list[Vary], rows: dict[int, dict]) -> list[list]:
+class CsvRewrites:
+    """results.csv rewritten from the journal as points finish: every CSV_EVERY_S, or less often
+    when rewriting takes long (at most a twentieth of the time goes to it, however big the sweep)."""
+
+    def __init__(self, csv_path: Path, varies: list[Vary], journal_path: Path):
+        self.args = (csv_path, varies, journal_path)
+        self.next_at = 0.0
+
+    def now(self) -> None:
+        t0 = time.monotonic()
+        write_results_csv(*self.args)
+        took = time.monotonic() - t0
+        self.next_at = time.monotonic() + max(CSV_EVERY_S, 20 * took)
+
+    def when_due(self) -> None:
+        if time.monotonic() >= self.next_at:
+            self.now()
+
+
+def grid_axes(varies: list[Vary], rows: PointSummaries) -> list[list]:
     """Per key, the column values of the points along its axis (SI where numeric)."""
     axes = []
     for k, v in enumerate(varies):
@@ -288,7 +399,7 @@ def grid_axes(varies: list[Vary], rows: dict[int, dict]) -> list[list]:
     return axes
 
 
-def sweep_figure(varies: list[Vary], rows: dict[int, dict]):
+def sweep_figure(varies: list[Vary], rows: PointSummaries):
     """A line plot for one key, a heat map for two; None for more (the table has it all)."""
     axes = grid_axes(varies, rows)
     if len(varies) == 1:

@@ -128,3 +128,34 @@ def test_two_keys_with_monte_carlo_trials(tmp_path):
     assert (out / "sweep.png").exists()
     # Re-running a different sweep into the same folder is refused, not mixed in.
     assert main(["sweep", scen, "--vary", "drive.supply=3V,6V", "--out", str(out), "--workers", "1"]) == 2
+
+
+def test_results_csv_is_written_in_point_order_from_an_unordered_journal(tmp_path):
+    """The table is streamed from the journal, whose lines are in finishing order; a torn last line
+    (a kill mid-write) is left out. Holds only one offset per point in memory."""
+    import json
+
+    from sim.sweep import METRIC_COLUMNS, PointSummaries, read_journal, write_results_csv
+
+    varies = [parse_vary("drive.supply=6,8,10"), parse_vary("sensors.rate=250,500")]   # 6 points
+    spec = {"made": "by hand"}
+    journal = tmp_path / JOURNAL
+    lines = [json.dumps({"wheelbench_sweep": 1, "spec": spec})]
+    for i in (4, 0, 5, 2):
+        lines.append(json.dumps({"i": i, "row": {"point": i, "drive.supply": 6 + 2 * (i // 2), "passed": i % 2 == 0,
+                                                 "wheel_speed_margin": 0.1 * i, "outcome": "balanced"}}))
+    journal.write_text("\n".join(lines) + "\n" + '{"i": 3, "row": {"point": 3, "pas')   # torn
+    write_results_csv(tmp_path / "results.csv", varies, journal)
+    rows = read_rows(tmp_path / "results.csv")
+    assert [int(r["point"]) for r in rows] == [0, 2, 4, 5]
+    assert list(rows[0]) == ["drive.supply", "sensors.rate", *METRIC_COLUMNS]
+    assert [r["wheel_speed_margin"] for r in rows] == ["0.0", "0.2", "0.4", "0.5"]
+
+    points = PointSummaries(varies)
+    read_journal(journal, spec, points)
+    assert len(points) == 4 and points.n_passed == 3 and 3 not in points
+    assert points.get(2)["wheel_speed_margin"] == pytest.approx(0.2) and points.get(3) is None
+    assert points.get(2)["drive.supply"] == 8                  # on the first key's axis: its value is kept
+    assert journal.read_text().endswith("}}\n")                # the torn line was cut off
+    with pytest.raises(InputError, match="different sweep"):
+        read_journal(journal, {"made": "otherwise"}, PointSummaries(varies))
