@@ -231,7 +231,7 @@ class PointSummaries:
         self.done = np.zeros(total, dtype=bool)
         self.passed = np.zeros(total, dtype=bool)
         self.values = np.full((total, len(self.FIELDS)), np.nan)
-        self.axis_points = set(axis_indices(self.shape))
+        self.axis_points = {i for line in axis_indices(self.shape) for i in line}
         self.axis_values: dict[int, dict] = {}
 
     def add(self, index: int, row: dict) -> None:
@@ -258,14 +258,16 @@ class PointSummaries:
         return int(self.passed.sum())
 
 
-def axis_indices(shape: list[int]) -> list[int]:
-    """Point indices on each key's axis (the other keys at their first value), row-major order."""
+def axis_indices(shape: list[int]) -> list[list[int]]:
+    """Per key, the point indices along its axis (the other keys at their first value)."""
     out = []
     for k, n in enumerate(shape):
+        line = []
         for j in range(n):
             idx = [0] * len(shape)
             idx[k] = j
-            out.append(int(np.ravel_multi_index(idx, shape)))
+            line.append(int(np.ravel_multi_index(idx, shape)))
+        out.append(line)
     return out
 
 
@@ -387,16 +389,8 @@ class CsvRewrites:
 
 def grid_axes(varies: list[Vary], rows: PointSummaries) -> list[list]:
     """Per key, the column values of the points along its axis (SI where numeric)."""
-    axes = []
-    for k, v in enumerate(varies):
-        values = []
-        for j in range(len(v.values)):
-            idx = [0] * len(varies)
-            idx[k] = j
-            index = int(np.ravel_multi_index(idx, [len(x.values) for x in varies]))
-            values.append(rows.get(index, {}).get(v.key, v.values[j]))
-        axes.append(values)
-    return axes
+    return [[rows.get(index, {}).get(v.key, v.values[j]) for j, index in enumerate(line)]
+            for v, line in zip(varies, axis_indices([len(x.values) for x in varies]))]
 
 
 def sweep_figure(varies: list[Vary], rows: PointSummaries):
