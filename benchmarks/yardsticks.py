@@ -27,15 +27,16 @@ def bare_engine_rtf(device, *, step_s: float, seconds: float) -> float:
         pb, cid, body = engine.pb, engine.client, engine.body_id
         engine.reset(angle_rad=0.05, rate_rad_s=0.0)
         states, torques, step = pb.getJointStates, pb.setJointMotorControlArray, pb.stepSimulation
-        joints, mode = [0, 1], pb.TORQUE_CONTROL
+        joints, mode, unused = (0, 1), pb.TORQUE_CONTROL, (0.0, 0.0)
         n = int(round(seconds / step_s))
         t0 = time.perf_counter()
         for _ in range(n):
-            s = states(body, joints, physicsClientId=cid)
+            # the fastest call forms, as the engine uses them: every argument positional
+            s = states(body, joints, cid)
             # a torque that depends on the read, so the read cannot be skipped; the body is
             # gently held near upright (the figure must not depend on it falling over)
-            torques(body, joints, mode, forces=[-0.5 * s[0][0] - 0.05 * s[0][1], 0.0], physicsClientId=cid)
-            step(physicsClientId=cid)
+            torques(body, joints, mode, unused, unused, (-0.5 * s[0][0] - 0.05 * s[0][1], 0.0), unused, unused, cid)
+            step(cid)
         wall = time.perf_counter() - t0
     finally:
         engine.close()

@@ -66,3 +66,38 @@ def test_same_device_is_reused_and_another_is_rebuilt():
         assert built == [1]                                              # a different wheel: rebuilt
     finally:
         engine_mod.EngineModel._build = real
+
+
+@pytest.mark.parametrize("locked", [False, True])
+def test_positional_torque_command_matches_the_keyword_form(locked):
+    """The engine sends torques with every argument positional (targets and gains filled in, ignored
+    in torque mode); the states must be exactly those of pybullet's documented keyword form."""
+    from sim.device import Device
+
+    sc = make_scenario(body={"locked": locked, "pivot_friction": {"coulomb": 0.002, "viscous": 1e-4}},
+                       wheel={"bearing_friction": {"coulomb": 0.001}})
+    device = Device.from_scenario(sc)
+
+    def run(keyword: bool) -> list:
+        engine_mod._IDLE_CLIENTS.clear()
+        engine = engine_mod.EngineModel(device, step_s=1e-3, start_angle_rad=0.2)
+        try:
+            engine.reset(angle_rad=0.2, rate_rad_s=0.5, wheel_speed_rad_s=3.0)
+            read, advance = engine.io()
+            pb, body, cid = engine.pb, engine.body_id, engine.client
+            joints = [1] if locked else [0, 1]
+            states = []
+            for k in range(400):
+                states.append(read())
+                pivot, wheel = 0.01 * np.sin(k / 7), 0.02 * np.cos(k / 11)
+                if keyword:
+                    forces = [wheel] if locked else [pivot, wheel]
+                    pb.setJointMotorControlArray(body, joints, pb.TORQUE_CONTROL, forces=forces, physicsClientId=cid)
+                    pb.stepSimulation(physicsClientId=cid)
+                else:
+                    advance(pivot, wheel)
+            return states
+        finally:
+            engine.close()
+
+    assert run(keyword=False) == run(keyword=True)
