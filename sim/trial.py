@@ -299,9 +299,12 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
     catch_k = fell_k = None
     fall_final = False
     ticks = 0
-    t_angle, t_rate, t_wangle, t_wspeed = trace.angle, trace.rate, trace.wheel_angle, trace.wheel_speed
-    t_volt, t_cur, t_torq, t_mode = trace.voltage, trace.current, trace.torque, trace.mode
-    t_ma, t_mr, t_mw = trace.meas_angle, trace.meas_rate, trace.meas_wheel
+    # the columns through memoryviews: a Python float in or out costs about half what numpy's
+    # item access does, and the loop writes six to eleven values a step (the same memory)
+    t_angle, t_rate, t_wangle, t_wspeed = (memoryview(c) for c in (trace.angle, trace.rate, trace.wheel_angle,
+                                                                   trace.wheel_speed))
+    t_volt, t_cur, t_torq, t_mode = (memoryview(c) for c in (trace.voltage, trace.current, trace.torque, trace.mode))
+    t_ma, t_mr, t_mw = (memoryview(c) for c in (trace.meas_angle, trace.meas_rate, trace.meas_wheel))
     read, advance = engine.io()
     command = strategy.command if strategy is not None else None
     sense, enter, leave, update = sensors.read, clock.enter, clock.leave, motor.update

@@ -55,8 +55,12 @@ class LqrBalance(Strategy):
     def decide(self, reading: Reading) -> float:
         gx = self._gx
         v = -(gx[0] * reading.angle_rad + gx[1] * reading.rate_rad_s + gx[2] * reading.wheel_speed_rad_s)
-        if self.predictor.active:
-            for g, u in zip(self._gu, self.predictor.u):
+        if self._gu:
+            held = self.predictor.u
+            for g, u in zip(self._gu, held):
                 v -= g * u
-            self.predictor.record(min(max(v, -self.supply_v), self.supply_v))  # what the drive will apply
+            # what the drive will apply, recorded as DelayPredictor.record does (inline: every tick)
+            cap = self.supply_v
+            del held[0]
+            held.append(cap if v > cap else (-cap if v < -cap else v))
         return v
