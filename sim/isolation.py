@@ -121,16 +121,15 @@ def run_in_child(work: Callable[[], Any], *, beat: Heartbeat, mirror: object = N
     process's `mirror` (an `on_step` hook that records what it saw keeps its record). Everything
     `work` returns must pickle, and so must everything the parent needs: the child's memory is gone.
     """
-    for stream in (sys.stdout, sys.stderr):     # or the child would write the parent's pending text again
-        _flush(stream)
     read_fd, write_fd = os.pipe()
-    parent, started = os.getpid(), time.perf_counter()
-    pid = os.fork()
-    if pid == 0:
+    started = time.perf_counter()
+
+    def in_child() -> None:
         os.close(read_fd)
-        _child_main(work, write_fd, mirror, parent)     # never returns
+        _send(work, write_fd, mirror)
+
+    child = fork_child(in_child)
     os.close(write_fd)
-    child = _Child(pid)
     try:
         message, lost = _watch(child, read_fd, beat, started)
     finally:
@@ -147,7 +146,20 @@ def run_in_child(work: Callable[[], Any], *, beat: Heartbeat, mirror: object = N
 
 # ----------------------------------------------------------------------------- the child's side
 
-def _child_main(work, write_fd: int, mirror, parent: int) -> None:
+def fork_child(work: Callable[[], None]) -> "Child":
+    """Run `work()` in a forked child and return at once with its `Child`.
+
+    The child ignores SIGINT (Ctrl-C reaches the whole process group; the parent decides), dies
+    with its parent (PR_SET_PDEATHSIG), and leaves with os._exit: status 0 when `work` returned,
+    1 with the traceback on stderr when it raised. Pending output is flushed before the fork, so
+    the child does not write the parent's text again.
+    """
+    for stream in (sys.stdout, sys.stderr):
+        _flush(stream)
+    parent = os.getpid()
+    pid = os.fork()
+    if pid:
+        return Child(pid)
     code = 0
     try:
         signal.signal(signal.SIGINT, signal.SIG_IGN)
@@ -155,25 +167,30 @@ def _child_main(work, write_fd: int, mirror, parent: int) -> None:
         _die_with_parent()
         if os.getppid() != parent:              # the parent died before the request took hold
             os._exit(1)
-        try:
-            message = {"value": work()}
-        except BaseException as exc:            # the parent raises it again
-            message = {"raised": _pack_exception(exc)}
-        message["mirror"] = pack_attributes(mirror)
-        try:
-            data = pickle.dumps(message, protocol=pickle.HIGHEST_PROTOCOL)
-        except Exception as exc:                # what `work` returned does not pickle: a programming error
-            data = pickle.dumps({"raised": _pack_exception(exc), "mirror": {}}, protocol=pickle.HIGHEST_PROTOCOL)
+        work()
         for stream in (sys.stdout, sys.stderr):
             _flush(stream)
-        with os.fdopen(write_fd, "wb") as pipe:
-            pipe.write(len(data).to_bytes(8, "little") + data)
     except BaseException:
         code = 1
         traceback.print_exc()
         _flush(sys.stderr)
     finally:
         os._exit(code)
+
+
+def _send(work, write_fd: int, mirror) -> None:
+    """In the child: run `work` and send what it returned, or raised, with `mirror`'s attributes."""
+    try:
+        message = {"value": work()}
+    except BaseException as exc:                # the parent raises it again
+        message = {"raised": _pack_exception(exc)}
+    message["mirror"] = pack_attributes(mirror)
+    try:
+        data = pickle.dumps(message, protocol=pickle.HIGHEST_PROTOCOL)
+    except Exception as exc:                    # what `work` returned does not pickle: a programming error
+        data = pickle.dumps({"raised": _pack_exception(exc), "mirror": {}}, protocol=pickle.HIGHEST_PROTOCOL)
+    with os.fdopen(write_fd, "wb") as pipe:
+        pipe.write(len(data).to_bytes(8, "little") + data)
 
 
 def _flush(stream) -> None:
@@ -185,7 +202,7 @@ def _flush(stream) -> None:
 
 # ----------------------------------------------------------------------------- the parent's side
 
-class _Child:
+class Child:
     """A forked child's pid, reaped exactly once (a reaped pid may belong to another process later)."""
 
     def __init__(self, pid: int) -> None:
@@ -213,7 +230,7 @@ class _Child:
             self.wait()
 
 
-def _watch(child: _Child, read_fd: int, beat: Heartbeat, started: float) -> tuple[dict | None, LostChild | None]:
+def _watch(child: Child, read_fd: int, beat: Heartbeat, started: float) -> tuple[dict | None, LostChild | None]:
     """Read the child's message, killing it when stuck: (message, None) or (None, LostChild)."""
     poller = select.poll()
     poller.register(read_fd, select.POLLIN)
@@ -236,7 +253,7 @@ def _watch(child: _Child, read_fd: int, beat: Heartbeat, started: float) -> tupl
             return None, _lost(child, beat, started, stuck=True)
 
 
-def _lost(child: _Child, beat: Heartbeat, started: float, *, stuck: bool) -> LostChild:
+def _lost(child: Child, beat: Heartbeat, started: float, *, stuck: bool) -> LostChild:
     status = child.wait()
     code = os.waitstatus_to_exitcode(status)
     if code < 0:

@@ -3,11 +3,10 @@
 from __future__ import annotations
 
 import os
-import signal
-import sys
 from contextlib import contextmanager
 from pathlib import Path
 
+from .isolation import fork_child
 from .metrics import trial_metrics
 from .outputs import atomic_path, prepare_out_dir, write_json
 from .plots import save_figure, summary_figure
@@ -42,42 +41,15 @@ def plot_beside(result, path: Path, *, enabled: bool = True):
     cleanly, the plot is drawn here after the block (so a real error surfaces as it would have).
     The child writes through `atomic_path`, so the PNG is complete or absent.
     """
-    pid = _fork_drawing(result, path) if enabled and hasattr(os, "fork") else None
+    def draw() -> None:
+        save_figure(summary_figure(result), path)
+
+    child = fork_child(draw) if enabled and hasattr(os, "fork") else None
     try:
         yield
     except BaseException:
-        if pid:
-            _stop(pid)
+        if child is not None:
+            child.kill()
         raise
-    if enabled and (pid is None or _exit_code(pid) != 0):
-        save_figure(summary_figure(result), path)
-
-
-def _fork_drawing(result, path: Path) -> int:
-    sys.stdout.flush()
-    sys.stderr.flush()
-    pid = os.fork()
-    if pid:
-        return pid
-    code = 1
-    try:  # the child: draw, save, leave without running the parent's exit handlers
-        from .parallel import _die_with_parent
-        _die_with_parent()
-        signal.signal(signal.SIGINT, signal.SIG_IGN)   # Ctrl-C is the parent's to handle
-        save_figure(summary_figure(result), path)
-        code = 0
-    finally:
-        os._exit(code)
-
-
-def _exit_code(pid: int) -> int:
-    _, status = os.waitpid(pid, 0)
-    return os.waitstatus_to_exitcode(status)
-
-
-def _stop(pid: int) -> None:
-    try:
-        os.kill(pid, signal.SIGKILL)
-        os.waitpid(pid, 0)
-    except OSError:
-        pass
+    if enabled and (child is None or os.waitstatus_to_exitcode(child.wait()) != 0):
+        draw()
