@@ -94,7 +94,18 @@ def _alive(pid: int) -> bool:
         return False
     except (PermissionError, OSError, OverflowError):  # someone else's live process, or unknown: keep
         return True
-    return True
+    return not _zombie(pid)
+
+
+def _zombie(pid: int) -> bool:
+    """True for a process that has ended but not been reaped (Linux's state Z). A child killed with
+    its parent (a run's plot process) stays one until whoever adopted it reaps it, which in a
+    container may be never; it runs no more and will write nothing."""
+    try:
+        stat = Path(f"/proc/{pid}/stat").read_text()
+    except OSError:  # not Linux, or gone meanwhile
+        return False
+    return stat[stat.rindex(")") + 2:].startswith("Z")
 
 
 @contextmanager

@@ -14,6 +14,7 @@ import signal
 import subprocess
 import sys
 import time
+from pathlib import Path
 
 import pytest
 
@@ -87,6 +88,24 @@ def test_stale_temps_of_dead_writers_only_are_removed(tmp_path):
         p.write_text("x")
     assert remove_stale_temps(out) == [stale]
     assert live.exists() and user.exists() and not stale.exists()
+
+
+@pytest.mark.skipif(not Path("/proc/self/stat").exists(), reason="reads Linux's /proc")
+def test_temps_of_an_ended_but_unreaped_writer_are_removed(tmp_path):
+    """A writer killed with its parent stays a zombie until whoever adopted it reaps it (in a
+    container, maybe never): it runs no more, so its temporary files are stale too."""
+    out = prepare_out_dir(tmp_path / "o")
+    zombie = subprocess.Popen([sys.executable, "-c", "pass"])
+    try:
+        deadline = time.monotonic() + 30
+        while "Z" not in Path(f"/proc/{zombie.pid}/stat").read_text().rsplit(")", 1)[1][:3]:
+            assert time.monotonic() < deadline, "the child did not end"
+            time.sleep(0.01)                              # ended, not reaped: a zombie
+        stale = out / f".summary.png.{zombie.pid}.abcd1234.tmp.png"
+        stale.write_text("x")
+        assert remove_stale_temps(out) == [stale]
+    finally:
+        zombie.wait()
 
 
 # --------------------------------------------------------------------- interrupted runs
