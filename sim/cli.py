@@ -127,13 +127,38 @@ def fit(log: Path = typer.Argument(..., help="CSV bench log with units in the he
         raise InputError(f"--test: unknown test {test!r}; known: {', '.join(TESTS)}")
     sc = _load(scenario, None) if scenario is not None else None
     result = fit_log(read_log(log), test, scenario=sc)
-    written = write_fit_outputs(result, out, log_path=str(log), scenario_path=str(scenario) if scenario else None,
-                                force=force)
+    written, notes = write_fit_outputs(result, out, log_path=str(log),
+                                       scenario_path=str(scenario) if scenario else None, force=force)
     for key, (value, sigma) in result.values.items():
         typer.echo(f"{key:40s} {value:.6g}" + (f" +- {sigma:.2g}" if sigma is not None else ""))
+    for note in notes:
+        typer.echo(f"note: {note}")
     typer.echo(f"wrote {', '.join(str(p) for p in written)}")
     if test != "free-swing":
         typer.echo(SAFETY)
+
+
+@app.command()
+def apply(scenario: Path = typer.Argument(..., help="Scenario YAML file to patch."),
+          patches: List[Path] = typer.Argument(..., help="Patch files (YAML mappings of scenario keys), in order."),
+          out: Optional[Path] = typer.Option(None, "--out", help="Write the patched scenario to this file."),
+          in_place: bool = typer.Option(False, "--in-place", help="Replace the scenario file itself."),
+          force: bool = typer.Option(False, "--force", help="Replace an existing --out file.")):
+    """Merge patches (from fit, tune or by hand) into a scenario, keeping its comments and layout.
+
+    Without --out or --in-place the patched scenario is printed. The result is validated before
+    anything is written, and written atomically.
+    """
+    from .scenario_edit import apply_command
+    result, written = apply_command(scenario, list(patches), out=out, in_place=in_place, force=force)
+    if written is None:
+        typer.echo(result.text, nl=False)
+        for note in result.notes:
+            typer.echo(f"note: {note}", err=True)
+        return
+    for note in result.notes:
+        typer.echo(f"note: {note}")
+    typer.echo(f"wrote {written}")
 
 
 TrialsOpt = typer.Option(None, "--trials", help="Monte Carlo trials over the scenario's tolerances.")
