@@ -101,15 +101,17 @@ def validate(scenario: Path = typer.Argument(..., help="Scenario YAML file."),
 
 @app.command()
 def gains(scenario: Optional[Path] = ScenarioArg,
-          format_: str = typer.Option("json", "--format", help="json or c (a C header)."),
+          format_: str = typer.Option("json", "--format", help="json, c (a C header with a reference function) "
+                                                               "or text (for reading)."),
           set_: Optional[List[str]] = SetOpt):
-    """Print the balance law's LQR gains for firmware (stdout)."""
+    """Print the balance law's gains (LQR or PID) for firmware, with model-based starting values (stdout)."""
     from .errors import InputError
-    from .gains import gains_report, to_c_header, to_json
-    if format_ not in ("json", "c"):
-        raise InputError(f"--format: expected 'json' or 'c', found {format_!r}")
+    from .gains import gains_report, to_c_header, to_json, to_text
+    writers = {"json": to_json, "c": to_c_header, "text": to_text}
+    if format_ not in writers:
+        raise InputError(f"--format: expected 'json', 'c' or 'text', found {format_!r}")
     report = gains_report(_load(scenario, set_))
-    typer.echo(to_json(report) if format_ == "json" else to_c_header(report), nl=format_ == "json")
+    typer.echo(writers[format_](report), nl=format_ == "json")
 
 
 @app.command()
