@@ -90,13 +90,14 @@ def compare(first: Optional[Path] = typer.Argument(None, help="First scenario (d
 @app.command()
 def validate(scenario: Path = typer.Argument(..., help="Scenario YAML file."),
              set_: Optional[List[str]] = SetOpt):
-    """Check a scenario file and print its derived device figures."""
+    """Check a scenario file and print its derived device figures and the strategy parameters in use."""
     from .device import Device
+    from .device_figures import figures_text
     sc = _load(scenario, set_)
     d = Device.from_scenario(sc)
-    typer.echo(f"{scenario}: valid. mass {d.mass_kg * 1000:.1f} g, J {d.J_kg_m2:.4g} kg m^2, "
-               f"wheel I_w {d.I_w_kg_m2:.4g} kg m^2, no-load speed {d.no_load_speed_rad_s:.1f} rad/s, "
-               f"stall torque {d.stall_torque_n_m * 1000:.1f} mN m, strategy {sc.strategy.kind}")
+    typer.echo(f"{scenario}: valid.")
+    for line in figures_text(d, sc.strategy):
+        typer.echo(f"  {line}")
 
 
 @app.command()
