@@ -96,19 +96,33 @@ def report_markdown(v: dict, images: list[str]) -> str:
     return "\n".join(lines)
 
 
+NARROW_TERMINAL = 110   # columns below which the notes are printed under the table
+
+
 def print_verdict(v: dict, out: Path) -> None:
     """The terminal table, ending with the safety cautions."""
     from rich.console import Console
     from rich.table import Table
 
     console = Console()
+    # the criterion's name is never cut or folded (a user greps for it); on a narrow terminal the
+    # notes go below the table, where they have the whole width
+    notes_below = console.width < NARROW_TERMINAL
     table = Table(title=f"{v['name']} - {v['strategy']}: {'PASS' if v['passed'] else 'FAIL'}")
-    for col in ("criterion", "value", "limit", "result", "note"):
-        table.add_column(col)
+    table.add_column("criterion", no_wrap=True, min_width=max((len(c["name"]) for c in v["criteria"]), default=9))
+    for col in ("value", "limit", "result"):
+        table.add_column(col, no_wrap=True)
+    if not notes_below:
+        table.add_column("note", overflow="fold")
     for c in v["criteria"]:
-        table.add_row(c["name"], format_value(c["name"], c["value"]), format_value(c["name"], c["limit"]),
-                      "[green]pass[/green]" if c["passed"] else "[bold red]FAIL[/bold red]", c["note"])
+        row = [c["name"], format_value(c["name"], c["value"]), format_value(c["name"], c["limit"]),
+               "[green]pass[/green]" if c["passed"] else "[bold red]FAIL[/bold red]"]
+        table.add_row(*row, *([] if notes_below else [c["note"]]))
     console.print(table)
+    if notes_below:
+        for c in v["criteria"]:
+            if c["note"]:
+                console.print(f"{c['name']}: {c['note']}", overflow="fold")
     console.print(f"wrote {out}/verdict.json, report.md and plots")
     for s in SAFETY_NOTES:
         console.print(f"[dim]Safety: {s}[/dim]")
