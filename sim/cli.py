@@ -252,6 +252,100 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
     typer.echo(SAFETY)
 
 
+@app.command()
+def tune(scenario: Optional[Path] = ScenarioArg,
+         out: Path = typer.Option(Path("runs/tune"), "--out", help="Output folder (re-run the same command to resume)."),
+         trials: int = typer.Option(40, "--trials", help="Evaluations (each: the check battery without Monte Carlo)."),
+         objective: str = typer.Option("push", "--objective", help="push, swing_up_time, catch_area or peak_current; "
+                                                                    "two separated by a comma give a Pareto front."),
+         param: Optional[List[str]] = typer.Option(None, "--param", help="KEY=LO..HI[:log] (SI) to search too; "
+                                                                         "repeatable."),
+         only: bool = typer.Option(False, "--only", help="Search only the --param keys, not the strategy's defaults."),
+         mc_trials: Optional[int] = typer.Option(None, "--mc-trials", help="Monte Carlo trials when re-checking the "
+                                                                             "best (default: as check)."),
+         workers: Optional[int] = WorkersOpt, cluster: Optional[str] = ClusterOpt, seed: Optional[int] = SeedOpt,
+         storage: Optional[str] = typer.Option(None, "--storage", help="An optuna storage URL to share one study "
+                                                                        "between machines (default: tune.db in --out)."),
+         force: bool = ForceOpt):
+    """Search the strategy's gains and weights for the design that passes check with the most margin.
+
+    Exit code 0 when a passing design was found, 1 when none passed (the closest is shown).
+    """
+    from .errors import InputError
+    from .outputs import prepare_out_dir
+    from .scenario import default_scenario_path
+    from .tune_outputs import run_tune
+    from .verdicts import DEFAULT_TRIALS
+    if not 1 <= trials <= 100_000:
+        raise InputError(f"--trials: expected 1 to 100000 evaluations, found {trials}")
+    mc = DEFAULT_TRIALS if mc_trials is None else mc_trials
+    if not 1 <= mc <= 100_000:
+        raise InputError(f"--mc-trials: expected 1 to 100000, found {mc}")
+    raw, where = _load_raw(scenario, None, workers, cluster)
+    _tune_dry_check(raw, where, param or [], only, objective)
+    out_dir = prepare_out_dir(out, force=force)
+    bar, update = _progress("tune")
+    best = [None]
+    with bar:
+        def one_done(number, row):
+            v = row["objectives"][0]
+            if not row.get("error") and v is not None and all(c["passed"] for c in row["criteria"]
+                                                              if c["name"] != "max_push_survived_n_m_s"):
+                best[0] = v if best[0] is None else (max if objective.startswith(("push", "catch")) else min)(best[0], v)
+            bar.update(bar.task_ids[0], description=f"tune (best {best[0]:.4g})" if best[0] is not None else "tune",
+                       advance=1, total=trials)
+        outcome = run_tune(raw, where, Path(scenario) if scenario else default_scenario_path(), out_dir,
+                           param_texts=param or [], only=only, objective=objective, n_trials=trials, mc_trials=mc,
+                           workers=workers, cluster=cluster, seed=seed, storage=storage, on_done=one_done)
+    _print_tune(outcome, out_dir)
+    if outcome.winner is None:
+        raise SystemExit(1)
+
+
+def _tune_dry_check(raw, where, params, only, objective) -> None:
+    """Bad --param and --objective values fail before an --out folder is made."""
+    from .device import Device
+    from .scenario import validate_scenario
+    from .tune import check_space, default_space, parse_objectives, parse_param, prefill
+    sc = validate_scenario(raw, where=where)
+    parse_objectives(objective, sc)
+    given = [parse_param(t) for t in params]
+    keys = {p.key for p in given}
+    space = ([] if only else [p for p in default_space(sc, Device.from_scenario(sc)) if p.key not in keys]) + given
+    check_space(prefill(raw, sc, space), where, space)
+
+
+def _print_tune(outcome, out_dir: Path) -> None:
+    from rich.console import Console
+    from rich.markup import escape
+
+    from .tune import OBJECTIVES, failed_criteria
+    console = Console()
+    obj = outcome.objectives[0]
+    unit = OBJECTIVES[obj][2]
+    start = next((e for e in outcome.evaluations if e.number == 0), None)
+    pick = outcome.winner or outcome.closest
+    for note in outcome.notes:
+        console.print(escape(f"note: {note}"))
+    if pick is None:
+        console.print("no evaluation finished")
+        return
+    value = pick.row["objectives"][0]
+    head = (f"best: evaluation {pick.number}, {obj} {value:.4g} {unit}" if outcome.winner is not None else
+            f"no design passed; closest: evaluation {pick.number}, failing "
+            + ", ".join(failed_criteria(pick.row, outcome.objectives)))
+    if start is not None and start.row["objectives"][0] is not None and outcome.winner is not None:
+        head += f" (model-based start: {start.row['objectives'][0]:.4g} {unit})"
+    console.print(escape(head))
+    for p in outcome.params:
+        console.print(escape(f"  {p.key} = {pick.params[p.key]:.6g}"
+                             + (f" (start {p.start:.6g})" if p.start is not None else "") + f": {p.does}"))
+    if len(outcome.objectives) > 1:
+        console.print(escape(f"Pareto front: {len(outcome.front)} designs (tune.csv has every evaluation)"))
+    console.print(escape(f"wrote {out_dir}/" + ", ".join(outcome.written)))
+    console.print(f"[dim]{escape(SAFETY)}[/dim]")
+
+
 @app.command("catch-map")
 def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
                   grid: int = typer.Option(21, "--grid", help="Cells per side."),
