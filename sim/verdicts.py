@@ -25,7 +25,7 @@ from .metrics import SETTLE_BAND_RAD, trial_metrics
 from .parallel import run_tasks
 from .safety import SAFETY_NOTES
 from .scenario import Push, validate_scenario
-from .stress import wheel_burst_check
+from .stress import optimistic_summary, wheel_burst_check
 from .thermal import winding_check
 from .tolerances import perturbed_raw, scenario_tolerances, trial_seed
 from .trial import run_trial
@@ -336,6 +336,8 @@ def _static_criteria(sc, device, hold_signals, thermal: dict, burst: dict, mc: d
     note = "at the runaway speed (no-load speed at full supply)"
     if burst["unknown_parts"]:
         note = f"strength unknown for {', '.join(burst['unknown_parts'])}: cannot confirm; " + note
+    if optimistic_summary(burst):
+        note += "; " + optimistic_summary(burst)
     return [
         _at_least("voltage_headroom", _headroom(volts, device.supply_v), req.voltage_headroom,
                   "holding: 1 - p99(|V|)/supply"),
