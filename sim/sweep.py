@@ -34,7 +34,7 @@ from .errors import InputError, ScenarioError
 from .outputs import atomic_path, clean_json
 from .overrides import parse_path, set_path
 from .parallel import run_tasks
-from .tolerances import trial_seed, value_at
+from .tolerances import trial_seed, value_at, wilson_interval
 
 JOURNAL = "sweep.jsonl"
 RESULTS = "results.csv"
@@ -43,6 +43,7 @@ MAX_POINTS = 1_000_000
 METRIC_COLUMNS = ("point", "seed", "outcome", "caught_at_s", "settle_time_s", "peak_wheel_speed_rad_s",
                   "wheel_speed_margin", "peak_current_a", "rms_current_a", "winding_temperature_c",
                   "wheel_burst_safety_factor", "burst_note", "pushes_survived", "pushes", "mc_trials", "pass_fraction",
+                  "pass_fraction_low", "pass_fraction_high",
                   "passed", "fail_reasons", "message")
 _RANGE = re.compile(r"^(?P<lo>.+?)\.\.(?P<hi>.+):(?P<n>\d+)$")
 
@@ -162,7 +163,8 @@ def point_task(payload: dict) -> dict:
     if trials:
         passes = sum(bool(monte_carlo_task({"raw": raw, "where": payload["where"], "tolerances": _tolerances(sc),
                                             "base_seed": seed, "index": j})["passed"]) for j in range(trials))
-        row.update(mc_trials=trials, pass_fraction=passes / trials)
+        low, high = wilson_interval(passes, trials)
+        row.update(mc_trials=trials, pass_fraction=passes / trials, pass_fraction_low=low, pass_fraction_high=high)
         if passes / trials < sc.requirements.pass_fraction:
             reasons.append("Monte Carlo pass fraction")
     row.update(passed=not reasons, fail_reasons=";".join(reasons))

@@ -6,7 +6,8 @@
 `motor.resistance` is taken as the winding resistance at 20 degC, the usual datasheet condition
 (common practice, no source). Temperatures are in degC, thermal resistance in K/W, heat capacity
 in J/K. A single lumped node ignores the faster winding-to-stator step, so short peaks run hotter
-than this says; the steady figure at the RMS current is the one the verdict uses.
+than this says. `check` and `sweep` judge the same figure, `WINDING_BASIS`: the steady temperature at
+the RMS current of the scenario's own trial (both run it), as if that trial ran continuously.
 """
 
 from __future__ import annotations
@@ -59,12 +60,17 @@ def temperature_history_c(current_a: np.ndarray, step_s: float, *, resistance_20
     return temps
 
 
-def winding_check(motor, rms_current_a: float) -> dict:
+# The one basis `check` and `sweep` judge the winding on: both run the scenario's own trial.
+WINDING_BASIS = "steady state at the RMS current of the scenario's own trial, as if it ran continuously"
+
+
+def winding_check(motor, rms_current_a: float, *, basis: str = WINDING_BASIS) -> dict:
     """The verdict's thermal figures for a scenario's `motor` at a continuous RMS current."""
     th = motor.thermal
     steady = steady_temperature_c(rms_current_a, resistance_20c_ohm=motor.resistance,
                                   thermal_resistance_k_w=th.thermal_resistance, ambient_c=th.ambient)
     return {
+        "basis": basis,
         "rms_current_a": rms_current_a,
         "steady_winding_temperature_c": steady,
         "temperature_rise_k": steady - th.ambient,
