@@ -12,7 +12,8 @@ Formulas (uniform thickness, linear-elastic, plane stress):
   Design, rotating rings; see ../shared/references.md)
 - radial bar (a rod or box spoke) from radius a to b, tension at its inner end:
   sigma = rho w^2 (b^2 - a^2) / 2, from integrating the centrifugal load along the bar
-  (standard result, stated from memory).
+  (standard result, stated from memory); a hollow box adds its outer end cap's load
+  rho w^2 A_cap e (b - e/2) spread over the side walls' section (statics).
 
 Strength: a printed part uses its material's across-layer strength
 (`Material.design_strength_pa`), since a spinning disk is loaded in every in-plane direction
@@ -83,7 +84,13 @@ def part_stress_pa(part, speed_rad_s: float, density_kg_m3: float, poisson: floa
     # rod or box: a radial bar; a bar centred on the axis is two bars meeting at the axis
     half = part.length / 2.0
     inner, outer = max(part.at - half, 0.0), part.at + half
-    return radial_bar_stress_pa(density_kg_m3, speed_rad_s, inner, outer)
+    bar = radial_bar_stress_pa(density_kg_m3, speed_rad_s, inner, outer)
+    if part.shape != "hollow_box":
+        return bar
+    # a hollow box: its side walls are the bar; its outer end cap hangs on them (statics)
+    e, w, t = part.wall, part.width, part.thickness
+    cap, walls = (w - 2 * e) * (t - 2 * e), w * t - (w - 2 * e) * (t - 2 * e)
+    return bar + density_kg_m3 * speed_rad_s**2 * cap * e * (outer - e / 2) / walls
 
 
 def rotating_disk_stresses_pa(density_kg_m3: float, speed_rad_s: float, outer_m: float, inner_m: float,
@@ -296,6 +303,6 @@ def _inner_edge(part) -> float:
     """Smallest radius of the part from the wheel axis, m."""
     if part.shape == "ring":
         return part.inner_radius
-    if part.shape in ("rod", "box"):
+    if part.shape in ("rod", "box", "hollow_box"):
         return max(part.at - part.length / 2.0, 0.0)
     return 0.0 if part.shape == "disk" else part.at

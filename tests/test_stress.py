@@ -194,3 +194,19 @@ def test_carrier_is_the_part_spanning_the_point_and_uncarried_loads_are_flagged(
     assert rows["web"]["rim_load_stress_pa"] is None
     assert "not counted" in rows["far"]["note"]
     assert any("far" in n for n in check["optimistic_notes"])
+
+
+def test_hollow_box_spoke_carries_its_end_cap():
+    # A hollow box lying radially from a to b: its side walls (section A_w) are a radial bar,
+    # root tension rho w^2 (b^2 - a^2) / 2 (integrated load, as above); its outer end cap (area
+    # A_c, wall e) hangs on them: + rho A_c e w^2 (b - e/2) / A_w (statics of the free body beyond the
+    # root). Checked by quadrature of the load along the walls plus the cap as a lumped mass.
+    from scipy.integrate import quad
+    sc = _wheel_scenario([{"name": "arm", "shape": "hollow_box", "length": "40 mm", "width": "12 mm",
+                           "thickness": "8 mm", "wall": "1 mm", "material": "aluminium", "at": "30 mm", "count": 2}])
+    check = wheel_burst_check(sc, Device.from_scenario(sc))
+    w, a, b, e = check["runaway_speed_rad_s"], 0.010, 0.050, 0.001
+    walls, cap = 0.012 * 0.008 - 0.010 * 0.006, 0.010 * 0.006
+    load, _ = quad(lambda r: RHO_AL * walls * w**2 * r, a, b)
+    load += RHO_AL * cap * e * w**2 * (b - e / 2)
+    np.testing.assert_allclose(check["parts"][0]["stress_pa"], load / walls, rtol=1e-9)
