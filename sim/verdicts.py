@@ -26,7 +26,7 @@ from .parallel import run_tasks
 from .safety import SAFETY_NOTES
 from .scenario import Push, validate_scenario
 from .stress import optimistic_summary, wheel_burst_check
-from .thermal import winding_check
+from .thermal import trial_rms_current_a, winding_check
 from .tolerances import interval_note, perturbed_raw, scenario_tolerances, trial_seed, wilson_interval
 from .trial import run_trial
 
@@ -172,7 +172,8 @@ def judge_trial(scenario, *, seed: int) -> dict:
         reasons.append("slow to settle")
     if m["wheel_speed_margin"] is None or m["wheel_speed_margin"] < req.wheel_speed_margin:
         reasons.append("wheel speed margin")
-    temp = winding_check(scenario.motor, m["rms_current_a"])["steady_winding_temperature_c"]
+    rms = trial_rms_current_a(result.trace.view("current"), result.trace.step_s, result.fell_at_s)
+    temp = winding_check(scenario.motor, rms)["steady_winding_temperature_c"]
     return {
         "outcome": m["outcome"], "message": m["message"], "caught_at_s": m["caught_at_s"],
         "settle_time_s": m["settle_time_s"], "peak_wheel_speed_rad_s": m["peak_wheel_speed_rad_s"],
@@ -287,7 +288,8 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
     `runs_current` = {run name: current array A}, for the transient winding temperatures.
     """
     worse = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
-    thermal = winding_check(sc.motor, metrics["nominal"]["rms_current_a"])
+    thermal = winding_check(sc.motor, trial_rms_current_a(runs_current["nominal"], sc.world.step,
+                                                          metrics["nominal"]["fell_at_s"]))
     thermal["hold_steady_winding_temperature_c"] = winding_check(
         sc.motor, metrics["hold"]["rms_current_a"])["steady_winding_temperature_c"]   # for the report only
     thermal["peak_over_runs_c"] = _transient_peaks(sc, runs_current)

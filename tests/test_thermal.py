@@ -82,3 +82,22 @@ def test_check_and_sweep_judge_the_winding_on_the_same_basis():
                                thermal["steady_winding_temperature_c"], rtol=1e-12)
     # a sweep point draws its own sensor-noise seed (point index): the same figure within 0.5 K of noise
     np.testing.assert_allclose(sweep_row["winding_temperature_c"], thermal["steady_winding_temperature_c"], atol=0.5)
+
+
+def test_winding_basis_is_the_same_for_a_run_stopped_at_its_fall_and_one_that_flails_on():
+    # sweep stops a trial at the fall, check's nominal run goes on to its end: the basis cuts both at
+    # fell_at_s, so a falling design gets one figure. A 60 mN m s push knocks the test pendulum over.
+    from test_verdicts import fast_raw
+    from sim.scenario import validate_scenario
+    from sim.thermal import trial_rms_current_a
+    from sim.trial import run_trial
+    sc = validate_scenario(fast_raw(trial={"duration": "1.5 s", "start": {"angle": "3 deg"}, "seed": 3,
+                                           "pushes": [{"at": "0.5 s", "impulse": "60 mN*m*s"}]}), where="t.yaml")
+    stopped, full = run_trial(sc, stop_early=True), run_trial(sc, stop_early=False)
+    assert stopped.outcome == full.outcome == "fell" and full.trace.n > stopped.trace.n
+    a = trial_rms_current_a(stopped.trace.view("current"), sc.world.step, stopped.fell_at_s)
+    b = trial_rms_current_a(full.trace.view("current"), sc.world.step, full.fell_at_s)
+    np.testing.assert_allclose(a, b, rtol=1e-12)
+    # the RMS is the plain root-mean-square of the rows before the fall (definition)
+    k = int(round(full.fell_at_s / sc.world.step))
+    np.testing.assert_allclose(b, np.sqrt(np.mean(full.trace.view("current")[:k] ** 2)), rtol=1e-12)
