@@ -42,8 +42,8 @@ CSV_EVERY_S = 3.0
 MAX_POINTS = 1_000_000
 METRIC_COLUMNS = ("point", "seed", "outcome", "caught_at_s", "settle_time_s", "peak_wheel_speed_rad_s",
                   "wheel_speed_margin", "peak_current_a", "rms_current_a", "winding_temperature_c",
-                  "wheel_burst_safety_factor", "burst_note", "pushes_survived", "pushes", "mc_trials", "pass_fraction",
-                  "pass_fraction_low", "pass_fraction_high",
+                  "wheel_burst_safety_factor", "burst_note", "pushes_survived", "pushes", "mc_trials",
+                  "pass_fraction", "pass_fraction_low", "pass_fraction_high",
                   "passed", "fail_reasons", "message")
 _RANGE = re.compile(r"^(?P<lo>.+?)\.\.(?P<hi>.+):(?P<n>\d+)$")
 

@@ -113,8 +113,8 @@ def report_markdown(v: dict, images: list[str]) -> str:
     mc = v["monte_carlo"]
     lines += ["", "## Monte Carlo", "",
               f"{mc['passed_trials']} of {mc['trials']} trials passed"
-              + (f" (95% Wilson score interval {100 * mc['pass_fraction_low']:.1f}-{100 * mc['pass_fraction_high']:.1f}%)"
-                 if mc.get("pass_fraction_low") is not None else "")
+              + (f" (95% Wilson score interval {100 * mc['pass_fraction_low']:.1f}-"
+                 f"{100 * mc['pass_fraction_high']:.1f}%)" if mc.get("pass_fraction_low") is not None else "")
               + "; each trial's draws, outcome and failed criteria are in monte_carlo.csv. "
               "Tolerances drawn uniformly within their band: "
               + ", ".join(f"`{k}` {t}" for k, t in mc["tolerances"].items()) + ".",

@@ -62,7 +62,8 @@ def test_check_writes_monte_carlo_csv_with_draws_outcomes_and_failed_criteria(tm
     mc = v["monte_carlo"]
     passed = sum(r["passed"] == "True" for r in rows)
     assert mc["passed_trials"] == passed and 0 < passed < 12, "the fixture should give both outcomes"
-    np.testing.assert_allclose((mc["pass_fraction_low"], mc["pass_fraction_high"]), wilson_interval(passed, 12), rtol=1e-12)
+    np.testing.assert_allclose((mc["pass_fraction_low"], mc["pass_fraction_high"]), wilson_interval(passed, 12),
+                               rtol=1e-12)
     crit = next(c for c in v["criteria"] if c["name"] == "monte_carlo_pass_fraction")
     assert "Wilson" in crit["note"]
     # the failed draws are the low supplies (the point of the csv: see which draws failed)
@@ -74,7 +75,8 @@ def test_check_writes_monte_carlo_csv_with_draws_outcomes_and_failed_criteria(tm
 def test_sweep_trials_carry_the_interval(tmp_path):
     scen = write_scenario(tmp_path / "s.yaml", fast_raw())
     out = tmp_path / "grid"
-    assert main(["sweep", scen, "--vary", "drive.supply=12V", "--trials", "3", "--out", str(out), "--workers", "1"]) in (0, 1)
+    assert main(["sweep", scen, "--vary", "drive.supply=12V", "--trials", "3", "--out", str(out),
+                 "--workers", "1"]) in (0, 1)
     with open(out / "results.csv", newline="") as f:
         row = next(csv.DictReader(f))
     k = round(float(row["pass_fraction"]) * 3)
