@@ -70,6 +70,7 @@ SHAPE_SIZES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
     "box": (("length", "width", "thickness"), ()),
     "disk": (("radius",), ("thickness",)),
     "ring": (("outer_radius", "inner_radius"), ("thickness",)),
+    "hollow_box": (("length", "width", "thickness", "wall"), ()),   # closed six-faced shell, outer sizes
 }
 
 
@@ -80,17 +81,19 @@ class Part(Strict):
 
     Orientation: rods and boxes lie with `length` along the body axis (for wheel parts, across
     the wheel axis); `width` is in the swing plane; `thickness` is along the pivot axis. Disks
-    and rings have their axis parallel to the pivot axis.
+    and rings have their axis parallel to the pivot axis. A hollow box is a closed six-faced shell
+    oriented like a box, its sizes the outside ones, its faces `wall` thick.
     """
 
     name: str | None = None
-    shape: Literal["point", "rod", "box", "disk", "ring"]
+    shape: Literal["point", "rod", "box", "disk", "ring", "hollow_box"]
     length: PositiveLength | None = None
     width: PositiveLength | None = None
     thickness: PositiveLength | None = None
     radius: PositiveLength | None = None
     outer_radius: PositiveLength | None = None
     inner_radius: Q("length", ge=0) | None = None
+    wall: PositiveLength | None = None
     mass: PositiveMass | None = None
     material: str | MaterialSpec | None = None
     infill: Fraction | None = None
@@ -103,11 +106,13 @@ class Part(Strict):
         for key in needed:
             if getattr(self, key) is None:
                 raise ValueError(f"@{key}: a {self.shape} needs '{key}'")
-        for key in ("length", "width", "thickness", "radius", "outer_radius", "inner_radius"):
+        for key in ("length", "width", "thickness", "radius", "outer_radius", "inner_radius", "wall"):
             if getattr(self, key) is not None and key not in needed + optional:
                 raise ValueError(f"@{key}: a {self.shape} takes no '{key}' (it takes {', '.join(needed + optional) or 'no sizes'})")
         if self.shape == "ring" and self.inner_radius >= self.outer_radius:
             raise ValueError("@inner_radius: must be smaller than outer_radius")
+        if self.shape == "hollow_box" and 2 * self.wall >= min(self.length, self.width, self.thickness):
+            raise ValueError("@wall: twice the wall must be smaller than the box's length, width and thickness")
         if isinstance(self.material, str):
             from .materials import known_names, lookup
             if lookup(self.material) is None:

@@ -34,7 +34,7 @@ from .errors import InputError, ScenarioError
 from .outputs import atomic_path, clean_json
 from .overrides import parse_path, set_path
 from .parallel import run_tasks
-from .tolerances import trial_seed, value_at
+from .tolerances import trial_seed, value_at, wilson_interval
 
 JOURNAL = "sweep.jsonl"
 RESULTS = "results.csv"
@@ -42,7 +42,8 @@ CSV_EVERY_S = 3.0
 MAX_POINTS = 1_000_000
 METRIC_COLUMNS = ("point", "seed", "outcome", "caught_at_s", "settle_time_s", "peak_wheel_speed_rad_s",
                   "wheel_speed_margin", "peak_current_a", "rms_current_a", "winding_temperature_c",
-                  "wheel_burst_safety_factor", "pushes_survived", "pushes", "mc_trials", "pass_fraction",
+                  "wheel_burst_safety_factor", "burst_note", "pushes_survived", "pushes", "mc_trials",
+                  "pass_fraction", "pass_fraction_low", "pass_fraction_high",
                   "passed", "fail_reasons", "message")
 _RANGE = re.compile(r"^(?P<lo>.+?)\.\.(?P<hi>.+):(?P<n>\d+)$")
 
@@ -134,7 +135,7 @@ def point_task(payload: dict) -> dict:
     """Simulate and judge one sweep point (module-level so worker processes can run it)."""
     from .device import Device
     from .scenario import validate_scenario
-    from .stress import wheel_burst_check
+    from .stress import optimistic_summary, wheel_burst_check
     from .verdicts import judge_trial, monte_carlo_task
     raw = copy.deepcopy(payload["raw"])
     row: dict[str, Any] = {}
@@ -152,8 +153,9 @@ def point_task(payload: dict) -> dict:
         si = value_at(sc, path)
         row[key] = si if isinstance(si, (int, float, str)) else str(si)
     row.update(judge_trial(sc, seed=seed))
-    burst = wheel_burst_check(sc, Device.from_scenario(sc))["safety_factor"]
-    row["wheel_burst_safety_factor"] = burst
+    burst_check = wheel_burst_check(sc, Device.from_scenario(sc))
+    burst = row["wheel_burst_safety_factor"] = burst_check["safety_factor"]
+    row["burst_note"] = optimistic_summary(burst_check)
     reasons = [r for r in row["fail_reasons"].split(";") if r]
     if burst is None or burst < sc.requirements.burst_safety_factor:
         reasons.append("burst safety factor")
@@ -161,7 +163,8 @@ def point_task(payload: dict) -> dict:
     if trials:
         passes = sum(bool(monte_carlo_task({"raw": raw, "where": payload["where"], "tolerances": _tolerances(sc),
                                             "base_seed": seed, "index": j})["passed"]) for j in range(trials))
-        row.update(mc_trials=trials, pass_fraction=passes / trials)
+        low, high = wilson_interval(passes, trials)
+        row.update(mc_trials=trials, pass_fraction=passes / trials, pass_fraction_low=low, pass_fraction_high=high)
         if passes / trials < sc.requirements.pass_fraction:
             reasons.append("Monte Carlo pass fraction")
     row.update(passed=not reasons, fail_reasons=";".join(reasons))

@@ -6,7 +6,10 @@
 `motor.resistance` is taken as the winding resistance at 20 degC, the usual datasheet condition
 (common practice, no source). Temperatures are in degC, thermal resistance in K/W, heat capacity
 in J/K. A single lumped node ignores the faster winding-to-stator step, so short peaks run hotter
-than this says; the steady figure at the RMS current is the one the verdict uses.
+than this says. `check` and `sweep` judge the same figure, `WINDING_BASIS`: the steady temperature at
+the RMS current of the scenario's own trial (both run it) up to any fall, as if that trial ran
+continuously: conservative for a trial that starts with a swing-up or holds pushes, whose current
+is above that of holding still.
 """
 
 from __future__ import annotations
@@ -59,12 +62,31 @@ def temperature_history_c(current_a: np.ndarray, step_s: float, *, resistance_20
     return temps
 
 
-def winding_check(motor, rms_current_a: float) -> dict:
+# The one basis `check` and `sweep` judge the winding on: both run the scenario's own trial.
+WINDING_BASIS = ("steady state at the RMS current of the scenario's own trial up to any fall, "
+                 "as if that trial ran continuously")
+
+
+def trial_rms_current_a(current_a: np.ndarray, step_s: float, fell_at_s: float | None) -> float:
+    """RMS of a trial's winding current (A) up to its fall (`fell_at_s`, s; None: the whole trial).
+
+    The rows after a fall are left out so that a run stopped at the fall and one that flails on to
+    its end give the same figure; non-finite rows (a diverged run) are left out too.
+    """
+    rows = np.asarray(current_a, dtype=float)
+    if fell_at_s is not None:
+        rows = rows[: max(1, int(round(fell_at_s / step_s)))]
+    rows = rows[np.isfinite(rows)]
+    return float(np.sqrt(np.mean(rows**2))) if rows.size else 0.0
+
+
+def winding_check(motor, rms_current_a: float, *, basis: str = WINDING_BASIS) -> dict:
     """The verdict's thermal figures for a scenario's `motor` at a continuous RMS current."""
     th = motor.thermal
     steady = steady_temperature_c(rms_current_a, resistance_20c_ohm=motor.resistance,
                                   thermal_resistance_k_w=th.thermal_resistance, ambient_c=th.ambient)
     return {
+        "basis": basis,
         "rms_current_a": rms_current_a,
         "steady_winding_temperature_c": steady,
         "temperature_rise_k": steady - th.ambient,

@@ -159,3 +159,32 @@ def perturbed_raw(raw: dict, tolerances: list[Tolerance], rng: np.random.Generat
 def trial_seed(base_seed: int, *index: int) -> int:
     """A seed for one trial derived from the base seed and its indices, independent of run order."""
     return int(np.random.SeedSequence([int(base_seed), *[int(i) for i in index]]).generate_state(1, dtype=np.uint64)[0] >> 1)
+
+
+# Two-sided 95% normal quantile, scipy.stats.norm.ppf(0.975) = 1.959964 (to 7 figures).
+Z_95 = 1.959963984540054
+
+
+def wilson_interval(passed: int, trials: int, *, z: float = Z_95) -> tuple[float, float]:
+    """95% Wilson score interval (low, high) for `passed` successes in `trials` trials.
+
+    (p + z^2/(2n) -+ z sqrt(p(1-p)/n + z^2/(4n^2))) / (1 + z^2/n), p = k/n (Wilson, "Probable
+    inference, the law of succession, and statistical inference", JASA 22 (1927) 209-212). Unlike
+    p +- z sqrt(p(1-p)/n) it stays inside [0, 1] and is not zero-width at 0 or n passes.
+    """
+    if trials <= 0:
+        raise ValueError("trials must be positive")
+    n, p = float(trials), passed / trials
+    centre = p + z * z / (2.0 * n)
+    half = z * math.sqrt(p * (1.0 - p) / n + z * z / (4.0 * n * n))
+    scale = 1.0 + z * z / n
+    return max(0.0, (centre - half) / scale), min(1.0, (centre + half) / scale)
+
+
+def interval_note(passed: int, trials: int, limit: float) -> str:
+    """The pass fraction's interval in words, suggesting more trials when it straddles `limit`."""
+    low, high = wilson_interval(passed, trials)
+    note = f"95% interval {100 * low:.1f}-{100 * high:.1f}% (Wilson)"
+    if low < limit <= high:
+        note += f": straddles the {100 * limit:.0f}% limit, run more trials (e.g. --trials {4 * trials})"
+    return note

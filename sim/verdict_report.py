@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import csv
+import io
 import math
 from pathlib import Path
 
@@ -36,9 +38,28 @@ def write_check_outputs(outcome: CheckOutcome, out_dir: Path) -> list[str]:
         written.append(f"{name}.png")
     save_figure(push_figure(outcome.pushes), out_dir / "pushes.png")
     written.append("pushes.png")
+    keys = list(outcome.verdict["monte_carlo"]["tolerances"])
+    write_text(out_dir / "monte_carlo.csv", monte_carlo_csv(outcome.mc_rows, keys))
     write_text(out_dir / "report.md", report_markdown(outcome.verdict, written))
     write_json(out_dir / "verdict.json", outcome.verdict)
-    return written + ["report.md", "verdict.json"]
+    return written + ["monte_carlo.csv", "report.md", "verdict.json"]
+
+
+MC_COLUMNS = ("outcome", "passed", "failed_criteria", "message")
+
+
+def monte_carlo_csv(rows: list[dict], keys: list[str]) -> str:
+    """monte_carlo.csv: one row per trial, its seed, every drawn value (SI, named by its `tolerances`
+    key), the outcome, whether it passed and the criteria it failed (`;`-separated)."""
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(["trial", "seed", *keys, *MC_COLUMNS])
+    for i, r in enumerate(rows):
+        drawn = r.get("drawn") or {}
+        writer.writerow([i, r.get("seed", ""), *[repr(drawn[k]) if k in drawn else "" for k in keys],
+                         r.get("outcome", ""), bool(r.get("passed")), r.get("fail_reasons") or "",
+                         " ".join(str(r.get("message") or "").split())])
+    return buf.getvalue()
 
 
 def push_figure(pushes: dict):
@@ -82,9 +103,20 @@ def report_markdown(v: dict, images: list[str]) -> str:
         strength = "unknown" if p["strength_pa"] is None else f"{p['strength_pa'] / 1e6:.3g} MPa ({p['strength_basis']})"
         sf = "-" if p["safety_factor"] is None else f"{p['safety_factor']:.3g}"
         lines.append(f"| {p['part']} | {p['material'] or '-'} | {stress} | {strength} | {sf} | {p['note']} |")
+    th = v["thermal"]
+    lines += ["", "## Winding temperature", "",
+              f"{format_value('_c', th['steady_winding_temperature_c'])} at {th['rms_current_a']:.3g} A RMS: "
+              f"{th['basis']} (the figure `sweep` reports too). Holding upright only: "
+              f"{format_value('_c', th.get('hold_steady_winding_temperature_c'))}; peaks over the battery's runs "
+              "from ambient: " + ", ".join(f"{k} {format_value('_c', t)}" for k, t in th["peak_over_runs_c"].items())
+              + "."]
     mc = v["monte_carlo"]
     lines += ["", "## Monte Carlo", "",
-              f"{mc['passed_trials']} of {mc['trials']} trials passed; tolerances drawn uniformly within their band: "
+              f"{mc['passed_trials']} of {mc['trials']} trials passed"
+              + (f" (95% Wilson score interval {100 * mc['pass_fraction_low']:.1f}-"
+                 f"{100 * mc['pass_fraction_high']:.1f}%)" if mc.get("pass_fraction_low") is not None else "")
+              + "; each trial's draws, outcome and failed criteria are in monte_carlo.csv. "
+              "Tolerances drawn uniformly within their band: "
               + ", ".join(f"`{k}` {t}" for k, t in mc["tolerances"].items()) + ".",
               ("Failures: " + ", ".join(f"{k} x{n}" for k, n in mc["failures"].items()) + ".") if mc["failures"] else "",
               "", "## Largest push", "",
@@ -109,6 +141,6 @@ def print_verdict(v: dict, out: Path) -> None:
         table.add_row(c["name"], format_value(c["name"], c["value"]), format_value(c["name"], c["limit"]),
                       "[green]pass[/green]" if c["passed"] else "[bold red]FAIL[/bold red]", c["note"])
     console.print(table)
-    console.print(f"wrote {out}/verdict.json, report.md and plots")
+    console.print(f"wrote {out}/verdict.json, report.md, monte_carlo.csv and plots")
     for s in SAFETY_NOTES:
         console.print(f"[dim]Safety: {s}[/dim]")

@@ -25,9 +25,9 @@ from .metrics import SETTLE_BAND_RAD, trial_metrics
 from .parallel import run_tasks
 from .safety import SAFETY_NOTES
 from .scenario import Push, validate_scenario
-from .stress import wheel_burst_check
-from .thermal import winding_check
-from .tolerances import perturbed_raw, scenario_tolerances, trial_seed
+from .stress import optimistic_summary, wheel_burst_check
+from .thermal import trial_rms_current_a, winding_check
+from .tolerances import interval_note, perturbed_raw, scenario_tolerances, trial_seed, wilson_interval
 from .trial import run_trial
 
 HOLD_S = 5.0            # long enough for the LQR-type laws to show drift from sensor bias (our choice)
@@ -172,7 +172,8 @@ def judge_trial(scenario, *, seed: int) -> dict:
         reasons.append("slow to settle")
     if m["wheel_speed_margin"] is None or m["wheel_speed_margin"] < req.wheel_speed_margin:
         reasons.append("wheel speed margin")
-    temp = winding_check(scenario.motor, m["rms_current_a"])["steady_winding_temperature_c"]
+    rms = trial_rms_current_a(result.trace.view("current"), result.trace.step_s, result.fell_at_s)
+    temp = winding_check(scenario.motor, rms)["steady_winding_temperature_c"]
     return {
         "outcome": m["outcome"], "message": m["message"], "caught_at_s": m["caught_at_s"],
         "settle_time_s": m["settle_time_s"], "peak_wheel_speed_rad_s": m["peak_wheel_speed_rad_s"],
@@ -192,12 +193,14 @@ def monte_carlo_task(payload: dict) -> dict:
     from .errors import ScenarioError
     rng = np.random.default_rng(trial_seed(payload["base_seed"], payload["index"], 1))
     raw, drawn = perturbed_raw(payload["raw"], payload["tolerances"], rng)
+    seed = trial_seed(payload["base_seed"], payload["index"])
     try:
         sc = validate_scenario(raw, where=payload["where"])
     except ScenarioError as exc:
-        return {"outcome": "invalid", "message": str(exc), "passed": False, "fail_reasons": "invalid", "drawn": drawn}
-    row = judge_trial(sc, seed=trial_seed(payload["base_seed"], payload["index"]))
-    row["drawn"] = drawn
+        return {"outcome": "invalid", "message": str(exc), "passed": False, "fail_reasons": "invalid", "drawn": drawn,
+                "seed": seed}
+    row = judge_trial(sc, seed=seed)
+    row["drawn"], row["seed"] = drawn, seed
     return row
 
 
@@ -213,7 +216,9 @@ def monte_carlo(raw: dict, where: str, scenario, *, trials: int, workers: int | 
         if on_done is not None:
             on_done()
     passed = sum(bool(r["passed"]) for r in rows)
+    low, high = wilson_interval(passed, trials) if trials else (None, None)
     return {"trials": trials, "passed_trials": passed, "pass_fraction": passed / trials if trials else None,
+            "pass_fraction_low": low, "pass_fraction_high": high, "interval": "95% Wilson score interval",
             "tolerances": {t.key: (f"{t.band:.4g} (relative)" if t.relative else f"{t.band:.6g} (absolute, SI)")
                            for t in tols},
             "rows": rows}
@@ -226,6 +231,7 @@ class CheckOutcome:
     verdict: dict
     runs: dict = field(default_factory=dict)       # name -> TrialResult, for the report's plots
     pushes: dict = field(default_factory=dict)     # direction -> max_push() result
+    mc_rows: list = field(default_factory=list)    # Monte Carlo rows in trial order (monte_carlo.csv)
 
 
 def run_check(raw: dict, where: str, *, trials: int = DEFAULT_TRIALS, workers: int | None = None,
@@ -252,7 +258,7 @@ def run_check(raw: dict, where: str, *, trials: int = DEFAULT_TRIALS, workers: i
     verdict = build_verdict(sc, device, metrics, pushes, mc,
                             hold_signals=(hold_tr.view("voltage").copy(), hold_tr.view("current").copy()),
                             runs_current={name: r.trace.view("current") for name, r in runs.items()})
-    return CheckOutcome(verdict=verdict, runs=runs, pushes=pushes)
+    return CheckOutcome(verdict=verdict, runs=runs, pushes=pushes, mc_rows=mc["rows"])
 
 
 def _headroom(values: np.ndarray, limit: float) -> float | None:
@@ -282,7 +288,10 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
     `runs_current` = {run name: current array A}, for the transient winding temperatures.
     """
     worse = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
-    thermal = winding_check(sc.motor, metrics["hold"]["rms_current_a"])
+    thermal = winding_check(sc.motor, trial_rms_current_a(runs_current["nominal"], sc.world.step,
+                                                          metrics["nominal"]["fell_at_s"]))
+    thermal["hold_steady_winding_temperature_c"] = winding_check(
+        sc.motor, metrics["hold"]["rms_current_a"])["steady_winding_temperature_c"]   # for the report only
     thermal["peak_over_runs_c"] = _transient_peaks(sc, runs_current)
     burst = wheel_burst_check(sc, device)
     crit = (_run_criteria(sc, metrics, pushes[worse]["max_survived_n_m_s"], worse)
@@ -336,18 +345,21 @@ def _static_criteria(sc, device, hold_signals, thermal: dict, burst: dict, mc: d
     note = "at the runaway speed (no-load speed at full supply)"
     if burst["unknown_parts"]:
         note = f"strength unknown for {', '.join(burst['unknown_parts'])}: cannot confirm; " + note
+    if optimistic_summary(burst):
+        note += "; " + optimistic_summary(burst)
     return [
         _at_least("voltage_headroom", _headroom(volts, device.supply_v), req.voltage_headroom,
                   "holding: 1 - p99(|V|)/supply"),
         _at_least("current_headroom", _headroom(amps, i_ref), req.current_headroom,
                   "holding: 1 - p99(|i|)/" + ("current limit" if limited else "stall current")),
         _at_most("winding_temperature_c", thermal["steady_winding_temperature_c"], sc.motor.thermal.max_temperature,
-                 "steady state at the hold's RMS current (continuous balancing)"),
+                 thermal["basis"]),
         _criterion("wheel_burst_safety_factor", burst["safety_factor"], req.burst_safety_factor,
                    burst["safety_factor"] is not None and not burst["unknown_parts"]
                    and burst["safety_factor"] >= req.burst_safety_factor, note),
         _at_least("monte_carlo_pass_fraction", mc["pass_fraction"], req.pass_fraction,
-                  f"{mc['trials']} trials over the tolerances"),
+                  f"{mc['trials']} trials over the tolerances; "
+                  + interval_note(mc["passed_trials"], mc["trials"], req.pass_fraction)),
     ]
 
 
