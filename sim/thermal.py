@@ -7,9 +7,9 @@
 (common practice, no source). Temperatures are in degC, thermal resistance in K/W, heat capacity
 in J/K. A single lumped node ignores the faster winding-to-stator step, so short peaks run hotter
 than this says. `check` and `sweep` judge the same figure, `WINDING_BASIS`: the steady temperature at
-the RMS current of the scenario's own trial (both run it) up to any fall, as if that trial ran
-continuously: conservative for a trial that starts with a swing-up or holds pushes, whose current
-is above that of holding still.
+the RMS current of the scenario's own trial (both run it) while it balances, from the catch (or the
+start, for a trial that starts balancing) to any fall or the end, as if that ran continuously: the
+one-off swing-up is left out; the trial's pushes stay in, which errs warm.
 """
 
 from __future__ import annotations
@@ -63,19 +63,24 @@ def temperature_history_c(current_a: np.ndarray, step_s: float, *, resistance_20
 
 
 # The one basis `check` and `sweep` judge the winding on: both run the scenario's own trial.
-WINDING_BASIS = ("steady state at the RMS current of the scenario's own trial up to any fall, "
-                 "as if that trial ran continuously")
+WINDING_BASIS = ("steady state at the RMS current of the scenario's own trial while balancing (from the catch, "
+                 "or the start, to any fall or the end), as if that ran continuously")
 
 
-def trial_rms_current_a(current_a: np.ndarray, step_s: float, fell_at_s: float | None) -> float:
-    """RMS of a trial's winding current (A) up to its fall (`fell_at_s`, s; None: the whole trial).
+def trial_rms_current_a(current_a: np.ndarray, step_s: float, fell_at_s: float | None,
+                        caught_at_s: float | None = None) -> float:
+    """RMS of a trial's winding current (A) from its catch (`caught_at_s`, s; None: the start) to its
+    fall (`fell_at_s`, s; None: the end).
 
     The rows after a fall are left out so that a run stopped at the fall and one that flails on to
-    its end give the same figure; non-finite rows (a diverged run) are left out too.
+    its end give the same figure; the swing-up before a catch is a one-off, not continuous duty;
+    non-finite rows (a diverged run) are left out too.
     """
     rows = np.asarray(current_a, dtype=float)
     if fell_at_s is not None:
         rows = rows[: max(1, int(round(fell_at_s / step_s)))]
+    if caught_at_s is not None:
+        rows = rows[min(int(round(caught_at_s / step_s)), max(len(rows) - 1, 0)):]
     rows = rows[np.isfinite(rows)]
     return float(np.sqrt(np.mean(rows**2))) if rows.size else 0.0
 

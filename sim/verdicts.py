@@ -172,7 +172,7 @@ def judge_trial(scenario, *, seed: int) -> dict:
         reasons.append("slow to settle")
     if m["wheel_speed_margin"] is None or m["wheel_speed_margin"] < req.wheel_speed_margin:
         reasons.append("wheel speed margin")
-    rms = trial_rms_current_a(result.trace.view("current"), result.trace.step_s, result.fell_at_s)
+    rms = trial_rms_current_a(result.trace.view("current"), result.trace.step_s, result.fell_at_s, result.caught_at_s)
     temp = winding_check(scenario.motor, rms)["steady_winding_temperature_c"]
     return {
         "outcome": m["outcome"], "message": m["message"], "caught_at_s": m["caught_at_s"],
@@ -289,7 +289,8 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
     """
     worse = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
     thermal = winding_check(sc.motor, trial_rms_current_a(runs_current["nominal"], sc.world.step,
-                                                          metrics["nominal"]["fell_at_s"]))
+                                                          metrics["nominal"]["fell_at_s"],
+                                                          metrics["nominal"]["caught_at_s"]))
     thermal["hold_steady_winding_temperature_c"] = winding_check(
         sc.motor, metrics["hold"]["rms_current_a"])["steady_winding_temperature_c"]   # for the report only
     thermal["peak_over_runs_c"] = _transient_peaks(sc, runs_current)

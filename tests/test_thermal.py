@@ -101,3 +101,14 @@ def test_winding_basis_is_the_same_for_a_run_stopped_at_its_fall_and_one_that_fl
     # the RMS is the plain root-mean-square of the rows before the fall (definition)
     k = int(round(full.fell_at_s / sc.world.step))
     np.testing.assert_allclose(b, np.sqrt(np.mean(full.trace.view("current")[:k] ** 2)), rtol=1e-12)
+
+
+def test_winding_basis_leaves_out_the_swing_up_before_the_catch():
+    # the RMS is taken from the catch: rows before it (a one-off swing-up) do not count (definition
+    # of the basis; RMS = sqrt(mean(i^2)) over the rows kept)
+    from sim.thermal import trial_rms_current_a
+    current = np.concatenate([np.full(2000, 4.0), np.full(3000, 0.5)])
+    np.testing.assert_allclose(trial_rms_current_a(current, 0.001, None, 2.0), 0.5, rtol=1e-12)
+    np.testing.assert_allclose(trial_rms_current_a(current, 0.001, 4.0, 2.0), 0.5, rtol=1e-12)
+    np.testing.assert_allclose(trial_rms_current_a(current, 0.001, None, None),
+                               np.sqrt((2000 * 16 + 3000 * 0.25) / 5000), rtol=1e-12)
