@@ -223,7 +223,7 @@ def runaway_criterion(scenario, device, holds: list[dict]) -> dict:
     fallen = [h for h in holds if h["outcome"] != "balanced"]
     timed = [h for h in holds if h["runaway_time_s"] is not None]
     if fallen:
-        worst, value = fallen[0], 0.0
+        worst, value = min(fallen, key=lambda h: h["fell_at_s"] if h["fell_at_s"] is not None else 0.0), 0.0
     elif timed:
         worst = min(timed, key=lambda h: h["runaway_time_s"])
         value = worst["runaway_time_s"]
