@@ -229,7 +229,10 @@ def runaway_criterion(scenario, device, holds: list[dict]) -> dict:
         value = worst["runaway_time_s"]
     else:
         worst, value = max(holds, key=lambda h: abs(h["bias_rad"])), None
-    passed = not fallen and (value is None or value >= req.run_time)
+    unmeasured = [h for h in holds if h["outcome"] == "balanced" and h["drift"] is None]
+    if unmeasured and not fallen and value is None:
+        worst = unmeasured[0]       # too short a hold to fit: cannot vouch for the wheel
+    passed = not fallen and not unmeasured and (value is None or value >= req.run_time)
     # a fall with the wheel far from its limit is not a slow runaway: no bias_drift cause for it
     drifted = not passed and (not fallen or worst["peak_wheel_speed_rad_s"] >= RUNAWAY_NEAR_LIMIT * device.no_load_speed_rad_s)
     biases = ", ".join(f"{math.degrees(h['bias_rad']):+.2f}" for h in holds)

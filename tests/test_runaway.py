@@ -217,3 +217,26 @@ def test_fall_in_a_hold_gives_zero(tmp_path):
     holds = [runaway_hold(sc, bias_rad=b, seed=4) for b in bias_ends(sc)]
     c = runaway_criterion(sc, dev, holds)
     assert c["value"] == 0.0 and not c["passed"] and "fell at" in c["note"]
+
+
+def test_a_hold_too_short_to_measure_is_bad_input(tmp_path, capsys):
+    raw = copy.deepcopy(CREEPER)
+    raw["requirements"] = {"hold_time": "0.5 s"}
+    path = tmp_path / "short.yaml"
+    path.write_text(yaml.safe_dump(raw))
+    assert main(["check", str(path), "--out", str(tmp_path / "out")]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "short.yaml" in err[0] and "requirements.hold_time" in err[0]
+    assert not (tmp_path / "out").exists()
+
+
+def test_sweep_judges_the_runaway_column(tmp_path):
+    import csv
+    path = tmp_path / "creeper.yaml"
+    path.write_text(yaml.safe_dump(CREEPER))
+    out = tmp_path / "sweep"
+    main(["sweep", str(path), "--vary", "strategy.kind=pid,lqr", "--out", str(out), "--workers", "1"])
+    rows = {r["strategy.kind"]: r for r in csv.DictReader((out / "results.csv").open())}
+    assert float(rows["pid"]["wheel_runaway_time_s"]) == 0.0
+    assert "wheel runaway" in rows["pid"]["fail_reasons"].split(";")
+    assert rows["lqr"]["wheel_runaway_time_s"] == "" and "wheel runaway" not in rows["lqr"]["fail_reasons"]
