@@ -16,7 +16,7 @@ PASS_COLOUR, FAIL_COLOUR = "#2f7d4a", LIMIT
 def format_value(name: str, value) -> str:
     """A criterion's value for people: units from the key's suffix, fractions as percentages."""
     if value is None:
-        return "unknown"
+        return "none (settles)" if name == "wheel_runaway_time_s" else "unknown"
     if isinstance(value, float) and not math.isfinite(value):
         return "inf"
     if name.endswith(("_margin", "_headroom", "_fraction")):

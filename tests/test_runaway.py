@@ -205,6 +205,7 @@ def test_same_device_with_lqr_passes_the_criterion(tmp_path):
     assert runaway["passed"] and runaway["value"] is None
     assert "steady wheel offset" in runaway["note"]
     assert "Why the wheel runs away" not in report
+    assert "| wheel_runaway_time_s | none (settles) | 600 s | pass |" in report
     for h in v["runaway_holds"]:
         # the simulated mean wheel speed near the predicted offset; 5% covers noise and dry friction
         assert_allclose(h["mean_wheel_speed_rad_s"], h["predicted_wheel_speed_rad_s"], rtol=0.05)
