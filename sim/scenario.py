@@ -305,6 +305,10 @@ class Requirements(Strict):
     """While holding: 1 - (99th percentile |V|) / supply."""
     current_headroom: Q("fraction", ge=0, lt=1) = 0.1
     """While holding: 1 - (99th percentile |i|) / (current limit, or stall current without one)."""
+    hold_time: Q("time", ge=1, le=3600) = 60.0
+    """Length of the long holds that measure the wheel's slow drift under an angle bias, s."""
+    run_time: Q("time", gt=0) = 600.0
+    """How long the device must run before its wheel drifts to its speed limit, s (a demo's length)."""
 
 
 def _strategy_from_raw(raw: Any, info: ValidationInfo) -> StrategySpec:

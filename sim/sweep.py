@@ -3,7 +3,8 @@
 `--vary KEY=LO..HI:N` spaces N values evenly from LO to HI (units allowed: `drive.supply=6V..24V:4`);
 `--vary KEY=a,b,c` lists values. Points are the grid's cross product, numbered in row-major order
 (the first key varies slowest). Each point re-validates the raw scenario with its values set,
-runs the scenario's own trial, judges it against `requirements` and the wheel burst check, and,
+runs the scenario's own trial, judges it against `requirements`, the wheel burst check and the
+long holds of `wheel_runaway_time_s` (`sim.verdicts.runaway_hold`), and,
 with `trials`, adds Monte Carlo trials over the tolerances around that point.
 
 Persistence: every finished point is appended to `sweep.jsonl` (flushed and fsynced), so a
@@ -42,8 +43,8 @@ CSV_EVERY_S = 3.0
 MAX_POINTS = 1_000_000
 METRIC_COLUMNS = ("point", "seed", "outcome", "caught_at_s", "settle_time_s", "peak_wheel_speed_rad_s",
                   "wheel_speed_margin", "peak_current_a", "rms_current_a", "winding_temperature_c",
-                  "wheel_burst_safety_factor", "burst_note", "pushes_survived", "pushes", "mc_trials",
-                  "pass_fraction", "pass_fraction_low", "pass_fraction_high",
+                  "wheel_burst_safety_factor", "burst_note", "wheel_runaway_time_s", "pushes_survived", "pushes",
+                  "mc_trials", "pass_fraction", "pass_fraction_low", "pass_fraction_high",
                   "passed", "fail_reasons", "message")
 _RANGE = re.compile(r"^(?P<lo>.+?)\.\.(?P<hi>.+):(?P<n>\d+)$")
 
@@ -136,7 +137,7 @@ def point_task(payload: dict) -> dict:
     from .device import Device
     from .scenario import validate_scenario
     from .stress import optimistic_summary, wheel_burst_check
-    from .verdicts import judge_trial, monte_carlo_task
+    from .verdicts import bias_ends, judge_trial, monte_carlo_task, runaway_criterion, runaway_hold
     raw = copy.deepcopy(payload["raw"])
     row: dict[str, Any] = {}
     for key, path, value in payload["assign"]:
@@ -153,12 +154,17 @@ def point_task(payload: dict) -> dict:
         si = value_at(sc, path)
         row[key] = si if isinstance(si, (int, float, str)) else str(si)
     row.update(judge_trial(sc, seed=seed))
-    burst_check = wheel_burst_check(sc, Device.from_scenario(sc))
+    device = Device.from_scenario(sc)
+    burst_check = wheel_burst_check(sc, device)
     burst = row["wheel_burst_safety_factor"] = burst_check["safety_factor"]
     row["burst_note"] = optimistic_summary(burst_check)
     reasons = [r for r in row["fail_reasons"].split(";") if r]
     if burst is None or burst < sc.requirements.burst_safety_factor:
         reasons.append("burst safety factor")
+    runaway = runaway_criterion(sc, device, [runaway_hold(sc, bias_rad=b, seed=seed) for b in bias_ends(sc)])
+    row["wheel_runaway_time_s"] = runaway["value"]
+    if not runaway["passed"]:
+        reasons.append("wheel runaway")
     trials = payload["trials"]
     if trials:
         passes = sum(bool(monte_carlo_task({"raw": raw, "where": payload["where"], "tolerances": _tolerances(sc),

@@ -18,7 +18,7 @@ PASS_COLOUR, FAIL_COLOUR = "#2f7d4a", LIMIT
 def format_value(name: str, value) -> str:
     """A criterion's value for people: units from the key's suffix, fractions as percentages."""
     if value is None:
-        return "unknown"
+        return "none (settles)" if name == "wheel_runaway_time_s" else "unknown"
     if isinstance(value, float) and not math.isfinite(value):
         return "inf"
     if name.endswith(("_margin", "_headroom", "_fraction")):
@@ -93,6 +93,9 @@ def report_markdown(v: dict, images: list[str]) -> str:
     for c in v["criteria"]:
         lines.append(f"| {c['name']} | {format_value(c['name'], c['value'])} | {format_value(c['name'], c['limit'])} "
                      f"| {'pass' if c['passed'] else 'FAIL'} | {c['note']} |")
+    why = runaway_sentence(v)
+    if why:
+        lines += ["", why]
     b = v["burst"]
     lines += ["", "## Wheel burst check", "",
               f"Runaway speed (no-load speed at full supply): {b['runaway_speed_rad_s']:.1f} rad/s "
@@ -126,6 +129,24 @@ def report_markdown(v: dict, images: list[str]) -> str:
     lines += ["## Plots", ""] + [f"![{Path(img).stem}]({img})" for img in images] + [""]
     lines += ["## Safety", ""] + [f"- {s}" for s in SAFETY_NOTES] + [""]
     return "\n".join(lines)
+
+
+def runaway_sentence(v: dict) -> str:
+    """One sentence on why the wheel runs away, when `wheel_runaway_time_s` failed ("" otherwise)."""
+    crit = next((c for c in v["criteria"] if c["name"] == "wheel_runaway_time_s"), None)
+    holds = v.get("runaway_holds") or []
+    if crit is None or crit["passed"] or not holds:
+        return ""
+    h = max(holds, key=lambda x: abs(x["bias_rad"]))
+    bias = f"{math.degrees(h['bias_rad']):+.2f} deg"
+    if h["predicted"] == "ramp":
+        return (f"Why the wheel runs away: with the angle sensor off by {bias} the law holds the *measured* angle "
+                "at zero, so the body leans off balance and gravity's steady torque can only be answered by a wheel "
+                "that keeps accelerating until it reaches its no-load speed, the torque runs out and the body falls "
+                "(add wheel-speed feedback, e.g. LQR or an outer wheel-speed loop).")
+    return (f"Why the wheel runs away: with the angle sensor off by {bias} the body must be held off its measured "
+            "upright by a steady torque from the wheel, and this law lets the wheel speed keep growing instead of "
+            "settling at an offset, until the wheel reaches its no-load speed and the torque runs out.")
 
 
 def print_verdict(v: dict, out: Path) -> None:

@@ -8,6 +8,9 @@ Runs, on one scenario:
 5. Monte Carlo over the scenario's `tolerances` (each trial re-validates a perturbed copy of the
    raw scenario and runs its own trial);
 6. static checks: wheel burst safety factor at the runaway speed, winding temperature.
+7. long holds (`requirements.hold_time`) with the angle-sensor bias at each end of its tolerance
+   band: the wheel's slow drift, extrapolated to its speed limit (`wheel_runaway_time_s`, see
+   `sim.runaway`).
 
 Each criterion compares a value with a limit from `requirements`; a value that could not be
 found (a run that failed, a material with no known strength) fails its criterion and says why.
@@ -157,6 +160,127 @@ def max_push(scenario, *, sign: float, seed: int, start_n_m_s: float, rel_tol: f
     return {"max_survived_n_m_s": lo, "smallest_lost_n_m_s": hi, "evals": evals}
 
 
+# ----------------------------------------------------------------------------- slow wheel runaway
+
+RUNAWAY_HORIZON_FACTOR = 10.0   # a drift reaching the limit after 10x run_time counts as none (our choice)
+RUNAWAY_NEAR_LIMIT = 0.8       # a fall with the wheel past 80% of its no-load speed ran out of wheel (our choice)
+
+
+def bias_ends(scenario) -> list[float]:
+    """Angle-sensor biases for the long holds, rad: the scenario's own bias +- its tolerance band.
+
+    The band is the scenario's `tolerances` entry for `sensors.angle.bias`, or the default band of
+    `sim.tolerances` when there is none (a relative band is taken of the nominal bias).
+    """
+    from .tolerances import DEFAULT_TOLERANCES, parse_tolerances, scenario_tolerances
+    key = "sensors.angle.bias"
+    tol = next((t for t in scenario_tolerances(scenario) if t.key == key), None)
+    if tol is None:
+        tol = parse_tolerances(scenario, {key: DEFAULT_TOLERANCES[key]})[0]
+    own = scenario.sensors.angle.bias
+    band = tol.band * abs(own) if tol.relative else tol.band
+    return sorted({own - band, own + band})
+
+
+def runaway_hold(scenario, *, bias_rad: float, seed: int) -> dict:
+    """Hold upright at rest for `requirements.hold_time` with the angle bias set; stops at a fall.
+
+    Returns bias_rad, outcome, fell_at_s, the wheel's fitted `drift` (`sim.runaway.Drift`, None
+    after a fall or when the hold is too short to fit), `runaway_time_s`, peak wheel speed (rad/s)
+    and the law's predicted response (`sim.runaway.BiasResponse` or None).
+    """
+    from .runaway import fit_drift, predict_bias_response, runaway_time_s
+    req = scenario.requirements
+    angle = scenario.sensors.angle.model_copy(update={"bias": bias_rad})
+    sc = with_trial(scenario, duration=req.hold_time, start={"angle": 0.0, "rate": 0.0, "wheel_speed": 0.0}, pushes=[])
+    sc = sc.model_copy(update={"sensors": sc.sensors.model_copy(update={"angle": angle})})
+    device = Device.from_scenario(sc)
+    result = run_trial(sc, seed=seed, stop_early=True)
+    wheel = result.trace.view("wheel_speed").copy()
+    out = {"bias_rad": bias_rad, "outcome": result.outcome, "fell_at_s": result.fell_at_s, "drift": None,
+           "runaway_time_s": None, "peak_wheel_speed_rad_s": float(np.max(np.abs(wheel))) if wheel.size else 0.0,
+           "prediction": predict_bias_response(device, sc.strategy, bias_rad=bias_rad)}
+    t = np.arange(wheel.size) * sc.world.step
+    if result.outcome == "balanced" and wheel.size >= 60:
+        drift = fit_drift(t, wheel)
+        out["drift"] = drift
+        out["runaway_time_s"] = runaway_time_s(drift, limit_rad_s=device.no_load_speed_rad_s,
+                                               horizon_s=RUNAWAY_HORIZON_FACTOR * req.run_time)
+    elif wheel.size >= 90:
+        # before a fall: the middle third of the run (past the start, before the wheel ran out of speed)
+        k = 2 * wheel.size // 3
+        out["drift"] = fit_drift(t[:k], wheel[:k], fraction=0.5)
+    return out
+
+
+def runaway_criterion(scenario, device, holds: list[dict]) -> dict:
+    """`wheel_runaway_time_s`: the shortest time to the wheel's speed limit over the holds.
+
+    A fall during a hold gives 0; no drift in every hold gives None (passes). The note names the
+    worst hold's bias, the simulated drift and what the law predicts; a failure carries cause `bias_drift`.
+    """
+    req = scenario.requirements
+    fallen = [h for h in holds if h["outcome"] != "balanced"]
+    timed = [h for h in holds if h["runaway_time_s"] is not None]
+    if fallen:
+        worst, value = min(fallen, key=lambda h: h["fell_at_s"] if h["fell_at_s"] is not None else 0.0), 0.0
+    elif timed:
+        worst = min(timed, key=lambda h: h["runaway_time_s"])
+        value = worst["runaway_time_s"]
+    else:
+        worst, value = max(holds, key=lambda h: abs(h["bias_rad"])), None
+    unmeasured = [h for h in holds if h["outcome"] == "balanced" and h["drift"] is None]
+    if unmeasured and not fallen and value is None:
+        worst = unmeasured[0]       # too short a hold to fit: cannot vouch for the wheel
+    passed = not fallen and not unmeasured and (value is None or value >= req.run_time)
+    # a fall with the wheel far from its limit is not a slow runaway: no bias_drift cause for it
+    drifted = not passed and (not fallen or worst["peak_wheel_speed_rad_s"] >= RUNAWAY_NEAR_LIMIT * device.no_load_speed_rad_s)
+    biases = ", ".join(f"{math.degrees(h['bias_rad']):+.2f}" for h in holds)
+    note = f"{req.hold_time:g} s holds at angle bias {biases} deg; " + runaway_note(worst, device.no_load_speed_rad_s)
+    return _criterion("wheel_runaway_time_s", value, req.run_time, passed, note + ("; cause bias_drift" if drifted else ""))
+
+
+def runaway_note(hold: dict, limit_rad_s: float) -> str:
+    """What one hold showed and what the law predicts, in a few words."""
+    b = f"{math.degrees(hold['bias_rad']):+.2f} deg"
+    if hold["outcome"] != "balanced":
+        text = (f"at {b} the body {hold['outcome'].replace('_', ' ')} at {hold['fell_at_s'] or 0:.1f} s with the wheel "
+                f"at {100 * hold['peak_wheel_speed_rad_s'] / limit_rad_s:.0f}% of its no-load speed")
+        if hold["drift"] is not None:
+            text += f", after drifting {hold['drift'].slope_rad_s2:.3g} rad/s^2"
+    elif hold["drift"] is None:
+        text = f"at {b}: too short to fit a drift"
+    else:
+        d = hold["drift"]
+        text = (f"at {b} the wheel drifts {d.slope_rad_s2:.3g} +- {d.slope_se_rad_s2:.2g} rad/s^2 "
+                f"(mean {d.mean_rad_s:.1f} rad/s over the last third)")
+        text += "" if hold["runaway_time_s"] is None else f", reaching {limit_rad_s:.0f} rad/s at {hold['runaway_time_s']:.1f} s"
+    p = hold["prediction"]
+    if p is None:
+        return text + "; no linear prediction for this law"
+    if p.kind == "ramp" and p.wheel_accel_rad_s2 is None:
+        return text + f"; the law predicts a wheel speed growing without bound ({p.basis})"
+    if p.kind == "ramp":
+        return text + f"; the law predicts an unbounded wheel acceleration of {p.wheel_accel_rad_s2:.3g} rad/s^2 ({p.basis})"
+    return text + f"; the law predicts a steady wheel offset of {p.wheel_speed_rad_s:.1f} rad/s ({p.basis})"
+
+
+def runaway_summary(holds: list[dict]) -> list[dict]:
+    """The holds as plain data for verdict.json (SI, units in the keys)."""
+    out = []
+    for h in holds:
+        d, p = h["drift"], h["prediction"]
+        out.append({"bias_rad": h["bias_rad"], "outcome": h["outcome"], "fell_at_s": h["fell_at_s"],
+                    "peak_wheel_speed_rad_s": h["peak_wheel_speed_rad_s"], "runaway_time_s": h["runaway_time_s"],
+                    "drift_rad_s2": None if d is None else d.slope_rad_s2,
+                    "drift_se_rad_s2": None if d is None else d.slope_se_rad_s2,
+                    "mean_wheel_speed_rad_s": None if d is None else d.mean_rad_s,
+                    "predicted": None if p is None else p.kind,
+                    "predicted_wheel_speed_rad_s": None if p is None else p.wheel_speed_rad_s,
+                    "predicted_wheel_accel_rad_s2": None if p is None else p.wheel_accel_rad_s2})
+    return out
+
+
 def judge_trial(scenario, *, seed: int) -> dict:
     """Run a scenario's own trial and judge it against its requirements. A flat row, no traces."""
     result = run_trial(scenario, seed=seed, stop_early=True)
@@ -254,10 +378,12 @@ def run_check(raw: dict, where: str, *, trials: int = DEFAULT_TRIALS, workers: i
         pushes[direction] = max_push(sc, sign=sign, seed=sc.trial.seed, start_n_m_s=max(sc.requirements.min_push, 1e-3))
     stage(f"Monte Carlo, {trials} trials")
     mc = monte_carlo(raw, where, sc, trials=trials, workers=workers, cluster=cluster, on_done=on_done)
+    stage(f"{sc.requirements.hold_time:g} s holds for wheel drift")
+    holds = [runaway_hold(sc, bias_rad=b, seed=sc.trial.seed) for b in bias_ends(sc)]
     hold_tr = runs["hold"].trace
     verdict = build_verdict(sc, device, metrics, pushes, mc,
                             hold_signals=(hold_tr.view("voltage").copy(), hold_tr.view("current").copy()),
-                            runs_current={name: r.trace.view("current") for name, r in runs.items()})
+                            runs_current={name: r.trace.view("current") for name, r in runs.items()}, holds=holds)
     return CheckOutcome(verdict=verdict, runs=runs, pushes=pushes, mc_rows=mc["rows"])
 
 
@@ -281,11 +407,13 @@ def _at_most(name, value, limit, note=""):
     return _criterion(name, value, limit, ok, note if value is not None else (note or "could not be found"))
 
 
-def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_signals, runs_current) -> dict:
+def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_signals, runs_current,
+                  holds: list[dict] | None = None) -> dict:
     """Criteria and the verdict dictionary written to verdict.json.
 
     `hold_signals` = (voltage V, current A) arrays of the hold trial, for the headroom criteria;
-    `runs_current` = {run name: current array A}, for the transient winding temperatures.
+    `runs_current` = {run name: current array A}, for the transient winding temperatures;
+    `holds` = `runaway_hold` results, for `wheel_runaway_time_s` (None: that criterion is left out).
     """
     worse = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
     thermal = winding_check(sc.motor, trial_rms_current_a(runs_current["nominal"], sc.world.step,
@@ -296,6 +424,7 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
     thermal["peak_over_runs_c"] = _transient_peaks(sc, runs_current)
     burst = wheel_burst_check(sc, device)
     crit = (_run_criteria(sc, metrics, pushes[worse]["max_survived_n_m_s"], worse)
+            + ([runaway_criterion(sc, device, holds)] if holds else [])
             + _static_criteria(sc, device, hold_signals, thermal, burst, mc))
     return {
         "passed": all(c["passed"] for c in crit),
@@ -311,6 +440,7 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
         "runs": {name: {k: m[k] for k in ("outcome", "message", "caught_at_s", "settle_time_s", "peak_wheel_speed_rad_s",
                                           "wheel_speed_margin", "peak_current_a", "rms_current_a")}
                  for name, m in metrics.items()},
+        "runaway_holds": runaway_summary(holds or []),
         "requirements": sc.requirements.model_dump(),
         "safety": list(SAFETY_NOTES),
     }
