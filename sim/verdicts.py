@@ -21,7 +21,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .device import Device
-from .metrics import SETTLE_BAND_RAD, trial_metrics
+from .metrics import PUSH_RECOVER_S, SETTLE_BAND_RAD, trial_metrics
 from .parallel import run_tasks
 from .safety import SAFETY_NOTES
 from .scenario import Push, validate_scenario
@@ -32,7 +32,7 @@ from .trial import run_trial
 
 HOLD_S = 5.0            # long enough for the LQR-type laws to show drift from sensor bias (our choice)
 PUSH_AT_S = 0.5         # push after a short settled hold
-PUSH_RECOVER_S = 3.0    # time allowed to recover from a push before it counts as survived
+# PUSH_RECOVER_S (sim.metrics): time allowed to recover from a push before it counts as survived
 SETTLED_FOR_S = 0.5     # "clearly caught": within the settle band, slowly turning, for this long
 SETTLED_RATE_RAD_S = 0.2
 PUSH_REL_TOL = 0.05     # bisection stops when the bracket is within 5% of its upper end
@@ -164,7 +164,7 @@ def judge_trial(scenario, *, seed: int) -> dict:
     req = scenario.requirements
     reasons = []
     if m["outcome"] not in ("balanced", "completed"):
-        reasons.append(m["outcome"])
+        reasons.append(f"{m['outcome']} ({m['cause']})" if m["cause"] else m["outcome"])
     if not all(p["survived"] for p in m["pushes"]):
         reasons.append("push lost")
     if result.strategy is not None and result.strategy.goal == "balance" and m["outcome"] == "balanced" and (
@@ -298,7 +298,7 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
         "burst": burst,
         "thermal": thermal,
         "monte_carlo": {k: v for k, v in mc.items() if k != "rows"} | {"failures": _failure_counts(mc["rows"])},
-        "runs": {name: {k: m[k] for k in ("outcome", "message", "caught_at_s", "settle_time_s", "peak_wheel_speed_rad_s",
+        "runs": {name: {k: m[k] for k in ("outcome", "message", "cause", "cause_detail", "caught_at_s", "settle_time_s", "peak_wheel_speed_rad_s",
                                           "wheel_speed_margin", "peak_current_a", "rms_current_a")}
                  for name, m in metrics.items()},
         "requirements": sc.requirements.model_dump(),
