@@ -164,7 +164,7 @@ def judge_trial(scenario, *, seed: int) -> dict:
     req = scenario.requirements
     reasons = []
     if m["outcome"] not in ("balanced", "completed"):
-        reasons.append(f"{m['outcome']} ({m['cause']})" if m["cause"] else m["outcome"])
+        reasons.append(_outcome(m))
     if not all(p["survived"] for p in m["pushes"]):
         reasons.append("push lost")
     if result.strategy is not None and result.strategy.goal == "balance" and m["outcome"] == "balanced" and (
@@ -306,6 +306,11 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
     }
 
 
+def _outcome(m: dict) -> str:
+    """A run's outcome for a criterion's note, with its cause when it failed: "fell (bias_drift)"."""
+    return f"{m['outcome']} ({m['cause']})" if m.get("cause") else m["outcome"]
+
+
 def _run_criteria(sc, metrics: dict, push_value: float, worse: str) -> list[dict]:
     """Criteria judged from the simulated runs: swing-up, hold, settling, push, wheel speed."""
     req = sc.requirements
@@ -313,13 +318,13 @@ def _run_criteria(sc, metrics: dict, push_value: float, worse: str) -> list[dict
     if "swing_up" in metrics:
         m = metrics["swing_up"]
         crit.append(_at_most("swing_up_time_s", m["caught_at_s"] if m["outcome"] == "balanced" else None,
-                             req.swing_up_time, f"outcome {m['outcome']}"))
+                             req.swing_up_time, f"outcome {_outcome(m)}"))
     hold, nominal = metrics["hold"], metrics["nominal"]
     crit.append(_criterion("hold_max_angle_rad", hold["max_angle_after_catch_rad"],
                            getattr(sc.strategy.params, "release_angle", math.pi), hold["outcome"] == "balanced",
-                           f"{HOLD_S:g} s upright with sensor noise: {hold['outcome']}"))
+                           f"{HOLD_S:g} s upright with sensor noise: {_outcome(hold)}"))
     crit.append(_at_most("settle_time_s", nominal["settle_time_s"], req.settle_time,
-                         f"the scenario's own trial: {nominal['outcome']}"))
+                         f"the scenario's own trial: {_outcome(nominal)}"))
     crit.append(_at_least("max_push_survived_n_m_s", push_value, req.min_push, f"worse direction: {worse}"))
     margins = [m["wheel_speed_margin"] for m in metrics.values()]
     margin = None if any(v is None for v in margins) else min(margins)
