@@ -41,6 +41,16 @@ CASES = {
     # 0.6 s is far too short to pump the body from hanging
     "swing_energy_short": lambda tmp: make_scenario(strategy={"kind": "swing_and_catch"},
                                                     trial={"duration": 0.6, "start": {"angle": "180 deg"}}),
+    # a "swing-up" that never hands over, on a body thrown over the top: energy enough, no catch
+    "catch_missed": lambda tmp: plugin_scenario(tmp, """
+    class NeverCatches(Base):
+        goal, swings_up = "balance", True
+        def __init__(self, **kw):
+            super().__init__(**kw)
+            self.balancing = False
+        def decide(self, reading):
+            return 0.0
+    """, "NeverCatches", trial={"duration": 0.5, "start": {"angle": "90 deg", "rate": 12.0}}),
     "start_outside_release": lambda tmp: make_scenario(strategy={"kind": "lqr"},
                                                        trial={"duration": 0.3, "start": {"angle": "40 deg"}}),
     # 2e4 rad/s is past the runner's 1e4 rad/s "absurd" bound (sim.trial.ABSURD_RATE_RAD_S)
@@ -133,3 +143,15 @@ def test_clip_frames_after_the_fall_show_outcome_and_cause(tmp_path):
         return int(np.all(frame[corner] == WARN, axis=-1).sum())
 
     assert warn_pixels(dash.draw(blank, before)[0]) == 0 and warn_pixels(dash.draw(blank, after)[0]) > 50
+
+
+def test_swing_energy_detail_states_the_peak_body_energy(tmp_path):
+    result = run_trial(CASES["swing_energy_short"](tmp_path))
+    tr = result.trace
+    # pendulum energy E = 1/2 J theta_d^2 + mbar g (cos theta - 1), 0 upright at rest (Astrom & Furuta,
+    # "Swinging up a pendulum by energy control", Automatica 2000; from memory), with the test
+    # device's J = 8.667e-3 kg m^2 and mbar = 0.045 kg m worked out by hand in conftest
+    energy = 0.5 * 8.667e-3 * tr.view("rate") ** 2 + 0.045 * 9.81 * (np.cos(tr.view("angle")) - 1.0)
+    stated = float(re.search(r"energy peaked at ([-+0-9.e]+) J", result.cause_detail).group(1))
+    assert_allclose(stated, energy.max(), rtol=2e-3)  # the sentence keeps 3 significant figures
+    assert "from hanging (-0.883 J)" in result.cause_detail  # 2 mbar g = 0.8829 J
