@@ -97,13 +97,15 @@ def readout(result, t_s: float) -> Readout:
 
 
 def ending_text(result, t_s: float) -> str | None:
-    """"FELL: WHEEL AT SPEED LIMIT" (outcome and cause, `sim.causes`) on frames from the fall on, or
-    in the last ENDING_SHOWN_S of a trial that failed otherwise; None on other frames and trials."""
+    """"FELL: WHEEL AT SPEED LIMIT" (outcome and cause, `sim.causes`) on frames from the fall on, and
+    in the last ENDING_SHOWN_S of any failed trial (a trial stopped at its fall has no frames after
+    it); None on other frames and trials."""
     cause = getattr(result, "cause", None)
     if not cause:
         return None
-    fell = result.fell_at_s if result.outcome == "fell" else None
-    since = fell if fell is not None else result.ended_at_s - ENDING_SHOWN_S
+    since = result.ended_at_s - ENDING_SHOWN_S
+    if result.outcome == "fell" and result.fell_at_s is not None:
+        since = min(since, result.fell_at_s)
     if t_s < since:
         return None
     return f"{result.outcome}: {cause}".replace("_", " ").upper()

@@ -143,6 +143,10 @@ def test_clip_frames_after_the_fall_show_outcome_and_cause(tmp_path):
         return int(np.all(frame[corner] == WARN, axis=-1).sum())
 
     assert warn_pixels(dash.draw(blank, before)[0]) == 0 and warn_pixels(dash.draw(blank, after)[0]) > 50
+    # a trial stopped at its fall has no frames after it: its last second shows the ending instead
+    stopped = run_trial(CASES["bias_drift"](tmp_path), stop_early=True)
+    assert stopped.ended_at_s > 2.0 and readout(stopped, stopped.ended_at_s).ending == "FELL: BIAS DRIFT"
+    assert readout(stopped, stopped.ended_at_s - 1.05).ending is None
 
 
 def test_swing_energy_detail_states_the_peak_body_energy(tmp_path):
