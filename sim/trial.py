@@ -10,6 +10,7 @@ outcome too.
 
 from __future__ import annotations
 
+import copy
 import math
 import signal
 import threading
@@ -279,7 +280,9 @@ def _build_strategy(scenario, device, rng, clock):
     """(strategy, None), or (None, message) when building it fails: an outcome, like failing later."""
     try:
         clock.enter()
-        strategy = scenario.strategy.build(device, rng=rng)
+        # the strategy gets its own copy of the device: what it does to it never reaches the
+        # runner's motor, drive limits or metrics
+        strategy = scenario.strategy.build(copy.deepcopy(device), rng=rng)
         clock.leave()
         return strategy, None
     except (Exception, SystemExit, StrategyTimeout) as exc:
@@ -439,13 +442,14 @@ def _final_outcome(wants_balance, strategy, catch_k, fell_k, fall_final) -> str:
 
 
 def _drive_limit(volts, supply_v: float) -> float:
-    """A command outside +-supply_v clamped to it, V; a command that is no number ends the trial."""
+    """A command outside +-supply_v clamped to it, V. A command that is no finite number (possible
+    from a strategy that replaces `command`) ends the trial, as the base's own check does."""
     try:
         v = float(volts)
     except (TypeError, ValueError):
         raise StrategyError(f"the strategy's command was {type(volts).__name__}, not a voltage") from None
-    if math.isnan(v):
-        raise StrategyError("the strategy's command was not a number (nan)")
+    if not math.isfinite(v):
+        raise StrategyError(f"the strategy's command was a non-finite voltage ({v})")
     return math.copysign(supply_v, v)
 
 

@@ -69,3 +69,37 @@ def test_balanced_traces_are_unchanged_by_the_drive_clamp():
     assert_allclose(np.sum(np.abs(v)), 5085.445654383098, rtol=1e-12)
     assert_allclose(np.sum(v * i), 24687.876953472878, rtol=1e-12)
     assert tr.phases == ["balance"]
+
+
+@pytest.mark.parametrize("answer", ["float('inf')", "float('nan')", "'12 V'"])
+def test_a_replaced_command_that_is_no_finite_voltage_fails_the_strategy(tmp_path, answer):
+    sc = plugin_scenario(tmp_path, f"""
+    class Odd(Base):
+        def decide(self, reading):
+            return 0.0
+        def command(self, reading):
+            return {answer} if reading.t_s >= 0.01 else 0.0
+    """, "Odd", trial={"duration": 0.1})
+    result = run_trial(sc)
+    assert result.outcome == "strategy_failed" and "t = 0.0100 s" in result.message
+    assert result.cause == "strategy_failed"
+
+
+@pytest.mark.parametrize("isolate", [True, False])
+def test_a_strategy_that_rewrites_its_device_gets_no_more_current_or_volts(tmp_path, isolate):
+    # a 1 A drive; the plug-in lifts its device's current limit and supply, then asks for 1e6 V
+    sc = plugin_scenario(tmp_path, """
+    class Greedy(Base):
+        def __init__(self, **kw):
+            super().__init__(**kw)
+            object.__setattr__(self.device, "current_limit_a", float("inf"))
+            object.__setattr__(self.device, "supply_v", 1e6)
+        def decide(self, reading):
+            return 1e6
+    """, "Greedy", body={"locked": True}, motor={"current_limit": 1.0}, trial={"duration": 0.2})
+    result = run_trial(sc, isolate=isolate)
+    assert result.outcome == "completed"
+    assert np.max(np.abs(result.trace.view("voltage"))) == 12.0
+    assert np.max(np.abs(result.trace.view("current"))) <= 1.0 + 1e-12
+    assert result.device.current_limit_a == 1.0 and result.device.supply_v == 12.0
+

@@ -40,8 +40,9 @@ class Strategy:
     """Base class of every strategy. The contract:
 
     1. Construction. The runner builds one instance per trial as
-       ``Cls(device=..., params=..., rng=...)``: `device` is the `sim.device.Device` (lumped SI
-       parameters, including `supply_v`, `control_rate_hz` and `delay_s`); `params` is an
+       ``Cls(device=..., params=..., rng=...)``: `device` is the strategy's own copy of the
+       `sim.device.Device` (lumped SI parameters, including `supply_v`, `control_rate_hz` and
+       `delay_s`; changing it changes nothing the runner simulates); `params` is an
        instance of the class's `Params` (a `StrategyParams` subclass), already validated when
        the scenario loaded; `rng` is the trial's seeded numpy Generator, the only randomness
        a strategy may use. Designs (gains, predictors) are computed in `__init__`.
