@@ -126,6 +126,7 @@ def report_markdown(v: dict, images: list[str]) -> str:
               f"{v['max_push_survived_n_m_s'] * 1e3:.3g} mN m s in the worse ({v['max_push_direction']}) direction; "
               + "; ".join(f"{d}: {p['max_survived_n_m_s'] * 1e3:.3g} mN m s" for d, p in v["pushes"].items())
               + ". Bisection to 5%, from upright at rest, push after 0.5 s, 3 s to recover.", ""]
+    lines += run_causes_markdown(v)
     lines += ["## Plots", ""] + [f"![{Path(img).stem}]({img})" for img in images] + [""]
     lines += ["## Safety", ""] + [f"- {s}" for s in SAFETY_NOTES] + [""]
     return "\n".join(lines)
@@ -149,6 +150,19 @@ def runaway_sentence(v: dict) -> str:
             "settling at an offset, until the wheel reaches its no-load speed and the torque runs out.")
 
 
+def failed_runs(v: dict) -> list[tuple[str, dict]]:
+    """The battery's runs that ended other than balanced or completed, as (name, run)."""
+    return [(name, r) for name, r in v.get("runs", {}).items() if r["outcome"] not in ("balanced", "completed")]
+
+
+def run_causes_markdown(v: dict) -> list[str]:
+    """report.md's section on the battery's runs: outcome and, for each failed run, its cause."""
+    lines = ["## Runs", "", "| run | outcome | cause | why |", "|---|---|---|---|"]
+    for name, r in v.get("runs", {}).items():
+        lines.append(f"| {name} | {r['outcome']} | {r.get('cause') or '-'} | {r.get('cause_detail') or '-'} |")
+    return lines + [""]
+
+
 def print_verdict(v: dict, out: Path) -> None:
     """The terminal table, ending with the safety cautions."""
     from rich.console import Console
@@ -162,6 +176,9 @@ def print_verdict(v: dict, out: Path) -> None:
         table.add_row(c["name"], format_value(c["name"], c["value"]), format_value(c["name"], c["limit"]),
                       "[green]pass[/green]" if c["passed"] else "[bold red]FAIL[/bold red]", c["note"])
     console.print(table)
+    for name, r in failed_runs(v):
+        console.print(f"{name} run: {r['outcome']}, cause {r.get('cause') or '-'}: {r.get('cause_detail') or '-'}",
+                      markup=False, highlight=False)
     console.print(f"wrote {out}/verdict.json, report.md, monte_carlo.csv and plots")
     for s in SAFETY_NOTES:
         console.print(f"[dim]Safety: {s}[/dim]")

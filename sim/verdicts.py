@@ -24,7 +24,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .device import Device
-from .metrics import SETTLE_BAND_RAD, trial_metrics
+from .metrics import PUSH_RECOVER_S, SETTLE_BAND_RAD, trial_metrics
 from .parallel import run_tasks
 from .safety import SAFETY_NOTES
 from .scenario import Push, validate_scenario
@@ -35,7 +35,7 @@ from .trial import run_trial
 
 HOLD_S = 5.0            # long enough for the LQR-type laws to show drift from sensor bias (our choice)
 PUSH_AT_S = 0.5         # push after a short settled hold
-PUSH_RECOVER_S = 3.0    # time allowed to recover from a push before it counts as survived
+# PUSH_RECOVER_S (sim.metrics): time allowed to recover from a push before it counts as survived
 SETTLED_FOR_S = 0.5     # "clearly caught": within the settle band, slowly turning, for this long
 SETTLED_RATE_RAD_S = 0.2
 PUSH_REL_TOL = 0.05     # bisection stops when the bracket is within 5% of its upper end
@@ -288,7 +288,7 @@ def judge_trial(scenario, *, seed: int) -> dict:
     req = scenario.requirements
     reasons = []
     if m["outcome"] not in ("balanced", "completed"):
-        reasons.append(m["outcome"])
+        reasons.append(_outcome(m))
     if not all(p["survived"] for p in m["pushes"]):
         reasons.append("push lost")
     if result.strategy is not None and result.strategy.goal == "balance" and m["outcome"] == "balanced" and (
@@ -437,13 +437,18 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
         "burst": burst,
         "thermal": thermal,
         "monte_carlo": {k: v for k, v in mc.items() if k != "rows"} | {"failures": _failure_counts(mc["rows"])},
-        "runs": {name: {k: m[k] for k in ("outcome", "message", "caught_at_s", "settle_time_s", "peak_wheel_speed_rad_s",
+        "runs": {name: {k: m[k] for k in ("outcome", "message", "cause", "cause_detail", "caught_at_s", "settle_time_s", "peak_wheel_speed_rad_s",
                                           "wheel_speed_margin", "peak_current_a", "rms_current_a")}
                  for name, m in metrics.items()},
         "runaway_holds": runaway_summary(holds or []),
         "requirements": sc.requirements.model_dump(),
         "safety": list(SAFETY_NOTES),
     }
+
+
+def _outcome(m: dict) -> str:
+    """A run's outcome for a criterion's note, with its cause when it failed: "fell (bias_drift)"."""
+    return f"{m['outcome']} ({m['cause']})" if m.get("cause") else m["outcome"]
 
 
 def _run_criteria(sc, metrics: dict, push_value: float, worse: str) -> list[dict]:
@@ -453,13 +458,13 @@ def _run_criteria(sc, metrics: dict, push_value: float, worse: str) -> list[dict
     if "swing_up" in metrics:
         m = metrics["swing_up"]
         crit.append(_at_most("swing_up_time_s", m["caught_at_s"] if m["outcome"] == "balanced" else None,
-                             req.swing_up_time, f"outcome {m['outcome']}"))
+                             req.swing_up_time, f"outcome {_outcome(m)}"))
     hold, nominal = metrics["hold"], metrics["nominal"]
     crit.append(_criterion("hold_max_angle_rad", hold["max_angle_after_catch_rad"],
                            getattr(sc.strategy.params, "release_angle", math.pi), hold["outcome"] == "balanced",
-                           f"{HOLD_S:g} s upright with sensor noise: {hold['outcome']}"))
+                           f"{HOLD_S:g} s upright with sensor noise: {_outcome(hold)}"))
     crit.append(_at_most("settle_time_s", nominal["settle_time_s"], req.settle_time,
-                         f"the scenario's own trial: {nominal['outcome']}"))
+                         f"the scenario's own trial: {_outcome(nominal)}"))
     crit.append(_at_least("max_push_survived_n_m_s", push_value, req.min_push, f"worse direction: {worse}"))
     margins = [m["wheel_speed_margin"] for m in metrics.values()]
     margin = None if any(v is None for v in margins) else min(margins)
