@@ -1,7 +1,8 @@
 """`--set key.path=value` overrides, applied to a scenario's raw mapping before validation.
 
 Paths are dotted keys with list indices: `drive.supply`, `wheel.parts[0].mass`. Values are read
-as YAML scalars or flow collections ("24V" stays a string for the unit parser; "3" is a number).
+as YAML 1.2 scalars or flow collections ("24V" stays a string for the unit parser; "3" is a
+number; "012" is 12, as in a scenario file, see `sim.yaml12`).
 """
 
 from __future__ import annotations
@@ -13,6 +14,7 @@ from typing import Any
 import yaml
 
 from .errors import ScenarioError
+from .yaml12 import load_yaml12
 
 _TOKEN = re.compile(r"([A-Za-z_][A-Za-z0-9_]*)|\[(\d{1,6})\]")
 
@@ -42,8 +44,8 @@ def parse_assignment(text: str, *, where: str = "--set") -> tuple[list[str | int
     key, _, value = text.partition("=")
     path = parse_path(key, where=f"{where} {text!r}")
     try:
-        parsed = yaml.safe_load(value) if value.strip() else None
-    except yaml.YAMLError:
+        parsed = load_yaml12(value) if value.strip() else None
+    except (yaml.YAMLError, RecursionError):
         raise ScenarioError(f"{where} {text!r}: the value is not readable") from None
     if value.strip() and parsed is None:
         parsed = value.strip()

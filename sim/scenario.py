@@ -21,6 +21,7 @@ from pydantic import (BaseModel, BeforeValidator, ConfigDict, Field, ValidationE
 from .errors import ScenarioError
 from .strategies.base import StrategySpec
 from .units import Q
+from .yaml12 import Yaml12Loader
 
 MAX_STEPS = 5_000_000          # physics steps in one trial; more is a typo, not a plan
 MAX_FILE_BYTES = 1_000_000
@@ -373,8 +374,9 @@ class Scenario(Strict):
 
 # ----------------------------------------------------------------------------- loading
 
-class _GuardedLoader(yaml.SafeLoader):
-    """PyYAML's safe loader, with a cap on aliases (a small file must not expand into a huge one)."""
+class _GuardedLoader(Yaml12Loader):
+    """PyYAML's safe loader reading numbers as YAML 1.2 does (`sim.yaml12`), with a cap on aliases
+    (a small file must not expand into a huge one)."""
 
     def compose_node(self, parent, index):
         if self.check_event(yaml.AliasEvent):
@@ -406,6 +408,14 @@ def parse_yaml_text(text: str, *, where: str) -> Any:
     try:
         return yaml.load(text, Loader=_GuardedLoader)  # noqa: S506 - a SafeLoader subclass
     except yaml.constructor.ConstructorError as exc:
+        problem = str(getattr(exc, "problem", "") or "")
+        if "unhashable key" in problem:  # a list or mapping used as a key: `? [a, b]` or `{[1]: x}`
+            mark = exc.problem_mark or exc.context_mark
+            at = f"at line {mark.line + 1}, column {mark.column + 1}: " if mark is not None else ""
+            raise ScenarioError(f"{where}: {at}a key must be a plain word or number, found a list or mapping "
+                                "used as a key") from None
+        if "constructor for the tag" not in problem:
+            raise ScenarioError(f"{where}: YAML error {_yaml_where(exc)}") from None
         raise ScenarioError(f"{where}: YAML tags that construct objects are not allowed ({_yaml_where(exc)})") from None
     except yaml.YAMLError as exc:
         raise ScenarioError(f"{where}: YAML syntax error {_yaml_where(exc)}".rstrip()) from None
