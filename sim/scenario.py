@@ -3,6 +3,18 @@
 Every value is checked here and nowhere later. Quantities accept unit strings ("80 g",
 "300 rpm/V"); bare numbers are SI. Unknown keys are rejected with the nearest known key.
 
+Bounds (checked at load, SI): every number is finite, and sizes, masses, inertias, noise and
+rates stay within ranges a bench device can have, so that a typo (1e300 m, noise 1e308) is
+refused with its key instead of overflowing later. Our choices, generous by orders of magnitude:
+lengths, sizes and distances up to 100 m; masses up to 10 t;
+densities up to 1e5 kg/m^3 (the densest element is about 2.3e4); strengths up to 1e12 Pa;
+inertias and inertia corrections up to 1e8 kg m^2 (10 t at 100 m); friction and brake torques
+up to 1e4 N m; pushes up to 1e4 N m s; speeds and rate-sensor noise and bias up to 1e5 rad/s
+(about 10^6 rpm); angle noise and bias up to pi rad (beyond that a reading carries no angle);
+start angles up to 1e3 rad; winding resistance from 1 uohm to 1 Mohm; inductance up to 10 H;
+current limits up to 1e4 A; Kv up to 1e5 rad/s/V; k_e and k_t up to 1e3. The wheel's spin
+inertia must be above zero (a wheel of point masses on its axis cannot store momentum).
+
 Conventions: body angle 0 = upright, +-pi = hanging, measured about the pivot axis by the
 right-hand rule. Wheel speed is relative to the body, about the same axis. Positive voltage
 accelerates the wheel in the positive sense; its reaction turns the body the negative way.
@@ -26,11 +38,20 @@ from .yaml12 import Yaml12Loader
 MAX_STEPS = 5_000_000          # physics steps in one trial; more is a typo, not a plan
 MAX_FILE_BYTES = 1_000_000
 MAX_ALIASES = 100
+MAX_PROBLEMS = 8               # problems listed in one message; the rest are counted
+
+# Physical bounds, SI (see the module docstring for why).
+MAX_SIZE_M = 100.0
+MAX_MASS_KG = 1e4
+MAX_INERTIA = 1e8
+MAX_TORQUE = 1e4
+MAX_SPEED = 1e5
+MAX_ANGLE_NOISE = 3.141592653589793
 
 
-Length = Q("length")
-PositiveLength = Q("length", gt=0)
-PositiveMass = Q("mass", gt=0)
+Length = Q("length", ge=-MAX_SIZE_M, le=MAX_SIZE_M)
+PositiveLength = Q("length", gt=0, le=MAX_SIZE_M)
+PositiveMass = Q("mass", gt=0, le=MAX_MASS_KG)
 Fraction = Q("fraction", gt=0, le=1)
 
 
@@ -48,9 +69,9 @@ class World(Strict):
 
 
 class Friction(Strict):
-    coulomb: Q("torque", ge=0) = 0.0
+    coulomb: Q("torque", ge=0, le=MAX_TORQUE) = 0.0
     """Coulomb (dry) friction torque, N m."""
-    viscous: Q("viscous", ge=0) = 0.0
+    viscous: Q("viscous", ge=0, le=MAX_TORQUE) = 0.0
     """Viscous friction coefficient, N m s/rad."""
 
 
@@ -58,8 +79,8 @@ class MaterialSpec(Strict):
     """A material given inline instead of by name."""
 
     name: str = "custom"
-    density: Q("density", gt=0) | None = None
-    tensile_strength: Q("stress", gt=0) | None = None
+    density: Q("density", gt=0, le=1e5) | None = None
+    tensile_strength: Q("stress", gt=0, le=1e12) | None = None
     poisson_ratio: Annotated[float, Field(gt=-1, lt=0.5)] = 0.33
     printed: bool = False
 
@@ -72,6 +93,17 @@ SHAPE_SIZES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
     "disk": (("radius",), ("thickness",)),
     "ring": (("outer_radius", "inner_radius"), ("thickness",)),
 }
+
+
+def _material_spec(value: Any) -> Any:
+    """An inline material mapping validated on its own, so a bad field is reported under
+    `material.<field>` (not as the union's 'expected a string')."""
+    if not isinstance(value, dict):
+        return value
+    try:
+        return MaterialSpec.model_validate(value)
+    except ValidationError as exc:
+        raise ValueError("; ".join("@" + piece for piece in describe_problems(exc, MaterialSpec))) from None
 
 
 class Part(Strict):
@@ -91,9 +123,9 @@ class Part(Strict):
     thickness: PositiveLength | None = None
     radius: PositiveLength | None = None
     outer_radius: PositiveLength | None = None
-    inner_radius: Q("length", ge=0) | None = None
+    inner_radius: Q("length", ge=0, le=MAX_SIZE_M) | None = None
     mass: PositiveMass | None = None
-    material: str | MaterialSpec | None = None
+    material: Annotated[str | MaterialSpec | None, BeforeValidator(_material_spec)] = None
     infill: Fraction | None = None
     at: Length = 0.0
     count: Annotated[int, Field(ge=1, le=1000, strict=True)] = 1
@@ -155,7 +187,7 @@ class Body(Strict):
     pivot_friction: Friction = Friction()
     locked: bool = False
     """True clamps the body at its start angle (a bench test of the wheel drive)."""
-    inertia_correction: Q("inertia") = 0.0
+    inertia_correction: Q("inertia", ge=-MAX_INERTIA, le=MAX_INERTIA) = 0.0
     """Signed, kg m^2: added to the body's inertia about the pivot (e.g. from `wheelbench fit`)."""
 
 
@@ -164,7 +196,7 @@ class Wheel(Strict):
     """Pivot-to-wheel-axis distance, m."""
     parts: Annotated[list[Part], Field(min_length=1, max_length=200)]
     bearing_friction: Friction = Friction()
-    inertia_correction: Q("inertia") = 0.0
+    inertia_correction: Q("inertia", ge=-MAX_INERTIA, le=MAX_INERTIA) = 0.0
     """Signed, kg m^2: added to the wheel's spin inertia (e.g. from `wheelbench fit`)."""
 
     @field_validator("parts")
@@ -196,17 +228,17 @@ class MotorThermal(Strict):
 
 class Motor(Strict):
     name: str | None = None
-    speed_constant: Q("speed_constant", gt=0) | None = None
+    speed_constant: Q("speed_constant", gt=0, le=1e5) | None = None
     """Kv, stored in rad/s per V."""
-    back_emf_constant: Q("back_emf", gt=0) | None = None
+    back_emf_constant: Q("back_emf", gt=0, le=1e3) | None = None
     """k_e, V s/rad."""
-    torque_constant: Q("torque_constant", gt=0) | None = None
+    torque_constant: Q("torque_constant", gt=0, le=1e3) | None = None
     """k_t, N m/A (defaults to k_e: equal in SI for an ideal motor)."""
-    resistance: Q("resistance", gt=0)
-    inductance: Q("inductance", ge=0) = 0.0
-    current_limit: Q("current", gt=0) | None = None
-    rotor_inertia: Q("inertia", ge=0) = 0.0
-    mass: Q("mass", ge=0) = 0.0
+    resistance: Q("resistance", ge=1e-6, le=1e6)
+    inductance: Q("inductance", ge=0, le=10) = 0.0
+    current_limit: Q("current", gt=0, le=1e4) | None = None
+    rotor_inertia: Q("inertia", ge=0, le=MAX_INERTIA) = 0.0
+    mass: Q("mass", ge=0, le=MAX_MASS_KG) = 0.0
     thermal: MotorThermal = MotorThermal()
 
     @model_validator(mode="after")
@@ -229,24 +261,24 @@ class Motor(Strict):
 class Drive(Strict):
     supply: Q("voltage", gt=0, le=1000)
     """Supply voltage, V; the commanded voltage is clamped to +-supply."""
-    brake_torque: Q("torque", gt=0) | None = None
+    brake_torque: Q("torque", gt=0, le=MAX_TORQUE) | None = None
     """A mechanical brake on the wheel (for brake-to-jump strategies), N m."""
 
 
 class AngleSensor(Strict):
     counts_per_rev: Annotated[int, Field(ge=4, le=2**31, strict=True)] | None = None
-    noise: Q("angle", ge=0) = 0.0
-    bias: Q("angle") = 0.0
+    noise: Q("angle", ge=0, le=MAX_ANGLE_NOISE) = 0.0
+    bias: Q("angle", ge=-MAX_ANGLE_NOISE, le=MAX_ANGLE_NOISE) = 0.0
 
 
 class RateGyro(Strict):
-    noise: Q("angular_speed", ge=0) = 0.0
-    bias: Q("angular_speed") = 0.0
+    noise: Q("angular_speed", ge=0, le=MAX_SPEED) = 0.0
+    bias: Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED) = 0.0
 
 
 class WheelSensor(Strict):
     counts_per_rev: Annotated[int, Field(ge=4, le=2**31, strict=True)] | None = None
-    noise: Q("angular_speed", ge=0) = 0.0
+    noise: Q("angular_speed", ge=0, le=MAX_SPEED) = 0.0
 
 
 class Sensors(Strict):
@@ -261,14 +293,14 @@ class Sensors(Strict):
 
 
 class Start(Strict):
-    angle: Q("angle") = 0.0
-    rate: Q("angular_speed") = 0.0
-    wheel_speed: Q("angular_speed") = 0.0
+    angle: Q("angle", ge=-1e3, le=1e3) = 0.0
+    rate: Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED) = 0.0
+    wheel_speed: Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED) = 0.0
 
 
 class Push(Strict):
     at: Q("time", ge=0)
-    impulse: Q("impulse")
+    impulse: Q("impulse", ge=-MAX_TORQUE, le=MAX_TORQUE)
     """Angular impulse about the pivot, N m s, applied over one physics step."""
 
 
@@ -335,12 +367,25 @@ class Scenario(Strict):
         ratio = 1.0 / (self.sensors.rate * self.world.step)
         if ratio < 0.999 or abs(ratio - round(ratio)) > 1e-6 * ratio:
             raise ValueError(f"@sensors.rate: the control period (1/{self.sensors.rate:g} Hz) must be a whole "
-                             f"number of physics steps ({self.world.step:g} s)")
-        if self.trial.pushes and max(p.at for p in self.trial.pushes) > self.trial.duration:
-            raise ValueError("@trial.pushes: a push comes after the end of the trial")
+                             f"number of physics steps ({self.world.step:g} s); "
+                             + step_suggestion(self.sensors.rate, self.world.step))
+        for i, push in enumerate(self.trial.pushes):  # the trial applies a push on step round(at/step)
+            if round(push.at / self.world.step) >= self.n_steps:
+                raise ValueError(f"@trial.pushes[{i}].at: a push at {push.at:g} s is at or after the end of the "
+                                 f"trial ({self.trial.duration:g} s) and would never be applied")
         if self.tolerances is not None:
             from .tolerances import parse_tolerances
             parse_tolerances(self, self.tolerances)  # raises ValueError("@tolerances.<key>: ...")
+        return self
+
+    @model_validator(mode="after")
+    def _wheel_spins(self):
+        # a wheel of point masses on its axis has no spin inertia: the run would divide by zero
+        from .massprops import wheel_props
+        spin = wheel_props(self.wheel.parts, rotor_inertia=self.motor.rotor_inertia).inertia_com[0]
+        if spin <= 0.0 and not self.wheel.inertia_correction:  # a correction is checked below
+            raise ValueError("@wheel.parts: the wheel's spin inertia is 0 kg m^2 (only point masses on its axis); "
+                             "give it a part with a size (a disk or ring), copies off the axis, or motor.rotor_inertia")
         return self
 
     @model_validator(mode="after")
@@ -480,15 +525,85 @@ def default_scenario_path() -> Path:
 
 
 def describe_validation_error(exc: ValidationError, model: type[BaseModel] | None = None) -> str:
-    """One sentence for the first error: dotted key path, what was expected, what was found."""
-    err = exc.errors(include_url=False)[0]
-    loc = [x for x in err["loc"] if not (isinstance(x, str) and x.startswith("function-"))]
+    """Every problem in one line, joined by "; " (unknown keys first, with the nearest known key):
+    each names its dotted key path, what was expected and what was found."""
+    problems = describe_problems(exc, model)
+    extra = len(problems) - MAX_PROBLEMS
+    shown = problems[:MAX_PROBLEMS] + ([f"and {extra} more problem{'s' if extra > 1 else ''}"] if extra > 0 else [])
+    return "; ".join(shown)
+
+
+def describe_problems(exc: ValidationError, model: type[BaseModel] | None = None) -> list[str]:
+    """One sentence per problem of `exc`, unknown keys first, each problem once."""
+    out: list[str] = []
+    errors = sorted(_union_resolved(exc.errors(include_url=False)), key=lambda e: e["type"] != "extra_forbidden")
+    for err in errors:
+        for piece in _describe_one(err, model):
+            if piece not in out:
+                out.append(piece)
+    return out
+
+
+_TAG_WORDS = {"str": "a string", "float": "a number", "int": "a whole number", "bool": "true or false",
+              "list": "a list", "dict": "a mapping", "none": "nothing"}
+_UNION_TAGS = set(_TAG_WORDS) | {"is-instance"}
+
+
+def _union_tag_at(loc) -> int | None:
+    """Index of the first union-branch tag in `loc` (pydantic names branches by type), or None."""
+    for i, part in enumerate(loc):
+        if isinstance(part, str) and (part in _UNION_TAGS or part.startswith(("constrained-", "is-instance["))
+                                      or (part[:1].isupper() and part.isidentifier())):
+            return i
+    return None
+
+
+def _union_resolved(errors: list[dict]) -> list[dict]:
+    """Errors with union branches folded: per union key, the branch that got furthest (its errors
+    lie deepest) stands for the key, with the branch tag dropped; branches that only disagree
+    on the type become one "expected A or B" error."""
+    groups: dict[tuple, list[dict]] = {}
+    out: list[dict] = []
+    for err in errors:
+        loc = [x for x in err["loc"] if not (isinstance(x, str) and x.startswith("function-"))]
+        i = _union_tag_at(loc)
+        if i is None:
+            out.append({**err, "loc": tuple(loc)})
+        else:
+            groups.setdefault(tuple(loc[:i]), []).append({**err, "loc": tuple(loc), "tag_at": i})
+    for key, errs in groups.items():
+        deepest = max(len(e["loc"]) for e in errs)
+        if deepest == len(key) + 1:   # every branch failed on the type itself
+            names = [_TAG_WORDS.get(str(e["loc"][-1]), "a mapping") for e in errs]
+            out.append({"type": "union_type", "loc": key, "input": errs[0].get("input"),
+                        "msg": f"expected {' or '.join(dict.fromkeys(names))}"})
+            continue
+        for e in errs:
+            if len(e["loc"]) == deepest or len(e["loc"]) > len(key) + 1 and _same_branch(e, errs, deepest):
+                out.append({**e, "loc": e["loc"][:e["tag_at"]] + e["loc"][e["tag_at"] + 1:]})
+    return out
+
+
+def _same_branch(err: dict, errs: list[dict], deepest: int) -> bool:
+    tag = err["loc"][err["tag_at"]]
+    return any(e["loc"][e["tag_at"]] == tag and len(e["loc"]) == deepest for e in errs)
+
+
+def _describe_one(err: dict, model: type[BaseModel] | None) -> list[str]:
+    loc = list(err["loc"])
     msg = err["msg"].removeprefix("Value error, ")
-    if msg.startswith("@"):  # a validator named a sub-key: "@key: message"
-        sub, _, msg = msg[1:].partition(": ")
-        loc = loc + [sub]
-    path = format_path(loc)
     kind = err["type"]
+    if msg.startswith("@"):  # a validator named sub-keys: "@key: message; @other: message"
+        out = []
+        for piece in msg[1:].split("; @"):
+            sub, _, text = piece.partition(": ")
+            out.append(_describe_text(loc + [sub], text, kind, err, model))
+        return out
+    return [_describe_text(loc, msg, kind, err, model)]
+
+
+def _describe_text(loc: list, msg: str, kind: str, err: dict, model) -> str:
+    path = format_path(loc)
     if kind == "extra_forbidden":
         return f"{path}: unknown key{_suggest(loc, model)}"
     if kind == "missing":
@@ -496,12 +611,32 @@ def describe_validation_error(exc: ValidationError, model: type[BaseModel] | Non
     if kind == "literal_error":
         return f"{path}: expected {msg.removeprefix('Input should be ')}, found {short_repr(err.get('input'))}"
     found = short_repr(err.get("input"))
+    if kind == "union_type":
+        return f"{path}: {msg}, found {found}"
     if kind in ("greater_than", "greater_than_equal", "less_than", "less_than_equal"):
         bound = msg.replace('Input should be', 'must be')
         return f"{path}: {bound} (the bound is in SI units; found {found})"
-    if kind.endswith("_type") or kind.startswith("int_"):
+    if kind.endswith(("_type", "_parsing")) or kind.startswith("int_"):
         return f"{path}: {msg.replace('Input should be', 'expected')}, found {found}"
     return f"{path}: {msg}"
+
+
+def step_suggestion(rate_hz: float, step_s: float) -> str:
+    """What would fit: the largest round step at or below `step_s` that divides the control
+    period, and the loop rates nearest `rate_hz` that the present step divides."""
+    period = 1.0 / rate_hz
+    n0 = max(1, int(period / step_s - 1e-9) + (period / step_s % 1 > 1e-9))
+    step = None
+    for n in range(n0, n0 + 1000):
+        cand = period / n
+        if float(f"{cand:.3g}") == cand or abs(float(f"{cand:.3g}") - cand) <= 1e-12 * cand:
+            step = cand
+            break
+    step = step if step is not None else period / n0
+    k = max(1, round(period / step_s))
+    rates = sorted({1.0 / (j * step_s) for j in (k - 1, k, k + 1) if j >= 1}, key=lambda r: abs(r - rate_hz))[:2]
+    return (f"a world.step of {step * 1e3:.6g} ms divides it (the largest round step at or below "
+            f"{step_s * 1e3:g} ms that does), or use a rate of {' or '.join(f'{r:.6g} Hz' for r in rates)}")
 
 
 def short_repr(value: Any) -> str:
