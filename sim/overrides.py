@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import copy
 import re
+import sys
 from typing import Any
 
 import yaml
@@ -83,8 +84,38 @@ def apply_overrides(raw: dict, overrides, *, where: str) -> dict:
     out = copy.deepcopy(raw)
     for text in overrides:
         path, value = parse_assignment(text, where=f"{where}: --set")  # name the file, as every error does
+        _drop_other_kind(out, path, value, text)
         set_path(out, path, value, where=f"{where} (--set {text})")
     return out
+
+
+STRATEGY_NAMES = ("kind", "plugin")
+
+
+def _drop_other_kind(raw: dict, path: list, value: Any, text: str) -> None:
+    """`--set strategy.kind=lqr` on a `pid` strategy: the old kind's parameters do not fit the new
+    kind, so the mapping is replaced by `{kind: lqr}`, with a one-line note on stderr. Applies to
+    any mapping naming a strategy by `kind` or `plugin` (nested ones too, e.g. strategy.balance)."""
+    if len(path) < 2 or path[-1] not in STRATEGY_NAMES:
+        return
+    parent: Any = raw
+    for key in path[:-1]:
+        if isinstance(key, int):
+            parent = parent[key] if isinstance(parent, list) and key < len(parent) else None
+        else:
+            parent = parent.get(key) if isinstance(parent, dict) else None
+        if parent is None:
+            return
+    if not isinstance(parent, dict):
+        return
+    old = next(((k, parent[k]) for k in STRATEGY_NAMES if k in parent), None)
+    if old is None or (old[0] == path[-1] and old[1] == value):
+        return
+    dropped = [str(k) for k in parent if k not in STRATEGY_NAMES]
+    parent.clear()
+    if dropped:
+        print(f"note: --set {text}: the {old[1]!s} parameters {', '.join(dropped)} were dropped "
+              f"(they belong to the old {old[0]}); give the new kind's parameters with more --set", file=sys.stderr)
 
 
 def deep_merge(base: dict, extra: dict) -> dict:

@@ -487,7 +487,16 @@ def load_scenario(path: str | Path | None = None, *, overrides: tuple[str, ...] 
     data : an already-parsed mapping (then `path` only names it in messages).
     """
     raw, where = load_raw(path, overrides, data=data)
-    return validate_scenario(raw, where=where)
+    return validate_loaded(raw, where=where)
+
+
+def validate_loaded(raw: dict, *, where: str) -> Scenario:
+    """`validate_scenario` plus the checks made once per load, not per perturbed copy: each
+    tolerance's band ends must give valid scenarios (`sim.tolerances.check_band_ends`)."""
+    sc = validate_scenario(raw, where=where)
+    from .tolerances import check_band_ends
+    check_band_ends(raw, sc, where=where, validate=lambda trial: validate_scenario(trial, where=where))
+    return sc
 
 
 def load_raw(path: str | Path | None = None, overrides=(), *, data: dict | None = None) -> tuple[dict, str]:
@@ -622,21 +631,22 @@ def _describe_text(loc: list, msg: str, kind: str, err: dict, model) -> str:
 
 
 def step_suggestion(rate_hz: float, step_s: float) -> str:
-    """What would fit: the largest round step at or below `step_s` that divides the control
-    period, and the loop rates nearest `rate_hz` that the present step divides."""
+    """What would fit: a step at or below `step_s` that divides the control period (the first
+    round one, 3 significant digits, among the 20 largest that do; else the largest), and the two
+    loop rates nearest `rate_hz` that the present step divides."""
+    import math
     period = 1.0 / rate_hz
-    n0 = max(1, int(period / step_s - 1e-9) + (period / step_s % 1 > 1e-9))
+    n0 = max(1, math.ceil(period / step_s * (1 - 1e-9)))
     step = None
-    for n in range(n0, n0 + 1000):
+    for n in range(n0, n0 + 20):
         cand = period / n
-        if float(f"{cand:.3g}") == cand or abs(float(f"{cand:.3g}") - cand) <= 1e-12 * cand:
+        if abs(float(f"{cand:.3g}") - cand) <= 1e-9 * cand:
             step = cand
             break
     step = step if step is not None else period / n0
     k = max(1, round(period / step_s))
     rates = sorted({1.0 / (j * step_s) for j in (k - 1, k, k + 1) if j >= 1}, key=lambda r: abs(r - rate_hz))[:2]
-    return (f"a world.step of {step * 1e3:.6g} ms divides it (the largest round step at or below "
-            f"{step_s * 1e3:g} ms that does), or use a rate of {' or '.join(f'{r:.6g} Hz' for r in rates)}")
+    return (f"a world.step of {step * 1e3:.6g} ms divides it, or use a rate of {' or '.join(f'{r:.6g} Hz' for r in rates)}")
 
 
 def short_repr(value: Any) -> str:
