@@ -559,12 +559,28 @@ _UNION_TAGS = set(_TAG_WORDS) | {"is-instance"}
 
 
 def _union_tag_at(loc) -> int | None:
-    """Index of the first union-branch tag in `loc` (pydantic names branches by type), or None."""
-    for i, part in enumerate(loc):
-        if isinstance(part, str) and (part in _UNION_TAGS or part.startswith(("constrained-", "is-instance["))
-                                      or (part[:1].isupper() and part.isidentifier())):
+    """Index of the last union-branch tag in `loc` (pydantic names branches by type), or None.
+    The last, so that a user's key that happens to be a class name ("Drive") is not taken for one."""
+    models = None
+    for i, part in reversed(list(enumerate(loc))):
+        if not isinstance(part, str):
+            continue
+        if part in _UNION_TAGS or part.startswith(("constrained-", "is-instance[")):
             return i
+        if part[:1].isupper() and part.isidentifier():  # a model's class name, not a user's key
+            models = models if models is not None else _model_names(BaseModel)
+            if part in models:
+                return i
     return None
+
+
+def _model_names(base: type) -> set[str]:
+    """Names of every pydantic model class defined so far (the union branches pydantic names)."""
+    out: set[str] = set()
+    for sub in base.__subclasses__():
+        out.add(sub.__name__)
+        out |= _model_names(sub)
+    return out
 
 
 def _union_resolved(errors: list[dict]) -> list[dict]:

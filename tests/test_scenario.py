@@ -340,3 +340,19 @@ def test_every_problem_in_one_line_unknown_key_first(tmp_path):
     assert "\n" not in msg
     assert msg.startswith(f"{path}: motr: unknown key (did you mean 'motor'?); ")
     assert "; motor: required key is missing" in msg and "; drive.supply: must be greater than 0" in msg
+
+
+def test_union_keys_are_named_by_the_field_not_by_a_type_branch():
+    # issue 13 part 9: an inline material was reported as `material.str`
+    with pytest.raises(ScenarioError, match=r"body\.parts\[0\]\.material: expected a string or a mapping, found 5$"):
+        make_scenario(body={"parts": [{"shape": "rod", "length": 0.2, "radius": 0.005, "material": 5}]})
+    with pytest.raises(ScenarioError, match=r"tolerances\.Drive: expected a number or a string, found \[1\]$"):
+        make_scenario(tolerances={"Drive": [1]})
+
+
+def test_largest_sensor_noise_allowed_ends_as_an_outcome():
+    """At the bound (angle noise pi rad, rate noise 1e5 rad/s) a trial still ends with an outcome."""
+    from sim.trial import run_trial
+    sc = make_scenario(strategy={"kind": "lqr"}, trial={"duration": 0.2},
+                       sensors={"angle": {"noise": math.pi}, "rate_gyro": {"noise": 1e5}, "wheel": {"noise": 1e5}})
+    assert run_trial(sc).outcome in {"balanced", "fell", "diverged", "not_caught"}
