@@ -77,14 +77,22 @@ def set_path(raw: dict, path: list[str | int], value: Any, *, where: str) -> Non
         node = nxt
 
 
-def apply_overrides(raw: dict, overrides, *, where: str) -> dict:
-    """A deep copy of `raw` with each 'key.path=value' override applied in order."""
+def apply_overrides(raw: dict, overrides, *, where: str, notes: list[str] | None = None) -> dict:
+    """A deep copy of `raw` with each 'key.path=value' override applied in order.
+
+    Notes for the user (a changed strategy kind dropped parameters) are appended to `notes`, or
+    printed on stderr when no list is given.
+    """
     if not overrides:
         return raw
     out = copy.deepcopy(raw)
     for text in overrides:
         path, value = parse_assignment(text, where=f"{where}: --set")  # name the file, as every error does
-        _drop_other_kind(out, path, value, text)
+        note = _drop_other_kind(out, path, value, text)
+        if note and notes is not None:
+            notes.append(note)
+        elif note:
+            print(note, file=sys.stderr)
         set_path(out, path, value, where=f"{where} (--set {text})")
     return out
 
@@ -92,12 +100,13 @@ def apply_overrides(raw: dict, overrides, *, where: str) -> dict:
 STRATEGY_NAMES = ("kind", "plugin")
 
 
-def _drop_other_kind(raw: dict, path: list, value: Any, text: str) -> None:
+def _drop_other_kind(raw: dict, path: list, value: Any, text: str) -> str | None:
     """`--set strategy.kind=lqr` on a `pid` strategy: the old kind's parameters do not fit the new
-    kind, so the mapping is replaced by `{kind: lqr}`, with a one-line note on stderr. Applies to
-    any mapping naming a strategy by `kind` or `plugin` (nested ones too, e.g. strategy.balance)."""
+    kind, so the mapping is replaced by `{kind: lqr}`; returns a one-line note naming what was
+    dropped (None when nothing was). Applies to any mapping naming a strategy by `kind` or
+    `plugin` (nested ones too, e.g. strategy.balance)."""
     if len(path) < 2 or path[-1] not in STRATEGY_NAMES:
-        return
+        return None
     parent: Any = raw
     for key in path[:-1]:
         if isinstance(key, int):
@@ -105,17 +114,18 @@ def _drop_other_kind(raw: dict, path: list, value: Any, text: str) -> None:
         else:
             parent = parent.get(key) if isinstance(parent, dict) else None
         if parent is None:
-            return
+            return None
     if not isinstance(parent, dict):
-        return
+        return None
     old = next(((k, parent[k]) for k in STRATEGY_NAMES if k in parent), None)
     if old is None or (old[0] == path[-1] and old[1] == value):
-        return
+        return None
     dropped = [str(k) for k in parent if k not in STRATEGY_NAMES]
     parent.clear()
-    if dropped:
-        print(f"note: --set {text}: the {old[1]!s} parameters {', '.join(dropped)} were dropped "
-              f"(they belong to the old {old[0]}); give the new kind's parameters with more --set", file=sys.stderr)
+    if not dropped:
+        return None
+    return (f"note: --set {text}: the {old[1]!s} parameters {', '.join(dropped)} were dropped "
+            f"(they belong to the old {old[0]}); give the new kind's parameters with more --set")
 
 
 def deep_merge(base: dict, extra: dict) -> dict:

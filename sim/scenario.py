@@ -513,7 +513,14 @@ def load_raw(path: str | Path | None = None, overrides=(), *, data: dict | None 
     if not isinstance(raw, dict):
         raise ScenarioError(f"{where}: expected a mapping of scenario keys at the top, found {type(raw).__name__}")
     from .overrides import apply_overrides
-    return apply_overrides(raw, tuple(overrides or ()), where=where), where
+    notes: list[str] = []
+    out = apply_overrides(raw, tuple(overrides or ()), where=where, notes=notes)
+    if notes:  # said only when the result is valid: bad input still gets exactly one line
+        validate_loaded(out, where=where)
+        import sys
+        for note in notes:
+            print(note, file=sys.stderr)
+    return out, where
 
 
 def validate_scenario(raw: dict, *, where: str) -> Scenario:

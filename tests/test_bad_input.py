@@ -231,6 +231,17 @@ def test_bad_set(capsys, tmp_path, scenario_file, command, case):
     assert_rejected(code, err, names=[str(scenario_file), *fragments], out=out)
 
 
+def test_kind_change_then_a_bad_key_is_still_one_line(capsys, tmp_path):
+    """issue 14 item 6: the note about dropped parameters is said only when the result loads."""
+    path = write_scenario(tmp_path / "pid.yaml", scenario_dict(strategy={"kind": "pid", "kp": 30.0}))
+    out = tmp_path / "out"
+    code, _, err = run_cli(capsys, ["run", str(path), "--out", str(out),
+                                    "--set", "strategy.kind=lqr", "--set", "strategy.kp=3"])
+    assert_rejected(code, err, names=[str(path), "strategy.kp: unknown key"], out=out)
+    code, _, err = run_cli(capsys, ["validate", str(path), "--set", "strategy.kind=lqr"])
+    assert code == 0 and err.count("\n") == 1 and err.startswith("note: --set strategy.kind=lqr: the pid parameters kp")
+
+
 @pytest.mark.parametrize("seed", ["-1", str(2**64)])
 def test_bad_seed(capsys, tmp_path, scenario_file, seed):
     out = tmp_path / "out"
