@@ -22,6 +22,7 @@ accelerates the wheel in the positive sense; its reaction turns the body the neg
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
@@ -46,7 +47,7 @@ MAX_MASS_KG = 1e4
 MAX_INERTIA = 1e8
 MAX_TORQUE = 1e4
 MAX_SPEED = 1e5
-MAX_ANGLE_NOISE = 3.141592653589793
+MAX_ANGLE_NOISE = math.pi
 
 
 Length = Q("length", ge=-MAX_SIZE_M, le=MAX_SIZE_M)
