@@ -152,8 +152,8 @@ def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers:
     if workers is not None and cluster is not None:
         raise InputError("--workers and --cluster: give one (the cluster's scheduler decides its workers)")
     raw, where = load_raw(scenario, tuple(overrides or ()))
-    from .scenario import validate_scenario
-    validate_scenario(raw, where=where)  # bad input fails here, before an --out folder is made
+    from .scenario import validate_loaded
+    validate_loaded(raw, where=where)  # bad input fails here, before an --out folder is made
     return raw, where
 
 

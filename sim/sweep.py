@@ -36,6 +36,7 @@ from .outputs import atomic_path, clean_json
 from .overrides import parse_path, set_path
 from .parallel import run_tasks
 from .tolerances import trial_seed, value_at, wilson_interval
+from .yaml12 import load_yaml12
 
 JOURNAL = "sweep.jsonl"
 RESULTS = "results.csv"
@@ -83,6 +84,9 @@ def _range_values(m, where: str) -> list:
     except Exception:  # pint raises many kinds for unreadable or mismatched text
         raise InputError(f"{where}: LO and HI must be numbers or quantities of the same kind "
                          f"(e.g. 6V..24V:4), found {m.group('lo')!r} and {m.group('hi')!r}") from None
+    bad = [m.group(g).strip() for g, q in (("lo", lo), ("hi", hi)) if not np.isfinite(float(q.magnitude))]
+    if bad:  # linspace would warn and fill the range with nan
+        raise InputError(f"{where}: LO and HI must be finite, found {' and '.join(repr(b) for b in bad)}")
     mags = np.linspace(float(lo.magnitude), float(hi.magnitude), n)
     if lo.dimensionless and str(lo.units) == "dimensionless":
         return [float(v) for v in mags]
@@ -96,7 +100,7 @@ def _list_values(spec: str, where: str) -> list:
         if not item:
             raise InputError(f"{where}: empty value in the list")
         try:
-            value = yaml.safe_load(item)
+            value = load_yaml12(item)  # as a scenario file reads it (YAML 1.2 numbers)
         except yaml.YAMLError:
             value = item
         out.append(item if value is None or isinstance(value, (dict, list)) else value)

@@ -8,7 +8,10 @@ raw scenario mapping and validates that copy again, so a perturbed design is che
 like a hand-written one.
 
 Keys are checked when the scenario loads: the path must name a numeric quantity that has a
-value in the scenario (a part's `mass` only when the part gives one).
+value in the scenario (a part's `mass` only when the part gives one), and the copies with each
+toleranced value at either end of its band (the others nominal) must be valid scenarios, so a
+band that breaks a rule (the loop-rate/step rule, a bound, a default nested strategy the file
+does not write out) is refused at load instead of making every Monte Carlo draw invalid.
 """
 
 from __future__ import annotations
@@ -188,3 +191,41 @@ def interval_note(passed: int, trials: int, limit: float) -> str:
     if low < limit <= high:
         note += f": straddles the {100 * limit:.0f}% limit, run more trials (e.g. --trials {4 * trials})"
     return note
+
+
+def check_band_ends(raw: dict, scenario, *, where: str, validate) -> None:
+    """Refuse, at load, tolerances whose band ends make the scenario invalid.
+
+    Validates (with `validate(mapping)`, which raises ScenarioError) a copy of `raw` for each
+    tolerance (the scenario's own, or the defaults that apply) at each end of its band, the other
+    values nominal and `tolerances` removed. Raises ScenarioError naming `tolerances.<key>`.
+    """
+    table = scenario.tolerances
+    for tol in scenario_tolerances(scenario):
+        for u, end in ((-1.0, "low"), (1.0, "high")):
+            value = tol.nominal * (1.0 + u * tol.band) if tol.relative else tol.nominal + u * tol.band
+            trial = copy.deepcopy(raw)
+            trial.pop("tolerances", None)
+            set_path(trial, list(tol.path), float(value), where=f"{where}: tolerances.{tol.key}")
+            try:
+                validate(trial)
+            except ScenarioError as exc:
+                problem = str(exc).removeprefix(f"{where}: ")
+                origin = "" if table is not None else " (a default tolerance: give a `tolerances` section to change it)"
+                raise ScenarioError(f"{where}: tolerances.{tol.key}: at the {end} end of its band ({value:.6g} SI) "
+                                    f"the scenario is invalid{origin}{_unwritten_hint(raw, tol.path)}: {problem}") from None
+
+
+def _unwritten_hint(raw: dict, path) -> str:
+    """A note when a mapping on `path` is a default the file does not write (e.g. a nested strategy)."""
+    if path[0] != "strategy":  # elsewhere a missing mapping is filled in with its defaults
+        return ""
+    node: Any = raw
+    for i, part in enumerate(path[:-1]):
+        nxt = node[part] if isinstance(part, int) and isinstance(node, list) and part < len(node) else \
+            node.get(part) if isinstance(node, dict) else None
+        if nxt is None:
+            shown = ".".join(str(x) for x in path[:i + 1])
+            return f" ({shown} is a default the file does not write out; write it, with its kind, to tolerance its keys)"
+        node = nxt
+    return ""

@@ -84,3 +84,18 @@ def test_a_scenario_without_an_lqr_balance_law_exits_2_with_one_line(tmp_path, c
 def test_unknown_format_exits_2(capsys):
     code, out, err = _gains(capsys, "--format", "xml")
     assert code == 2 and out == "" and "--format" in err
+
+
+@pytest.mark.parametrize("sections", [
+    # no gravity, no friction: the wheel cannot change the total angular momentum, so the state is
+    # not stabilisable and no Riccati solution exists (common practice, no source)
+    {"world": {"gravity": 0}, "strategy": {"kind": "lqr"}},
+    {"strategy": {"kind": "lqr", "weights": [1e300, 1e300, 1e300]}},
+    {"strategy": {"kind": "lqr", "weights": [1e200, 1.0, 1.0], "effort": 1e-200}},
+])
+def test_no_lqr_design_is_one_line_not_a_traceback(tmp_path, capsys, sections):
+    path = write_scenario(tmp_path / "s.yaml", scenario_dict(**sections))
+    code, out, err = _gains(capsys, str(path))
+    assert code == 2 and out == ""
+    assert err.count("\n") == 1 and err.startswith(f"wheelbench: {path}: strategy: no LQR design"), err
+    assert "Traceback" not in err
