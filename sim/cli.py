@@ -180,8 +180,8 @@ def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers:
     if workers is not None and cluster is not None:
         raise InputError("--workers and --cluster: give one (the cluster's scheduler decides its workers)")
     raw, where = load_raw(scenario, tuple(overrides or ()))
-    from .scenario import validate_scenario
-    validate_scenario(raw, where=where)  # bad input fails here, before an --out folder is made
+    from .scenario import validate_loaded
+    validate_loaded(raw, where=where)  # bad input fails here, before an --out folder is made
     return raw, where
 
 
@@ -381,12 +381,15 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
 
 def _print_run(sc, m: dict, out: Path) -> None:
     from rich.console import Console
+    from rich.markup import escape
     from rich.table import Table
 
     console = Console()
     table = Table(title=f"{sc.name} - {m['strategy']}", show_header=False, box=None)
     rows = [
         ("outcome", m["outcome"] + (f" ({m['message']})" if m.get("message") else "")),
+        *([("cause", escape(f"{m['cause']}: {m['cause_detail']}"))] if m.get("cause") else []),
+        *([("fell at", _fmt(m["fell_at_s"], "s") + " (totals up to here)")] if m.get("fell_at_s") is not None else []),
         ("caught at", _fmt(m["caught_at_s"], "s")), ("settle time", _fmt(m["settle_time_s"], "s")),
         ("peak wheel speed", f"{_fmt(m['peak_wheel_speed_rad_s'], 'rad/s')} of {m['wheel_speed_limit_rad_s']:.1f} rad/s"),
         ("peak current", f"{_fmt(m['peak_current_a'], 'A')} (rms {_fmt(m['rms_current_a'], 'A')})"),

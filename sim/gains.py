@@ -58,7 +58,7 @@ def gains_report(scenario) -> dict:
     if law == "pid":
         return pid_report(scenario, device, spec)
     p = spec.params
-    des = design_lqr(device, weights=p.weights, effort=p.effort)
+    des = _design(scenario, device, p)
     from .strategies.lqr import LqrBalance
     gx, gu = LqrBalance.folded_gains(des, DelayPredictor(des, delay_s=device.delay_s))
     return {
@@ -140,6 +140,28 @@ def pid_report(scenario, device, spec) -> dict:
         "starting_values": starting_values(device),
         "caution": CAUTION,
     }
+
+def _design(scenario, device, p):
+    """The LQR design, or InputError in one line when the scenario has none (e.g. gravity 0 without
+    friction leaves the total angular momentum unchangeable, so the state is not stabilisable; or
+    weights so large or small that the Riccati equations have no finite solution)."""
+    import warnings
+    try:
+        with warnings.catch_warnings(), np.errstate(all="ignore"):  # the one line below says it all
+            warnings.simplefilter("ignore")
+            des = design_lqr(device, weights=p.weights, effort=p.effort)
+            DelayPredictor(des, delay_s=device.delay_s)
+    except (np.linalg.LinAlgError, ValueError, ArithmeticError) as exc:
+        reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise InputError(f"{scenario.source}: strategy: no LQR design exists for this scenario ({reason}); check "
+                         f"world.gravity (now {device_gravity(scenario):g} m/s^2) and strategy weights/effort") from None
+    if not all(np.isfinite(des.K_discrete)) or not all(np.isfinite(des.K_continuous)):
+        raise InputError(f"{scenario.source}: strategy: the LQR design gave non-finite gains; check strategy weights/effort")
+    return des
+
+
+def device_gravity(scenario) -> float:
+    return float(scenario.world.gravity)
 
 
 def _complex_list(values) -> list[dict]:

@@ -3,7 +3,9 @@
 Axes of a part: x parallel to the pivot axis, y in the swing plane across the body, z along the
 body axis (for wheel parts: radial). Inertias are about the part's own centre, kg m^2.
 Sources: standard rigid-body tables (e.g. Meriam & Kraige, Engineering Mechanics: Dynamics,
-Appendix D; Gere, Mechanics of Materials).
+Appendix D; Gere, Mechanics of Materials). A hollow box (closed thin-walled shell) is the outer
+solid box minus the inner one, each by the solid-box formula m (a^2 + b^2) / 12 of the same
+tables, at the shell material's density.
 """
 
 from __future__ import annotations
@@ -21,6 +23,8 @@ def part_volume(part) -> float | None:
         return math.pi * part.radius**2 * part.length if part.radius else None
     if s == "box":
         return part.length * part.width * part.thickness
+    if s == "hollow_box":
+        return part.length * part.width * part.thickness - math.prod(_inner_box(part))
     if s == "disk":
         return math.pi * part.radius**2 * part.thickness if part.thickness else None
     if s == "ring":
@@ -34,9 +38,19 @@ def wheel_part_outer_radius(part) -> float:
         return part.radius
     if part.shape == "ring":
         return part.outer_radius
-    if part.shape in ("rod", "box"):
+    if part.shape in ("rod", "box", "hollow_box"):
         return part.at + part.length / 2.0
     return part.at
+
+
+def _inner_box(part) -> tuple[float, float, float]:
+    """The hollow box's cavity: (length, width, thickness), m."""
+    return tuple(size - 2.0 * part.wall for size in (part.length, part.width, part.thickness))
+
+
+def _solid_box_inertia(mass: float, length: float, w: float, t: float) -> np.ndarray:
+    """(Ix, Iy, Iz) of a solid box about its centre: m (b^2 + c^2) / 12 about each axis (x along t)."""
+    return mass / 12 * np.array([length**2 + w**2, length**2 + t**2, w**2 + t**2])
 
 
 def part_mass(part) -> float:
@@ -59,8 +73,12 @@ def part_inertia(part, mass: float) -> np.ndarray:
         ix = mass * (3 * r2 + l2) / 12
         return np.array([ix, ix, mass * r2 / 2])
     if s == "box":
-        length, w, t = part.length, part.width, part.thickness
-        return mass / 12 * np.array([length**2 + w**2, length**2 + t**2, w**2 + t**2])
+        return _solid_box_inertia(mass, part.length, part.width, part.thickness)
+    if s == "hollow_box":  # outer solid box minus the cavity, both at the shell's density
+        outer, inner = (part.length, part.width, part.thickness), _inner_box(part)
+        density = mass / (math.prod(outer) - math.prod(inner))
+        return (_solid_box_inertia(density * math.prod(outer), *outer)
+                - _solid_box_inertia(density * math.prod(inner), *inner))
     if s == "disk":  # solid cylinder with its axis along x
         r2, t2 = part.radius**2, (part.thickness or 0.0) ** 2
         d = mass * (3 * r2 + t2) / 12

@@ -24,6 +24,7 @@ NEAR_NO_LOAD = 0.9          # share of the no-load speed
 CURRENT_AT_LIMIT = 0.98     # share of the current limit
 VOLTAGE_AT_SUPPLY = 0.995   # share of the supply
 PUSH_SHOWN_S = 0.4          # how long a push stays marked
+ENDING_SHOWN_S = 1.0        # a failed trial's outcome and cause show from its fall, or for its last second
 
 PANEL = (16, 24, 34, 255)
 RULE = (255, 176, 59, 255)
@@ -53,6 +54,7 @@ class Readout:
     notes: tuple = ()
     push_n_m_s: float | None = None
     push_age_s: float = 0.0
+    ending: str | None = None   # a failed trial's outcome and cause, after its fall or near its end
 
 
 @dataclass
@@ -91,7 +93,22 @@ def readout(result, t_s: float) -> Readout:
     phase = tr.phases[tr.mode[k]] if tr.phases else ""
     return Readout(t_s=t_s, phase=phase, wheel_speed_rad_s=w, wheel_limit_rad_s=limit, voltage_v=v,
                    supply_v=supply, current_a=i, current_limit_a=i_lim, notes=tuple(notes),
-                   push_n_m_s=push, push_age_s=age)
+                   push_n_m_s=push, push_age_s=age, ending=ending_text(result, t_s))
+
+
+def ending_text(result, t_s: float) -> str | None:
+    """"FELL: WHEEL AT SPEED LIMIT" (outcome and cause, `sim.causes`) on frames from the fall on, and
+    in the last ENDING_SHOWN_S of any failed trial (a trial stopped at its fall has no frames after
+    it); None on other frames and trials."""
+    cause = getattr(result, "cause", None)
+    if not cause:
+        return None
+    since = result.ended_at_s - ENDING_SHOWN_S
+    if result.outcome == "fell" and result.fell_at_s is not None:
+        since = min(since, result.fell_at_s)
+    if t_s < since:
+        return None
+    return f"{result.outcome}: {cause}".replace("_", " ").upper()
 
 
 def _font(size: int, *, mono: bool = False, bold: bool = False):
@@ -223,6 +240,9 @@ class Dashboard:
             y = self._tag(img, (self.width - pad, y), note.upper(), fill=WARN, ink=(255, 246, 240), right=True, up=True)
         if self.label:
             self._tag(img, (pad, int(0.04 * self.height)), self.label, fill=PANEL[:3], ink=TEXT)
+        if r.ending:  # top right, clear of the label (top left) and the limit notes (above the panel)
+            self._tag(img, (self.width - pad, int(0.04 * self.height)), r.ending, fill=WARN, ink=(255, 246, 240),
+                      right=True)
         if r.push_n_m_s is not None:
             self._push(img, d, r, push_arrow)
         return np.asarray(img), Drawn(r, needle, read_back, r.notes)

@@ -99,7 +99,7 @@ def _part_colour(part) -> tuple:
 def _part_geom(part, scale: float) -> tuple[tuple, tuple]:
     """(geometry, own orientation) of a part; sizes a part leaves open get a size for the picture."""
     s = part.shape
-    if s == "box":
+    if s in ("box", "hollow_box"):  # a closed shell looks like a solid box from outside
         return ("box", (part.thickness / 2, part.width / 2, part.length / 2)), Q_NONE
     if s == "rod":
         return ("cyl", part.radius or 0.02 * part.length, part.length), Q_NONE
@@ -156,7 +156,7 @@ class Layout:
 def _body_extent(part) -> float:
     """Furthest point of a body part from the pivot, m (a box's corner, a disk's rim)."""
     along = abs(part.at)
-    if part.shape == "box":
+    if part.shape in ("box", "hollow_box"):
         return math.hypot(along + part.length / 2, part.width / 2)
     if part.shape == "rod":
         return math.hypot(along + part.length / 2, part.radius or 0.0)

@@ -3,6 +3,18 @@
 Every value is checked here and nowhere later. Quantities accept unit strings ("80 g",
 "300 rpm/V"); bare numbers are SI. Unknown keys are rejected with the nearest known key.
 
+Bounds (checked at load, SI): every number is finite, and sizes, masses, inertias, noise and
+rates stay within ranges a bench device can have, so that a typo (1e300 m, noise 1e308) is
+refused with its key instead of overflowing later. Our choices, generous by orders of magnitude:
+lengths, sizes and distances up to 100 m; masses up to 10 t;
+densities up to 1e5 kg/m^3 (the densest element is about 2.3e4); strengths up to 1e12 Pa;
+inertias and inertia corrections up to 1e8 kg m^2 (10 t at 100 m); friction and brake torques
+up to 1e4 N m; pushes up to 1e4 N m s; speeds and rate-sensor noise and bias up to 1e5 rad/s
+(about 10^6 rpm); angle noise and bias up to pi rad (beyond that a reading carries no angle);
+start angles up to 1e3 rad; winding resistance from 1 uohm to 1 Mohm; inductance up to 10 H;
+current limits up to 1e4 A; Kv up to 1e5 rad/s/V; k_e and k_t up to 1e3. The wheel's spin
+inertia must be above zero (a wheel of point masses on its axis cannot store momentum).
+
 Conventions: body angle 0 = upright, +-pi = hanging, measured about the pivot axis by the
 right-hand rule. Wheel speed is relative to the body, about the same axis. Positive voltage
 accelerates the wheel in the positive sense; its reaction turns the body the negative way.
@@ -10,7 +22,7 @@ accelerates the wheel in the positive sense; its reaction turns the body the neg
 
 from __future__ import annotations
 
-import difflib
+import math
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
@@ -21,15 +33,26 @@ from pydantic import (BaseModel, BeforeValidator, ConfigDict, Field, ValidationE
 from .errors import ScenarioError
 from .strategies.base import StrategySpec
 from .units import Q
+from .validation_messages import (describe_problems, describe_validation_error,  # noqa: F401 (re-exported)
+                                  format_path, short_repr, step_suggestion)
+from .yaml12 import Yaml12Loader
 
 MAX_STEPS = 5_000_000          # physics steps in one trial; more is a typo, not a plan
 MAX_FILE_BYTES = 1_000_000
 MAX_ALIASES = 100
 
+# Physical bounds, SI (see the module docstring for why).
+MAX_SIZE_M = 100.0
+MAX_MASS_KG = 1e4
+MAX_INERTIA = 1e8
+MAX_TORQUE = 1e4
+MAX_SPEED = 1e5
+MAX_ANGLE_NOISE = math.pi
 
-Length = Q("length")
-PositiveLength = Q("length", gt=0)
-PositiveMass = Q("mass", gt=0)
+
+Length = Q("length", ge=-MAX_SIZE_M, le=MAX_SIZE_M)
+PositiveLength = Q("length", gt=0, le=MAX_SIZE_M)
+PositiveMass = Q("mass", gt=0, le=MAX_MASS_KG)
 Fraction = Q("fraction", gt=0, le=1)
 
 
@@ -47,9 +70,9 @@ class World(Strict):
 
 
 class Friction(Strict):
-    coulomb: Q("torque", ge=0) = 0.0
+    coulomb: Q("torque", ge=0, le=MAX_TORQUE) = 0.0
     """Coulomb (dry) friction torque, N m."""
-    viscous: Q("viscous", ge=0) = 0.0
+    viscous: Q("viscous", ge=0, le=MAX_TORQUE) = 0.0
     """Viscous friction coefficient, N m s/rad."""
 
 
@@ -57,8 +80,8 @@ class MaterialSpec(Strict):
     """A material given inline instead of by name."""
 
     name: str = "custom"
-    density: Q("density", gt=0) | None = None
-    tensile_strength: Q("stress", gt=0) | None = None
+    density: Q("density", gt=0, le=1e5) | None = None
+    tensile_strength: Q("stress", gt=0, le=1e12) | None = None
     poisson_ratio: Annotated[float, Field(gt=-1, lt=0.5)] = 0.33
     printed: bool = False
 
@@ -70,7 +93,19 @@ SHAPE_SIZES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
     "box": (("length", "width", "thickness"), ()),
     "disk": (("radius",), ("thickness",)),
     "ring": (("outer_radius", "inner_radius"), ("thickness",)),
+    "hollow_box": (("length", "width", "thickness", "wall"), ()),   # closed six-faced shell, outer sizes
 }
+
+
+def _material_spec(value: Any) -> Any:
+    """An inline material mapping validated on its own, so a bad field is reported under
+    `material.<field>` (not as the union's 'expected a string')."""
+    if not isinstance(value, dict):
+        return value
+    try:
+        return MaterialSpec.model_validate(value)
+    except ValidationError as exc:
+        raise ValueError("; ".join("@" + piece for piece in describe_problems(exc, MaterialSpec))) from None
 
 
 class Part(Strict):
@@ -80,19 +115,21 @@ class Part(Strict):
 
     Orientation: rods and boxes lie with `length` along the body axis (for wheel parts, across
     the wheel axis); `width` is in the swing plane; `thickness` is along the pivot axis. Disks
-    and rings have their axis parallel to the pivot axis.
+    and rings have their axis parallel to the pivot axis. A hollow box is a closed six-faced shell
+    oriented like a box, its sizes the outside ones, its faces `wall` thick.
     """
 
     name: str | None = None
-    shape: Literal["point", "rod", "box", "disk", "ring"]
+    shape: Literal["point", "rod", "box", "disk", "ring", "hollow_box"]
     length: PositiveLength | None = None
     width: PositiveLength | None = None
     thickness: PositiveLength | None = None
     radius: PositiveLength | None = None
     outer_radius: PositiveLength | None = None
-    inner_radius: Q("length", ge=0) | None = None
+    inner_radius: Q("length", ge=0, le=MAX_SIZE_M) | None = None
+    wall: PositiveLength | None = None
     mass: PositiveMass | None = None
-    material: str | MaterialSpec | None = None
+    material: Annotated[str | MaterialSpec | None, BeforeValidator(_material_spec)] = None
     infill: Fraction | None = None
     at: Length = 0.0
     count: Annotated[int, Field(ge=1, le=1000, strict=True)] = 1
@@ -103,11 +140,13 @@ class Part(Strict):
         for key in needed:
             if getattr(self, key) is None:
                 raise ValueError(f"@{key}: a {self.shape} needs '{key}'")
-        for key in ("length", "width", "thickness", "radius", "outer_radius", "inner_radius"):
+        for key in ("length", "width", "thickness", "radius", "outer_radius", "inner_radius", "wall"):
             if getattr(self, key) is not None and key not in needed + optional:
                 raise ValueError(f"@{key}: a {self.shape} takes no '{key}' (it takes {', '.join(needed + optional) or 'no sizes'})")
         if self.shape == "ring" and self.inner_radius >= self.outer_radius:
             raise ValueError("@inner_radius: must be smaller than outer_radius")
+        if self.shape == "hollow_box" and 2 * self.wall >= min(self.length, self.width, self.thickness):
+            raise ValueError("@wall: twice the wall must be smaller than the box's length, width and thickness")
         if isinstance(self.material, str):
             from .materials import known_names, lookup
             if lookup(self.material) is None:
@@ -154,7 +193,7 @@ class Body(Strict):
     pivot_friction: Friction = Friction()
     locked: bool = False
     """True clamps the body at its start angle (a bench test of the wheel drive)."""
-    inertia_correction: Q("inertia") = 0.0
+    inertia_correction: Q("inertia", ge=-MAX_INERTIA, le=MAX_INERTIA) = 0.0
     """Signed, kg m^2: added to the body's inertia about the pivot (e.g. from `wheelbench fit`)."""
 
 
@@ -163,7 +202,7 @@ class Wheel(Strict):
     """Pivot-to-wheel-axis distance, m."""
     parts: Annotated[list[Part], Field(min_length=1, max_length=200)]
     bearing_friction: Friction = Friction()
-    inertia_correction: Q("inertia") = 0.0
+    inertia_correction: Q("inertia", ge=-MAX_INERTIA, le=MAX_INERTIA) = 0.0
     """Signed, kg m^2: added to the wheel's spin inertia (e.g. from `wheelbench fit`)."""
 
     @field_validator("parts")
@@ -195,17 +234,17 @@ class MotorThermal(Strict):
 
 class Motor(Strict):
     name: str | None = None
-    speed_constant: Q("speed_constant", gt=0) | None = None
+    speed_constant: Q("speed_constant", gt=0, le=1e5) | None = None
     """Kv, stored in rad/s per V."""
-    back_emf_constant: Q("back_emf", gt=0) | None = None
+    back_emf_constant: Q("back_emf", gt=0, le=1e3) | None = None
     """k_e, V s/rad."""
-    torque_constant: Q("torque_constant", gt=0) | None = None
+    torque_constant: Q("torque_constant", gt=0, le=1e3) | None = None
     """k_t, N m/A (defaults to k_e: equal in SI for an ideal motor)."""
-    resistance: Q("resistance", gt=0)
-    inductance: Q("inductance", ge=0) = 0.0
-    current_limit: Q("current", gt=0) | None = None
-    rotor_inertia: Q("inertia", ge=0) = 0.0
-    mass: Q("mass", ge=0) = 0.0
+    resistance: Q("resistance", ge=1e-6, le=1e6)
+    inductance: Q("inductance", ge=0, le=10) = 0.0
+    current_limit: Q("current", gt=0, le=1e4) | None = None
+    rotor_inertia: Q("inertia", ge=0, le=MAX_INERTIA) = 0.0
+    mass: Q("mass", ge=0, le=MAX_MASS_KG) = 0.0
     thermal: MotorThermal = MotorThermal()
 
     @model_validator(mode="after")
@@ -228,24 +267,24 @@ class Motor(Strict):
 class Drive(Strict):
     supply: Q("voltage", gt=0, le=1000)
     """Supply voltage, V; the commanded voltage is clamped to +-supply."""
-    brake_torque: Q("torque", gt=0) | None = None
+    brake_torque: Q("torque", gt=0, le=MAX_TORQUE) | None = None
     """A mechanical brake on the wheel (for brake-to-jump strategies), N m."""
 
 
 class AngleSensor(Strict):
     counts_per_rev: Annotated[int, Field(ge=4, le=2**31, strict=True)] | None = None
-    noise: Q("angle", ge=0) = 0.0
-    bias: Q("angle") = 0.0
+    noise: Q("angle", ge=0, le=MAX_ANGLE_NOISE) = 0.0
+    bias: Q("angle", ge=-MAX_ANGLE_NOISE, le=MAX_ANGLE_NOISE) = 0.0
 
 
 class RateGyro(Strict):
-    noise: Q("angular_speed", ge=0) = 0.0
-    bias: Q("angular_speed") = 0.0
+    noise: Q("angular_speed", ge=0, le=MAX_SPEED) = 0.0
+    bias: Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED) = 0.0
 
 
 class WheelSensor(Strict):
     counts_per_rev: Annotated[int, Field(ge=4, le=2**31, strict=True)] | None = None
-    noise: Q("angular_speed", ge=0) = 0.0
+    noise: Q("angular_speed", ge=0, le=MAX_SPEED) = 0.0
 
 
 class Sensors(Strict):
@@ -260,14 +299,14 @@ class Sensors(Strict):
 
 
 class Start(Strict):
-    angle: Q("angle") = 0.0
-    rate: Q("angular_speed") = 0.0
-    wheel_speed: Q("angular_speed") = 0.0
+    angle: Q("angle", ge=-1e3, le=1e3) = 0.0
+    rate: Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED) = 0.0
+    wheel_speed: Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED) = 0.0
 
 
 class Push(Strict):
     at: Q("time", ge=0)
-    impulse: Q("impulse")
+    impulse: Q("impulse", ge=-MAX_TORQUE, le=MAX_TORQUE)
     """Angular impulse about the pivot, N m s, applied over one physics step."""
 
 
@@ -300,6 +339,10 @@ class Requirements(Strict):
     """While holding: 1 - (99th percentile |V|) / supply."""
     current_headroom: Q("fraction", ge=0, lt=1) = 0.1
     """While holding: 1 - (99th percentile |i|) / (current limit, or stall current without one)."""
+    hold_time: Q("time", ge=1, le=3600) = 60.0
+    """Length of the long holds that measure the wheel's slow drift under an angle bias, s."""
+    run_time: Q("time", gt=0) = 600.0
+    """How long the device must run before its wheel drifts to its speed limit, s (a demo's length)."""
 
 
 def _strategy_from_raw(raw: Any, info: ValidationInfo) -> StrategySpec:
@@ -334,12 +377,25 @@ class Scenario(Strict):
         ratio = 1.0 / (self.sensors.rate * self.world.step)
         if ratio < 0.999 or abs(ratio - round(ratio)) > 1e-6 * ratio:
             raise ValueError(f"@sensors.rate: the control period (1/{self.sensors.rate:g} Hz) must be a whole "
-                             f"number of physics steps ({self.world.step:g} s)")
-        if self.trial.pushes and max(p.at for p in self.trial.pushes) > self.trial.duration:
-            raise ValueError("@trial.pushes: a push comes after the end of the trial")
+                             f"number of physics steps ({self.world.step:g} s); "
+                             + step_suggestion(self.sensors.rate, self.world.step))
+        for i, push in enumerate(self.trial.pushes):  # the trial applies a push on step round(at/step)
+            if round(push.at / self.world.step) >= self.n_steps:
+                raise ValueError(f"@trial.pushes[{i}].at: a push at {push.at:g} s is at or after the end of the "
+                                 f"trial ({self.trial.duration:g} s) and would never be applied")
         if self.tolerances is not None:
             from .tolerances import parse_tolerances
             parse_tolerances(self, self.tolerances)  # raises ValueError("@tolerances.<key>: ...")
+        return self
+
+    @model_validator(mode="after")
+    def _wheel_spins(self):
+        # a wheel of point masses on its axis has no spin inertia: the run would divide by zero
+        from .massprops import wheel_props
+        spin = wheel_props(self.wheel.parts, rotor_inertia=self.motor.rotor_inertia).inertia_com[0]
+        if spin <= 0.0 and not self.wheel.inertia_correction:  # a correction is checked below
+            raise ValueError("@wheel.parts: the wheel's spin inertia is 0 kg m^2 (only point masses on its axis); "
+                             "give it a part with a size (a disk or ring), copies off the axis, or motor.rotor_inertia")
         return self
 
     @model_validator(mode="after")
@@ -373,8 +429,9 @@ class Scenario(Strict):
 
 # ----------------------------------------------------------------------------- loading
 
-class _GuardedLoader(yaml.SafeLoader):
-    """PyYAML's safe loader, with a cap on aliases (a small file must not expand into a huge one)."""
+class _GuardedLoader(Yaml12Loader):
+    """PyYAML's safe loader reading numbers as YAML 1.2 does (`sim.yaml12`), with a cap on aliases
+    (a small file must not expand into a huge one)."""
 
     def compose_node(self, parent, index):
         if self.check_event(yaml.AliasEvent):
@@ -406,6 +463,14 @@ def parse_yaml_text(text: str, *, where: str) -> Any:
     try:
         return yaml.load(text, Loader=_GuardedLoader)  # noqa: S506 - a SafeLoader subclass
     except yaml.constructor.ConstructorError as exc:
+        problem = str(getattr(exc, "problem", "") or "")
+        if "unhashable key" in problem:  # a list or mapping used as a key: `? [a, b]` or `{[1]: x}`
+            mark = exc.problem_mark or exc.context_mark
+            at = f"at line {mark.line + 1}, column {mark.column + 1}: " if mark is not None else ""
+            raise ScenarioError(f"{where}: {at}a key must be a plain word or number, found a list or mapping "
+                                "used as a key") from None
+        if "constructor for the tag" not in problem:
+            raise ScenarioError(f"{where}: YAML error {_yaml_where(exc)}") from None
         raise ScenarioError(f"{where}: YAML tags that construct objects are not allowed ({_yaml_where(exc)})") from None
     except yaml.YAMLError as exc:
         raise ScenarioError(f"{where}: YAML syntax error {_yaml_where(exc)}".rstrip()) from None
@@ -432,7 +497,16 @@ def load_scenario(path: str | Path | None = None, *, overrides: tuple[str, ...] 
     data : an already-parsed mapping (then `path` only names it in messages).
     """
     raw, where = load_raw(path, overrides, data=data)
-    return validate_scenario(raw, where=where)
+    return validate_loaded(raw, where=where)
+
+
+def validate_loaded(raw: dict, *, where: str) -> Scenario:
+    """`validate_scenario` plus the checks made once per load, not per perturbed copy: each
+    tolerance's band ends must give valid scenarios (`sim.tolerances.check_band_ends`)."""
+    sc = validate_scenario(raw, where=where)
+    from .tolerances import check_band_ends
+    check_band_ends(raw, sc, where=where, validate=lambda trial: validate_scenario(trial, where=where))
+    return sc
 
 
 def load_raw(path: str | Path | None = None, overrides=(), *, data: dict | None = None) -> tuple[dict, str]:
@@ -449,7 +523,14 @@ def load_raw(path: str | Path | None = None, overrides=(), *, data: dict | None 
     if not isinstance(raw, dict):
         raise ScenarioError(f"{where}: expected a mapping of scenario keys at the top, found {type(raw).__name__}")
     from .overrides import apply_overrides
-    return apply_overrides(raw, tuple(overrides or ()), where=where), where
+    notes: list[str] = []
+    out = apply_overrides(raw, tuple(overrides or ()), where=where, notes=notes)
+    if notes:  # said only when the result is valid: bad input still gets exactly one line
+        validate_loaded(out, where=where)
+        import sys
+        for note in notes:
+            print(note, file=sys.stderr)
+    return out, where
 
 
 def validate_scenario(raw: dict, *, where: str) -> Scenario:
@@ -467,88 +548,3 @@ def validate_scenario(raw: dict, *, where: str) -> Scenario:
 
 def default_scenario_path() -> Path:
     return Path(__file__).parent / "data" / "desk_pendulum.yaml"
-
-
-def describe_validation_error(exc: ValidationError, model: type[BaseModel] | None = None) -> str:
-    """One sentence for the first error: dotted key path, what was expected, what was found."""
-    err = exc.errors(include_url=False)[0]
-    loc = [x for x in err["loc"] if not (isinstance(x, str) and x.startswith("function-"))]
-    msg = err["msg"].removeprefix("Value error, ")
-    if msg.startswith("@"):  # a validator named a sub-key: "@key: message"
-        sub, _, msg = msg[1:].partition(": ")
-        loc = loc + [sub]
-    path = format_path(loc)
-    kind = err["type"]
-    if kind == "extra_forbidden":
-        return f"{path}: unknown key{_suggest(loc, model)}"
-    if kind == "missing":
-        return f"{path}: required key is missing"
-    if kind == "literal_error":
-        return f"{path}: expected {msg.removeprefix('Input should be ')}, found {short_repr(err.get('input'))}"
-    found = short_repr(err.get("input"))
-    if kind in ("greater_than", "greater_than_equal", "less_than", "less_than_equal"):
-        bound = msg.replace('Input should be', 'must be')
-        return f"{path}: {bound} (the bound is in SI units; found {found})"
-    if kind.endswith("_type") or kind.startswith("int_"):
-        return f"{path}: {msg.replace('Input should be', 'expected')}, found {found}"
-    return f"{path}: {msg}"
-
-
-def short_repr(value: Any) -> str:
-    """repr() cut to a few items and characters: a message stays one readable line."""
-    import reprlib
-
-    r = reprlib.Repr()
-    r.maxlevel, r.maxlist, r.maxdict, r.maxstring, r.maxother = 2, 4, 4, 60, 60
-    return r.repr(value)
-
-
-def format_path(loc: list) -> str:
-    out = ""
-    for part in loc:
-        if isinstance(part, int):
-            out += f"[{part}]"
-        elif isinstance(part, str) and part.startswith("["):
-            out += part.split(".")[0] + ("." + ".".join(part.split(".")[1:]) if "." in part else "")
-        else:
-            out += ("." if out else "") + str(part)
-    return out or "<top>"
-
-
-def _suggest(loc: list, model: type[BaseModel] | None) -> str:
-    """' (did you mean ...?)' from the known keys at that level of the model."""
-    known = _known_keys(loc[:-1], model)
-    if not known:
-        return ""
-    close = difflib.get_close_matches(str(loc[-1]), known, n=1, cutoff=0.5)
-    if close:
-        return f" (did you mean '{close[0]}'?)"
-    return f" (known keys: {', '.join(sorted(known))})"
-
-
-def _known_keys(loc: list, model: type[BaseModel] | None) -> list[str]:
-    import typing
-    current: Any = model
-    for part in loc:
-        if isinstance(part, int) or current is None:
-            continue
-        if not (isinstance(current, type) and issubclass(current, BaseModel)):
-            return []
-        field = current.model_fields.get(part)
-        if field is None:
-            return []
-        current = _model_in(field.annotation, typing)
-    if isinstance(current, type) and issubclass(current, BaseModel):
-        return [k for k in current.model_fields if k != "source"]
-    return []
-
-
-def _model_in(annotation: Any, typing) -> Any:
-    """The BaseModel class inside an annotation such as `list[Part]` or `Friction | None`."""
-    if isinstance(annotation, type) and issubclass(annotation, BaseModel):
-        return annotation
-    for arg in typing.get_args(annotation):
-        found = _model_in(arg, typing)
-        if found is not None:
-            return found
-    return None

@@ -3,7 +3,8 @@
 `--vary KEY=LO..HI:N` spaces N values evenly from LO to HI (units allowed: `drive.supply=6V..24V:4`);
 `--vary KEY=a,b,c` lists values. Points are the grid's cross product, numbered in row-major order
 (the first key varies slowest). Each point re-validates the raw scenario with its values set,
-runs the scenario's own trial, judges it against `requirements` and the wheel burst check, and,
+runs the scenario's own trial, judges it against `requirements`, the wheel burst check and the
+long holds of `wheel_runaway_time_s` (`sim.verdicts.runaway_hold`), and,
 with `trials`, adds Monte Carlo trials over the tolerances around that point.
 
 Persistence: every finished point is appended to `sweep.jsonl` (flushed and fsynced), so a
@@ -34,7 +35,8 @@ from .errors import InputError, ScenarioError
 from .outputs import atomic_path, clean_json
 from .overrides import parse_path, set_path
 from .parallel import run_tasks
-from .tolerances import trial_seed, value_at
+from .tolerances import trial_seed, value_at, wilson_interval
+from .yaml12 import load_yaml12
 
 JOURNAL = "sweep.jsonl"
 RESULTS = "results.csv"
@@ -42,7 +44,8 @@ CSV_EVERY_S = 3.0
 MAX_POINTS = 1_000_000
 METRIC_COLUMNS = ("point", "seed", "outcome", "caught_at_s", "settle_time_s", "peak_wheel_speed_rad_s",
                   "wheel_speed_margin", "peak_current_a", "rms_current_a", "winding_temperature_c",
-                  "wheel_burst_safety_factor", "pushes_survived", "pushes", "mc_trials", "pass_fraction",
+                  "wheel_burst_safety_factor", "burst_note", "wheel_runaway_time_s", "pushes_survived", "pushes",
+                  "mc_trials", "pass_fraction", "pass_fraction_low", "pass_fraction_high",
                   "passed", "fail_reasons", "message")
 _RANGE = re.compile(r"^(?P<lo>.+?)\.\.(?P<hi>.+):(?P<n>\d+)$")
 
@@ -81,6 +84,9 @@ def _range_values(m, where: str) -> list:
     except Exception:  # pint raises many kinds for unreadable or mismatched text
         raise InputError(f"{where}: LO and HI must be numbers or quantities of the same kind "
                          f"(e.g. 6V..24V:4), found {m.group('lo')!r} and {m.group('hi')!r}") from None
+    bad = [m.group(g).strip() for g, q in (("lo", lo), ("hi", hi)) if not np.isfinite(float(q.magnitude))]
+    if bad:  # linspace would warn and fill the range with nan
+        raise InputError(f"{where}: LO and HI must be finite, found {' and '.join(repr(b) for b in bad)}")
     mags = np.linspace(float(lo.magnitude), float(hi.magnitude), n)
     if lo.dimensionless and str(lo.units) == "dimensionless":
         return [float(v) for v in mags]
@@ -94,7 +100,7 @@ def _list_values(spec: str, where: str) -> list:
         if not item:
             raise InputError(f"{where}: empty value in the list")
         try:
-            value = yaml.safe_load(item)
+            value = load_yaml12(item)  # as a scenario file reads it (YAML 1.2 numbers)
         except yaml.YAMLError:
             value = item
         out.append(item if value is None or isinstance(value, (dict, list)) else value)
@@ -134,8 +140,8 @@ def point_task(payload: dict) -> dict:
     """Simulate and judge one sweep point (module-level so worker processes can run it)."""
     from .device import Device
     from .scenario import validate_scenario
-    from .stress import wheel_burst_check
-    from .verdicts import judge_trial, monte_carlo_task
+    from .stress import optimistic_summary, wheel_burst_check
+    from .verdicts import bias_ends, judge_trial, monte_carlo_task, runaway_criterion, runaway_hold
     raw = copy.deepcopy(payload["raw"])
     row: dict[str, Any] = {}
     for key, path, value in payload["assign"]:
@@ -152,16 +158,23 @@ def point_task(payload: dict) -> dict:
         si = value_at(sc, path)
         row[key] = si if isinstance(si, (int, float, str)) else str(si)
     row.update(judge_trial(sc, seed=seed))
-    burst = wheel_burst_check(sc, Device.from_scenario(sc))["safety_factor"]
-    row["wheel_burst_safety_factor"] = burst
+    device = Device.from_scenario(sc)
+    burst_check = wheel_burst_check(sc, device)
+    burst = row["wheel_burst_safety_factor"] = burst_check["safety_factor"]
+    row["burst_note"] = optimistic_summary(burst_check)
     reasons = [r for r in row["fail_reasons"].split(";") if r]
     if burst is None or burst < sc.requirements.burst_safety_factor:
         reasons.append("burst safety factor")
+    runaway = runaway_criterion(sc, device, [runaway_hold(sc, bias_rad=b, seed=seed) for b in bias_ends(sc)])
+    row["wheel_runaway_time_s"] = runaway["value"]
+    if not runaway["passed"]:
+        reasons.append("wheel runaway")
     trials = payload["trials"]
     if trials:
         passes = sum(bool(monte_carlo_task({"raw": raw, "where": payload["where"], "tolerances": _tolerances(sc),
                                             "base_seed": seed, "index": j})["passed"]) for j in range(trials))
-        row.update(mc_trials=trials, pass_fraction=passes / trials)
+        low, high = wilson_interval(passes, trials)
+        row.update(mc_trials=trials, pass_fraction=passes / trials, pass_fraction_low=low, pass_fraction_high=high)
         if passes / trials < sc.requirements.pass_fraction:
             reasons.append("Monte Carlo pass fraction")
     row.update(passed=not reasons, fail_reasons=";".join(reasons))

@@ -6,7 +6,10 @@
 `motor.resistance` is taken as the winding resistance at 20 degC, the usual datasheet condition
 (common practice, no source). Temperatures are in degC, thermal resistance in K/W, heat capacity
 in J/K. A single lumped node ignores the faster winding-to-stator step, so short peaks run hotter
-than this says; the steady figure at the RMS current is the one the verdict uses.
+than this says. `check` and `sweep` judge the same figure, `WINDING_BASIS`: the steady temperature at
+the RMS current of the scenario's own trial (both run it) while it balances, from the catch (or the
+start, for a trial that starts balancing) to any fall or the end, as if that ran continuously: the
+one-off swing-up is left out; the trial's pushes stay in, which errs warm.
 """
 
 from __future__ import annotations
@@ -59,12 +62,36 @@ def temperature_history_c(current_a: np.ndarray, step_s: float, *, resistance_20
     return temps
 
 
-def winding_check(motor, rms_current_a: float) -> dict:
+# The one basis `check` and `sweep` judge the winding on: both run the scenario's own trial.
+WINDING_BASIS = ("steady state at the RMS current of the scenario's own trial while balancing (from the catch, "
+                 "or the start, to any fall or the end), as if that ran continuously")
+
+
+def trial_rms_current_a(current_a: np.ndarray, step_s: float, fell_at_s: float | None,
+                        caught_at_s: float | None = None) -> float:
+    """RMS of a trial's winding current (A) from its catch (`caught_at_s`, s; None: the start) to its
+    fall (`fell_at_s`, s; None: the end).
+
+    The rows after a fall are left out so that a run stopped at the fall and one that flails on to
+    its end give the same figure; the swing-up before a catch is a one-off, not continuous duty;
+    non-finite rows (a diverged run) are left out too.
+    """
+    rows = np.asarray(current_a, dtype=float)
+    if fell_at_s is not None:
+        rows = rows[: max(1, int(round(fell_at_s / step_s)))]
+    if caught_at_s is not None:
+        rows = rows[min(int(round(caught_at_s / step_s)), max(len(rows) - 1, 0)):]
+    rows = rows[np.isfinite(rows)]
+    return float(np.sqrt(np.mean(rows**2))) if rows.size else 0.0
+
+
+def winding_check(motor, rms_current_a: float, *, basis: str = WINDING_BASIS) -> dict:
     """The verdict's thermal figures for a scenario's `motor` at a continuous RMS current."""
     th = motor.thermal
     steady = steady_temperature_c(rms_current_a, resistance_20c_ohm=motor.resistance,
                                   thermal_resistance_k_w=th.thermal_resistance, ambient_c=th.ambient)
     return {
+        "basis": basis,
         "rms_current_a": rms_current_a,
         "steady_winding_temperature_c": steady,
         "temperature_rise_k": steady - th.ambient,

@@ -8,7 +8,10 @@ raw scenario mapping and validates that copy again, so a perturbed design is che
 like a hand-written one.
 
 Keys are checked when the scenario loads: the path must name a numeric quantity that has a
-value in the scenario (a part's `mass` only when the part gives one).
+value in the scenario (a part's `mass` only when the part gives one), and the copies with each
+toleranced value at either end of its band (the others nominal) must be valid scenarios, so a
+band that breaks a rule (the loop-rate/step rule, a bound, a default nested strategy the file
+does not write out) is refused at load instead of making every Monte Carlo draw invalid.
 """
 
 from __future__ import annotations
@@ -159,3 +162,70 @@ def perturbed_raw(raw: dict, tolerances: list[Tolerance], rng: np.random.Generat
 def trial_seed(base_seed: int, *index: int) -> int:
     """A seed for one trial derived from the base seed and its indices, independent of run order."""
     return int(np.random.SeedSequence([int(base_seed), *[int(i) for i in index]]).generate_state(1, dtype=np.uint64)[0] >> 1)
+
+
+# Two-sided 95% normal quantile, scipy.stats.norm.ppf(0.975) = 1.959964 (to 7 figures).
+Z_95 = 1.959963984540054
+
+
+def wilson_interval(passed: int, trials: int, *, z: float = Z_95) -> tuple[float, float]:
+    """95% Wilson score interval (low, high) for `passed` successes in `trials` trials.
+
+    (p + z^2/(2n) -+ z sqrt(p(1-p)/n + z^2/(4n^2))) / (1 + z^2/n), p = k/n (Wilson, "Probable
+    inference, the law of succession, and statistical inference", JASA 22 (1927) 209-212). Unlike
+    p +- z sqrt(p(1-p)/n) it stays inside [0, 1] and is not zero-width at 0 or n passes.
+    """
+    if trials <= 0:
+        raise ValueError("trials must be positive")
+    n, p = float(trials), passed / trials
+    centre = p + z * z / (2.0 * n)
+    half = z * math.sqrt(p * (1.0 - p) / n + z * z / (4.0 * n * n))
+    scale = 1.0 + z * z / n
+    return max(0.0, (centre - half) / scale), min(1.0, (centre + half) / scale)
+
+
+def interval_note(passed: int, trials: int, limit: float) -> str:
+    """The pass fraction's interval in words, suggesting more trials when it straddles `limit`."""
+    low, high = wilson_interval(passed, trials)
+    note = f"95% interval {100 * low:.1f}-{100 * high:.1f}% (Wilson)"
+    if low < limit <= high:
+        note += f": straddles the {100 * limit:.0f}% limit, run more trials (e.g. --trials {4 * trials})"
+    return note
+
+
+def check_band_ends(raw: dict, scenario, *, where: str, validate) -> None:
+    """Refuse, at load, tolerances whose band ends make the scenario invalid.
+
+    Validates (with `validate(mapping)`, which raises ScenarioError) a copy of `raw` for each
+    tolerance (the scenario's own, or the defaults that apply) at each end of its band, the other
+    values nominal and `tolerances` removed. Raises ScenarioError naming `tolerances.<key>`.
+    """
+    table = scenario.tolerances
+    for tol in scenario_tolerances(scenario):
+        for u, end in ((-1.0, "low"), (1.0, "high")):
+            value = tol.nominal * (1.0 + u * tol.band) if tol.relative else tol.nominal + u * tol.band
+            trial = copy.deepcopy(raw)
+            trial.pop("tolerances", None)
+            set_path(trial, list(tol.path), float(value), where=f"{where}: tolerances.{tol.key}")
+            try:
+                validate(trial)
+            except ScenarioError as exc:
+                problem = str(exc).removeprefix(f"{where}: ")
+                origin = "" if table is not None else " (a default tolerance: give a `tolerances` section to change it)"
+                raise ScenarioError(f"{where}: tolerances.{tol.key}: at the {end} end of its band ({value:.6g} SI) "
+                                    f"the scenario is invalid{origin}{_unwritten_hint(raw, tol.path)}: {problem}") from None
+
+
+def _unwritten_hint(raw: dict, path) -> str:
+    """A note when a mapping on `path` is a default the file does not write (e.g. a nested strategy)."""
+    if path[0] != "strategy":  # elsewhere a missing mapping is filled in with its defaults
+        return ""
+    node: Any = raw
+    for i, part in enumerate(path[:-1]):
+        nxt = node[part] if isinstance(part, int) and isinstance(node, list) and part < len(node) else \
+            node.get(part) if isinstance(node, dict) else None
+        if nxt is None:
+            shown = ".".join(str(x) for x in path[:i + 1])
+            return f" ({shown} is a default the file does not write out; write it, with its kind, to tolerance its keys)"
+        node = nxt
+    return ""

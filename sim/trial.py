@@ -10,6 +10,7 @@ outcome too.
 
 from __future__ import annotations
 
+import copy
 import math
 import signal
 import threading
@@ -19,9 +20,11 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 
 from . import isolation
+from .causes import find_cause
 from .device import Device
 from .engine import EngineModel, wrap_angle
 from .errors import StrategyError
+from .metrics import saturated_ticks
 from .motor import MotorDrive
 from .sensors import SensorSuite
 from .strategies import plugins_in
@@ -59,6 +62,8 @@ class TrialResult:
     wall_s: float
     strategy: object = None
     events: list = field(default_factory=list)
+    cause: str | None = None            # why a trial that is not balanced/completed ended so (sim.causes)
+    cause_detail: str | None = None     # one sentence with the figures behind `cause`
 
 
 class StrategyTimeout(BaseException):
@@ -275,7 +280,9 @@ def _build_strategy(scenario, device, rng, clock):
     """(strategy, None), or (None, message) when building it fails: an outcome, like failing later."""
     try:
         clock.enter()
-        strategy = scenario.strategy.build(device, rng=rng)
+        # the strategy gets its own copy of the device: what it does to it never reaches the
+        # runner's motor, drive limits or metrics
+        strategy = scenario.strategy.build(copy.deepcopy(device), rng=rng)
         clock.leave()
         return strategy, None
     except (Exception, SystemExit, StrategyTimeout) as exc:
@@ -289,6 +296,9 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
     reading = Reading()
     release = getattr(getattr(strategy, "params", None), "release_angle", math.pi)
     wants_balance = strategy is not None and strategy.goal == "balance"
+    # the supply as the scenario states it: nothing the strategy holds (its `supply_v`, its device)
+    supply = float(scenario.drive.supply)
+    fallen = None  # the trace's phase code "fallen", once a body has fallen
     motor = MotorDrive(device, step_s=dt)
     pushes = _push_schedule(scenario, dt, n)
     next_push, push_torque = pushes.pop() if pushes else (-1, 0.0)
@@ -327,6 +337,8 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
             try:
                 enter(k)
                 volts = command(reading)
+                if not -supply <= volts <= supply:  # the drive's limit, whatever the strategy did
+                    volts = _drive_limit(volts, supply)
                 if strategy.phase != phase:
                     phase = strategy.phase
                     mode = trace.phase_code(str(phase))
@@ -353,6 +365,10 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
                     fall_final = strategy.balancing and not getattr(strategy, "swings_up", False)
                     if stop_early and fall_final:
                         outcome = "fell"  # this step still runs; the loop ends after it
+                if fell_k is not None and catch_k is None and strategy.balancing:
+                    # the law still says "balance", but the body is down: the trace says so
+                    fallen = trace.phase_code("fallen") if fallen is None else fallen
+                    t_mode[k] = fallen
         if open_circuit:
             motor.current, cur, torque = 0.0, 0.0, 0.0
         else:
@@ -388,13 +404,16 @@ def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fel
         trace.voltage[k] = 0.0  # nothing was applied after the failure
     if outcome is None:
         outcome = _final_outcome(wants_balance, strategy, catch_k, fell_k, fall_final)
-    return TrialResult(
+    result = TrialResult(
         outcome=outcome, message=message, trace=trace, device=device, scenario=scenario,
-        caught_at_s=catch_k * dt if (catch_k is not None and outcome == "balanced") else None,
+        # a body balanced from the first step was never caught: it started inside the catch region
+        caught_at_s=catch_k * dt if (catch_k and outcome == "balanced") else None,
         fell_at_s=fell_k * dt if fell_k is not None else None, ended_at_s=ended,
-        control_ticks=ticks, saturated_ticks=getattr(strategy, "saturated_ticks", 0), wall_s=wall,
-        strategy=strategy,
+        control_ticks=ticks, saturated_ticks=saturated_ticks(trace, scenario.control_steps, scenario.drive.supply),
+        wall_s=wall, strategy=strategy,
     )
+    result.cause, result.cause_detail = find_cause(result)
+    return result
 
 
 def _hold_tick_values(trace: Trace, cs: int) -> None:
@@ -420,6 +439,18 @@ def _final_outcome(wants_balance, strategy, catch_k, fell_k, fall_final) -> str:
     if catch_k is not None:
         return "balanced"
     return "fell" if fell_k is not None else "not_caught"
+
+
+def _drive_limit(volts, supply_v: float) -> float:
+    """A command outside +-supply_v clamped to it, V. A command that is no finite number (possible
+    from a strategy that replaces `command`) ends the trial, as the base's own check does."""
+    try:
+        v = float(volts)
+    except (TypeError, ValueError):
+        raise StrategyError(f"the strategy's command was {type(volts).__name__}, not a voltage") from None
+    if not math.isfinite(v):
+        raise StrategyError(f"the strategy's command was a non-finite voltage ({v})")
+    return math.copysign(supply_v, v)
 
 
 def _set_brake(engine, device, on: bool) -> bool:

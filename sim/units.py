@@ -2,6 +2,12 @@
 
 Bare numbers are taken as SI already. Strings such as "80 g", "300 rpm/V" or "20 deg" are
 parsed by pint and converted to the SI unit the key expects. Percentages ("10%") are fractions.
+
+Two readings are this trade's, not pint's defaults:
+- In a temperature difference per watt or per joule ("10 degC/W", "20 J/degC"), degC and degF
+  are differences (1 degC of difference = 1 K), never absolute temperatures.
+- Hz in a speed of rotation ("10 Hz" as a wheel speed, "5 Hz/V" as Kv) is revolutions per
+  second: 10 Hz = 20 pi rad/s, as "600 rpm" is. Elsewhere (a loop rate) Hz is 1/s.
 """
 
 from __future__ import annotations
@@ -57,10 +63,12 @@ def parse_quantity(value: object, kind: str) -> float:
     unit, label = KINDS[kind]
     if isinstance(value, bool) or value is None:
         raise ValueError(f"expected {label}, found {value!r}")
-    if isinstance(value, (int, float)):
-        number = float(value)
+    if isinstance(value, int):
+        number = _int_to_float(value, label)
+    elif isinstance(value, float):
+        number = value
     elif isinstance(value, str):
-        number = _parse_string(value.strip(), unit, label)
+        number = _parse_string(value.strip(), unit, label, kind)
     else:
         raise ValueError(f"expected {label}, found {type(value).__name__} {value!r}")
     if not math.isfinite(number):
@@ -68,10 +76,35 @@ def parse_quantity(value: object, kind: str) -> float:
     return number
 
 
-def _parse_string(text: str, unit: str, label: str) -> float:
+def _int_to_float(value: int, label: str) -> float:
+    """An int as a float; a ValueError (not OverflowError) when it has too many digits for one."""
+    try:
+        return float(value)
+    except OverflowError:
+        raise ValueError(f"expected {label}, found a number too large for a float "
+                         f"(about 10^{value.bit_length() * 0.30103:.0f})") from None
+
+
+# Kinds whose SI unit counts radians of wheel or body rotation: there "Hz" means revolutions/s.
+HERTZ_IS_REVOLUTIONS = {"angular_speed", "speed_constant", "back_emf"}
+# Kinds that hold a temperature difference: degC and degF in them are differences.
+TEMPERATURE_DIFFERENCES = {"temperature_rise_per_watt", "heat_capacity"}
+_OFFSET_UNIT = re.compile(r"(?<![A-Za-z_])(degC|degF|celsius|fahrenheit|degree_Celsius|degree_Fahrenheit)(?![A-Za-z_])")
+
+
+# YAML 1.1 integer and float forms that YAML 1.2 (and so our loader, `sim.yaml12`) reads as strings.
+_YAML11_NUMBER = re.compile(r"[-+]?(?:0b[01_]+|0x[0-9a-fA-F_]*_[0-9a-fA-F_]*|[0-9][0-9_]*(?::[0-5]?[0-9])+(?:\.[0-9_]*)?"
+                            r"|[0-9]*_[0-9_]*(?:\.[0-9_]*)?(?:[eE][-+]?[0-9]+)?|[0-9_]*\.[0-9]*_[0-9_]*)")
+
+
+def _parse_string(text: str, unit: str, label: str, kind: str = "") -> float:
     if len(text) > 100:
-        raise ValueError(f"expected {label}, found a string of {len(text)} characters")
-    try:  # YAML 1.1 reads "2e-6" (no dot) as a string: a bare number is still SI
+        what = "digits" if text.lstrip("+-").isdigit() else "characters"
+        raise ValueError(f"expected {label}, found {len(text)} {what}")
+    if _YAML11_NUMBER.fullmatch(text):
+        raise ValueError(f"expected {label}, found {text!r}, a YAML 1.1 number form (base 60, binary or with "
+                         "underscores) that is not read as a number here; write the number in plain decimal")
+    try:  # a bare number in a string ("2e-6") is still SI; Python's float() also takes "1_2": refused above
         return float(text)
     except ValueError:
         pass
@@ -83,9 +116,11 @@ def _parse_string(text: str, unit: str, label: str) -> float:
         if unit:
             raise ValueError(f"expected {label} in {unit}, found a percentage {text!r}")
         return number
-    simple = _simple_quantity(text, unit)
+    simple = _simple_quantity(text, unit, kind)
     if simple is not None:
         return simple
+    if kind in TEMPERATURE_DIFFERENCES:
+        text = _OFFSET_UNIT.sub(lambda m: "delta_" + m.group(1), text)
     if not powers_are_small(text):
         raise ValueError(f"expected {label}, found {text!r} (powers must be plain numbers up to "
                          f"{MAX_POWER}, at most {MAX_POWERS} of them)")
@@ -95,7 +130,7 @@ def _parse_string(text: str, unit: str, label: str) -> float:
     try:
         q = reg.Quantity(text)
         if unit:
-            return float(q.to(unit).magnitude)
+            return float(q.to(unit).magnitude) * _hertz_factor(q, kind)
         return float(q.to("dimensionless").magnitude)
     except pint.DimensionalityError:
         expect = f"{label} in {unit}" if unit else label
@@ -131,13 +166,43 @@ SIMPLE_UNITS: dict[str, tuple[str, float]] = {
 _SIMPLE = re.compile(r"([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(\S+)")
 
 
-def _simple_quantity(text: str, unit: str) -> float | None:
+# Units read differently by kind (see the module docstring): unit as written -> factor to SI.
+KIND_UNITS: dict[str, dict[str, float]] = {
+    "angular_speed": {"Hz": 2.0 * _PI, "kHz": 2.0 * _PI * 1e3, "rev/s": 2.0 * _PI},
+    "speed_constant": {"Hz/V": 2.0 * _PI},
+    "temperature_rise_per_watt": {"degC/W": 1.0, "degC/mW": 1e3},
+    "heat_capacity": {"J/degC": 1.0, "kJ/degC": 1e3},
+}
+
+
+def _simple_quantity(text: str, unit: str, kind: str = "") -> float | None:
     """`text` in `unit` when it is a plain number and a unit of SIMPLE_UNITS of that kind, else None."""
     m = _SIMPLE.fullmatch(text)
-    entry = SIMPLE_UNITS.get(m.group(2)) if m else None
+    if m is None:
+        return None
+    factor = KIND_UNITS.get(kind, {}).get(m.group(2))
+    if factor is not None:
+        return float(m.group(1)) * factor
+    entry = SIMPLE_UNITS.get(m.group(2))
     if entry is None or entry[0] != unit:
         return None
     return float(m.group(1)) * entry[1]
+
+
+def _hertz_factor(q, kind: str) -> float:
+    """(2 pi)^p for Hz^p (any prefix) in `q`'s units when `kind` counts rotation, else 1.
+
+    pint takes the radian as dimensionless, so "10 Hz" would become 10 rad/s; a speed in Hz is
+    revolutions per second in this trade (common practice, no source). A unit that already
+    names an angle ("rad*Hz") is left as pint reads it.
+    """
+    if kind not in HERTZ_IS_REVOLUTIONS:
+        return 1.0
+    units = dict(q._units)
+    if any(a in name for name in units for a in ("radian", "degree", "revolution", "turn", "rpm")):
+        return 1.0
+    power = sum(exp for name, exp in units.items() if name.endswith("hertz"))
+    return (2.0 * _PI) ** power
 
 
 MAX_POWER = 6      # m^3, s^-2 need little; pint evaluates 10**10**10 exactly and never returns

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import csv
+import io
 import math
 from pathlib import Path
 
@@ -16,7 +18,7 @@ PASS_COLOUR, FAIL_COLOUR = "#2f7d4a", LIMIT
 def format_value(name: str, value) -> str:
     """A criterion's value for people: units from the key's suffix, fractions as percentages."""
     if value is None:
-        return "unknown"
+        return "none (settles)" if name == "wheel_runaway_time_s" else "unknown"
     if isinstance(value, float) and not math.isfinite(value):
         return "inf"
     if name.endswith(("_margin", "_headroom", "_fraction")):
@@ -36,9 +38,28 @@ def write_check_outputs(outcome: CheckOutcome, out_dir: Path) -> list[str]:
         written.append(f"{name}.png")
     save_figure(push_figure(outcome.pushes), out_dir / "pushes.png")
     written.append("pushes.png")
+    keys = list(outcome.verdict["monte_carlo"]["tolerances"])
+    write_text(out_dir / "monte_carlo.csv", monte_carlo_csv(outcome.mc_rows, keys))
     write_text(out_dir / "report.md", report_markdown(outcome.verdict, written))
     write_json(out_dir / "verdict.json", outcome.verdict)
-    return written + ["report.md", "verdict.json"]
+    return written + ["monte_carlo.csv", "report.md", "verdict.json"]
+
+
+MC_COLUMNS = ("outcome", "passed", "failed_criteria", "message")
+
+
+def monte_carlo_csv(rows: list[dict], keys: list[str]) -> str:
+    """monte_carlo.csv: one row per trial, its seed, every drawn value (SI, named by its `tolerances`
+    key), the outcome, whether it passed and the criteria it failed (`;`-separated)."""
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(["trial", "seed", *keys, *MC_COLUMNS])
+    for i, r in enumerate(rows):
+        drawn = r.get("drawn") or {}
+        writer.writerow([i, r.get("seed", ""), *[repr(drawn[k]) if k in drawn else "" for k in keys],
+                         r.get("outcome", ""), bool(r.get("passed")), r.get("fail_reasons") or "",
+                         " ".join(str(r.get("message") or "").split())])
+    return buf.getvalue()
 
 
 def push_figure(pushes: dict):
@@ -72,6 +93,9 @@ def report_markdown(v: dict, images: list[str]) -> str:
     for c in v["criteria"]:
         lines.append(f"| {c['name']} | {format_value(c['name'], c['value'])} | {format_value(c['name'], c['limit'])} "
                      f"| {'pass' if c['passed'] else 'FAIL'} | {c['note']} |")
+    why = runaway_sentence(v)
+    if why:
+        lines += ["", why]
     b = v["burst"]
     lines += ["", "## Wheel burst check", "",
               f"Runaway speed (no-load speed at full supply): {b['runaway_speed_rad_s']:.1f} rad/s "
@@ -82,21 +106,64 @@ def report_markdown(v: dict, images: list[str]) -> str:
         strength = "unknown" if p["strength_pa"] is None else f"{p['strength_pa'] / 1e6:.3g} MPa ({p['strength_basis']})"
         sf = "-" if p["safety_factor"] is None else f"{p['safety_factor']:.3g}"
         lines.append(f"| {p['part']} | {p['material'] or '-'} | {stress} | {strength} | {sf} | {p['note']} |")
+    th = v["thermal"]
+    lines += ["", "## Winding temperature", "",
+              f"{format_value('_c', th['steady_winding_temperature_c'])} at {th['rms_current_a']:.3g} A RMS: "
+              f"{th['basis']} (the figure `sweep` reports too). Holding upright only: "
+              f"{format_value('_c', th.get('hold_steady_winding_temperature_c'))}; peaks over the battery's runs "
+              "from ambient: " + ", ".join(f"{k} {format_value('_c', t)}" for k, t in th["peak_over_runs_c"].items())
+              + "."]
     mc = v["monte_carlo"]
     lines += ["", "## Monte Carlo", "",
-              f"{mc['passed_trials']} of {mc['trials']} trials passed; tolerances drawn uniformly within their band: "
+              f"{mc['passed_trials']} of {mc['trials']} trials passed"
+              + (f" (95% Wilson score interval {100 * mc['pass_fraction_low']:.1f}-"
+                 f"{100 * mc['pass_fraction_high']:.1f}%)" if mc.get("pass_fraction_low") is not None else "")
+              + "; each trial's draws, outcome and failed criteria are in monte_carlo.csv. "
+              "Tolerances drawn uniformly within their band: "
               + ", ".join(f"`{k}` {t}" for k, t in mc["tolerances"].items()) + ".",
               ("Failures: " + ", ".join(f"{k} x{n}" for k, n in mc["failures"].items()) + ".") if mc["failures"] else "",
               "", "## Largest push", "",
               f"{v['max_push_survived_n_m_s'] * 1e3:.3g} mN m s in the worse ({v['max_push_direction']}) direction; "
               + "; ".join(f"{d}: {p['max_survived_n_m_s'] * 1e3:.3g} mN m s" for d, p in v["pushes"].items())
               + ". Bisection to 5%, from upright at rest, push after 0.5 s, 3 s to recover.", ""]
+    lines += run_causes_markdown(v)
     lines += ["## Plots", ""] + [f"![{Path(img).stem}]({img})" for img in images] + [""]
     lines += ["## Safety", ""] + [f"- {s}" for s in SAFETY_NOTES] + [""]
     return "\n".join(lines)
 
 
 NARROW_TERMINAL = 110   # columns below which the notes are printed under the table
+
+
+def runaway_sentence(v: dict) -> str:
+    """One sentence on why the wheel runs away, when `wheel_runaway_time_s` failed ("" otherwise)."""
+    crit = next((c for c in v["criteria"] if c["name"] == "wheel_runaway_time_s"), None)
+    holds = v.get("runaway_holds") or []
+    if crit is None or crit["passed"] or not holds:
+        return ""
+    h = max(holds, key=lambda x: abs(x["bias_rad"]))
+    bias = f"{math.degrees(h['bias_rad']):+.2f} deg"
+    if h["predicted"] == "ramp":
+        return (f"Why the wheel runs away: with the angle sensor off by {bias} the law holds the *measured* angle "
+                "at zero, so the body leans off balance and gravity's steady torque can only be answered by a wheel "
+                "that keeps accelerating until it reaches its no-load speed, the torque runs out and the body falls "
+                "(add wheel-speed feedback, e.g. LQR or an outer wheel-speed loop).")
+    return (f"Why the wheel runs away: with the angle sensor off by {bias} the body must be held off its measured "
+            "upright by a steady torque from the wheel, and this law lets the wheel speed keep growing instead of "
+            "settling at an offset, until the wheel reaches its no-load speed and the torque runs out.")
+
+
+def failed_runs(v: dict) -> list[tuple[str, dict]]:
+    """The battery's runs that ended other than balanced or completed, as (name, run)."""
+    return [(name, r) for name, r in v.get("runs", {}).items() if r["outcome"] not in ("balanced", "completed")]
+
+
+def run_causes_markdown(v: dict) -> list[str]:
+    """report.md's section on the battery's runs: outcome and, for each failed run, its cause."""
+    lines = ["## Runs", "", "| run | outcome | cause | why |", "|---|---|---|---|"]
+    for name, r in v.get("runs", {}).items():
+        lines.append(f"| {name} | {r['outcome']} | {r.get('cause') or '-'} | {r.get('cause_detail') or '-'} |")
+    return lines + [""]
 
 
 def print_verdict(v: dict, out: Path) -> None:
@@ -123,6 +190,9 @@ def print_verdict(v: dict, out: Path) -> None:
         for c in v["criteria"]:
             if c["note"]:
                 console.print(f"{c['name']}: {c['note']}", overflow="fold")
-    console.print(f"wrote {out}/verdict.json, report.md and plots")
+    for name, r in failed_runs(v):
+        console.print(f"{name} run: {r['outcome']}, cause {r.get('cause') or '-'}: {r.get('cause_detail') or '-'}",
+                      markup=False, highlight=False)
+    console.print(f"wrote {out}/verdict.json, report.md, monte_carlo.csv and plots")
     for s in SAFETY_NOTES:
         console.print(f"[dim]Safety: {s}[/dim]")

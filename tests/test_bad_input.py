@@ -142,6 +142,30 @@ KEY_CASES = {
     "too_many_parts": ({"body": {"parts": [{"shape": "point", "mass": 0.001, "at": 0.1} for _ in range(201)]}},
                        ["body.parts"]),
     "long_unit_string": ({"drive": {"supply": "1" * 300 + " V"}}, ["drive.supply", "characters"]),
+    # issue 13 part 4: what would crash a run is refused at load (bounds: sim/scenario.py docstring)
+    "huge_wheel_distance": ({"wheel": {"at": 1e300}}, ["wheel.at", "less than or equal to 100"]),
+    "huge_rate_noise": ({"sensors": {"rate_gyro": {"noise": 1e308}}}, ["sensors.rate_gyro.noise", "less than or equal"]),
+    "huge_start_speed": ({"trial": {"start": {"wheel_speed": 1e300}}}, ["trial.start.wheel_speed", "less than"]),
+    "huge_friction": ({"body": {"pivot_friction": {"coulomb": 1e300}}}, ["body.pivot_friction.coulomb"]),
+    "tiny_resistance": ({"motor": {"resistance": 1e-300}}, ["motor.resistance", "greater than or equal"]),
+    "push_after_last_step": ({"trial": {"pushes": [{"at": 0.4996, "impulse": 0.01}]}},
+                             ["trial.pushes[0].at", "at or after the end"]),
+    "tolerance_breaks_rate_rule": ({"tolerances": {"sensors.rate": "10%"}},
+                                   ["tolerances.sensors.rate", "low end of its band", "whole number"]),
+    "tolerance_breaks_step_rule": ({"tolerances": {"world.step": "1%"}}, ["tolerances.world.step", "whole number"]),
+    "tolerance_on_default_nested_strategy": (
+        {"strategy": {"kind": "swing_and_catch"}, "tolerances": {"strategy.swing_up.energy_target": 0.01}},
+        ["tolerances.strategy.swing_up.energy_target", "strategy.swing_up is a default"]),
+    "default_tolerance_past_a_bound": ({"drive": {"supply": 1000}},
+                                       ["tolerances.drive.supply", "high end", "a default tolerance"]),
+    # issue 14 item 9: the refusal says what would work (1 ms does not divide 2.5 ms; 0.625 ms does)
+    "rate_step_suggestion": ({"sensors": {"rate": "400 Hz"}}, ["sensors.rate", "0.625 ms", "500 Hz"]),
+    # issue 14 item 10 and issue 13 part 9: every problem, unknown keys first; the inline material's field
+    "every_problem_listed": ({"motor": {"resistence": 2.0, "mass": -1.0}},
+                             ["motor.resistence: unknown key (did you mean 'resistance'?); ", "motor.mass"]),
+    "inline_material_field": ({"body": {"parts": [{"shape": "rod", "length": 0.2, "radius": 0.005,
+                                                   "material": {"density": 2700, "tensile_strenght": 3e8}}]}},
+                              ["body.parts[0].material.tensile_strenght", "did you mean 'tensile_strength'"]),
 }
 
 
@@ -191,6 +215,10 @@ SET_CASES = {
     "unknown_key": ("drive.suply=3", ["drive.suply", "did you mean 'supply'"]),
     "wrong_unit": ("drive.supply=3 m", ["drive.supply", "voltage"]),
     "self_alias": ("drive.supply=&a [*a]", ["drive.supply"]),
+    # issue 13 part 3: a huge integer and YAML 1.1 forms in --set, read as in a file
+    "huge_integer": ("drive.supply=" + "9" * 5000, ["drive.supply", "5000 digits"]),
+    "base60": ("drive.supply=1:30", ["drive.supply", "YAML 1.1 number form"]),
+    "binary": ("drive.supply=0b1100", ["drive.supply", "YAML 1.1 number form"]),
 }
 
 
@@ -201,6 +229,17 @@ def test_bad_set(capsys, tmp_path, scenario_file, command, case):
     argv = COMMANDS[command](scenario_file, out) + ["--set", text]
     code, _, err = run_cli(capsys, argv)
     assert_rejected(code, err, names=[str(scenario_file), *fragments], out=out)
+
+
+def test_kind_change_then_a_bad_key_is_still_one_line(capsys, tmp_path):
+    """issue 14 item 6: the note about dropped parameters is said only when the result loads."""
+    path = write_scenario(tmp_path / "pid.yaml", scenario_dict(strategy={"kind": "pid", "kp": 30.0}))
+    out = tmp_path / "out"
+    code, _, err = run_cli(capsys, ["run", str(path), "--out", str(out),
+                                    "--set", "strategy.kind=lqr", "--set", "strategy.kp=3"])
+    assert_rejected(code, err, names=[str(path), "strategy.kp: unknown key"], out=out)
+    code, _, err = run_cli(capsys, ["validate", str(path), "--set", "strategy.kind=lqr"])
+    assert code == 0 and err.count("\n") == 1 and err.startswith("note: --set strategy.kind=lqr: the pid parameters kp")
 
 
 @pytest.mark.parametrize("seed", ["-1", str(2**64)])
@@ -291,6 +330,7 @@ OPTION_CASES = {
     "vary_too_many_points": ("sweep", ["--vary", "drive.supply=1..2:999999"], ["N must be from 1"]),
     "vary_mixed_units": ("sweep", ["--vary", "drive.supply=1 V..2 kg:3"], ["same kind"]),
     "vary_power_bomb": ("sweep", ["--vary", "drive.supply=10**10**10..1:2"], ["LO and HI"]),
+    "vary_infinite": ("sweep", ["--vary", "drive.supply=inf..12:2"], ["--vary", "must be finite", "'inf'"]),
     "vary_unknown_key": ("sweep", ["--vary", "drive.suply=1,2"], ["drive.suply", "unknown key"]),
     "vary_bad_path": ("sweep", ["--vary", "drive..supply=1,2"], ["malformed key path"]),
     "vary_empty_item": ("sweep", ["--vary", "drive.supply=1,,2"], ["empty value"]),

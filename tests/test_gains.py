@@ -143,7 +143,8 @@ def test_c_reference_function_gives_the_python_laws_voltages(tmp_path, capsys, s
     got, want = [], []
     for i, (a, r, w) in enumerate(_readings(1500, seed=3)):
         reading.t_s, reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = i * 0.002, a, r, w
-        want.append(law.command(reading))
+        # what the drive applies: the law's command clamped to the supply (sim/trial.py)
+        want.append(min(max(law.command(reading), -sc.drive.supply), sc.drive.supply))
         got.append(lib.ref_volts(a, r, w))
     want = np.array(want)
     assert np.ptp(want) > 1.0 and np.any(np.abs(want) >= sc.drive.supply)   # the clamp is exercised too
@@ -170,3 +171,18 @@ def test_pid_gains_report_the_defaults_in_use_with_units_and_meaning(tmp_path, c
     assert_allclose(sv["kp_just_holds_gravity_v_per_rad"] * dev.k_t_n_m_a / dev.resistance_ohm,
                     dev.mbar_kg_m * dev.gravity_m_s2, rtol=1e-12)
     assert rep["gains"]["kp"]["value"] > sv["kp_just_holds_gravity_v_per_rad"]
+
+
+@pytest.mark.parametrize("sections", [
+    # no gravity, no friction: the wheel cannot change the total angular momentum, so the state is
+    # not stabilisable and no Riccati solution exists (common practice, no source)
+    {"world": {"gravity": 0}, "strategy": {"kind": "lqr"}},
+    {"strategy": {"kind": "lqr", "weights": [1e300, 1e300, 1e300]}},
+    {"strategy": {"kind": "lqr", "weights": [1e200, 1.0, 1.0], "effort": 1e-200}},
+])
+def test_no_lqr_design_is_one_line_not_a_traceback(tmp_path, capsys, sections):
+    path = write_scenario(tmp_path / "s.yaml", scenario_dict(**sections))
+    code, out, err = _gains(capsys, str(path))
+    assert code == 2 and out == ""
+    assert err.count("\n") == 1 and err.startswith(f"wheelbench: {path}: strategy: no LQR design"), err
+    assert "Traceback" not in err

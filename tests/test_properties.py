@@ -186,3 +186,95 @@ def test_fast_unit_path_agrees_with_pint(unit, number):
     expected = float(registry().Quantity(text).to(si).magnitude)
     kind = next(k for k, (u, _) in KINDS.items() if u == si)
     assert_allclose(parse_quantity(text, kind), expected, rtol=1e-15, atol=0)
+
+
+# ----------------------------------------------------------------------------- issue 13 parts 3 and 4
+
+# The YAML 1.2.2 core schema (yaml.org/spec/1.2.2, section 10.3.2): the reference reading of a
+# plain scalar. Anything that is not one of these is a string.
+_YAML12_INT10 = r"[-+]?[0-9]+"
+_YAML12_FLOAT = r"[-+]?(\.[0-9]+|[0-9]+(\.[0-9]*)?)([eE][-+]?[0-9]+)?"
+
+
+def _yaml12_reference(text: str):
+    import re
+    if re.fullmatch(_YAML12_INT10, text):
+        return int(text, 10)
+    if re.fullmatch(r"0o[0-7]+", text):
+        return int(text[2:], 8)
+    if re.fullmatch(r"0x[0-9a-fA-F]+", text):
+        return int(text[2:], 16)
+    if re.fullmatch(_YAML12_FLOAT, text):
+        return float(text)
+    return None  # a string: the supply's unit parser must refuse it or read it as a quantity
+
+
+number_like = st.text(alphabet="0123456789_:.+-eEbxo", min_size=1, max_size=12)
+
+
+@SETTINGS
+@given(text=number_like)
+def test_supply_numbers_are_read_as_yaml_1_2_or_refused(text):
+    """A number-like supply in a file loads to its YAML 1.2 value, or is refused with the key
+    named; never YAML 1.1's octal, base-60 or underscore reading (issue 13, part 3)."""
+    base = yaml_text_of(BASE)
+    try:
+        raw = parse_yaml_text(base.replace("supply: 12.0", f"supply: {text}"), where="<property>")
+    except ScenarioError:
+        return
+    expected = _yaml12_reference(text)
+    try:
+        sc = validate_scenario(raw, where="<property>")
+    except ScenarioError as exc:
+        assert "\n" not in str(exc)
+        if expected is not None and 0 < expected <= 1000:
+            raise AssertionError(f"{text!r} is {expected} V in YAML 1.2, yet refused: {exc}")
+        return
+    assert expected is not None, f"{text!r} is a string in YAML 1.2, yet loaded as {sc.drive.supply} V"
+    assert sc.drive.supply == float(expected)
+
+
+def yaml_text_of(mapping: dict) -> str:
+    import yaml
+    return yaml.safe_dump(mapping, sort_keys=False)
+
+
+@SETTINGS
+@given(digits=st.integers(1, 6000))
+def test_integers_of_any_length_load_or_give_one_line(digits):
+    text = "9" * digits
+    for raw in (parse_yaml_text(yaml_text_of(BASE).replace("supply: 12.0", f"supply: {text}"), where="<property>"),
+                apply_overrides(BASE, [f"drive.supply={text}"], where="<property>"),
+                apply_overrides(BASE, [f"trial.seed={text}"], where="<property>")):
+        _loads_or_scenario_error(raw)
+
+
+SIZE_PATHS = [("wheel", "at"), ("body", "parts", 0, "length"), ("body", "parts", 0, "mass"), ("body", "parts", 1, "at"),
+              ("wheel", "parts", 0, "radius"), ("wheel", "parts", 0, "thickness"), ("motor", "rotor_inertia"),
+              ("motor", "resistance"), ("sensors", "angle", "noise"), ("sensors", "wheel", "noise"),
+              ("trial", "start", "wheel_speed"), ("wheel", "inertia_correction")]
+
+
+@settings(max_examples=80, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(path=st.sampled_from(SIZE_PATHS),
+       value=st.one_of(st.floats(allow_nan=False, allow_infinity=False),
+                       st.sampled_from([1e300, -1e300, 1e308, 1e-300, 5e-324, 0.0])))
+def test_any_finite_size_is_refused_or_gives_a_physical_device(path, value):
+    """Bounds at load (issue 13, part 4): a value either is refused with its key, or the device
+    built from it has finite, positive masses and inertias (no overflow, no zero spin inertia)."""
+    from sim.device import Device
+    raw = copy.deepcopy(BASE)
+    raw.setdefault("sensors", {}).setdefault("angle", {})
+    raw["sensors"].setdefault("wheel", {})
+    node = raw
+    for key in path[:-1]:
+        node = node[key]
+    node[path[-1]] = value
+    try:
+        sc = validate_scenario(raw, where="<property>")
+    except ScenarioError as exc:
+        assert "\n" not in str(exc) and ".".join(str(p) for p in path if isinstance(p, str))[:5] in str(exc)
+        return
+    dev = Device.from_scenario(sc)
+    for v in (dev.J_kg_m2, dev.I_w_kg_m2):
+        assert math.isfinite(v) and v > 0, (path, value, v)

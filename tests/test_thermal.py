@@ -58,3 +58,57 @@ def test_scenario_thermal_section_and_defaults():
     np.testing.assert_allclose(check["steady_winding_temperature_c"],
                                steady_temperature_c(1.0, resistance_20c_ohm=sc.motor.resistance,
                                                     thermal_resistance_k_w=6.0, ambient_c=40.0), rtol=1e-12)
+
+
+def test_check_and_sweep_judge_the_winding_on_the_same_basis():
+    # Issue 12: check and sweep gave 26.1 vs 30.0 degC for one design (check used the hold's RMS
+    # current, sweep the scenario's own trial). Both now use WINDING_BASIS. A design whose own trial
+    # (a 3 degree start and a push) draws far more current than holding still tells the bases apart.
+    from test_verdicts import fast_raw
+    from sim.scenario import validate_scenario
+    from sim.sweep import point_task
+    from sim.thermal import WINDING_BASIS
+    from sim.verdicts import judge_trial, run_check
+    raw = fast_raw(trial={"duration": "1.5 s", "start": {"angle": "3 deg"}, "seed": 3,
+                          "pushes": [{"at": "0.5 s", "impulse": "8 mN*m*s"}]})
+    thermal = run_check(raw, "t.yaml", trials=1, workers=1).verdict["thermal"]
+    sweep_row = point_task({"raw": raw, "where": "t.yaml", "index": 0, "trials": 0, "assign": []})
+    assert thermal["basis"] == WINDING_BASIS
+    # the old basis (hold only) is well apart here, so agreement below is not by chance
+    assert abs(thermal["hold_steady_winding_temperature_c"] - sweep_row["winding_temperature_c"]) > 5.0
+    # same trial, same seed: the very same figure (exact, one code path)
+    sc = validate_scenario(raw, where="t.yaml")
+    np.testing.assert_allclose(judge_trial(sc, seed=sc.trial.seed)["winding_temperature_c"],
+                               thermal["steady_winding_temperature_c"], rtol=1e-12)
+    # a sweep point draws its own sensor-noise seed (point index): the same figure within 0.5 K of noise
+    np.testing.assert_allclose(sweep_row["winding_temperature_c"], thermal["steady_winding_temperature_c"], atol=0.5)
+
+
+def test_winding_basis_is_the_same_for_a_run_stopped_at_its_fall_and_one_that_flails_on():
+    # sweep stops a trial at the fall, check's nominal run goes on to its end: the basis cuts both at
+    # fell_at_s, so a falling design gets one figure. A 60 mN m s push knocks the test pendulum over.
+    from test_verdicts import fast_raw
+    from sim.scenario import validate_scenario
+    from sim.thermal import trial_rms_current_a
+    from sim.trial import run_trial
+    sc = validate_scenario(fast_raw(trial={"duration": "1.5 s", "start": {"angle": "3 deg"}, "seed": 3,
+                                           "pushes": [{"at": "0.5 s", "impulse": "60 mN*m*s"}]}), where="t.yaml")
+    stopped, full = run_trial(sc, stop_early=True), run_trial(sc, stop_early=False)
+    assert stopped.outcome == full.outcome == "fell" and full.trace.n > stopped.trace.n
+    a = trial_rms_current_a(stopped.trace.view("current"), sc.world.step, stopped.fell_at_s)
+    b = trial_rms_current_a(full.trace.view("current"), sc.world.step, full.fell_at_s)
+    np.testing.assert_allclose(a, b, rtol=1e-12)
+    # the RMS is the plain root-mean-square of the rows before the fall (definition)
+    k = int(round(full.fell_at_s / sc.world.step))
+    np.testing.assert_allclose(b, np.sqrt(np.mean(full.trace.view("current")[:k] ** 2)), rtol=1e-12)
+
+
+def test_winding_basis_leaves_out_the_swing_up_before_the_catch():
+    # the RMS is taken from the catch: rows before it (a one-off swing-up) do not count (definition
+    # of the basis; RMS = sqrt(mean(i^2)) over the rows kept)
+    from sim.thermal import trial_rms_current_a
+    current = np.concatenate([np.full(2000, 4.0), np.full(3000, 0.5)])
+    np.testing.assert_allclose(trial_rms_current_a(current, 0.001, None, 2.0), 0.5, rtol=1e-12)
+    np.testing.assert_allclose(trial_rms_current_a(current, 0.001, 4.0, 2.0), 0.5, rtol=1e-12)
+    np.testing.assert_allclose(trial_rms_current_a(current, 0.001, None, None),
+                               np.sqrt((2000 * 16 + 3000 * 0.25) / 5000), rtol=1e-12)

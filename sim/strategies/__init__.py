@@ -93,8 +93,8 @@ def resolve_spec(raw: Any, *, base_dir: Path) -> StrategySpec:
     try:
         params = cls.Params.model_validate(raw, context={"base_dir": base_dir})
     except ValidationError as exc:
-        from ..scenario import describe_validation_error
-        raise ValueError("@" + describe_validation_error(exc, cls.Params)) from None
+        from ..scenario import describe_problems
+        raise ValueError("; ".join("@" + piece for piece in describe_problems(exc, cls.Params))) from None
     return StrategySpec(kind=name, cls=cls, params=params)
 
 

@@ -40,8 +40,9 @@ class Strategy:
     """Base class of every strategy. The contract:
 
     1. Construction. The runner builds one instance per trial as
-       ``Cls(device=..., params=..., rng=...)``: `device` is the `sim.device.Device` (lumped SI
-       parameters, including `supply_v`, `control_rate_hz` and `delay_s`); `params` is an
+       ``Cls(device=..., params=..., rng=...)``: `device` is the strategy's own copy of the
+       `sim.device.Device` (lumped SI parameters, including `supply_v`, `control_rate_hz` and
+       `delay_s`; changing it changes nothing the runner simulates); `params` is an
        instance of the class's `Params` (a `StrategyParams` subclass), already validated when
        the scenario loaded; `rng` is the trial's seeded numpy Generator, the only randomness
        a strategy may use. Designs (gains, predictors) are computed in `__init__`.
@@ -50,9 +51,11 @@ class Strategy:
        called once per control tick, in time order; the runner holds the result until the
        next tick (zero-order hold). It sees only the `Reading` (measured angle, body rate,
        wheel speed and time), never the true state or the engine.
-    3. Limits. The base clamps the voltage to +-supply and counts the ticks where it had to;
-       a non-finite voltage ends the trial with outcome `strategy_failed`, as does any
-       exception raised by `decide`.
+    3. Limits. The runner's drive clamps the voltage to +-supply, the supply the scenario
+       states (`drive.supply`): `self.supply_v` is a copy for the law to read, and changing it,
+       the device or `command` itself never gets more than the supply applied. A tick whose
+       voltage reaches the supply counts in `voltage_saturated_fraction`. A non-finite voltage
+       ends the trial with outcome `strategy_failed`, as does any exception raised by `decide`.
     4. Phase. `self.phase` names what the law is doing now, in a few words ("balance",
        "swing up", ...); the trace's `mode` column reports it.
     5. Goal. `goal = "balance"` for strategies that aim to hold the body upright (the runner
@@ -85,13 +88,13 @@ class Strategy:
         self.brake = False
         self.open_circuit = False
         self.supply_v = device.supply_v
-        self.saturated_ticks = 0
 
     def decide(self, reading: Reading) -> float:  # pragma: no cover - the contract
         raise NotImplementedError
 
     def command(self, reading: Reading) -> float:
-        """The base's part of each tick: call `decide`, check and clamp. Returns volts."""
+        """The base's part of each tick: call `decide` and check its answer. Returns volts (the
+        runner's drive clamps them to the supply)."""
         v = self.decide(reading)
         try:
             v = float(v)
@@ -99,12 +102,6 @@ class Strategy:
             raise StrategyError(f"decide() returned {type(v).__name__}, not a voltage") from None
         if not math.isfinite(v):
             raise StrategyError(f"decide() returned a non-finite voltage ({v})")
-        if v > self.supply_v:
-            self.saturated_ticks += 1
-            return self.supply_v
-        if v < -self.supply_v:
-            self.saturated_ticks += 1
-            return -self.supply_v
         return v
 
 
