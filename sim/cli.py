@@ -232,19 +232,22 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
           out: Path = typer.Option(Path("runs/sweep"), "--out", help="Output folder (re-run to resume)."),
           trials: int = typer.Option(0, "--trials", help="Monte Carlo trials per point (0: the nominal design only)."),
           workers: Optional[int] = WorkersOpt, cluster: Optional[str] = ClusterOpt,
-          set_: Optional[List[str]] = SetOpt, force: bool = ForceOpt):
+          set_: Optional[List[str]] = SetOpt, force: bool = ForceOpt,
+          color: Optional[str] = typer.Option(None, "--color", help="Metric the heat map shows (a numeric "
+                                                                     "results.csv column, e.g. wheel_runaway_time_s).")):
     """Run a design grid; write results.csv and a line plot (one key) or heat map (two keys)."""
     from .outputs import prepare_out_dir
     from .plots import save_figure
-    from .sweep import parse_vary, run_sweep, sweep_figure
+    from .sweep import check_color, parse_vary, run_sweep, sweep_figure
+    check_color(color)
     raw, where = _load_raw(scenario, set_, workers, cluster)
     varies = [parse_vary(v) for v in vary]
     out_dir = prepare_out_dir(out, force=force)
     bar, update = _progress("sweep")
     with bar:
         points = run_sweep(raw, where, varies, out_dir, trials=trials, workers=workers, cluster=cluster,
-                           on_progress=update)
-    fig = sweep_figure(varies, points)
+                           on_progress=update, color=color)
+    fig = sweep_figure(varies, points, color=color)
     if fig is not None:
         save_figure(fig, out_dir / "sweep.png")
     typer.echo(f"{points.n_passed} of {len(points)} points pass; wrote {out_dir}/results.csv"

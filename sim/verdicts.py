@@ -189,7 +189,7 @@ def runaway_hold(scenario, *, bias_rad: float, seed: int) -> dict:
     after a fall or when the hold is too short to fit), `runaway_time_s`, peak wheel speed (rad/s)
     and the law's predicted response (`sim.runaway.BiasResponse` or None).
     """
-    from .runaway import fit_drift, predict_bias_response, runaway_time_s
+    from .runaway import fit_drift, predict_bias_response, runaway_time_s, settling
     req = scenario.requirements
     angle = scenario.sensors.angle.model_copy(update={"bias": bias_rad})
     sc = with_trial(scenario, duration=req.hold_time, start={"angle": 0.0, "rate": 0.0, "wheel_speed": 0.0}, pushes=[])
@@ -204,8 +204,10 @@ def runaway_hold(scenario, *, bias_rad: float, seed: int) -> dict:
     if result.outcome == "balanced" and wheel.size >= 60:
         drift = fit_drift(t, wheel)
         out["drift"] = drift
-        out["runaway_time_s"] = runaway_time_s(drift, limit_rad_s=device.no_load_speed_rad_s,
-                                               horizon_s=RUNAWAY_HORIZON_FACTOR * req.run_time)
+        k = 2 * wheel.size // 3
+        out["settling"] = settling(fit_drift(t[:k], wheel[:k], fraction=0.5), drift)
+        out["runaway_time_s"] = None if out["settling"] else runaway_time_s(
+            drift, limit_rad_s=device.no_load_speed_rad_s, horizon_s=RUNAWAY_HORIZON_FACTOR * req.run_time)
     elif wheel.size >= 90:
         # before a fall: the middle third of the run (past the start, before the wheel ran out of speed)
         k = 2 * wheel.size // 3
@@ -272,6 +274,7 @@ def runaway_summary(holds: list[dict]) -> list[dict]:
         d, p = h["drift"], h["prediction"]
         out.append({"bias_rad": h["bias_rad"], "outcome": h["outcome"], "fell_at_s": h["fell_at_s"],
                     "peak_wheel_speed_rad_s": h["peak_wheel_speed_rad_s"], "runaway_time_s": h["runaway_time_s"],
+                    "settling": h.get("settling", False),
                     "drift_rad_s2": None if d is None else d.slope_rad_s2,
                     "drift_se_rad_s2": None if d is None else d.slope_se_rad_s2,
                     "mean_wheel_speed_rad_s": None if d is None else d.mean_rad_s,
