@@ -18,7 +18,9 @@ weaker than gravity (stall torque down to a tenth of mbar g) as well as strong o
 - Wheel speed. Pumping stores the swing's reaction in the wheel. Near the turning points, where
   |theta_d| is small and torque does little work, the law bleeds the wheel back toward zero
   speed instead of pumping, so the wheel never parks at its no-load speed, where it has no
-  torque left in one direction.
+  torque left in one direction. The bleed acts only on the side of a turning point where its
+  torque also pumps (so the energy error never grows), and only while the swing is below
+  BLEED_ENERGY_FRACTION of the target: the last swings get every bit of torque.
 """
 
 from __future__ import annotations
@@ -47,6 +49,9 @@ BLEED_ENERGY_FRACTION = 0.75
 """Turning points count only while the swing's energy (from hanging at rest) is below this fraction
 of what the target needs: on the last swings the turning points lie near the top, and the torque
 there is what carries the body over (our choice; a sweep of invented devices lost catches at 1.0)."""
+GAIN_FACTOR = 30.0
+"""Default energy gain, in units of stall torque / (mbar g * natural rate): high, so the drive is
+saturated (bang-bang, the fastest pumping) until the energy error is about a percent of the well (our choice)."""
 BLEED_SPEED_FRACTION = 0.25
 """Default bleed: full stall torque against a wheel at this fraction of its no-load speed (our choice)."""
 
@@ -73,7 +78,8 @@ class _SwingUpBase(Strategy):
 
     `extra_metrics` (for a swing-up that falls short): `swing_energy_peak_j`, the largest swing
     energy reached, J, counted from hanging at rest (E + 2 mbar g); `swing_energy_needed_j`, what
-    the target needs on the same scale, J; `swing_energy_peak_fraction`, their ratio (1 = enough).
+    the target needs on the same scale, J; `swing_energy_peak_fraction`, their ratio (1 = enough;
+    None for a target at or below hanging at rest).
     """
 
     goal = None
@@ -90,11 +96,11 @@ class _SwingUpBase(Strategy):
         self.phase = "swing up"
         self.energy_j = -2.0 * self.mgl
         self.limited = False       # True on ticks where the wanted torque exceeded the drive's
-        self.direction = float(getattr(self.params, "kick_direction", 1))   # wheel torque sign held through turns
+        self.direction = float(self.params.kick_direction)   # wheel torque sign, held while pushing
         self.needed_j = 2.0 * self.mgl + self.params.energy_target
         self.peak_j = 0.0
         self.extra_metrics = {"swing_energy_peak_j": 0.0, "swing_energy_needed_j": self.needed_j,
-                              "swing_energy_peak_fraction": 0.0}
+                              "swing_energy_peak_fraction": 0.0 if self.needed_j > 0 else None}
 
     def body_energy(self, reading: Reading) -> float:
         e = self.energy_j = self.device.body_energy_j(reading.angle_rad, reading.rate_rad_s)
@@ -102,7 +108,7 @@ class _SwingUpBase(Strategy):
             self.peak_j = e + 2.0 * self.mgl
             self.extra_metrics["swing_energy_peak_j"] = self.peak_j
             self.extra_metrics["swing_energy_peak_fraction"] = (self.peak_j / self.needed_j if self.needed_j > 0
-                                                                else math.inf)
+                                                                else None)
         return e
 
     def swing_cycle(self, reading: Reading, energy_j: float) -> str:
@@ -117,7 +123,8 @@ class _SwingUpBase(Strategy):
         rate = reading.rate_rad_s
         if peak_rate < self.start_rate and abs(rate) < self.start_rate:
             return "push"
-        if abs(rate) < TURN_RATE_FRACTION * peak_rate and energy_j + 2.0 * self.mgl < BLEED_ENERGY_FRACTION * self.needed_j:
+        low_swing = energy_j + 2.0 * self.mgl < BLEED_ENERGY_FRACTION * self.needed_j
+        if low_swing and abs(rate) < TURN_RATE_FRACTION * peak_rate:
             return "turn"
         self.direction = -1.0 if rate > 0 else 1.0
         return "pump"
@@ -172,7 +179,7 @@ class EnergySwingUp(_SwingUpBase):
     def __init__(self, **kw) -> None:
         super().__init__(**kw)
         d, p = self.device, self.params
-        self.gain = p.gain if p.gain is not None else 30.0 * d.stall_torque_n_m / (self.mgl * self.natural_rate)
+        self.gain = p.gain if p.gain is not None else GAIN_FACTOR * d.stall_torque_n_m / (self.mgl * self.natural_rate)
         self.wheel_damping = p.wheel_damping if p.wheel_damping is not None else self.default_bleed()
 
     def decide(self, reading: Reading) -> float:
