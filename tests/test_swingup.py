@@ -110,9 +110,13 @@ REFERENCE = {"kind": "swing_and_catch", "swing_up": StrategySpec(kind="SignPump 
 DEFAULT = {"kind": "swing_and_catch"}   # energy swing-up, lqr balance, 20/30 deg: the defaults under test
 
 
-def caught_at(sc) -> float | None:
-    m = trial_metrics(run_trial(sc, isolate=False))
-    return m["caught_at_s"] if m["outcome"] == "balanced" else None
+def caught_at(sc) -> tuple[float | None, float]:
+    """(caught_at_s or None, the wheel's peak speed before the catch as a fraction of no-load)."""
+    res = run_trial(sc, isolate=False)
+    m = trial_metrics(res)
+    caught = m["caught_at_s"] if m["outcome"] == "balanced" else None
+    k = res.trace.n if caught is None else int(round(caught / sc.world.step))
+    return caught, float(np.max(np.abs(res.trace.view("wheel_speed")[:k])) / res.device.no_load_speed_rad_s)
 
 
 @pytest.mark.slow
@@ -120,16 +124,22 @@ def test_default_swing_and_catch_catches_whatever_reference_pumping_catches():
     # Issue 12's bar: the default swing_and_catch catches every device that resonant pumping (the
     # reference law above, then the same default LQR near the top) catches, in no more than about
     # 1.5 times its time. Limit 1.5: the issue's, not a published figure. Over this grid we measured
-    # ratios 0.82-1.37 with the reference catching at every point.
-    rows, worse = [], []
+    # ratios 0.85-1.29 with the reference catching at every point.
+    # The wheel's range: where pumping takes several swings (stall up to 0.5 mbar g) the default's
+    # wheel peaks before the catch no higher than the reference's, within 5% of the no-load speed
+    # (our bound; we measured it lower by up to 0.17 of no-load, and higher by 0.02 once).
+    rows, worse, faster_wheel = [], [], []
     for arm in ARMS:
         for k in STRENGTHS:
-            t_ref = caught_at(weak_scenario(arm, k, REFERENCE))
-            t_ours = caught_at(weak_scenario(arm, k, DEFAULT))
+            t_ref, w_ref = caught_at(weak_scenario(arm, k, REFERENCE))
+            t_ours, w_ours = caught_at(weak_scenario(arm, k, DEFAULT))
             rows.append((arm, k, t_ref, t_ours))
             if t_ref is not None and (t_ours is None or t_ours > 1.5 * t_ref):
                 worse.append((arm, k, t_ref, t_ours))
+            if k <= 0.5 and w_ours > w_ref + 0.05:
+                faster_wheel.append((arm, k, w_ref, w_ours))
     assert not worse, f"(arm, stall/mbar g, reference caught at s, default caught at s): {worse}"
+    assert not faster_wheel, f"(arm, stall/mbar g, wheel peak / no-load: reference, default): {faster_wheel}"
     # not a vacuous comparison: the reference does catch across the grid, the weakest motors included
     caught_by_ref = [r for r in rows if r[2] is not None]
     assert len(caught_by_ref) >= 0.8 * len(rows)
