@@ -193,16 +193,17 @@ def test_energy_law_torque_follows_the_swing_and_each_half_swing_is_larger():
     assert np.max(runs) * sc.world.step < period
 
 
-@settings(max_examples=8, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(arm=st.sampled_from(sorted(ARMS)), stall_over_mgl=st.floats(0.1, 2.0),
-       kick=st.sampled_from([-1, 1]), target_j=st.floats(-0.05, 0.0))
-def test_energy_never_falls_while_pumping_below_the_target(arm, stall_over_mgl, kick, target_j):
+@settings(max_examples=10, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(kind=st.sampled_from(["energy", "pump"]), arm=st.sampled_from(sorted(ARMS)),
+       stall_over_mgl=st.floats(0.1, 2.0), kick=st.sampled_from([-1, 1]), target_j=st.floats(-0.05, 0.0))
+def test_energy_never_falls_while_pumping_below_the_target(kind, arm, stall_over_mgl, kick, target_j):
     # Astrom & Furuta, Automatica 36(2), 2000 (references.md "Swing-up"): dE/dt = -tau theta_d, and the
     # law's torque (pumping, or the bleed only where it pumps too) keeps -tau theta_d >= 0 while
-    # E < E_ref. Frictionless device, ideal sensors, default gains; energy from the true state
+    # E < E_ref; so does `pump`'s voltage against the swing, whose winding floats where back-EMF
+    # would make it a brake. Frictionless device, ideal sensors, default gains; energy from the true state
     # at each control tick. Tolerance 1e-4 of the well depth per tick: the zero-order hold lets
     # a torque run on for up to one tick (2 ms) past a reversal of the rate.
-    law = {"kind": "energy", "kick_direction": kick, "energy_target": target_j}
+    law = {"kind": kind, "kick_direction": kick, "energy_target": target_j}
     sc = weak_scenario(arm, stall_over_mgl, law, duration_s=4.0, sensors=False, friction=False)
     res = run_trial(sc)
     dev, tr = res.device, res.trace
@@ -245,3 +246,21 @@ def test_a_caught_swing_up_reports_enough_energy_and_its_handover():
     # caught near the top: the swing had (about) what upright needs; 5% allows for the 20 deg catch
     # angle and sensor noise (our bound)
     assert extra["swing_energy_peak_fraction"] > 0.95
+
+
+def test_pump_floats_the_winding_where_back_emf_would_brake():
+    # DC motor line (any motor text; common practice, no source): i = (V - k_e w) / R, so with the
+    # back-EMF k_e w above the applied V of the same sign the current, and the torque, reverse: the
+    # pumping voltage would brake the wheel and its reaction would take energy from the body.
+    sc = weak_scenario("desk", 0.5, {"kind": "pump"}, sensors=False)
+    dev = Device.from_scenario(sc)
+    law = sc.strategy.build(dev, rng=np.random.default_rng(0))
+    r = Reading()
+    r.t_s, r.angle_rad, r.rate_rad_s = 0.0, math.radians(150), -4.0   # swinging fast: pump, torque +
+    level_speed = law.level / dev.k_e_v_s_rad
+    r.wheel_speed_rad_s = 0.9 * level_speed
+    assert law.decide(r) == law.level and not law.open_circuit
+    r.wheel_speed_rad_s = 1.1 * level_speed
+    assert law.decide(r) == 0.0 and law.open_circuit
+    r.wheel_speed_rad_s = -1.1 * level_speed                            # spinning the other way: drives
+    assert law.decide(r) == law.level and not law.open_circuit

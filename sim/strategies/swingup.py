@@ -207,8 +207,9 @@ class PumpSwingUp(_SwingUpBase):
     torque follows the voltage's sign), winding open once E >= E_ref. Near the swing's turning
     points the voltage bleeds the wheel instead (volts = -level * sign(w), only when the wheel
     turns faster than a tenth of its no-load speed); a body hanging at rest gets +level
-    (`kick_direction`) until it swings. The simple hobby-style swing-up: no model of the
-    motor's torque line. Parameters: `level` V (default: half the supply), `energy_target` J,
+    (`kick_direction`) until it swings. The winding floats where its back-EMF would turn the
+    pumping voltage into a brake. The simple hobby-style swing-up: no model of the motor's
+    torque line beyond that. Parameters: `level` V (default: half the supply), `energy_target` J,
     `kick_direction` +1 or -1.
     """
 
@@ -245,4 +246,11 @@ class PumpSwingUp(_SwingUpBase):
                 self.open_circuit = True
                 return 0.0
             return -self.level if w > 0 else self.level
-        return self.direction * self.level
+        v = self.direction * self.level
+        # a wheel spinning in the pumping direction faster than `level` can drive it: the winding
+        # would brake it (back-EMF above the voltage) and the reaction would take energy from the
+        # body; float it instead until the swing turns
+        if (v - self.device.k_e_v_s_rad * reading.wheel_speed_rad_s) * v <= 0.0:
+            self.open_circuit = True
+            return 0.0
+        return v
