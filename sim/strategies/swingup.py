@@ -41,10 +41,11 @@ rate sqrt(mbar g / J) is too small to follow: the law pushes one way (our choice
 weaker than 0.1 mbar g the fraction is half its stall torque over mbar g, since a push from rest
 deflects the body only by about stall / (mbar g) rad and reaches a peak rate of about that
 fraction of the natural rate (small-angle pendulum under a constant torque)."""
-TURN_RATE_FRACTION = 0.3
+TURN_RATE_FRACTION = 0.2
 """|theta_d| below this fraction of the swing's peak rate counts as near a turning point: the law
-bleeds the wheel there. For a harmonic swing that is 19% of the time but only 4.6% of the work a
-full-time pump would do (1 - sqrt(1 - 0.3^2)); our choice."""
+bleeds the wheel there. For a harmonic swing that is 13% of the time (2 asin(0.2) / pi) but only
+2% of the work a full-time pump would do (1 - sqrt(1 - 0.2^2)); our choice (0.3 bled more but
+caught the desk demo with the wheel faster, and it then settled slower)."""
 BLEED_ENERGY_FRACTION = 0.75
 """Turning points count only while the swing's energy (from hanging at rest) is below this fraction
 of what the target needs: on the last swings the turning points lie near the top, and the torque
