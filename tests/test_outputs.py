@@ -20,7 +20,8 @@ import pytest
 
 from conftest import scenario_dict, write_scenario
 from sim.errors import InputError
-from sim.outputs import MARKER, atomic_path, prepare_out_dir, remove_stale_temps, write_json, write_text
+from sim.outputs import (MARKER, atomic_path, prepare_out_dir, register_temp, release_locks, remove_stale_temps,
+                         write_json, write_text)
 
 TRACE_FIELDS = 13  # trace.csv columns (README "trace.csv")
 
@@ -86,6 +87,8 @@ def test_stale_temps_of_dead_writers_only_are_removed(tmp_path):
     user = out / ".notes.tmp"
     for p in (stale, live, user):
         p.write_text("x")
+    for p in (stale, live):  # as atomic_path does: entered in the registry before being created
+        register_temp(out, p.name)
     assert remove_stale_temps(out) == [stale]
     assert live.exists() and user.exists() and not stale.exists()
 
@@ -102,6 +105,7 @@ def test_temps_of_an_ended_but_unreaped_writer_are_removed(tmp_path):
             assert time.monotonic() < deadline, "the child did not end"
             time.sleep(0.01)                              # ended, not reaped: a zombie
         stale = out / f".summary.png.{zombie.pid}.abcd1234.tmp.png"
+        register_temp(out, stale.name)
         stale.write_text("x")
         assert remove_stale_temps(out) == [stale]
     finally:
@@ -169,3 +173,92 @@ def test_interrupted_run_cleans_up(tmp_path):
     assert proc.returncode == 130, err
     assert err.strip().splitlines()[-1] == "wheelbench: interrupted"
     assert sorted(p.name for p in out.iterdir()) == [MARKER]
+
+
+# --------------------------------------------------------------------- registry of temporaries, locks
+
+def _dead_pid() -> int:
+    dead = subprocess.Popen([sys.executable, "-c", "pass"])
+    dead.wait()
+    return dead.pid
+
+
+def test_force_removes_only_registered_temporaries(tmp_path):
+    """Issue 13 part 8: a user's file that matches the temporary-name pattern, with a pid of no
+    running process, survives a forced write; a temporary the registry proves ours does not."""
+    folder = tmp_path / "mine"
+    folder.mkdir()
+    user = folder / ".notes.999999.keepthis.tmp"     # looks like ours: dot, name, pid, 8 chars, .tmp
+    user.write_text("my notes")
+    ours = folder / f".trace.csv.{_dead_pid()}.0badf00d.tmp.csv"
+    register_temp(folder, ours.name)                  # (no marker yet: the hidden registry file)
+    ours.write_text("half a trace")
+    prepare_out_dir(folder, force=True)
+    assert user.read_text() == "my notes"
+    assert not ours.exists()
+    assert not (folder / ".wheelbench-temps").exists()   # emptied and gone
+
+
+def test_an_unfinished_atomic_write_is_registered_and_a_finished_one_struck(tmp_path):
+    out = prepare_out_dir(tmp_path / "o")
+    with atomic_path(out / "a.txt") as tmp:
+        tmp.write_text("x")
+        assert f"+{tmp.name}" in (out / MARKER).read_text().splitlines()
+    assert f"-{tmp.name}" in (out / MARKER).read_text().splitlines()
+    beside = tmp_path / "user"                        # a folder without our marker (a --video target)
+    beside.mkdir()
+    write_text(beside / "clip.txt", "y")
+    assert sorted(p.name for p in beside.iterdir()) == ["clip.txt"]   # the registry went with its entry
+
+
+def test_a_second_command_into_a_locked_folder_is_refused(tmp_path):
+    import fcntl
+
+    out = prepare_out_dir(tmp_path / "o")
+    release_locks()
+    fd = os.open(out / ".wheelbench-lock", os.O_RDWR)   # another process's lock: its own open file
+    fcntl.flock(fd, fcntl.LOCK_EX)
+    try:
+        with pytest.raises(InputError, match="another wheelbench command"):
+            prepare_out_dir(out)
+    finally:
+        os.close(fd)
+    prepare_out_dir(out)                               # let go: taken
+    release_locks()
+
+
+@pytest.mark.skipif(os.name != "posix", reason="POSIX permissions")
+def test_out_folder_that_cannot_take_files_is_refused_before_work(tmp_path):
+    """Issue 13 part 6: root passes os.access checks, so the probe really creates a file."""
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    os.chmod(ro, 0o500)
+    try:
+        probe = ro / "p"
+        try:
+            probe.write_text("x")
+            probe.unlink()
+            pytest.skip("chmod 0500 does not stop this user (root with CAP_DAC_OVERRIDE)")
+        except OSError:
+            pass
+        with pytest.raises(InputError, match="cannot write"):
+            prepare_out_dir(ro / "sub")
+    finally:
+        os.chmod(ro, 0o700)
+
+
+def test_disk_full_while_writing_is_one_line_and_keeps_the_old_file(tmp_path, monkeypatch):
+    import errno
+
+    from sim.outputs import MachineFault
+    target = tmp_path / "m.json"
+    target.write_text("old\n")
+
+    def full(*args, **kwargs):
+        raise OSError(errno.ENOSPC, "No space left on device")
+    monkeypatch.setattr(Path, "write_text", full)
+    with pytest.raises(MachineFault, match="disk is full"):
+        write_text(target, "new\n")
+    monkeypatch.undo()
+    assert target.read_text() == "old\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["m.json"]
