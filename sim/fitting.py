@@ -151,16 +151,23 @@ def smooth_signal(x: np.ndarray, window: int) -> np.ndarray:
 
 def local_maxima(x: np.ndarray, *, half_width: int, min_rise: float) -> np.ndarray:
     """Indices i where x[i] is the first largest value within +-half_width samples and stands at
-    least `min_rise` above the lowest value within +-2 half_width (a simple prominence test)."""
-    from numpy.lib.stride_tricks import sliding_window_view
+    least `min_rise` above the lowest value within +-2 half_width (a simple prominence test).
+
+    Running maxima and minima (scipy.ndimage's filters) keep time and memory in proportion to the
+    samples, whatever the width (a window per sample would take samples x width).
+    """
+    from scipy.ndimage import maximum_filter1d, minimum_filter1d
 
     h = max(1, int(half_width))
+    x = np.asarray(x, dtype=float)
     if len(x) < 2 * h + 1:
         return np.zeros(0, dtype=int)
-    padded = np.pad(x, h, mode="constant", constant_values=-np.inf)
-    is_top = sliding_window_view(padded, 2 * h + 1).argmax(axis=1) == h
-    h2 = 2 * h
-    low = sliding_window_view(np.pad(x, h2, mode="edge"), 2 * h2 + 1).min(axis=1)
+    top = maximum_filter1d(x, size=2 * h + 1, mode="constant", cval=-np.inf)
+    # the largest of the h samples ending at each index; shifted by one, those just before it
+    ending = maximum_filter1d(x, size=h, mode="constant", cval=-np.inf, origin=(h - 1) // 2)
+    before = np.concatenate(([-np.inf], ending[:-1]))
+    is_top = (x == top) & (x > before)
+    low = minimum_filter1d(x, size=4 * h + 1, mode="nearest")
     return np.nonzero(is_top & (x - low >= min_rise))[0]
 
 

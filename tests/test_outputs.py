@@ -262,3 +262,63 @@ def test_disk_full_while_writing_is_one_line_and_keeps_the_old_file(tmp_path, mo
     monkeypatch.undo()
     assert target.read_text() == "old\n"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["m.json"]
+
+
+@pytest.fixture
+def read_only_out(tmp_path):
+    """An output folder written by wheelbench earlier (marker and a metrics.json inside) on a
+    file system then made read-only: a tmpfs mounted and remounted read-only (needs root; skips
+    otherwise)."""
+    mnt = tmp_path / "mnt"
+    mnt.mkdir()
+    if subprocess.run(["mount", "-t", "tmpfs", "-o", "size=4m", "tmpfs", str(mnt)], capture_output=True).returncode:
+        pytest.skip("cannot mount a tmpfs here (not root, or no mount permission)")
+    try:
+        out = prepare_out_dir(mnt / "out")
+        release_locks()
+        (out / "metrics.json").write_text("{}\n")
+        if subprocess.run(["mount", "-o", "remount,ro", str(mnt)], capture_output=True).returncode:
+            pytest.skip("cannot remount the tmpfs read-only")
+        yield out
+    finally:
+        release_locks()
+        subprocess.run(["umount", "-l", str(mnt)], capture_output=True)
+
+
+def test_read_only_out_folder_is_refused_before_simulating(read_only_out, scenario_file, capsys, monkeypatch):
+    """Issue 13 part 6: a folder that exists, is ours, and cannot take a file (EROFS)."""
+    import sim.runfiles
+    from sim.cli import main
+
+    monkeypatch.setattr(sim.runfiles, "run_trial", lambda *a, **k: pytest.fail("simulated before the check"))
+    code = main(["run", str(scenario_file), "--out", str(read_only_out)])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1, err
+    assert "--out" in err[0] and "cannot write" in err[0] and "Read-only" in err[0]
+    assert (read_only_out / "metrics.json").read_text() == "{}\n"
+
+
+@pytest.mark.parametrize("code_, words", [(28, "disk is full"), (30, "read-only")])   # ENOSPC, EROFS (Linux)
+def test_disk_faults_while_a_run_writes_are_one_line(tmp_path, scenario_file, capsys, monkeypatch, code_, words):
+    """Issue 13 part 7: the disk fills (or turns read-only) while trace.csv is written: one line
+    saying what to do, exit 2, and metrics.json of an earlier run is kept whole."""
+    import errno
+
+    import sim.runfiles
+    from sim.cli import main
+    assert code_ == {28: errno.ENOSPC, 30: errno.EROFS}[code_]
+    out = tmp_path / "out"
+    assert main(["run", str(scenario_file), "--out", str(out)]) == 0
+    before = (out / "metrics.json").read_text()
+
+    def fail(trace, path, *args, **kwargs):
+        Path(path).write_text("part of a trace")
+        raise OSError(code_, os.strerror(code_), str(path))
+    monkeypatch.setattr(sim.runfiles, "write_csv", fail)
+    capsys.readouterr()
+    code = main(["run", str(scenario_file), "--out", str(out)])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1, err
+    assert words in err[0] and "trace.csv" in err[0] and "Traceback" not in err[0]
+    assert (out / "metrics.json").read_text() == before
+    assert not [p.name for p in out.iterdir() if p.name.endswith(".tmp.csv")]   # the temporary went
