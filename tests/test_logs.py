@@ -184,9 +184,9 @@ def test_local_maxima_follow_their_definition_in_memory_proportional_to_the_samp
                   and x[i] == max(x[max(0, i - h):i + h + 1]) and all(x[max(0, i - h):i] < x[i])
                   and x[i] - min(x[max(0, i - 2 * h):i + 2 * h + 1]) >= rise]
         assert list(local_maxima(x, half_width=h, min_rise=rise)) == expect
-    x = np.sin(np.linspace(0.0, 40.0 * np.pi, 200_000))     # 20 swings of 10,000 samples
+    x = np.sin(np.linspace(0.0, 60.0 * np.pi, 50_000))      # 30 swings of 1,667 samples
     tracemalloc.start()
-    local_maxima(x, half_width=3000, min_rise=0.5)
+    local_maxima(x, half_width=500, min_rise=0.5)
     peak = tracemalloc.get_traced_memory()[1]
     tracemalloc.stop()
     assert peak < 10 * x.nbytes, f"{peak / 2**20:.0f} MB for a {x.nbytes / 2**20:.1f} MB signal"
