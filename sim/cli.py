@@ -251,8 +251,7 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
     """Map which start states (angle, body rate) the balance law catches; catch_map.csv and .png."""
     from .catchmap import catch_map, write_catch_map
     from .errors import InputError
-    from .outputs import prepare_out_dir
-    from .outputs import check_out_path
+    from .outputs import check_out_path, prepare_out_dir
     from .units import parse_quantity
     check_out_path(out)
     raw, where = _load_raw(scenario, set_, workers, cluster)

@@ -127,7 +127,7 @@ def lock_folder(out: Path, *, wait: bool = False) -> None:
     except BlockingIOError:
         os.close(fd)
         raise InputError(f"--out {out}: another wheelbench command is writing into this folder now; wait for it "
-                         "to finish (or pass --wait to queue behind it), or choose another folder") from None
+                         "to finish (a sweep can queue behind it with --wait), or choose another folder") from None
     _LOCKS[key] = fd
 
 
@@ -328,8 +328,8 @@ def fault_message(exc: OSError, path: str | Path | None = None) -> str | None:
     advice = _FAULTS.get(getattr(exc, "errno", None))
     if advice is None:
         return None
-    where = path if path is not None else (exc.filename or "writing")
-    return f"{where}: {advice}"
+    where = path if path is not None else exc.filename
+    return f"{where}: {advice}" if where else f"while writing: {advice}"
 
 
 def fault_from(exc: OSError, path: str | Path | None = None) -> Exception:

@@ -20,7 +20,7 @@ import pytest
 
 from conftest import scenario_dict, write_scenario
 from sim.errors import InputError
-from sim.outputs import (MARKER, atomic_path, prepare_out_dir, register_temp, release_locks, remove_stale_temps,
+from sim.outputs import (LOCK, MARKER, atomic_path, prepare_out_dir, register_temp, release_locks, remove_stale_temps,
                          write_json, write_text)
 
 TRACE_FIELDS = 13  # trace.csv columns (README "trace.csv")
@@ -152,7 +152,7 @@ def test_killed_run_leaves_complete_files_or_none(tmp_path):
             _check_complete(out, n_rows)
     subprocess.run(argv + ["--out", str(out)], check=True, capture_output=True, timeout=300)
     assert _check_complete(out, n_rows) == ["metrics.json", "summary.png", "trace.csv"]
-    assert sorted(p.name for p in out.iterdir() if p.name.startswith(".")) == [MARKER]  # stale temps gone
+    assert sorted(p.name for p in out.iterdir() if p.name.startswith(".")) == [LOCK, MARKER]  # stale temps gone
 
 
 @pytest.mark.slow
@@ -172,7 +172,7 @@ def test_interrupted_run_cleans_up(tmp_path):
     _, err = proc.communicate(timeout=120)
     assert proc.returncode == 130, err
     assert err.strip().splitlines()[-1] == "wheelbench: interrupted"
-    assert sorted(p.name for p in out.iterdir()) == [MARKER]
+    assert sorted(p.name for p in out.iterdir()) == [LOCK, MARKER]
 
 
 # --------------------------------------------------------------------- registry of temporaries, locks
