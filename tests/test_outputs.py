@@ -285,7 +285,8 @@ def read_only_out(tmp_path):
         subprocess.run(["umount", "-l", str(mnt)], capture_output=True)
 
 
-def test_read_only_out_folder_is_refused_before_simulating(read_only_out, scenario_file, capsys, monkeypatch):
+def test_read_only_out_folder_is_refused_before_simulating(read_only_out, scenario_file, capsys, monkeypatch,
+                                                           tmp_path):
     """Issue 13 part 6: a folder that exists, is ours, and cannot take a file (EROFS)."""
     import sim.runfiles
     from sim.cli import main
@@ -296,9 +297,14 @@ def test_read_only_out_folder_is_refused_before_simulating(read_only_out, scenar
     assert code == 2 and len(err) == 1, err
     assert "--out" in err[0] and "cannot write" in err[0] and "Read-only" in err[0]
     assert (read_only_out / "metrics.json").read_text() == "{}\n"
+    clip = read_only_out / "clip.gif"                  # a clip into the read-only folder: refused as early
+    code = main(["run", str(scenario_file), "--out", str(tmp_path / "fresh"), "--video", str(clip)])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1 and "--video" in err[0] and "cannot write" in err[0], err
+    assert not (tmp_path / "fresh").exists()
 
 
-@pytest.mark.parametrize("code_, words", [(28, "disk is full"), (30, "read-only")])   # ENOSPC, EROFS (Linux)
+@pytest.mark.parametrize("code_, words", [(28, "disk is full"), (30, "read-only"), (13, "permission denied")])
 def test_disk_faults_while_a_run_writes_are_one_line(tmp_path, scenario_file, capsys, monkeypatch, code_, words):
     """Issue 13 part 7: the disk fills (or turns read-only) while trace.csv is written: one line
     saying what to do, exit 2, and metrics.json of an earlier run is kept whole."""
@@ -306,7 +312,7 @@ def test_disk_faults_while_a_run_writes_are_one_line(tmp_path, scenario_file, ca
 
     import sim.runfiles
     from sim.cli import main
-    assert code_ == {28: errno.ENOSPC, 30: errno.EROFS}[code_]
+    assert code_ == {28: errno.ENOSPC, 30: errno.EROFS, 13: errno.EACCES}[code_]   # Linux's numbers
     out = tmp_path / "out"
     assert main(["run", str(scenario_file), "--out", str(out)]) == 0
     before = (out / "metrics.json").read_text()
