@@ -171,6 +171,28 @@ def local_maxima(x: np.ndarray, *, half_width: int, min_rise: float) -> np.ndarr
     return np.nonzero(is_top & (x - low >= min_rise))[0]
 
 
+FIT_SAMPLES = 250_000
+"""Most samples a least-squares model fit takes (its Jacobian and solver hold ~40 copies of the
+samples); a longer window is fitted to the means of bins of equal count (`bin_means`)."""
+
+
+def bin_size(n: int) -> int:
+    """Samples per bin so that `n` samples make at most FIT_SAMPLES bins (1: no binning)."""
+    return max(1, -(-int(n) // FIT_SAMPLES))
+
+
+def bin_means(x: np.ndarray, k: int) -> np.ndarray:
+    """Means of consecutive runs of `k` samples; a last run shorter than `k` is left out.
+
+    The mean of k samples with independent noise sigma has noise sigma / sqrt(k), so a fit to
+    n / k means has the same parameter uncertainty as one to the n samples while the model is
+    near straight within a bin (common practice, no source)."""
+    if k <= 1:
+        return x
+    full = len(x) // k * k
+    return np.asarray(x[:full], dtype=float).reshape(-1, k).mean(axis=1)
+
+
 def ratio_sigma(value: float, *rel: float) -> float:
     """|value| times the quadrature sum of relative uncertainties (independent errors)."""
     return abs(value) * math.sqrt(sum(r * r for r in rel))

@@ -210,3 +210,29 @@ def test_reading_a_log_keeps_only_its_numbers(tmp_path):
     kept = n * 2 * 8
     assert len(log.t_s) == n
     assert peak < 6 * kept, f"{peak / 2**20:.1f} MB peak for {kept / 2**20:.1f} MB of numbers"
+
+
+def test_a_long_coast_down_fitted_to_bin_means_agrees_with_every_sample(monkeypatch):
+    """Past FIT_SAMPLES the model is fitted to bin means (bounded memory). On a coast-down made
+    by scipy's solve_ivp from I_w w' = -b w - T_c (tests/test_fitting.coast_truth), the
+    binned fit finds the same friction within its uncertainty, with about the same uncertainty
+    (the mean of k samples has 1/sqrt(k) of their noise; common practice, no source)."""
+    import sim.fitting
+    from sim.fitting import fit_log
+    from sim.logs import BenchLog
+    from test_fitting import coast_truth
+
+    rng = np.random.default_rng(11)
+    t = np.linspace(0.0, 12.0, 60_000)
+    w = coast_truth(t, w0=300.0, start_s=1.0) + rng.normal(0.0, 0.5, t.size)
+    log = BenchLog(path="coast.csv", t_s=t, columns={"wheel_speed_rad_s": w},
+                   source_names={"wheel_speed_rad_s": "wheel_speed_rad_s"})
+    every = fit_log(log, "coast-down")
+    monkeypatch.setattr(sim.fitting, "FIT_SAMPLES", 10_000)
+    binned = fit_log(log, "coast-down")
+    assert binned.facts["fit_bin_samples"] == 6 and "fit_bin_samples" not in every.facts
+    for key in ("viscous_decay_rate_1_s", "coulomb_deceleration_rad_s2", "start_speed_rad_s"):
+        (v1, s1), (v2, s2) = every.values[key], binned.values[key]
+        assert abs(v2 - v1) < 2.0 * s1, (key, v1, v2, s1)
+        assert 0.8 < s2 / s1 < 1.25, (key, s1, s2)
+    assert_allclose(binned.facts["residual_rms_rad_s"], 0.5, rtol=0.05)   # over every sample: the noise
