@@ -230,3 +230,24 @@ def test_stale_clip_temporaries_beside_a_video_are_cleaned_by_the_next_clip(tmp_
                  "--size", "128x72", "--fps", "10"])
     assert code == 0
     assert sorted(p.name for p in clips.iterdir()) == [".notes.999999.keepthis.tmp", "c.gif"]
+
+
+def test_a_gif_frame_that_repeats_the_one_before_stays_a_frame(tmp_path):
+    """A frame with no change is written as a one-pixel update: the clip keeps its frame count
+    (duration x fps) and decodes to the same picture twice."""
+    from PIL import Image
+
+    from sim.video import _Sink
+    frames = _noisy_frames(3)
+    frames.insert(2, frames[1].copy())
+    sink = _Sink(tmp_path / "r.gif", fps=25)
+    for f in frames:
+        sink.add(f)
+    sink.close()
+    with Image.open(tmp_path / "r.gif") as gif:
+        assert gif.n_frames == 4
+        pictures = []
+        for i in range(4):
+            gif.seek(i)
+            pictures.append(np.asarray(gif.convert("RGB")).copy())
+    assert (pictures[1] == pictures[2]).all() and not (pictures[2] == pictures[3]).all()
