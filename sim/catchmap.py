@@ -86,12 +86,27 @@ def cell_task(payload: dict) -> dict:
                   "wheel_speed_margin": 1.0 - res["peak_wheel_speed_rad_s"] / limit}
 
 
+MAX_ANGLE_RAD = math.pi
+MAX_RATE_RAD_S = 1000.0
+"""Largest start body rate a map may ask for, rad/s: ~160 turns a second, far past any catch (the
+run calls a body rate over 1e4 rad/s diverged); a bigger value is a typo, not a plan (our choice)."""
+
+
+def check_map_options(*, grid: int, angle_max: float | None, rate_max: float | None) -> None:
+    """Bounds of the map's own options (rad, rad/s), checked before anything is simulated."""
+    if not 1 <= grid <= 401:
+        raise InputError(f"--grid: expected 1 to 401 cells per side, found {grid}")
+    if angle_max is not None and not 0.0 <= angle_max <= MAX_ANGLE_RAD:
+        raise InputError(f"--angle-max: expected at most 180 deg (pi rad), found {angle_max:.6g} rad")
+    if rate_max is not None and not 0.0 <= rate_max <= MAX_RATE_RAD_S:
+        raise InputError(f"--rate-max: expected at most {MAX_RATE_RAD_S:g} rad/s, found {rate_max:.6g} rad/s")
+
+
 def catch_map(raw: dict, where: str, *, grid: int = 21, angle_max: float | None = None, rate_max: float | None = None,
               window_s: float = CATCH_WINDOW_S, workers: int | None = None, cluster=None, on_progress=None) -> dict:
     """Run the map. Returns {"angles", "rates", "rows" (angle-major), "angle_max", "rate_max", "strategy"}."""
     from .scenario import validate_scenario
-    if not 1 <= grid <= 401:
-        raise InputError(f"--grid: expected 1 to 401 cells per side, found {grid}")
+    check_map_options(grid=grid, angle_max=angle_max, rate_max=rate_max)
     sc = validate_scenario(raw, where=where)
     braw = balance_only_raw(raw, sc)
     bsc = validate_scenario(braw, where=where)

@@ -50,10 +50,15 @@ def run(scenario: Optional[Path] = ScenarioArg,
                                                           "(and replace an existing --video file)."),
         video: Optional[Path] = VideoOpt, fps: int = FpsOpt, size: str = SizeOpt, camera: str = CameraOpt):
     """Simulate one trial; write metrics.json, trace.csv and summary.png (and a clip with --video)."""
+    from .options import check_clip_frames
+    from .outputs import check_out_path
     from .runfiles import run_to_folder
     from .video import clip_options, write_clip
+    check_out_path(out)
     sc = _load(scenario, set_)
     clip = clip_options(video, fps=fps, size=size, camera=camera, force=force) if video else None
+    if clip:
+        check_clip_frames(sc.trial.duration, clip["fps"], option=f"--video {video}")
     result, metrics = run_to_folder(sc, out, seed=seed, force=force)
     _print_run(sc, metrics, out)
     if clip:
@@ -75,10 +80,13 @@ def compare(first: Optional[Path] = typer.Argument(None, help="First scenario (d
             seed: Optional[int] = SeedOpt, fps: int = FpsOpt, size: str = SizeOpt, camera: str = CameraOpt,
             force: bool = typer.Option(False, "--force", help="Replace an existing --video file.")):
     """Run two trials (two scenarios, or one with different --set-b) and write them side by side in one clip."""
+    from .options import check_clip_frames, check_labels
     from .video import clip_options, compare_to_clip
+    check_labels(label)
     scenarios = [_load(first, [*(set_ or ()), *(set_a or ())]),
                  _load(second if second is not None else first, [*(set_ or ()), *(set_b or ())])]
     clip = clip_options(video, fps=fps, size=size, camera=camera, force=force)
+    check_clip_frames(max(s.trial.duration for s in scenarios), clip["fps"], option=f"--video {video}")
     results, info = compare_to_clip(scenarios, label, seed=seed, **clip)
     for tag, r in zip("AB", results):
         typer.echo(f"{tag}: {r.scenario.name} | {r.scenario.strategy.kind}: {r.outcome}"
@@ -126,8 +134,10 @@ def fit(log: Path = typer.Argument(..., help="CSV bench log with units in the he
     from .fit_files import write_fit_outputs
     from .fitting import TESTS, fit_log
     from .logs import read_log
+    from .outputs import check_out_path
     if test not in TESTS:
         raise InputError(f"--test: unknown test {test!r}; known: {', '.join(TESTS)}")
+    check_out_path(out)
     sc = _load(scenario, None) if scenario is not None else None
     result = fit_log(read_log(log), test, scenario=sc)
     written, notes = write_fit_outputs(result, out, log_path=str(log),
@@ -174,9 +184,10 @@ def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers:
               cluster: Optional[str] = None):
     """The raw scenario mapping (re-validated per trial by check, sweep and catch-map), options checked first."""
     from .errors import InputError
+    from .options import check_cluster, check_workers
     from .scenario import load_raw
-    if workers is not None and workers < 1:
-        raise InputError(f"--workers: expected at least 1, found {workers}")
+    check_workers(workers)
+    check_cluster(cluster)
     if workers is not None and cluster is not None:
         raise InputError("--workers and --cluster: give one (the cluster's scheduler decides its workers)")
     raw, where = load_raw(scenario, tuple(overrides or ()))
@@ -202,14 +213,14 @@ def check(scenario: Optional[Path] = ScenarioArg,
 
     Writes verdict.json, report.md and plots. Exit code 0 when every criterion passes, 1 when any fails.
     """
-    from .errors import InputError
-    from .outputs import prepare_out_dir
+    from .options import check_trials
+    from .outputs import check_out_path, prepare_out_dir
     from .verdict_report import print_verdict, write_check_outputs
     from .verdicts import DEFAULT_TRIALS, run_check
+    check_trials(trials)
+    check_out_path(out)
     raw, where = _load_raw(scenario, set_, workers, cluster)  # validated there
     n = DEFAULT_TRIALS if trials is None else trials
-    if n < 1:
-        raise InputError(f"--trials: expected at least 1, found {n}")
     out_dir = prepare_out_dir(out, force=force)
     bar, update = _progress("Monte Carlo")
     with bar:
@@ -234,15 +245,20 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
           workers: Optional[int] = WorkersOpt, cluster: Optional[str] = ClusterOpt,
           set_: Optional[List[str]] = SetOpt, force: bool = ForceOpt,
           color: Optional[str] = typer.Option(None, "--color", help="Metric the heat map shows (a numeric "
-                                                                     "results.csv column, e.g. wheel_runaway_time_s).")):
+                                                                     "results.csv column, e.g. wheel_runaway_time_s)."),
+          wait: bool = typer.Option(False, "--wait", help="If another command is writing into --out, wait for it "
+                                                          "to finish instead of refusing.")):
     """Run a design grid; write results.csv and a line plot (one key) or heat map (two keys)."""
-    from .outputs import prepare_out_dir
+    from .options import check_trials
+    from .outputs import check_out_path, prepare_out_dir
     from .plots import save_figure
     from .sweep import check_color, parse_vary, run_sweep, sweep_figure
     check_color(color)
+    check_trials(trials, minimum=0)
+    check_out_path(out)
     raw, where = _load_raw(scenario, set_, workers, cluster)
     varies = [parse_vary(v) for v in vary]
-    out_dir = prepare_out_dir(out, force=force)
+    out_dir = prepare_out_dir(out, force=force, wait=wait)
     bar, update = _progress("sweep")
     with bar:
         points = run_sweep(raw, where, varies, out_dir, trials=trials, workers=workers, cluster=cluster,
@@ -275,15 +291,16 @@ def tune(scenario: Optional[Path] = ScenarioArg,
     Exit code 0 when a passing design was found, 1 when none passed (the closest is shown).
     """
     from .errors import InputError
-    from .outputs import prepare_out_dir
+    from .options import MAX_TRIALS, check_trials
+    from .outputs import check_out_path, prepare_out_dir
     from .scenario import default_scenario_path
     from .tune_outputs import run_tune
     from .verdicts import DEFAULT_TRIALS
-    if not 1 <= trials <= 100_000:
-        raise InputError(f"--trials: expected 1 to 100000 evaluations, found {trials}")
+    check_trials(trials)
     mc = DEFAULT_TRIALS if mc_trials is None else mc_trials
-    if not 1 <= mc <= 100_000:
-        raise InputError(f"--mc-trials: expected 1 to 100000, found {mc}")
+    if not 1 <= mc <= MAX_TRIALS:
+        raise InputError(f"--mc-trials {mc}: expected a whole number from 1 to {MAX_TRIALS:,}")
+    check_out_path(out)
     raw, where = _load_raw(scenario, None, workers, cluster)
     _tune_dry_check(raw, where, param or [], only, objective)
     out_dir = prepare_out_dir(out, force=force)
@@ -360,8 +377,9 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
     """Map which start states (angle, body rate) the balance law catches; catch_map.csv and .png."""
     from .catchmap import catch_map, write_catch_map
     from .errors import InputError
-    from .outputs import prepare_out_dir
+    from .outputs import check_out_path, prepare_out_dir
     from .units import parse_quantity
+    check_out_path(out)
     raw, where = _load_raw(scenario, set_, workers, cluster)
     limits = []
     for name, text, kind in (("--angle-max", angle_max, "angle"), ("--rate-max", rate_max, "angular_speed")):
@@ -369,6 +387,8 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
             limits.append(None if text is None else abs(parse_quantity(text, kind)))
         except ValueError as exc:
             raise InputError(f"{name}: {exc}") from None
+    from .catchmap import check_map_options
+    check_map_options(grid=grid, angle_max=limits[0], rate_max=limits[1])
     out_dir = prepare_out_dir(out, force=force)
     bar, update = _progress("catch map")
     with bar:
@@ -415,8 +435,16 @@ def _fmt(value, unit: str) -> str:
 
 def main(argv: Optional[list[str]] = None) -> int:
     """Entry point: our errors become one line on stderr and exit code 2."""
-    from .outputs import forget_fresh_dirs
+    from .outputs import forget_fresh_dirs, release_locks
     forget_fresh_dirs()  # only folders made by this command may be removed on its error
+    try:
+        return _main(argv)
+    finally:
+        release_locks()  # the --out folder's lock: the next command may write there
+
+
+def _main(argv: Optional[list[str]]) -> int:
+    from .outputs import fault_message
     try:
         code = app(args=argv, standalone_mode=False)
     except WheelbenchError as exc:
@@ -429,6 +457,12 @@ def main(argv: Optional[list[str]] = None) -> int:
         return 130
     except SystemExit as exc:
         return exc.code if isinstance(exc.code, int) else 0
+    except OSError as exc:  # a full disk or a read-only folder met while writing: one line, what to do
+        message = fault_message(exc)
+        if message is None:
+            raise
+        print(f"wheelbench: {message}", file=sys.stderr)
+        return 2
     except Exception as exc:  # click's usage errors arrive here in non-standalone mode
         usage_errors, aborts = _click_error_types()
         if isinstance(exc, usage_errors):

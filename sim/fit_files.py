@@ -20,6 +20,8 @@ CAUTION = ("Bench tests spin wheels and drive motors from batteries: guard the w
            "unattended. Fitted values are estimates from one log; they do not replace local codes or licensed practice.")
 UNCERTAINTY = "one standard deviation, from the fit's covariance (linearised); scenario figures taken as exact"
 INK, ACCENT, MUTED = "#1d2b3a", "#c2571a", "#7a8894"
+PLOT_POINTS = 50_000
+"""Most samples fit.png draws (a 10-minute log at 10 kHz has 6,000,000; the figure cannot show more)."""
 
 
 def fit_report(result: FitResult, *, log_path: str, scenario_path: str | None) -> dict:
@@ -102,6 +104,8 @@ def fit_figure(result: FitResult):
 
     p = result.plot
     t, data, model = np.asarray(p["t_s"]), np.asarray(p["data"]), np.asarray(p["model"])
+    stride = max(1, -(-len(t) // PLOT_POINTS))   # a long log is drawn from every stride-th sample
+    t, data, model = t[::stride], data[::stride], model[::stride]
     fig, (ax, axr) = plt.subplots(2, 1, figsize=(8.5, 6.0), sharex=True, height_ratios=[3, 1],
                                   constrained_layout=True)
     fig.suptitle(f"fit: {p['title']}", color=INK, fontsize=12, fontweight="bold")

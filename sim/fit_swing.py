@@ -35,6 +35,9 @@ from .logs import resample_uniform
 
 MIN_EXTREMES = 5            # turning points after the release: two full cycles
 MIN_SAMPLES_PER_CYCLE = 8
+FEATURE_SAMPLES = 262_144
+"""Most samples of the even grid the turning points are found on (2^18): a longer or faster log
+is found on a coarser grid, so memory stays bounded (the fits use the logged samples)."""
 
 
 # ----------------------------------------------------------------------------- reference formulas
@@ -130,15 +133,16 @@ def fit_free_swing(log, *, device=None, scenario=None) -> FitResult:
 
 def find_extremes(t: np.ndarray, x: np.ndarray, *, where: str) -> Extremes:
     """Turning points of the swing after its release, refined by a local sinusoid fit."""
-    grid, xu = resample_uniform(t, x)
+    logged_dt = float(np.median(np.diff(t)))
+    grid, xu = resample_uniform(t, x, step_s=max(logged_dt, (t[-1] - t[0]) / (FEATURE_SAMPLES - 1)))
     dt = grid[1] - grid[0]
     freq = dominant_frequency(xu, dt)
     if freq is None:
         raise InputError(f"{where}: does not look like a free swing: no oscillation found in the angle")
     per = 1.0 / freq
     n_per = per / dt
-    if n_per < MIN_SAMPLES_PER_CYCLE:
-        raise InputError(f"{where}: sampled too slowly: {n_per:.1f} samples per {per:.3g} s swing "
+    if per / logged_dt < MIN_SAMPLES_PER_CYCLE:
+        raise InputError(f"{where}: sampled too slowly: {per / logged_dt:.1f} samples per {per:.3g} s swing "
                          f"(need at least {MIN_SAMPLES_PER_CYCLE})")
     sm = smooth_signal(xu, n_per / 10.0)
     steps = np.abs(np.diff(x))
@@ -189,8 +193,8 @@ def _refine(t, x, grid, picks, omega, half_window):
     times, values = [], []
     for i, s in picks:
         tc = grid[i]
-        sel = (t >= tc - half_window) & (t <= tc + half_window)
-        if np.count_nonzero(sel) < 5:
+        sel = slice(np.searchsorted(t, tc - half_window, "left"), np.searchsorted(t, tc + half_window, "right"))
+        if sel.stop - sel.start < 5:
             continue
         u = t[sel] - tc
         X = np.column_stack([np.ones_like(u), np.cos(omega * u), np.sin(omega * u)])
@@ -361,7 +365,7 @@ def simulate_swing(t_eval: np.ndarray, *, t0: float, psi0: float, w0: float, zet
     t_end = float(t_eval[-1]) if len(t_eval) else t0
     for _ in range(100_000):
         if abs(math.sin(psi)) <= e or t >= t_end:
-            out[t_eval >= t] = psi
+            out[np.searchsorted(t_eval, t, "left"):] = psi   # t_eval increases
             break
         sign = -math.copysign(1.0, psi)  # moving towards hanging
 
@@ -373,7 +377,7 @@ def simulate_swing(t_eval: np.ndarray, *, t0: float, psi0: float, w0: float, zet
 
         turn.terminal, turn.direction = True, -sign
         sol = solve_ivp(rhs, (t, t_end), [psi, 0.0], events=turn, dense_output=True, rtol=1e-9, atol=1e-12)
-        mask = (t_eval >= t) & (t_eval <= sol.t[-1])
+        mask = slice(np.searchsorted(t_eval, t, "left"), np.searchsorted(t_eval, sol.t[-1], "right"))
         out[mask] = sol.sol(t_eval[mask])[0]
         if sol.status != 1:
             break

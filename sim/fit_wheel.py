@@ -26,7 +26,8 @@ import numpy as np
 from scipy.optimize import least_squares
 
 from .errors import InputError
-from .fitting import FitResult, covariance, linear_fit, noise_sigma, ratio_sigma, smooth_signal
+from .fitting import (FIT_SAMPLES, FitResult, bin_means, bin_size, covariance, linear_fit, noise_sigma, ratio_sigma,
+                      smooth_signal)
 
 MIN_TIME_CONSTANTS = 2.0       # a spin-up log must run this many time constants past the step
 
@@ -86,6 +87,7 @@ def fit_spin_up(log, *, device=None, scenario=None) -> FitResult:
     res.put("final_speed_rad_s", sgn * w_inf, expo["w_inf_sigma"])
     res.put("time_constant_s", tau, expo["tau_sigma"])
     res.facts["residual_rms_rad_s"] = expo["rms"]
+    _binned_note(res, expo["bin"])
     fitted = t >= t[i0 + k]  # the model is drawn where it was fitted (not over a current-limited start)
     res.plot = {"t_s": t, "data": w, "model": np.where(fitted, sgn * _step_model(t - t[i0], expo["p"]), np.nan),
                 "label": "wheel speed [rad/s]", "title": "spin-up"}
@@ -138,13 +140,16 @@ def _fit_exponential(s: np.ndarray, w: np.ndarray, *, where: str) -> dict:
         raise InputError(f"{where}: does not look like a spin-up: the wheel speed does not rise after the step")
     crossed = np.nonzero(sm >= w_start0 + 0.632 * rise)[0]
     tau0 = float(s[crossed[0]]) if crossed.size and s[crossed[0]] > 0 else float(s[-1]) / 5.0
-    fit = least_squares(lambda p: _step_model(s, p) - w, [w_inf0, w_start0, max(tau0, 1e-6)],
+    k = bin_size(len(s))   # a long log: fitted to bin means, in bounded memory
+    sb, wb = bin_means(s, k), bin_means(w, k)
+    fit = least_squares(lambda p: _step_model(sb, p) - wb, [w_inf0, w_start0, max(tau0, 1e-6)],
                         bounds=([-np.inf, -np.inf, 1e-9], np.inf), x_scale="jac")
     cov = covariance(fit)
     sig = np.sqrt(np.diag(cov))
-    rms = float(np.sqrt(np.mean(fit.fun**2)))
+    residual = fit.fun if k == 1 else _step_model(s, fit.x) - w
+    rms = float(np.sqrt(np.mean(residual**2)))
     return {"p": fit.x, "w_inf": float(fit.x[0]), "w_inf_sigma": float(sig[0]), "tau": float(fit.x[2]),
-            "tau_sigma": float(sig[2]), "rms": rms}
+            "tau_sigma": float(sig[2]), "rms": rms, "bin": k}
 
 
 def _motor_constants(res, log, i0, sgn, volts, w_inf, expo, device) -> tuple[float, float | None]:
@@ -201,6 +206,13 @@ def _wheel_inertia(res, device, scenario, k_e, r_ohm, tau) -> None:
                                                                + inertia - device.I_w_kg_m2)
 
 
+def _binned_note(res: FitResult, k: int) -> None:
+    if k > 1:
+        res.facts["fit_bin_samples"] = k
+        res.notes.append(f"The model was fitted to means of {k} consecutive samples (a long log: at most "
+                         f"{FIT_SAMPLES:,} bins, for bounded memory); the residual is over every sample.")
+
+
 # ----------------------------------------------------------------------------- coast-down
 
 def coast_model(s: np.ndarray, p) -> np.ndarray:
@@ -224,6 +236,7 @@ def fit_coast_down(log, *, device=None, scenario=None) -> FitResult:
     res.put("coulomb_deceleration_rad_s2", c, sig[2])
     res.facts.update({"coast_start_s": t0, "coast_end_s": float(t[i1 - 1]), "samples_used": int(i1 - i0),
                       "residual_rms_rad_s": fit["rms"]})
+    _binned_note(res, fit["bin"])
     model = np.full(len(t), np.nan)
     model[i0:i1] = sgn * coast_model(np.maximum(t[i0:i1] - t0, 0.0), fit["p"][:3])
     res.plot = {"t_s": t, "data": w, "model": model, "label": "wheel speed [rad/s]", "title": "coast-down"}
@@ -267,11 +280,15 @@ def _fit_coast(t: np.ndarray, ws: np.ndarray, *, where: str) -> dict:
     t_fall = tt[falling[0]] if falling.size else tt[0]
     decel = (y[0] - y[-1]) / max(tt[-1] - t_fall, 1e-12)
 
-    def misfit(p):
+    k = bin_size(len(tt))   # a long log: fitted to bin means, in bounded memory
+    tb, yb = bin_means(tt, k), bin_means(y, k)
+
+    def misfit(p, tt=tb, y=yb):
         return coast_model(np.maximum(tt - p[3], 0.0), p[:3]) - y
 
     guess = [peak, 0.1 / max(tt[-1] - tt[0], 1e-9), 0.5 * decel, t_fall]
     fit = least_squares(misfit, guess, bounds=([0.0, 0.0, 0.0, tt[0]], [np.inf, np.inf, np.inf, tt[-1]]),
                         x_scale="jac")
+    residual = fit.fun if k == 1 else misfit(fit.x, tt, y)
     return {"p": [float(v) for v in fit.x], "sigma": np.sqrt(np.diag(covariance(fit))), "i0": i0, "i1": i1,
-            "rms": float(np.sqrt(np.mean(fit.fun**2)))}
+            "rms": float(np.sqrt(np.mean(residual**2))), "bin": k}

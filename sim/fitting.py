@@ -151,17 +151,46 @@ def smooth_signal(x: np.ndarray, window: int) -> np.ndarray:
 
 def local_maxima(x: np.ndarray, *, half_width: int, min_rise: float) -> np.ndarray:
     """Indices i where x[i] is the first largest value within +-half_width samples and stands at
-    least `min_rise` above the lowest value within +-2 half_width (a simple prominence test)."""
-    from numpy.lib.stride_tricks import sliding_window_view
+    least `min_rise` above the lowest value within +-2 half_width (a simple prominence test).
+
+    Running maxima and minima (scipy.ndimage's filters) keep time and memory in proportion to the
+    samples, whatever the width (a window per sample would take samples x width).
+    """
+    from scipy.ndimage import maximum_filter1d, minimum_filter1d
 
     h = max(1, int(half_width))
+    x = np.asarray(x, dtype=float)
     if len(x) < 2 * h + 1:
         return np.zeros(0, dtype=int)
-    padded = np.pad(x, h, mode="constant", constant_values=-np.inf)
-    is_top = sliding_window_view(padded, 2 * h + 1).argmax(axis=1) == h
-    h2 = 2 * h
-    low = sliding_window_view(np.pad(x, h2, mode="edge"), 2 * h2 + 1).min(axis=1)
+    top = maximum_filter1d(x, size=2 * h + 1, mode="constant", cval=-np.inf)
+    # the largest of the h samples ending at each index; shifted by one, those just before it
+    ending = maximum_filter1d(x, size=h, mode="constant", cval=-np.inf, origin=(h - 1) // 2)
+    before = np.concatenate(([-np.inf], ending[:-1]))
+    is_top = (x == top) & (x > before)
+    low = minimum_filter1d(x, size=4 * h + 1, mode="nearest")
     return np.nonzero(is_top & (x - low >= min_rise))[0]
+
+
+FIT_SAMPLES = 250_000
+"""Most samples a least-squares model fit takes (its Jacobian and solver hold ~40 copies of the
+samples); a longer window is fitted to the means of bins of equal count (`bin_means`)."""
+
+
+def bin_size(n: int) -> int:
+    """Samples per bin so that `n` samples make at most FIT_SAMPLES bins (1: no binning)."""
+    return max(1, -(-int(n) // FIT_SAMPLES))
+
+
+def bin_means(x: np.ndarray, k: int) -> np.ndarray:
+    """Means of consecutive runs of `k` samples; a last run shorter than `k` is left out.
+
+    The mean of k samples with independent noise sigma has noise sigma / sqrt(k), so a fit to
+    n / k means has the same parameter uncertainty as one to the n samples while the model is
+    near straight within a bin (common practice, no source)."""
+    if k <= 1:
+        return x
+    full = len(x) // k * k
+    return np.asarray(x[:full], dtype=float).reshape(-1, k).mean(axis=1)
 
 
 def ratio_sigma(value: float, *rel: float) -> float:

@@ -16,16 +16,22 @@ from __future__ import annotations
 import csv
 import math
 import re
+from array import array
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from .errors import InputError
-from .textfiles import read_text_file
+from .textfiles import open_text_file
 
 MAX_LOG_BYTES = 200_000_000
 MIN_ROWS = 10
+MAX_ABS_TIME_S = 1e11
+"""Largest time a log may carry, s (3,000 years: seconds since 1970 fit, as do ms and us columns)."""
+GRID_FACTOR = 4
+"""A log's span may be at most this many times its rows at its median step (gaps allowed, a bad
+timestamp refused)."""
 
 # quantity -> {unit spelling: factor to SI}; the SI unit is the first entry
 QUANTITIES: dict[str, dict[str, float]] = {
@@ -97,15 +103,65 @@ def classify_column(name: str) -> tuple[str, float] | None:
 
 
 def read_log(path: str | Path) -> BenchLog:
-    """Read a CSV bench log into SI arrays.
+    """Read a CSV bench log into SI arrays, a row at a time (memory: 8 bytes per value kept).
 
     Raises InputError naming the file (and the column and line where it applies) when the file
-    cannot be read, a known column has no or an unknown unit, two columns give the same quantity,
-    a value is not a number, the time column is missing, or the times do not increase.
+    cannot be read, is not well-formed CSV (a quote left open, a field over the CSV reader's
+    limit), a known column has no or an unknown unit, two columns give the same quantity, a
+    value is not a number, the time column is missing, or the times are broken (see
+    `_check_times`).
     """
     path = Path(path)
     where = str(path)
-    header, rows = _read_rows(path)
+    # utf-8-sig: spreadsheet exports often start with a byte-order mark
+    fh = open_text_file(path, max_bytes=MAX_LOG_BYTES, what="a bench log", encoding="utf-8-sig")
+    lines = _DataLines(fh)
+    try:
+        with fh:
+            reader = csv.reader(lines)
+            header = next(reader, None)
+            if header is None:
+                raise InputError(f"{where}: the log is empty")
+            mapping = _columns(header, where)
+            values = {q: array("d") for q in mapping}
+            for i, row in enumerate(reader, start=1):
+                for q, (index, _, name) in mapping.items():
+                    values[q].append(_number(row, index, name, i, where))
+    except csv.Error as exc:
+        raise InputError(f"{where}: line {lines.number}: not readable as CSV ({exc}); a quote left open, or a "
+                         "field far too long?") from None
+    except UnicodeDecodeError as exc:
+        raise InputError(f"{where}: cannot read as UTF-8 text ({exc})") from None
+    except OSError as exc:
+        raise InputError(f"{where}: cannot read ({exc.strerror or exc})") from None
+    n_rows = len(values["t"])
+    if n_rows < MIN_ROWS:
+        raise InputError(f"{where}: only {n_rows} data rows; a fit needs at least {MIN_ROWS}")
+    columns = {SI_NAMES[q]: np.frombuffer(values.pop(q), dtype=float) * factor
+               for q, (_, factor, _) in mapping.items()}
+    t = columns.pop("t_s")
+    _check_times(t, where, mapping["t"][2])
+    if "angle_rad" in columns:
+        columns["angle_rad"] = np.unwrap(columns["angle_rad"])
+    names = {SI_NAMES[q]: name for q, (_, _, name) in mapping.items()}
+    return BenchLog(path=where, t_s=t, columns=columns, source_names=names)
+
+
+class _DataLines:
+    """The file's lines without blank and comment lines; `number` is the file line last read."""
+
+    def __init__(self, fh):
+        self.fh, self.number = fh, 0
+
+    def __iter__(self):
+        for line in self.fh:
+            self.number += 1
+            if line.strip() and not line.lstrip().startswith("#"):
+                yield line
+
+
+def _columns(header: list[str], where: str) -> dict[str, tuple[int, float, str]]:
+    """quantity -> (column index, factor to SI, header name), for the columns we know."""
     mapping: dict[str, tuple[int, float, str]] = {}
     for index, name in enumerate(header):
         try:
@@ -120,50 +176,48 @@ def read_log(path: str | Path) -> BenchLog:
         mapping[quantity] = (index, factor, name.strip())
     if "t" not in mapping:
         raise InputError(f"{where}: missing column t_s (time; t_ms and t_us are accepted too); "
-                         f"columns found: {', '.join(h.strip() for h in header)}")
-    columns = {SI_NAMES[q]: _numeric(rows, idx, name, where) * factor for q, (idx, factor, name) in mapping.items()}
-    t = columns.pop("t_s")
-    _check_times(t, where, mapping["t"][2])
-    if "angle_rad" in columns:
-        columns["angle_rad"] = np.unwrap(columns["angle_rad"])
-    names = {SI_NAMES[q]: name for q, (_, _, name) in mapping.items()}
-    return BenchLog(path=where, t_s=t, columns=columns, source_names=names)
+                         f"columns found: {', '.join(h.strip()[:40] for h in header[:20])}")
+    return mapping
 
 
-def _read_rows(path: Path) -> tuple[list[str], list[list[str]]]:
-    where = str(path)
-    # utf-8-sig: spreadsheet exports often start with a byte-order mark
-    text = read_text_file(path, max_bytes=MAX_LOG_BYTES, what="a bench log", encoding="utf-8-sig")
-    lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
-    if not lines:
-        raise InputError(f"{where}: the log is empty")
-    table = list(csv.reader(lines))
-    header, rows = table[0], table[1:]
-    if len(rows) < MIN_ROWS:
-        raise InputError(f"{where}: only {len(rows)} data rows; a fit needs at least {MIN_ROWS}")
-    return header, rows
-
-
-def _numeric(rows: list[list[str]], index: int, name: str, where: str) -> np.ndarray:
-    out = np.empty(len(rows))
-    for i, row in enumerate(rows):
-        try:
-            out[i] = float(row[index])
-        except (ValueError, IndexError):
-            cell = row[index] if index < len(row) else "<missing>"
-            raise InputError(f"{where}: column {name!r}, data row {i + 1}: expected a number, found {cell!r}") from None
-        if not math.isfinite(out[i]):
-            raise InputError(f"{where}: column {name!r}, data row {i + 1}: the value {row[index]!r} is not finite")
-    return out
+def _number(row: list[str], index: int, name: str, i: int, where: str) -> float:
+    """Data row `i`'s value in column `index`, a finite float, else InputError naming both."""
+    try:
+        value = float(row[index])
+    except (ValueError, IndexError):
+        cell = row[index] if index < len(row) else "<missing>"
+        if "\n" in cell or "\r" in cell:
+            raise InputError(f"{where}: column {name!r}, data row {i}: a quoted value runs over "
+                             f"{len(cell.splitlines())} lines; a quote left open?") from None
+        shown = repr(cell) if len(cell) <= 40 else f"{cell[:40]!r}... ({len(cell)} characters)"
+        raise InputError(f"{where}: column {name!r}, data row {i}: expected a number, found {shown}") from None
+    if not math.isfinite(value):
+        raise InputError(f"{where}: column {name!r}, data row {i}: the value {row[index][:40]!r} is not finite")
+    return value
 
 
 def _check_times(t: np.ndarray, where: str, name: str) -> None:
+    """Times (s) must lie within +-MAX_ABS_TIME_S, increase, and leave no gap that makes the
+    log's span more than GRID_FACTOR times its rows at the median step (a bad timestamp: the
+    even grid the fit resamples onto would be that many times larger)."""
+    far = np.nonzero(np.abs(t) > MAX_ABS_TIME_S)[0]
+    if far.size:
+        i = int(far[0])
+        raise InputError(f"{where}: column {name!r}, data row {i + 1}: {t[i]:g} s is beyond +-{MAX_ABS_TIME_S:.0e} s; "
+                         "a bad timestamp, or the wrong unit in the column name?")
     steps = np.diff(t)
     bad = np.nonzero(steps <= 0.0)[0]
     if bad.size:
         i = int(bad[0])
         raise InputError(f"{where}: column {name!r} must increase; data row {i + 2} ({t[i + 1]:g}) does not "
                          f"come after row {i + 1} ({t[i]:g})")
+    median = float(np.median(steps))
+    span = float(t[-1] - t[0])
+    if span > GRID_FACTOR * len(t) * median:
+        i = int(np.argmax(steps))
+        raise InputError(f"{where}: column {name!r}: the times jump by {steps[i]:.6g} s between data rows {i + 1} "
+                         f"and {i + 2} (the median step is {median:.3g} s), so the log spans {span / median:.3g} "
+                         f"steps for {len(t)} rows; a bad timestamp?")
 
 
 def resample_uniform(t: np.ndarray, x: np.ndarray, *, step_s: float | None = None) -> tuple[np.ndarray, np.ndarray]:

@@ -43,8 +43,8 @@ def run_tasks(fn: Callable[[Any], Any], tasks: Iterable[tuple[int, Any]], *, wor
         client, own = _connect(cluster)
         return _run_dask(fn, tasks, client, own)
     workers = default_workers() if workers is None else workers
-    if workers < 1:
-        raise InputError(f"--workers: expected at least 1, found {workers}")
+    from .options import check_workers
+    check_workers(workers)   # 1 .. 4 per core: a typo must not fork a thousand processes
     if workers == 1:
         return ((index, fn(payload)) for index, payload in tasks)
     if batch < 1:
@@ -116,27 +116,57 @@ def _connect(cluster):
 
 
 def _run_dask(fn, tasks, client, own: bool):
-    from distributed import as_completed
     try:
-        width = max(1, sum(client.nthreads().values())) * IN_FLIGHT_PER_WORKER
-        source = iter(tasks)
-        index_of: dict = {}
-        queue = as_completed()
-        for item in _take(source, width):
-            fut = client.submit(fn, item[1], pure=False)
-            index_of[fut.key] = item[0]
-            queue.add(fut)
-        for fut in queue:
-            result = fut.result()
-            yield index_of.pop(fut.key), result
-            fut.release()
-            for item in _take(source, 1):
-                nxt = client.submit(fn, item[1], pure=False)
-                index_of[nxt.key] = item[0]
-                queue.add(nxt)
+        yield from _dask_results(fn, tasks, client)
+    except Exception as exc:
+        if not _scheduler_lost(client, exc):
+            raise   # the task's own error, with the scheduler still there
+        from .outputs import MachineFault
+        raise MachineFault(f"--cluster {_address(client)}: lost the dask scheduler ({type(exc).__name__}: "
+                           f"{str(exc).splitlines()[0][:200] if str(exc) else 'no message'}); check that it runs and "
+                           "is reachable, then run the command again") from None
     finally:
         if own:
             client.close()
+
+
+def _scheduler_lost(client, exc: BaseException) -> bool:
+    """Did `exc` come from losing the scheduler (not from a task)? A client no longer running,
+    a closed client or connection, or work cancelled under us."""
+    import asyncio
+    import concurrent.futures
+    if getattr(client, "status", "running") != "running":
+        return True
+    names = {c.__name__ for c in type(exc).__mro__}
+    return bool(names & {"ClosedClientError", "CommClosedError", "CancelledError", "FutureCancelledError"}) or \
+        isinstance(exc, (OSError, asyncio.CancelledError, concurrent.futures.CancelledError))
+
+
+def _address(client) -> str:
+    try:
+        return str(client.scheduler.address)
+    except Exception:  # noqa: BLE001 - a closed client may have no scheduler left to name
+        return "(scheduler)"
+
+
+def _dask_results(fn, tasks, client):
+    from distributed import as_completed
+    width = max(1, sum(client.nthreads().values())) * IN_FLIGHT_PER_WORKER
+    source = iter(tasks)
+    index_of: dict = {}
+    queue = as_completed()
+    for item in _take(source, width):
+        fut = client.submit(fn, item[1], pure=False)
+        index_of[fut.key] = item[0]
+        queue.add(fut)
+    for fut in queue:
+        result = fut.result()
+        yield index_of.pop(fut.key), result
+        fut.release()
+        for item in _take(source, 1):
+            nxt = client.submit(fn, item[1], pure=False)
+            index_of[nxt.key] = item[0]
+            queue.add(nxt)
 
 
 def _take(source: Iterator, n: int) -> list:

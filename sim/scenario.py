@@ -40,6 +40,7 @@ from .yaml12 import Yaml12Loader
 MAX_STEPS = 5_000_000          # physics steps in one trial; more is a typo, not a plan
 MAX_FILE_BYTES = 1_000_000
 MAX_ALIASES = 100
+MAX_NODES = 100_000            # YAML nodes after aliases are expanded; a scenario has a few hundred
 
 # Physical bounds, SI (see the module docstring for why).
 MAX_SIZE_M = 100.0
@@ -430,8 +431,14 @@ class Scenario(Strict):
 # ----------------------------------------------------------------------------- loading
 
 class _GuardedLoader(Yaml12Loader):
-    """PyYAML's safe loader reading numbers as YAML 1.2 does (`sim.yaml12`), with a cap on aliases
-    (a small file must not expand into a huge one)."""
+    """PyYAML's safe loader reading numbers as YAML 1.2 does (`sim.yaml12`), with caps on aliases
+    and on the nodes the document holds once every alias is expanded (a small file must not expand
+    into a huge one: 22 aliases that each repeat the one before twice make 4 million nodes), and no
+    recursive aliases."""
+
+    def construct_document(self, node):
+        _check_expanded_size(node)
+        return super().construct_document(node)
 
     def compose_node(self, parent, index):
         if self.check_event(yaml.AliasEvent):
@@ -450,6 +457,35 @@ class _GuardedLoader(Yaml12Loader):
             if key is not None:
                 seen.add(key)
         return super().construct_mapping(node, deep=deep)
+
+
+def _check_expanded_size(root) -> None:
+    """Count `root`'s nodes as they are after alias expansion (a shared node counts once per
+    reference), without expanding anything; raise a YAMLError past MAX_NODES or on a cycle."""
+    sizes: dict[int, int] = {}
+    open_: set[int] = set()
+
+    def size(node) -> int:
+        key = id(node)
+        if key in sizes:
+            return sizes[key]
+        if key in open_:
+            raise yaml.MarkedYAMLError(problem="an alias refers to a node that contains it (a recursive structure)",
+                                       problem_mark=node.start_mark)
+        total = 1
+        if isinstance(node, (yaml.SequenceNode, yaml.MappingNode)):
+            open_.add(key)
+            items = node.value if isinstance(node, yaml.SequenceNode) else [n for pair in node.value for n in pair]
+            for child in items:
+                total += size(child)
+                if total > MAX_NODES:
+                    raise yaml.MarkedYAMLError(problem=f"more than {MAX_NODES:,} values once its aliases are "
+                                               "expanded", problem_mark=node.start_mark)
+            open_.discard(key)
+        sizes[key] = total
+        return total
+
+    size(root)
 
 
 def read_yaml(path: Path) -> Any:

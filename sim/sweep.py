@@ -32,7 +32,7 @@ import numpy as np
 import yaml
 
 from .errors import InputError, ScenarioError
-from .outputs import atomic_path, clean_json
+from .outputs import MachineFault, atomic_path, clean_json, fault_message
 from .overrides import parse_path, set_path
 from .parallel import run_tasks
 from .tolerances import trial_seed, value_at, wilson_interval
@@ -140,7 +140,29 @@ def check_varies(raw: dict, where: str, varies: list[Vary]) -> None:
 
 
 def point_task(payload: dict) -> dict:
-    """Simulate and judge one sweep point (module-level so worker processes can run it)."""
+    """Simulate and judge one sweep point (module-level so worker processes can run it).
+
+    A point whose work raises (a value that breaks its trial, its burst check or its Monte Carlo
+    draws) is that point's outcome, `error` with the exception's one-line message: the sweep
+    goes on, and a resume finds the point finished instead of meeting it again.
+    """
+    try:
+        return _point(payload)
+    except Exception as exc:  # noqa: BLE001 - any failure of one point is its outcome, not the sweep's
+        row = {key: value for key, _, value in payload["assign"]}
+        return row | {"point": payload["index"], "outcome": "error", "passed": False, "fail_reasons": "error",
+                      "message": _one_line(exc)}
+
+
+def _one_line(exc: BaseException) -> str:
+    try:
+        text = str(exc).strip().splitlines()
+    except Exception:  # noqa: BLE001 - an exception whose __str__ raises still gets a message
+        text = []
+    return f"{type(exc).__name__}: {text[0][:300]}" if text else type(exc).__name__
+
+
+def _point(payload: dict) -> dict:
     from .device import Device
     from .scenario import validate_scenario
     from .stress import optimistic_summary, wheel_burst_check
@@ -366,23 +388,36 @@ def run_sweep(raw: dict, where: str, varies: list[Vary], out_dir: Path, *, trial
                   "assign": [(v.key, v.path, x) for v, x in zip(varies, point_values(varies, i))]})
              for i in range(total) if i not in summaries)
     results = run_tasks(point_task, tasks, workers=workers, cluster=cluster)   # connects before files are written
-    journal = Journal(journal_path, spec)
-    rewrite = CsvRewrites(csv_path, varies, journal_path)
-    rewrite.now()
     try:
-        if on_progress:
-            on_progress(len(summaries), total)
-        for index, row in results:
-            row = clean_json(row)
-            journal.add(index, row)
-            summaries.add(index, row)
+        journal = Journal(journal_path, spec)
+        rewrite = CsvRewrites(csv_path, varies, journal_path)
+        try:
+            rewrite.now()
             if on_progress:
                 on_progress(len(summaries), total)
-            rewrite.when_due()
-    finally:
-        journal.close()
-        rewrite.now()
+            for index, row in results:
+                row = clean_json(row)
+                journal.add(index, row)
+                summaries.add(index, row)
+                if on_progress:
+                    on_progress(len(summaries), total)
+                rewrite.when_due()
+        finally:
+            journal.close()
+            rewrite.now()
+    except (OSError, MachineFault) as exc:
+        raise _resumable(exc, journal_path, len(summaries), total) from None
     return summaries
+
+
+def _resumable(exc: Exception, journal_path: Path, done: int, total: int) -> Exception:
+    """A fault of the machine (full disk, read-only folder, lost cluster) as one line that says
+    how to go on: the journal keeps every finished point, and the same command resumes."""
+    message = str(exc) if isinstance(exc, MachineFault) else fault_message(exc)
+    if message is None:
+        return exc
+    return MachineFault(f"{message}; {done} of {total} points are kept in {journal_path}: run the same sweep "
+                        "command again to resume")
 
 
 class CsvRewrites:

@@ -107,9 +107,20 @@ def _pushes_survived(result) -> list[bool]:
 
 # ----------------------------------------------------------------------------- battery trials
 
-def with_trial(scenario, **changes):
-    """A copy of a validated scenario with its `trial` section changed (fields re-checked by pydantic)."""
+def with_trial(scenario, *, because: str = "trial.duration", **changes):
+    """A copy of a validated scenario with its `trial` section changed (fields re-checked by pydantic).
+
+    The copy obeys the scenario's step limit like a loaded one (`sim.scenario.MAX_STEPS`): a
+    longer trial raises ScenarioError naming `because`, the key that asked for it, before any
+    trial of the battery runs.
+    """
+    from .errors import ScenarioError
+    from .scenario import MAX_STEPS
     trial = scenario.trial.model_validate({**scenario.trial.model_dump(), **changes})
+    steps = trial.duration / scenario.world.step
+    if not steps <= MAX_STEPS:
+        raise ScenarioError(f"{scenario.source}: {because}: a {trial.duration:g} s trial at a {scenario.world.step:g} s "
+                            f"step needs {steps:.3g} steps; the limit is {MAX_STEPS:.0e}")
     return scenario.model_copy(update={"trial": trial})
 
 
@@ -119,7 +130,8 @@ def hold_scenario(scenario):
 
 def swing_up_scenario(scenario):
     req = scenario.requirements
-    return with_trial(scenario, duration=req.swing_up_time + req.settle_time + 1.0,
+    return with_trial(scenario, because="requirements.swing_up_time (with settle_time, for check's swing-up trial)",
+                      duration=req.swing_up_time + req.settle_time + 1.0,
                       start={"angle": math.pi, "rate": 0.0, "wheel_speed": 0.0}, pushes=[])
 
 

@@ -16,7 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from .errors import InputError
-from .outputs import MARKER, atomic_path
+from .outputs import MARKER, atomic_path, check_name_lengths, probe_writable, remove_stale_temps
 from .progress import progress_bar
 from .overlay import Dashboard, readout, row_index
 from .render import CAMERAS, Scene
@@ -72,10 +72,16 @@ def check_target(path: str | Path, *, force: bool = False) -> Path:
     Wheelbench wrote (it holds our marker) or with `force`, so a user's file is never lost silently.
     """
     p = Path(path)
+    check_name_lengths(p, option="--video")
     if p.suffix.lower() not in SUFFIXES:
         raise InputError(f"--video {p}: the suffix picks the format; use .mp4 or .gif")
     if p.is_dir():
         raise InputError(f"--video {p}: is a folder; give a file name ending in .mp4 or .gif")
+    for parent in p.parents:
+        if parent.exists():
+            if not parent.is_dir():
+                raise InputError(f"--video {p}: {parent} is a file, not a folder")
+            break
     if p.exists() and not force and not (p.parent / MARKER).exists():
         raise InputError(f"--video {p}: the file exists; choose another name or pass --force to replace it")
     if not p.parent.exists():
@@ -83,6 +89,8 @@ def check_target(path: str | Path, *, force: bool = False) -> Path:
             p.parent.mkdir(parents=True)
         except OSError as exc:
             raise InputError(f"--video {p}: cannot create its folder ({exc.strerror or exc})") from None
+    probe_writable(p.parent, option=f"--video {p}")
+    remove_stale_temps(p.parent)   # a killed clip's temporary, proven ours by the folder's registry
     return p
 
 
@@ -137,7 +145,8 @@ class TrialPainter:
 
 
 class _Sink:
-    """Frames to a file: MP4 streams to ffmpeg; GIF keeps palette frames and writes at the end.
+    """Frames to a file as they are painted: MP4 streams to ffmpeg, GIF to the file frame by
+    frame (`_GifStream`), so memory stays flat however long the clip.
 
     x264's fastest preset: it takes about a third less of the frame budget than
     'veryfast' (measured with benchmarks/render_speed.py), for larger but still small files.
@@ -146,31 +155,67 @@ class _Sink:
     def __init__(self, path: Path, fps: int):
         self.path, self.fps = path, fps
         self.gif = path.suffix.lower() == ".gif"
-        self._frames, self._palette = [], None
-        if not self.gif:
+        if self.gif:
+            self._writer = _GifStream(path, delay_ms=max(20, round(1000 / fps / 10) * 10))  # whole hundredths
+        else:
             import imageio.v2 as iio
             self._writer = iio.get_writer(str(path), format="FFMPEG", mode="I", fps=fps, codec="libx264",
                                           pixelformat="yuv420p", macro_block_size=2, quality=None,
                                           ffmpeg_log_level="error", output_params=["-preset", "ultrafast", "-crf", "23"])
 
     def add(self, frame: np.ndarray) -> None:
-        if not self.gif:
-            self._writer.append_data(frame)
-            return
-        from PIL import Image
-        if self._palette is None:
-            self._palette = _gif_palette(frame)
-        # one palette for the whole clip (no flicker between frames), no dithering: the scene's
-        # colours are flat, and undithered frames compress far better
-        self._frames.append(Image.fromarray(frame).quantize(palette=self._palette, dither=Image.Dither.NONE))
+        self._writer.append_data(frame)
 
     def close(self) -> None:
-        if self.gif:
-            if self._frames:  # GIF delays are whole hundredths of a second
-                self._frames[0].save(self.path, format="GIF", save_all=True, append_images=self._frames[1:],
-                                     duration=max(20, round(1000 / self.fps / 10) * 10), loop=0)
+        self._writer.close()
+
+
+class _GifStream:
+    """A looping GIF written one frame at a time: the header with one palette for the whole clip
+    (from the first frame, `_gif_palette`; no flicker between frames), then each frame as the
+    rectangle that changed since the previous one, then the trailer. Only the previous frame's
+    palette indices stay in memory.
+
+    No dithering: the scene's colours are flat, and undithered frames compress far better.
+    """
+
+    def __init__(self, path: Path, *, delay_ms: int):
+        self.fh = open(path, "wb")
+        self.delay_ms = delay_ms
+        self._palette = None
+        self._previous: np.ndarray | None = None
+
+    def append_data(self, frame: np.ndarray) -> None:
+        from PIL import GifImagePlugin, Image
+        if self._palette is None:
+            self._palette = _gif_palette(frame)
+        image = Image.fromarray(frame).quantize(palette=self._palette, dither=Image.Dither.NONE)
+        index = np.asarray(image)
+        info = {"duration": self.delay_ms, "disposal": 1}   # 1: keep the frame; the next draws over it
+        if self._previous is None:
+            header, _ = GifImagePlugin.getheader(image, info={"optimize": False, "loop": 0, **info})
+            self.fh.write(b"".join(header))
+            box = (0, 0, index.shape[1], index.shape[0])
         else:
-            self._writer.close()
+            box = _changed_box(self._previous, index)
+        self._previous = index
+        part = image.crop(box)
+        part.palette = image.palette
+        self.fh.write(b"".join(GifImagePlugin.getdata(part, offset=box[:2], **info)))
+
+    def close(self) -> None:
+        if self._previous is not None:
+            self.fh.write(b";")   # the GIF trailer
+        self.fh.close()
+
+
+def _changed_box(before: np.ndarray, after: np.ndarray) -> tuple[int, int, int, int]:
+    """(left, top, right, bottom) of the pixels that differ; one pixel when none does."""
+    rows = np.nonzero((before != after).any(axis=1))[0]
+    if rows.size == 0:
+        return (0, 0, 1, 1)
+    cols = np.nonzero((before[rows[0]:rows[-1] + 1] != after[rows[0]:rows[-1] + 1]).any(axis=0))[0]
+    return (int(cols[0]), int(rows[0]), int(cols[-1]) + 1, int(rows[-1]) + 1)
 
 
 def _gif_palette(first: np.ndarray):
@@ -285,8 +330,8 @@ def compare_to_clip(scenarios, labels, *, seed: int | None = None, progress: boo
     """
     from .trial import run_trial
 
-    if labels and len(labels) != 2:
-        raise InputError(f"--label: give it twice (one per side), or not at all; found {len(labels)}")
+    from .options import check_labels
+    check_labels(labels)
     results = [run_trial(sc, seed=seed) for sc in scenarios]
     if not labels:
         labels = [f"{tag}: {r.scenario.name} | {r.scenario.strategy.kind}" for tag, r in zip("AB", results)]

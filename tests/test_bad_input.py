@@ -362,3 +362,77 @@ def test_bad_option(capsys, tmp_path, scenario_file, case):
         del argv[i:i + 2]
     code, _, err = run_cli(capsys, argv + extra)
     assert_rejected(code, err, names=fragments, out=out)  # incl. a folder made before the error was found
+
+
+# --------------------------------------------------------------------- options checked before simulating (issue 13)
+
+@pytest.fixture
+def no_simulation(monkeypatch):
+    """Any trial started fails the test at once: the options must be refused before."""
+    import sim.runfiles
+    import sim.trial
+    import sim.verdicts
+
+    def boom(*args, **kwargs):
+        raise AssertionError("a trial was simulated before the options were checked")
+    for module in (sim.trial, sim.runfiles, sim.verdicts):
+        monkeypatch.setattr(module, "run_trial", boom)
+
+
+LONG = "n" * 256   # one byte over the 255 most file systems take for a name (ext4, XFS: common practice, no source)
+EARLY_CASES = {
+    # id: (argv after the command and scenario, with {tmp} for the test's folder; fragments of the one line)
+    "run_out_name_too_long": ("run", ["--out", "{tmp}/" + LONG], ["--out", "255"]),
+    "check_out_name_too_long": ("check", ["--out", "{tmp}/" + LONG + "/x", "--trials", "1"], ["--out", "255"]),
+    "run_video_name_too_long": ("run", ["--out", "{tmp}/out", "--video", "{tmp}/" + LONG + ".gif"], ["--video", "255"]),
+    "run_video_parent_is_a_file": ("run", ["--out", "{tmp}/out", "--video", "{tmp}/afile/clip.gif"],
+                                   ["--video", "afile is a file"]),
+    "cluster_words": ("check", ["--out", "{tmp}/out", "--cluster", "not an address"], ["--cluster 'not an address'"]),
+    "cluster_empty": ("sweep", ["--out", "{tmp}/out", "--vary", "drive.supply=10,12", "--cluster", ""], ["--cluster ''"]),
+    "cluster_http": ("catch-map", ["--out", "{tmp}/out", "--cluster", "http://10.0.0.5:8786"],
+                     ["--cluster 'http://10.0.0.5:8786'", "scheme 'http'"]),
+    "catch_map_rate_absurd": ("catch-map", ["--out", "{tmp}/out", "--rate-max", "1e9 rad/s"], ["--rate-max", "1000"]),
+    "catch_map_angle_absurd": ("catch-map", ["--out", "{tmp}/out", "--angle-max", "7200 deg"], ["--angle-max"]),
+    "check_trials_too_many": ("check", ["--out", "{tmp}/out", "--trials", "1000000000000"], ["--trials", "100,000"]),
+    "sweep_trials_too_many": ("sweep", ["--out", "{tmp}/out", "--vary", "drive.supply=10,12", "--trials", "200000"],
+                              ["--trials", "100,000"]),
+    "check_workers_too_many": ("check", ["--out", "{tmp}/out", "--trials", "1", "--workers", "1000"],
+                               ["--workers 1000", "per core"]),
+    "clip_shorter_than_a_frame": ("run", ["--out", "{tmp}/out", "--video", "{tmp}/c.gif", "--fps", "1"],
+                                  ["--video", "too short for one frame"]),
+    "compare_label_once": ("compare", ["--video", "{tmp}/c.gif", "--label", "only one"], ["--label", "twice"]),
+}
+
+
+@pytest.mark.parametrize("case", sorted(EARLY_CASES))
+def test_options_are_refused_before_anything_is_simulated(capsys, tmp_path, scenario_file, no_simulation, case):
+    """Issue 13 part 5 and 6: one line naming the option, exit 2, no trial run, no --out made."""
+    command, extra, fragments = EARLY_CASES[case]
+    (tmp_path / "afile").write_text("a user's file")
+    argv = [command, str(scenario_file), *(a.replace("{tmp}", str(tmp_path)) for a in extra)]
+    code, _, err = run_cli(capsys, argv)
+    assert_rejected(code, err, names=fragments, out=tmp_path / "out")
+    assert (tmp_path / "afile").read_text() == "a user's file"
+
+
+def test_a_swing_up_requirement_past_the_step_limit_is_refused_before_simulating(capsys, tmp_path, no_simulation):
+    """Issue 13 part 5: check's own swing-up trial obeys the 5,000,000-step limit
+    (requirements.swing_up_time 1e9 s at a 1 ms step asked for 1e12 steps)."""
+    path = write_scenario(tmp_path / "s.yaml", scenario_dict(strategy={"kind": "swing_and_catch"},
+                                                             requirements={"swing_up_time": "1e9 s"}))
+    out = tmp_path / "out"
+    code, _, err = run_cli(capsys, ["check", str(path), "--out", str(out), "--trials", "1", "--workers", "1"])
+    assert_rejected(code, err, names=[str(path), "requirements.swing_up_time", "limit"], out=out)
+
+
+def test_alias_fan_out_is_limited_by_its_expanded_size(capsys, tmp_path):
+    """Issue 13 part 5: 22 aliases (under the alias cap) that each repeat the one before twice
+    expand to 2^23 values; the loader counts nodes after expansion and refuses."""
+    lines = ["name: fan-out", "x0: &x0 [1, 2]"] + [f"x{i}: &x{i} [*x{i - 1}, *x{i - 1}]" for i in range(1, 23)]
+    path = tmp_path / "fan.yaml"
+    path.write_text("\n".join(lines) + "\n")
+    code, _, err = run_cli(capsys, ["validate", str(path)])
+    assert_rejected(code, err, names=[str(path), "once its aliases are expanded"])
+    path.write_text("a: &a [1, *a]\n")  # an alias inside its own anchor: a structure without end
+    code, _, err = run_cli(capsys, ["validate", str(path)])
+    assert_rejected(code, err, names=[str(path), "recursive"])

@@ -165,3 +165,89 @@ def test_fast_wheel_washes_out_its_marks_slow_one_does_not():
         fast = scene.draw(0.0, 0.3, wheel_step_rad=3.0)     # past the 120-deg spoke spacing: aliasing
     assert (sharp == slow).all()
     assert np.abs(sharp.astype(int) - fast.astype(int)).max() > 30
+
+
+# --------------------------------------------------------------------- streamed GIF, stale clip temporaries (issue 13)
+
+def _noisy_frames(n: int, shape=(108, 192)):
+    """Frames of coloured noise with a moving block: large after compression, different each frame."""
+    rng = np.random.default_rng(5)
+    frames = []
+    for k in range(n):
+        f = rng.integers(0, 256, (*shape, 3), dtype=np.uint8)
+        f[10:40, 8 * k % shape[1]:8 * k % shape[1] + 20] = (200, 30, 30)
+        frames.append(f)
+    return frames
+
+
+def test_gif_frames_reach_the_file_as_they_are_painted_and_decode_as_pillows_own(tmp_path):
+    """A GIF clip is written frame by frame (the file grows before the clip ends, so memory stays
+    flat in its length), and decodes to the same pixels as Pillow's own whole-clip GIF writer
+    given the same palette frames (the reference: Pillow, a general-purpose imaging library)."""
+    from PIL import Image
+
+    from sim.video import _gif_palette, _Sink
+    frames = _noisy_frames(6)
+    path = tmp_path / "s.gif"
+    sink = _Sink(path, fps=10)
+    sizes = []
+    for f in frames:
+        sink.add(f)
+        sizes.append(path.stat().st_size)
+    sink.close()
+    assert sizes[2] > 0 and sizes[-1] > sizes[2], sizes        # on disk before the end
+    palette = _gif_palette(frames[0])
+    quantised = [Image.fromarray(f).quantize(palette=palette, dither=Image.Dither.NONE) for f in frames]
+    quantised[0].save(tmp_path / "ref.gif", format="GIF", save_all=True, append_images=quantised[1:], duration=100,
+                      loop=0)
+    with Image.open(path) as ours, Image.open(tmp_path / "ref.gif") as ref:
+        assert ours.n_frames == ref.n_frames == 6
+        for i in range(6):
+            ours.seek(i)
+            ref.seek(i)
+            assert ours.info["duration"] == 100                # 10 fps: 100 ms a frame
+            assert (np.asarray(ours.convert("RGB")) == np.asarray(ref.convert("RGB"))).all(), i
+
+
+def test_stale_clip_temporaries_beside_a_video_are_cleaned_by_the_next_clip(tmp_path, scenario_file):
+    """Issue 13 part 8: a killed `run --video` leaves its hidden temporary in the clip's folder
+    (outside --out); the next clip written there removes it, as the folder's registry proves it
+    ours; a user's file of the same look stays."""
+    import subprocess
+    import sys
+
+    from sim.outputs import register_temp
+    clips = tmp_path / "clips"
+    clips.mkdir()
+    dead = subprocess.Popen([sys.executable, "-c", "pass"])
+    dead.wait()
+    stale = clips / f".c.gif.{dead.pid}.1a2b3c4d.tmp.gif"
+    register_temp(clips, stale.name)                  # as atomic_path does before the kill
+    stale.write_bytes(b"GIF89a half a clip")
+    user = clips / ".notes.999999.keepthis.tmp"
+    user.write_text("mine")
+    code = main(["run", str(scenario_file), "--out", str(tmp_path / "run"), "--video", str(clips / "c.gif"),
+                 "--size", "128x72", "--fps", "10"])
+    assert code == 0
+    assert sorted(p.name for p in clips.iterdir()) == [".notes.999999.keepthis.tmp", "c.gif"]
+
+
+def test_a_gif_frame_that_repeats_the_one_before_stays_a_frame(tmp_path):
+    """A frame with no change is written as a one-pixel update: the clip keeps its frame count
+    (duration x fps) and decodes to the same picture twice."""
+    from PIL import Image
+
+    from sim.video import _Sink
+    frames = _noisy_frames(3)
+    frames.insert(2, frames[1].copy())
+    sink = _Sink(tmp_path / "r.gif", fps=25)
+    for f in frames:
+        sink.add(f)
+    sink.close()
+    with Image.open(tmp_path / "r.gif") as gif:
+        assert gif.n_frames == 4
+        pictures = []
+        for i in range(4):
+            gif.seek(i)
+            pictures.append(np.asarray(gif.convert("RGB")).copy())
+    assert (pictures[1] == pictures[2]).all() and not (pictures[2] == pictures[3]).all()

@@ -20,7 +20,8 @@ import pytest
 
 from conftest import scenario_dict, write_scenario
 from sim.errors import InputError
-from sim.outputs import MARKER, atomic_path, prepare_out_dir, remove_stale_temps, write_json, write_text
+from sim.outputs import (LOCK, MARKER, atomic_path, prepare_out_dir, register_temp, release_locks, remove_stale_temps,
+                         write_json, write_text)
 
 TRACE_FIELDS = 13  # trace.csv columns (README "trace.csv")
 
@@ -86,6 +87,8 @@ def test_stale_temps_of_dead_writers_only_are_removed(tmp_path):
     user = out / ".notes.tmp"
     for p in (stale, live, user):
         p.write_text("x")
+    for p in (stale, live):  # as atomic_path does: entered in the registry before being created
+        register_temp(out, p.name)
     assert remove_stale_temps(out) == [stale]
     assert live.exists() and user.exists() and not stale.exists()
 
@@ -102,6 +105,7 @@ def test_temps_of_an_ended_but_unreaped_writer_are_removed(tmp_path):
             assert time.monotonic() < deadline, "the child did not end"
             time.sleep(0.01)                              # ended, not reaped: a zombie
         stale = out / f".summary.png.{zombie.pid}.abcd1234.tmp.png"
+        register_temp(out, stale.name)
         stale.write_text("x")
         assert remove_stale_temps(out) == [stale]
     finally:
@@ -148,7 +152,7 @@ def test_killed_run_leaves_complete_files_or_none(tmp_path):
             _check_complete(out, n_rows)
     subprocess.run(argv + ["--out", str(out)], check=True, capture_output=True, timeout=300)
     assert _check_complete(out, n_rows) == ["metrics.json", "summary.png", "trace.csv"]
-    assert sorted(p.name for p in out.iterdir() if p.name.startswith(".")) == [MARKER]  # stale temps gone
+    assert sorted(p.name for p in out.iterdir() if p.name.startswith(".")) == [LOCK, MARKER]  # stale temps gone
 
 
 @pytest.mark.slow
@@ -168,4 +172,159 @@ def test_interrupted_run_cleans_up(tmp_path):
     _, err = proc.communicate(timeout=120)
     assert proc.returncode == 130, err
     assert err.strip().splitlines()[-1] == "wheelbench: interrupted"
-    assert sorted(p.name for p in out.iterdir()) == [MARKER]
+    assert sorted(p.name for p in out.iterdir()) == [LOCK, MARKER]
+
+
+# --------------------------------------------------------------------- registry of temporaries, locks
+
+def _dead_pid() -> int:
+    dead = subprocess.Popen([sys.executable, "-c", "pass"])
+    dead.wait()
+    return dead.pid
+
+
+def test_force_removes_only_registered_temporaries(tmp_path):
+    """Issue 13 part 8: a user's file that matches the temporary-name pattern, with a pid of no
+    running process, survives a forced write; a temporary the registry proves ours does not."""
+    folder = tmp_path / "mine"
+    folder.mkdir()
+    user = folder / ".notes.999999.keepthis.tmp"     # looks like ours: dot, name, pid, 8 chars, .tmp
+    user.write_text("my notes")
+    ours = folder / f".trace.csv.{_dead_pid()}.0badf00d.tmp.csv"
+    register_temp(folder, ours.name)                  # (no marker yet: the hidden registry file)
+    ours.write_text("half a trace")
+    prepare_out_dir(folder, force=True)
+    assert user.read_text() == "my notes"
+    assert not ours.exists()
+    assert not (folder / ".wheelbench-temps").exists()   # emptied and gone
+
+
+def test_an_unfinished_atomic_write_is_registered_and_a_finished_one_struck(tmp_path):
+    out = prepare_out_dir(tmp_path / "o")
+    with atomic_path(out / "a.txt") as tmp:
+        tmp.write_text("x")
+        assert f"+{tmp.name}" in (out / MARKER).read_text().splitlines()
+    assert f"-{tmp.name}" in (out / MARKER).read_text().splitlines()
+    beside = tmp_path / "user"                        # a folder without our marker (a --video target)
+    beside.mkdir()
+    write_text(beside / "clip.txt", "y")
+    assert sorted(p.name for p in beside.iterdir()) == ["clip.txt"]   # the registry went with its entry
+
+
+def test_a_second_command_into_a_locked_folder_is_refused(tmp_path):
+    import fcntl
+
+    out = prepare_out_dir(tmp_path / "o")
+    release_locks()
+    fd = os.open(out / ".wheelbench-lock", os.O_RDWR)   # another process's lock: its own open file
+    fcntl.flock(fd, fcntl.LOCK_EX)
+    try:
+        with pytest.raises(InputError, match="another wheelbench command"):
+            prepare_out_dir(out)
+    finally:
+        os.close(fd)
+    prepare_out_dir(out)                               # let go: taken
+    release_locks()
+
+
+@pytest.mark.skipif(os.name != "posix", reason="POSIX permissions")
+def test_out_folder_that_cannot_take_files_is_refused_before_work(tmp_path):
+    """Issue 13 part 6: root passes os.access checks, so the probe really creates a file."""
+    ro = tmp_path / "ro"
+    ro.mkdir()
+    os.chmod(ro, 0o500)
+    try:
+        probe = ro / "p"
+        try:
+            probe.write_text("x")
+            probe.unlink()
+            pytest.skip("chmod 0500 does not stop this user (root with CAP_DAC_OVERRIDE)")
+        except OSError:
+            pass
+        with pytest.raises(InputError, match="cannot write"):
+            prepare_out_dir(ro / "sub")
+    finally:
+        os.chmod(ro, 0o700)
+
+
+def test_disk_full_while_writing_is_one_line_and_keeps_the_old_file(tmp_path, monkeypatch):
+    import errno
+
+    from sim.outputs import MachineFault
+    target = tmp_path / "m.json"
+    target.write_text("old\n")
+
+    def full(*args, **kwargs):
+        raise OSError(errno.ENOSPC, "No space left on device")
+    monkeypatch.setattr(Path, "write_text", full)
+    with pytest.raises(MachineFault, match="disk is full"):
+        write_text(target, "new\n")
+    monkeypatch.undo()
+    assert target.read_text() == "old\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["m.json"]
+
+
+@pytest.fixture
+def read_only_out(tmp_path):
+    """An output folder written by wheelbench earlier (marker and a metrics.json inside) on a
+    file system then made read-only: a tmpfs mounted and remounted read-only (needs root; skips
+    otherwise)."""
+    mnt = tmp_path / "mnt"
+    mnt.mkdir()
+    if subprocess.run(["mount", "-t", "tmpfs", "-o", "size=4m", "tmpfs", str(mnt)], capture_output=True).returncode:
+        pytest.skip("cannot mount a tmpfs here (not root, or no mount permission)")
+    try:
+        out = prepare_out_dir(mnt / "out")
+        release_locks()
+        (out / "metrics.json").write_text("{}\n")
+        if subprocess.run(["mount", "-o", "remount,ro", str(mnt)], capture_output=True).returncode:
+            pytest.skip("cannot remount the tmpfs read-only")
+        yield out
+    finally:
+        release_locks()
+        subprocess.run(["umount", "-l", str(mnt)], capture_output=True)
+
+
+def test_read_only_out_folder_is_refused_before_simulating(read_only_out, scenario_file, capsys, monkeypatch,
+                                                           tmp_path):
+    """Issue 13 part 6: a folder that exists, is ours, and cannot take a file (EROFS)."""
+    import sim.runfiles
+    from sim.cli import main
+
+    monkeypatch.setattr(sim.runfiles, "run_trial", lambda *a, **k: pytest.fail("simulated before the check"))
+    code = main(["run", str(scenario_file), "--out", str(read_only_out)])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1, err
+    assert "--out" in err[0] and "cannot write" in err[0] and "Read-only" in err[0]
+    assert (read_only_out / "metrics.json").read_text() == "{}\n"
+    clip = read_only_out / "clip.gif"                  # a clip into the read-only folder: refused as early
+    code = main(["run", str(scenario_file), "--out", str(tmp_path / "fresh"), "--video", str(clip)])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1 and "--video" in err[0] and "cannot write" in err[0], err
+    assert not (tmp_path / "fresh").exists()
+
+
+@pytest.mark.parametrize("code_, words", [(28, "disk is full"), (30, "read-only"), (13, "permission denied")])
+def test_disk_faults_while_a_run_writes_are_one_line(tmp_path, scenario_file, capsys, monkeypatch, code_, words):
+    """Issue 13 part 7: the disk fills (or turns read-only) while trace.csv is written: one line
+    saying what to do, exit 2, and metrics.json of an earlier run is kept whole."""
+    import errno
+
+    import sim.runfiles
+    from sim.cli import main
+    assert code_ == {28: errno.ENOSPC, 30: errno.EROFS, 13: errno.EACCES}[code_]   # Linux's numbers
+    out = tmp_path / "out"
+    assert main(["run", str(scenario_file), "--out", str(out)]) == 0
+    before = (out / "metrics.json").read_text()
+
+    def fail(trace, path, *args, **kwargs):
+        Path(path).write_text("part of a trace")
+        raise OSError(code_, os.strerror(code_), str(path))
+    monkeypatch.setattr(sim.runfiles, "write_csv", fail)
+    capsys.readouterr()
+    code = main(["run", str(scenario_file), "--out", str(out)])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2 and len(err) == 1, err
+    assert words in err[0] and "trace.csv" in err[0] and "Traceback" not in err[0]
+    assert (out / "metrics.json").read_text() == before
+    assert not [p.name for p in out.iterdir() if p.name.endswith(".tmp.csv")]   # the temporary went

@@ -159,3 +159,98 @@ def test_results_csv_is_written_in_point_order_from_an_unordered_journal(tmp_pat
     assert journal.read_text().endswith("}}\n")                # the torn line was cut off
     with pytest.raises(InputError, match="different sweep"):
         read_journal(journal, {"made": "otherwise"}, PointSummaries(varies))
+
+
+# --------------------------------------------------------------------- robustness (issue 13 parts 7 and 8)
+
+@pytest.fixture
+def judged(monkeypatch):
+    """Points judged without simulating (in-process, one worker): a record of the supplies judged;
+    a supply of 11 V makes the point's work raise, as a value that breaks its trial does."""
+    import sim.verdicts
+    calls = []
+
+    def judge(sc, *, seed):
+        calls.append(sc.drive.supply)
+        if abs(sc.drive.supply - 11.0) < 1e-9:
+            raise FloatingPointError("a value this trial cannot take")
+        return {"outcome": "balanced", "fail_reasons": ""}
+    monkeypatch.setattr(sim.verdicts, "judge_trial", judge)
+    return calls
+
+
+def test_a_point_that_raises_is_its_outcome_and_the_sweep_goes_on(tmp_path, judged):
+    scen = write_scenario(tmp_path / "s.yaml", fast_raw())
+    out = tmp_path / "out"
+    argv = ["sweep", scen, "--vary", "drive.supply=10,11,12", "--out", str(out), "--workers", "1"]
+    assert main(argv) == 0
+    rows = read_rows(out / "results.csv")
+    assert [r["outcome"] for r in rows] == ["balanced", "error", "balanced"]
+    assert rows[1]["passed"] == "False" and "FloatingPointError: a value this trial cannot take" in rows[1]["message"]
+    assert len(judged) == 3
+    assert main(argv) == 0          # a resume finds every point finished, the bad one too
+    assert len(judged) == 3
+    assert read_rows(out / "results.csv") == rows
+
+
+def test_a_second_sweep_into_a_folder_in_use_is_refused_or_waits(tmp_path, judged, capsys):
+    import fcntl
+    import threading
+
+    scen = write_scenario(tmp_path / "s.yaml", fast_raw())
+    out = tmp_path / "out"
+    argv = ["sweep", scen, "--vary", "drive.supply=10,12", "--out", str(out), "--workers", "1"]
+    assert main(argv) == 0
+    fd = os.open(out / ".wheelbench-lock", os.O_RDWR)     # another sweep's hold on the folder
+    fcntl.flock(fd, fcntl.LOCK_EX)
+    try:
+        capsys.readouterr()
+        assert main(argv) == 2
+        err = capsys.readouterr().err.strip().splitlines()
+        assert len(err) == 1 and "another wheelbench command" in err[0] and "--wait" in err[0]
+        threading.Timer(0.5, os.close, args=(fd,)).start()   # the other sweep ends
+        assert main(argv + ["--wait"]) == 0
+    finally:
+        try:
+            os.close(fd)
+        except OSError:
+            pass
+
+
+def test_a_full_disk_mid_sweep_is_one_line_with_resume_instructions(tmp_path, judged, capsys, monkeypatch):
+    import errno
+
+    import sim.sweep
+    scen = write_scenario(tmp_path / "s.yaml", fast_raw())
+    out = tmp_path / "out"
+    argv = ["sweep", scen, "--vary", "drive.supply=10,12,14", "--out", str(out), "--workers", "1"]
+    real_add = sim.sweep.Journal.add
+
+    def add_then_fill(self, index, row):
+        if index > 0:
+            raise OSError(errno.ENOSPC, "No space left on device")
+        real_add(self, index, row)
+    monkeypatch.setattr(sim.sweep.Journal, "add", add_then_fill)
+    assert main(argv) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "disk is full" in err[0] and "resume" in err[0] and "1 of 3 points" in err[0], err
+    monkeypatch.setattr(sim.sweep.Journal, "add", real_add)
+    assert main(argv) == 0                                  # resumed: the finished point is not judged again
+    assert len(judged) == 1 + 1 + 2
+    assert [r["point"] for r in read_rows(out / "results.csv")] == ["0", "1", "2"]
+
+
+def test_a_lost_dask_scheduler_is_one_line_with_resume_instructions(tmp_path, judged):
+    distributed = pytest.importorskip("distributed")
+    from sim.outputs import MachineFault, prepare_out_dir
+    scen = write_scenario(tmp_path / "s.yaml", fast_raw())
+    raw, where = load_raw(scen)
+    cluster = distributed.LocalCluster(processes=False, n_workers=1, threads_per_worker=1, dashboard_address=None)
+    client = distributed.Client(cluster)
+    cluster.close()                                          # the scheduler goes away
+    out = prepare_out_dir(tmp_path / "out")
+    with pytest.raises(MachineFault) as info:
+        run_sweep(raw, where, [parse_vary("drive.supply=10,12")], out, cluster=client)
+    message = str(info.value)
+    assert "lost the dask scheduler" in message and "resume" in message and "\n" not in message
+    client.close()

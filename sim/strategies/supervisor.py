@@ -5,6 +5,8 @@ Hand-over with hysteresis: balance takes charge when the measured angle comes wi
 region); it gives the body back to the swing-up law when the angle leaves `release_angle`.
 Each hand-over builds a fresh instance of the incoming law, so integrators and predictors
 start clean. The trace's `mode` shows the active law's phase ("kick", "swing up", "balance"...).
+`extra_metrics` carries `handover_count` and the sub-laws' own reports, the latest law's value
+winning for a shared key (so a swing-up's `swing_energy_peak_j` is that of the latest swing-up).
 """
 
 from __future__ import annotations
