@@ -98,26 +98,29 @@ def compare(first: Optional[Path] = typer.Argument(None, help="First scenario (d
 @app.command()
 def validate(scenario: Path = typer.Argument(..., help="Scenario YAML file."),
              set_: Optional[List[str]] = SetOpt):
-    """Check a scenario file and print its derived device figures."""
+    """Check a scenario file and print its derived device figures and the strategy parameters in use."""
     from .device import Device
+    from .device_figures import figures_text
     sc = _load(scenario, set_)
     d = Device.from_scenario(sc)
-    typer.echo(f"{scenario}: valid. mass {d.mass_kg * 1000:.1f} g, J {d.J_kg_m2:.4g} kg m^2, "
-               f"wheel I_w {d.I_w_kg_m2:.4g} kg m^2, no-load speed {d.no_load_speed_rad_s:.1f} rad/s, "
-               f"stall torque {d.stall_torque_n_m * 1000:.1f} mN m, strategy {sc.strategy.kind}")
+    typer.echo(f"{scenario}: valid.")
+    for line in figures_text(d, sc.strategy):
+        typer.echo(f"  {line}")
 
 
 @app.command()
 def gains(scenario: Optional[Path] = ScenarioArg,
-          format_: str = typer.Option("json", "--format", help="json or c (a C header)."),
+          format_: str = typer.Option("json", "--format", help="json, c (a C header with a reference function) "
+                                                               "or text (for reading)."),
           set_: Optional[List[str]] = SetOpt):
-    """Print the balance law's LQR gains for firmware (stdout)."""
+    """Print the balance law's gains (LQR or PID) for firmware, with model-based starting values (stdout)."""
     from .errors import InputError
-    from .gains import gains_report, to_c_header, to_json
-    if format_ not in ("json", "c"):
-        raise InputError(f"--format: expected 'json' or 'c', found {format_!r}")
+    from .gains import gains_report, to_c_header, to_json, to_text
+    writers = {"json": to_json, "c": to_c_header, "text": to_text}
+    if format_ not in writers:
+        raise InputError(f"--format: expected 'json', 'c' or 'text', found {format_!r}")
     report = gains_report(_load(scenario, set_))
-    typer.echo(to_json(report) if format_ == "json" else to_c_header(report), nl=format_ == "json")
+    typer.echo(writers[format_](report), nl=format_ == "json")
 
 
 @app.command()
@@ -137,13 +140,38 @@ def fit(log: Path = typer.Argument(..., help="CSV bench log with units in the he
     check_out_path(out)
     sc = _load(scenario, None) if scenario is not None else None
     result = fit_log(read_log(log), test, scenario=sc)
-    written = write_fit_outputs(result, out, log_path=str(log), scenario_path=str(scenario) if scenario else None,
-                                force=force)
+    written, notes = write_fit_outputs(result, out, log_path=str(log),
+                                       scenario_path=str(scenario) if scenario else None, force=force)
     for key, (value, sigma) in result.values.items():
         typer.echo(f"{key:40s} {value:.6g}" + (f" +- {sigma:.2g}" if sigma is not None else ""))
+    for note in notes:
+        typer.echo(f"note: {note}")
     typer.echo(f"wrote {', '.join(str(p) for p in written)}")
     if test != "free-swing":
         typer.echo(SAFETY)
+
+
+@app.command()
+def apply(scenario: Path = typer.Argument(..., help="Scenario YAML file to patch."),
+          patches: List[Path] = typer.Argument(..., help="Patch files (YAML mappings of scenario keys), in order."),
+          out: Optional[Path] = typer.Option(None, "--out", help="Write the patched scenario to this file."),
+          in_place: bool = typer.Option(False, "--in-place", help="Replace the scenario file itself."),
+          force: bool = typer.Option(False, "--force", help="Replace an existing --out file.")):
+    """Merge patches (from fit, tune or by hand) into a scenario, keeping its comments and layout.
+
+    Without --out or --in-place the patched scenario is printed. The result is validated before
+    anything is written, and written atomically.
+    """
+    from .scenario_edit import apply_command
+    result, written = apply_command(scenario, list(patches), out=out, in_place=in_place, force=force)
+    if written is None:
+        typer.echo(result.text, nl=False)
+        for note in result.notes:
+            typer.echo(f"note: {note}", err=True)
+        return
+    for note in result.notes:
+        typer.echo(f"note: {note}")
+    typer.echo(f"wrote {written}")
 
 
 TrialsOpt = typer.Option(None, "--trials", help="Monte Carlo trials over the scenario's tolerances.")
@@ -216,13 +244,16 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
           trials: int = typer.Option(0, "--trials", help="Monte Carlo trials per point (0: the nominal design only)."),
           workers: Optional[int] = WorkersOpt, cluster: Optional[str] = ClusterOpt,
           set_: Optional[List[str]] = SetOpt, force: bool = ForceOpt,
+          color: Optional[str] = typer.Option(None, "--color", help="Metric the heat map shows (a numeric "
+                                                                     "results.csv column, e.g. wheel_runaway_time_s)."),
           wait: bool = typer.Option(False, "--wait", help="If another command is writing into --out, wait for it "
                                                           "to finish instead of refusing.")):
     """Run a design grid; write results.csv and a line plot (one key) or heat map (two keys)."""
     from .options import check_trials
     from .outputs import check_out_path, prepare_out_dir
     from .plots import save_figure
-    from .sweep import parse_vary, run_sweep, sweep_figure
+    from .sweep import check_color, parse_vary, run_sweep, sweep_figure
+    check_color(color)
     check_trials(trials, minimum=0)
     check_out_path(out)
     raw, where = _load_raw(scenario, set_, workers, cluster)
@@ -231,13 +262,108 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
     bar, update = _progress("sweep")
     with bar:
         points = run_sweep(raw, where, varies, out_dir, trials=trials, workers=workers, cluster=cluster,
-                           on_progress=update)
-    fig = sweep_figure(varies, points)
+                           on_progress=update, color=color)
+    fig = sweep_figure(varies, points, color=color)
     if fig is not None:
         save_figure(fig, out_dir / "sweep.png")
     typer.echo(f"{points.n_passed} of {len(points)} points pass; wrote {out_dir}/results.csv"
                + (", sweep.png" if fig is not None else " (no plot for more than two keys)"))
     typer.echo(SAFETY)
+
+
+@app.command()
+def tune(scenario: Optional[Path] = ScenarioArg,
+         out: Path = typer.Option(Path("runs/tune"), "--out", help="Output folder (re-run the same command to resume)."),
+         trials: int = typer.Option(40, "--trials", help="Evaluations (each: the check battery without Monte Carlo)."),
+         objective: str = typer.Option("push", "--objective", help="push, swing_up_time, catch_area or peak_current; "
+                                                                    "two separated by a comma give a Pareto front."),
+         param: Optional[List[str]] = typer.Option(None, "--param", help="KEY=LO..HI[:log] (SI) to search too; "
+                                                                         "repeatable."),
+         only: bool = typer.Option(False, "--only", help="Search only the --param keys, not the strategy's defaults."),
+         mc_trials: Optional[int] = typer.Option(None, "--mc-trials", help="Monte Carlo trials when re-checking the "
+                                                                             "best (default: as check)."),
+         workers: Optional[int] = WorkersOpt, cluster: Optional[str] = ClusterOpt, seed: Optional[int] = SeedOpt,
+         storage: Optional[str] = typer.Option(None, "--storage", help="An optuna storage URL to share one study "
+                                                                        "between machines (default: tune.db in --out)."),
+         force: bool = ForceOpt):
+    """Search the strategy's gains and weights for the design that passes check with the most margin.
+
+    Exit code 0 when a passing design was found, 1 when none passed (the closest is shown).
+    """
+    from .errors import InputError
+    from .options import MAX_TRIALS, check_trials
+    from .outputs import check_out_path, prepare_out_dir
+    from .scenario import default_scenario_path
+    from .tune_outputs import run_tune
+    from .verdicts import DEFAULT_TRIALS
+    check_trials(trials)
+    mc = DEFAULT_TRIALS if mc_trials is None else mc_trials
+    if not 1 <= mc <= MAX_TRIALS:
+        raise InputError(f"--mc-trials {mc}: expected a whole number from 1 to {MAX_TRIALS:,}")
+    check_out_path(out)
+    raw, where = _load_raw(scenario, None, workers, cluster)
+    _tune_dry_check(raw, where, param or [], only, objective)
+    out_dir = prepare_out_dir(out, force=force)
+    bar, update = _progress("tune")
+    best = [None]
+    with bar:
+        def one_done(number, row):
+            v = row["objectives"][0]
+            if not row.get("error") and v is not None and all(c["passed"] for c in row["criteria"]
+                                                              if c["name"] != "max_push_survived_n_m_s"):
+                best[0] = v if best[0] is None else (max if objective.startswith(("push", "catch")) else min)(best[0], v)
+            bar.update(bar.task_ids[0], description=f"tune (best {best[0]:.4g})" if best[0] is not None else "tune",
+                       advance=1, total=trials)
+        outcome = run_tune(raw, where, Path(scenario) if scenario else default_scenario_path(), out_dir,
+                           param_texts=param or [], only=only, objective=objective, n_trials=trials, mc_trials=mc,
+                           workers=workers, cluster=cluster, seed=seed, storage=storage, on_done=one_done)
+    _print_tune(outcome, out_dir)
+    if outcome.winner is None:
+        raise SystemExit(1)
+
+
+def _tune_dry_check(raw, where, params, only, objective) -> None:
+    """Bad --param and --objective values fail before an --out folder is made."""
+    from .device import Device
+    from .scenario import validate_scenario
+    from .tune import check_space, default_space, parse_objectives, parse_param, prefill
+    sc = validate_scenario(raw, where=where)
+    parse_objectives(objective, sc)
+    given = [parse_param(t) for t in params]
+    keys = {p.key for p in given}
+    space = ([] if only else [p for p in default_space(sc, Device.from_scenario(sc)) if p.key not in keys]) + given
+    check_space(prefill(raw, sc, space), where, space)
+
+
+def _print_tune(outcome, out_dir: Path) -> None:
+    from rich.console import Console
+    from rich.markup import escape
+
+    from .tune import OBJECTIVES, failed_criteria
+    console = Console()
+    obj = outcome.objectives[0]
+    unit = OBJECTIVES[obj][2]
+    start = next((e for e in outcome.evaluations if e.number == 0), None)
+    pick = outcome.winner or outcome.closest
+    for note in outcome.notes:
+        console.print(escape(f"note: {note}"))
+    if pick is None:
+        console.print("no evaluation finished")
+        return
+    value = pick.row["objectives"][0]
+    head = (f"best: evaluation {pick.number}, {obj} {value:.4g} {unit}" if outcome.winner is not None else
+            f"no design passed; closest: evaluation {pick.number}, failing "
+            + ", ".join(failed_criteria(pick.row, outcome.objectives)))
+    if start is not None and start.row["objectives"][0] is not None and outcome.winner is not None:
+        head += f" (model-based start: {start.row['objectives'][0]:.4g} {unit})"
+    console.print(escape(head))
+    for p in outcome.params:
+        console.print(escape(f"  {p.key} = {pick.params[p.key]:.6g}"
+                             + (f" (start {p.start:.6g})" if p.start is not None else "") + f": {p.does}"))
+    if len(outcome.objectives) > 1:
+        console.print(escape(f"Pareto front: {len(outcome.front)} designs (tune.csv has every evaluation)"))
+    console.print(escape(f"wrote {out_dir}/" + ", ".join(outcome.written)))
+    console.print(f"[dim]{escape(SAFETY)}[/dim]")
 
 
 @app.command("catch-map")

@@ -12,7 +12,7 @@ import numpy as np
 import yaml
 
 from .fitting import FitResult
-from .overrides import deep_merge
+from .errors import ScenarioError
 from .outputs import prepare_out_dir, write_json, write_text
 
 CAUTION = ("Bench tests spin wheels and drive motors from batteries: guard the wheel and stay out of its plane, "
@@ -39,60 +39,60 @@ def fit_report(result: FitResult, *, log_path: str, scenario_path: str | None) -
     }
 
 
-def merged_scenario(scenario_path: str | Path, patch: dict) -> dict:
-    """The scenario file's raw mapping with `patch` merged in, validated (raises ScenarioError).
+def fitted_scenario(scenario_path: str | Path, patch: dict, *, dest: Path):
+    """The scenario file with `patch` merged in by `sim.scenario_edit` (comments and layout kept,
+    replaced keys and their tolerances handled, plug-in paths rewritten for `dest`'s folder).
 
-    A fitted motor.back_emf_constant replaces a speed_constant (a scenario gives one of the two);
-    a strategy plug-in named by a relative file path is made absolute, since the merged file is
-    written elsewhere.
+    Returns (EditResult or None, problem or None): a merge that does not validate is reported,
+    not raised, since the fit itself succeeded and its own files are still written.
     """
-    from .scenario import read_yaml, validate_scenario
+    from .scenario_edit import apply_patches
 
-    path = Path(scenario_path)
-    raw = read_yaml(path)
-    merged = deep_merge(raw, patch)
-    if "back_emf_constant" in patch.get("motor", {}):
-        merged.get("motor", {}).pop("speed_constant", None)
-    strategy = merged.get("strategy")
-    if isinstance(strategy, dict) and isinstance(strategy.get("plugin"), str):
-        target, _, cls = strategy["plugin"].partition(":")
-        if target.endswith(".py") and not Path(target).is_absolute():
-            strategy["plugin"] = f"{(path.parent / target).resolve()}:{cls}"
-    validate_scenario(merged, where=f"{path} merged with the fit")
-    return merged
+    try:
+        return apply_patches(scenario_path, [patch], dest=dest, patch_names=["the fit's patch"]), None
+    except ScenarioError as exc:
+        return None, f"scenario_fitted.yaml not written: {exc}"
 
 
-def _yaml_ready(value):
-    """Plain Python floats rounded to 7 significant digits (bare numbers in a scenario are SI)."""
-    if isinstance(value, dict):
-        return {k: _yaml_ready(v) for k, v in value.items()}
-    if isinstance(value, list):
-        return [_yaml_ready(v) for v in value]
-    if isinstance(value, (float, np.floating)):
-        return float(f"{float(value):.7g}")
-    return value
+NOTHING_TO_PATCH = ("nothing to patch: a free swing alone gives the period and the decay; turning them into "
+                    "scenario values (body inertia correction, pivot friction) needs the scenario's m g d "
+                    "(give --scenario)")
 
 
 def write_fit_outputs(result: FitResult, out: str | Path, *, log_path: str, scenario_path: str | None = None,
-                      force: bool = False) -> list[Path]:
-    """Write the fit's files into `out` (folder rules of `prepare_out_dir`). Returns the paths written."""
-    merged = merged_scenario(scenario_path, _yaml_ready(result.patch)) if scenario_path else None
+                      force: bool = False) -> tuple[list[Path], list[str]]:
+    """Write the fit's files into `out` (folder rules of `prepare_out_dir`).
+
+    Returns (paths written, notes for the terminal). fit.json, fit.png and patch.yaml are always
+    written; scenario_fitted.yaml only when the merged scenario validates.
+    """
+    from .scenario_edit import plain_value
+
+    patch = plain_value(result.patch)
     fig = fit_figure(result)
     out_dir = prepare_out_dir(out, force=force)
+    # merged after the folder exists, so a plug-in path rewritten relative to it resolves
+    edit, problem = fitted_scenario(scenario_path, patch, dest=out_dir / "scenario_fitted.yaml") \
+        if scenario_path and patch else (None, None)
+    notes = [] if patch else [NOTHING_TO_PATCH if result.test == "free-swing" and not scenario_path
+                              else "nothing to patch: the fit found no scenario values to change"]
+    notes += (edit.notes if edit else []) + ([problem] if problem else [])
     written = [out_dir / "fit.json", out_dir / "fit.png", out_dir / "patch.yaml"]
-    write_json(written[0], fit_report(result, log_path=log_path, scenario_path=scenario_path))
+    report = fit_report(result, log_path=log_path, scenario_path=scenario_path)
+    report["notes"] = list(report["notes"]) + notes
+    write_json(written[0], report)
     from .plots import save_figure
     save_figure(fig, written[1])
     head = (f"# Scenario keys determined by `wheelbench fit --test {result.test}` from {log_path}.\n"
-            "# SI values (bare numbers are SI). Merge into a scenario; a motor.back_emf_constant replaces\n"
-            "# motor.speed_constant.\n")
-    body = yaml.safe_dump(_yaml_ready(result.patch), sort_keys=False) if result.patch else "{}\n"
+            "# SI values (bare numbers are SI). Merge with `wheelbench apply SCENARIO patch.yaml`; a\n"
+            "# motor.back_emf_constant replaces motor.speed_constant.\n")
+    body = yaml.safe_dump(patch, sort_keys=False) if patch else "".join(f"# {n}\n" for n in notes) + "{}\n"
     write_text(written[2], head + body)
-    if merged is not None:
+    if edit is not None:
         written.append(out_dir / "scenario_fitted.yaml")
         head = f"# {scenario_path} with the fit from {log_path} merged in (wheelbench fit --test {result.test}).\n"
-        write_text(written[3], head + yaml.safe_dump(merged, sort_keys=False, allow_unicode=True))
-    return written
+        write_text(written[3], head + edit.text)
+    return written, notes
 
 
 def fit_figure(result: FitResult):

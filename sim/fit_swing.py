@@ -230,12 +230,23 @@ def swing_centre(values: np.ndarray) -> float:
     return float(np.median((v[:-2] + 2.0 * v[1:-1] + v[2:]) / 4.0))
 
 
+DECAY_SIGNIFICANCE = 0.01   # p-value below which the decay as a whole counts as measured (our choice)
+BIC_EVEN = 2.0              # a BIC difference below 2 is "not worth more than a bare mention" (Kass & Raftery 1995)
+
+
 def fit_decay(amps: np.ndarray, *, where: str) -> dict:
     """Viscous damping ratio and Coulomb angle e = T_c/(m g d) from successive amplitudes.
 
-    Both are fitted; a term not distinguishable from zero (below two standard deviations) is
-    dropped and the other refitted, and a note says so.
+    The decay is first tested as a whole: an F-test of the two-term fit against no decay at all
+    (y = 0), since the viscous and Coulomb columns are strongly correlated and each alone can fall
+    under its own two standard deviations while together they are clear (Draper & Smith, Applied
+    Regression Analysis, 3rd ed., sec. 6: the extra-sum-of-squares F-test). Only when the decay is
+    significant is the model chosen, among viscous, Coulomb and both, by the Bayesian information
+    criterion of each least-squares fit, n ln(RSS/n) + k ln n (Schwarz 1978); a decay that is
+    measured is never set to zero.
     """
+    from scipy.stats import f as f_dist
+
     a0, a1 = amps[:-1], amps[1:]
     y = np.cos(a1) - np.cos(a0)
     cols = {"e": a0 + a1, "zeta": 2.0 * swing_speed_integral((a0 + a1) / 2.0)}
@@ -245,20 +256,46 @@ def fit_decay(amps: np.ndarray, *, where: str) -> dict:
     if p[1] < -3.0 * sig[1] and p[1] < -0.002:
         raise InputError(f"{where}: does not look like a free swing: the amplitude grows (damping ratio "
                          f"{p[1]:.3g}); is the motor driving the body?")
-    keep = [name for name, i in (("e", 0), ("zeta", 1)) if p[i] > 2.0 * sig[i]]
-    if len(keep) == 1:
-        q, qcov, _ = linear_fit(cols[keep[0]][:, None], y)
-        dropped = "zeta" if keep[0] == "e" else "e"
-        label = {"e": "Coulomb", "zeta": "viscous"}
-        out["notes"].append(f"No {label[dropped]} part found in the decay ({out[dropped]:.3g} +- "
-                            f"{out[dropped + '_sigma']:.2g}); it is set to 0 and the {label[keep[0]]} part refitted.")
-        out[keep[0]], out[keep[0] + "_sigma"] = float(q[0]), float(math.sqrt(qcov[0, 0]))
-        out[dropped] = 0.0
-    elif not keep:
-        out["notes"].append("The decay is too small to measure in this log; friction values are set to 0.")
-        out["e"], out["zeta"] = 0.0, 0.0
-    out["kind"] = {2: "viscous and coulomb", 0: "none measurable"}.get(len(keep), "viscous" if keep == ["zeta"] else "coulomb")
+    n = len(y)
+    fits = {names: _decay_fit(cols, names, y) for names in (("e", "zeta"), ("zeta",), ("e",))}
+    rss_both, rss_none = fits[("e", "zeta")]["rss"], float(y @ y)
+    dof = max(n - 2, 1)
+    f_stat = ((rss_none - rss_both) / 2.0) / max(rss_both / dof, 1e-300)
+    out["decay_p_value"] = float(f_dist.sf(f_stat, 2, dof)) if n > 2 else 1.0
+    if out["decay_p_value"] >= DECAY_SIGNIFICANCE or not (p[0] > 0 or p[1] > 0):
+        out["notes"].append(f"The decay is too small to measure in this log (F-test against no decay: p = "
+                            f"{out['decay_p_value']:.2g}); friction values are set to 0.")
+        out["e"], out["zeta"], out["kind"] = 0.0, 0.0, "none measurable"
+        return out
+    # physical fits only (no negative friction), then the lowest BIC
+    usable = {k: v for k, v in fits.items() if all(x >= 0 for x in v["p"])}
+    bic = {k: n * math.log(max(v["rss"], 1e-300) / n) + len(k) * math.log(n) for k, v in usable.items()}
+    best = min(bic, key=bic.get)
+    if best == ("e",) and ("zeta",) in bic and bic[("zeta",)] - bic[best] < BIC_EVEN:
+        # over a narrow range of amplitudes the two decays look alike: keep the viscous one
+        best = ("zeta",)
+        out["notes"].append(f"A Coulomb decay (e = {usable[('e',)]['p'][0]:.3g} rad) fits this log as well as a "
+                            "viscous one; the viscous model is kept. Swing from a larger angle to tell them apart.")
+    for name in ("e", "zeta"):
+        if name in best:
+            i = best.index(name)
+            out[name], out[name + "_sigma"] = float(usable[best]["p"][i]), float(usable[best]["sigma"][i])
+        else:
+            out[name] = 0.0
+    label = {"e": "Coulomb", "zeta": "viscous"}
+    if len(best) == 1:
+        other = "zeta" if best == ("e",) else "e"
+        out["notes"].append(f"The decay is measured (p = {out['decay_p_value']:.2g}) and a {label[best[0]]} model "
+                            f"alone describes it best (information criterion); the {label[other]} part is set to 0.")
+    out["kind"] = "viscous and coulomb" if len(best) == 2 else ("viscous" if best == ("zeta",) else "coulomb")
     return out
+
+
+def _decay_fit(cols: dict, names: tuple, y: np.ndarray) -> dict:
+    """Least squares of the amplitude decay on the named columns: p, sigma and residual sum of squares."""
+    X = np.column_stack([cols[k] for k in names])
+    p, cov, rms = linear_fit(X, y)
+    return {"p": p, "sigma": np.sqrt(np.diag(cov)), "rss": rms * rms * len(y)}
 
 
 def fit_period(times: np.ndarray, amps: np.ndarray, zeta: float) -> dict:

@@ -367,8 +367,15 @@ def write_json(path: str | Path, data) -> None:
     write_text(path, json.dumps(clean_json(data), indent=2, sort_keys=False) + "\n")
 
 
+JSON_DIGITS = 15   # significant digits kept in JSON: a double's sure digits, without binary noise
+
+
 def clean_json(value):
-    """JSON-safe copy: numpy scalars to Python, non-finite floats to None (strict JSON has no NaN)."""
+    """JSON-safe copy: numpy scalars to Python, non-finite floats to None (strict JSON has no NaN).
+
+    Floats keep 15 significant digits, so a time k * dt reads 0.351, not 0.35100000000000003, and
+    a negative zero is written as 0.0 (a reader sees no sign where there is no value).
+    """
     import numpy as np
 
     if isinstance(value, dict):
@@ -379,7 +386,7 @@ def clean_json(value):
         return [clean_json(v) for v in value.tolist()]
     if isinstance(value, (np.floating, float)):
         f = float(value)
-        return f if math.isfinite(f) else None
+        return float(f"{f:.{JSON_DIGITS}g}") + 0.0 if math.isfinite(f) else None
     if isinstance(value, np.integer):
         return int(value)
     if isinstance(value, np.bool_):

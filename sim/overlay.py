@@ -161,6 +161,12 @@ class PanelLayout:
                    ((pad, int(0.47 * width), bar_y), (int(0.53 * width), width - pad, bar_y)))
 
 
+def bar_texts(r) -> tuple[str, str]:
+    """The voltage and current bars' labels: the value against its limit as given (11.1 V, not 11)."""
+    return (f"{r.voltage_v:+.2f} V / {r.supply_v:.4g} V",
+            f"{r.current_a:+.2f} A / {r.current_limit_a:.4g} A")
+
+
 class Dashboard:
     """Draws the panel on frames of one size. The static parts are painted once, in __init__.
 
@@ -226,8 +232,9 @@ class Dashboard:
         if r.phase:
             self._tag(img, lay.phase, r.phase, fill=(40, 56, 72), ink=TEXT)
         needle, read_back = self._dial(d, r)
-        self._bar(d, 0, r.voltage_v, r.supply_v, VOLT, f"{r.voltage_v:+.2f} V / {r.supply_v:.0f}")
-        self._bar(d, 1, r.current_a, r.current_limit_a, CURR, f"{r.current_a:+.2f} A / {r.current_limit_a:.1f}")
+        volt_text, amp_text = bar_texts(r)
+        self._bar(d, 0, r.voltage_v, r.supply_v, VOLT, volt_text)
+        self._bar(d, 1, r.current_a, r.current_limit_a, CURR, amp_text)
         y = self.top - int(0.06 * lay.unit)
         for note in r.notes:  # stacked upwards from the panel's top edge, right-aligned
             y = self._tag(img, (self.width - pad, y), note.upper(), fill=WARN, ink=(255, 246, 240), right=True, up=True)

@@ -4,8 +4,6 @@ from __future__ import annotations
 
 import numpy as np
 
-from .engine import wrap_angles
-
 INK, ACCENT, LIMIT, MUTED = "#1d2b3a", "#c2571a", "#8c1c13", "#7a8894"
 DEG = 180.0 / np.pi   # rad -> deg, as np.degrees
 
@@ -23,11 +21,15 @@ def summary_figure(result):
     title = f"{result.scenario.name}: {result.scenario.strategy.kind} -> {result.outcome}"
     fig.suptitle(title, color=INK, fontsize=12, fontweight="bold")
     ax = axes[0]
-    ax.plot(*_thin(t, wrap_angles(tr.view("angle").copy()), scale=DEG, wraps=True), color=INK, lw=1.2, label="true")
-    ax.plot(*_thin(t, tr.view("meas_angle"), scale=DEG, wraps=True), color=MUTED, lw=0.7, alpha=0.8,
-            label="measured")
-    ax.set_ylabel("angle [deg]")
-    ax.legend(loc="upper right", fontsize=8, frameon=False)
+    true_t, true_deg = _thin(t, tr.view("angle"), scale=DEG)
+    shift = _upright_shift(true_deg)
+    ax.plot(true_t, true_deg - shift, color=INK, lw=1.2, label="true")
+    meas_t, meas_deg = _thin(t, tr.view("meas_angle"), scale=DEG)
+    ax.plot(meas_t, _continuous_like(meas_deg, true_deg) - shift, color=MUTED, lw=0.7, alpha=0.8, label="measured")
+    _upright_lines(ax)
+    ax.set_ylabel("angle from upright [deg]")
+    # outside the panel, so it never hides a curve
+    ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8, frameon=False)
     axes[1].plot(*_thin(t, tr.view("rate"), scale=DEG), color=INK, lw=1.0)
     axes[1].set_ylabel("body rate [deg/s]")
     lim = dev.no_load_speed_rad_s
@@ -50,13 +52,14 @@ def summary_figure(result):
     ax.set_ylabel("current [A]")
     ax.set_xlabel("time [s]")
     _shade_phases(axes, tr)
+    _event_markers(axes, result)
     for a in axes:
         a.grid(True, color="#dde3e8", lw=0.6)
         a.spines[["top", "right"]].set_visible(False)
     return fig
 
 
-def _thin(t: np.ndarray, y: np.ndarray, *, scale: float = 1.0, wraps: bool = False, buckets: int = 2000):
+def _thin(t: np.ndarray, y: np.ndarray, *, scale: float = 1.0, buckets: int = 2000):
     """(t, y * scale) cut to each bucket's minimum and maximum, in time order, when longer than 2 buckets.
 
     A 60 s trace has 60,000 rows per line; a 900-pixel-wide panel shows at most a few thousand
@@ -74,15 +77,45 @@ def _thin(t: np.ndarray, y: np.ndarray, *, scale: float = 1.0, wraps: bool = Fal
         idx = np.concatenate([pair.ravel(), np.arange(width * buckets, n)])
         t, y = t[idx], y[idx]
     y = y * scale
-    return t, (_break_wraps(y) if wraps else y)
+    return t, y
 
 
-def _break_wraps(deg: np.ndarray) -> np.ndarray:
-    """A copy with NaN where the wrapped angle jumps by more than 180 deg, so no line crosses the plot."""
-    out = deg.astype(float).copy()
-    if out.size > 1:
-        out[1:][np.abs(np.diff(deg)) > 180.0] = np.nan
-    return out
+def _upright_shift(deg: np.ndarray) -> float:
+    """The multiple of 360 deg that puts the angle's final value nearest upright (0), so a body
+    caught after swinging over reads 0 at the end and the curve stays continuous (no wrap jumps)."""
+    finite = deg[np.isfinite(deg)]
+    return float(360.0 * np.round(finite[-1] / 360.0)) if finite.size else 0.0
+
+
+def _continuous_like(meas_deg: np.ndarray, true_deg: np.ndarray) -> np.ndarray:
+    """The measured angle (wrapped by the sensor to (-180, 180]) unwrapped and put on the same turn
+    as the true angle, so both curves can be read against one axis."""
+    if meas_deg.size == 0 or true_deg.size == 0:
+        return meas_deg
+    out = np.degrees(np.unwrap(np.radians(np.nan_to_num(meas_deg))))
+    return out + 360.0 * np.round((true_deg[0] - out[0]) / 360.0)
+
+
+def _upright_lines(ax) -> None:
+    """Dotted lines at every upright (multiples of 360 deg) the angle panel spans."""
+    lo, hi = ax.get_ylim()
+    for k in range(int(np.ceil(lo / 360.0)), int(np.floor(hi / 360.0)) + 1):
+        ax.axhline(360.0 * k, color=MUTED, ls=":", lw=0.8)
+
+
+def _event_markers(axes, result) -> None:
+    """Vertical markers on every panel: pushes, the catch and a fall, labelled on the top panel."""
+    events = [(p.at, f"push {p.impulse * 1000:g} mN m s", ACCENT) for p in result.scenario.trial.pushes
+              if p.at <= result.ended_at_s]
+    if result.caught_at_s is not None:
+        events.append((result.caught_at_s, "caught", "#2b7a3d"))
+    if result.fell_at_s is not None:
+        events.append((result.fell_at_s, "fell", LIMIT))
+    for at, label, colour in events:
+        for a in axes:
+            a.axvline(at, color=colour, ls="-.", lw=1.0, alpha=0.9)
+        axes[0].annotate(label, (at, 0.0), xycoords=axes[0].get_xaxis_transform(), xytext=(2, 2),
+                         textcoords="offset points", fontsize=7, color=colour, rotation=90, va="bottom")
 
 
 def _shade_phases(axes, tr) -> None:

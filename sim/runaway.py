@@ -41,6 +41,7 @@ import numpy as np
 FIT_FRACTION = 1.0 / 3.0   # fit over the last third of the hold (our choice)
 FIT_BLOCKS = 20            # block means the fit is made on (our choice)
 NO_DRIFT_Z = 3.0           # |slope| within 3 standard errors of zero: no drift (our choice)
+SETTLING_RATIO = 0.5       # last third's slope below half the middle third's: settling, not drifting (our choice)
 
 
 @dataclass(frozen=True)
@@ -100,6 +101,21 @@ def fit_drift(t_s: np.ndarray, wheel_rad_s: np.ndarray, *, fraction: float = FIT
     se = math.sqrt(float(np.sum(resid * resid)) / (blocks - 2) / sxx)
     return Drift(slope_rad_s2=slope, slope_se_rad_s2=se, level_rad_s=intercept + slope * float(t[-1]),
                  mean_rad_s=float(w[start:].mean()), t_end_s=float(t[-1]), window_s=(float(t[start]), float(t[-1])))
+
+
+def settling(middle: Drift, last: Drift) -> bool:
+    """True when the wheel is still approaching a level, not drifting: the slope over the last third
+    of the hold is below SETTLING_RATIO of the (significant) slope over the middle third, same sign.
+
+    A steady drift (angle-only PID under a bias: a constant wheel acceleration) keeps its slope,
+    ratio ~1; a law that settles at a wheel-speed offset approaches it exponentially, and over
+    consecutive windows of length T its slope falls by exp(-T / tau) (first-order response, any
+    control text): a hold too short for the transient would otherwise read as a runaway.
+    """
+    if not middle.significant or middle.slope_rad_s2 == 0.0:
+        return False
+    ratio = last.slope_rad_s2 / middle.slope_rad_s2
+    return ratio < SETTLING_RATIO
 
 
 def runaway_time_s(drift: Drift, *, limit_rad_s: float, horizon_s: float = math.inf) -> float | None:

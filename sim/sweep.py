@@ -57,6 +57,8 @@ class Vary:
     key: str
     path: tuple
     values: tuple
+    unit: str = ""
+    """The unit the user typed the range in ("" for bare SI numbers and lists): the figure's axes use it."""
 
 
 def parse_vary(text: str) -> Vary:
@@ -68,7 +70,8 @@ def parse_vary(text: str) -> Vary:
     path = tuple(parse_path(key.strip(), where=where))
     m = _RANGE.match(spec.strip())
     values = _range_values(m, where) if m else _list_values(spec, where)
-    return Vary(key.strip(), path, tuple(values))
+    unit = values[0].split(" ", 1)[1] if m and values and isinstance(values[0], str) and " " in values[0] else ""
+    return Vary(key.strip(), path, tuple(values), unit)
 
 
 def _range_values(m, where: str) -> list:
@@ -259,7 +262,8 @@ class PointSummaries:
 
     FIELDS = ("wheel_speed_margin", "pass_fraction", "settle_time_s", "mc_trials")
 
-    def __init__(self, varies: list[Vary]):
+    def __init__(self, varies: list[Vary], *, extra: tuple[str, ...] = ()):
+        self.FIELDS = self.FIELDS + tuple(f for f in extra if f not in self.FIELDS)   # e.g. --color's metric
         self.varies = varies
         self.shape = [len(v.values) for v in varies]
         total = int(np.prod(self.shape))
@@ -366,7 +370,7 @@ def _journal_index(line: bytes) -> int:
 # ----------------------------------------------------------------------------- running
 
 def run_sweep(raw: dict, where: str, varies: list[Vary], out_dir: Path, *, trials: int = 0,
-              workers: int | None = None, cluster=None, on_progress=None) -> PointSummaries:
+              workers: int | None = None, cluster=None, on_progress=None, color: str | None = None) -> PointSummaries:
     """Run (or resume) a sweep into `out_dir` (already prepared). Returns the points' summaries
     (the full rows are in results.csv and the journal).
 
@@ -377,7 +381,7 @@ def run_sweep(raw: dict, where: str, varies: list[Vary], out_dir: Path, *, trial
     check_varies(raw, where, varies)
     spec = sweep_spec(raw, varies, trials)
     journal_path, csv_path = out_dir / JOURNAL, out_dir / RESULTS
-    summaries = PointSummaries(varies)
+    summaries = PointSummaries(varies, extra=(color,) if color else ())
     read_journal(journal_path, spec, summaries)
     total = len(summaries.done)
     tasks = ((i, {"raw": raw, "where": where, "index": i, "trials": trials,
@@ -435,20 +439,47 @@ class CsvRewrites:
             self.now()
 
 
+COLOR_METRICS = ("wheel_speed_margin", "pass_fraction", "settle_time_s", "caught_at_s", "peak_wheel_speed_rad_s",
+                 "peak_current_a", "rms_current_a", "winding_temperature_c", "wheel_burst_safety_factor",
+                 "wheel_runaway_time_s", "pushes_survived")
+
+
+def check_color(metric: str | None) -> str | None:
+    """`--color METRIC`: a numeric column of results.csv. InputError naming the option otherwise."""
+    if metric is not None and metric not in COLOR_METRICS:
+        raise InputError(f"--color {metric!r}: expected one of {', '.join(COLOR_METRICS)}")
+    return metric
+
+
+def axis_display(v: Vary, values: list) -> tuple[list, str]:
+    """Axis values in the unit the user typed (with the unit in the label), else as in results.csv."""
+    if v.unit:
+        from .units import registry
+        shown = [float(registry().Quantity(x).to(v.unit).magnitude) if isinstance(x, str) else x for x in v.values]
+        return shown[: len(values)], f"{v.key} [{v.unit}]"
+    numeric = all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in values)
+    return values, f"{v.key} [SI]" if numeric else v.key
+
+
 def grid_axes(varies: list[Vary], rows: PointSummaries) -> list[list]:
     """Per key, the column values of the points along its axis (SI where numeric)."""
     return [[rows.get(index, {}).get(v.key, v.values[j]) for j, index in enumerate(line)]
             for v, line in zip(varies, axis_indices([len(x.values) for x in varies]))]
 
 
-def sweep_figure(varies: list[Vary], rows: PointSummaries):
-    """A line plot for one key, a heat map for two; None for more (the table has it all)."""
-    axes = grid_axes(varies, rows)
+def sweep_figure(varies: list[Vary], rows: PointSummaries, *, color: str | None = None):
+    """A line plot for one key, a heat map for two; None for more (the table has it all).
+
+    `color`: the metric the heat map (or the line plot's upper panel) shows; default the Monte Carlo
+    pass fraction when there is one, else the wheel speed margin.
+    """
+    shown = [axis_display(v, a) for v, a in zip(varies, grid_axes(varies, rows))]
+    axes, labels = [a for a, _ in shown], [label for _, label in shown]
     if len(varies) == 1:
-        return _line_plot(varies[0].key, axes[0], [rows.get(i) for i in range(len(axes[0]))])
+        return _line_plot(labels[0], axes[0], [rows.get(i) for i in range(len(axes[0]))], color)
     if len(varies) == 2:
         grid = [[rows.get(i * len(axes[1]) + j) for j in range(len(axes[1]))] for i in range(len(axes[0]))]
-        return _heat_map(varies, axes, grid)
+        return _heat_map(labels, axes, grid, color)
     return None
 
 
@@ -471,12 +502,12 @@ def _pyplot():
     return plt
 
 
-def _line_plot(key: str, xs: list, rows: list):
+def _line_plot(key: str, xs: list, rows: list, color: str | None = None):
     from .plots import ACCENT, INK, LIMIT
     plt = _pyplot()
     pos, labels = _positions(xs)
     fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(7.5, 5.5), sharex=True, constrained_layout=True)
-    metric = _shown_metric(rows)
+    metric = color or _shown_metric(rows)
     for ax, name, colour in ((ax1, metric, INK), (ax2, "settle_time_s", ACCENT)):
         ys = [np.nan if (r is None or r.get(name) is None) else r[name] for r in rows]
         ax.plot(pos, ys, color=colour, lw=1.2, marker="o", ms=3)
@@ -492,13 +523,16 @@ def _line_plot(key: str, xs: list, rows: list):
     return fig
 
 
-def _heat_map(varies, axes, grid):
+def _heat_map(labels, axes, grid, color: str | None = None):
     from .plots import INK
     plt = _pyplot()
-    metric = _shown_metric([r for line in grid for r in line])
+    metric = color or _shown_metric([r for line in grid for r in line])
     data = np.array([[np.nan if (r is None or r.get(metric) is None) else r[metric] for r in line] for line in grid])
     fig, ax = plt.subplots(figsize=(7.5, 5.5), constrained_layout=True)
-    im = ax.imshow(data.T, origin="lower", aspect="auto", cmap="viridis", vmin=0.0, vmax=1.0)
+    fractions = metric in ("wheel_speed_margin", "pass_fraction")
+    finite = data[np.isfinite(data)]
+    lo, hi = (0.0, 1.0) if fractions or not finite.size else (float(finite.min()), float(finite.max()) or 1.0)
+    im = ax.imshow(data.T, origin="lower", aspect="auto", cmap="viridis", vmin=lo, vmax=hi if hi > lo else lo + 1.0)
     fig.colorbar(im, ax=ax, label=metric)
     for i, line in enumerate(grid):
         for j, r in enumerate(line):
@@ -507,7 +541,7 @@ def _heat_map(varies, axes, grid):
                         color="white" if not r.get("passed") else "black")
     for setter, values in ((ax.set_xticks, axes[0]), (ax.set_yticks, axes[1])):
         setter(range(len(values)), [f"{v:.4g}" if isinstance(v, float) else str(v) for v in values])
-    ax.set_xlabel(varies[0].key)
-    ax.set_ylabel(varies[1].key)
+    ax.set_xlabel(labels[0])
+    ax.set_ylabel(labels[1])
     ax.set_title(f"{metric} over the grid", color=INK, fontsize=10)
     return fig

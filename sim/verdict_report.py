@@ -132,6 +132,9 @@ def report_markdown(v: dict, images: list[str]) -> str:
     return "\n".join(lines)
 
 
+NARROW_TERMINAL = 110   # columns below which the notes are printed under the table
+
+
 def runaway_sentence(v: dict) -> str:
     """One sentence on why the wheel runs away, when `wheel_runaway_time_s` failed ("" otherwise)."""
     crit = next((c for c in v["criteria"] if c["name"] == "wheel_runaway_time_s"), None)
@@ -169,13 +172,24 @@ def print_verdict(v: dict, out: Path) -> None:
     from rich.table import Table
 
     console = Console()
+    # the criterion's name is never cut or folded (a user greps for it); on a narrow terminal the
+    # notes go below the table, where they have the whole width
+    notes_below = console.width < NARROW_TERMINAL
     table = Table(title=f"{v['name']} - {v['strategy']}: {'PASS' if v['passed'] else 'FAIL'}")
-    for col in ("criterion", "value", "limit", "result", "note"):
-        table.add_column(col)
+    table.add_column("criterion", no_wrap=True, min_width=max((len(c["name"]) for c in v["criteria"]), default=9))
+    for col in ("value", "limit", "result"):
+        table.add_column(col, no_wrap=True)
+    if not notes_below:
+        table.add_column("note", overflow="fold")
     for c in v["criteria"]:
-        table.add_row(c["name"], format_value(c["name"], c["value"]), format_value(c["name"], c["limit"]),
-                      "[green]pass[/green]" if c["passed"] else "[bold red]FAIL[/bold red]", c["note"])
+        row = [c["name"], format_value(c["name"], c["value"]), format_value(c["name"], c["limit"]),
+               "[green]pass[/green]" if c["passed"] else "[bold red]FAIL[/bold red]"]
+        table.add_row(*row, *([] if notes_below else [c["note"]]))
     console.print(table)
+    if notes_below:
+        for c in v["criteria"]:
+            if c["note"]:
+                console.print(f"{c['name']}: {c['note']}", overflow="fold")
     for name, r in failed_runs(v):
         console.print(f"{name} run: {r['outcome']}, cause {r.get('cause') or '-'}: {r.get('cause_detail') or '-'}",
                       markup=False, highlight=False)

@@ -534,3 +534,26 @@ def test_cli_refuses_foreign_out_folder(tmp_path, capsys):
     assert "not empty" in capsys.readouterr().err
     assert sorted(p.name for p in out.iterdir()) == ["notes.txt"]
     assert (out / "notes.txt").read_text() == "keep me"
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_a_clear_viscous_decay_is_not_dropped(seed):
+    """Amplitude 0.35 -> 0.25 rad over 21 cycles (damping ratio 0.0025) with 10 mrad noise: each
+    term alone falls under two standard deviations, the decay as a whole does not. The joint
+    F-test keeps it; the damping ratio comes back within 10% of the one the log was made with
+    (the decay of a damped swing: zeta = ln(a0/an) / (2 pi n) for small zeta, any vibrations text)."""
+    w0 = 2 * math.pi / 0.9
+    zeta = 0.0025
+    assert_allclose(math.log(0.35 / 0.25) / (2 * math.pi * 21), zeta, rtol=0.03)   # the case as stated
+    log = swing_log(w0=w0, zeta=zeta, e=0.0, amplitude_deg=math.degrees(0.35), duration_s=0.9 * 21 + 0.5,
+                    n=4000, noise_rad=0.01, seed=seed)
+    res = fit_log(log, "free-swing")
+    assert res.facts["decay"] == "viscous"
+    assert_allclose(res.value("damping_ratio"), zeta, rtol=0.10)
+
+
+def test_no_decay_stays_none_measurable():
+    """A swing with no friction at all: the joint test finds no decay (friction set to 0)."""
+    log = swing_log(w0=2 * math.pi / 0.9, zeta=0.0, e=0.0, amplitude_deg=20.0, noise_rad=0.01)
+    res = fit_log(log, "free-swing")
+    assert res.facts["decay"] == "none measurable" and res.value("damping_ratio") == 0.0

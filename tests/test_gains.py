@@ -74,16 +74,103 @@ def test_supervised_scenario_exports_its_balance_law(capsys):
     assert len(rep["discrete"]) == 3 and rep["delay"]["delay_s"] > 0
 
 
-def test_a_scenario_without_an_lqr_balance_law_exits_2_with_one_line(tmp_path, capsys):
-    path = write_scenario(tmp_path / "s.yaml", scenario_dict(strategy={"kind": "pid"}))
+def test_a_scenario_without_a_balance_law_exits_2_with_one_line(tmp_path, capsys):
+    path = write_scenario(tmp_path / "s.yaml", scenario_dict(strategy={"kind": "coast"}))
     code, out, err = _gains(capsys, str(path))
     assert code == 2 and out == ""
-    assert err.count("\n") == 1 and "'pid'" in err and str(path) in err
+    assert err.count("\n") == 1 and "'coast'" in err and str(path) in err
 
 
 def test_unknown_format_exits_2(capsys):
     code, out, err = _gains(capsys, "--format", "xml")
     assert code == 2 and out == "" and "--format" in err
+
+
+# ----------------------------------------------------------------------------- the C reference function
+
+def _compile_reference(tmp_path, header: str):
+    """Build the header's wb_balance_volts into a shared library and load it with ctypes."""
+    import ctypes
+
+    cc = shutil.which("cc") or shutil.which("gcc")
+    assert cc is not None, "a C compiler is needed (.ci/run installs one)"
+    (tmp_path / "wb_gains.h").write_text(header)
+    (tmp_path / "ref.c").write_text(
+        '#include "wb_gains.h"\n'
+        "static wb_balance_state_t state;\n"
+        "void ref_reset(void) { wb_balance_reset(&state); }\n"
+        "double ref_volts(double a, double r, double w) { return wb_balance_volts(&state, a, r, w); }\n")
+    done = subprocess.run([cc, "-std=c99", "-O2", "-Wall", "-Werror", "-shared", "-fPIC", "ref.c", "-o", "libref.so"],
+                          cwd=tmp_path, capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr
+    lib = ctypes.CDLL(str(tmp_path / "libref.so"))
+    lib.ref_volts.restype = ctypes.c_double
+    lib.ref_volts.argtypes = [ctypes.c_double] * 3
+    return lib
+
+
+def _readings(n: int, seed: int) -> np.ndarray:
+    """A recorded-like sequence of readings: a slow swing with noise, large enough to saturate at times."""
+    rng = np.random.default_rng(seed)
+    t = np.arange(n) * 0.002
+    angle = 0.15 * np.sin(2.1 * t) * np.exp(-0.3 * t) + rng.normal(0, 0.002, n)
+    rate = np.gradient(angle, t) + rng.normal(0, 0.01, n)
+    wheel = 40 * np.sin(0.7 * t) + rng.normal(0, 0.5, n)
+    return np.column_stack([angle, rate, wheel])
+
+
+@pytest.mark.parametrize("strategy, sensors", [
+    ({"kind": "lqr"}, {"delay": 0.0053}),                                   # 2 whole periods and a fraction
+    ({"kind": "lqr"}, {}),                                                  # no delay
+    ({"kind": "pid", "wheel_kp": 0.002, "wheel_ki": 0.0005}, {}),           # PID with the wheel loop
+    ({"kind": "swing_and_catch", "balance": {"kind": "pid"}}, {}),          # a supervisor's balance law
+])
+def test_c_reference_function_gives_the_python_laws_voltages(tmp_path, capsys, strategy, sensors):
+    """The header's wb_balance_volts, compiled by the system C compiler, gives the voltages the
+    simulator's law gives on the same readings, to 1e-6 V (double arithmetic on both sides)."""
+    from sim.gains import balance_spec
+    from sim.strategies.base import Reading
+
+    path = write_scenario(tmp_path / "s.yaml", scenario_dict(strategy=strategy, sensors={"rate": 500, **sensors}))
+    code, header, err = _gains(capsys, str(path), "--format", "c")
+    assert code == 0 and err == ""
+    lib = _compile_reference(tmp_path, header)
+    sc = load_scenario(path)
+    _, spec = balance_spec(sc)
+    law = spec.build(Device.from_scenario(sc), rng=np.random.default_rng(0))
+    reading = Reading()
+    lib.ref_reset()
+    got, want = [], []
+    for i, (a, r, w) in enumerate(_readings(1500, seed=3)):
+        reading.t_s, reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = i * 0.002, a, r, w
+        # what the drive applies: the law's command clamped to the supply (sim/trial.py)
+        want.append(min(max(law.command(reading), -sc.drive.supply), sc.drive.supply))
+        got.append(lib.ref_volts(a, r, w))
+    want = np.array(want)
+    assert np.ptp(want) > 1.0 and np.any(np.abs(want) >= sc.drive.supply)   # the clamp is exercised too
+    assert_allclose(got, want, rtol=0, atol=1e-6)
+
+
+def test_pid_gains_report_the_defaults_in_use_with_units_and_meaning(tmp_path, capsys):
+    from sim.strategies.pid import PidBalance
+
+    path = write_scenario(tmp_path / "s.yaml", scenario_dict(strategy={"kind": "pid", "kd": 0.9}))
+    code, out, err = _gains(capsys, str(path))
+    assert code == 0 and err == ""
+    rep = json.loads(out)
+    sc = load_scenario(path)
+    dev = Device.from_scenario(sc)
+    law = PidBalance(device=dev, params=sc.strategy.params, rng=None)
+    assert rep["law"] == "pid"
+    assert_allclose([rep["gains"][k]["value"] for k in ("kp", "ki", "kd")], [law.kp, law.ki, law.kd], rtol=1e-12)
+    assert rep["gains"]["kd"]["source"] == "scenario" and rep["gains"]["kp"]["source"].startswith("default")
+    assert rep["gains"]["kp"]["unit"] == "V/rad" and "wheel" in rep["gains"]["wheel_kp"]["does"]
+    # the proportional gain that just holds gravity: k_t/R * kp = mbar g (torque balance at a small
+    # lean, back-EMF neglected; common practice, no source)
+    sv = rep["starting_values"]
+    assert_allclose(sv["kp_just_holds_gravity_v_per_rad"] * dev.k_t_n_m_a / dev.resistance_ohm,
+                    dev.mbar_kg_m * dev.gravity_m_s2, rtol=1e-12)
+    assert rep["gains"]["kp"]["value"] > sv["kp_just_holds_gravity_v_per_rad"]
 
 
 @pytest.mark.parametrize("sections", [

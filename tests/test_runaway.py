@@ -241,3 +241,21 @@ def test_sweep_judges_the_runaway_column(tmp_path):
     assert float(rows["pid"]["wheel_runaway_time_s"]) == 0.0
     assert "wheel runaway" in rows["pid"]["fail_reasons"].split(";")
     assert rows["lqr"]["wheel_runaway_time_s"] == "" and "wheel runaway" not in rows["lqr"]["fail_reasons"]
+
+
+def test_a_wheel_still_settling_at_the_end_of_a_short_hold_is_not_a_runaway():
+    """An exponential approach to an offset, w = w_inf (1 - exp(-t / tau)): its slope over the last
+    third is exp(-T/3 / tau) of the middle third's (first-order response), so a hold of a few time
+    constants reads as settling; a steady ramp keeps its slope (ratio 1) and stays a drift."""
+    from sim.runaway import SETTLING_RATIO, fit_drift, settling
+    rng = np.random.default_rng(4)
+    t = np.arange(0.0, 5.0, 0.001)
+    noise = rng.normal(0.0, 0.05, t.size)
+    k = 2 * t.size // 3
+    for tau, want in ((0.8, True), (40.0, False)):
+        w = 60.0 * (1.0 - np.exp(-t / tau)) + noise
+        got = settling(fit_drift(t[:k], w[:k], fraction=0.5), fit_drift(t, w))
+        ratio = np.exp(-(5.0 / 3.0) / tau)
+        assert got == (ratio < SETTLING_RATIO) == want
+    ramp = -12.0 * t + noise
+    assert not settling(fit_drift(t[:k], ramp[:k], fraction=0.5), fit_drift(t, ramp))

@@ -32,17 +32,18 @@ class LqrBalance(Strategy):
         self.design = design_lqr(self.device, weights=self.params.weights, effort=self.params.effort)
         self.K = self.design.K_discrete
         self.predictor = DelayPredictor(self.design, delay_s=self.device.delay_s)
-        self._gx, self._gu = self._folded_gains()
+        self._gx, self._gu = self.folded_gains(self.design, self.predictor)
         self.phase = "balance"
 
-    def _folded_gains(self) -> tuple[tuple[float, float, float], tuple[float, ...]]:
+    @staticmethod
+    def folded_gains(design, pred) -> tuple[tuple[float, float, float], tuple[float, ...]]:
         """K times the predictor, as gains on the reading and on the held commands.
 
         The predictor is linear: x_now = Ad^n (Phi_f x_meas + Gam_f u0) + sum_i Ad^(n-1-i) Bd u(i+1),
         so K x_now = g_x . x_meas + g_u . u. Precomputed once, this turns each tick's small
         matrix products into three float products and a short dot product (same law, fewer steps).
         """
-        pred, K = self.predictor, self.K
+        K = design.K_discrete
         if not pred.active:
             return tuple(float(k) for k in K), ()
         powers = [np.eye(3)]
