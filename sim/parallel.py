@@ -177,3 +177,51 @@ def _take(source: Iterator, n: int) -> list:
             break
         out.append(item)
     return out
+
+
+class WorkerPool:
+    """Workers kept for a whole study, for callers that must decide each next task from the results
+    so far (tune asks its sampler after each result): `submit(fn, payload)` returns a future-like
+    object with `.result()`. Local processes (one pool, forked once), this process (workers=1), or
+    a dask cluster. Use as a context manager; the options are checked as for `run_tasks`.
+    """
+
+    def __init__(self, *, workers: int | None = None, cluster: Any = None):
+        self.client = self.own = self.pool = None
+        if cluster is not None:
+            self.client, self.own = _connect(cluster)
+            self.size = max(1, sum(self.client.nthreads().values()))
+            return
+        self.size = default_workers() if workers is None else workers
+        if self.size < 1:
+            raise InputError(f"--workers: expected at least 1, found {self.size}")
+        if self.size > 1:
+            from concurrent.futures import ProcessPoolExecutor
+            _warm_imports()
+            self.pool = ProcessPoolExecutor(max_workers=self.size, initializer=_die_with_parent)
+
+    def submit(self, fn: Callable[[Any], Any], payload: Any):
+        if self.client is not None:
+            return self.client.submit(fn, payload, pure=False)
+        if self.pool is not None:
+            return self.pool.submit(fn, payload)
+        return _Done(fn(payload))
+
+    def __enter__(self) -> "WorkerPool":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        if self.pool is not None:
+            self.pool.shutdown(wait=True, cancel_futures=True)
+        if self.client is not None and self.own:
+            self.client.close()
+
+
+class _Done:
+    """A finished result in the shape of a future (the in-process case of `WorkerPool`)."""
+
+    def __init__(self, value: Any):
+        self.value = value
+
+    def result(self) -> Any:
+        return self.value

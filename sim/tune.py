@@ -6,11 +6,12 @@ constraint (optuna's constrained TPE: a trial is feasible when all constraints a
 best few feasible evaluations are then re-checked with the full Monte Carlo; the winner is the
 best one that still passes.
 
-Reproducibility: the sampler is seeded, evaluations are asked for in rounds of `workers` and told
-back in trial order, and each evaluation's trials use a seed of their own (from the scenario's
-`trial.seed` and the evaluation's number). Same seed and same workers give the same study. The
-worker count changes the rounds, and with them what TPE has seen when it samples: a study with
-2 workers is not the same as one with 1 (optuna's TPE samples from the finished trials only).
+Reproducibility: the sampler is seeded; evaluations run in a pipeline of fixed depth (workers + 1)
+and are told back in trial order, each next one asked right after the oldest is told; each
+evaluation's trials use a seed of their own (from the scenario's `trial.seed` and the evaluation's
+number). Same seed and same workers give the same study. The worker count changes the depth, and
+with it what TPE has seen when it samples: a study with 2 workers is not the same as one with 1
+(optuna's TPE samples from the finished trials only).
 
 Storage: optuna's SQLite storage in the output folder (`tune.db`). Running the same command
 again resumes: evaluations that were running when a tune was killed are asked again with the same
@@ -252,12 +253,13 @@ def objective_value(name: str, verdict: dict, outcome, raw: dict, where: str) ->
 
 
 def constraints(row: dict, objectives: list[str]) -> dict[str, float]:
-    """Optuna constraints by name (feasible when <= 0): 1 for each failed criterion that is not an
-    objective's own, 0 for each passed one."""
+    """Optuna's constraint (feasible when <= 0): the number of failed criteria that are not an
+    objective's own (an invalid scenario counts as one more than any). One value, not one per
+    criterion: TPE ranks infeasible trials by the sum of their positive constraints anyway
+    (optuna 5, `TPESampler`), and each named constraint is a write to the study's database."""
     if row["error"]:
-        return {"valid_scenario": 1.0}
-    own = {_CRITERION_OF.get(o) for o in objectives}
-    return {c["name"]: 0.0 if c["passed"] else 1.0 for c in row["criteria"] if c["name"] not in own}
+        return {"failed_criteria": 1000.0}
+    return {"failed_criteria": float(len(failed_criteria(row, objectives)))}
 
 
 def failed_criteria(row: dict, objectives: list[str]) -> list[str]:

@@ -14,13 +14,12 @@ import math
 from dataclasses import dataclass
 
 from .errors import InputError
-from .parallel import default_workers, run_tasks
+from .parallel import WorkerPool
 from .tolerances import trial_seed
 from .tune import OBJECTIVES, STUDY, Param, constraints, evaluate
 
 DB = "tune.db"
 PENALTY = 1e6   # objective told to optuna for a value that could not be found (minimised objectives)
-CLUSTER_ROUND = 8   # evaluations asked for at once when a dask cluster runs them
 
 
 @dataclass
@@ -86,37 +85,48 @@ def distributions(params: list[Param]) -> dict:
 
 def run_study(study, raw: dict, where: str, params: list[Param], objectives: list[str], *, n_trials: int,
               workers: int | None, cluster, base_seed: int, on_done=None) -> list[Evaluation]:
-    """Evaluate until the study holds `n_trials` finished evaluations. Returns them all, in number order."""
+    """Evaluate until the study holds `n_trials` finished evaluations. Returns them all, in number order.
+
+    A pipeline with a fixed depth: `depth` evaluations are in flight; the oldest is waited for,
+    told, and the next one asked at once. Asks and tells thus come in the same order whatever the
+    workers' timing (evaluation n + depth is asked right after n is told), so the same seed and
+    workers give the same study, while no worker waits for a whole round to finish.
+    """
     optuna = _quiet_optuna()
     dists = distributions(params)
     by_key = {p.key: p for p in params}
-    per_round = CLUSTER_ROUND if cluster is not None else (workers or default_workers())
     if not study.trials:
         start = {p.key: p.start for p in params if p.start is not None and p.low <= p.start <= p.high}
         if len(start) == len(params):   # the model-based starting point is the first evaluation
             study.enqueue_trial(start, user_attrs={"start": True})
     requeue_interrupted(study)
-    while True:
-        done = len(study.get_trials(deepcopy=False, states=(optuna.trial.TrialState.COMPLETE,)))
-        if done >= n_trials:
-            break
-        batch = [study.ask(dists) for _ in range(min(per_round, n_trials - done))]
-        tasks = []
-        for trial in batch:
+    complete = len(study.get_trials(deepcopy=False, states=(optuna.trial.TrialState.COMPLETE,)))
+    with WorkerPool(workers=workers, cluster=cluster) as pool:
+        depth = pool.size + 1 if pool.size > 1 else 1   # one queued beyond the workers: none idles between tasks
+        flight: list = []
+
+        def ask_one():
+            trial = study.ask(dists)
             seed = trial_seed(base_seed, trial.number)
             trial.set_user_attr("seed", seed)
-            tasks.append((trial.number, {"raw": raw, "where": where, "objectives": objectives, "seed": seed,
-                                         "assign": [(list(by_key[k].path), v) for k, v in trial.params.items()]}))
-        results = dict(run_tasks(evaluate, iter(tasks), workers=len(batch) if cluster is None else None,
-                                 cluster=cluster))
-        for trial in sorted(batch, key=lambda t: t.number):   # told in order: the same study for the same seed
-            row = results[trial.number]
+            payload = {"raw": raw, "where": where, "objectives": objectives, "seed": seed,
+                       "assign": [(list(by_key[k].path), v) for k, v in trial.params.items()]}
+            flight.append((trial, pool.submit(evaluate, payload)))
+
+        while complete + len(flight) < n_trials and len(flight) < depth:
+            ask_one()
+        while flight:
+            trial, fut = flight.pop(0)           # the oldest: asks and tells in number order
+            row = fut.result()
             trial.set_user_attr("row", json.dumps(row, default=_json_default))
             for name, value in constraints(row, objectives).items():
                 trial.set_constraint(name, value)
             study.tell(trial, [_told(v, o) for v, o in zip(row["objectives"], objectives)])
+            complete += 1
             if on_done is not None:
                 on_done(trial.number, row)
+            if complete + len(flight) < n_trials:
+                ask_one()
     return finished(study)
 
 
