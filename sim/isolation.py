@@ -85,11 +85,16 @@ class Heartbeat:
 
     def publish_phases(self, phases: list[str]) -> None:
         """The trace's phase names so far (as many as fit; the parent names the others by number)."""
-        keep = list(phases)
-        data = json.dumps(keep).encode()
-        while len(data) > self.PHASE_BYTES:
-            keep.pop()
-            data = json.dumps(keep).encode()
+        # the longest leading run of names that fits, in one pass (a trace holds at most a few
+        # hundred names: sim.trace.MAX_PHASES)
+        pieces, size = [], 2
+        for name in phases:
+            piece = json.dumps(name)
+            if size + len(piece.encode()) + (2 if pieces else 0) > self.PHASE_BYTES:
+                break
+            pieces.append(piece)
+            size += len(piece.encode()) + (2 if len(pieces) > 1 else 0)
+        data = ("[" + ", ".join(pieces) + "]").encode()
         self._text[: len(data)] = data
         self.slots[self.PHASE_LENGTH], self.slots[self.PHASE_COUNT] = len(data), len(phases)
 
@@ -334,12 +339,16 @@ def _pack_exception(exc: BaseException) -> tuple[bytes | None, str, str]:
     """(type, args and attributes pickled, or None when they do not pickle; a one-line summary; the
     child's traceback). Rebuilt without calling __init__: an exception whose __init__ takes other
     arguments than its args (sim.verdicts' early stop) would not survive plain pickling."""
-    text = "".join(traceback.format_exception(type(exc), exc, exc.__traceback__))
+    from .strategies import describe_exception
+    try:
+        text = "".join(traceback.format_exception(type(exc), exc, exc.__traceback__))
+    except BaseException:  # noqa: B036 - an exception that cannot even be formatted
+        text = describe_exception(exc)
     try:
         state = pickle.dumps((type(exc), exc.args, dict(vars(exc))), protocol=pickle.HIGHEST_PROTOCOL)
-    except Exception:
+    except BaseException:  # noqa: B036
         state = None
-    return state, f"{type(exc).__name__}: {exc}", text
+    return state, describe_exception(exc), text
 
 
 def _unpack_exception(packed: tuple[bytes | None, str, str]) -> BaseException:

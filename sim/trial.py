@@ -24,7 +24,7 @@ from .engine import EngineModel, wrap_angle
 from .errors import StrategyError
 from .motor import MotorDrive
 from .sensors import SensorSuite
-from .strategies import plugins_in
+from .strategies import describe_exception, exception_parts, plugins_in
 from .strategies.base import Reading
 from .trace import Trace
 
@@ -88,15 +88,21 @@ class StrategyClock:
         self.expired = False
         self.interrupts = False
         self._previous = None
+        self._previous_int = None
+        self.user_interrupt = False
         self.strategy = None    # the strategy being timed, once built (for subclasses' bookkeeping)
 
     def __enter__(self) -> "StrategyClock":
-        if (hasattr(signal, "setitimer") and math.isfinite(self.budget_s)
-                and threading.current_thread() is threading.main_thread()
+        main = threading.current_thread() is threading.main_thread()
+        if (hasattr(signal, "setitimer") and math.isfinite(self.budget_s) and main
                 and signal.getitimer(signal.ITIMER_REAL) == (0.0, 0.0)):
             self._previous = signal.signal(signal.SIGALRM, self._on_alarm)
             self.interrupts = True
             signal.setitimer(signal.ITIMER_REAL, max(self.budget_s, 1e-3))
+        if main and signal.getsignal(signal.SIGINT) is signal.default_int_handler:
+            # a real Ctrl-C is marked, so that it is told apart from a KeyboardInterrupt that strategy
+            # code raises itself (that one is the strategy's failure, not the user's interrupt)
+            self._previous_int = signal.signal(signal.SIGINT, self._on_interrupt)
         return self
 
     def __exit__(self, *exc) -> None:
@@ -105,6 +111,13 @@ class StrategyClock:
             # None: the old handler was not set from Python; the default is the closest we can restore
             signal.signal(signal.SIGALRM, self._previous if self._previous is not None else signal.SIG_DFL)
             self.interrupts = False
+        if self._previous_int is not None:
+            signal.signal(signal.SIGINT, self._previous_int)
+            self._previous_int = None
+
+    def _on_interrupt(self, signum, frame) -> None:
+        self.user_interrupt = True
+        raise KeyboardInterrupt
 
     def enter(self, k: int = -1) -> None:
         """Start a strategy call at physics step `k` (-1: building the strategy)."""
@@ -221,7 +234,8 @@ def _simulate(scenario, device, trace, clock, *, seed, stop_early, visual, on_st
         with clock:
             strategy, failure = _build_strategy(scenario, device, rng, clock)
             clock.strategy = strategy
-            return _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock)
+            result = _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock)
+            return _settle_extra_metrics(result, clock)
     finally:
         engine.close()
 
@@ -235,7 +249,12 @@ def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step)
     _warm_imports()
     EngineModel(device, step_s=scenario.world.step, start_angle_rad=scenario.trial.start.angle).close()
     beat = isolation.Heartbeat()
-    trace = _PublishedTrace(scenario.n_steps, step_s=scenario.world.step, beat=beat)
+    try:
+        trace = _PublishedTrace(scenario.n_steps, step_s=scenario.world.step, beat=beat)
+    except OSError:     # no room for a shared trace, in the temporary folder or in memory: run here
+        trace = Trace(scenario.n_steps, step_s=scenario.world.step)
+        return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
+                         visual=None, on_step=on_step)
     clock = _WatchedClock(budget, beat)
 
     def work():
@@ -278,9 +297,96 @@ def _build_strategy(scenario, device, rng, clock):
         strategy = scenario.strategy.build(device, rng=rng)
         clock.leave()
         return strategy, None
-    except (Exception, SystemExit, StrategyTimeout) as exc:
+    except BaseException as exc:  # noqa: B036 - whatever strategy code raises is its failure
+        if isinstance(exc, KeyboardInterrupt) and clock.user_interrupt:
+            raise                   # the user's Ctrl-C, not the strategy's
+        message = f"building the strategy failed: {describe_exception(exc)}"  # still timed: __str__ is theirs
         clock.abandon()
-        return None, f"building the strategy failed: {type(exc).__name__}: {exc}"
+        return None, message
+
+
+EXTRA_METRICS_DROPPED = "extra_metrics_dropped"
+"""The key that says what of a strategy's `extra_metrics` was left out, and why."""
+
+MAX_EXTRA_TEXT = 1000
+"""Longest text value, characters, kept from a strategy's `extra_metrics`."""
+
+
+def _settle_extra_metrics(result: TrialResult, clock: StrategyClock) -> TrialResult:
+    """Replace the strategy's `extra_metrics` with a plain dict of JSON values (`clean_extra_metrics`),
+    read under the strategy's clock (reading it may run strategy code). A strategy whose attribute
+    cannot be replaced is swapped for an `isolation.StrategyRecord` of itself."""
+    strategy = result.strategy
+    if strategy is None:
+        return result
+    clock.enter(max(result.trace.n - 1, 0))
+    try:
+        raw = getattr(strategy, "extra_metrics", None)
+        clean = None if raw is None else clean_extra_metrics(raw)
+    except BaseException as exc:  # noqa: B036 - a property or a container of the strategy's raised
+        if isinstance(exc, KeyboardInterrupt) and clock.user_interrupt:
+            raise
+        clean = {EXTRA_METRICS_DROPPED: f"extra_metrics could not be read ({describe_exception(exc)})"}
+    try:
+        if clean is not None:
+            strategy.extra_metrics = clean
+            if strategy.extra_metrics is not clean:
+                raise AttributeError("extra_metrics did not take the cleaned value")
+    except BaseException:  # noqa: B036 - a read-only or hostile attribute: keep a record instead
+        record = isolation.unpack_strategy(isolation.pack_strategy(strategy), device=result.device)
+        record.extra_metrics = clean
+        result = replace(result, strategy=record)
+    finally:
+        clock.abandon()
+    return result
+
+
+def clean_extra_metrics(raw) -> dict:
+    """A strategy's `extra_metrics` as metrics.json can hold it: a dict with text keys whose values
+    are None, booleans, numbers, text (up to MAX_EXTRA_TEXT characters) or lists and dicts of those.
+    Whatever else is left out, and EXTRA_METRICS_DROPPED says what and why."""
+    if not isinstance(raw, dict):
+        return {EXTRA_METRICS_DROPPED: f"extra_metrics must be a dict, found {type(raw).__name__}"}
+    clean, dropped = {}, []
+    for key, value in list(dict.items(raw))[:1000]:
+        value = _json_value(value, depth=0) if type(key) is str else _DROP
+        if value is _DROP:
+            dropped.append(str.__str__(key) if type(key) is str else f"a {type(key).__name__} key")
+        else:
+            clean[key] = value
+    if len(raw) > 1000:
+        dropped.append(f"{len(raw) - 1000} keys past the first 1000")
+    if dropped:
+        shown = ", ".join(repr(d) for d in dropped[:10]) + (", ..." if len(dropped) > 10 else "")
+        clean[EXTRA_METRICS_DROPPED] = f"left out (not JSON numbers, text, lists or dicts): {shown}"
+    return clean
+
+
+_DROP = object()
+
+
+def _json_value(value, *, depth: int):
+    """`value` as plain JSON data, or _DROP. Only exact built-in types (and numpy scalars) pass, so
+    no strategy code runs while checking."""
+    if isinstance(value, np.generic) and value.dtype.kind in "biuf":
+        value = value.item()
+    if value is None or type(value) is bool:
+        return value
+    if type(value) is int:
+        return value if -2**63 <= value < 2**64 else _DROP
+    if type(value) is float:
+        return value
+    if type(value) is str:
+        return value if len(value) <= MAX_EXTRA_TEXT else _DROP
+    if depth < 3 and type(value) in (list, tuple) and len(value) <= 1000:
+        items = [_json_value(v, depth=depth + 1) for v in value]
+        return _DROP if any(v is _DROP for v in items) else items
+    if depth < 3 and type(value) is dict and len(value) <= 1000:
+        items = {k: _json_value(v, depth=depth + 1) for k, v in dict.items(value)}
+        if any(type(k) is not str or v is _DROP for k, v in items.items()):
+            return _DROP
+        return items
+    return _DROP
 
 
 def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock) -> TrialResult:
@@ -294,7 +400,7 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
     next_push, push_torque = pushes.pop() if pushes else (-1, 0.0)
     wheel_limit = ABSURD_WHEEL_FACTOR * device.no_load_speed_rad_s + 100.0
     bp, bw = device.pivot_viscous_n_m_s, device.wheel_viscous_n_m_s
-    brake_on, open_circuit, volts, mode, phase = False, False, 0.0, 0, None
+    brake_on, open_circuit, volts, mode, phase, name = False, False, 0.0, 0, None, None
     meas = (0.0, 0.0, 0.0)
     catch_k = fell_k = None
     fall_final = False
@@ -329,16 +435,21 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
                 volts = command(reading)
                 if strategy.phase != phase:
                     phase = strategy.phase
-                    mode = trace.phase_code(str(phase))
+                    name = str(phase)   # the strategy's own __str__: timed with it
                 if strategy.brake != brake_on:
                     brake_on = _set_brake(engine, device, bool(strategy.brake))
                 open_circuit = bool(strategy.open_circuit)
                 leave()
-            except (Exception, SystemExit, StrategyTimeout) as exc:  # the strategy's failure is its outcome
+            except BaseException as exc:  # noqa: B036 - the strategy's failure is its outcome
+                if isinstance(exc, KeyboardInterrupt) and clock.user_interrupt:
+                    raise               # the user's Ctrl-C, not the strategy's
+                message = _describe(exc, t)  # before abandon: a hostile __str__ is still timed
                 clock.abandon()
-                outcome, message = "strategy_failed", _describe(exc, t)
+                outcome = "strategy_failed"
                 t_mode[k] = mode
                 break
+            if name is not None:    # the runner's bookkeeping, not charged to the strategy's budget
+                mode, name = trace.phase_code(name), None
             # held until the next tick: written once here, copied down the tick's rows at the end
             t_volt[k], t_mode[k] = (0.0 if open_circuit else volts), mode
             if wants_balance:
@@ -431,5 +542,7 @@ def _set_brake(engine, device, on: bool) -> bool:
 
 
 def _describe(exc: BaseException, t: float) -> str:
-    text = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
-    return f"{type(exc).__name__} at t = {t:.4f} s" + (f": {text}" if text else "")
+    """"Type at t = ... s: first line of the message"; never raises (see describe_exception)."""
+    name, text = exception_parts(exc)
+    text = text.splitlines()[0] if text else ""
+    return f"{name} at t = {t:.4f} s" + (f": {text}" if text else "")

@@ -101,14 +101,17 @@ def print_verdict(v: dict, out: Path) -> None:
     from rich.console import Console
     from rich.table import Table
 
+    from rich.text import Text
+
     console = Console()
-    table = Table(title=f"{v['name']} - {v['strategy']}: {'PASS' if v['passed'] else 'FAIL'}")
+    # user strings (the scenario's name, a plug-in's path, notes quoting them) are Text: no markup
+    table = Table(title=Text(f"{v['name']} - {v['strategy']}: {'PASS' if v['passed'] else 'FAIL'}"))
     for col in ("criterion", "value", "limit", "result", "note"):
         table.add_column(col)
     for c in v["criteria"]:
         table.add_row(c["name"], format_value(c["name"], c["value"]), format_value(c["name"], c["limit"]),
-                      "[green]pass[/green]" if c["passed"] else "[bold red]FAIL[/bold red]", c["note"])
+                      "[green]pass[/green]" if c["passed"] else "[bold red]FAIL[/bold red]", Text(str(c["note"])))
     console.print(table)
-    console.print(f"wrote {out}/verdict.json, report.md and plots")
+    console.print(Text(f"wrote {out}/verdict.json, report.md and plots"))
     for s in SAFETY_NOTES:
         console.print(f"[dim]Safety: {s}[/dim]")

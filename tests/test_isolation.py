@@ -42,6 +42,14 @@ NOISY = dict(sensors={"delay": 0.002, "angle": {"counts_per_rev": 4096, "noise":
              trial={"duration": 1.0, "start": {"angle": 0.05}, "pushes": [{"at": 0.5, "impulse": 0.005}], "seed": 11})
 
 
+@pytest.fixture(autouse=True)
+def plugins_from_tests_folder(monkeypatch):
+    """The scenarios here name plug-ins in tests/plugins/ by absolute path, from files elsewhere:
+    allowed explicitly (the refusal itself is tested in tests/test_plugins.py)."""
+    from sim.strategies import ALLOW_OUTSIDE_ENV
+    monkeypatch.setenv(ALLOW_OUTSIDE_ENV, "1")
+
+
 @pytest.fixture
 def hang_guard():
     faulthandler.dump_traceback_later(60, exit=True, file=sys.__stderr__)
