@@ -278,12 +278,12 @@ def _lost(child: Child, beat: Heartbeat, started: float, *, stuck: bool) -> Lost
 def pack_attributes(obj: object, *, skip: tuple[str, ...] = ()) -> dict[str, bytes]:
     """`obj`'s instance attributes, each pickled on its own; those that do not pickle are left out."""
     packed = {}
-    for name, value in (vars(obj).items() if hasattr(obj, "__dict__") else ()):
+    for name, value in (list(vars(obj).items()) if hasattr(obj, "__dict__") else ()):
         if name in skip:
             continue
         try:
             packed[name] = pickle.dumps(value, protocol=pickle.HIGHEST_PROTOCOL)
-        except Exception:
+        except BaseException:  # noqa: B036 - a plug-in's __reduce__ is its code: even sys.exit is left out
             pass
     return packed
 
@@ -295,7 +295,7 @@ def unpack_attributes(packed: dict[str, bytes]) -> dict[str, Any]:
     for name, data in packed.items():
         try:
             out[name] = pickle.loads(data)
-        except Exception:
+        except (Exception, SystemExit):     # a plug-in object's __setstate__ runs here: not our exit
             pass
     return out
 
