@@ -21,7 +21,7 @@ def summary_figure(result):
     t = tr.view("t")
     fig, axes = plt.subplots(5, 1, figsize=(8.5, 9.5), sharex=True, constrained_layout=True)
     title = f"{result.scenario.name}: {result.scenario.strategy.kind} -> {result.outcome}"
-    fig.suptitle(title, color=INK, fontsize=12, fontweight="bold")
+    fig.suptitle(title, color=INK, fontsize=12, fontweight="bold", parse_math=False)  # user text, literally
     ax = axes[0]
     ax.plot(*_thin(t, wrap_angles(tr.view("angle").copy()), scale=DEG, wraps=True), color=INK, lw=1.2, label="true")
     ax.plot(*_thin(t, tr.view("meas_angle"), scale=DEG, wraps=True), color=MUTED, lw=0.7, alpha=0.8,
@@ -100,7 +100,7 @@ def _shade_phases(axes, tr) -> None:
             a.axvspan(t[s], t[e], color=shades[mode[s] % len(shades)], lw=0, zorder=0)
         if (t[e] - t[s]) / span > 0.06:  # narrower bands would print their names over each other
             axes[0].text(t[s], 1.0, " " + tr.phases[mode[s]], transform=axes[0].get_xaxis_transform(),
-                         fontsize=7, color=MUTED, va="top")
+                         fontsize=7, color=MUTED, va="top", parse_math=False)  # a phase name, literally
 
 
 def save_figure(fig, path) -> None:

@@ -51,3 +51,18 @@ def test_check_prints_the_scenario_name_literally(tmp_path, capsys):
     code = main(["check", str(path), "--out", str(tmp_path / "out"), "--trials", "1", "--workers", "1"])
     assert code in (0, 1)                   # pass or fail: judged, not crashed
     assert f"{name} - lqr:" in capsys.readouterr().out
+
+
+def test_names_that_look_like_plot_math_are_drawn_literally(tmp_path, capsys):
+    # matplotlib reads "$...$" as math: an unknown command in a phase or scenario name once made the
+    # summary plot raise, and run ended in a traceback without metrics.json
+    (tmp_path / "law.py").write_text(
+        "from sim.strategies import Strategy\n"
+        "class Law(Strategy):\n    goal = None\n    def decide(self, reading):\n"
+        "        self.phase = '$\\\\nosuchcommand{$' if reading.t_s < 0.02 else '$x^2$'\n        return 0.0\n")
+    path = write_scenario(tmp_path / "s.yaml", scenario_dict(name="$\\frac{$", strategy={"plugin": "law.py:Law"},
+                                                             trial={"duration": 0.05}))
+    out = tmp_path / "out"
+    assert main(["run", str(path), "--out", str(out)]) == 0
+    assert {p.name for p in out.iterdir()} >= {"metrics.json", "trace.csv", "summary.png"}
+    assert "$\\frac{$ - law.py:Law" in capsys.readouterr().out
