@@ -32,6 +32,9 @@ OUTCOMES = ("balanced", "fell", "not_caught", "diverged", "strategy_failed", "co
 ABSURD_RATE_RAD_S = 1e4          # a body spinning at 1,600 rev/s is a numerical blow-up
 ABSURD_WHEEL_FACTOR = 20.0       # wheel beyond 20x its no-load speed: likewise
 ABSURD_ANGLE_RAD = 1e6           # ~160,000 turns: the unwrapped angle has run away
+AFTER_S = 1.0
+"""Least wall time, s, that the runner's own calls into strategy code after a call (describing its
+exception, reading its figures) get, even when the strategy has used up its budget."""
 STRATEGY_BUDGET_S = 60.0
 """Default wall-clock budget, s, for all strategy work in one trial (building it and every
 control tick together). The built-in laws use well under 1 s for a minute of simulated time;
@@ -134,6 +137,28 @@ class StrategyClock:
         """End a strategy call that raised (the trial ends; its time is not counted)."""
         self.t_in = None
 
+    def after(self, work, fallback):
+        """`work()`: strategy code the runner itself calls outside the strategy's calls (an exception's
+        __str__, reading `extra_metrics`, pickling the strategy), timed by what is left of the budget
+        but never less than AFTER_S; `fallback` when it runs out. A timeout cannot escape into the
+        runner: the clock counts as inside a call exactly while `work` runs, and the store that ends
+        it sits where no signal handler runs (no call in between).
+
+        Call it with no strategy call open (`t_in` None); it leaves none open.
+        """
+        result = fallback
+        self.used_s = min(self.used_s, self.budget_s - AFTER_S)
+        if self.interrupts:
+            signal.setitimer(signal.ITIMER_REAL, max(self.budget_s - self.used_s, 1e-3))
+        self.t_in = time.perf_counter()
+        try:
+            result = work()
+        except StrategyTimeout:
+            pass
+        finally:
+            self.t_in = None
+        return result
+
     def _expire(self):
         self.expired = True
         raise StrategyTimeout(f"strategy code used more than its {self.budget_s:g} s budget of wall time")
@@ -168,6 +193,15 @@ class _WatchedClock(StrategyClock):
     def abandon(self) -> None:
         self.beat.left(getattr(self.strategy, "saturated_ticks", 0))
         super().abandon()
+
+    def after(self, work, fallback):
+        # the watchdog covers these calls too (strategy code stuck in C while being pickled, say)
+        left = self.budget_s - min(self.used_s, self.budget_s - AFTER_S)
+        self.beat.entered(int(self.beat.slots[isolation.Heartbeat.STEP]), time.perf_counter() + left + isolation.GRACE_S)
+        try:
+            return super().after(work, fallback)
+        finally:
+            self.beat.left(int(self.beat.slots[isolation.Heartbeat.SATURATED]))
 
 
 class _PublishedTrace(Trace):
@@ -260,9 +294,8 @@ def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step)
     def work():
         result = _simulate(scenario, device, trace, clock, seed=seed, stop_early=stop_early, visual=None,
                            on_step=on_step)
-        clock.enter(max(trace.n - 1, 0))  # reading the strategy's attributes may run its code as well
-        strategy = isolation.pack_strategy(result.strategy)
-        clock.abandon()
+        # pickling the strategy's attributes may run its code as well
+        strategy = clock.after(lambda: isolation.pack_strategy(result.strategy), None)
         return replace(result, trace=None, device=None, scenario=None, strategy=strategy), trace.n, trace.phases
 
     sent, lost = isolation.run_in_child(work, beat=beat, mirror=on_step)
@@ -298,11 +331,12 @@ def _build_strategy(scenario, device, rng, clock):
         clock.leave()
         return strategy, None
     except BaseException as exc:  # noqa: B036 - whatever strategy code raises is its failure
+        clock.t_in = None           # first, and no call before it: no timeout is raised into the runner now
         if isinstance(exc, KeyboardInterrupt) and clock.user_interrupt:
             raise                   # the user's Ctrl-C, not the strategy's
-        message = f"building the strategy failed: {describe_exception(exc)}"  # still timed: __str__ is theirs
+        text = clock.after(lambda: describe_exception(exc), _unread(exc))   # __str__ is theirs: timed
         clock.abandon()
-        return None, message
+        return None, f"building the strategy failed: {text}"
 
 
 EXTRA_METRICS_DROPPED = "extra_metrics_dropped"
@@ -319,26 +353,41 @@ def _settle_extra_metrics(result: TrialResult, clock: StrategyClock) -> TrialRes
     strategy = result.strategy
     if strategy is None:
         return result
-    clock.enter(max(result.trace.n - 1, 0))
+    late = {EXTRA_METRICS_DROPPED: "extra_metrics could not be read within the strategy's time"}
+    clean, settled = clock.after(lambda: _read_extra_metrics(strategy, clock), (late, False))
+    if settled or clean is None:
+        return result
+    record = clock.after(lambda: isolation.unpack_strategy(isolation.pack_strategy(strategy), device=result.device),
+                         None)
+    if record is None:  # not even its attributes could be read in time: what the scenario says
+        record = isolation.record_from_spec(result.scenario.strategy, device=result.device,
+                                            saturated_ticks=result.saturated_ticks)
+    record.extra_metrics = clean
+    return replace(result, strategy=record)
+
+
+def _read_extra_metrics(strategy, clock: StrategyClock) -> tuple[dict | None, bool]:
+    """(the cleaned extra metrics or None when there are none, whether the strategy now holds them)."""
     try:
         raw = getattr(strategy, "extra_metrics", None)
         clean = None if raw is None else clean_extra_metrics(raw)
-    except BaseException as exc:  # noqa: B036 - a property or a container of the strategy's raised
-        if isinstance(exc, KeyboardInterrupt) and clock.user_interrupt:
-            raise
+    except BaseException as exc:  # noqa: B036 - a property or container of the strategy's raised
+        _reraise_ours(exc, clock)
         clean = {EXTRA_METRICS_DROPPED: f"extra_metrics could not be read ({describe_exception(exc)})"}
+    if clean is None:
+        return None, True
     try:
-        if clean is not None:
-            strategy.extra_metrics = clean
-            if strategy.extra_metrics is not clean:
-                raise AttributeError("extra_metrics did not take the cleaned value")
-    except BaseException:  # noqa: B036 - a read-only or hostile attribute: keep a record instead
-        record = isolation.unpack_strategy(isolation.pack_strategy(strategy), device=result.device)
-        record.extra_metrics = clean
-        result = replace(result, strategy=record)
-    finally:
-        clock.abandon()
-    return result
+        strategy.extra_metrics = clean
+        return clean, strategy.extra_metrics is clean
+    except BaseException as exc:  # noqa: B036 - a read-only or hostile attribute
+        _reraise_ours(exc, clock)
+        return clean, False
+
+
+def _reraise_ours(exc: BaseException, clock: StrategyClock) -> None:
+    """Raise `exc` again when it is not the strategy's: the clock's timeout or the user's Ctrl-C."""
+    if isinstance(exc, StrategyTimeout) or (isinstance(exc, KeyboardInterrupt) and clock.user_interrupt):
+        raise exc
 
 
 def clean_extra_metrics(raw) -> dict:
@@ -441,9 +490,10 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
                 open_circuit = bool(strategy.open_circuit)
                 leave()
             except BaseException as exc:  # noqa: B036 - the strategy's failure is its outcome
+                clock.t_in = None       # first, and no call before it: no timeout is raised into the runner now
                 if isinstance(exc, KeyboardInterrupt) and clock.user_interrupt:
                     raise               # the user's Ctrl-C, not the strategy's
-                message = _describe(exc, t)  # before abandon: a hostile __str__ is still timed
+                message = clock.after(lambda: _describe(exc, t), _describe_unread(exc, t))  # __str__ is theirs
                 clock.abandon()
                 outcome = "strategy_failed"
                 t_mode[k] = mode
@@ -539,6 +589,15 @@ def _set_brake(engine, device, on: bool) -> bool:
     wheel = device.wheel_coulomb_n_m + (device.brake_torque_n_m if on else 0.0)
     engine.set_dry_friction(pivot_n_m=device.pivot_coulomb_n_m, wheel_n_m=wheel)
     return on
+
+
+def _unread(exc: BaseException) -> str:
+    """The failure's name alone, for an exception whose message did not come in time."""
+    return f"{type(exc).__name__} (its message could not be read in time)"
+
+
+def _describe_unread(exc: BaseException, t: float) -> str:
+    return f"{type(exc).__name__} at t = {t:.4f} s (its message could not be read in time)"
 
 
 def _describe(exc: BaseException, t: float) -> str:

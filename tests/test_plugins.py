@@ -133,6 +133,18 @@ def test_exits_and_odd_exceptions_inside_decide_are_strategy_failed(tmp_path, wh
     assert res.trace.n == 21                # cut at the failing tick, as for any raising strategy
 
 
+@pytest.mark.parametrize("isolate", [True, False])
+@pytest.mark.parametrize("in_build", [True, False])
+def test_an_exception_whose_message_never_comes_is_strategy_failed(tmp_path, isolate, in_build):
+    # its __str__ loops for ever: describing it is timed like the strategy's own calls
+    sc = load_scenario(_hostile(tmp_path, "Misbehaves", what="endless_str", in_build=in_build))
+    res = run_trial(sc, isolate=isolate, strategy_budget_s=0.3)
+    text = "(its message could not be read: __str__ raised StrategyTimeout)"
+    assert res.outcome == "strategy_failed"
+    where = "building the strategy failed: Endless:" if in_build else "Endless at t = 0.0200 s:"
+    assert res.message == f"{where} {text}"
+
+
 @pytest.mark.parametrize("what", ["exit0", "exit3", "interrupt", "bare", "unprintable"])
 def test_exits_while_being_built_are_strategy_failed(tmp_path, what):
     res = run_trial(load_scenario(_hostile(tmp_path, "Misbehaves", what=what, in_build=True)))

@@ -14,6 +14,14 @@ class Unprintable(RuntimeError):
         raise ValueError("no text for you")
 
 
+class Endless(RuntimeError):
+    """An exception whose __str__ never returns."""
+
+    def __str__(self):
+        while True:
+            pass
+
+
 class Bare(BaseException):
     """A BaseException subclass, below Exception."""
 
@@ -24,6 +32,7 @@ WHAT = {
     "interrupt": lambda: (_ for _ in ()).throw(KeyboardInterrupt()),
     "unprintable": lambda: (_ for _ in ()).throw(Unprintable()),
     "bare": lambda: (_ for _ in ()).throw(Bare("below Exception")),
+    "endless_str": lambda: (_ for _ in ()).throw(Endless()),
 }
 
 
