@@ -259,18 +259,73 @@ def _watch(child: Child, read_fd: int, beat: Heartbeat, started: float) -> tuple
 
 
 def _lost(child: Child, beat: Heartbeat, started: float, *, stuck: bool) -> LostChild:
-    status = child.wait()
-    code = os.waitstatus_to_exitcode(status)
-    if code < 0:
-        try:
-            how = f"signal {-code}, {signal.Signals(-code).name}"
-        except ValueError:
-            how = f"signal {-code}"
-    else:
-        how = f"exit status {code}"
+    how = _how_it_ended(child.wait())
     return LostChild(stuck=stuck, how=how, step=int(beat.slots[Heartbeat.STEP]),
                      saturated=int(beat.slots[Heartbeat.SATURATED]), phases=beat.phases(),
                      wall_s=time.perf_counter() - started)
+
+
+def _how_it_ended(status: int) -> str:
+    """"exit status 3" or "signal 11, SIGSEGV" for a wait status."""
+    code = os.waitstatus_to_exitcode(status)
+    if code >= 0:
+        return f"exit status {code}"
+    try:
+        return f"signal {-code}, {signal.Signals(-code).name}"
+    except ValueError:
+        return f"signal {-code}"
+
+
+def probe_in_child(work: Callable[[], str | None], *, timeout_s: float) -> tuple[str, str]:
+    """Try `work()` in a forked child first, its output silenced: ("ok", "") when it returned None,
+    ("failed", text) when it returned a text (what went wrong), ("ended", how) when the child ended
+    without a word (os._exit, a signal), ("stuck", "") when it had not finished after `timeout_s`
+    (then it is killed). Loading a plug-in goes through here before it runs in this process, so
+    that a plug-in that ends its process at import cannot end this one.
+    """
+    read_fd, write_fd = os.pipe()
+
+    def in_child() -> None:
+        os.close(read_fd)
+        null = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(null, 1)
+        os.dup2(null, 2)
+        text = work()
+        os.write(write_fd, b"ok" if text is None else b"failed" + text.encode("utf-8", "replace")[:8192])
+        os.close(write_fd)
+
+    child = fork_child(in_child)
+    os.close(write_fd)
+    try:
+        data = _read_until_end(child, read_fd, time.perf_counter() + timeout_s)
+    finally:
+        child.kill()
+        os.close(read_fd)
+    if data is None:
+        return "stuck", ""
+    if data == b"ok":
+        return "ok", ""
+    if data.startswith(b"failed"):
+        return "failed", data[6:].decode("utf-8", "replace")
+    return "ended", _how_it_ended(child.wait())
+
+
+def _read_until_end(child: Child, read_fd: int, deadline: float) -> bytes | None:
+    """What the child writes until it ends (None if it has not by `deadline`, perf_counter s)."""
+    poller = select.poll()
+    poller.register(read_fd, select.POLLIN)
+    data = b""
+    while True:
+        left = deadline - time.perf_counter()
+        if left <= 0:
+            return None
+        if poller.poll(min(left, WATCH_PERIOD_S) * 1000):
+            chunk = os.read(read_fd, 1 << 16)
+            if not chunk:
+                return data
+            data += chunk
+        elif child.ended():         # ended, the pipe kept open by a process the plug-in started
+            return data
 
 
 # ----------------------------------------------------------------------------- what crosses the pipe

@@ -335,6 +335,10 @@ IMPORT_ENDINGS = {
     "base_exception": ("class Odd(BaseException):\n    pass\nraise Odd('below Exception')\n", "Odd: below Exception"),
     "unprintable": ("class Odd(Exception):\n    def __str__(self):\n        raise ValueError\nraise Odd()\n",
                     "Odd: (its message could not be read: __str__ raised ValueError)"),
+    # ending the process itself: caught because the import is tried in a forked child first
+    "os_exit0": ("import os\nos._exit(0)\n", "ended its process (exit status 0)"),
+    "segfault": ("import ctypes, faulthandler\nfaulthandler.disable()\nctypes.string_at(0)\n",
+                 "ended its process (signal 11, SIGSEGV)"),
     "params_validator_exits": (
         "import sys\nfrom pydantic import field_validator\nfrom sim.strategies import Strategy, StrategyParams\n"
         "class Law(Strategy):\n    class Params(StrategyParams):\n        gain: float = 1.0\n"

@@ -74,6 +74,24 @@ def test_a_plugin_that_never_finishes_importing_is_refused_within_the_budget(tmp
         load_scenario(_scenario_with(tmp_path, {"plugin": "endless.py:Law"}))
 
 
+def test_a_plugin_whose_import_hangs_in_compiled_code_is_refused(tmp_path, monkeypatch, capsys):
+    # a double pthread_mutex_lock (Linux/glibc) waits where no signal reaches: only the forked
+    # trial import can be given up on
+    import sys as _sys
+    import sim.strategies
+    if not _sys.platform.startswith("linux"):
+        pytest.skip("needs Linux's libc")
+    (tmp_path / "locks.py").write_text(
+        "import ctypes\nlibc = ctypes.CDLL(None)\nm = ctypes.create_string_buffer(64)\n"
+        "libc.pthread_mutex_lock(m)\nlibc.pthread_mutex_lock(m)\n")
+    monkeypatch.setattr(sim.strategies, "IMPORT_BUDGET_S", 0.3)
+    path = write_scenario(tmp_path / "s.yaml", scenario_dict(strategy={"plugin": "locks.py:Law"}))
+    assert main(["validate", str(path)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "strategy.plugin: importing" in err[0]
+    assert "did not finish within 0.3 s (stuck in compiled code?)" in err[0]
+
+
 def test_unknown_kind_names_the_nearest(tmp_path):
     with pytest.raises(ScenarioError, match="did you mean 'swing_and_catch'"):
         load_scenario(_scenario_with(tmp_path, {"kind": "swing_and_cach"}))

@@ -7,8 +7,9 @@ Plug-ins are programs. Loading one runs its module's code in this process, so ev
 plug-in's code can do at load (import, class lookup, its `Params` validators) runs inside one
 guard that catches BaseException: `sys.exit`, KeyboardInterrupt or any other exception there
 becomes the scenario error "strategy.plugin: ..." (bad input, exit code 2), never the command's
-own exit. (The guard catches; it does not fork: a plug-in that ends the process itself, e.g. with
-os._exit, cannot be caught in-process.) A "file.py:Class" plug-in named in a scenario file must
+own exit. Before that, a plug-in module is imported once in a forked child (`_probe`), so that
+one whose import ends its process (os._exit, a crash) or hangs in compiled code is refused the
+same way instead of ending or hanging this process. A "file.py:Class" plug-in named in a scenario file must
 lie inside that file's folder (after resolving `..` and symlinks) unless ALLOW_OUTSIDE_ENV is set
 to 1 (the CLI's `--allow-plugins-outside` sets it); a scenario given in memory by Python code may
 name any file. "package.module:Class" imports whatever module Python finds under that name.
@@ -22,6 +23,7 @@ import importlib
 import importlib.util
 import os
 import sys
+import threading
 from pathlib import Path
 from typing import Any
 
@@ -163,10 +165,13 @@ def _class_for_plugin(plugin: Any, base_dir: Path, anywhere: bool) -> type[Strat
         path = Path(target) if Path(target).is_absolute() else base_dir / target
         module = _import_file(path if anywhere else _inside_folder(path, base_dir, plugin), plugin)
     else:
+        failed = f"@plugin: cannot import module {target!r}"
+        if target not in sys.modules:
+            _probe(lambda: importlib.import_module(target), failed)
         try:
             module = _within_budget(lambda: importlib.import_module(target), target)
         except BaseException as exc:  # noqa: B036 - plug-in code: even sys.exit is bad input here
-            raise ValueError(f"@plugin: cannot import module {target!r} ({describe_exception(exc)})") from None
+            raise ValueError(f"{failed} ({describe_exception(exc)})") from None
     try:
         cls = getattr(module, cls_name, None)   # a module-level __getattr__ is plug-in code too
         cls = None if cls is None else _checked(cls, plugin)
@@ -199,14 +204,45 @@ def _import_file(path: Path, plugin: str):
     if name in sys.modules:
         return sys.modules[name]
     spec = importlib.util.spec_from_file_location(name, path)
-    module = importlib.util.module_from_spec(spec)
-    sys.modules[name] = module
+
+    def load():
+        module = importlib.util.module_from_spec(spec)
+        sys.modules[name] = module
+        spec.loader.exec_module(module)
+        return module
+
+    failed = f"@plugin: importing {str(path)!r}"
+    _probe(load, failed)
     try:
-        _within_budget(lambda: spec.loader.exec_module(module), str(path))
+        return _within_budget(load, str(path))
     except BaseException as exc:  # noqa: B036 - plug-in code: even sys.exit is bad input here
         sys.modules.pop(name, None)
-        raise ValueError(f"@plugin: importing {str(path)!r} failed ({describe_exception(exc)})") from None
-    return module
+        raise ValueError(f"{failed} failed ({describe_exception(exc)})") from None
+
+
+def _probe(load, failed: str) -> None:
+    """Import in a forked child first (`sim.isolation.probe_in_child`): a plug-in whose import ends
+    its process (os._exit, a crash), raises or hangs, even in compiled code, is refused before it
+    runs here. Skipped where fork is unsafe or missing (other threads running, no os.fork); the
+    guarded import in this process still catches every exception then."""
+    from .. import isolation
+    if not isolation.AVAILABLE or threading.active_count() != 1:
+        return
+
+    def work() -> str | None:
+        try:
+            _within_budget(load, failed)
+            return None
+        except BaseException as exc:  # noqa: B036 - reported to the parent as text
+            return describe_exception(exc)
+
+    state, text = isolation.probe_in_child(work, timeout_s=IMPORT_BUDGET_S + isolation.GRACE_S)
+    if state == "failed":
+        raise ValueError(f"{failed} failed ({text})")
+    if state == "ended":
+        raise ValueError(f"{failed} ended its process ({text})")
+    if state == "stuck":
+        raise ValueError(f"{failed} did not finish within {IMPORT_BUDGET_S:g} s (stuck in compiled code?)")
 
 
 def describe_exception(exc: BaseException, *, limit: int = 300) -> str:

@@ -74,7 +74,8 @@ class Strategy:
        entry-point group "wheelbench.strategies". A plug-in file must lie in the scenario file's
        folder unless the user allows others (`sim.strategies.ALLOW_OUTSIDE_ENV`). Anything the
        plug-in's module, class lookup or `Params` validators raise at load, `sys.exit` included,
-       is a scenario error naming `strategy.plugin`.
+       is a scenario error naming `strategy.plugin`; so is an import that ends or crashes its
+       process or hangs (it is tried in a forked child first).
     8. Own figures. `self.extra_metrics`, if set, is a dict of JSON values (numbers, text, and
        lists or dicts of those) that the run adds to its metrics; whatever else it holds is left
        out when the trial ends, and `extra_metrics_dropped` says what.
