@@ -290,6 +290,7 @@ def probe_in_child(work: Callable[[], str | None], *, timeout_s: float) -> tuple
         null = os.open(os.devnull, os.O_WRONLY)
         os.dup2(null, 1)
         os.dup2(null, 2)
+        sys.stdout = sys.stderr = open(null, "w", closefd=False)   # even where they were not fds 1, 2
         text = work()
         os.write(write_fd, b"ok" if text is None else b"failed" + text.encode("utf-8", "replace")[:8192])
         os.close(write_fd)
