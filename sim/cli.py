@@ -293,7 +293,6 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
 def _print_run(sc, m: dict, out: Path) -> None:
     from rich.console import Console
     from rich.table import Table
-
     from rich.text import Text
 
     console = Console()

@@ -400,7 +400,7 @@ def clean_extra_metrics(raw) -> dict:
     for key, value in list(dict.items(raw))[:1000]:
         value = _json_value(value, depth=0) if type(key) is str else _DROP
         if value is _DROP:
-            dropped.append(str.__str__(key) if type(key) is str else f"a {type(key).__name__} key")
+            dropped.append(key if type(key) is str else f"a {type(key).__name__} key")
         else:
             clean[key] = value
     if len(raw) > 1000:
@@ -496,7 +496,7 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
                 message = clock.after(lambda: _describe(exc, t), _describe_unread(exc, t))  # __str__ is theirs
                 clock.abandon()
                 outcome = "strategy_failed"
-                t_mode[k] = mode
+                t_mode[k] = mode if name is None else trace.phase_code(name)  # a phase named before the failure
                 break
             if name is not None:    # the runner's bookkeeping, not charged to the strategy's budget
                 mode, name = trace.phase_code(name), None
