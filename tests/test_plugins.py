@@ -178,6 +178,16 @@ def test_run_with_an_exiting_plugin_writes_its_outcome(tmp_path, capsys, what):
     assert (tmp_path / "out" / "trace.csv").is_file()
 
 
+def test_check_with_a_plugin_that_interrupts_itself_is_judged_and_fails(tmp_path, capsys):
+    # a KeyboardInterrupt raised inside decide once ended `check` with exit 130 ("interrupted")
+    path = _hostile(tmp_path, "Misbehaves", what="interrupt", after_s=0.3, duration=1.0)
+    out = tmp_path / "out"
+    assert main(["check", str(path), "--out", str(out), "--trials", "2", "--workers", "1"]) == 1
+    verdict = json.loads((out / "verdict.json").read_text())
+    assert verdict["passed"] is False
+    assert "interrupted" not in capsys.readouterr().err
+
+
 def test_a_real_interrupt_during_an_in_process_strategy_still_stops_the_command(tmp_path):
     # Ctrl-C (SIGINT) while the strategy runs is the user's, not the strategy's: it goes on out
     import signal as sig
