@@ -165,5 +165,6 @@ def catch_figure(result: dict):
     fig.colorbar(im, ax=ax, label="wheel speed margin (caught cells)")
     ax.set_xlabel("start angle [deg]")
     ax.set_ylabel("start body rate [rad/s]")
-    ax.set_title(f"{result['name']}: catch map of {result['strategy']} (grey = not caught)", color=INK, fontsize=10)
+    ax.set_title(f"{result['name']}: catch map of {result['strategy']} (grey = not caught)", color=INK, fontsize=10,
+                 parse_math=False)  # the scenario's name, literally
     return fig

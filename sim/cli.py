@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import os
 import sys
 from pathlib import Path
 from typing import List, Optional
@@ -33,7 +34,39 @@ SeedOpt = typer.Option(None, "--seed", callback=_check_seed,
 
 def _load(scenario: Optional[Path], overrides: Optional[List[str]]):
     from .scenario import load_scenario
-    return load_scenario(scenario, overrides=tuple(overrides or ()))
+    sc = load_scenario(scenario, overrides=tuple(overrides or ()))
+    _announce_plugins(sc)
+    return sc
+
+
+_ANNOUNCED: set[str] = set()   # plug-in files this command has named on stderr (reset by main)
+
+
+def _announce_plugins(sc) -> None:
+    """One line on stderr per plug-in, the first time a scenario with it loads in this command:
+    plug-in code runs with the user's rights (the README says so too)."""
+    from .strategies import plugin_origin, plugin_specs
+    for spec in plugin_specs(sc.strategy):
+        origin = plugin_origin(spec)
+        if origin in _ANNOUNCED:
+            continue
+        _ANNOUNCED.add(origin)
+        target = spec.kind.partition(":")[0]
+        how = (f"imports module {target!r} from wherever Python finds it ({origin})"
+               if ":" in spec.kind and not target.endswith(".py") else f"runs {origin}")
+        print(f"wheelbench: note: strategy plug-in {spec.kind!r} {how}; a scenario with a plug-in is a program "
+              "and runs with your rights", file=sys.stderr)
+
+
+@app.callback()
+def _options(allow_outside: bool = typer.Option(
+        False, "--allow-plugins-outside",
+        help="Load strategy plug-in files from outside the scenario's folder (they run as programs). "
+             "Give it before the command; the same as WHEELBENCH_ALLOW_PLUGINS_OUTSIDE=1.")):
+    """Design checks for reaction-wheel balancing devices."""
+    if allow_outside:
+        from .strategies import ALLOW_OUTSIDE_ENV
+        os.environ[ALLOW_OUTSIDE_ENV] = "1"    # inherited by worker processes; main() restores it
 
 
 VideoOpt = typer.Option(None, "--video", help="Also write a clip of the trial: .mp4 or .gif (by suffix).")
@@ -192,7 +225,7 @@ def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers:
         raise InputError("--workers and --cluster: give one (the cluster's scheduler decides its workers)")
     raw, where = load_raw(scenario, tuple(overrides or ()))
     from .scenario import validate_loaded
-    validate_loaded(raw, where=where)  # bad input fails here, before an --out folder is made
+    _announce_plugins(validate_loaded(raw, where=where))  # bad input fails here, before an --out folder is made
     return raw, where
 
 
@@ -230,7 +263,7 @@ def check(scenario: Optional[Path] = ScenarioArg,
             done[0] += 1
             update(done[0], n)
         outcome = run_check(raw, where, trials=n, workers=workers, cluster=cluster,
-                            on_stage=lambda text: bar.console.print(f"[dim]{text}...[/dim]"), on_done=one_done)
+                            on_stage=lambda text: bar.console.print(_dim(f"{text}...")), on_done=one_done)
     write_check_outputs(outcome, out_dir)
     print_verdict(outcome.verdict, out_dir)
     if not outcome.verdict["passed"]:
@@ -406,9 +439,11 @@ def _print_run(sc, m: dict, out: Path) -> None:
     from rich.console import Console
     from rich.markup import escape
     from rich.table import Table
+    from rich.text import Text
 
     console = Console()
-    table = Table(title=f"{sc.name} - {m['strategy']}", show_header=False, box=None)
+    # user strings (names, plug-in paths, messages quoting them) are Text: never read as markup
+    table = Table(title=Text(f"{sc.name} - {m['strategy']}"), show_header=False, box=None)
     rows = [
         ("outcome", m["outcome"] + (f" ({m['message']})" if m.get("message") else "")),
         *([("cause", escape(f"{m['cause']}: {m['cause_detail']}"))] if m.get("cause") else []),
@@ -424,9 +459,15 @@ def _print_run(sc, m: dict, out: Path) -> None:
         rows.append((f"push {p['impulse_n_m_s'] * 1000:.1f} mN m s at {p['at_s']:.2f} s",
                      "survived" if p["survived"] else "not survived"))
     for k, v in rows:
-        table.add_row(k, v)
+        table.add_row(k, Text(v))
     console.print(table)
-    console.print(f"wrote {out}/metrics.json, trace.csv, summary.png")
+    console.print(Text(f"wrote {out}/metrics.json, trace.csv, summary.png"))
+
+
+def _dim(text: str):
+    """`text` dimmed, printed literally (no markup)."""
+    from rich.text import Text
+    return Text(text, style="dim")
 
 
 def _fmt(value, unit: str) -> str:
@@ -436,11 +477,19 @@ def _fmt(value, unit: str) -> str:
 def main(argv: Optional[list[str]] = None) -> int:
     """Entry point: our errors become one line on stderr and exit code 2."""
     from .outputs import forget_fresh_dirs, release_locks
+    from .strategies import ALLOW_OUTSIDE_ENV
     forget_fresh_dirs()  # only folders made by this command may be removed on its error
+    _ANNOUNCED.clear()
+    allowed = os.environ.get(ALLOW_OUTSIDE_ENV)
     try:
         return _main(argv)
     finally:
         release_locks()  # the --out folder's lock: the next command may write there
+        # --allow-plugins-outside holds for this command only (main runs many times in tests)
+        if allowed is None:
+            os.environ.pop(ALLOW_OUTSIDE_ENV, None)
+        else:
+            os.environ[ALLOW_OUTSIDE_ENV] = allowed
 
 
 def _main(argv: Optional[list[str]]) -> int:

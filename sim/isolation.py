@@ -85,11 +85,16 @@ class Heartbeat:
 
     def publish_phases(self, phases: list[str]) -> None:
         """The trace's phase names so far (as many as fit; the parent names the others by number)."""
-        keep = list(phases)
-        data = json.dumps(keep).encode()
-        while len(data) > self.PHASE_BYTES:
-            keep.pop()
-            data = json.dumps(keep).encode()
+        # the longest leading run of names that fits, in one pass (a trace holds at most a few
+        # hundred names: sim.trace.MAX_PHASES)
+        pieces, size = [], 2
+        for name in phases:
+            piece = json.dumps(name)
+            if size + len(piece.encode()) + (2 if pieces else 0) > self.PHASE_BYTES:
+                break
+            pieces.append(piece)
+            size += len(piece.encode()) + (2 if len(pieces) > 1 else 0)
+        data = ("[" + ", ".join(pieces) + "]").encode()
         self._text[: len(data)] = data
         self.slots[self.PHASE_LENGTH], self.slots[self.PHASE_COUNT] = len(data), len(phases)
 
@@ -254,18 +259,74 @@ def _watch(child: Child, read_fd: int, beat: Heartbeat, started: float) -> tuple
 
 
 def _lost(child: Child, beat: Heartbeat, started: float, *, stuck: bool) -> LostChild:
-    status = child.wait()
-    code = os.waitstatus_to_exitcode(status)
-    if code < 0:
-        try:
-            how = f"signal {-code}, {signal.Signals(-code).name}"
-        except ValueError:
-            how = f"signal {-code}"
-    else:
-        how = f"exit status {code}"
+    how = _how_it_ended(child.wait())
     return LostChild(stuck=stuck, how=how, step=int(beat.slots[Heartbeat.STEP]),
                      saturated=int(beat.slots[Heartbeat.SATURATED]), phases=beat.phases(),
                      wall_s=time.perf_counter() - started)
+
+
+def _how_it_ended(status: int) -> str:
+    """"exit status 3" or "signal 11, SIGSEGV" for a wait status."""
+    code = os.waitstatus_to_exitcode(status)
+    if code >= 0:
+        return f"exit status {code}"
+    try:
+        return f"signal {-code}, {signal.Signals(-code).name}"
+    except ValueError:
+        return f"signal {-code}"
+
+
+def probe_in_child(work: Callable[[], str | None], *, timeout_s: float) -> tuple[str, str]:
+    """Try `work()` in a forked child first, its output silenced: ("ok", "") when it returned None,
+    ("failed", text) when it returned a text (what went wrong), ("ended", how) when the child ended
+    without a word (os._exit, a signal), ("stuck", "") when it had not finished after `timeout_s`
+    (then it is killed). Loading a plug-in goes through here before it runs in this process, so
+    that a plug-in that ends its process at import cannot end this one.
+    """
+    read_fd, write_fd = os.pipe()
+
+    def in_child() -> None:
+        os.close(read_fd)
+        null = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(null, 1)
+        os.dup2(null, 2)
+        sys.stdout = sys.stderr = open(null, "w", closefd=False)   # even where they were not fds 1, 2
+        text = work()
+        os.write(write_fd, b"ok" if text is None else b"failed" + text.encode("utf-8", "replace")[:8192])
+        os.close(write_fd)
+
+    child = fork_child(in_child)
+    os.close(write_fd)
+    try:
+        data = _read_until_end(child, read_fd, time.perf_counter() + timeout_s)
+    finally:
+        child.kill()
+        os.close(read_fd)
+    if data is None:
+        return "stuck", ""
+    if data == b"ok":
+        return "ok", ""
+    if data.startswith(b"failed"):
+        return "failed", data[6:].decode("utf-8", "replace")
+    return "ended", _how_it_ended(child.wait())
+
+
+def _read_until_end(child: Child, read_fd: int, deadline: float) -> bytes | None:
+    """What the child writes until it ends (None if it has not by `deadline`, perf_counter s)."""
+    poller = select.poll()
+    poller.register(read_fd, select.POLLIN)
+    data = b""
+    while True:
+        left = deadline - time.perf_counter()
+        if left <= 0:
+            return None
+        if poller.poll(min(left, WATCH_PERIOD_S) * 1000):
+            chunk = os.read(read_fd, 1 << 16)
+            if not chunk:
+                return data
+            data += chunk
+        elif child.ended():         # ended, the pipe kept open by a process the plug-in started
+            return data
 
 
 # ----------------------------------------------------------------------------- what crosses the pipe
@@ -273,12 +334,12 @@ def _lost(child: Child, beat: Heartbeat, started: float, *, stuck: bool) -> Lost
 def pack_attributes(obj: object, *, skip: tuple[str, ...] = ()) -> dict[str, bytes]:
     """`obj`'s instance attributes, each pickled on its own; those that do not pickle are left out."""
     packed = {}
-    for name, value in (vars(obj).items() if hasattr(obj, "__dict__") else ()):
+    for name, value in (list(vars(obj).items()) if hasattr(obj, "__dict__") else ()):
         if name in skip:
             continue
         try:
             packed[name] = pickle.dumps(value, protocol=pickle.HIGHEST_PROTOCOL)
-        except Exception:
+        except BaseException:  # noqa: B036 - a plug-in's __reduce__ is its code: even sys.exit is left out
             pass
     return packed
 
@@ -290,7 +351,7 @@ def unpack_attributes(packed: dict[str, bytes]) -> dict[str, Any]:
     for name, data in packed.items():
         try:
             out[name] = pickle.loads(data)
-        except Exception:
+        except (Exception, SystemExit):     # a plug-in object's __setstate__ runs here: not our exit
             pass
     return out
 
@@ -334,12 +395,16 @@ def _pack_exception(exc: BaseException) -> tuple[bytes | None, str, str]:
     """(type, args and attributes pickled, or None when they do not pickle; a one-line summary; the
     child's traceback). Rebuilt without calling __init__: an exception whose __init__ takes other
     arguments than its args (sim.verdicts' early stop) would not survive plain pickling."""
-    text = "".join(traceback.format_exception(type(exc), exc, exc.__traceback__))
+    from .strategies import describe_exception
+    try:
+        text = "".join(traceback.format_exception(type(exc), exc, exc.__traceback__))
+    except BaseException:  # noqa: B036 - an exception that cannot even be formatted
+        text = describe_exception(exc)
     try:
         state = pickle.dumps((type(exc), exc.args, dict(vars(exc))), protocol=pickle.HIGHEST_PROTOCOL)
-    except Exception:
+    except BaseException:  # noqa: B036
         state = None
-    return state, f"{type(exc).__name__}: {exc}", text
+    return state, describe_exception(exc), text
 
 
 def _unpack_exception(packed: tuple[bytes | None, str, str]) -> BaseException:

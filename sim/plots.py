@@ -19,7 +19,7 @@ def summary_figure(result):
     t = tr.view("t")
     fig, axes = plt.subplots(5, 1, figsize=(8.5, 9.5), sharex=True, constrained_layout=True)
     title = f"{result.scenario.name}: {result.scenario.strategy.kind} -> {result.outcome}"
-    fig.suptitle(title, color=INK, fontsize=12, fontweight="bold")
+    fig.suptitle(title, color=INK, fontsize=12, fontweight="bold", parse_math=False)  # user text, literally
     ax = axes[0]
     true_t, true_deg = _thin(t, tr.view("angle"), scale=DEG)
     shift = _upright_shift(true_deg)
@@ -133,7 +133,7 @@ def _shade_phases(axes, tr) -> None:
             a.axvspan(t[s], t[e], color=shades[mode[s] % len(shades)], lw=0, zorder=0)
         if (t[e] - t[s]) / span > 0.06:  # narrower bands would print their names over each other
             axes[0].text(t[s], 1.0, " " + tr.phases[mode[s]], transform=axes[0].get_xaxis_transform(),
-                         fontsize=7, color=MUTED, va="top")
+                         fontsize=7, color=MUTED, va="top", parse_math=False)  # a phase name, literally
 
 
 def save_figure(fig, path) -> None:

@@ -574,7 +574,8 @@ def validate_scenario(raw: dict, *, where: str) -> Scenario:
     raw = dict(raw)
     raw.pop("source", None)
     try:
-        sc = Scenario.model_validate(raw, context={"base_dir": base_dir})
+        # a mapping given in memory (no file) comes from Python code: its plug-ins may lie anywhere
+        sc = Scenario.model_validate(raw, context={"base_dir": base_dir, "in_memory": where.startswith("<")})
     except ValidationError as exc:
         raise ScenarioError(f"{where}: {describe_validation_error(exc, Scenario)}") from None
     except RecursionError:

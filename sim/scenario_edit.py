@@ -20,6 +20,7 @@ loader refuses (object tags, alias bombs, duplicate keys) reaches the round-trip
 
 from __future__ import annotations
 
+import contextlib
 import io
 import math
 import os
@@ -107,8 +108,23 @@ def apply_patches(scenario_path: str | Path, patches: list[dict], *, dest: str |
     buf = io.StringIO()
     _round_trip(source_text).dump(doc, buf)
     text = buf.getvalue()
-    validate_scenario(parse_yaml_text(text, where=str(dest)), where=str(dest))
+    with _plugins_outside_allowed():   # where the plug-in lives is said in a note, not refused here
+        validate_scenario(parse_yaml_text(text, where=str(dest)), where=str(dest))
     return EditResult(text=text, notes=notes)
+
+
+@contextlib.contextmanager
+def _plugins_outside_allowed():
+    from .strategies import ALLOW_OUTSIDE_ENV
+    before = os.environ.get(ALLOW_OUTSIDE_ENV)
+    os.environ[ALLOW_OUTSIDE_ENV] = "1"
+    try:
+        yield
+    finally:
+        if before is None:
+            os.environ.pop(ALLOW_OUTSIDE_ENV, None)
+        else:
+            os.environ[ALLOW_OUTSIDE_ENV] = before
 
 
 def _merge(root, node, patch: dict, path: tuple, notes: list[str]) -> None:
@@ -154,8 +170,12 @@ def _rewrite_plugin_paths(node, src_dir: Path, dest_dir: Path, notes: list[str],
                 if target.endswith(".py") and not Path(target).is_absolute() and src_dir != dest_dir:
                     new = Path(os.path.relpath(src_dir / target, dest_dir)).as_posix()
                     node[key] = f"{new}{sep}{cls}"
+                    outside = new.startswith("../")
                     notes.append(f"{'.'.join(path + (key,))}: {value!r} rewritten as {node[key]!r} "
-                                 f"(relative to the new file's folder)")
+                                 f"(relative to the new file's folder)"
+                                 + ("; it lies outside that folder, so loading the new file needs "
+                                    "`wheelbench --allow-plugins-outside ...` (or WHEELBENCH_ALLOW_PLUGINS_OUTSIDE=1), "
+                                    "or a copy of the plug-in beside it" if outside else ""))
             else:
                 _rewrite_plugin_paths(value, src_dir, dest_dir, notes, path + (key,))
     elif isinstance(node, list):

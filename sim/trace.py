@@ -7,6 +7,9 @@ tick, held (zero-order hold), as the strategy saw them.
 
 from __future__ import annotations
 
+import csv
+import io
+import mmap
 import os
 import tempfile
 
@@ -21,6 +24,17 @@ CSV_COLUMNS = (
     "mode",
 )
 
+
+MAX_PHASES = 256
+"""Distinct phase names a trace keeps. The first MAX_PHASES names a strategy uses get their own
+code in the `mode` column; every later new name is recorded as OVERFLOW_PHASE (one more code), so
+the column's codes stay far below an int16's 32,767 whatever the strategy does."""
+
+OVERFLOW_PHASE = "(other phases)"
+"""The phase recorded for names past the first MAX_PHASES."""
+
+MAX_PHASE_CHARS = 200
+"""A phase name is kept to its first MAX_PHASE_CHARS characters (names are a few words)."""
 
 IN_MEMORY_ROWS = 1_000_000
 """Above this many rows (about 90 MB of columns, a 1,000 s trial at 1 kHz) the columns live in a
@@ -44,11 +58,14 @@ class Trace:
         self.step_s = step_s
         self.n = 0
         n_float = len(self.FLOAT_COLUMNS)
-        mapped = _file_backed(capacity * (8 * n_float + 2)) if (shared or capacity > IN_MEMORY_ROWS) else None
+        n_bytes = capacity * (8 * n_float + 2)
+        mapped = _file_backed(n_bytes) if (shared or capacity > IN_MEMORY_ROWS) else None
         self.file_backed = mapped is not None
+        if mapped is None and shared and capacity > 0:
+            mapped = _anonymous_shared(n_bytes)  # no room in the temporary folder: shared memory instead
+            if mapped is None:
+                raise OSError(f"no room for a shared trace of {n_bytes} bytes, in the temporary folder or in memory")
         if mapped is None:
-            if shared and capacity > 0:
-                raise OSError("no room for a shared trace in the temporary directory")
             floats, self.mode = np.zeros((n_float, capacity)), np.zeros(capacity, dtype=np.int16)
         else:
             floats = mapped[: 8 * n_float * capacity].view(np.float64).reshape(n_float, capacity)
@@ -56,13 +73,23 @@ class Trace:
         for i, name in enumerate(self.FLOAT_COLUMNS):
             setattr(self, name, floats[i])
         self.phases: list[str] = []
+        self._codes: dict[str, int] = {}
 
     def phase_code(self, phase: str) -> int:
-        try:
-            return self.phases.index(phase)
-        except ValueError:
-            self.phases.append(phase)
-            return len(self.phases) - 1
+        """The `mode` code of phase name `phase`, adding the name if new (see MAX_PHASES)."""
+        phase = str.__str__(phase)[:MAX_PHASE_CHARS]     # a plain str: no strategy code runs here
+        if len(self._codes) != len(self.phases):       # `phases` was set from outside (an isolated trial)
+            self._codes = {name: i for i, name in enumerate(self.phases)}
+        code = self._codes.get(phase)
+        if code is None:
+            if len(self.phases) >= MAX_PHASES:
+                phase = OVERFLOW_PHASE
+                code = self._codes.get(phase)
+            if code is None:
+                code = len(self.phases)
+                self.phases.append(phase)
+                self._codes[phase] = code
+        return code
 
     def view(self, name: str) -> np.ndarray:
         """A filled column (a view, no copy)."""
@@ -106,6 +133,15 @@ def _file_backed(n_bytes: int) -> np.ndarray | None:
         return None
 
 
+def _anonymous_shared(n_bytes: int) -> np.ndarray | None:
+    """A zeroed uint8 array in an anonymous MAP_SHARED mapping (memory, not the temporary folder),
+    seen by processes forked after it is made; None when the memory cannot be had."""
+    try:
+        return np.frombuffer(mmap.mmap(-1, n_bytes), dtype=np.uint8)
+    except (OSError, ValueError, OverflowError):
+        return None
+
+
 CSV_BLOCK_ROWS = 4096
 
 
@@ -120,13 +156,23 @@ def write_csv(trace: Trace, path) -> None:
         fh.write(",".join(names + ["mode"]) + "\n")
         # 9 significant digits (a float32-level record of float64 state)
         fmt = ",".join(["%.9g"] * len(names)) + ",%s\n"
-        phases = trace.phases
+        # phase names as the csv module quotes them (commas, quotes, line breaks), once per name
+        phases = [csv_field(name) for name in trace.phases]
         for start in range(0, trace.n, CSV_BLOCK_ROWS):
             stop = min(start + CSV_BLOCK_ROWS, trace.n)
             cols = _block_columns(trace, start, stop)
             rows = np.column_stack([cols[n] for n in names]).tolist()  # Python floats format ~2x faster
-            modes = [phases[c] for c in trace.mode[start:stop]] if phases else [""] * (stop - start)
+            modes = [phases[c] for c in trace.mode[start:stop].tolist()] if phases else [""] * (stop - start)
             fh.write("".join([fmt % (*row, mode) for row, mode in zip(rows, modes)]))
+
+
+def csv_field(text: str) -> str:
+    """`text` as the csv module writes it as a field that is not alone on its row (quoted only
+    where needed: a delimiter, a quote or a line break inside)."""
+    buffer = io.StringIO()
+    # the writer quotes the characters of its line terminator: both, whatever the file's rows end with
+    csv.writer(buffer, lineterminator="\r\n").writerow(["", text])
+    return buffer.getvalue()[1:-2]
 
 
 def _block_columns(trace: Trace, start: int, stop: int) -> dict[str, np.ndarray]:

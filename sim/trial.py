@@ -27,7 +27,7 @@ from .errors import StrategyError
 from .metrics import saturated_ticks
 from .motor import MotorDrive
 from .sensors import SensorSuite
-from .strategies import plugins_in
+from .strategies import describe_exception, exception_parts, plugins_in
 from .strategies.base import Reading
 from .trace import Trace
 
@@ -35,6 +35,9 @@ OUTCOMES = ("balanced", "fell", "not_caught", "diverged", "strategy_failed", "co
 ABSURD_RATE_RAD_S = 1e4          # a body spinning at 1,600 rev/s is a numerical blow-up
 ABSURD_WHEEL_FACTOR = 20.0       # wheel beyond 20x its no-load speed: likewise
 ABSURD_ANGLE_RAD = 1e6           # ~160,000 turns: the unwrapped angle has run away
+AFTER_S = 1.0
+"""Least wall time, s, that the runner's own calls into strategy code after a call (describing its
+exception, reading its figures) get, even when the strategy has used up its budget."""
 STRATEGY_BUDGET_S = 60.0
 """Default wall-clock budget, s, for all strategy work in one trial (building it and every
 control tick together). The built-in laws use well under 1 s for a minute of simulated time;
@@ -93,15 +96,21 @@ class StrategyClock:
         self.expired = False
         self.interrupts = False
         self._previous = None
+        self._previous_int = None
+        self.user_interrupt = False
         self.strategy = None    # the strategy being timed, once built (for subclasses' bookkeeping)
 
     def __enter__(self) -> "StrategyClock":
-        if (hasattr(signal, "setitimer") and math.isfinite(self.budget_s)
-                and threading.current_thread() is threading.main_thread()
+        main = threading.current_thread() is threading.main_thread()
+        if (hasattr(signal, "setitimer") and math.isfinite(self.budget_s) and main
                 and signal.getitimer(signal.ITIMER_REAL) == (0.0, 0.0)):
             self._previous = signal.signal(signal.SIGALRM, self._on_alarm)
             self.interrupts = True
             signal.setitimer(signal.ITIMER_REAL, max(self.budget_s, 1e-3))
+        if main and signal.getsignal(signal.SIGINT) is signal.default_int_handler:
+            # a real Ctrl-C is marked, so that it is told apart from a KeyboardInterrupt that strategy
+            # code raises itself (that one is the strategy's failure, not the user's interrupt)
+            self._previous_int = signal.signal(signal.SIGINT, self._on_interrupt)
         return self
 
     def __exit__(self, *exc) -> None:
@@ -110,6 +119,13 @@ class StrategyClock:
             # None: the old handler was not set from Python; the default is the closest we can restore
             signal.signal(signal.SIGALRM, self._previous if self._previous is not None else signal.SIG_DFL)
             self.interrupts = False
+        if self._previous_int is not None:
+            signal.signal(signal.SIGINT, self._previous_int)
+            self._previous_int = None
+
+    def _on_interrupt(self, signum, frame) -> None:
+        self.user_interrupt = True
+        raise KeyboardInterrupt
 
     def enter(self, k: int = -1) -> None:
         """Start a strategy call at physics step `k` (-1: building the strategy)."""
@@ -125,6 +141,28 @@ class StrategyClock:
     def abandon(self) -> None:
         """End a strategy call that raised (the trial ends; its time is not counted)."""
         self.t_in = None
+
+    def after(self, work, fallback):
+        """`work()`: strategy code the runner itself calls outside the strategy's calls (an exception's
+        __str__, reading `extra_metrics`, pickling the strategy), timed by what is left of the budget
+        but never less than AFTER_S; `fallback` when it runs out. A timeout cannot escape into the
+        runner: the clock counts as inside a call exactly while `work` runs, and the store that ends
+        it sits where no signal handler runs (no call in between).
+
+        Call it with no strategy call open (`t_in` None); it leaves none open.
+        """
+        result = fallback
+        self.used_s = min(self.used_s, self.budget_s - AFTER_S)
+        if self.interrupts:
+            signal.setitimer(signal.ITIMER_REAL, max(self.budget_s - self.used_s, 1e-3))
+        self.t_in = time.perf_counter()
+        try:
+            result = work()
+        except StrategyTimeout:
+            pass
+        finally:
+            self.t_in = None
+        return result
 
     def _expire(self):
         self.expired = True
@@ -160,6 +198,15 @@ class _WatchedClock(StrategyClock):
     def abandon(self) -> None:
         self.beat.left(getattr(self.strategy, "saturated_ticks", 0))
         super().abandon()
+
+    def after(self, work, fallback):
+        # the watchdog covers these calls too (strategy code stuck in C while being pickled, say)
+        left = self.budget_s - min(self.used_s, self.budget_s - AFTER_S)
+        self.beat.entered(int(self.beat.slots[isolation.Heartbeat.STEP]), time.perf_counter() + left + isolation.GRACE_S)
+        try:
+            return super().after(work, fallback)
+        finally:
+            self.beat.left(int(self.beat.slots[isolation.Heartbeat.SATURATED]))
 
 
 class _PublishedTrace(Trace):
@@ -226,7 +273,8 @@ def _simulate(scenario, device, trace, clock, *, seed, stop_early, visual, on_st
         with clock:
             strategy, failure = _build_strategy(scenario, device, rng, clock)
             clock.strategy = strategy
-            return _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock)
+            result = _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock)
+            return _settle_extra_metrics(result, clock)
     finally:
         engine.close()
 
@@ -240,15 +288,19 @@ def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step)
     _warm_imports()
     EngineModel(device, step_s=scenario.world.step, start_angle_rad=scenario.trial.start.angle).close()
     beat = isolation.Heartbeat()
-    trace = _PublishedTrace(scenario.n_steps, step_s=scenario.world.step, beat=beat)
+    try:
+        trace = _PublishedTrace(scenario.n_steps, step_s=scenario.world.step, beat=beat)
+    except OSError:     # no room for a shared trace, in the temporary folder or in memory: run here
+        trace = Trace(scenario.n_steps, step_s=scenario.world.step)
+        return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
+                         visual=None, on_step=on_step)
     clock = _WatchedClock(budget, beat)
 
     def work():
         result = _simulate(scenario, device, trace, clock, seed=seed, stop_early=stop_early, visual=None,
                            on_step=on_step)
-        clock.enter(max(trace.n - 1, 0))  # reading the strategy's attributes may run its code as well
-        strategy = isolation.pack_strategy(result.strategy)
-        clock.abandon()
+        # pickling the strategy's attributes may run its code as well
+        strategy = clock.after(lambda: isolation.pack_strategy(result.strategy), None)
         return replace(result, trace=None, device=None, scenario=None, strategy=strategy), trace.n, trace.phases
 
     sent, lost = isolation.run_in_child(work, beat=beat, mirror=on_step)
@@ -285,9 +337,112 @@ def _build_strategy(scenario, device, rng, clock):
         strategy = scenario.strategy.build(copy.deepcopy(device), rng=rng)
         clock.leave()
         return strategy, None
-    except (Exception, SystemExit, StrategyTimeout) as exc:
+    except BaseException as exc:  # noqa: B036 - whatever strategy code raises is its failure
+        clock.t_in = None           # first, and no call before it: no timeout is raised into the runner now
+        if isinstance(exc, KeyboardInterrupt) and clock.user_interrupt:
+            raise                   # the user's Ctrl-C, not the strategy's
+        text = clock.after(lambda: describe_exception(exc), _unread(exc))   # __str__ is theirs: timed
         clock.abandon()
-        return None, f"building the strategy failed: {type(exc).__name__}: {exc}"
+        return None, f"building the strategy failed: {text}"
+
+
+EXTRA_METRICS_DROPPED = "extra_metrics_dropped"
+"""The key that says what of a strategy's `extra_metrics` was left out, and why."""
+
+MAX_EXTRA_TEXT = 1000
+"""Longest text value, characters, kept from a strategy's `extra_metrics`."""
+
+
+def _settle_extra_metrics(result: TrialResult, clock: StrategyClock) -> TrialResult:
+    """Replace the strategy's `extra_metrics` with a plain dict of JSON values (`clean_extra_metrics`),
+    read under the strategy's clock (reading it may run strategy code). A strategy whose attribute
+    cannot be replaced is swapped for an `isolation.StrategyRecord` of itself."""
+    strategy = result.strategy
+    if strategy is None:
+        return result
+    late = {EXTRA_METRICS_DROPPED: "extra_metrics could not be read within the strategy's time"}
+    clean, settled = clock.after(lambda: _read_extra_metrics(strategy, clock), (late, False))
+    if settled or clean is None:
+        return result
+    record = clock.after(lambda: isolation.unpack_strategy(isolation.pack_strategy(strategy), device=result.device),
+                         None)
+    if record is None:  # not even its attributes could be read in time: what the scenario says
+        record = isolation.record_from_spec(result.scenario.strategy, device=result.device,
+                                            saturated_ticks=result.saturated_ticks)
+    record.extra_metrics = clean
+    return replace(result, strategy=record)
+
+
+def _read_extra_metrics(strategy, clock: StrategyClock) -> tuple[dict | None, bool]:
+    """(the cleaned extra metrics or None when there are none, whether the strategy now holds them)."""
+    try:
+        raw = getattr(strategy, "extra_metrics", None)
+        clean = None if raw is None else clean_extra_metrics(raw)
+    except BaseException as exc:  # noqa: B036 - a property or container of the strategy's raised
+        _reraise_ours(exc, clock)
+        clean = {EXTRA_METRICS_DROPPED: f"extra_metrics could not be read ({describe_exception(exc)})"}
+    if clean is None:
+        return None, True
+    try:
+        strategy.extra_metrics = clean
+        return clean, strategy.extra_metrics is clean
+    except BaseException as exc:  # noqa: B036 - a read-only or hostile attribute
+        _reraise_ours(exc, clock)
+        return clean, False
+
+
+def _reraise_ours(exc: BaseException, clock: StrategyClock) -> None:
+    """Raise `exc` again when it is not the strategy's: the clock's timeout or the user's Ctrl-C."""
+    if isinstance(exc, StrategyTimeout) or (isinstance(exc, KeyboardInterrupt) and clock.user_interrupt):
+        raise exc
+
+
+def clean_extra_metrics(raw) -> dict:
+    """A strategy's `extra_metrics` as metrics.json can hold it: a dict with text keys whose values
+    are None, booleans, numbers, text (up to MAX_EXTRA_TEXT characters) or lists and dicts of those.
+    Whatever else is left out, and EXTRA_METRICS_DROPPED says what and why."""
+    if not isinstance(raw, dict):
+        return {EXTRA_METRICS_DROPPED: f"extra_metrics must be a dict, found {type(raw).__name__}"}
+    clean, dropped = {}, []
+    for key, value in list(dict.items(raw))[:1000]:
+        value = _json_value(value, depth=0) if type(key) is str else _DROP
+        if value is _DROP:
+            dropped.append(key if type(key) is str else f"a {type(key).__name__} key")
+        else:
+            clean[key] = value
+    if len(raw) > 1000:
+        dropped.append(f"{len(raw) - 1000} keys past the first 1000")
+    if dropped:
+        shown = ", ".join(repr(d) for d in dropped[:10]) + (", ..." if len(dropped) > 10 else "")
+        clean[EXTRA_METRICS_DROPPED] = f"left out (not JSON numbers, text, lists or dicts): {shown}"
+    return clean
+
+
+_DROP = object()
+
+
+def _json_value(value, *, depth: int):
+    """`value` as plain JSON data, or _DROP. Only exact built-in types (and numpy scalars) pass, so
+    no strategy code runs while checking."""
+    if isinstance(value, np.generic) and value.dtype.kind in "biuf":
+        value = value.item()
+    if value is None or type(value) is bool:
+        return value
+    if type(value) is int:
+        return value if -2**63 <= value < 2**64 else _DROP
+    if type(value) is float:
+        return value
+    if type(value) is str:
+        return value if len(value) <= MAX_EXTRA_TEXT else _DROP
+    if depth < 3 and type(value) in (list, tuple) and len(value) <= 1000:
+        items = [_json_value(v, depth=depth + 1) for v in value]
+        return _DROP if any(v is _DROP for v in items) else items
+    if depth < 3 and type(value) is dict and len(value) <= 1000:
+        items = {k: _json_value(v, depth=depth + 1) for k, v in dict.items(value)}
+        if any(type(k) is not str or v is _DROP for k, v in items.items()):
+            return _DROP
+        return items
+    return _DROP
 
 
 def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock) -> TrialResult:
@@ -304,7 +459,7 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
     next_push, push_torque = pushes.pop() if pushes else (-1, 0.0)
     wheel_limit = ABSURD_WHEEL_FACTOR * device.no_load_speed_rad_s + 100.0
     bp, bw = device.pivot_viscous_n_m_s, device.wheel_viscous_n_m_s
-    brake_on, open_circuit, volts, mode, phase = False, False, 0.0, 0, None
+    brake_on, open_circuit, volts, mode, phase, name = False, False, 0.0, 0, None, None
     meas = (0.0, 0.0, 0.0)
     catch_k = fell_k = None
     fall_final = False
@@ -341,16 +496,22 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
                     volts = _drive_limit(volts, supply)
                 if strategy.phase != phase:
                     phase = strategy.phase
-                    mode = trace.phase_code(str(phase))
+                    name = str(phase)   # the strategy's own __str__: timed with it
                 if strategy.brake != brake_on:
                     brake_on = _set_brake(engine, device, bool(strategy.brake))
                 open_circuit = bool(strategy.open_circuit)
                 leave()
-            except (Exception, SystemExit, StrategyTimeout) as exc:  # the strategy's failure is its outcome
+            except BaseException as exc:  # noqa: B036 - the strategy's failure is its outcome
+                clock.t_in = None       # first, and no call before it: no timeout is raised into the runner now
+                if isinstance(exc, KeyboardInterrupt) and clock.user_interrupt:
+                    raise               # the user's Ctrl-C, not the strategy's
+                message = clock.after(lambda: _describe(exc, t), _describe_unread(exc, t))  # __str__ is theirs
                 clock.abandon()
-                outcome, message = "strategy_failed", _describe(exc, t)
-                t_mode[k] = mode
+                outcome = "strategy_failed"
+                t_mode[k] = mode if name is None else trace.phase_code(name)  # a phase named before the failure
                 break
+            if name is not None:    # the runner's bookkeeping, not charged to the strategy's budget
+                mode, name = trace.phase_code(name), None
             # held until the next tick: written once here, copied down the tick's rows at the end
             t_volt[k], t_mode[k] = (0.0 if open_circuit else volts), mode
             if wants_balance:
@@ -461,6 +622,17 @@ def _set_brake(engine, device, on: bool) -> bool:
     return on
 
 
+def _unread(exc: BaseException) -> str:
+    """The failure's name alone, for an exception whose message did not come in time."""
+    return f"{type(exc).__name__} (its message could not be read in time)"
+
+
+def _describe_unread(exc: BaseException, t: float) -> str:
+    return f"{type(exc).__name__} at t = {t:.4f} s (its message could not be read in time)"
+
+
 def _describe(exc: BaseException, t: float) -> str:
-    text = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
-    return f"{type(exc).__name__} at t = {t:.4f} s" + (f": {text}" if text else "")
+    """"Type at t = ... s: first line of the message"; never raises (see describe_exception)."""
+    name, text = exception_parts(exc)
+    text = text.splitlines()[0] if text else ""
+    return f"{name} at t = {t:.4f} s" + (f": {text}" if text else "")

@@ -171,11 +171,14 @@ def print_verdict(v: dict, out: Path) -> None:
     from rich.console import Console
     from rich.table import Table
 
+    from rich.text import Text
+
     console = Console()
     # the criterion's name is never cut or folded (a user greps for it); on a narrow terminal the
     # notes go below the table, where they have the whole width
     notes_below = console.width < NARROW_TERMINAL
-    table = Table(title=f"{v['name']} - {v['strategy']}: {'PASS' if v['passed'] else 'FAIL'}")
+    # user strings (the scenario's name, a plug-in's path, notes quoting them) are Text: no markup
+    table = Table(title=Text(f"{v['name']} - {v['strategy']}: {'PASS' if v['passed'] else 'FAIL'}"))
     table.add_column("criterion", no_wrap=True, min_width=max((len(c["name"]) for c in v["criteria"]), default=9))
     for col in ("value", "limit", "result"):
         table.add_column(col, no_wrap=True)
@@ -184,15 +187,15 @@ def print_verdict(v: dict, out: Path) -> None:
     for c in v["criteria"]:
         row = [c["name"], format_value(c["name"], c["value"]), format_value(c["name"], c["limit"]),
                "[green]pass[/green]" if c["passed"] else "[bold red]FAIL[/bold red]"]
-        table.add_row(*row, *([] if notes_below else [c["note"]]))
+        table.add_row(*row, *([] if notes_below else [Text(str(c["note"]))]))
     console.print(table)
     if notes_below:
         for c in v["criteria"]:
             if c["note"]:
-                console.print(f"{c['name']}: {c['note']}", overflow="fold")
+                console.print(Text(f"{c['name']}: {c['note']}"), overflow="fold")
     for name, r in failed_runs(v):
         console.print(f"{name} run: {r['outcome']}, cause {r.get('cause') or '-'}: {r.get('cause_detail') or '-'}",
                       markup=False, highlight=False)
-    console.print(f"wrote {out}/verdict.json, report.md, monte_carlo.csv and plots")
+    console.print(Text(f"wrote {out}/verdict.json, report.md, monte_carlo.csv and plots"))
     for s in SAFETY_NOTES:
         console.print(f"[dim]Safety: {s}[/dim]")

@@ -436,3 +436,38 @@ def test_alias_fan_out_is_limited_by_its_expanded_size(capsys, tmp_path):
     path.write_text("a: &a [1, *a]\n")  # an alias inside its own anchor: a structure without end
     code, _, err = run_cli(capsys, ["validate", str(path)])
     assert_rejected(code, err, names=[str(path), "recursive"])
+
+
+# --------------------------------------------------------------------- plug-ins that end their import
+
+IMPORT_ENDINGS = {
+    # id: (module text, fragment the message must hold). An unguarded `sys.exit(main())` once made
+    # `validate` and `check` exit 0 having done nothing: a silent pass.
+    "exit0": ("import sys\nsys.exit(0)\n", "SystemExit: 0"),
+    "exit3": ("import sys\nsys.exit(3)\n", "SystemExit: 3"),
+    "interrupt": ("raise KeyboardInterrupt\n", "KeyboardInterrupt"),
+    "base_exception": ("class Odd(BaseException):\n    pass\nraise Odd('below Exception')\n", "Odd: below Exception"),
+    "unprintable": ("class Odd(Exception):\n    def __str__(self):\n        raise ValueError\nraise Odd()\n",
+                    "Odd: (its message could not be read: __str__ raised ValueError)"),
+    # ending the process itself: caught because the import is tried in a forked child first
+    "os_exit0": ("import os\nos._exit(0)\n", "ended its process (exit status 0)"),
+    "segfault": ("import ctypes, faulthandler\nfaulthandler.disable()\nctypes.string_at(0)\n",
+                 "ended its process (signal 11, SIGSEGV)"),
+    "params_validator_exits": (
+        "import sys\nfrom pydantic import field_validator\nfrom sim.strategies import Strategy, StrategyParams\n"
+        "class Law(Strategy):\n    class Params(StrategyParams):\n        gain: float = 1.0\n"
+        "        @field_validator('gain')\n        @classmethod\n        def _exit(cls, v):\n            sys.exit(0)\n",
+        "validating the parameters of 'ends.py:Law' failed (SystemExit: 0)"),
+}
+
+
+@pytest.mark.parametrize("command", sorted(COMMANDS))
+@pytest.mark.parametrize("case", sorted(IMPORT_ENDINGS))
+def test_a_plugin_that_ends_its_import_is_bad_input(capsys, tmp_path, command, case):
+    text, fragment = IMPORT_ENDINGS[case]
+    (tmp_path / "ends.py").write_text(text, encoding="utf-8")
+    path = write_scenario(tmp_path / "s.yaml", scenario_dict(strategy={"plugin": "ends.py:Law", "gain": 2.0}))
+    out = tmp_path / "out"
+    code, stdout, err = run_cli(capsys, COMMANDS[command](path, out))
+    assert_rejected(code, err, names=[str(path), "strategy.plugin", fragment], out=out)
+    assert stdout == ""

@@ -42,6 +42,14 @@ NOISY = dict(sensors={"delay": 0.002, "angle": {"counts_per_rev": 4096, "noise":
              trial={"duration": 1.0, "start": {"angle": 0.05}, "pushes": [{"at": 0.5, "impulse": 0.005}], "seed": 11})
 
 
+@pytest.fixture(autouse=True)
+def plugins_from_tests_folder(monkeypatch):
+    """The scenarios here name plug-ins in tests/plugins/ by absolute path, from files elsewhere:
+    allowed explicitly (the refusal itself is tested in tests/test_plugins.py)."""
+    from sim.strategies import ALLOW_OUTSIDE_ENV
+    monkeypatch.setenv(ALLOW_OUTSIDE_ENV, "1")
+
+
 @pytest.fixture
 def hang_guard():
     faulthandler.dump_traceback_later(60, exit=True, file=sys.__stderr__)
@@ -255,3 +263,31 @@ def test_a_sweep_over_a_stuck_plugin_records_each_point(tmp_path, short_budget, 
         rows = list(csv.DictReader(fh))
     assert [row["outcome"] for row in rows] == ["strategy_failed", "strategy_failed"]
     assert ["t = 0.0100 s" in rows[0]["message"], "t = 0.0300 s" in rows[1]["message"]] == [True, True]
+
+
+def test_the_heartbeat_carries_odd_and_many_phase_names():
+    beat = isolation.Heartbeat()
+    odd = ['a,b', 'say "hi"', "two\nlines", "", "[/]", "\u00e9t\u00e9"]
+    beat.publish_phases(odd)
+    assert beat.phases() == odd
+    many = [f"phase name {i:03d} " + "x" * 40 for i in range(257)]     # more than PHASE_BYTES of JSON
+    beat.publish_phases(many)
+    got = beat.phases()
+    kept = next(i for i, name in enumerate(got) if name != many[i])
+    assert 0 < kept < 257 and got[:kept] == many[:kept]                 # the leading names that fit
+    assert got[kept:] == [f"phase {i}" for i in range(kept, 257)]       # the rest by number
+    assert int(beat.slots[isolation.Heartbeat.PHASE_LENGTH]) <= isolation.Heartbeat.PHASE_BYTES
+
+
+def test_probe_in_child_tells_each_ending_apart(capfd):
+    from plugins.stuck_laws import deadlock
+
+    def talks():
+        print("said at import", flush=True)
+        os.write(2, b"written to stderr\n")
+
+    assert isolation.probe_in_child(talks, timeout_s=10) == ("ok", "")
+    assert capfd.readouterr() == ("", "")      # the trial import's output is silenced
+    assert isolation.probe_in_child(lambda: "it broke", timeout_s=10) == ("failed", "it broke")
+    assert isolation.probe_in_child(lambda: os._exit(0), timeout_s=10) == ("ended", "exit status 0")
+    assert isolation.probe_in_child(deadlock, timeout_s=0.3) == ("stuck", "")

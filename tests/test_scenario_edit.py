@@ -111,7 +111,7 @@ def test_an_absolute_tolerance_on_a_replaced_key_is_dropped_with_a_note(tmp_path
     assert set(load_scenario(out).tolerances) == {"motor.resistance"}
 
 
-def test_plugin_paths_are_rewritten_for_the_new_folder(tmp_path):
+def test_plugin_paths_are_rewritten_for_the_new_folder(tmp_path, capsys, monkeypatch):
     src_dir, dest_dir = tmp_path / "team" / "scenarios", tmp_path / "elsewhere" / "deep"
     src_dir.mkdir(parents=True)
     dest_dir.mkdir(parents=True)
@@ -122,6 +122,9 @@ def test_plugin_paths_are_rewritten_for_the_new_folder(tmp_path):
     out = dest_dir / "patched.yaml"
     assert main(["apply", str(scen), str(patch), "--out", str(out)]) == 0
     assert "../../team/scenarios/laws.py:ProportionalDamping" in out.read_text()
+    assert "--allow-plugins-outside" in capsys.readouterr().out   # the plug-in now lies outside the file's folder
+    from sim.strategies import ALLOW_OUTSIDE_ENV
+    monkeypatch.setenv(ALLOW_OUTSIDE_ENV, "1")
     sc = load_scenario(out)
     assert sc.strategy.cls.__name__ == "ProportionalDamping" and sc.strategy.params.gain == 40
 

@@ -66,3 +66,52 @@ def test_shared_trace_shows_a_forked_childs_rows():
         os._exit(0)
     os.waitpid(pid, 0)
     assert plain.rate[3] == 0.0  # the control: without sharing the parent sees nothing
+
+
+def _csv_as_before(trace: Trace, path) -> None:
+    """trace.csv as it was written before phase names were quoted (kept here as the reference):
+    each row "%.9g" per number, then the phase name as it is."""
+    names = list(trace_mod.CSV_COLUMNS[:-1])
+    cols = trace.columns()
+    fmt = ",".join(["%.9g"] * len(names)) + ",%s\n"
+    modes = trace.modes()
+    with open(path, "w", encoding="utf-8", newline="") as fh:
+        fh.write(",".join(names + ["mode"]) + "\n")
+        for k in range(trace.n):
+            fh.write(fmt % (*(float(cols[n][k]) for n in names), modes[k]))
+
+
+def test_the_default_demo_writes_the_same_csv_bytes_as_before(tmp_path):
+    # quoting phase names with the csv module must not move a byte of an ordinary trace
+    raw, where = load_raw(None)
+    result = run_trial(validate_scenario(raw, where=where))
+    assert len(result.trace.phases) >= 2            # the demo swings up and then balances: several names
+    write_csv(result.trace, tmp_path / "now.csv")
+    _csv_as_before(result.trace, tmp_path / "before.csv")
+    assert (tmp_path / "now.csv").read_bytes() == (tmp_path / "before.csv").read_bytes()
+
+
+def test_phase_names_that_csv_must_quote_read_back_whole(tmp_path):
+    import csv
+
+    names = ["plain", "a,b", 'say "hi"', "two\nlines", "cr\rlf", "", " spaced ", "[/]"]
+    tr = Trace(len(names), step_s=0.01)
+    tr.n = len(names)
+    for name in names:
+        tr.mode[tr.phase_code(name)] = tr.phase_code(name)
+    write_csv(tr, tmp_path / "t.csv")
+    with open(tmp_path / "t.csv", newline="", encoding="utf-8") as fh:
+        rows = list(csv.reader(fh))
+    assert [row[-1] for row in rows[1:]] == names and all(len(row) == 13 for row in rows)
+
+
+def test_distinct_phases_are_bounded():
+    tr = Trace(1, step_s=0.01)
+    codes = [tr.phase_code(f"p{i}") for i in range(trace_mod.MAX_PHASES + 500)]
+    assert codes[: trace_mod.MAX_PHASES] == list(range(trace_mod.MAX_PHASES))
+    assert set(codes[trace_mod.MAX_PHASES:]) == {trace_mod.MAX_PHASES}
+    assert tr.phases[-1] == trace_mod.OVERFLOW_PHASE and len(tr.phases) == trace_mod.MAX_PHASES + 1
+    assert tr.phase_code("p3") == 3                 # a known name keeps its code after the overflow
+    assert tr.phase_code("x" * 1000) == trace_mod.MAX_PHASES
+    fresh = Trace(1, step_s=0.01)
+    assert fresh.phases[fresh.phase_code("y" * 1000)] == "y" * trace_mod.MAX_PHASE_CHARS

@@ -55,9 +55,14 @@ class Strategy:
        states (`drive.supply`): `self.supply_v` is a copy for the law to read, and changing it,
        the device or `command` itself never gets more than the supply applied. A tick whose
        voltage reaches the supply counts in `voltage_saturated_fraction`. A non-finite voltage
-       ends the trial with outcome `strategy_failed`, as does any exception raised by `decide`.
+       ends the trial with outcome `strategy_failed`, as does anything `decide` or `__init__`
+       raises: any exception, `sys.exit`, KeyboardInterrupt or another BaseException (a real
+       Ctrl-C still stops the command), and an exception whose message cannot be read.
     4. Phase. `self.phase` names what the law is doing now, in a few words ("balance",
-       "swing up", ...); the trace's `mode` column reports it.
+       "swing up", ...); the trace's `mode` column reports it. A trace keeps the first 256
+       distinct names (`sim.trace.MAX_PHASES`), each cut to 200 characters; every later new
+       name is recorded as "(other phases)". Recording phases is the runner's work and is not
+       charged to the strategy's time budget.
     5. Goal. `goal = "balance"` for strategies that aim to hold the body upright (the runner
        then judges balanced / fell / not caught), None for bench strategies (outcome
        `completed`). `self.balancing` is True while the balance law is in charge; a balance-only
@@ -69,7 +74,14 @@ class Strategy:
        (a driver switched off, as opposed to one holding 0 V, which brakes by back-EMF).
     7. Registration. Built-ins are named in `sim.strategies.BUILTIN`; a plug-in is any subclass
        named in a scenario by "file.py:Class" or "package.module:Class", or registered under the
-       entry-point group "wheelbench.strategies".
+       entry-point group "wheelbench.strategies". A plug-in file must lie in the scenario file's
+       folder unless the user allows others (`sim.strategies.ALLOW_OUTSIDE_ENV`). Anything the
+       plug-in's module, class lookup or `Params` validators raise at load, `sys.exit` included,
+       is a scenario error naming `strategy.plugin`; so is an import that ends or crashes its
+       process or hangs (it is tried in a forked child first).
+    8. Own figures. `self.extra_metrics`, if set, is a dict of JSON values (numbers, text, and
+       lists or dicts of those) that the run adds to its metrics; whatever else it holds is left
+       out when the trial ends, and `extra_metrics_dropped` says what.
     """
 
     kind: ClassVar[str] = "custom"
