@@ -31,6 +31,7 @@ BUILTIN: dict[str, str] = {
     "swing_and_catch": "sim.strategies.supervisor:SwingAndCatch",
     "pid": "sim.strategies.pid:PidBalance",
     "jump": "sim.strategies.jump:BrakeJump",
+    "firmware": "sim.firmware.strategy:FirmwareStrategy",
 }
 
 ENTRY_POINT_GROUP = "wheelbench.strategies"
@@ -57,7 +58,8 @@ def plugins_in(spec: StrategySpec) -> list[str]:
     A plug-in is anything not named in BUILTIN: a "file.py:Class" or "module:Class" path, or an
     entry point (a built-in name always wins over an entry point of the same name).
     """
-    found = [] if spec.kind in BUILTIN else [spec.kind]
+    # a built-in marked `isolated` (compiled firmware) runs in the child like a plug-in
+    found = [] if spec.kind in BUILTIN and not getattr(spec.cls, "isolated", False) else [spec.kind]
     for _, value in (spec.params if spec.params is not None else ()):
         for item in (value if isinstance(value, (list, tuple)) else (value,)):
             if isinstance(item, StrategySpec):

@@ -1,0 +1,268 @@
+"""Compiling firmware sources against `wheelbench.h` with cffi (out-of-line API mode), cached.
+
+A build is keyed by a SHA-256 over everything that shapes the binary: the header, the sources'
+names and contents, the headers found in the include folders, the defines, the flags, the
+compiler command and the Python ABI. The cache folder is `$WHEELBENCH_FIRMWARE_CACHE` when set,
+else `$XDG_CACHE_HOME/wheelbench/firmware`, else `~/.cache/wheelbench/firmware`; each build is one
+subfolder named by the key, made whole by a rename (two processes building the same key at once
+both succeed; one copy stays).
+
+A cache miss first compiles and links the sources alone with the system compiler (the header
+force-included, so the firmware's definitions are type-checked against the contract), which gives
+the user the compiler's own first error lines; then cffi builds the extension module with its
+output sent to a log, not the terminal. Failures raise `FirmwareBuildError` (a ValueError: bad
+input, reported as one line by the scenario loader).
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import importlib.machinery
+import importlib.util
+import os
+import re
+import shlex
+import shutil
+import subprocess
+import sys
+import sysconfig
+import tempfile
+from dataclasses import dataclass
+from pathlib import Path
+
+HEADER = Path(__file__).with_name("wheelbench.h")
+CACHE_ENV = "WHEELBENCH_FIRMWARE_CACHE"
+BUILD_RECIPE = "1"   # bump when the generated wrapper below changes: old builds are then not reused
+HEADER_SUFFIXES = (".h", ".hh", ".hpp", ".inc")
+MAX_INCLUDE_FILES = 2000
+ERROR_LINES = 2
+
+# The wrapper cffi compiles around the firmware: the step flushes stdout so that a trial that
+# crashes keeps the printf output of every tick before the crash.
+_WRAPPER = """
+#include <stdio.h>
+#include "wheelbench.h"
+static void wbx_step(const wb_input_t *in, wb_output_t *out) { wb_step(in, out); fflush(stdout); }
+"""
+_WRAPPER_CDEF = "void wbx_step(const wb_input_t *in, wb_output_t *out);"
+
+_STUB_MAIN = """
+#include "wheelbench.h"
+int main(void) { wb_config_t c = {0}; wb_input_t i = {0}; wb_output_t o = {0};
+                 wb_init(&c); wb_step(&i, &o); return 0; }
+"""
+
+
+class FirmwareBuildError(ValueError):
+    """The firmware did not compile or link: bad input, the compiler's first error lines."""
+
+
+@dataclass(frozen=True)
+class Build:
+    """A compiled firmware: the extension module's path and name, and whether this call compiled it."""
+
+    path: Path
+    module_name: str
+    key: str
+    compiled_now: bool
+
+
+def cache_dir() -> Path:
+    """The firmware build cache folder (see the module docstring)."""
+    if os.environ.get(CACHE_ENV):
+        return Path(os.environ[CACHE_ENV])
+    base = os.environ.get("XDG_CACHE_HOME") or str(Path.home() / ".cache")
+    return Path(base) / "wheelbench" / "firmware"
+
+
+def contract_cdef() -> str:
+    """The declarations of `wheelbench.h` between its WB_CDEF markers (what cffi type-checks)."""
+    lines = HEADER.read_text().splitlines()
+    begin = next(i for i, ln in enumerate(lines) if ln.startswith("/* WB_CDEF_BEGIN"))
+    end = lines.index("/* WB_CDEF_END */")
+    return "\n".join(lines[begin + 1:end])
+
+
+def compiler() -> list[str]:
+    """The C compiler command: $CC, else the one Python was built with, else `cc`."""
+    return shlex.split(os.environ.get("CC") or sysconfig.get_config_var("CC") or "cc")
+
+
+def build_firmware(*, sources: list[Path], include: list[Path], defines: dict[str, str],
+                   cflags: list[str]) -> Build:
+    """The cached build of these sources, compiling it on a miss. Paths are absolute."""
+    key = _key(sources, include, defines, cflags)
+    name = f"_wbfw_{key[:24]}"
+    final = cache_dir() / key[:24]
+    path = final / (name + _ext_suffix())
+    if path.is_file():
+        return Build(path=path, module_name=name, key=key, compiled_now=False)
+    root = cache_dir()
+    try:
+        root.mkdir(parents=True, exist_ok=True)
+        work = Path(tempfile.mkdtemp(prefix=".build-", dir=root))
+    except OSError as exc:
+        raise FirmwareBuildError(f"cannot use the firmware cache folder {str(root)!r} ({exc.strerror}); "
+                                 f"set {CACHE_ENV} to a writable folder") from None
+    try:
+        args = _compile_args(include, defines, cflags)
+        _check_compiles(sources, args, work)
+        built = _cffi_build(name, sources, include, defines, cflags, work)
+        staging = Path(tempfile.mkdtemp(prefix=".stage-", dir=root))
+        shutil.copy2(built, staging / built.name)
+        (staging / "build.txt").write_text(_recipe_text(sources, include, defines, cflags))
+        try:
+            os.rename(staging, final)
+        except OSError:                 # another process made the same build first: keep theirs
+            shutil.rmtree(staging, ignore_errors=True)
+    finally:
+        shutil.rmtree(work, ignore_errors=True)
+    return Build(path=path, module_name=name, key=key, compiled_now=True)
+
+
+def load_fresh(build: Build):
+    """A fresh copy of the built module (its static variables at their initial values): the file is
+    copied to a temporary name and loaded from there (a second load of the same file would give
+    the same copy back), then the temporary file is removed; the mapping stays."""
+    fd, tmp = tempfile.mkstemp(prefix=build.module_name + "-", suffix=_ext_suffix())
+    os.close(fd)
+    try:
+        shutil.copyfile(build.path, tmp)
+        loader = importlib.machinery.ExtensionFileLoader(build.module_name, tmp)
+        spec = importlib.util.spec_from_file_location(build.module_name, tmp, loader=loader)
+        module = importlib.util.module_from_spec(spec)
+        loader.exec_module(module)
+    finally:
+        os.unlink(tmp)
+    return module
+
+
+# ----------------------------------------------------------------------------- internals
+
+def _ext_suffix() -> str:
+    return sysconfig.get_config_var("EXT_SUFFIX") or ".so"
+
+
+def _key(sources, include, defines, cflags) -> str:
+    import cffi
+
+    h = hashlib.sha256()
+
+    def put(label: str, data: bytes) -> None:
+        h.update(label.encode() + b"\0" + len(data).to_bytes(8, "little") + data)
+
+    put("recipe", BUILD_RECIPE.encode())
+    put("header", HEADER.read_bytes())
+    put("abi", f"{sys.implementation.cache_tag} {_ext_suffix()} cffi {cffi.__version__}".encode())
+    put("cc", " ".join(compiler()).encode())
+    for src in sources:
+        put("source " + src.name, _read(src, "sources"))
+    for folder in include:
+        for header in _headers_in(folder):
+            put("include " + str(header.relative_to(folder)), _read(header, "include"))
+    for name in sorted(defines):
+        put("define " + name, defines[name].encode())
+    for flag in cflags:
+        put("cflag", flag.encode())
+    return h.hexdigest()
+
+
+def _read(path: Path, key: str) -> bytes:
+    try:
+        return path.read_bytes()
+    except OSError as exc:
+        raise FirmwareBuildError(f"@{key}: cannot read {str(path)!r} ({exc.strerror})") from None
+
+
+def _headers_in(folder: Path) -> list[Path]:
+    found = sorted(p for p in folder.rglob("*") if p.suffix in HEADER_SUFFIXES and p.is_file())
+    if len(found) > MAX_INCLUDE_FILES:
+        raise FirmwareBuildError(f"@include: {str(folder)!r} holds more than {MAX_INCLUDE_FILES} header files; "
+                                 "name a narrower folder")
+    return found
+
+
+def _compile_args(include, defines, cflags) -> list[str]:
+    args = ["-include", "wheelbench.h", "-I", str(HEADER.parent)]
+    for folder in include:
+        args += ["-I", str(folder)]
+    args += [f"-D{name}={value}" for name, value in defines.items()]
+    return args + list(cflags)
+
+
+def _check_compiles(sources, args, work: Path) -> None:
+    """Compile each source and link them with a stub main: the compiler's own messages on failure."""
+    cc = compiler()
+    objects = []
+    for i, src in enumerate(sources):
+        obj = work / f"check{i}.o"
+        _run(cc + ["-c", str(src), "-o", str(obj)] + args, "sources", f"compiling {src.name} failed")
+        objects.append(str(obj))
+    stub = work / "wb_stub_main.c"
+    stub.write_text(_STUB_MAIN)
+    _run(cc + [str(stub), *objects, "-o", str(work / "check"), "-I", str(HEADER.parent), "-lm"]
+         + [f for f in args if f.startswith("-l") or f.startswith("-L")],
+         "sources", "linking failed")
+
+
+def _run(cmd: list[str], key: str, what: str) -> None:
+    try:
+        done = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
+    except FileNotFoundError:
+        raise FirmwareBuildError(f"@{key}: no C compiler found ({cmd[0]!r}); install one (e.g. gcc) "
+                                 "or set CC") from None
+    except subprocess.TimeoutExpired:
+        raise FirmwareBuildError(f"@{key}: {what}: the compiler took over 300 s") from None
+    if done.returncode != 0:
+        raise FirmwareBuildError(f"@{key}: {what}: {first_errors(done.stderr + done.stdout)}")
+
+
+def first_errors(text: str) -> str:
+    """The compiler's first error lines, joined into one line (all of its first lines if none says error)."""
+    lines = [ln.strip() for ln in text.splitlines() if ln.strip()]
+    errors = [ln for ln in lines if re.search(r"\berror\b|undefined reference", ln, re.IGNORECASE)]
+    return " | ".join((errors or lines)[:ERROR_LINES]) or "(no message)"
+
+
+def _cffi_build(name, sources, include, defines, cflags, work: Path) -> Path:
+    import cffi
+
+    ffi = cffi.FFI()
+    ffi.cdef(contract_cdef() + "\n" + _WRAPPER_CDEF)
+    ffi.set_source(name, _WRAPPER, sources=[str(s) for s in sources],
+                   include_dirs=[str(HEADER.parent), *map(str, include)],
+                   define_macros=list(defines.items()),
+                   extra_compile_args=["-include", "wheelbench.h", *cflags], libraries=["m"])
+    log = work / "cffi.log"
+    try:
+        with _output_to(log):
+            built = ffi.compile(tmpdir=str(work), verbose=False)
+    except Exception as exc:
+        text = log.read_text(errors="replace") if log.exists() else ""
+        raise FirmwareBuildError(f"@sources: building the module failed: {first_errors(text) if text else exc}") from None
+    return Path(built)
+
+
+@contextlib.contextmanager
+def _output_to(path: Path):
+    """File descriptors 1 and 2 to `path` for the duration (the compiler's children write there)."""
+    for stream in (sys.stdout, sys.stderr):
+        with contextlib.suppress(Exception):
+            stream.flush()
+    saved = [os.dup(1), os.dup(2)]
+    with open(path, "wb") as sink:
+        os.dup2(sink.fileno(), 1)
+        os.dup2(sink.fileno(), 2)
+        try:
+            yield
+        finally:
+            os.dup2(saved[0], 1)
+            os.dup2(saved[1], 2)
+            for fd in saved:
+                os.close(fd)
+
+
+def _recipe_text(sources, include, defines, cflags) -> str:
+    return "\n".join([f"source {s}" for s in sources] + [f"include {i}" for i in include]
+                     + [f"define {k}={v}" for k, v in defines.items()] + [f"cflag {f}" for f in cflags]) + "\n"
