@@ -138,10 +138,10 @@ class FirmwareStrategy(Strategy):
         cfg = ffi.new("wb_config_t *", {"period_us": round(self._period_s * 1e6), "supply_v": d.supply_v,
                                         "angle_counts_per_rev": self._a_cpr, "wheel_counts_per_rev": self._w_cpr,
                                         "pwm_max": self.pwm_max})
-        self._in, self._out = ffi.new("wb_input_t *"), ffi.new("wb_output_t *")
-        self._step, self._module = lib.wbx_step, module   # the module keeps the loaded copy alive
+        self._out = ffi.new("wb_output_t *")
+        self._tick, self._module = lib.wbx_tick, module   # the module keeps the loaded copy alive
         self._phases = [f"fw {i}" for i in range(256)]
-        lib.wb_init(cfg)
+        lib.wbx_init(cfg)
         self.phase = self._phases[0]
 
     def _redirect_printf(self) -> None:
@@ -155,7 +155,6 @@ class FirmwareStrategy(Strategy):
         os.close(fd)
 
     def decide(self, reading: Reading) -> float:
-        inp, out = self._in, self._out
         angle, wheel = reading.angle_rad, reading.wheel_speed_rad_s
         if self._a_res:
             c = round(angle / self._a_res)
@@ -169,17 +168,13 @@ class FirmwareStrategy(Strategy):
         if self._w_res:
             self._w_count += round(wheel * self._period_s / self._w_res)
         self._first = False
-        inp.t_us = round(reading.t_s * 1e6) & 0xFFFFFFFF
-        inp.angle_rad, inp.rate_rad_s, inp.wheel_speed_rad_s = angle, reading.rate_rad_s, wheel
-        inp.angle_counts, inp.wheel_counts = self._a_count, self._w_count
-        out.volts, out.duty, out.brake, out.phase = 0.0, 0, 0, 0
-        self._step(inp, out)
+        out = self._out
+        volts = self._tick(round(reading.t_s * 1e6) & 0xFFFFFFFF, angle, reading.rate_rad_s, wheel,
+                           self._a_count, self._w_count, out)
         self.phase = self._phases[out.phase]
         self.brake = out.brake != 0
-        if self.pwm_max:
-            return out.duty / self.pwm_max * self.supply_v
-        return out.volts
+        return volts
 
     def __getstate__(self):
         # the loaded module and cffi objects stay in the child; the record keeps the plain fields
-        return {k: v for k, v in vars(self).items() if k not in ("_in", "_out", "_step", "_module")}
+        return {k: v for k, v in vars(self).items() if k not in ("_out", "_tick", "_module")}
