@@ -2,7 +2,7 @@
 
 The bundled example (scenarios/firmware/balance_q16.c) is checked against the Python `lqr` trial of
 the same scenario; the other firmwares are written by the tests into a temporary folder. Builds go
-to a cache folder of the test session (WHEELBENCH_FIRMWARE_CACHE), never the user's.
+to a cache folder of the test session (WHEELBENCH_FIRMWARE_CACHE, set in conftest.py), never the user's.
 """
 
 from __future__ import annotations
@@ -36,18 +36,6 @@ EXAMPLE = EXAMPLE_DIR / "desk_firmware.yaml"
 LQR_TWIN = "strategy={kind: lqr, release_angle: 30 deg}"
 linux_only = pytest.mark.skipif(not isolation.AVAILABLE or not sys.platform.startswith("linux"),
                                 reason="isolated firmware trials need fork; the signals are Linux's")
-
-
-@pytest.fixture(scope="session", autouse=True)
-def firmware_cache(tmp_path_factory):
-    folder = tmp_path_factory.mktemp("firmware-cache")
-    before = os.environ.get(fw_build.CACHE_ENV)
-    os.environ[fw_build.CACHE_ENV] = str(folder)
-    yield folder
-    if before is None:
-        os.environ.pop(fw_build.CACHE_ENV, None)
-    else:
-        os.environ[fw_build.CACHE_ENV] = before
 
 
 def firmware_scenario(folder: Path, source: str, *, name: str = "fw.c", defines: dict | None = None,

@@ -174,7 +174,3 @@ class FirmwareStrategy(Strategy):
         self.phase = self._phases[out.phase]
         self.brake = out.brake != 0
         return volts
-
-    def __getstate__(self):
-        # the loaded module and cffi objects stay in the child; the record keeps the plain fields
-        return {k: v for k, v in vars(self).items() if k not in ("_out", "_tick", "_module")}
