@@ -354,3 +354,40 @@ def test_header_declares_the_contract_exactly():
                  "uint8_t brake;", "uint8_t phase;", "} wb_output_t;",
                  "void wb_init(const wb_config_t *cfg);", "void wb_step(const wb_input_t *in, wb_output_t *out);"):
         assert decl in text, decl
+
+
+# ----------------------------------------------------------------------------- bad input, every command
+
+COMMANDS = {
+    "validate": lambda f, out: ["validate", str(f)],
+    "run": lambda f, out: ["run", str(f), "--out", str(out)],
+    "check": lambda f, out: ["check", str(f), "--out", str(out), "--trials", "1", "--workers", "1"],
+    "sweep": lambda f, out: ["sweep", str(f), "--vary", "drive.supply=10..12:2", "--out", str(out), "--workers", "1"],
+    "catch-map": lambda f, out: ["catch-map", str(f), "--grid", "2", "--out", str(out), "--workers", "1"],
+}
+BROKEN = {
+    # id: (strategy keys beside kind: firmware, fragments the one line must hold)
+    "compile_error": ({"sources": ["fw.c"]}, ["strategy.sources", "fw.c:1:", "error"]),
+    "missing_source": ({"sources": ["no_such.c"]}, ["strategy.sources[0]", "no such file"]),
+    "missing_include": ({"sources": ["fw.c"], "include": ["no_such_dir"]}, ["strategy.include[0]", "no such folder"]),
+    "bad_define_name": ({"sources": ["fw.c"], "defines": {"2X": 1}}, ["strategy.defines.2X", "C identifier"]),
+    "cflags_not_a_list": ({"sources": ["fw.c"], "cflags": "-O2"}, ["strategy.cflags"]),
+    "unknown_key": ({"sources": ["fw.c"], "define": {"X": 1}}, ["strategy.define", "did you mean 'defines'"]),
+}
+
+
+@pytest.mark.parametrize("command", sorted(COMMANDS))
+@pytest.mark.parametrize("case", sorted(BROKEN))
+def test_broken_firmware_is_one_line_and_exit_2(tmp_path, capsys, command, case):
+    keys, fragments = BROKEN[case]
+    path = firmware_scenario(tmp_path, "void wb_init(const wb_config_t *c) { (void)c } /* no ; */\n", write_only=True)
+    raw = yaml.safe_load(path.read_text())
+    raw["strategy"] = {"kind": "firmware", **keys}
+    path.write_text(yaml.safe_dump(raw, sort_keys=False))
+    out = tmp_path / "out"
+    code = main(COMMANDS[command](path, out))
+    err = [line for line in capsys.readouterr().err.splitlines() if line.strip()]
+    assert code == 2 and len(err) == 1 and err[0].startswith(f"wheelbench: {path}: "), err
+    for fragment in fragments:
+        assert fragment in err[0], (fragment, err[0])
+    assert not out.exists()

@@ -131,7 +131,7 @@ def build_firmware(*, sources: list[Path], include: list[Path], defines: dict[st
         root.mkdir(parents=True, exist_ok=True)
         work = Path(tempfile.mkdtemp(prefix=".build-", dir=root))
     except OSError as exc:
-        raise FirmwareBuildError(f"cannot use the firmware cache folder {str(root)!r} ({exc.strerror}); "
+        raise FirmwareBuildError(f"@sources: cannot use the firmware cache folder {str(root)!r} ({exc.strerror}); "
                                  f"set {CACHE_ENV} to a writable folder") from None
     try:
         args = _compile_args(include, defines, cflags)

@@ -13,6 +13,7 @@ the trial as strategy_failed at that tick. printf output goes to the file named 
 from __future__ import annotations
 
 import contextlib
+import faulthandler
 import math
 import os
 import re
@@ -145,10 +146,12 @@ class FirmwareStrategy(Strategy):
         self.phase = self._phases[0]
 
     def _redirect_printf(self) -> None:
-        """In the isolation child only, send file descriptor 1 (C's stdout) to the log or nowhere; in the
-        parent's own process (rendering) stdout is left alone."""
+        """In the isolation child only, send file descriptor 1 (C's stdout) to the log or nowhere, and
+        turn Python's fault handler off; in the parent's own process (rendering) both are left alone."""
         if os.getpid() in (_LOG["pid"], _IMPORT_PID):
             return
+        # a crash of the firmware is the trial's outcome, not a fault of Python to dump tracebacks for
+        faulthandler.disable()
         target = _LOG["path"] or os.devnull
         fd = os.open(target, os.O_WRONLY | os.O_CREAT | os.O_APPEND, 0o644)
         os.dup2(fd, 1)
