@@ -40,10 +40,11 @@ linux_only = pytest.mark.skipif(not isolation.AVAILABLE or not sys.platform.star
 
 def firmware_scenario(folder: Path, source: str, *, name: str = "fw.c", defines: dict | None = None,
                       trial: dict | None = None, write_only: bool = False):
-    """The example scenario with the firmware `source` (C text) in `folder` as its strategy; the
-    example's folder is on the include path (for desk_gains.h)."""
+    """The example scenario, without its PWM, with the firmware `source` (C text) in `folder` as its
+    strategy; the example's folder is on the include path (for desk_gains.h)."""
     (folder / name).write_text(source)
     raw = yaml.safe_load(EXAMPLE.read_text())
+    raw["drive"].pop("pwm", None)          # the tests' firmwares write volts
     raw["strategy"] = {"kind": "firmware", "sources": [name], "include": [str(EXAMPLE_DIR)],
                        "defines": defines or {}, "release_angle": "30 deg"}
     if trial:
@@ -78,7 +79,8 @@ def fixed_point_bound_v(device, *, x_max: np.ndarray, u_max: float) -> float:
     - the body rate cut to Q16: 2^-16 rad/s times |g_x1| (float32 on the way: 2^-24 relative);
     - the wheel's Q16 per-count speed rounded by 2^-17 rad/s per count moved in a period;
     - every Q16 gain rounded by at most 2^-17 per unit of what it multiplies (x_max, u_max);
-    - the command floored to Q16 (2^-16 V) and the gains header's float32 gains (2^-24 relative);
+    - the command floored to Q16 (2^-16 V), or, with a PWM duty, cut to a whole duty step
+      (supply / pwm_max), and the gains header's float32 gains (2^-24 relative);
     - the held commands, which carry the earlier ticks' differences through sum |g_u| < 1:
       the per-tick bound divided by (1 - sum |g_u|) (a geometric series).
     """
@@ -90,7 +92,8 @@ def fixed_point_bound_v(device, *, x_max: np.ndarray, u_max: float) -> float:
                 + (2.0**-16 + 2.0**-24 * x_max[1]) * abs(g_x[1])
                 + 2.0**-17 * (x_max[2] * period / res_w) * abs(g_x[2])
                 + 2.0**-17 * (x_max.sum() + u_max * len(g_u))
-                + 2.0**-16 + 2.0**-24 * (np.abs(g_x) @ x_max + g_u.sum() * u_max))
+                + (device.supply_v / device.pwm_max if device.pwm_max else 2.0**-16)
+                + 2.0**-24 * (np.abs(g_x) @ x_max + g_u.sum() * u_max))
     assert g_u.sum() < 1
     return per_tick / (1 - g_u.sum())
 
@@ -117,12 +120,26 @@ def readings_max(trace) -> np.ndarray:
     return np.array([np.abs(c[:trace.n]).max() for c in (trace.meas_angle, trace.meas_rate, trace.meas_wheel)])
 
 
-def test_example_law_matches_python_lqr_tick_by_tick():
+def example_without_pwm(folder: Path) -> Path:
+    """The example scenario without drive.pwm (the firmware then writes volts), in `folder`."""
+    raw = yaml.safe_load(EXAMPLE.read_text())
+    del raw["drive"]["pwm"]
+    raw["strategy"].update(sources=[str(EXAMPLE_DIR / s) for s in raw["strategy"]["sources"]],
+                           include=[str(EXAMPLE_DIR)])
+    path = folder / "example_volts.yaml"
+    path.write_text(yaml.safe_dump(raw, sort_keys=False))
+    return path
+
+
+@pytest.mark.parametrize("drive", ["pwm", "volts"])
+def test_example_law_matches_python_lqr_tick_by_tick(tmp_path, drive):
     # both laws fed the same readings, tick by tick: those of the Python trial of the example
-    # without angle noise (whole encoder counts; the gyro's noise and bias stay)
+    # without angle noise (whole encoder counts; the gyro's noise and bias stay); the firmware
+    # writing its 12-bit duty, or, without drive.pwm, volts
     quiet = ["sensors.angle.noise=0 deg"]
-    fw = load_scenario(EXAMPLE, overrides=quiet)
-    lq = load_scenario(EXAMPLE, overrides=quiet + [LQR_TWIN])
+    path = EXAMPLE if drive == "pwm" else example_without_pwm(tmp_path)
+    fw = load_scenario(path, overrides=quiet)
+    lq = load_scenario(path, overrides=quiet + [LQR_TWIN])
     trace = run_trial(lq).trace
     device = Device.from_scenario(fw)
     rng = np.random.default_rng(0)

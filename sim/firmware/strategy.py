@@ -129,7 +129,7 @@ class FirmwareStrategy(Strategy):
         module = load_fresh(self.params.build)
         ffi, lib = module.ffi, module.lib
         d = self.device
-        self.pwm_max = 0                      # no PWM model yet: the firmware writes volts
+        self.pwm_max = d.pwm_max              # > 0 with drive.pwm: the firmware writes a duty
         self._period_s = 1.0 / d.control_rate_hz
         self._a_cpr, self._w_cpr = d.angle_counts_per_rev, d.wheel_counts_per_rev
         self._a_res = 2 * math.pi / self._a_cpr if self._a_cpr else 0.0

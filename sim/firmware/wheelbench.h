@@ -24,8 +24,9 @@
  * wraps at 2^32 like a hardware timer.
  *
  * Outputs. volts is the voltage wanted across the motor winding when pwm_max == 0; duty is a
- * signed duty in [-pwm_max, pwm_max] when pwm_max > 0 (volts = duty / pwm_max * supply). The
- * drive clamps to +-supply. A non-finite volts ends the trial as strategy_failed. brake = 1
+ * signed duty in [-pwm_max, pwm_max] when pwm_max > 0, that is when the scenario sets
+ * drive.pwm.resolution_bits (pwm_max = 2^bits - 1). There is no PWM model: a duty acts as its
+ * mean voltage, duty / pwm_max * supply. The drive clamps to +-supply. A non-finite volts ends the trial as strategy_failed. brake = 1
  * engages the wheel brake (the scenario needs drive.brake_torque). phase is the firmware's own
  * state number, shown as the trace's mode "fw <phase>".
  *
