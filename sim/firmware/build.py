@@ -33,46 +33,65 @@ from pathlib import Path
 
 HEADER = Path(__file__).with_name("wheelbench.h")
 CACHE_ENV = "WHEELBENCH_FIRMWARE_CACHE"
-BUILD_RECIPE = "2"   # bump when the generated wrapper below changes: old builds are then not reused
+BUILD_RECIPE = "3"   # bump when the generated wrapper below changes: old builds are then not reused
 HEADER_SUFFIXES = (".h", ".hh", ".hpp", ".inc")
 MAX_INCLUDE_FILES = 2000
 ERROR_LINES = 2
 
-# The wrapper cffi compiles around the firmware. One call per tick with plain numbers (cheaper from
-# Python than filling the struct field by field); the step's output is zeroed first, and stdout is
-# flushed after it, so that a trial that crashes keeps the printf output of every tick before.
+# The wrapper cffi compiles around the firmware: one call per tick with the three readings (cheaper
+# from Python than filling the struct field by field). It keeps the tick's time and turns the
+# readings into cumulative counts (the angle from 0 at upright, unwrapped across +-pi; the wheel
+# from 0, adding each tick's speed times the period), zeroes the output, calls wb_step, flushes
+# stdout (a trial that crashes keeps the printf output of every tick before), and returns volts
+# (from the duty when pwm_max > 0).
 _WRAPPER = """
+#include <math.h>
 #include <stdio.h>
 #include <string.h>
 #include "wheelbench.h"
 static wb_input_t wbx_in;
-static int32_t wbx_pwm_max;
-static float wbx_supply_v;
-static void wbx_init(const wb_config_t *cfg) {
+static wb_config_t wbx_cfg;
+static double wbx_period_s, wbx_angle_res, wbx_wheel_res;
+static uint64_t wbx_tick_n;
+static int32_t wbx_angle_prev;
+static void wbx_init(const wb_config_t *cfg, double period_s) {
     memset(&wbx_in, 0, sizeof wbx_in);
-    wbx_pwm_max = cfg->pwm_max;
-    wbx_supply_v = cfg->supply_v;
+    wbx_cfg = *cfg;
+    wbx_period_s = period_s;
+    wbx_angle_res = cfg->angle_counts_per_rev ? 6.283185307179586 / cfg->angle_counts_per_rev : 0.0;
+    wbx_wheel_res = cfg->wheel_counts_per_rev ? 6.283185307179586 / cfg->wheel_counts_per_rev : 0.0;
+    wbx_tick_n = 0;
     wb_init(cfg);
     fflush(stdout);
 }
-static double wbx_tick(uint32_t t_us, float angle_rad, float rate_rad_s, float wheel_speed_rad_s,
-                       int32_t angle_counts, int32_t wheel_counts, wb_output_t *out) {
-    wbx_in.t_us = t_us;
-    wbx_in.angle_rad = angle_rad;
-    wbx_in.rate_rad_s = rate_rad_s;
-    wbx_in.wheel_speed_rad_s = wheel_speed_rad_s;
-    wbx_in.angle_counts = angle_counts;
-    wbx_in.wheel_counts = wheel_counts;
+static double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_rad_s, wb_output_t *out) {
+    wbx_in.t_us = (uint32_t)(uint64_t)llround((double)wbx_tick_n * wbx_period_s * 1e6);
+    wbx_in.angle_rad = (float)angle_rad;
+    wbx_in.rate_rad_s = (float)rate_rad_s;
+    wbx_in.wheel_speed_rad_s = (float)wheel_speed_rad_s;
+    if (wbx_angle_res > 0.0) {
+        int32_t c = (int32_t)lround(angle_rad / wbx_angle_res);
+        if (wbx_tick_n == 0) {
+            wbx_in.angle_counts = c;
+        } else {
+            int32_t cpr = wbx_cfg.angle_counts_per_rev, half = cpr / 2;
+            int32_t dc = ((c - wbx_angle_prev + half) % cpr + cpr) % cpr - half;
+            wbx_in.angle_counts += dc;
+        }
+        wbx_angle_prev = c;
+    }
+    if (wbx_wheel_res > 0.0)
+        wbx_in.wheel_counts += (int32_t)lround(wheel_speed_rad_s * wbx_period_s / wbx_wheel_res);
+    wbx_tick_n++;
     memset(out, 0, sizeof *out);
     wb_step(&wbx_in, out);
     fflush(stdout);
-    return wbx_pwm_max > 0 ? (double)out->duty / wbx_pwm_max * wbx_supply_v : (double)out->volts;
+    return wbx_cfg.pwm_max > 0 ? (double)out->duty / wbx_cfg.pwm_max * wbx_cfg.supply_v : (double)out->volts;
 }
 """
 _WRAPPER_CDEF = """
-void wbx_init(const wb_config_t *cfg);
-double wbx_tick(uint32_t t_us, float angle_rad, float rate_rad_s, float wheel_speed_rad_s,
-                int32_t angle_counts, int32_t wheel_counts, wb_output_t *out);
+void wbx_init(const wb_config_t *cfg, double period_s);
+double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_rad_s, wb_output_t *out);
 """
 
 _STUB_MAIN = """

@@ -114,8 +114,9 @@ class FirmwareParams(StrategyParams):
 class FirmwareStrategy(Strategy):
     """The firmware's wb_step as the law: readings in (floats and raw counts), volts or duty out.
 
-    Counts are the readings in whole encoder counts: the angle from 0 at upright, unwrapped across
-    +-pi; the wheel from 0 at the first tick, adding each tick's speed reading times the period.
+    The compiled wrapper (`sim.firmware.build`) fills wb_input_t: the tick's time, the readings, and
+    the readings in whole encoder counts (the angle from 0 at upright, unwrapped across +-pi; the
+    wheel from 0 at the first tick, adding each tick's speed reading times the period).
     """
 
     kind = "firmware"
@@ -130,19 +131,14 @@ class FirmwareStrategy(Strategy):
         ffi, lib = module.ffi, module.lib
         d = self.device
         self.pwm_max = d.pwm_max              # > 0 with drive.pwm: the firmware writes a duty
-        self._period_s = 1.0 / d.control_rate_hz
-        self._a_cpr, self._w_cpr = d.angle_counts_per_rev, d.wheel_counts_per_rev
-        self._a_res = 2 * math.pi / self._a_cpr if self._a_cpr else 0.0
-        self._w_res = 2 * math.pi / self._w_cpr if self._w_cpr else 0.0
-        self._a_prev = self._a_count = self._w_count = 0
-        self._first = True
-        cfg = ffi.new("wb_config_t *", {"period_us": round(self._period_s * 1e6), "supply_v": d.supply_v,
-                                        "angle_counts_per_rev": self._a_cpr, "wheel_counts_per_rev": self._w_cpr,
-                                        "pwm_max": self.pwm_max})
+        period_s = 1.0 / d.control_rate_hz
+        cfg = ffi.new("wb_config_t *", {"period_us": round(period_s * 1e6), "supply_v": d.supply_v,
+                                        "angle_counts_per_rev": d.angle_counts_per_rev,
+                                        "wheel_counts_per_rev": d.wheel_counts_per_rev, "pwm_max": self.pwm_max})
         self._out = ffi.new("wb_output_t *")
         self._tick, self._module = lib.wbx_tick, module   # the module keeps the loaded copy alive
         self._phases = [f"fw {i}" for i in range(256)]
-        lib.wbx_init(cfg)
+        lib.wbx_init(cfg, period_s)
         self.phase = self._phases[0]
 
     def _redirect_printf(self) -> None:
@@ -158,22 +154,8 @@ class FirmwareStrategy(Strategy):
         os.close(fd)
 
     def decide(self, reading: Reading) -> float:
-        angle, wheel = reading.angle_rad, reading.wheel_speed_rad_s
-        if self._a_res:
-            c = round(angle / self._a_res)
-            if not self._first:   # unwrap across +-pi: the reading is wrapped, the count is not
-                half = self._a_cpr // 2
-                dc = (c - self._a_prev + half) % self._a_cpr - half
-                self._a_count += dc
-            else:
-                self._a_count = c
-            self._a_prev = c
-        if self._w_res:
-            self._w_count += round(wheel * self._period_s / self._w_res)
-        self._first = False
         out = self._out
-        volts = self._tick(round(reading.t_s * 1e6) & 0xFFFFFFFF, angle, reading.rate_rad_s, wheel,
-                           self._a_count, self._w_count, out)
+        volts = self._tick(reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s, out)
         self.phase = self._phases[out.phase]
         self.brake = out.brake != 0
         return volts
