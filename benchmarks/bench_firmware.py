@@ -51,7 +51,8 @@ def main() -> None:
                  "lqr": load_scenario(EXAMPLE, overrides=common + ["strategy={kind: lqr, release_angle: 30 deg}"])}
     scenarios["lqr isolated"] = scenarios["lqr"]
     best = {name: [0.0, 0.0] for name in scenarios}
-    for sc in (scenarios["firmware"], scenarios["lqr"]):   # warm-up, not counted: first imports, the first isolation child
+    # warm-up, not counted: the first imports, the first isolation child
+    for sc in (scenarios["firmware"], scenarios["lqr"]):
         run_trial(sc, isolate=True)
     print(f"{args.seconds:g} s trials of {EXAMPLE.name}; real-time factors (simulated s / wall s)")
     print(f"{'round':>5} {'fw e2e':>9} {'lqr e2e':>9} {'ratio':>6} {'fw loop':>9} {'lqr loop':>9} {'ratio':>6}"

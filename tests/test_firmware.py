@@ -39,12 +39,15 @@ linux_only = pytest.mark.skipif(not isolation.AVAILABLE or not sys.platform.star
 
 
 def firmware_scenario(folder: Path, source: str, *, name: str = "fw.c", defines: dict | None = None,
-                      trial: dict | None = None, write_only: bool = False):
-    """The example scenario, without its PWM, with the firmware `source` (C text) in `folder` as its
-    strategy; the example's folder is on the include path (for desk_gains.h)."""
+                      trial: dict | None = None, write_only: bool = False, quiet: bool = False):
+    """The example scenario, without its PWM (and with `quiet`, without angle noise), with the
+    firmware `source` (C text) in `folder` as its strategy; the example's folder is on the include
+    path (for desk_gains.h)."""
     (folder / name).write_text(source)
     raw = yaml.safe_load(EXAMPLE.read_text())
     raw["drive"].pop("pwm", None)          # the tests' firmwares write volts
+    if quiet:                              # no angle noise: readings are whole encoder counts
+        raw["sensors"]["angle"]["noise"] = "0 deg"
     raw["strategy"] = {"kind": "firmware", "sources": [name], "include": [str(EXAMPLE_DIR)],
                        "defines": defines or {}, "release_angle": "30 deg"}
     if trial:
@@ -320,7 +323,8 @@ void wb_init(const wb_config_t *cfg) { (void)cfg; }
 void wb_step(const wb_input_t *in, wb_output_t *out) {
     calls++;
     out->phase = calls < 200 ? (uint8_t)calls : 200;
-    if (calls == 1) printf("first tick at %lu us, angle counts %ld\\n", (unsigned long)in->t_us, (long)in->angle_counts);
+    if (calls == 1)
+        printf("first tick at %lu us, angle counts %ld\\n", (unsigned long)in->t_us, (long)in->angle_counts);
 }
 """
 
@@ -337,7 +341,7 @@ def test_static_variables_are_fresh_in_every_trial(tmp_path, isolate):
 @linux_only
 def test_run_writes_the_firmwares_printf_to_firmware_log(tmp_path):
     path = firmware_scenario(tmp_path, COUNTER, trial={"duration": "0.1 s", "start": {"angle": "3 deg"}},
-                             write_only=True)
+                             write_only=True, quiet=True)
     out = tmp_path / "run"
     assert main(["run", str(path), "--out", str(out)]) == 0
     # 3 deg with 4096 counts per rev, floored by the encoder: 34 counts (common practice, no source)
@@ -408,3 +412,38 @@ def test_broken_firmware_is_one_line_and_exit_2(tmp_path, capsys, command, case)
     for fragment in fragments:
         assert fragment in err[0], (fragment, err[0])
     assert not out.exists()
+
+
+PRINTS_COUNTS = """
+#include <stdio.h>
+void wb_init(const wb_config_t *cfg) {
+    printf("cfg %lu %ld %ld %ld\\n", (unsigned long)cfg->period_us, (long)cfg->angle_counts_per_rev,
+           (long)cfg->wheel_counts_per_rev, (long)cfg->pwm_max);
+}
+void wb_step(const wb_input_t *in, wb_output_t *out) {
+    (void)out;
+    printf("%lu %ld %ld\\n", (unsigned long)in->t_us, (long)in->angle_counts, (long)in->wheel_counts);
+}
+"""
+
+
+def test_inputs_are_the_encoders_counts_and_the_tick_time(tmp_path, capfd):
+    # -3 deg and 100 rad/s on the wheel, no angle noise; run in this process, so printf reaches capfd
+    sc = firmware_scenario(tmp_path, PRINTS_COUNTS, quiet=True,
+                           trial={"duration": "0.1 s", "start": {"angle": "-3 deg", "wheel_speed": "100 rad/s"}})
+    capfd.readouterr()
+    result = run_trial(sc, isolate=False)
+    lines = [line for line in capfd.readouterr().out.splitlines() if line.strip()]
+    assert lines[0] == "cfg 2000 4096 2048 0"
+    got = np.array([[int(v) for v in line.split()] for line in lines[1:]])
+    tr, dt, cs = result.trace, sc.world.step, sc.control_steps
+    delay = round(sc.sensors.delay / dt)
+    rows = np.maximum(np.arange(0, tr.n, cs) - delay, 0)          # the rows each tick reads
+    # encoders report whole counts: floor(angle / (2 pi / counts per rev)) (common practice, no source)
+    angle_counts = np.floor(tr.angle[rows] / (2 * np.pi / 4096)).astype(int)
+    wheel_counts = np.floor(tr.wheel_angle[rows] / (2 * np.pi / 2048)).astype(int)
+    np.testing.assert_array_equal(got[:, 0], np.arange(len(rows)) * 2000)        # t_us
+    np.testing.assert_array_equal(got[:, 1], angle_counts)
+    assert angle_counts[0] == math.floor(-3 / 360 * 4096)
+    np.testing.assert_array_equal(np.diff(got[:, 2]), np.diff(wheel_counts))     # counts moved per tick
+    assert np.all(np.diff(got[:, 2]) > 0)                 # the wheel turns forwards all along

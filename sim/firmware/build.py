@@ -287,7 +287,8 @@ def _cffi_build(name, sources, include, defines, cflags, work: Path) -> Path:
             built = ffi.compile(tmpdir=str(work), verbose=False)
     except Exception as exc:
         text = log.read_text(errors="replace") if log.exists() else ""
-        raise FirmwareBuildError(f"@sources: building the module failed: {first_errors(text) if text else exc}") from None
+        reason = first_errors(text) if text else exc
+        raise FirmwareBuildError(f"@sources: building the module failed: {reason}") from None
     return Path(built)
 
 
