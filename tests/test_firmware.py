@@ -427,10 +427,13 @@ void wb_step(const wb_input_t *in, wb_output_t *out) {
 """
 
 
-def test_inputs_are_the_encoders_counts_and_the_tick_time(tmp_path, capfd):
-    # -3 deg and 100 rad/s on the wheel, no angle noise; run in this process, so printf reaches capfd
-    sc = firmware_scenario(tmp_path, PRINTS_COUNTS, quiet=True,
-                           trial={"duration": "0.1 s", "start": {"angle": "-3 deg", "wheel_speed": "100 rad/s"}})
+@pytest.mark.parametrize("start", [{"angle": "-3 deg", "wheel_speed": "100 rad/s"},
+                                   {"angle": "175 deg", "rate": "3 rad/s", "wheel_speed": "100 rad/s"}],
+                         ids=["near upright", "through hanging"])
+def test_inputs_are_the_encoders_counts_and_the_tick_time(tmp_path, capfd, start):
+    # no angle noise; run in this process, so printf reaches capfd. Through hanging, the angle
+    # reading wraps from +pi to -pi while the counts go on (the trace's angle is not wrapped)
+    sc = firmware_scenario(tmp_path, PRINTS_COUNTS, quiet=True, trial={"duration": "0.1 s", "start": start})
     capfd.readouterr()
     result = run_trial(sc, isolate=False)
     lines = [line for line in capfd.readouterr().out.splitlines() if line.strip()]
@@ -444,7 +447,9 @@ def test_inputs_are_the_encoders_counts_and_the_tick_time(tmp_path, capfd):
     wheel_counts = np.floor(tr.wheel_angle[rows] / (2 * np.pi / 2048)).astype(int)
     np.testing.assert_array_equal(got[:, 0], np.arange(len(rows)) * 2000)        # t_us
     np.testing.assert_array_equal(got[:, 1], angle_counts)
-    assert angle_counts[0] == math.floor(-3 / 360 * 4096)
+    assert angle_counts[0] == math.floor(float(start["angle"].split()[0]) / 360 * 4096)
+    if start["angle"] == "175 deg":
+        assert tr.angle[rows].max() > np.pi + 0.05       # the body did pass hanging
     np.testing.assert_array_equal(np.diff(got[:, 2]), np.diff(wheel_counts))     # counts moved per tick
     # the wheel turns forwards all along (the first two ticks read the start: 2 ms delay)
     assert np.all(np.diff(got[1:, 2]) > 0)
