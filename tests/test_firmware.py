@@ -365,6 +365,23 @@ def test_second_build_reuses_the_cache_and_a_changed_define_rebuilds(tmp_path, m
     assert load_scenario(tmp_path / "scenario.yaml").strategy.params.build.compiled_now
 
 
+def test_a_changed_header_beside_the_source_rebuilds(tmp_path, monkeypatch):
+    # local.h is found beside fw.c (not in an include folder): the compiler's list of what it read
+    # decides whether the build is still good
+    monkeypatch.setenv(fw_build.CACHE_ENV, str(tmp_path / "cache"))
+    (tmp_path / "local.h").write_text("#define LEVEL 1\n")
+    source = '#include "local.h"\n' + COUNTER
+    first = firmware_scenario(tmp_path, source).strategy.params.build
+    assert first.compiled_now
+    assert not load_scenario(tmp_path / "scenario.yaml").strategy.params.build.compiled_now
+    (tmp_path / "local.h").write_text("#define LEVEL 2\n")
+    second = load_scenario(tmp_path / "scenario.yaml").strategy.params.build
+    assert second.compiled_now and second.key == first.key and second.path != first.path
+    (tmp_path / "local.h").write_text("#define LEVEL 1\n")       # back: the first build fits again
+    third = load_scenario(tmp_path / "scenario.yaml").strategy.params.build
+    assert not third.compiled_now and third.path == first.path
+
+
 def test_header_declares_the_contract_exactly():
     # checks outside this repository compile against these names: the cdef cffi reads must keep them
     text = fw_build.contract_cdef()

@@ -1,11 +1,16 @@
 """Compiling firmware sources against `wheelbench.h` with cffi (out-of-line API mode), cached.
 
-A build is keyed by a SHA-256 over everything that shapes the binary: the header, the sources'
-names and contents, the headers found in the include folders, the defines, the flags, the
-compiler command and the Python ABI. The cache folder is `$WHEELBENCH_FIRMWARE_CACHE` when set,
-else `$XDG_CACHE_HOME/wheelbench/firmware`, else `~/.cache/wheelbench/firmware`; each build is one
-subfolder named by the key, made whole by a rename (two processes building the same key at once
-both succeed; one copy stays).
+A build is keyed by a SHA-256 over what is known before compiling: `wheelbench.h`, the sources'
+names and contents, the include folders, the defines, the flags, the compiler command and the
+Python ABI. The headers the sources include are known only once compiled: the compiler lists
+them (-MMD), and each build stores them with their SHA-256 (`deps.json`) beside the module. A
+build is reused when its key matches and every header it read is unchanged, so editing a header,
+even one found beside a source rather than in an include folder, compiles again.
+
+The cache folder is `$WHEELBENCH_FIRMWARE_CACHE` when set, else `$XDG_CACHE_HOME/wheelbench/firmware`,
+else `~/.cache/wheelbench/firmware`: one subfolder per key, one subfolder in it per set of header
+contents, each made whole by a rename (two processes making the same build at once both succeed;
+one copy stays). Nothing is removed from it; delete the folder to reclaim the space.
 
 A cache miss first compiles and links the sources alone with the system compiler (the header
 force-included, so the firmware's definitions are type-checked against the contract), which gives
@@ -20,6 +25,7 @@ import contextlib
 import hashlib
 import importlib.machinery
 import importlib.util
+import json
 import os
 import re
 import shlex
@@ -34,8 +40,6 @@ from pathlib import Path
 HEADER = Path(__file__).with_name("wheelbench.h")
 CACHE_ENV = "WHEELBENCH_FIRMWARE_CACHE"
 BUILD_RECIPE = "3"   # bump when the generated wrapper below changes: old builds are then not reused
-HEADER_SUFFIXES = (".h", ".hh", ".hpp", ".inc")
-MAX_INCLUDE_FILES = 2000
 ERROR_LINES = 2
 
 # The wrapper cffi compiles around the firmware: one call per tick with the three readings (cheaper
@@ -141,23 +145,25 @@ def build_firmware(*, sources: list[Path], include: list[Path], defines: dict[st
     """The cached build of these sources, compiling it on a miss. Paths are absolute."""
     key = _key(sources, include, defines, cflags)
     name = f"_wbfw_{key[:24]}"
-    final = cache_dir() / key[:24]
-    path = final / (name + _ext_suffix())
-    if path.is_file():
-        return Build(path=path, module_name=name, key=key, compiled_now=False)
     root = cache_dir()
+    builds = root / key[:24]
+    found = _matching_build(builds, name)
+    if found is not None:
+        return Build(path=found, module_name=name, key=key, compiled_now=False)
     try:
-        root.mkdir(parents=True, exist_ok=True)
+        builds.mkdir(parents=True, exist_ok=True)
         work = Path(tempfile.mkdtemp(prefix=".build-", dir=root))
     except OSError as exc:
         raise FirmwareBuildError(f"@sources: cannot use the firmware cache folder {str(root)!r} ({exc.strerror}); "
                                  f"set {CACHE_ENV} to a writable folder") from None
     try:
         args = _compile_args(include, defines, cflags)
-        _check_compiles(sources, args, work)
+        deps = {str(p): _sha256(p) for p in sorted(_check_compiles(sources, args, work))}
         built = _cffi_build(name, sources, include, defines, cflags, work)
-        staging = Path(tempfile.mkdtemp(prefix=".stage-", dir=root))
+        final = builds / hashlib.sha256(json.dumps(deps, sort_keys=True).encode()).hexdigest()[:16]
+        staging = Path(tempfile.mkdtemp(prefix=".stage-", dir=builds))
         shutil.copy2(built, staging / built.name)
+        (staging / "deps.json").write_text(json.dumps(deps, indent=1, sort_keys=True) + "\n")
         (staging / "build.txt").write_text(_recipe_text(sources, include, defines, cflags))
         try:
             os.rename(staging, final)
@@ -165,7 +171,29 @@ def build_firmware(*, sources: list[Path], include: list[Path], defines: dict[st
             shutil.rmtree(staging, ignore_errors=True)
     finally:
         shutil.rmtree(work, ignore_errors=True)
-    return Build(path=path, module_name=name, key=key, compiled_now=True)
+    return Build(path=final / (name + _ext_suffix()), module_name=name, key=key, compiled_now=True)
+
+
+def _matching_build(builds: Path, name: str) -> Path | None:
+    """The module of a finished build under `builds` whose headers all still hash as they did."""
+    if not builds.is_dir():
+        return None
+    for manifest in sorted(builds.glob("*/deps.json")):
+        module = manifest.parent / (name + _ext_suffix())
+        try:
+            deps = json.loads(manifest.read_text())
+        except (OSError, ValueError):
+            continue
+        if module.is_file() and all(_sha256(Path(p)) == digest for p, digest in deps.items()):
+            return module
+    return None
+
+
+def _sha256(path: Path) -> str | None:
+    try:
+        return hashlib.sha256(path.read_bytes()).hexdigest()
+    except OSError:                     # gone: the build that read it does not match any more
+        return None
 
 
 def load_fresh(build: Build):
@@ -206,8 +234,7 @@ def _key(sources, include, defines, cflags) -> str:
     for src in sources:
         put("source " + src.name, _read(src, "sources"))
     for folder in include:
-        for header in _headers_in(folder):
-            put("include " + str(header.relative_to(folder)), _read(header, "include"))
+        put("include", str(folder).encode())
     for name in sorted(defines):
         put("define " + name, defines[name].encode())
     for flag in cflags:
@@ -222,14 +249,6 @@ def _read(path: Path, key: str) -> bytes:
         raise FirmwareBuildError(f"@{key}: cannot read {str(path)!r} ({exc.strerror})") from None
 
 
-def _headers_in(folder: Path) -> list[Path]:
-    found = sorted(p for p in folder.rglob("*") if p.suffix in HEADER_SUFFIXES and p.is_file())
-    if len(found) > MAX_INCLUDE_FILES:
-        raise FirmwareBuildError(f"@include: {str(folder)!r} holds more than {MAX_INCLUDE_FILES} header files; "
-                                 "name a narrower folder")
-    return found
-
-
 def _compile_args(include, defines, cflags) -> list[str]:
     args = ["-include", "wheelbench.h", "-I", str(HEADER.parent)]
     for folder in include:
@@ -238,24 +257,35 @@ def _compile_args(include, defines, cflags) -> list[str]:
     return args + list(cflags)
 
 
-def _check_compiles(sources, args, work: Path) -> None:
-    """Compile each source and link them with a stub main: the compiler's own messages on failure."""
+def _check_compiles(sources, args, work: Path) -> set[Path]:
+    """Compile each source and link them with a stub main: the compiler's own messages on failure.
+    Returns the files the compiler read (the sources and their non-system headers)."""
     cc = compiler()
-    objects = []
+    objects, read = [], set()
     for i, src in enumerate(sources):
-        obj = work / f"check{i}.o"
-        _run(cc + ["-c", str(src), "-o", str(obj)] + args, "sources", f"compiling {src.name} failed")
+        obj, deps = work / f"check{i}.o", work / f"check{i}.d"
+        _run(cc + ["-c", str(src), "-o", str(obj), "-MMD", "-MF", str(deps)] + args, "sources",
+             f"compiling {src.name} failed", cwd=work)
         objects.append(str(obj))
+        read |= _make_deps(deps.read_text(), cwd=work)
     stub = work / "wb_stub_main.c"
     stub.write_text(_STUB_MAIN)
     _run(cc + [str(stub), *objects, "-o", str(work / "check"), "-I", str(HEADER.parent), "-lm"]
          + [f for f in args if f.startswith("-l") or f.startswith("-L")],
-         "sources", "linking failed")
+         "sources", "linking failed", cwd=work)
+    return read
 
 
-def _run(cmd: list[str], key: str, what: str) -> None:
+def _make_deps(text: str, *, cwd: Path) -> set[Path]:
+    """The prerequisites of a make rule written by the compiler (-MMD): "target: a.c b.h \\ c.h"."""
+    body = text.replace("\\\n", " ").split(": ", 1)[-1] if ": " in text else ""
+    names = re.split(r"(?<!\\)\s+", body.strip())
+    return {(cwd / n.replace("\\ ", " ")).resolve() for n in names if n}
+
+
+def _run(cmd: list[str], key: str, what: str, *, cwd: Path) -> None:
     try:
-        done = subprocess.run(cmd, capture_output=True, text=True, timeout=300)
+        done = subprocess.run(cmd, capture_output=True, text=True, timeout=300, cwd=cwd)
     except FileNotFoundError:
         raise FirmwareBuildError(f"@{key}: no C compiler found ({cmd[0]!r}); install one (e.g. gcc) "
                                  "or set CC") from None
