@@ -9,8 +9,6 @@ from __future__ import annotations
 
 import json
 import math
-import os
-import re
 import shutil
 import sys
 from pathlib import Path
