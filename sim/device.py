@@ -39,6 +39,9 @@ class Device:
     control_rate_hz: float
     delay_s: float
     locked: bool
+    angle_counts_per_rev: int = 0     # the angle encoder's counts per rev, 0 when the scenario sets none
+    wheel_counts_per_rev: int = 0     # the wheel encoder's counts per rev, 0 when the scenario sets none
+    pwm_max: int = 0                  # full-scale duty (2^drive.pwm.resolution_bits - 1), 0 without drive.pwm
 
     @classmethod
     def from_scenario(cls, sc) -> "Device":
@@ -60,6 +63,9 @@ class Device:
             pivot_coulomb_n_m=sc.body.pivot_friction.coulomb, pivot_viscous_n_m_s=sc.body.pivot_friction.viscous,
             wheel_coulomb_n_m=w.bearing_friction.coulomb, wheel_viscous_n_m_s=w.bearing_friction.viscous,
             control_rate_hz=sc.sensors.rate, delay_s=sc.sensors.delay, locked=sc.body.locked,
+            angle_counts_per_rev=sc.sensors.angle.counts_per_rev or 0,
+            wheel_counts_per_rev=sc.sensors.wheel.counts_per_rev or 0,
+            pwm_max=2**sc.drive.pwm.resolution_bits - 1 if sc.drive.pwm is not None else 0,
         )
 
     # -- derived figures used across the tool -------------------------------------------------

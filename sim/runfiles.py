@@ -6,6 +6,7 @@ import os
 from contextlib import contextmanager
 from pathlib import Path
 
+from .firmware import firmware_log_for
 from .isolation import fork_child
 from .metrics import trial_metrics
 from .outputs import atomic_path, prepare_out_dir, write_json
@@ -21,7 +22,8 @@ def run_to_folder(scenario, out: str | Path, *, seed: int | None = None, force: 
     The folder is checked before anything is simulated, so bad options cost nothing.
     """
     out_dir = prepare_out_dir(out, force=force)
-    result = run_trial(scenario, seed=seed)
+    with firmware_log_for(scenario.strategy, out_dir / "firmware.log"):  # printf of compiled firmware
+        result = run_trial(scenario, seed=seed)
     metrics = trial_metrics(result)
     metrics["seed"] = scenario.trial.seed if seed is None else seed
     metrics["scenario"] = scenario.source

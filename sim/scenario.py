@@ -265,11 +265,18 @@ class Motor(Strict):
         return self.torque_constant if self.torque_constant is not None else self.k_e
 
 
+class Pwm(Strict):
+    resolution_bits: Annotated[int, Field(ge=1, le=31, strict=True)]
+    """Duty resolution, bits: firmware strategies get pwm_max = 2^bits - 1 and write a duty."""
+
+
 class Drive(Strict):
     supply: Q("voltage", gt=0, le=1000)
     """Supply voltage, V; the commanded voltage is clamped to +-supply."""
     brake_torque: Q("torque", gt=0, le=MAX_TORQUE) | None = None
     """A mechanical brake on the wheel (for brake-to-jump strategies), N m."""
+    pwm: Pwm | None = None
+    """Optional, read by firmware strategies only (no PWM model: a duty acts as its mean voltage)."""
 
 
 class AngleSensor(Strict):

@@ -65,6 +65,8 @@ def value_at(obj: Any, path) -> Any:
             obj = obj.kind if part == "kind" else _attr(obj.params, part)
         elif isinstance(obj, BaseModel):
             obj = _attr(obj, part)
+        elif isinstance(obj, dict) and part in obj:   # a mapping in the scenario (firmware defines)
+            obj = obj[part]
         else:
             raise KeyError(part)
     return obj

@@ -70,3 +70,19 @@ def write_scenario(path: Path, mapping: dict) -> Path:
 def scenario_file(tmp_path) -> Path:
     """The test scenario written to a YAML file in a fresh temporary folder."""
     return write_scenario(tmp_path / "test.yaml", base_scenario())
+
+
+@pytest.fixture(scope="session", autouse=True)
+def firmware_cache(tmp_path_factory):
+    """Firmware builds of the test session go to a temporary cache folder, never the user's."""
+    import os
+
+    from sim.firmware.build import CACHE_ENV
+    folder = tmp_path_factory.mktemp("firmware-cache")
+    before = os.environ.get(CACHE_ENV)
+    os.environ[CACHE_ENV] = str(folder)
+    yield folder
+    if before is None:
+        os.environ.pop(CACHE_ENV, None)
+    else:
+        os.environ[CACHE_ENV] = before

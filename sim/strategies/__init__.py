@@ -45,6 +45,7 @@ BUILTIN: dict[str, str] = {
     "swing_and_catch": "sim.strategies.supervisor:SwingAndCatch",
     "pid": "sim.strategies.pid:PidBalance",
     "jump": "sim.strategies.jump:BrakeJump",
+    "firmware": "sim.firmware.strategy:FirmwareStrategy",
 }
 
 ENTRY_POINT_GROUP = "wheelbench.strategies"
@@ -75,16 +76,19 @@ def plugins_in(spec: StrategySpec) -> list[str]:
     A plug-in is anything not named in BUILTIN: a "file.py:Class" or "module:Class" path, or an
     entry point (a built-in name always wins over an entry point of the same name).
     """
-    return [item.kind for item in plugin_specs(spec)]
+    # a built-in marked `isolated` (compiled firmware) runs in the child like a plug-in
+    return [item.kind for item in plugin_specs(spec, isolated=True)]
 
 
-def plugin_specs(spec: StrategySpec) -> list[StrategySpec]:
-    """The plug-in specs in `spec`, in the order of `plugins_in`."""
-    found = [] if spec.kind in BUILTIN else [spec]
+def plugin_specs(spec: StrategySpec, *, isolated: bool = False) -> list[StrategySpec]:
+    """The plug-in specs in `spec`, in the order of `plugins_in` (with `isolated`, also the
+    built-ins marked `isolated`, which run in the child like a plug-in)."""
+    own = spec.kind not in BUILTIN or (isolated and getattr(spec.cls, "isolated", False))
+    found = [spec] if own else []
     for _, value in (spec.params if spec.params is not None else ()):
         for item in (value if isinstance(value, (list, tuple)) else (value,)):
             if isinstance(item, StrategySpec):
-                found += plugin_specs(item)
+                found += plugin_specs(item, isolated=isolated)
     return found
 
 

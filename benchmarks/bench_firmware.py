@@ -1,0 +1,75 @@
+"""Speed of a firmware-strategy trial against the Python `lqr` trial of the same scenario.
+
+    python benchmarks/bench_firmware.py [--seconds 20] [--rounds 3]
+
+The bundled example (scenarios/firmware/desk_firmware.yaml, its duration set by --seconds) runs
+with its compiled firmware and, in the same rounds, with `strategy: {kind: lqr}`; the two alternate
+within each round (the order swapped every round), so that other load on the machine hits both.
+Two real-time factors (simulated s per wall s) for each:
+- end to end: `run_trial` as a caller sees it (for the firmware: the fork of the isolation child,
+  loading a fresh copy of the build, the trial, the result sent back);
+- loop: the trial loop alone (`TrialResult.wall_s`).
+Printed: each round's figures and ratios (firmware / lqr; target >= 0.9), and the best of the rounds.
+A third trial, the Python `lqr` forced into the isolation child, splits the firmware's cost into
+what isolation costs any strategy (the fork, the watched clock) and what the C bridge adds.
+The build is compiled (or found in the cache), and each trial run once uncounted, before the first
+round. No assertion.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent))
+
+from sim.scenario import load_scenario  # noqa: E402
+from sim.trial import run_trial  # noqa: E402
+
+EXAMPLE = HERE.parent / "scenarios" / "firmware" / "desk_firmware.yaml"
+
+
+def measure(scenario, isolate=None) -> tuple[float, float, str]:
+    """(end-to-end RTF, loop RTF, outcome) of one trial."""
+    t0 = time.perf_counter()
+    result = run_trial(scenario, isolate=isolate)
+    wall = time.perf_counter() - t0
+    simulated = result.ended_at_s
+    return simulated / wall, simulated / result.wall_s, result.outcome
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--seconds", type=float, default=20.0, help="simulated seconds per trial")
+    ap.add_argument("--rounds", type=int, default=3)
+    args = ap.parse_args()
+    common = [f"trial.duration={args.seconds} s"]
+    scenarios = {"firmware": load_scenario(EXAMPLE, overrides=common),
+                 "lqr": load_scenario(EXAMPLE, overrides=common + ["strategy={kind: lqr, release_angle: 30 deg}"])}
+    scenarios["lqr isolated"] = scenarios["lqr"]
+    best = {name: [0.0, 0.0] for name in scenarios}
+    # warm-up, not counted: the first imports, the first isolation child
+    for sc in (scenarios["firmware"], scenarios["lqr"]):
+        run_trial(sc, isolate=True)
+    print(f"{args.seconds:g} s trials of {EXAMPLE.name}; real-time factors (simulated s / wall s)")
+    print(f"{'round':>5} {'fw e2e':>9} {'lqr e2e':>9} {'ratio':>6} {'fw loop':>9} {'lqr loop':>9} {'ratio':>6}"
+          f" {'lqr-iso e2e':>12} {'lqr-iso loop':>13}")
+    for r in range(args.rounds):
+        order = list(scenarios) if r % 2 == 0 else list(reversed(scenarios))
+        got = {}
+        for name in order:
+            got[name] = measure(scenarios[name], isolate=True if name == "lqr isolated" else None)
+            best[name] = [max(b, g) for b, g in zip(best[name], got[name][:2])]
+        fw, lq, iso = got["firmware"], got["lqr"], got["lqr isolated"]
+        print(f"{r + 1:>5} {fw[0]:>9.1f} {lq[0]:>9.1f} {fw[0] / lq[0]:>6.2f} {fw[1]:>9.1f} {lq[1]:>9.1f} "
+              f"{fw[1] / lq[1]:>6.2f} {iso[0]:>12.1f} {iso[1]:>13.1f}   ({fw[2]}, {lq[2]}, {iso[2]})")
+    fw, lq, iso = best["firmware"], best["lqr"], best["lqr isolated"]
+    print(f"{'best':>5} {fw[0]:>9.1f} {lq[0]:>9.1f} {fw[0] / lq[0]:>6.2f} {fw[1]:>9.1f} {lq[1]:>9.1f} "
+          f"{fw[1] / lq[1]:>6.2f} {iso[0]:>12.1f} {iso[1]:>13.1f}   target: ratio >= 0.9")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,76 @@
+/* wheelbench.h - the contract between Wheelbench and firmware run in the loop.
+ *
+ * Wheelbench compiles the firmware's C sources (strategy kind "firmware") with this header
+ * force-included and on the include path, and calls, in one trial:
+ *
+ *   wb_init(&cfg)            once, before the first tick, with the device's fixed facts;
+ *   wb_step(&in, &out)       once per control tick (the scenario's sensors.rate), in time order.
+ *
+ * Every trial loads a fresh copy of the compiled code: static variables start at their
+ * initial values in each trial. `out` is zeroed before each call; what the firmware writes
+ * is held until the next tick (zero-order hold).
+ *
+ * Conventions (SI, as in the scenario): angle 0 = upright, positive by the right-hand rule
+ * about the pivot axis; wheel speed and wheel counts relative to the body; a positive volt
+ * (or duty) accelerates the wheel positively and turns the body negatively.
+ *
+ * Inputs each tick. angle_rad, rate_rad_s and wheel_speed_rad_s are the readings the Python
+ * strategies see (encoder quantisation, noise, bias and delay included). angle_counts and
+ * wheel_counts are the same readings as cumulative raw encoder counts: angle counts from 0 at
+ * upright, wheel counts from 0 at the first tick; they are whole-count equivalents of the
+ * readings (exact when the sensor has no noise or bias), and 0 when the scenario gives that
+ * sensor no counts_per_rev (then its *_counts_per_rev is 0 in wb_config_t). gyro_raw and
+ * accel_raw are 0 (no IMU model yet). t_us counts microseconds from the trial's start and
+ * wraps at 2^32 like a hardware timer.
+ *
+ * Outputs. volts is the voltage wanted across the motor winding when pwm_max == 0; duty is a
+ * signed duty in [-pwm_max, pwm_max] when pwm_max > 0, that is when the scenario sets
+ * drive.pwm.resolution_bits (pwm_max = 2^bits - 1). There is no PWM model: a duty acts as its
+ * mean voltage, duty / pwm_max * supply. The drive clamps to +-supply. A non-finite volts ends the trial as strategy_failed. brake = 1
+ * engages the wheel brake (the scenario needs drive.brake_torque). phase is the firmware's own
+ * state number, shown as the trace's mode "fw <phase>".
+ *
+ * Failures. The firmware runs in a child process: a crash (segfault, abort, division by zero)
+ * or a call that does not return within the trial's strategy budget ends the trial as
+ * strategy_failed at that tick, and the run, sweep or check goes on. printf output goes to
+ * firmware.log in the run folder of `wheelbench run` (other commands drop it).
+ *
+ * Several wheels (not yet simulated): the one-wheel fields below keep their names and places;
+ * per-wheel arrays will be appended at the marked ends of the structs, so one-wheel code keeps
+ * compiling and working unchanged.
+ */
+#ifndef WHEELBENCH_H
+#define WHEELBENCH_H
+
+#include <stdint.h>
+
+/* WB_CDEF_BEGIN (Wheelbench reads the declarations from here to WB_CDEF_END) */
+typedef struct {            /* given once */
+    uint32_t period_us;     /* control period */
+    float supply_v;         /* drive supply (nominal) */
+    int32_t angle_counts_per_rev, wheel_counts_per_rev;   /* 0 when that sensor is ideal */
+    int32_t pwm_max;        /* full-scale duty when the drive has a PWM resolution, else 0 */
+    /* later: per-wheel arrays for several wheels go here, after the one-wheel fields */
+} wb_config_t;
+
+typedef struct {            /* given every tick: what the firmware would read */
+    uint32_t t_us;
+    float angle_rad, rate_rad_s, wheel_speed_rad_s;   /* the same readings the Python strategies see */
+    int32_t angle_counts, wheel_counts;               /* raw encoder counts (cumulative) */
+    int16_t gyro_raw[3], accel_raw[3];                /* raw IMU readings when an IMU is set, else 0 */
+    /* later: per-wheel arrays for several wheels go here, after the one-wheel fields */
+} wb_input_t;
+
+typedef struct {            /* filled by the firmware every tick */
+    float volts;            /* used when pwm_max == 0 */
+    int32_t duty;           /* signed duty, used when pwm_max > 0 */
+    uint8_t brake;          /* 1 engages the wheel brake */
+    uint8_t phase;          /* free for the firmware's own state; shown as the trace's mode */
+    /* later: per-wheel arrays for several wheels go here, after the one-wheel fields */
+} wb_output_t;
+
+void wb_init(const wb_config_t *cfg);
+void wb_step(const wb_input_t *in, wb_output_t *out);
+/* WB_CDEF_END */
+
+#endif /* WHEELBENCH_H */
