@@ -384,9 +384,10 @@ def _print_tune(outcome, out_dir: Path) -> None:
         console.print("no evaluation finished")
         return
     value = pick.row["objectives"][0]
+    failing = failed_criteria(pick.row, outcome.objectives) or outcome.recheck_failed.get(pick.number, [])
     head = (f"best: evaluation {pick.number}, {obj} {value:.4g} {unit}" if outcome.winner is not None else
-            f"no design passed; closest: evaluation {pick.number}, failing "
-            + ", ".join(failed_criteria(pick.row, outcome.objectives)))
+            f"no design passed; closest: evaluation {pick.number}, failing " + ", ".join(failing)
+            + (" in the full check" if not failed_criteria(pick.row, outcome.objectives) else ""))
     if start is not None and start.row["objectives"][0] is not None and outcome.winner is not None:
         head += f" (model-based start: {start.row['objectives'][0]:.4g} {unit})"
     console.print(escape(head))

@@ -128,8 +128,13 @@ def _generic_space(spec, device, prefix: tuple) -> list[Param]:
     value in use (the scenario's, or the default the law derives from the device)."""
     from .device_figures import strategy_in_use
 
-    skip = {"release_angle", "energy_target", "kick_direction", "catch_level"}
+    skip = {"release_angle", "energy_target", "kick_direction", "catch_level", "wheel_limit"}
     out = []
+    if "wheel_limit" in type(spec.params).model_fields:   # a share of the no-load speed: a range of its own
+        key = ".".join(prefix + ("wheel_limit",))
+        out.append(Param(key, prefix + ("wheel_limit",), 0.5, 1.0, False, float(spec.params.wheel_limit),
+                         "how far the swing-up may spin the wheel (share of its no-load speed): lower keeps "
+                         "speed in hand for the catch, at the cost of a slower swing-up"))
     for name, (value, _) in strategy_in_use(spec, device).items():
         if name in skip or isinstance(value, bool) or not isinstance(value, (int, float)) or not value > 0:
             continue

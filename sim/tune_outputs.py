@@ -35,6 +35,7 @@ class TuneOutcome:
     notes: list[str] = field(default_factory=list)
     params: list = field(default_factory=list)
     objectives: list = field(default_factory=list)
+    recheck_failed: dict = field(default_factory=dict)   # evaluation number -> criteria its full check failed
 
 
 def ranked(evals: list[Evaluation], objectives: list[str]) -> list[Evaluation]:
@@ -237,10 +238,24 @@ def run_tune(raw: dict, where: str, scenario_path: Path, out_dir: Path, *, param
             outcome.written += write_patch_files(out_dir, scenario_path, best_patch(raw, params, cand.params),
                                                  objectives=objectives)
             break
+        mc = check.verdict.get("monte_carlo") or {}
+        why = ", ".join(f"{k} x{n}" for k, n in (mc.get("failures") or {}).items())
+        failed = [c["name"] for c in check.verdict["criteria"] if not c["passed"]]
         outcome.notes.append(f"evaluation {cand.number} passed without Monte Carlo but failed the full check: "
-                             + ", ".join(c["name"] for c in check.verdict["criteria"] if not c["passed"]))
+                             + ", ".join(failed) + (f" (Monte Carlo trials failed on: {why})" if why else ""))
+        outcome.recheck_failed.setdefault(cand.number, failed)
     if outcome.winner is None:
         outcome.closest = closest(evals, objectives)
+        if outcome.closest is not None and not failed_criteria(outcome.closest.row, objectives) and order:
+            outcome.closest = order[0]   # every feasible one failed only the full check: the best of those
+        if outcome.closest is not None:
+            from .outputs import write_text
+            from .scenario_edit import plain_value
+            write_text(out_dir / "closest_patch.yaml",
+                       "# The closest design `wheelbench tune` found; it did NOT pass check (see the terminal and\n"
+                       "# tune.csv for what it failed). SI values.\n"
+                       + yaml.safe_dump(plain_value(best_patch(raw, params, outcome.closest.params)), sort_keys=False))
+            outcome.written.append("closest_patch.yaml")
     from .plots import save_figure
     save_figure(tune_figure(evals, params, objectives, importances(study, objectives)), out_dir / "tune.png")
     outcome.written.append("tune.png")

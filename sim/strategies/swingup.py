@@ -34,6 +34,9 @@ from .base import Reading, Strategy, StrategyParams
 
 PosFloat = Annotated[float, Field(gt=0, allow_inf_nan=False)]
 NonNegFloat = Annotated[float, Field(ge=0, allow_inf_nan=False)]
+# share of the no-load speed at the supply beyond which the swing-up does not speed the wheel up
+# further (1: the wheel's whole range; lower keeps margin for the catch)
+WheelLimit = Annotated[float, Field(gt=0, le=1, allow_inf_nan=False)]
 
 START_RATE_FRACTION = 0.05
 """A swing whose peak rate (at the bottom, from its energy) is below this fraction of the natural
@@ -145,6 +148,12 @@ class _SwingUpBase(Strategy):
             return 0.0
         return tau
 
+    def within_wheel_limit(self, torque_n_m: float, wheel_speed_rad_s: float) -> bool:
+        """False when the torque would speed up a wheel already at `wheel_limit` of its no-load
+        speed (the swing then waits for the next half swing rather than use up the wheel's range)."""
+        cap = self.params.wheel_limit * self.device.no_load_speed_rad_s
+        return not (abs(wheel_speed_rad_s) >= cap and torque_n_m * wheel_speed_rad_s > 0.0)
+
     def default_bleed(self) -> float:
         """Full stall torque against a wheel at BLEED_SPEED_FRACTION of its no-load speed, N m s/rad."""
         d = self.device
@@ -164,7 +173,9 @@ class EnergySwingUp(_SwingUpBase):
 
     Parameters (SI): `gain` k, s/rad (N m per J per rad/s); `energy_target` E_ref, J;
     `wheel_damping` c_w, N m s/rad (0: no bleed); `kick_direction` +1 or -1 (sign of the wheel
-    torque). Defaults: k = 30 stall torque / (mbar g * sqrt(mbar g / J)), so the drive is
+    torque); `wheel_limit`, a share of the no-load speed beyond which the law does not speed the
+    wheel up further (default 1: its whole range; 0.8 keeps a fifth for the catch, at the cost of
+    a slower swing-up on strong motors). Defaults: k = 30 stall torque / (mbar g * sqrt(mbar g / J)), so the drive is
     saturated (bang-bang, the fastest pumping) until the error is about a percent of the well;
     E_ref = 0; c_w = stall torque at a quarter of the no-load speed.
     """
@@ -176,6 +187,7 @@ class EnergySwingUp(_SwingUpBase):
         energy_target: Annotated[float, Field(allow_inf_nan=False)] = 0.0
         wheel_damping: NonNegFloat | None = None
         kick_direction: Literal[-1, 1] = 1
+        wheel_limit: WheelLimit = 1.0
 
     def __init__(self, **kw) -> None:
         super().__init__(**kw)
@@ -198,6 +210,8 @@ class EnergySwingUp(_SwingUpBase):
             else:
                 wanted = self.gain * (e - self.params.energy_target) * reading.rate_rad_s
                 tau, self.limited = clip_to_available(self.device, wanted, w)
+        if not self.within_wheel_limit(tau, w):
+            tau = 0.0
         return volts_for_torque(self.device, tau, w)
 
 
@@ -211,7 +225,7 @@ class PumpSwingUp(_SwingUpBase):
     (`kick_direction`) until it swings. The winding floats where its back-EMF would turn the
     pumping voltage into a brake. The simple hobby-style swing-up: no model of the motor's
     torque line beyond that. Parameters: `level` V (default: half the supply), `energy_target` J,
-    `kick_direction` +1 or -1.
+    `kick_direction` +1 or -1, `wheel_limit` (as for `energy`).
     """
 
     kind = "pump"
@@ -220,6 +234,7 @@ class PumpSwingUp(_SwingUpBase):
         level: PosFloat | None = None
         energy_target: Annotated[float, Field(allow_inf_nan=False)] = 0.0
         kick_direction: Literal[-1, 1] = 1
+        wheel_limit: WheelLimit = 1.0
 
     def __init__(self, **kw) -> None:
         super().__init__(**kw)
@@ -251,7 +266,8 @@ class PumpSwingUp(_SwingUpBase):
         # a wheel spinning in the pumping direction faster than `level` can drive it: the winding
         # would brake it (back-EMF above the voltage) and the reaction would take energy from the
         # body; float it instead until the swing turns
-        if (v - self.device.k_e_v_s_rad * reading.wheel_speed_rad_s) * v <= 0.0:
+        if ((v - self.device.k_e_v_s_rad * reading.wheel_speed_rad_s) * v <= 0.0
+                or not self.within_wheel_limit(v, reading.wheel_speed_rad_s)):
             self.open_circuit = True
             return 0.0
         return v
