@@ -17,6 +17,7 @@ from scipy.integrate import solve_ivp
 from conftest import make_scenario
 from sim.device import Device
 from sim.metrics import trial_metrics
+from sim.motor import MotorDrive
 from sim.trial import run_trial
 
 # 80 g disk of radius 50 mm: I_w = m r^2 / 2 = 1e-4 kg m^2 (the check value's J in references.md)
@@ -145,3 +146,70 @@ def test_inductance_and_wheel_together_match_scipy(inductance):
     sol = solve_ivp(lambda _t, x: [(12.0 - R * x[0] - ke * x[1]) / inductance, kt * x[0] / iw],
                     (0.0, t[-1]), [0.0, 0.0], t_eval=t, method="Radau", rtol=1e-10, atol=1e-12)
     assert_allclose(r.trace.view("wheel_speed"), sol.y[1], atol=1e-5 * 12.0 / ke)
+
+
+def _piecewise_mean_by_integration(d, *, i0, w0, volts, limit, dt):
+    """Mean current over one step from (i0, w0) with the limit reached mid-step, by scipy's solve_ivp:
+    L di/dt = V - R i - k_e w, I_w dw/dt = k_t i (references.md, "Motor") until |i| = limit (an event),
+    then i held at the limit for the rest of the step. Returns (mean A, crossing time s)."""
+    L, R, ke, kt, iw = d.inductance_h, d.resistance_ohm, d.k_e_v_s_rad, d.k_t_n_m_a, d.I_w_kg_m2
+
+    def rhs(_t, x):   # x = [i, w, charge]
+        return [(volts - R * x[0] - ke * x[1]) / L, kt * x[0] / iw, x[0]]
+
+    def reach(_t, x):
+        return x[0] - limit
+    reach.terminal = True
+    sol = solve_ivp(rhs, (0.0, dt), [i0, w0, 0.0], events=reach, method="Radau", rtol=1e-12, atol=1e-15)
+    t_c = sol.t_events[0][0]
+    charge = sol.y_events[0][0][2]
+    return (charge + limit * (dt - t_c)) / dt, t_c
+
+
+def _limit_bench_device():
+    sc = make_scenario(body={"locked": True}, wheel=WHEEL_1E4,
+                       motor={"speed_constant": "100 rpm/V", "resistance": "1.5 ohm", "inductance": "1 mH",
+                              "current_limit": "2 A"},
+                       drive={"supply": "6 V"}, strategy={"kind": "fixed_voltage", "volts": 6.0},
+                       trial={"duration": 0.01})
+    return sc, Device.from_scenario(sc)
+
+
+@pytest.mark.parametrize("i0, w0, volts", [(0.0, 0.0, 6.0), (0.0, 0.0, -6.0), (2.0, 3.0, -6.0), (-0.5, -20.0, 6.0)],
+                         ids=["from-rest", "from-rest-reverse", "from-the-limit-reversed", "spinning"])
+def test_current_limit_reached_mid_step_gives_the_exact_step_mean(i0, w0, volts):
+    # Issue case: 1 mH, 1.5 ohm, 2 A limit, 6 V, body locked, 1 ms step. The current reaches the limit
+    # part way through the step and is held there after; the step's mean current is the exact one
+    # of that piecewise path (integrated independently with solve_ivp and an event at the limit,
+    # rtol 1e-12), not the clamped mean of the unclamped path. Tolerance 1e-9 A.
+    _, d = _limit_bench_device()
+    drive = MotorDrive(d, step_s=1e-3)
+    drive.current = i0
+    limit = math.copysign(2.0, volts)
+    expected, t_c = _piecewise_mean_by_integration(d, i0=i0, w0=w0, volts=volts, limit=limit, dt=1e-3)
+    assert 0.0 < t_c < 1e-3          # the case really crosses mid-step
+    mean, torque = drive.update(volts, w0)
+    assert_allclose(mean, expected, atol=1e-9)
+    assert_allclose(torque, d.k_t_n_m_a * expected, rtol=1e-12)
+    assert drive.current == limit    # held at the limit at the end of the step
+
+
+def test_current_limit_mid_step_closed_form_of_the_rl_step():
+    # First-order RL step response from rest, i(t) = V/R (1 - exp(-t R/L)) (any circuits text, e.g.
+    # Hayt & Kemmerly, "Engineering Circuit Analysis", the source-driven RL circuit; from memory),
+    # with the back-EMF left out (the wheel reaches ~0.05 rad/s in 1 ms: 5 mV of 6 V). It reaches
+    # 2 A at t_c = -(L/R) ln(1 - 2 R/V) = 0.462 ms; mean over the step = (integral of i up to t_c
+    # + 2 A (dt - t_c)) / dt = 1.591 A (the clamped mean of the unclamped path is 1.928 A).
+    # Through a whole trial: row 0 of trace.csv's current column is that step's mean. Tolerance 1e-3
+    # relative (the back-EMF left out of the reference).
+    sc, d = _limit_bench_device()
+    V, R, L, lim, dt = 6.0, 1.5, 1e-3, 2.0, 1e-3
+    tau = L / R
+    t_c = -tau * math.log(1 - lim * R / V)
+    charge = V / R * (t_c - tau * (1 - math.exp(-t_c / tau)))
+    expected = (charge + lim * (dt - t_c)) / dt
+    assert_allclose(expected, 1.591, atol=5e-4)       # the issue's figure, to its 4 digits
+    r = run_trial(sc)
+    cur = r.trace.view("current")
+    assert_allclose(cur[0], expected, rtol=1e-3)
+    assert_allclose(cur[1:5], lim, atol=1e-12)          # held at the limit on the following steps
