@@ -37,8 +37,9 @@ def test_reference_check_values_from_the_scenario():
     # references.md, "Motor", check value [calc]: Kv 100 rpm/V, 12 V, R 1 ohm, J 1e-4 kg m^2 ->
     # k_e 0.095493 V s/rad, no-load 125.66 rad/s, stall 1.1459 N m, tau_m 10.97 ms.
     # k_e = 60 / (2 pi Kv) (references.md [mem, standard]). Tolerance: the 5 digits quoted, rtol 5e-5.
-    sc = make_scenario(body={"locked": True}, wheel=WHEEL_1E4,
-                       motor={"speed_constant": "100 rpm/V", "resistance": "1 ohm"}, drive={"supply": "12 V"})
+    sc = make_scenario(body={"locked": True}, wheel=WHEEL_1E4,   # an ideal motor: no torque constant of its own
+                       motor={"speed_constant": "100 rpm/V", "resistance": "1 ohm", "torque_constant": None},
+                       drive={"supply": "12 V"})
     d = Device.from_scenario(sc)
     tau_m = d.I_w_kg_m2 * d.resistance_ohm / (d.k_t_n_m_a * d.k_e_v_s_rad)
     assert_allclose([d.k_e_v_s_rad, d.no_load_speed_rad_s, d.stall_torque_n_m, tau_m],
@@ -103,8 +104,10 @@ def test_current_limit_clamps_and_gives_constant_torque(volts):
 def test_energy_from_supply_is_the_integral_of_v_times_i():
     # E = integral V i dt. At a fixed V: E = V integral i dt, and k_t integral i dt = I_w w_end
     # (angular impulse = change of angular momentum), so E = V I_w w_end / k_t (tolerance 1e-9:
-    # an exact identity of the discrete run too). Energy balance: E = 1/2 I_w w^2 + integral i^2 R dt
-    # (Joule heating); tolerance 2e-3, the step's discretisation of the heat integral.
+    # an exact identity of the discrete run too). Energy balance: V i = R i^2 + k_e w i, and
+    # k_t i w is the mechanical power, so E = (k_e/k_t) 1/2 I_w w^2 + integral i^2 R dt (Joule
+    # heating; the test device's k_t is 3.7% above k_e, so both constants count); tolerance 2e-3,
+    # the step's discretisation of the heat integral.
     r = bench(duration=0.1)
     d = r.device
     m = trial_metrics(r)
@@ -112,7 +115,8 @@ def test_energy_from_supply_is_the_integral_of_v_times_i():
     e_impulse = 12.0 * d.I_w_kg_m2 * w_end_after_last_step / d.k_t_n_m_a
     assert_allclose(m["energy_from_supply_j"], e_impulse, rtol=1e-9)
     heat = np.sum(r.trace.view("current") ** 2) * d.resistance_ohm * 1e-3
-    assert_allclose(m["energy_from_supply_j"], 0.5 * d.I_w_kg_m2 * w_end_after_last_step**2 + heat, rtol=2e-3)
+    assert_allclose(m["energy_from_supply_j"], d.k_e_v_s_rad / d.k_t_n_m_a * 0.5 * d.I_w_kg_m2 * w_end_after_last_step**2 + heat,
+                    rtol=2e-3)
 
 
 def test_inductance_current_rises_with_time_constant_l_over_r():
@@ -213,3 +217,48 @@ def test_current_limit_mid_step_closed_form_of_the_rl_step():
     cur = r.trace.view("current")
     assert_allclose(cur[0], expected, rtol=1e-3)
     assert_allclose(cur[1:5], lim, atol=1e-12)          # held at the limit on the following steps
+
+
+# ----------------------------------------------------------------------------- k_t and k_e apart
+# The test device's torque constant (0.033 N m/A) is 3.7% above its back-EMF constant
+# (60 / (2 pi 300) = 0.031831 V s/rad): each formula below must use the right one.
+K_E_300 = 60 / (2 * math.pi * 300)     # k_e from Kv = 300 rpm/V (references.md, "Motor", [mem, standard])
+K_T = 0.033
+
+
+def test_no_load_speed_stall_and_available_torque_use_the_right_constant():
+    # DC motor (references.md, "Motor"): no-load speed V / k_e; torque k_t (V - k_e w) / R, at
+    # stall k_t V / R, or k_t I_lim under a current limit. Exact formulas: rtol 1e-12.
+    d = Device.from_scenario(make_scenario())
+    assert_allclose([d.k_e_v_s_rad, d.k_t_n_m_a], [K_E_300, K_T], rtol=1e-12)
+    assert_allclose(d.no_load_speed_rad_s, 12.0 / K_E_300, rtol=1e-12)
+    assert_allclose(d.stall_torque_n_m, K_T * 12.0 / 2.0, rtol=1e-12)
+    w = 0.25 * 12.0 / K_E_300
+    assert_allclose(d.available_torque_n_m(w), K_T * (12.0 - K_E_300 * w) / 2.0, rtol=1e-12)
+    limited = Device.from_scenario(make_scenario(motor={"current_limit": "1.5 A"}))
+    assert_allclose(limited.stall_torque_n_m, K_T * 1.5, rtol=1e-12)
+
+
+def test_volts_for_torque_inverts_the_motor_line():
+    # tau = k_t (V - k_e w) / R solved for V (references.md, "Motor"): V = R tau / k_t + k_e w.
+    from sim.strategies.swingup import volts_for_torque
+
+    d = Device.from_scenario(make_scenario())
+    for tau, w in ((0.05, 0.0), (-0.02, 150.0), (0.01, -80.0)):
+        assert_allclose(volts_for_torque(d, tau, w), 2.0 * tau / K_T + K_E_300 * w, rtol=1e-12)
+
+
+def test_pid_default_gains_place_the_poles_with_the_torque_constant():
+    # PID defaults (sim.strategies.pid docstring): torque-input model J theta_dd = mbar g theta - c V with
+    # c = k_t / R; the PD loop's characteristic polynomial J s^2 + c kd s + (c kp - mbar g) must have
+    # natural frequency 2 sqrt(mbar g / J) and damping 0.7 (the documented placement). Roots by
+    # numpy from c built here with k_t = 0.033; rtol 1e-9. With k_e in c the frequency is 1.9% off.
+    from sim.strategies.pid import default_pd_gains
+
+    d = Device.from_scenario(make_scenario())
+    kp, _, kd = default_pd_gains(d)
+    c = K_T / 2.0
+    roots = np.roots([d.J_kg_m2, c * kd, c * kp - d.mbar_kg_m * d.gravity_m_s2])
+    wn = abs(roots[0])
+    assert_allclose(wn, 2.0 * math.sqrt(d.mbar_kg_m * d.gravity_m_s2 / d.J_kg_m2), rtol=1e-9)
+    assert_allclose(-roots[0].real / wn, 0.7, rtol=1e-9)
