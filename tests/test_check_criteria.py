@@ -1,0 +1,109 @@
+"""Every `check` criterion, through the real battery (`sim.verdicts.run_check`), with a design that
+must pass it and one that must fail it: a criterion that silently always passes (or always fails,
+or compares the wrong way) shows here.
+
+Designs (test fixtures of our own invention; the fast 2 ms pendulum of test_verdicts.py):
+- PASS: swing-up then LQR; meets every default requirement (seen: swing-up caught at 1.98 s,
+  settle 0.26 s, largest push 16 mN m s, wheel-speed margin 0.77, headrooms 0.87 / 0.78,
+  winding 27 degC, burst factor 43, Monte Carlo 2/2).
+- STRICT: the same design judged against limits it cannot meet (each limit is a requirement of
+  the scenario, so the runs are the same as PASS's and only the judging differs).
+- NO_HOLD: LQR on a 0.05 V supply: cannot hold upright for the hold trial's 5 s.
+"""
+
+from __future__ import annotations
+
+import math
+
+import pytest
+
+from sim.verdicts import run_check
+from test_verdicts import fast_raw
+
+SWING = {"kind": "swing_and_catch", "swing_up": {"kind": "energy"}, "balance": {"kind": "lqr"},
+         "catch_angle": "20 deg", "release_angle": "30 deg"}
+START = {"start": {"angle": "10 deg"}}
+STRICT_REQUIREMENTS = {"settle_time": "20 ms", "swing_up_time": "1.5 s", "min_push": "20 mN*m*s",
+                       "wheel_speed_margin": "99%", "voltage_headroom": "99.9%", "current_headroom": "99.9%",
+                       "burst_safety_factor": 1000, "pass_fraction": "100%"}
+
+# criterion -> the side of its limit a passing value is on ("max": value <= limit, "min": value >= limit).
+# A criterion added to `check` needs a line here and a design in this file that fails it.
+DIRECTION = {
+    "swing_up_time_s": "max", "hold_max_angle_rad": "max", "settle_time_s": "max",
+    "max_push_survived_n_m_s": "min", "wheel_speed_margin": "min", "voltage_headroom": "min",
+    "current_headroom": "min", "winding_temperature_c": "max", "wheel_burst_safety_factor": "min",
+    "monte_carlo_pass_fraction": "min",
+}
+
+
+def _criteria(raw, trials):
+    verdict = run_check(raw, "criteria-test.yaml", trials=trials, workers=1).verdict
+    assert verdict["passed"] == all(c["passed"] for c in verdict["criteria"])
+    return verdict, {c["name"]: c for c in verdict["criteria"]}
+
+
+@pytest.fixture(scope="module")
+def passing():
+    return _criteria(fast_raw(strategy=SWING, trial=START), trials=2)
+
+
+@pytest.fixture(scope="module")
+def strict():
+    motor = {**fast_raw()["motor"], "thermal": {"max_temperature": "25.001 degC"}}   # ambient 25 degC
+    return _criteria(fast_raw(strategy=SWING, trial=START, requirements=STRICT_REQUIREMENTS, motor=motor), trials=2)
+
+
+@pytest.fixture(scope="module")
+def no_hold():
+    return _criteria(fast_raw(drive={"supply": "0.05 V"}), trials=0)
+
+
+def _on_passing_side(c) -> bool:
+    v, lim = c["value"], c["limit"]
+    return v is not None and math.isfinite(v) and (v <= lim if DIRECTION[c["name"]] == "max" else v >= lim)
+
+
+def test_every_criterion_has_a_pass_and_a_fail_case_here(passing):
+    verdict, crit = passing
+    untested = set(crit) - set(DIRECTION)
+    assert not untested, f"criteria with no pass/fail case in {__file__}: {sorted(untested)}"
+    assert set(DIRECTION) <= set(crit)
+
+
+@pytest.mark.parametrize("name", sorted(DIRECTION))
+def test_the_passing_design_passes_each_criterion(passing, name):
+    verdict, crit = passing
+    assert crit[name]["passed"], crit[name]
+    assert _on_passing_side(crit[name]), crit[name]
+    assert verdict["passed"]
+
+
+@pytest.mark.parametrize("name", sorted(set(DIRECTION) - {"hold_max_angle_rad"}))
+def test_a_design_past_each_limit_fails_that_criterion(strict, name):
+    # The value is found (the runs are PASS's) and lies on the failing side of the stricter limit.
+    verdict, crit = strict
+    c = crit[name]
+    assert c["value"] is not None, c
+    assert not c["passed"], c
+    assert not _on_passing_side(c), c
+    assert verdict["passed"] is False
+
+
+def test_the_hold_criterion_fails_a_design_that_cannot_hold(strict, no_hold):
+    _, crit = no_hold
+    assert not crit["hold_max_angle_rad"]["passed"], crit["hold_max_angle_rad"]
+    assert "fell" in crit["hold_max_angle_rad"]["note"]
+    # and STRICT's hold (the same runs as PASS) still passes: the criterion is about the hold only
+    assert strict[1]["hold_max_angle_rad"]["passed"]
+
+
+def test_strict_limits_do_not_change_the_runs(passing, strict):
+    # the STRICT values are PASS's values: only the limits moved (same seed, same runs); the
+    # Monte Carlo trials are judged against the requirements too, so its fraction drops to 0
+    for name in DIRECTION:
+        if name in ("monte_carlo_pass_fraction", "max_push_survived_n_m_s", "hold_max_angle_rad"):
+            continue
+        assert strict[1][name]["value"] == passing[1][name]["value"], name
+    assert strict[1]["monte_carlo_pass_fraction"]["value"] == 0.0
+    assert passing[1]["monte_carlo_pass_fraction"]["value"] == 1.0
