@@ -15,7 +15,9 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
 import pytest
+from numpy.testing import assert_allclose
 
 from sim.verdicts import run_check
 from test_verdicts import fast_raw
@@ -38,9 +40,10 @@ DIRECTION = {
 
 
 def _criteria(raw, trials):
-    verdict = run_check(raw, "criteria-test.yaml", trials=trials, workers=1).verdict
+    outcome = run_check(raw, "criteria-test.yaml", trials=trials, workers=1)
+    verdict = outcome.verdict
     assert verdict["passed"] == all(c["passed"] for c in verdict["criteria"])
-    return verdict, {c["name"]: c for c in verdict["criteria"]}
+    return verdict, {c["name"]: c for c in verdict["criteria"]}, outcome.runs
 
 
 @pytest.fixture(scope="module")
@@ -65,7 +68,7 @@ def _on_passing_side(c) -> bool:
 
 
 def test_every_criterion_has_a_pass_and_a_fail_case_here(passing):
-    verdict, crit = passing
+    verdict, crit, _ = passing
     untested = set(crit) - set(DIRECTION)
     assert not untested, f"criteria with no pass/fail case in {__file__}: {sorted(untested)}"
     assert set(DIRECTION) <= set(crit)
@@ -73,7 +76,7 @@ def test_every_criterion_has_a_pass_and_a_fail_case_here(passing):
 
 @pytest.mark.parametrize("name", sorted(DIRECTION))
 def test_the_passing_design_passes_each_criterion(passing, name):
-    verdict, crit = passing
+    verdict, crit, _ = passing
     assert crit[name]["passed"], crit[name]
     assert _on_passing_side(crit[name]), crit[name]
     assert verdict["passed"]
@@ -82,7 +85,7 @@ def test_the_passing_design_passes_each_criterion(passing, name):
 @pytest.mark.parametrize("name", sorted(set(DIRECTION) - {"hold_max_angle_rad"}))
 def test_a_design_past_each_limit_fails_that_criterion(strict, name):
     # The value is found (the runs are PASS's) and lies on the failing side of the stricter limit.
-    verdict, crit = strict
+    verdict, crit, _ = strict
     c = crit[name]
     assert c["value"] is not None, c
     assert not c["passed"], c
@@ -91,7 +94,7 @@ def test_a_design_past_each_limit_fails_that_criterion(strict, name):
 
 
 def test_the_hold_criterion_fails_a_design_that_cannot_hold(strict, no_hold):
-    _, crit = no_hold
+    _, crit, _ = no_hold
     assert not crit["hold_max_angle_rad"]["passed"], crit["hold_max_angle_rad"]
     assert "fell" in crit["hold_max_angle_rad"]["note"]
     # and STRICT's hold (the same runs as PASS) still passes: the criterion is about the hold only
@@ -107,3 +110,33 @@ def test_strict_limits_do_not_change_the_runs(passing, strict):
         assert strict[1][name]["value"] == passing[1][name]["value"], name
     assert strict[1]["monte_carlo_pass_fraction"]["value"] == 0.0
     assert passing[1]["monte_carlo_pass_fraction"]["value"] == 1.0
+
+
+def test_swing_up_time_is_when_the_balance_law_took_over_within_the_catch_angle(passing):
+    # README: swing_up_time_s runs from hanging (t = 0) to the catch: the first row of the swing-up
+    # trial whose mode is the balance law's, where the angle is within catch_angle (20 deg) of
+    # upright as the law measured it (angle noise 0.05 deg, 1 sigma: the true angle within 0.25 deg
+    # more). Read here from that trial's trace; exact to the row (rtol 1e-12).
+    verdict, crit, runs = passing
+    tr = runs["swing_up"].trace
+    modes = tr.modes()
+    k = modes.index("balance")
+    assert "swing up" in modes[:k]
+    angle = np.remainder(tr.view("angle")[k] + np.pi, 2 * np.pi) - np.pi
+    assert abs(angle) <= math.radians(20.25) and math.radians(20.0) < abs(np.remainder(tr.view("angle")[0] + np.pi, 2 * np.pi) - np.pi)
+    assert_allclose(crit["swing_up_time_s"]["value"], k * tr.step_s, rtol=1e-12)
+
+
+def test_settle_time_uses_a_one_degree_band(passing):
+    # README: settle_time_s runs from the catch until the angle stays within 1 degree (the band is
+    # a fact of the metric's definition, not taken from the code). The nominal trial starts 10 deg
+    # off and is caught at once; the settle time is one row past the last row outside 1 degree.
+    verdict, crit, runs = passing
+    tr = runs["nominal"].trace
+    assert runs["nominal"].caught_at_s == 0.0
+    angle = np.degrees(np.abs(np.remainder(tr.view("angle") + np.pi, 2 * np.pi) - np.pi))
+    outside = np.nonzero(angle > 1.0)[0]
+    assert 0 < outside[-1] < tr.n - 1 and angle[0] > 5.0
+    assert_allclose(crit["settle_time_s"]["value"], (outside[-1] + 1) * tr.step_s, rtol=1e-12)
+    # the band matters here: a 10 degree band would have given 0 s (the start is at 10 deg)
+    assert crit["settle_time_s"]["value"] > 0.1 and not np.any(angle > 10.0 + 1e-6)

@@ -116,9 +116,29 @@ def test_measured_columns_and_voltage_hold_each_tick(run):
     for meas, true in (("measured_angle_rad", "angle_rad"), ("measured_rate_rad_s", "rate_rad_s"),
                        ("measured_wheel_speed_rad_s", "wheel_speed_rad_s")):
         assert_allclose(cols[meas], cols[true][held], rtol=1e-8, atol=1e-12, err_msg=meas)
-    A, B = references_model(d)
-    sysd = control.c2d(control.ss(A, B, np.eye(3), np.zeros((3, 1))), 1.0 / RATE_HZ, method="zoh")
-    K = np.ravel(control.dlqr(sysd.A, sysd.B, result.strategy.design.Q, result.strategy.design.R)[0])
     x = np.column_stack([cols["measured_angle_rad"], cols["measured_rate_rad_s"], cols["measured_wheel_speed_rad_s"]])
-    assert_allclose(cols["voltage_v"], np.clip(-x @ K, -d.supply_v, d.supply_v), rtol=1e-6, atol=1e-9)
+    assert_allclose(cols["voltage_v"], np.clip(-x @ _reference_gain(result), -d.supply_v, d.supply_v),
+                    rtol=1e-6, atol=1e-9)
     assert cols["mode"] == ["balance"] * len(cols["t_s"])
+
+
+def _reference_gain(result) -> np.ndarray:
+    """K of python-control's dlqr on the ZOH model at the loop period, with the strategy's weights."""
+    A, B = references_model(result.device)
+    sysd = control.c2d(control.ss(A, B, np.eye(3), np.zeros((3, 1))), 1.0 / RATE_HZ, method="zoh")
+    return np.ravel(control.dlqr(sysd.A, sysd.B, result.strategy.design.Q, result.strategy.design.R)[0])
+
+
+def test_voltage_saturated_fraction_counts_the_ticks_that_asked_past_the_supply(run):
+    # metrics.json's voltage_saturated_fraction (README): control ticks whose law asked for more than
+    # the supply, over all ticks. Counted here from the measured columns at the tick rows and the
+    # law's own answer -K x (K from python-control dlqr); the trial saturates on 13 of its 200 ticks.
+    from sim.metrics import trial_metrics
+
+    result, cols = run
+    x = np.column_stack([cols["measured_angle_rad"], cols["measured_rate_rad_s"],
+                         cols["measured_wheel_speed_rad_s"]])[::2]
+    asked = -x @ _reference_gain(result)
+    saturated = int(np.sum(np.abs(asked) > result.device.supply_v))
+    assert 5 <= saturated < len(asked) // 2
+    assert_allclose(trial_metrics(result)["voltage_saturated_fraction"], saturated / len(asked), rtol=1e-12)
