@@ -140,3 +140,43 @@ def test_settle_time_uses_a_one_degree_band(passing):
     assert_allclose(crit["settle_time_s"]["value"], (outside[-1] + 1) * tr.step_s, rtol=1e-12)
     # the band matters here: a 10 degree band would have given 0 s (the start is at 10 deg)
     assert crit["settle_time_s"]["value"] > 0.1 and not np.any(angle > 10.0 + 1e-6)
+
+
+def test_headrooms_and_monte_carlo_fraction_on_a_bench_design_with_known_values(tmp_path):
+    # The conftest device with its body locked (2 ms steps), 6 V held on a 12 V supply, no inductance, no limit.
+    # - voltage_headroom = 1 - p99(|V|)/supply of the hold trial = 1 - 6/12 = 0.5 (constant V).
+    # - current_headroom = 1 - p99(|i|)/(supply/R): from rest the current decays as (V/R) exp(-t/tau),
+    #   tau = I_w R/(k_t k_e) (references.md "Motor", inductance neglected); each row holds the step's
+    #   mean, (V/R) exp(-t_k/tau) (tau/dt) (1 - exp(-dt/tau)); p99 by numpy.percentile. rtol 1e-6.
+    # - Monte Carlo over drive.supply +-40% (uniform): a trial passes when the wheel-speed margin
+    #   1 - w_peak k_e / S >= 0.4; the wheel reaches V/k_e (1 - 2.3e-4) in 2 s, so the draws with
+    #   S >= 6 V / 0.6 = 10 V pass, and those below fail (none lies within 5 mV of 10 V). Draws from sim.verdicts.monte_carlo (the check's own), the
+    #   fraction counted here from them; the check's criterion must report it.
+    from conftest import scenario_dict
+    from sim.verdicts import monte_carlo
+    from sim.scenario import validate_scenario
+
+    raw = scenario_dict(world={"step": 0.002}, body={"locked": True}, strategy={"kind": "fixed_voltage", "volts": 6.0},
+                        trial={"duration": 2.0}, tolerances={"drive.supply": "40%"},
+                        requirements={"wheel_speed_margin": 0.4})
+    trials = 8
+    outcome = run_check(raw, "bench.yaml", trials=trials, workers=1)
+    crit = {c["name"]: c for c in outcome.verdict["criteria"]}
+    d = outcome.runs["hold"].device
+    assert_allclose(d.I_w_kg_m2, 0.1 * 0.05**2 / 2, rtol=1e-12)     # disk m r^2 / 2
+    assert_allclose(crit["voltage_headroom"]["value"], 0.5, rtol=1e-12)
+    k_e, k_t, R, dt = 60 / (2 * math.pi * 300), 0.033, 2.0, 2e-3
+    tau = d.I_w_kg_m2 * R / (k_t * k_e)
+    t = np.arange(outcome.runs["hold"].trace.n) * dt
+    assert t[-1] > 4.9
+    i = (6.0 / R) * np.exp(-t / tau) * (tau / dt) * (1 - math.exp(-dt / tau))
+    assert_allclose(crit["current_headroom"]["value"], 1 - np.percentile(i, 99) / (12.0 / R), rtol=1e-6)
+
+    sc = validate_scenario(raw, where="bench.yaml")
+    rows = monte_carlo(raw, "bench.yaml", sc, trials=trials, workers=1)["rows"]
+    supplies = np.array([r["drawn"]["drive.supply"] for r in rows])
+    assert np.all(np.abs(supplies - 10.0) > 5e-3)          # no draw sits on the threshold
+    expected = np.sum(supplies >= 10.0) / trials
+    assert 0.0 < expected < 1.0
+    assert [bool(r["passed"]) for r in rows] == list(supplies >= 10.0)
+    assert_allclose(crit["monte_carlo_pass_fraction"]["value"], expected, rtol=1e-12)
