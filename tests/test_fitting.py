@@ -446,7 +446,11 @@ def test_cli_free_swing_writes_files_and_merged_scenario(tmp_path, capsys):
     assert main(["fit", csv, "--test", "free-swing", "--scenario", str(scen), "--out", str(out)]) == 0
     report = json.loads((out / "fit.json").read_text())
     assert report["fitted"]["damping_ratio"]["sigma"] > 0
-    assert (out / "fit.png").stat().st_size > 10_000
+    # the figure draws the log (muted dots), the fitted model (accent line) and the residuals (ink)
+    from pictures import pixels_near
+    from sim.plots import ACCENT, INK, MUTED
+    for colour in (MUTED, ACCENT, INK):
+        assert pixels_near(out / "fit.png", colour, tol=10 / 255) > 200, colour
     patch = yaml.safe_load((out / "patch.yaml").read_text())
     assert set(patch["body"]) == {"inertia_correction", "pivot_friction"}
     fitted = Device.from_scenario(load_scenario(out / "scenario_fitted.yaml"))

@@ -66,7 +66,14 @@ def test_reference_table_columns_and_values(reference):
     # No-load speed = V * Kv (references.md, "Motor"), so the margin grows with the supply.
     margins = [float(r["wheel_speed_margin"]) for r in rows]
     assert margins == sorted(margins)
-    assert (d / "ref" / "sweep.png").exists()
+    # the figure draws the margin (ink) and settle time (accent) lines; every point passed, so no
+    # failure cross (limit red) appears
+    from pictures import pixels_near
+    from sim.plots import ACCENT, INK, LIMIT
+    png = d / "ref" / "sweep.png"
+    assert all(r["passed"] == "True" for r in rows)
+    assert pixels_near(png, INK) > 300 and pixels_near(png, ACCENT) > 300
+    assert pixels_near(png, LIMIT, tol=20 / 255) == 0
 
 
 @pytest.mark.slow
@@ -130,7 +137,14 @@ def test_two_keys_with_monte_carlo_trials(tmp_path):
     assert list(rows[0])[:2] == ["drive.supply", "motor.resistance"]
     assert [(float(r["drive.supply"]), float(r["motor.resistance"])) for r in rows] == [(3, 1.8), (3, 3), (12, 1.8), (12, 3)]
     assert all(r["mc_trials"] == "1" and r["pass_fraction"] in ("0.0", "1.0") for r in rows)
-    assert (out / "sweep.png").exists()
+    # the heat map shows the pass fractions on viridis (0..1): both ends appear, one cell each at least
+    import matplotlib
+
+    from pictures import pixels_near
+    fractions = {float(r["pass_fraction"]) for r in rows}
+    for f in (0.0, 1.0):
+        shown = pixels_near(out / "sweep.png", matplotlib.colormaps["viridis"](f), tol=3 / 255)
+        assert (shown > 2000) == (f in fractions), (f, shown)
     # Re-running a different sweep into the same folder is refused, not mixed in.
     assert main(["sweep", scen, "--vary", "drive.supply=3V,6V", "--out", str(out), "--workers", "1"]) == 2
 

@@ -67,7 +67,14 @@ def test_check_exit_codes_for_a_passing_and_a_failing_design(tmp_path):
         assert all({"name", "value", "limit", "passed"} <= set(c) for c in v["criteria"])
         assert v["passed"] == all(c["passed"] for c in v["criteria"])
         report = (tmp_path / name / "report.md").read_text()
-        assert "![pushes](pushes.png)" in report and (tmp_path / name / "pushes.png").exists()
+        assert "![pushes](pushes.png)" in report
+        # the push figure marks the bisection's tries: survived (green o) and lost (red x) both occur
+        from pictures import pixels_near
+        from sim.verdict_report import FAIL_COLOUR, PASS_COLOUR
+        tries = v["pushes"]["positive"]["evals"] + v["pushes"]["negative"]["evals"]
+        for colour, survived in ((PASS_COLOUR, True), (FAIL_COLOUR, False)):
+            shown = pixels_near(tmp_path / name / "pushes.png", colour, tol=20 / 255)
+            assert (shown > 10) == any(ok == survived for _, ok in tries), (name, colour, shown)
         assert "licensed practice" in report.strip().splitlines()[-1]
     weak_v = json.loads((tmp_path / "weak" / "verdict.json").read_text())
     failed = {c["name"] for c in weak_v["criteria"] if not c["passed"]}
