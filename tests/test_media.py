@@ -143,7 +143,7 @@ def test_side_by_side_labels_each_half_with_its_own_label(tmp_path):
     short, long_ = _spinning(), _falling()
     widths = {}
     for labels in (("A", "A LONGER LABEL"), ("A LONGER LABEL", "A")):
-        info = write_side_by_side([short, long_], list(labels), tmp_path / f"{len(labels[0])}.gif", fps=10,
+        info = write_side_by_side([short, long_], list(labels), tmp_path / f"{len(labels[0])}.gif", fps=2,
                                   size=(384, 216), progress=False)
         frame = _first_frame(info.path)
         widths[labels] = _label_chip_widths(frame)
