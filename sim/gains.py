@@ -155,6 +155,12 @@ def _design(scenario, device, p):
         reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
         raise InputError(f"{scenario.source}: strategy: no LQR design exists for this scenario ({reason}); check "
                          f"world.gravity (now {device_gravity(scenario):g} m/s^2) and strategy weights/effort") from None
+    if np.max(np.abs(des.poles_discrete)) >= 1.0 - 1e-9:
+        # a Riccati solution can exist with a mode the input cannot move (zero gravity: the total
+        # angular momentum); the loop then does not settle, which is no balance design
+        raise InputError(f"{scenario.source}: strategy: no LQR design stabilises this scenario (a closed-"
+                         f"loop pole at |z| = {np.max(np.abs(des.poles_discrete)):.6g}); check world.gravity (now "
+                         f"{device_gravity(scenario):g} m/s^2) and strategy weights/effort")
     if not all(np.isfinite(des.K_discrete)) or not all(np.isfinite(des.K_continuous)):
         raise InputError(f"{scenario.source}: strategy: the LQR design gave non-finite gains; check strategy weights/effort")
     return des

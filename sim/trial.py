@@ -473,11 +473,20 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
     read, advance = engine.io()
     command = strategy.command if strategy is not None else None
     sense, enter, leave, update = sensors.read, clock.enter, clock.leave, motor.update
+    # Angles at the instant of their rates. The engine's semi-implicit Euler step moves each angle
+    # with the rate at the step's end (w[k+1] = w[k] + a dt, x[k+1] = x[k] + w[k+1] dt), so its
+    # angle x[k] = x[0] + dt (w[1] + ... + w[k]) runs half a step ahead of the rate w[k] (which is
+    # at t = k dt: the motor's step-mean current gives each step's exact impulse). Recorded, and
+    # read by the sensors, is the trapezoid integral of the rates from the start angle, i.e.
+    # x[k] - (w[k] - w[0]) dt / 2: row 0 is the start angle exactly.
+    half_dt = 0.5 * dt
+    thd0, phd0 = (float(trace.rate[0]), float(trace.wheel_speed[0])) if n > 0 else (0.0, 0.0)  # as read at the start
     k = 0
     wall0 = time.perf_counter()
     while k < n and outcome is None:
         th, thd, ph, phd = read()
-        t_angle[k], t_rate[k], t_wangle[k], t_wspeed[k] = th, thd, ph, phd
+        t_angle[k], t_rate[k] = th - (thd - thd0) * half_dt, thd
+        t_wangle[k], t_wspeed[k] = ph - (phd - phd0) * half_dt, phd
         # written as inside-the-range tests so that NaN fails them too
         if not (-ABSURD_RATE_RAD_S < thd < ABSURD_RATE_RAD_S and -wheel_limit < phd < wheel_limit
                 and -ABSURD_ANGLE_RAD < th < ABSURD_ANGLE_RAD):

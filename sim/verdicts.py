@@ -157,8 +157,9 @@ def max_push(scenario, *, sign: float, seed: int, start_n_m_s: float, rel_tol: f
         evals.append((x, ok))
         return ok
 
+    from .scenario import MAX_TORQUE   # the largest impulse a scenario may hold (N m s)
     lo, hi, x = 0.0, None, max(start_n_m_s, 1e-5)
-    while len(evals) < max_evals and hi is None:
+    while len(evals) < max_evals and hi is None and x <= MAX_TORQUE:
         if survives(x):
             lo, x = x, 2.0 * x
         else:

@@ -18,7 +18,12 @@ from sim.overrides import deep_merge
 
 def base_scenario() -> dict:
     """A raw scenario mapping: a 0.2 m, 50 g rod with a 100 g tip mass and a 100 g, 50 mm disk wheel
-    at 0.2 m (J = 8.667e-3 kg m^2, I_w = 1.25e-4 kg m^2, mbar = 0.045 kg m), Kv 300 rpm/V, 2 ohm, 12 V.
+    at 0.2 m (J = 8.667e-3 kg m^2, I_w = 1.25e-4 kg m^2, mbar = 0.045 kg m), Kv 300 rpm/V
+    (k_e = 0.031831 V s/rad), torque constant 0.033 N m/A, 2 ohm, 12 V.
+
+    The torque constant is 3.7% above k_e on purpose: a datasheet's torque constant often differs
+    from its back-EMF constant by a few percent (common practice, no source), and a formula that
+    uses one where the other belongs must show in the tests.
 
     No friction, no sensor imperfections, a fixed-voltage bench strategy at 0 V, 0.5 s long.
     """
@@ -35,7 +40,7 @@ def base_scenario() -> dict:
             "at": 0.2,
             "parts": [{"name": "disk", "shape": "disk", "radius": 0.05, "thickness": 0.005, "mass": 0.1}],
         },
-        "motor": {"speed_constant": "300 rpm/V", "resistance": 2.0, "mass": 0.0},
+        "motor": {"speed_constant": "300 rpm/V", "torque_constant": "0.033 N*m/A", "resistance": 2.0, "mass": 0.0},
         "drive": {"supply": 12.0},
         "strategy": {"kind": "fixed_voltage", "volts": 0.0},
         "trial": {"duration": 0.5, "start": {"angle": 0.0}},

@@ -31,7 +31,15 @@ def test_upright_at_rest_is_caught_and_a_hopeless_start_is_lost(tmp_path):
     for (angle, rate), r in cells.items():
         assert cells[(-angle if angle else 0.0, -rate if rate else 0.0)]["caught"] == r["caught"]
     assert float(cells[(0.0, 0.0)]["wheel_speed_margin"]) > 0.9
-    assert (out / "catch_map.png").exists()
+    # the picture shows the table: lost cells in the "not caught" grey, the centre cell in the
+    # colour of its margin on the colour bar (viridis, 0..1); each cell is thousands of pixels
+    import matplotlib
+
+    from pictures import pixels_near
+    png = out / "catch_map.png"
+    assert pixels_near(png, "#e9e4dc") > 2000
+    centre = matplotlib.colormaps["viridis"](float(cells[(0.0, 0.0)]["wheel_speed_margin"]))
+    assert pixels_near(png, centre, tol=3 / 255) > 2000
 
 
 def test_a_supervisor_is_mapped_by_its_balance_law():

@@ -378,7 +378,8 @@ def test_round_trip_engine_coast_down(tmp_path):
 def test_round_trip_engine_spin_up(tmp_path, current_limit, correction):
     # with a 1.5 A limit the drive holds the current flat for the first ~0.3 s; the fit must leave that
     # out. A wheel.inertia_correction must reach the engine and come back from the fit.
-    motor = {"current_limit": current_limit} if current_limit else {}
+    # an ideal motor (k_t = k_e): one spin-up fixes only k_t / I_w, and the fit takes k_t = k_e (sim.fit_wheel)
+    motor = {"torque_constant": None} | ({"current_limit": current_limit} if current_limit else {})
     sc = make_scenario(body={"locked": True}, wheel={"bearing_friction": {"coulomb": 3e-4, "viscous": 1e-6},
                                                      "inertia_correction": correction},
                        motor=motor, strategy={"kind": "fixed_voltage", "volts": 6.0}, trial={"duration": 1.5})
@@ -391,6 +392,22 @@ def test_round_trip_engine_spin_up(tmp_path, current_limit, correction):
     # so V = R i + k_e w reads R (1 + dt / (2 tau)): 0.2% here, inside the 0.5% allowed
     assert_allclose(res.value("resistance_ohm"), dev.resistance_ohm, rtol=5e-3)
     assert_allclose(res.value("wheel_spin_inertia_kg_m2"), dev.I_w_kg_m2, rtol=5e-3)
+
+
+def test_spin_up_of_a_motor_with_k_t_apart_from_k_e_gives_the_ratio_it_can_see(tmp_path):
+    # With k_t != k_e (the conftest device: k_t 3.7% above k_e) a spin-up still measures k_e (from
+    # V = R i + k_e w) and the ratio k_t / I_w (the wheel's torque per amp over its inertia, Newton's
+    # second law for rotation); taking k_t = k_e, as the fit states it does, the inertia it reports is
+    # I_w k_e / k_t (the bearing's viscous 1e-6 N m s, 0.2% of the motor's damping k_t k_e / R, aside).
+    # Tolerances as the round trip above (rtol 1e-4 on k_e, 5e-3 on the inertia).
+    sc = make_scenario(body={"locked": True}, wheel={"bearing_friction": {"coulomb": 3e-4, "viscous": 1e-6}},
+                       strategy={"kind": "fixed_voltage", "volts": 6.0}, trial={"duration": 1.5})
+    dev = Device.from_scenario(sc)
+    assert abs(dev.k_t_n_m_a / dev.k_e_v_s_rad - 1) > 0.03
+    res = fit_log(_engine_log(tmp_path, sc), "spin-up", scenario=sc)
+    assert_allclose(res.value("back_emf_constant_v_s_per_rad"), dev.k_e_v_s_rad, rtol=1e-4)
+    assert_allclose(res.value("wheel_spin_inertia_kg_m2"), dev.I_w_kg_m2 * dev.k_e_v_s_rad / dev.k_t_n_m_a, rtol=5e-3)
+    assert any("k_t" in n or "torque_constant" in n for n in res.notes)
 
 
 @pytest.mark.slow
@@ -446,7 +463,11 @@ def test_cli_free_swing_writes_files_and_merged_scenario(tmp_path, capsys):
     assert main(["fit", csv, "--test", "free-swing", "--scenario", str(scen), "--out", str(out)]) == 0
     report = json.loads((out / "fit.json").read_text())
     assert report["fitted"]["damping_ratio"]["sigma"] > 0
-    assert (out / "fit.png").stat().st_size > 10_000
+    # the figure draws the log (muted dots), the fitted model (accent line) and the residuals (ink)
+    from pictures import pixels_near
+    from sim.plots import ACCENT, INK, MUTED
+    for colour in (MUTED, ACCENT, INK):
+        assert pixels_near(out / "fit.png", colour, tol=10 / 255) > 200, colour
     patch = yaml.safe_load((out / "patch.yaml").read_text())
     assert set(patch["body"]) == {"inertia_correction", "pivot_friction"}
     fitted = Device.from_scenario(load_scenario(out / "scenario_fitted.yaml"))

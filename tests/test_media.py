@@ -13,7 +13,7 @@ import pytest
 from numpy.testing import assert_allclose
 
 from sim.cli import main
-from sim.overlay import DIAL_SPAN, TEXT, Dashboard, readout
+from sim.overlay import DIAL_SPAN, PANEL, TEXT, Dashboard, readout
 from sim.render import Scene
 from sim.trial import run_trial
 from sim.video import TrialPainter, clip_duration_s, frame_count, write_clip, write_side_by_side
@@ -39,6 +39,21 @@ def _count_frames(path) -> int:
         return sum(1 for _ in reader)
 
 
+def _first_frame(path) -> np.ndarray:
+    # read to the end: an ffmpeg reader closed mid-stream leaves its pipes to the garbage collector
+    with iio.get_reader(str(path)) as reader:
+        frames = [frame[..., :3] for frame in reader]
+    return frames[0]
+
+
+def _label_chip_widths(frame: np.ndarray) -> list[int]:
+    """Widest run of the label chip's fill colour (PANEL, within 10 per channel after the GIF's
+    palette) in the top 20% of each half of a side-by-side frame, pixels."""
+    near = np.abs(frame[: frame.shape[0] // 5].astype(int) - np.array(PANEL[:3])).max(axis=2) <= 10
+    half = frame.shape[1] // 2
+    return [int(near[:, x0:x0 + half].sum(axis=1).max()) for x0 in (0, half)]
+
+
 @pytest.mark.parametrize("suffix", [".gif", ".mp4"])
 def test_clip_frame_count_is_duration_times_fps(tmp_path, suffix):
     result = _falling()
@@ -50,8 +65,7 @@ def test_clip_frame_count_is_duration_times_fps(tmp_path, suffix):
     assert info.frames == round(duration * fps) == 12
     # both formats open with imageio and hold that many frames of the requested size
     assert _count_frames(info.path) == info.frames
-    first = iio.get_reader(str(info.path)).get_data(0)
-    assert first.shape[:2] == (SMALL[1], SMALL[0])
+    assert _first_frame(info.path).shape[:2] == (SMALL[1], SMALL[0])
 
 
 def test_frames_change_while_the_body_moves_and_not_otherwise():
@@ -118,8 +132,27 @@ def test_side_by_side_is_one_labelled_clip_as_long_as_the_longer_trial(tmp_path)
     info = write_side_by_side([short, long_], ["short", "long"], tmp_path / "both.gif", fps=10, size=(192, 108),
                               progress=False)
     assert info.frames == frame_count(max(clip_duration_s(short), clip_duration_s(long_)), 10) == 6
-    frame = iio.get_reader(str(info.path)).get_data(0)
-    assert frame.shape[:2] == (108, 192)
+    assert _count_frames(info.path) == 6
+    assert _first_frame(info.path).shape[:2] == (108, 192)
+
+
+def test_side_by_side_labels_each_half_with_its_own_label(tmp_path):
+    # Each half carries its label in a chip at its top left: a one-letter label gives a narrow chip,
+    # a long one a wide chip, in the half given; swapping the labels swaps the chips. The chip holds
+    # the text's ink (TEXT colour). Seen at 384x216: 12 and 64 pixels wide.
+    short, long_ = _spinning(), _falling()
+    widths = {}
+    for labels in (("A", "A LONGER LABEL"), ("A LONGER LABEL", "A")):
+        info = write_side_by_side([short, long_], list(labels), tmp_path / f"{len(labels[0])}.gif", fps=2,
+                                  size=(384, 216), progress=False)
+        frame = _first_frame(info.path)
+        widths[labels] = _label_chip_widths(frame)
+        for x0 in (0, 192):   # the ink of the text inside each chip
+            top = frame[: 216 // 5, x0:x0 + 192].astype(int)
+            assert (np.abs(top - np.array(TEXT[:3])).max(axis=2) <= 40).sum() >= 10
+    narrow, wide = widths[("A", "A LONGER LABEL")]
+    assert 5 <= narrow and wide > 3 * narrow
+    assert widths[("A LONGER LABEL", "A")] == [wide, narrow]
 
 
 def test_dashboard_leaves_an_array_input_untouched():

@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import csv
 import json
+import math
 import shutil
 from importlib.metadata import EntryPoint
 from pathlib import Path
@@ -105,7 +107,14 @@ def test_a_raising_plugin_ends_with_strategy_failed_and_its_message_in_metrics(t
     metrics = json.loads((out / "metrics.json").read_text())
     assert metrics["outcome"] == "strategy_failed"
     assert "sensor bus lost" in metrics["message"] and "RuntimeError" in metrics["message"]
-    assert (out / "trace.csv").stat().st_size > 0
+    # the trace ends at the failing tick (t = 0.1 s, 1 ms steps): rows 0..100, 0 V throughout (the
+    # law asked for nothing else), starting at the scenario's 3 deg
+    with open(out / "trace.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    assert len(rows) == 101 and float(rows[-1]["t_s"]) == pytest.approx(0.1, abs=1e-12)
+    assert all(float(r["voltage_v"]) == 0.0 for r in rows)
+    assert float(rows[0]["angle_rad"]) == pytest.approx(math.radians(3.0), rel=1e-8)
+    assert metrics["simulated_s"] == pytest.approx(0.1, abs=1e-12)
 
 
 def test_a_nested_plugin_resolves_beside_the_scenario(tmp_path):

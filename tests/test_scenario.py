@@ -47,7 +47,7 @@ def test_quantities_reject_wrong_dimension_and_non_numbers(value, kind):
 def test_motor_constants_from_kv_and_defaults():
     # k_e = 60 / (2 pi Kv[rpm/V]) V s/rad and k_t = k_e in SI for an ideal motor
     # (references.md, "Motor", [mem, standard]).
-    sc = make_scenario(motor={"speed_constant": "300 rpm/V"})
+    sc = make_scenario(motor={"speed_constant": "300 rpm/V", "torque_constant": None})
     assert_allclose(sc.motor.k_e, 60 / (2 * math.pi * 300), rtol=1e-12)
     assert sc.motor.k_t == sc.motor.k_e
     sc = make_scenario(motor={"speed_constant": None, "back_emf_constant": 0.02, "torque_constant": "25 mN*m/A"})

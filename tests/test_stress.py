@@ -67,7 +67,11 @@ def test_printed_ring_uses_across_layer_strength_at_runaway_speed():
     # Runaway speed = no-load speed at full supply = V * Kv (references.md, "Motor").
     w = 12 * 300 * 2 * math.pi / 60
     np.testing.assert_allclose(check["runaway_speed_rad_s"], w, rtol=1e-12)
-    expect = bored_disk_stress_pa(1240.0, w, 0.060, 0.040, 0.36)   # PLA density and nu from sim.materials [mem]
+    # Rotating disk with a central bore, peak hoop stress at the bore (Timoshenko & Goodier, Theory
+    # of Elasticity, rotating disks): (3 + nu)/4 rho w^2 (b^2 + (1 - nu)/(3 + nu) a^2), written out
+    # here; PLA density 1240 kg/m^3 and nu 0.36 as in sim.materials [mem]
+    rho, nu, a, b = 1240.0, 0.36, 0.040, 0.060
+    expect = (3 + nu) / 4 * rho * w**2 * (b**2 + (1 - nu) / (3 + nu) * a**2)
     row = check["parts"][0]
     np.testing.assert_allclose(row["stress_pa"], expect, rtol=1e-9)
     assert row["strength_pa"] == 35e6 and "across-layer" in row["strength_basis"]   # PLA across layers [mem]
@@ -96,7 +100,9 @@ def test_given_mass_sets_the_mean_density():
                            "mass": solid_mass / 2}])
     check = wheel_burst_check(sc, Device.from_scenario(sc))
     w = check["runaway_speed_rad_s"]
-    np.testing.assert_allclose(check["parts"][0]["stress_pa"], solid_disk_stress_pa(7850.0 / 2, w, r, 0.29), rtol=1e-9)
+    # solid rotating disk, peak stress at the centre (Timoshenko & Goodier): (3 + nu)/8 rho w^2 r^2,
+    # written out here; steel nu 0.29 as in sim.materials [mem]
+    np.testing.assert_allclose(check["parts"][0]["stress_pa"], (3 + 0.29) / 8 * (7850.0 / 2) * w**2 * r**2, rtol=1e-9)
     assert check["parts"][0]["strength_basis"].startswith("tensile")
 
 

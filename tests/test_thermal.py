@@ -55,9 +55,12 @@ def test_scenario_thermal_section_and_defaults():
     sc = load_scenario(overrides=["motor.thermal.ambient=40 degC", "motor.thermal.thermal_resistance=6 K/W"])
     check = winding_check(sc.motor, 1.0)
     assert check["ambient_c"] == 40.0 and check["max_winding_temperature_c"] == 100.0
+    # Steady state of references.md "Motor" (C dT/dt = 0): T = T_amb + R_th I^2 R20 (1 + alpha (T - 20)),
+    # linear in T, so T = (T_amb + R_th I^2 R20 (1 - 20 alpha)) / (1 - R_th I^2 R20 alpha); copper's
+    # alpha = 0.00393 /K near 20 degC (handbook value, from memory). Exact: rtol 1e-12.
+    alpha, heat = 0.00393, 6.0 * 1.0**2 * sc.motor.resistance
     np.testing.assert_allclose(check["steady_winding_temperature_c"],
-                               steady_temperature_c(1.0, resistance_20c_ohm=sc.motor.resistance,
-                                                    thermal_resistance_k_w=6.0, ambient_c=40.0), rtol=1e-12)
+                               (40.0 + heat * (1 - 20 * alpha)) / (1 - heat * alpha), rtol=1e-12)
 
 
 def test_check_and_sweep_judge_the_winding_on_the_same_basis():

@@ -44,8 +44,9 @@ def test_csv_blocks_join_without_gaps_or_repeats(tmp_path, monkeypatch):
     lines = (tmp_path / "t.csv").read_text().splitlines()
     assert len(lines) == 51
     body = np.array([[float(x) for x in line.split(",")[:-1]] for line in lines[1:]])
-    assert np.allclose(body[:, 0], tr.t[:50])
-    assert np.allclose(body[:, 1], np.remainder(tr.angle[:50] + np.pi, 2 * np.pi) - np.pi)
+    # written with 9 significant digits: rtol 1e-8; angles wrapped to [-pi, pi) (README, trace.csv)
+    np.testing.assert_allclose(body[:, 0], tr.t[:50], rtol=1e-8, atol=1e-12)
+    np.testing.assert_allclose(body[:, 1], np.remainder(tr.angle[:50] + np.pi, 2 * np.pi) - np.pi, rtol=1e-8, atol=1e-12)
     assert [line.rsplit(",", 1)[1] for line in lines[1:]] == ["swing", "balance"] * 25
 
 
