@@ -318,7 +318,8 @@ def _lost_child_result(scenario, device, trace, budget: float, lost: isolation.L
     building, k = lost.step < 0, max(lost.step, 0)
     cause = (f"strategy code did not return within its {budget:g} s budget (stuck in compiled code?)"
              if lost.stuck else f"the strategy's process died ({lost.how})")
-    message = f"building the strategy failed: {cause}" if building else f"{cause} at t = {k * dt:.4f} s"
+    message = (f"building the strategy failed: {cause}" if building
+               else f"{cause} at control tick {k // cs} (t = {k * dt:.4f} s)")
     if not building:  # the call never returned: the phase is the one held from the tick before
         trace.mode[k] = trace.mode[k - cs] if k >= cs else 0
     trace.phases = list(lost.phases)

@@ -266,7 +266,7 @@ void wb_step(const wb_input_t *in, wb_output_t *out) {
 def test_crash_is_strategy_failed_with_the_signal_and_the_tick(tmp_path, kind, how):
     result = run_trial(firmware_scenario(tmp_path, CRASHING, defines={"KIND": kind}))
     assert result.outcome == "strategy_failed"
-    assert how in result.message and "at t = 0.1000 s" in result.message   # tick 50 at 500 Hz
+    assert how in result.message and "at control tick 50 (t = 0.1000 s)" in result.message   # tick 50 at 500 Hz
     np.testing.assert_allclose(result.ended_at_s, 0.1, rtol=0, atol=1e-12)
 
 
@@ -274,7 +274,7 @@ def test_crash_is_strategy_failed_with_the_signal_and_the_tick(tmp_path, kind, h
 def test_endless_loop_is_stopped_at_its_tick(tmp_path):
     result = run_trial(firmware_scenario(tmp_path, CRASHING, defines={"KIND": 4}), strategy_budget_s=1.0)
     assert result.outcome == "strategy_failed"
-    assert "did not return" in result.message and "at t = 0.1000 s" in result.message
+    assert "did not return" in result.message and "at control tick 50 (t = 0.1000 s)" in result.message
 
 
 @linux_only

@@ -100,7 +100,7 @@ def test_a_plugin_stuck_in_compiled_code_ends_as_strategy_failed(hang_guard):
     elapsed = time.perf_counter() - t0
     assert r.outcome == "strategy_failed"
     assert r.message == ("strategy code did not return within its 0.5 s budget (stuck in compiled code?) "
-                         "at t = 0.0200 s")
+                         "at control tick 10 (t = 0.0200 s)")
     # killed at budget + grace (2.5 s) after the call began, not at the end of the world
     assert elapsed < 10.0
     # the trace is cut where the call hung, as for an in-process failure at that tick
@@ -115,7 +115,7 @@ def test_a_plugin_stuck_in_compiled_code_ends_as_strategy_failed(hang_guard):
 def test_a_plugin_that_kills_its_process_ends_as_strategy_failed(cls, how):
     r = run_trial(plugin(STUCK, cls))
     assert r.outcome == "strategy_failed"
-    assert r.message == f"the strategy's process died ({how}) at t = 0.0200 s"
+    assert r.message == f"the strategy's process died ({how}) at control tick 10 (t = 0.0200 s)"
     assert_same_rows(r, in_process_failure_at_the_same_tick())
 
 
@@ -249,7 +249,7 @@ def test_wheelbench_run_with_a_stuck_plugin_finishes_and_reports_it(tmp_path, ca
     metrics = json.loads((out / "metrics.json").read_text())
     assert metrics["outcome"] == "strategy_failed"
     assert metrics["message"] == ("strategy code did not return within its 0.3 s budget (stuck in compiled code?) "
-                                  "at t = 0.0000 s")
+                                  "at control tick 0 (t = 0.0000 s)")
     assert "strategy_failed" in capsys.readouterr().out
     assert (out / "trace.csv").read_text().count("\n") == 2   # the header and the row at t = 0
 
