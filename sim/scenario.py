@@ -382,6 +382,11 @@ class Scenario(Strict):
         if steps > MAX_STEPS:
             raise ValueError(f"@trial.duration: {self.trial.duration:g} s at a {self.world.step:g} s step needs "
                              f"{steps:.3g} steps; the limit is {MAX_STEPS:.0e}")
+        req = self.requirements   # `check` runs trials of these lengths too: the same limit holds
+        for key, seconds in (("swing_up_time", req.swing_up_time + req.settle_time + 1.0), ("hold_time", req.hold_time)):
+            if seconds / self.world.step > MAX_STEPS:
+                raise ValueError(f"@requirements.{key}: check's {seconds:g} s trial at a {self.world.step:g} s step "
+                                 f"needs {seconds / self.world.step:.3g} steps; the limit is {MAX_STEPS:.0e}")
         ratio = 1.0 / (self.sensors.rate * self.world.step)
         if ratio < 0.999 or abs(ratio - round(ratio)) > 1e-6 * ratio:
             raise ValueError(f"@sensors.rate: the control period (1/{self.sensors.rate:g} Hz) must be a whole "

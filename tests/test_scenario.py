@@ -356,3 +356,13 @@ def test_largest_sensor_noise_allowed_ends_as_an_outcome():
     sc = make_scenario(strategy={"kind": "lqr"}, trial={"duration": 0.2},
                        sensors={"angle": {"noise": math.pi}, "rate_gyro": {"noise": 1e5}, "wheel": {"noise": 1e5}})
     assert run_trial(sc).outcome in {"balanced", "fell", "diverged", "not_caught"}
+
+
+def test_validate_refuses_requirements_whose_check_trials_break_the_step_limit(tmp_path, capsys):
+    # check runs a swing-up of swing_up_time + settle_time + 1 s and holds of hold_time: each obeys
+    # the step limit a loaded trial does (sim.scenario.MAX_STEPS), so validate refuses them at load
+    from sim.cli import main
+    path = write_scenario(tmp_path / "s.yaml", scenario_dict(requirements={"swing_up_time": "1e9 s"}))
+    assert main(["validate", str(path)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "requirements.swing_up_time" in err[0] and "limit" in err[0]
