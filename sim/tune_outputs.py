@@ -159,16 +159,20 @@ def tune_figure(evals: list[Evaluation], params: list[Param], objectives: list[s
         if best is not None:
             xs.append(e.number)
             ys.append(best)
+    if len(objectives) == 2:
+        _pareto_panel(ax, evals, objectives)
+        xs = []
     if xs:
         ax.step(xs, ys, where="post", color=INK, lw=1.2, label="best passing so far")
         ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.16), fontsize=8, frameon=False)
-    ax.set_xlabel("evaluation")
-    ax.set_ylabel(f"{obj} [{OBJECTIVES[obj][2]}]")
+    if len(objectives) == 1:
+        ax.set_xlabel("evaluation")
+        ax.set_ylabel(f"{obj} [{OBJECTIVES[obj][2]}]")
     ax.set_title("o passes every other criterion, x fails one", fontsize=9, color=INK)
     if importances:
         names = list(importances)[::-1]
         axi.barh(names, [importances[n] for n in names], color=ACCENT)
-        axi.set_xlabel("importance (PED-ANOVA, among the best evaluations)")
+        axi.set_xlabel("importance (PED-ANOVA)")
     else:
         axi.text(0.5, 0.5, "too few evaluations\nto rank the parameters", ha="center", va="center",
                  transform=axi.transAxes, color=MUTED)
@@ -178,6 +182,25 @@ def tune_figure(evals: list[Evaluation], params: list[Param], objectives: list[s
     return fig
 
 
+def _pareto_panel(ax, evals: list[Evaluation], objectives: list[str]) -> None:
+    """Two objectives against each other: every evaluation, the Pareto front of the passing ones joined."""
+    from .plots import ACCENT, INK, MUTED
+    ax.cla()
+    for e in evals:
+        a, b = e.row["objectives"][:2]
+        if a is not None and b is not None:
+            ok = not failed_criteria(e.row, objectives)
+            ax.scatter(a, b, marker="o" if ok else "x", color=ACCENT if ok else MUTED, s=18, zorder=3)
+    front = sorted((e.row["objectives"][0], e.row["objectives"][1]) for e in
+                   pareto_front(ranked(evals, objectives), objectives))
+    if front:
+        ax.plot(*zip(*front), color=INK, lw=1.0, label="Pareto front of the passing ones")
+        ax.legend(loc="upper left", bbox_to_anchor=(0.0, -0.16), fontsize=8, frameon=False)
+    ax.set_xlabel(f"{objectives[0]} [{OBJECTIVES[objectives[0]][2]}]")
+    ax.set_ylabel(f"{objectives[1]} [{OBJECTIVES[objectives[1]][2]}]")
+    ax.set_title("o passes every other criterion, x fails one", fontsize=9, color=INK)
+
+
 def importances(study, objectives: list[str]) -> dict | None:
     """Parameter importances of the first objective, or None when too few trials.
 
@@ -185,13 +208,19 @@ def importances(study, objectives: list[str]) -> dict | None:
     distribution among the best evaluations differs from its distribution among all of them; it
     needs no extra library (optuna's fANOVA needs scikit-learn).
     """
+    import warnings
+
     import optuna
     if len(study.trials) < 4:
         return None
+    # PED-ANOVA ranks what makes the target low: a maximised objective is negated
+    sign = -1.0 if OBJECTIVES[objectives[0]][0] == "maximize" else 1.0
     try:
-        target = (lambda t: t.values[0]) if len(objectives) > 1 else None
-        return optuna.importance.get_param_importances(
-            study, evaluator=optuna.importance.PedAnovaImportanceEvaluator(), target=target)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")   # optuna's notes on degenerate quantiles; the figure says enough
+            return optuna.importance.get_param_importances(
+                study, evaluator=optuna.importance.PedAnovaImportanceEvaluator(),
+                target=lambda t: sign * t.values[0])
     except (RuntimeError, ValueError, ZeroDivisionError):
         return None
 
@@ -228,7 +257,7 @@ def run_tune(raw: dict, where: str, scenario_path: Path, out_dir: Path, *, param
     write_tune_csv(out_dir / "tune.csv", evals, params, objectives)
     outcome.written.append("tune.csv")
     order = ranked(evals, objectives)
-    outcome.front = order if len(objectives) > 1 else order[:1]
+    outcome.front = pareto_front(order, objectives) if len(objectives) > 1 else order[:1]
     for cand in order[:RECHECK_BEST]:
         check = run_check(scenario_with(raw, params, cand.params), where, trials=mc_trials, workers=workers,
                           cluster=cluster)
