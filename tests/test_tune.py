@@ -154,3 +154,17 @@ def test_a_killed_tune_resumes_to_the_requested_count_with_none_repeated_or_lost
     killed = [t for t in study.trials if t.state.name == "FAIL"]
     assert len(killed) == 1
     assert any(t.params == killed[0].params for t in finished)
+
+
+def test_pareto_front_keeps_only_non_dominated_designs():
+    # definition of Pareto dominance (at least as good in every objective, better in one; any
+    # multi-objective optimisation text): push maximised, peak current minimised
+    from sim.tune_outputs import pareto_front
+    from sim.tune_study import Evaluation
+
+    def ev(n, push, amps):
+        return Evaluation(n, {}, {"error": None, "criteria": [], "objectives": [push, amps]}, 0)
+
+    pts = [ev(0, 0.010, 2.0), ev(1, 0.012, 3.0), ev(2, 0.009, 2.5), ev(3, 0.012, 2.9), ev(4, 0.008, 1.5)]
+    front = pareto_front(pts, ["push", "peak_current"])
+    assert sorted(e.number for e in front) == [0, 3, 4]   # 1 is beaten by 3, 2 by 0
