@@ -26,8 +26,8 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 
-from sim.scenario import load_scenario  # noqa: E402
-from sim.trial import run_trial  # noqa: E402
+from sim.model.scenario import load_scenario  # noqa: E402
+from sim.run.trial import run_trial  # noqa: E402
 
 EXAMPLE = HERE.parent / "scenarios" / "firmware" / "desk_firmware.yaml"
 

@@ -6,7 +6,7 @@ Each run is the bundled demo balancing with LQR (no pushes) for the given number
 steps, run as a user runs it (subprocess, trace.csv, metrics.json and the summary plot written).
 The sampler reads /proc/<pid>/status (and its children's) every 50 ms: RssAnon (anonymous memory: heap and arrays,
 which only swap can take back) and RssFile (mapped files, which the kernel can write out and drop
-under memory pressure; long traces live there, see sim/trace.py). The yardstick is the trace's
+under memory pressure; long traces live there, see sim/run/trace.py). The yardstick is the trace's
 own size, 90 bytes a row. Linux only. No assertion: figures are printed for the README.
 """
 
@@ -20,7 +20,7 @@ import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
-ROW_BYTES = 11 * 8 + 2   # sim.trace.Trace: eleven float64 columns and an int16 phase code
+ROW_BYTES = 11 * 8 + 2   # sim.run.trace.Trace: eleven float64 columns and an int16 phase code
 
 
 def _status_mb(pid: int) -> dict[str, float]:

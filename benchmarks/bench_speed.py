@@ -52,7 +52,7 @@ def machine() -> str:
 
 def full_fidelity_scenario(seconds: float):
     """The bundled demo (motor with friction, encoders, gyro, 2 ms delay) with LQR at 500 Hz."""
-    from sim.scenario import load_scenario
+    from sim.model.scenario import load_scenario
 
     sc = load_scenario(None, overrides=FULL_FIDELITY + [f"trial.duration={seconds}"])
     assert sc.sensors.rate == 500 and sc.world.step == 1e-3 and sc.sensors.delay > 0
@@ -61,7 +61,7 @@ def full_fidelity_scenario(seconds: float):
 
 
 def trial_rtf(sc) -> float:
-    from sim.trial import run_trial
+    from sim.run.trial import run_trial
 
     r = run_trial(sc)
     assert r.outcome == "balanced", r.outcome  # a fallen body would measure a different loop
@@ -110,7 +110,7 @@ def main() -> None:
     ap.add_argument("--skip-sweep", action="store_true")
     ap.add_argument("--sweep-points", type=int, default=10_000)
     args = ap.parse_args()
-    from sim.device import Device
+    from sim.model.device import Device
 
     print(f"machine: {machine()}")
     sc = full_fidelity_scenario(args.seconds)

@@ -29,14 +29,14 @@ MEMORY = ["strategy={kind: lqr}", "trial.pushes=[]", "trial.start.angle=3 deg", 
 
 
 def _raw(overrides):
-    from sim.scenario import load_raw
+    from sim.model.scenario import load_raw
 
     return load_raw(None, tuple(overrides))
 
 
 def _sweep(overrides, vary: list[str], workers: int, out: Path, on_progress=None) -> float:
-    from sim.outputs import prepare_out_dir
-    from sim.sweep import parse_vary, run_sweep
+    from sim.core.outputs import prepare_out_dir
+    from sim.studies.sweep import parse_vary, run_sweep
 
     raw, where = _raw(overrides)
     t0 = time.perf_counter()
@@ -46,7 +46,7 @@ def _sweep(overrides, vary: list[str], workers: int, out: Path, on_progress=None
 
 
 def _catch_map(workers: int, grid: int) -> float:
-    from sim.catchmap import catch_map
+    from sim.studies.catchmap import catch_map
 
     raw, where = _raw(SPEED[:3])
     t0 = time.perf_counter()
@@ -118,7 +118,7 @@ def _compare(name: str, one_worker, two_workers, fn, payloads: list, rounds: int
 
 
 def catch_map_report(grid: int, rounds: int) -> None:
-    import sim.catchmap as cm
+    import sim.studies.catchmap as cm
 
     raw, where = _raw(SPEED[:3])
     fn, payloads = _captured(cm, lambda: cm.catch_map(raw, where, grid=grid, workers=1))
@@ -126,8 +126,8 @@ def catch_map_report(grid: int, rounds: int) -> None:
 
 
 def sweep_speed_report(points: int, rounds: int, tmp: Path) -> None:
-    import sim.sweep as sw
-    from sim.outputs import prepare_out_dir
+    import sim.studies.sweep as sw
+    from sim.core.outputs import prepare_out_dir
 
     vary = [f"drive.supply=10..14:{points}"]
     raw, where = _raw(SPEED)

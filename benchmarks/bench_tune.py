@@ -6,7 +6,7 @@ One round: (a) `tune` on a small LQR scenario for --evals evaluations (optuna's 
 storage, asking in rounds of --workers, telling in order, then re-checking the best with a short
 Monte Carlo, which is left out of the timing: it is the same `check` a user would run after a
 sweep); (b) the very same evaluations (the parameters tune tried, the same evaluation function
-`sim.tune.evaluate`) run as a sweep runs its points: one `run_tasks` pool over all of them, no
+`sim.studies.tune.evaluate`) run as a sweep runs its points: one `run_tasks` pool over all of them, no
 sampler, no database. The figure is (a)'s evaluations per second over (b)'s (target >= 0.9).
 Rounds alternate a and b, so a slow spell of this shared machine hits both. No assertion: figures
 are printed.
@@ -29,16 +29,16 @@ SCENARIO = ["strategy={kind: lqr}", "trial.pushes=[]", "trial.start.angle=3 deg"
 
 
 def _raw():
-    from sim.scenario import load_raw
+    from sim.model.scenario import load_raw
     return load_raw(None, tuple(SCENARIO))
 
 
 def tune_round(evals: int, workers: int, out: Path) -> tuple[float, list]:
     """Wall time of the search alone (s), and the evaluations it made."""
-    from sim.device import Device
-    from sim.scenario import validate_scenario
-    from sim.tune import default_space, prefill
-    from sim.tune_study import open_study, run_study, study_spec
+    from sim.model.device import Device
+    from sim.model.scenario import validate_scenario
+    from sim.studies.tune import default_space, prefill
+    from sim.studies.tune_study import open_study, run_study, study_spec
 
     raw, where = _raw()
     sc = validate_scenario(raw, where=where)
@@ -54,11 +54,11 @@ def tune_round(evals: int, workers: int, out: Path) -> tuple[float, list]:
 
 def sweep_round(evaluations: list, workers: int) -> float:
     """The same evaluations as one pool of tasks, as `sweep` runs its points (s)."""
-    from sim.parallel import run_tasks
-    from sim.tune import evaluate
+    from sim.run.parallel import run_tasks
+    from sim.studies.tune import evaluate
 
-    from sim.scenario import validate_scenario
-    from sim.tune import prefill
+    from sim.model.scenario import validate_scenario
+    from sim.studies.tune import prefill
     raw, where = _raw()
     sc = validate_scenario(raw, where=where)
     params = evaluations[0][1]

@@ -29,9 +29,9 @@ def _cpu_s() -> float:
 
 
 def main(argv=None) -> int:
-    from sim.scenario import load_scenario
-    from sim.trial import run_trial
-    from sim.video import DEFAULT_FPS, parse_size, render_scale_for, write_clip
+    from sim.model.scenario import load_scenario
+    from sim.run.trial import run_trial
+    from sim.media.video import DEFAULT_FPS, parse_size, render_scale_for, write_clip
 
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--size", default="960x540")

@@ -20,7 +20,7 @@ import numpy as np
 
 def bare_engine_rtf(device, *, step_s: float, seconds: float) -> float:
     """Real-time factor of the bare pybullet loop for `device` at `step_s` over `seconds`."""
-    from sim.engine import EngineModel
+    from sim.physics.engine import EngineModel
 
     engine = EngineModel(device, step_s=step_s, start_angle_rad=0.0)
     try:
@@ -66,7 +66,7 @@ def solve_ivp_rtf(device, *, seconds: float, start_angle_rad: float = 0.05) -> t
     """Real-time factor of LQR + solve_ivp between control updates; also the final state."""
     from scipy.integrate import solve_ivp
 
-    from sim.lqr_design import design_lqr
+    from sim.strategies.lqr_design import design_lqr
 
     period = 1.0 / device.control_rate_hz
     K = design_lqr(device).K_discrete

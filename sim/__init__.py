@@ -2,6 +2,9 @@
 
 Data flows one way: scenario file -> validated scenario (SI) -> mass properties ->
 engine model (pybullet, DIRECT) -> control loop -> trace -> metrics and verdicts -> files.
+
+The package is laid out in layers, bottom to top: core, strategies, model, physics, media, run,
+studies, fit, and cli.py on top; imports flow downward only (DEVELOPERS.md, "Package layout").
 """
 
 import os as _os

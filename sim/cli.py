@@ -9,8 +9,8 @@ from typing import List, Optional
 
 import typer
 
-from .errors import WheelbenchError
-from .safety import SAFETY_LINE as SAFETY
+from .core.errors import WheelbenchError
+from .core.safety import SAFETY_LINE as SAFETY
 
 app = typer.Typer(add_completion=False, pretty_exceptions_enable=False, no_args_is_help=True,
                   help="Design checks for reaction-wheel balancing devices.")
@@ -23,7 +23,7 @@ SetOpt = typer.Option(None, "--set", help="Override a scenario value: key.path=v
 def _check_seed(value: Optional[int]) -> Optional[int]:
     """Reject a seed numpy cannot take, as one line naming the option (not a traceback)."""
     if value is not None and not 0 <= value < 2**63:
-        from .errors import InputError
+        from .core.errors import InputError
         raise InputError(f"--seed {value}: expected a whole number from 0 to 2^63 - 1 (as trial.seed)")
     return value
 
@@ -33,7 +33,7 @@ SeedOpt = typer.Option(None, "--seed", callback=_check_seed,
 
 
 def _load(scenario: Optional[Path], overrides: Optional[List[str]]):
-    from .scenario import load_scenario
+    from .model.scenario import load_scenario
     sc = load_scenario(scenario, overrides=tuple(overrides or ()))
     _announce_plugins(sc)
     return sc
@@ -83,10 +83,10 @@ def run(scenario: Optional[Path] = ScenarioArg,
                                                           "(and replace an existing --video file)."),
         video: Optional[Path] = VideoOpt, fps: int = FpsOpt, size: str = SizeOpt, camera: str = CameraOpt):
     """Simulate one trial; write metrics.json, trace.csv and summary.png (and a clip with --video)."""
-    from .options import check_clip_frames
-    from .outputs import check_out_path
-    from .runfiles import run_to_folder
-    from .video import clip_options, write_clip
+    from .core.options import check_clip_frames
+    from .core.outputs import check_out_path
+    from .run.runfiles import run_to_folder
+    from .media.video import clip_options, write_clip
     check_out_path(out)
     sc = _load(scenario, set_)
     clip = clip_options(video, fps=fps, size=size, camera=camera, force=force) if video else None
@@ -113,8 +113,9 @@ def compare(first: Optional[Path] = typer.Argument(None, help="First scenario (d
             seed: Optional[int] = SeedOpt, fps: int = FpsOpt, size: str = SizeOpt, camera: str = CameraOpt,
             force: bool = typer.Option(False, "--force", help="Replace an existing --video file.")):
     """Run two trials (two scenarios, or one with different --set-b) and write them side by side in one clip."""
-    from .options import check_clip_frames, check_labels
-    from .video import clip_options, compare_to_clip
+    from .core.options import check_clip_frames, check_labels
+    from .media.video import clip_options
+    from .run.runfiles import compare_to_clip
     check_labels(label)
     scenarios = [_load(first, [*(set_ or ()), *(set_a or ())]),
                  _load(second if second is not None else first, [*(set_ or ()), *(set_b or ())])]
@@ -132,8 +133,8 @@ def compare(first: Optional[Path] = typer.Argument(None, help="First scenario (d
 def validate(scenario: Path = typer.Argument(..., help="Scenario YAML file."),
              set_: Optional[List[str]] = SetOpt):
     """Check a scenario file and print its derived device figures and the strategy parameters in use."""
-    from .device import Device
-    from .device_figures import figures_text
+    from .model.device import Device
+    from .model.device_figures import figures_text
     sc = _load(scenario, set_)
     d = Device.from_scenario(sc)
     typer.echo(f"{scenario}: valid.")
@@ -147,8 +148,8 @@ def gains(scenario: Optional[Path] = ScenarioArg,
                                                                "or text (for reading)."),
           set_: Optional[List[str]] = SetOpt):
     """Print the balance law's gains (LQR or PID) for firmware, with model-based starting values (stdout)."""
-    from .errors import InputError
-    from .gains import gains_report, to_c_header, to_json, to_text
+    from .core.errors import InputError
+    from .studies.gains import gains_report, to_c_header, to_json, to_text
     writers = {"json": to_json, "c": to_c_header, "text": to_text}
     if format_ not in writers:
         raise InputError(f"--format: expected 'json', 'c' or 'text', found {format_!r}")
@@ -163,11 +164,11 @@ def fit(log: Path = typer.Argument(..., help="CSV bench log with units in the he
         out: Path = typer.Option(Path("runs/fit"), "--out", help="Output folder."),
         force: bool = typer.Option(False, "--force", help="Write into a non-empty folder not made by wheelbench.")):
     """Fit model parameters to a bench log; write fit.json, fit.png, patch.yaml."""
-    from .errors import InputError
-    from .fit_files import write_fit_outputs
-    from .fitting import TESTS, fit_log
-    from .logs import read_log
-    from .outputs import check_out_path
+    from .core.errors import InputError
+    from .fit.fit_files import write_fit_outputs
+    from .fit.bench_tests import TESTS, fit_log
+    from .fit.logs import read_log
+    from .core.outputs import check_out_path
     if test not in TESTS:
         raise InputError(f"--test: unknown test {test!r}; known: {', '.join(TESTS)}")
     check_out_path(out)
@@ -195,7 +196,7 @@ def apply(scenario: Path = typer.Argument(..., help="Scenario YAML file to patch
     Without --out or --in-place the patched scenario is printed. The result is validated before
     anything is written, and written atomically.
     """
-    from .scenario_edit import apply_command
+    from .model.scenario_edit import apply_command
     result, written = apply_command(scenario, list(patches), out=out, in_place=in_place, force=force)
     if written is None:
         typer.echo(result.text, nl=False)
@@ -216,22 +217,22 @@ ForceOpt = typer.Option(False, "--force", help="Write into a non-empty folder no
 def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers: Optional[int] = None,
               cluster: Optional[str] = None):
     """The raw scenario mapping (re-validated per trial by check, sweep and catch-map), options checked first."""
-    from .errors import InputError
-    from .options import check_cluster, check_workers
-    from .scenario import load_raw
+    from .core.errors import InputError
+    from .core.options import check_cluster, check_workers
+    from .model.scenario import load_raw
     check_workers(workers)
     check_cluster(cluster)
     if workers is not None and cluster is not None:
         raise InputError("--workers and --cluster: give one (the cluster's scheduler decides its workers)")
     raw, where = load_raw(scenario, tuple(overrides or ()))
-    from .scenario import validate_loaded
+    from .model.scenario import validate_loaded
     _announce_plugins(validate_loaded(raw, where=where))  # bad input fails here, before an --out folder is made
     return raw, where
 
 
 def _progress(label: str):
-    """A progress bar (sim.progress) as an on_progress(done, total) callback, and the Progress to close."""
-    from .progress import progress_bar
+    """A progress bar (sim.core.progress) as an on_progress(done, total) callback, and the Progress to close."""
+    from .core.progress import progress_bar
     bar = progress_bar()
     task = bar.add_task(label, total=None)
     return bar, lambda done, total: bar.update(task, completed=done, total=total)
@@ -246,10 +247,10 @@ def check(scenario: Optional[Path] = ScenarioArg,
 
     Writes verdict.json, report.md and plots. Exit code 0 when every criterion passes, 1 when any fails.
     """
-    from .options import check_trials
-    from .outputs import check_out_path, prepare_out_dir
-    from .verdict_report import print_verdict, write_check_outputs
-    from .verdicts import DEFAULT_TRIALS, run_check
+    from .core.options import check_trials
+    from .core.outputs import check_out_path, prepare_out_dir
+    from .studies.verdict_report import print_verdict, write_check_outputs
+    from .studies.verdicts import DEFAULT_TRIALS, run_check
     check_trials(trials)
     check_out_path(out)
     raw, where = _load_raw(scenario, set_, workers, cluster)  # validated there
@@ -282,10 +283,10 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
           wait: bool = typer.Option(False, "--wait", help="If another command is writing into --out, wait for it "
                                                           "to finish instead of refusing.")):
     """Run a design grid; write results.csv and a line plot (one key) or heat map (two keys)."""
-    from .options import check_trials
-    from .outputs import check_out_path, prepare_out_dir
-    from .plots import save_figure
-    from .sweep import check_color, parse_vary, run_sweep, sweep_figure
+    from .core.options import check_trials
+    from .core.outputs import check_out_path, prepare_out_dir
+    from .media.plots import save_figure
+    from .studies.sweep import check_color, parse_vary, run_sweep, sweep_figure
     check_color(color)
     check_trials(trials, minimum=0)
     check_out_path(out)
@@ -323,12 +324,12 @@ def tune(scenario: Optional[Path] = ScenarioArg,
 
     Exit code 0 when a passing design was found, 1 when none passed (the closest is shown).
     """
-    from .errors import InputError
-    from .options import MAX_TRIALS, check_trials
-    from .outputs import check_out_path, prepare_out_dir
-    from .scenario import default_scenario_path
-    from .tune_outputs import run_tune
-    from .verdicts import DEFAULT_TRIALS
+    from .core.errors import InputError
+    from .core.options import MAX_TRIALS, check_trials
+    from .core.outputs import check_out_path, prepare_out_dir
+    from .model.scenario import default_scenario_path
+    from .studies.tune_outputs import run_tune
+    from .studies.verdicts import DEFAULT_TRIALS
     check_trials(trials)
     mc = DEFAULT_TRIALS if mc_trials is None else mc_trials
     if not 1 <= mc <= MAX_TRIALS:
@@ -357,9 +358,9 @@ def tune(scenario: Optional[Path] = ScenarioArg,
 
 def _tune_dry_check(raw, where, params, only, objective) -> None:
     """Bad --param and --objective values fail before an --out folder is made."""
-    from .device import Device
-    from .scenario import validate_scenario
-    from .tune import check_space, default_space, parse_objectives, parse_param, prefill
+    from .model.device import Device
+    from .model.scenario import validate_scenario
+    from .studies.tune import check_space, default_space, parse_objectives, parse_param, prefill
     sc = validate_scenario(raw, where=where)
     parse_objectives(objective, sc)
     given = [parse_param(t) for t in params]
@@ -372,7 +373,7 @@ def _print_tune(outcome, out_dir: Path) -> None:
     from rich.console import Console
     from rich.markup import escape
 
-    from .tune import OBJECTIVES, failed_criteria
+    from .studies.tune import OBJECTIVES, failed_criteria
     console = Console()
     obj = outcome.objectives[0]
     unit = OBJECTIVES[obj][2]
@@ -409,10 +410,10 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
                   workers: Optional[int] = WorkersOpt, cluster: Optional[str] = ClusterOpt,
                   set_: Optional[List[str]] = SetOpt, force: bool = ForceOpt):
     """Map which start states (angle, body rate) the balance law catches; catch_map.csv and .png."""
-    from .catchmap import catch_map, write_catch_map
-    from .errors import InputError
-    from .outputs import check_out_path, prepare_out_dir
-    from .units import parse_quantity
+    from .studies.catchmap import catch_map, write_catch_map
+    from .core.errors import InputError
+    from .core.outputs import check_out_path, prepare_out_dir
+    from .core.units import parse_quantity
     check_out_path(out)
     raw, where = _load_raw(scenario, set_, workers, cluster)
     limits = []
@@ -421,7 +422,7 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
             limits.append(None if text is None else abs(parse_quantity(text, kind)))
         except ValueError as exc:
             raise InputError(f"{name}: {exc}") from None
-    from .catchmap import check_map_options
+    from .studies.catchmap import check_map_options
     check_map_options(grid=grid, angle_max=limits[0], rate_max=limits[1])
     out_dir = prepare_out_dir(out, force=force)
     bar, update = _progress("catch map")
@@ -477,7 +478,7 @@ def _fmt(value, unit: str) -> str:
 
 def main(argv: Optional[list[str]] = None) -> int:
     """Entry point: our errors become one line on stderr and exit code 2."""
-    from .outputs import forget_fresh_dirs, release_locks
+    from .core.outputs import forget_fresh_dirs, release_locks
     from .strategies import ALLOW_OUTSIDE_ENV
     forget_fresh_dirs()  # only folders made by this command may be removed on its error
     _ANNOUNCED.clear()
@@ -494,12 +495,12 @@ def main(argv: Optional[list[str]] = None) -> int:
 
 
 def _main(argv: Optional[list[str]]) -> int:
-    from .outputs import fault_message
+    from .core.outputs import fault_message
     try:
         code = app(args=argv, standalone_mode=False)
     except WheelbenchError as exc:
         print(f"wheelbench: {exc}", file=sys.stderr)
-        from .outputs import remove_fresh_dirs
+        from .core.outputs import remove_fresh_dirs
         remove_fresh_dirs()  # an --out folder made before the error was found: nothing written
         return 2
     except KeyboardInterrupt:

@@ -1,6 +1,6 @@
 """Shared fixtures: a small test device built here, independent of the demo scenarios.
 
-The demo files in `scenarios/` and `sim/data/` are retuned by others; tests build their own
+The demo files in `scenarios/` and `sim/model/data/` are retuned by others; tests build their own
 mapping with `scenario_dict(...)` and validate it with `make_scenario(...)`. All numbers below
 are invented for tests (not a real device).
 """
@@ -13,7 +13,7 @@ from pathlib import Path
 import pytest
 import yaml
 
-from sim.overrides import deep_merge
+from sim.model.overrides import deep_merge
 
 
 def base_scenario() -> dict:
@@ -60,7 +60,7 @@ def scenario_dict(**sections) -> dict:
 
 def make_scenario(**sections):
     """A validated `Scenario` from the test mapping with `sections` merged in."""
-    from sim.scenario import validate_scenario
+    from sim.model.scenario import validate_scenario
 
     return validate_scenario(scenario_dict(**sections), where="<test scenario>")
 
@@ -82,7 +82,7 @@ def firmware_cache(tmp_path_factory):
     """Firmware builds of the test session go to a temporary cache folder, never the user's."""
     import os
 
-    from sim.firmware.build import CACHE_ENV
+    from sim.strategies.firmware.build import CACHE_ENV
     folder = tmp_path_factory.mktemp("firmware-cache")
     before = os.environ.get(CACHE_ENV)
     os.environ[CACHE_ENV] = str(folder)

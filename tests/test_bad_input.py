@@ -142,7 +142,7 @@ KEY_CASES = {
     "too_many_parts": ({"body": {"parts": [{"shape": "point", "mass": 0.001, "at": 0.1} for _ in range(201)]}},
                        ["body.parts"]),
     "long_unit_string": ({"drive": {"supply": "1" * 300 + " V"}}, ["drive.supply", "characters"]),
-    # issue 13 part 4: what would crash a run is refused at load (bounds: sim/scenario.py docstring)
+    # issue 13 part 4: what would crash a run is refused at load (bounds: sim/model/scenario.py docstring)
     "huge_wheel_distance": ({"wheel": {"at": 1e300}}, ["wheel.at", "less than or equal to 100"]),
     "huge_rate_noise": ({"sensors": {"rate_gyro": {"noise": 1e308}}}, ["sensors.rate_gyro.noise", "less than or equal"]),
     "huge_start_speed": ({"trial": {"start": {"wheel_speed": 1e300}}}, ["trial.start.wheel_speed", "less than"]),
@@ -369,13 +369,13 @@ def test_bad_option(capsys, tmp_path, scenario_file, case):
 @pytest.fixture
 def no_simulation(monkeypatch):
     """Any trial started fails the test at once: the options must be refused before."""
-    import sim.runfiles
-    import sim.trial
-    import sim.verdicts
+    import sim.run.runfiles
+    import sim.run.trial
+    import sim.studies.verdicts
 
     def boom(*args, **kwargs):
         raise AssertionError("a trial was simulated before the options were checked")
-    for module in (sim.trial, sim.runfiles, sim.verdicts):
+    for module in (sim.run.trial, sim.run.runfiles, sim.studies.verdicts):
         monkeypatch.setattr(module, "run_trial", boom)
 
 

@@ -5,9 +5,9 @@ import math
 
 import numpy as np
 
-from sim.catchmap import balance_only_raw, catch_map
 from sim.cli import main
-from sim.scenario import validate_scenario
+from sim.model.scenario import validate_scenario
+from sim.studies.catchmap import balance_only_raw, catch_map
 from test_verdicts import fast_raw, write_scenario
 
 

@@ -1,4 +1,4 @@
-"""Causes of failed trials (sim.causes): one constructed trial of each kind gets its cause, and the
+"""Causes of failed trials (sim.run.causes): one constructed trial of each kind gets its cause, and the
 cause shows where the brief says (metrics.json, the run table, check's report, sweep's
 fail_reasons, the clip's last frames).
 
@@ -15,10 +15,10 @@ import pytest
 from numpy.testing import assert_allclose
 
 from conftest import make_scenario
-from sim.causes import CAUSES, find_cause
-from sim.metrics import trial_metrics
-from sim.overlay import WARN, Dashboard, readout
-from sim.trial import run_trial
+from sim.media.overlay import WARN, Dashboard, readout
+from sim.run.causes import CAUSES, find_cause
+from sim.run.metrics import trial_metrics
+from sim.run.trial import run_trial
 from trial_cases import BIG_WHEEL, NO_LOAD_RAD_S, bias_pid, plugin_scenario
 
 
@@ -53,7 +53,7 @@ CASES = {
     """, "NeverCatches", trial={"duration": 0.5, "start": {"angle": "90 deg", "rate": 12.0}}),
     "start_outside_release": lambda tmp: make_scenario(strategy={"kind": "lqr"},
                                                        trial={"duration": 0.3, "start": {"angle": "40 deg"}}),
-    # 2e4 rad/s is past the runner's 1e4 rad/s "absurd" bound (sim.trial.ABSURD_RATE_RAD_S)
+    # 2e4 rad/s is past the runner's 1e4 rad/s "absurd" bound (sim.run.trial.ABSURD_RATE_RAD_S)
     "diverged": lambda tmp: make_scenario(trial={"duration": 0.2, "start": {"rate": 2e4}}),
     "strategy_failed": lambda tmp: plugin_scenario(tmp, """
     class Raises(Base):
@@ -116,14 +116,14 @@ def test_cause_is_in_the_run_table_and_metrics_json(tmp_path, capsys):
 
 
 def test_cause_is_in_the_sweeps_fail_reasons(tmp_path):
-    from sim.verdicts import judge_trial
+    from sim.studies.verdicts import judge_trial
 
     row = judge_trial(CASES["voltage_at_supply"](tmp_path), seed=1)
     assert "fell (voltage_at_supply)" in row["fail_reasons"].split(";")
 
 
 def test_cause_is_in_the_check_report(tmp_path):
-    from sim.verdict_report import failed_runs, run_causes_markdown
+    from sim.studies.verdict_report import failed_runs, run_causes_markdown
 
     m = trial_metrics(run_trial(CASES["gains_too_weak"](tmp_path)))
     v = {"runs": {"nominal": {k: m[k] for k in ("outcome", "cause", "cause_detail")}}}

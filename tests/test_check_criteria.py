@@ -1,4 +1,4 @@
-"""Every `check` criterion, through the real battery (`sim.verdicts.run_check`), with a design that
+"""Every `check` criterion, through the real battery (`sim.studies.verdicts.run_check`), with a design that
 must pass it and one that must fail it: a criterion that silently always passes (or always fails,
 or compares the wrong way) shows here.
 
@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from sim.verdicts import run_check
+from sim.studies.verdicts import run_check
 from test_verdicts import fast_raw
 
 SWING = {"kind": "swing_and_catch", "swing_up": {"kind": "energy"}, "balance": {"kind": "lqr"},
@@ -155,11 +155,11 @@ def test_headrooms_and_monte_carlo_fraction_on_a_bench_design_with_known_values(
     #   mean, (V/R) exp(-t_k/tau) (tau/dt) (1 - exp(-dt/tau)); p99 by numpy.percentile. rtol 1e-6.
     # - Monte Carlo over drive.supply +-40% (uniform): a trial passes when the wheel-speed margin
     #   1 - w_peak k_e / S >= 0.4; the wheel reaches V/k_e (1 - 2.3e-4) in 2 s, so the draws with
-    #   S >= 6 V / 0.6 = 10 V pass, and those below fail (none lies within 5 mV of 10 V). Draws from sim.verdicts.monte_carlo (the check's own), the
+    #   S >= 6 V / 0.6 = 10 V pass, and those below fail (none lies within 5 mV of 10 V). Draws from sim.studies.verdicts.monte_carlo (the check's own), the
     #   fraction counted here from them; the check's criterion must report it.
     from conftest import scenario_dict
-    from sim.verdicts import monte_carlo
-    from sim.scenario import validate_scenario
+    from sim.studies.verdicts import monte_carlo
+    from sim.model.scenario import validate_scenario
 
     raw = scenario_dict(world={"step": 0.002}, body={"locked": True}, strategy={"kind": "fixed_voltage", "volts": 6.0},
                         trial={"duration": 2.0}, tolerances={"drive.supply": "40%"},

@@ -283,8 +283,8 @@ def test_summary_plot_drawn_beside_the_csv_matches_one_drawn_here(tmp_path, monk
     fails leaves the drawing to this process."""
     import os
 
-    import sim.runfiles as runfiles
-    from sim.scenario import load_scenario
+    import sim.run.runfiles as runfiles
+    from sim.model.scenario import load_scenario
 
     sc = load_scenario(None, overrides=["trial.duration=1", "trial.pushes=[]"])
     runfiles.run_to_folder(sc, tmp_path / "forked")

@@ -13,8 +13,8 @@ import pytest
 
 from conftest import make_scenario, scenario_dict, write_scenario
 from sim.cli import app, main
-from sim.metrics import trial_metrics
-from sim.trial import run_trial
+from sim.run.metrics import trial_metrics
+from sim.run.trial import run_trial
 
 NOISY = dict(
     strategy={"kind": "lqr"},
@@ -91,7 +91,7 @@ def test_sweep_is_the_same_on_one_and_two_workers(tmp_path, capsys):
 @pytest.mark.slow
 @pytest.mark.skipif("catch-map" not in COMMANDS, reason="no catch-map command yet")
 def test_catch_map_is_the_same_on_one_and_two_workers(tmp_path, capsys):
-    # 8 x 8: enough cells that two workers get them two per round trip (sim.catchmap batches)
+    # 8 x 8: enough cells that two workers get them two per round trip (sim.studies.catchmap batches)
     a, b = _on_one_and_two_workers(tmp_path, capsys, {"pushes": []}, ["catch-map", "--grid", "8"], "catch_map.csv")
     assert a == b and a.count("\n") == 65
 

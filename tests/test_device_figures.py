@@ -1,4 +1,4 @@
-"""`validate`'s derived figures (sim/device_figures.py) against hand formulas on a device of our own."""
+"""`validate`'s derived figures (sim/model/device_figures.py) against hand formulas on a device of our own."""
 
 from __future__ import annotations
 
@@ -7,9 +7,9 @@ import math
 from numpy.testing import assert_allclose
 
 from sim.cli import main
-from sim.device import Device
-from sim.device_figures import device_figures
-from sim.scenario import load_scenario
+from sim.model.device import Device
+from sim.model.device_figures import device_figures
+from sim.model.scenario import load_scenario
 from tests.conftest import scenario_dict, write_scenario
 
 

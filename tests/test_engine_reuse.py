@@ -6,9 +6,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from sim import engine as engine_mod
-from sim.scenario import load_raw, validate_scenario
-from sim.trial import run_trial
+from sim.model.scenario import load_raw, validate_scenario
+from sim.physics import engine as engine_mod
+from sim.run.trial import run_trial
 from tests.conftest import make_scenario
 
 
@@ -72,7 +72,7 @@ def test_same_device_is_reused_and_another_is_rebuilt():
 def test_positional_torque_command_matches_the_keyword_form(locked):
     """The engine sends torques with every argument positional (targets and gains filled in, ignored
     in torque mode); the states must be exactly those of pybullet's documented keyword form."""
-    from sim.device import Device
+    from sim.model.device import Device
 
     sc = make_scenario(body={"locked": locked, "pivot_friction": {"coulomb": 0.002, "viscous": 1e-4}},
                        wheel={"bearing_friction": {"coulomb": 0.001}})

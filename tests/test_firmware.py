@@ -1,4 +1,4 @@
-"""Firmware in the loop (sim.firmware): C code compiled against wheelbench.h, run as a strategy.
+"""Firmware in the loop (sim.strategies.firmware): C code compiled against wheelbench.h, run as a strategy.
 
 The bundled example (scenarios/firmware/balance_q16.c) is checked against the Python `lqr` trial of
 the same scenario; the other firmwares are written by the tests into a temporary folder. Builds go
@@ -17,14 +17,14 @@ import numpy as np
 import pytest
 import yaml
 
-from sim import isolation
 from sim.cli import main
-from sim.device import Device
-from sim.firmware import build as fw_build
-from sim.lqr_design import design_lqr
-from sim.scenario import load_scenario
+from sim.core import isolation
+from sim.model.device import Device
+from sim.model.scenario import load_scenario
+from sim.run.trial import run_trial
 from sim.strategies.base import Reading
-from sim.trial import run_trial
+from sim.strategies.firmware import build as fw_build
+from sim.strategies.lqr_design import design_lqr
 
 pytestmark = pytest.mark.skipif(shutil.which("cc") is None and shutil.which("gcc") is None,
                                 reason="needs a C compiler (.ci/run installs one)")
@@ -61,7 +61,7 @@ def folded_gains(device) -> tuple[np.ndarray, np.ndarray]:
     """(g_x, g_u): K times the delay predictor, on the reading and on the held commands (oldest
     first), as the example's wb_init folds them: g_x = K Ad^n Phi_f, g_u = [K Ad^n Gam_f,
     K Ad^(n-1-i) Bd for i < n] (the predictor in the gains header's comment)."""
-    from sim.lqr_design import DelayPredictor
+    from sim.strategies.lqr_design import DelayPredictor
     des = design_lqr(device)
     pred = DelayPredictor(des, delay_s=device.delay_s)
     K, n = des.K_discrete, pred.n
@@ -150,7 +150,7 @@ def test_example_law_matches_python_lqr_tick_by_tick(tmp_path, drive):
         reading.t_s = k * fw.world.step
         reading.angle_rad, reading.rate_rad_s = float(trace.meas_angle[k]), float(trace.meas_rate[k])
         reading.wheel_speed_rad_s = float(trace.meas_wheel[k])
-        # what the drive applies: each law's command clamped to the supply (sim/trial.py)
+        # what the drive applies: each law's command clamped to the supply (sim/run/trial.py)
         volts.append([min(max(law.command(reading), -fw.drive.supply), fw.drive.supply) for law in laws])
     volts = np.array(volts)
     bound = fixed_point_bound_v(device, x_max=readings_max(trace), u_max=device.supply_v)

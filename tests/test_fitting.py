@@ -18,12 +18,12 @@ import yaml
 from numpy.testing import assert_allclose
 from scipy.integrate import quad, solve_ivp
 
-from sim.device import Device
-from sim.errors import InputError
-from sim.fit_swing import (coulomb_loss_per_cycle, damping_ratio_from_decrement, decrement_from_damping_ratio,
-                           log_decrement, period_ratio, swing_speed_integral)
-from sim.fitting import fit_log
-from sim.logs import BenchLog, read_log
+from sim.core.errors import InputError
+from sim.model.device import Device
+from sim.fit.fit_swing import (coulomb_loss_per_cycle, damping_ratio_from_decrement, decrement_from_damping_ratio,
+                               log_decrement, period_ratio, swing_speed_integral)
+from sim.fit.bench_tests import fit_log
+from sim.fit.logs import BenchLog, read_log
 
 from conftest import make_scenario, scenario_dict, write_scenario
 
@@ -356,8 +356,8 @@ def test_wrong_logs_raise_clear_errors():
 # ----------------------------------------------------------------------------- engine round trips
 
 def _engine_log(tmp_path, sc):
-    from sim.trace import write_csv
-    from sim.trial import run_trial
+    from sim.run.trace import write_csv
+    from sim.run.trial import run_trial
 
     result = run_trial(sc)
     path = tmp_path / "trace.csv"
@@ -378,7 +378,7 @@ def test_round_trip_engine_coast_down(tmp_path):
 def test_round_trip_engine_spin_up(tmp_path, current_limit, correction):
     # with a 1.5 A limit the drive holds the current flat for the first ~0.3 s; the fit must leave that
     # out. A wheel.inertia_correction must reach the engine and come back from the fit.
-    # an ideal motor (k_t = k_e): one spin-up fixes only k_t / I_w, and the fit takes k_t = k_e (sim.fit_wheel)
+    # an ideal motor (k_t = k_e): one spin-up fixes only k_t / I_w, and the fit takes k_t = k_e (sim.fit.fit_wheel)
     motor = {"torque_constant": None} | ({"current_limit": current_limit} if current_limit else {})
     sc = make_scenario(body={"locked": True}, wheel={"bearing_friction": {"coulomb": 3e-4, "viscous": 1e-6},
                                                      "inertia_correction": correction},
@@ -388,7 +388,7 @@ def test_round_trip_engine_spin_up(tmp_path, current_limit, correction):
     assert ("current_limited_s" in res.facts) == bool(current_limit)
     assert_allclose(res.patch["wheel"]["inertia_correction"], correction, atol=5e-3 * dev.I_w_kg_m2)
     assert_allclose(res.value("back_emf_constant_v_s_per_rad"), dev.k_e_v_s_rad, rtol=1e-4)
-    # a trace row holds the speed at the step's start but the current over the step (sim/motor.py, sim/trace.py),
+    # a trace row holds the speed at the step's start but the current over the step (sim/physics/motor.py, sim/run/trace.py),
     # so V = R i + k_e w reads R (1 + dt / (2 tau)): 0.2% here, inside the 0.5% allowed
     assert_allclose(res.value("resistance_ohm"), dev.resistance_ohm, rtol=5e-3)
     assert_allclose(res.value("wheel_spin_inertia_kg_m2"), dev.I_w_kg_m2, rtol=5e-3)
@@ -427,7 +427,7 @@ def test_round_trip_engine_free_swing_sees_inertia_correction(tmp_path):
 
 
 def test_inertia_corrections_reach_the_device_and_are_checked():
-    from sim.errors import ScenarioError
+    from sim.core.errors import ScenarioError
 
     base = Device.from_scenario(make_scenario())
     dev = Device.from_scenario(make_scenario(body={"inertia_correction": 1e-3}, wheel={"inertia_correction": -2e-5}))
@@ -450,7 +450,7 @@ def _save(path, log: BenchLog) -> str:
 
 def test_cli_free_swing_writes_files_and_merged_scenario(tmp_path, capsys):
     from sim.cli import main
-    from sim.scenario import load_scenario
+    from sim.model.scenario import load_scenario
 
     sc, dev = pendulum_scenario()
     mgd = dev.mbar_kg_m * dev.gravity_m_s2
@@ -465,7 +465,7 @@ def test_cli_free_swing_writes_files_and_merged_scenario(tmp_path, capsys):
     assert report["fitted"]["damping_ratio"]["sigma"] > 0
     # the figure draws the log (muted dots), the fitted model (accent line) and the residuals (ink)
     from pictures import pixels_near
-    from sim.plots import ACCENT, INK, MUTED
+    from sim.media.plots import ACCENT, INK, MUTED
     for colour in (MUTED, ACCENT, INK):
         assert pixels_near(out / "fit.png", colour, tol=10 / 255) > 200, colour
     patch = yaml.safe_load((out / "patch.yaml").read_text())
@@ -500,7 +500,7 @@ def test_cli_reads_rpm_and_milliseconds(tmp_path):
 
 def test_cli_spin_up_patch_replaces_speed_constant(tmp_path):
     from sim.cli import main
-    from sim.scenario import load_scenario
+    from sim.model.scenario import load_scenario
 
     csv = _save(tmp_path / "spin.csv", spin_up_log())
     scen = write_scenario(tmp_path / "bench.yaml", scenario_dict(body={"locked": True}))

@@ -13,9 +13,9 @@ import pytest
 from numpy.testing import assert_allclose
 
 from sim.cli import main
-from sim.device import Device
-from sim.lqr_design import design_lqr
-from sim.scenario import load_scenario
+from sim.model.device import Device
+from sim.model.scenario import load_scenario
+from sim.strategies.lqr_design import design_lqr
 from tests.conftest import scenario_dict, write_scenario
 
 
@@ -128,7 +128,7 @@ def _readings(n: int, seed: int) -> np.ndarray:
 def test_c_reference_function_gives_the_python_laws_voltages(tmp_path, capsys, strategy, sensors):
     """The header's wb_balance_volts, compiled by the system C compiler, gives the voltages the
     simulator's law gives on the same readings, to 1e-6 V (double arithmetic on both sides)."""
-    from sim.gains import balance_spec
+    from sim.studies.gains import balance_spec
     from sim.strategies.base import Reading
 
     path = write_scenario(tmp_path / "s.yaml", scenario_dict(strategy=strategy, sensors={"rate": 500, **sensors}))
@@ -143,7 +143,7 @@ def test_c_reference_function_gives_the_python_laws_voltages(tmp_path, capsys, s
     got, want = [], []
     for i, (a, r, w) in enumerate(_readings(1500, seed=3)):
         reading.t_s, reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = i * 0.002, a, r, w
-        # what the drive applies: the law's command clamped to the supply (sim/trial.py)
+        # what the drive applies: the law's command clamped to the supply (sim/run/trial.py)
         want.append(min(max(law.command(reading), -sc.drive.supply), sc.drive.supply))
         got.append(lib.ref_volts(a, r, w))
     want = np.array(want)

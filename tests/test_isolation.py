@@ -1,4 +1,4 @@
-"""Plug-in trials in a forked child (sim.isolation): stuck or crashing strategy code is an outcome.
+"""Plug-in trials in a forked child (sim.core.isolation): stuck or crashing strategy code is an outcome.
 
 The misbehaving plug-ins are in tests/plugins/stuck_laws.py. Each holds 0 V until 0.02 s, like
 simple_laws.RaisesLater, so the rows before the failure can be compared with an in-process failure
@@ -23,13 +23,13 @@ import numpy as np
 import pytest
 
 from conftest import make_scenario, scenario_dict, write_scenario
-import sim.trial
-from sim import isolation
+import sim.run.trial
 from sim.cli import main
-from sim.metrics import trial_metrics
-from sim.trace import write_csv
-from sim.trial import run_trial
-from sim.verdicts import EarlyStop, run_until_clear
+from sim.core import isolation
+from sim.run.metrics import trial_metrics
+from sim.run.trace import write_csv
+from sim.run.trial import run_trial
+from sim.studies.verdicts import EarlyStop, run_until_clear
 
 pytestmark = pytest.mark.skipif(not isolation.AVAILABLE or not sys.platform.startswith("linux"),
                                 reason="process isolation needs fork; the stuck plug-ins need Linux's libc")
@@ -77,7 +77,7 @@ def assert_same_rows(a, b) -> None:
 def short_budget(monkeypatch):
     """A 0.3 s strategy budget and a 0.2 s grace for runs started through the CLI (the forked
     children inherit both), so a stuck plug-in costs half a second instead of a minute."""
-    monkeypatch.setattr(sim.trial, "STRATEGY_BUDGET_S", 0.3)
+    monkeypatch.setattr(sim.run.trial, "STRATEGY_BUDGET_S", 0.3)
     monkeypatch.setattr(isolation, "GRACE_S", 0.2)
 
 
@@ -162,7 +162,7 @@ def test_isolation_is_chosen_for_plugins_only(monkeypatch):
 
 
 def test_an_on_step_hook_raising_comes_back_with_what_the_hook_saw():
-    # sim.verdicts' early stop raises an exception whose __init__ takes other arguments than its
+    # sim.studies.verdicts' early stop raises an exception whose __init__ takes other arguments than its
     # args, and keeps a record (the peak wheel speed) that the caller reads afterwards
     sc = make_scenario(strategy={"plugin": f"{SIMPLE}:ProportionalDamping"},
                        trial={"duration": 3.0, "start": {"angle": 0.05}})

@@ -12,8 +12,8 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from sim.errors import InputError
-from sim.logs import normalise_header, read_log, resample_uniform
+from sim.core.errors import InputError
+from sim.fit.logs import normalise_header, read_log, resample_uniform
 
 
 def write_csv(path, header: list[str], rows) -> str:
@@ -174,7 +174,7 @@ def test_local_maxima_follow_their_definition_in_memory_proportional_to_the_samp
     index at a time), and traced memory a small multiple of the input, not samples x window."""
     import tracemalloc
 
-    from sim.fitting import local_maxima
+    from sim.fit.fitting import local_maxima
     rng = np.random.default_rng(3)
     for trial in range(300):
         n, h = int(rng.integers(1, 60)), int(rng.integers(1, 9))
@@ -217,9 +217,9 @@ def test_a_long_coast_down_fitted_to_bin_means_agrees_with_every_sample(monkeypa
     by scipy's solve_ivp from I_w w' = -b w - T_c (tests/test_fitting.coast_truth), the
     binned fit finds the same friction within its uncertainty, with about the same uncertainty
     (the mean of k samples has 1/sqrt(k) of their noise; common practice, no source)."""
-    import sim.fitting
-    from sim.fitting import fit_log
-    from sim.logs import BenchLog
+    import sim.fit.fitting
+    from sim.fit.bench_tests import fit_log
+    from sim.fit.logs import BenchLog
     from test_fitting import coast_truth
 
     rng = np.random.default_rng(11)
@@ -228,7 +228,7 @@ def test_a_long_coast_down_fitted_to_bin_means_agrees_with_every_sample(monkeypa
     log = BenchLog(path="coast.csv", t_s=t, columns={"wheel_speed_rad_s": w},
                    source_names={"wheel_speed_rad_s": "wheel_speed_rad_s"})
     every = fit_log(log, "coast-down")
-    monkeypatch.setattr(sim.fitting, "FIT_SAMPLES", 10_000)
+    monkeypatch.setattr(sim.fit.fitting, "FIT_SAMPLES", 10_000)
     binned = fit_log(log, "coast-down")
     assert binned.facts["fit_bin_samples"] == 6 and "fit_bin_samples" not in every.facts
     for key in ("viscous_decay_rate_1_s", "coulomb_deceleration_rad_s2", "start_speed_rad_s"):

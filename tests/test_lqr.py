@@ -10,8 +10,8 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from sim.device import Device
-from sim.lqr_design import DelayPredictor, bryson_weights, design_lqr
+from sim.model.device import Device
+from sim.strategies.lqr_design import DelayPredictor, bryson_weights, design_lqr
 from tests.conftest import make_scenario
 
 
@@ -86,8 +86,8 @@ def test_worked_discrete_example_from_references(monkeypatch):
     Ad = np.array([[0.8, 0.0], [0.8, 1.0]])
     Bd = np.array([[0.6], [0.6]])
     Q, R = np.diag([0.0, 1.0]), 1.0
-    import sim.lqr_design
-    monkeypatch.setattr(sim.lqr_design, "zoh_discretise", lambda *a: (Ad, Bd))
+    import sim.strategies.lqr_design
+    monkeypatch.setattr(sim.strategies.lqr_design, "zoh_discretise", lambda *a: (Ad, Bd))
     fake = SimpleNamespace(linear_model=lambda: (-np.eye(2), np.array([[1.0], [1.0]])), control_rate_hz=1.0,
                            supply_v=12.0, no_load_speed_rad_s=100.0)
     des = design_lqr(fake, weights=[0.0, 1.0], effort=R)

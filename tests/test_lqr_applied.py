@@ -2,7 +2,7 @@
 
 The references are built here from the published linear model (references.md, "Linear model":
 Spong, Corke & Lozano 2001; Astrom, Block & Spong 2007) with python-control's `c2d` (zero-order
-hold) and `dlqr`, never from `sim.lqr_design`: a strategy that applied the continuous-time gains
+hold) and `dlqr`, never from `sim.strategies.lqr_design`: a strategy that applied the continuous-time gains
 (4-7% off at 500 Hz) or a predictor that skipped whole periods of delay fails here.
 """
 
@@ -14,9 +14,9 @@ import pytest
 from numpy.testing import assert_allclose
 
 from conftest import make_scenario
-from sim.device import Device
+from sim.model.device import Device
+from sim.run.trial import run_trial
 from sim.strategies.base import Reading
-from sim.trial import run_trial
 from test_lqr import references_model as published_model   # references.md "Linear model", no friction
 
 GYRO = {"rate_gyro": {"noise": 0.0, "bias": 0.0}}
@@ -95,7 +95,7 @@ def test_delay_predictor_folded_into_the_law_matches_an_explicit_predictor(delay
         for u in sent[1:]:
             x = Ad @ x + Bd.ravel() * u
         expected = float(np.clip(-K @ x, -d.supply_v, d.supply_v))
-        # what the drive applies: the command clamped to the supply (sim/trial.py; the law itself
+        # what the drive applies: the command clamped to the supply (sim/run/trial.py; the law itself
         # returns its unclamped request and records the clamped one for its predictor)
         got = float(np.clip(strat.command(reading), -d.supply_v, d.supply_v))
         assert_allclose(got, expected, rtol=1e-7, atol=1e-9)

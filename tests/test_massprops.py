@@ -1,7 +1,7 @@
 """Mass properties of parts, the body and the wheel against handbook formulas.
 
 Handbook formulas: Meriam & Kraige, Engineering Mechanics: Dynamics, Appendix D ("Properties of
-homogeneous solids"); the same table appears in most dynamics texts. Part axes (sim.massprops):
+homogeneous solids"); the same table appears in most dynamics texts. Part axes (sim.model.massprops):
 x along the pivot axis, y across the body in the swing plane, z along the body axis.
 A few shapes are also checked by numerical integration over the solid (scipy), which shares
 nothing with either the handbook or the code.
@@ -17,9 +17,9 @@ from numpy.testing import assert_allclose
 from scipy import integrate
 
 from conftest import make_scenario
-from sim.device import Device
-from sim.massprops import body_props, part_inertia, part_mass, part_volume, wheel_props
-from sim.scenario import Part
+from sim.model.device import Device
+from sim.model.massprops import body_props, part_inertia, part_mass, part_volume, wheel_props
+from sim.model.scenario import Part
 
 RTOL = 1e-12  # closed forms evaluated in floating point: only rounding separates them
 
@@ -225,7 +225,7 @@ def _six_plates_inertia(L, w, t, e, rho):
     """(Ix, Iy, Iz) of a closed box of wall e built from six solid plates, each by the block formula
     about its own centre plus the parallel-axis term m d^2 (any dynamics text). The plates do not
     overlap: the two x faces are full w x L, the two y faces L x (t - 2e), the two z faces
-    (w - 2e) x (t - 2e). Independent of sim.massprops' outer-minus-inner construction."""
+    (w - 2e) x (t - 2e). Independent of sim.model.massprops' outer-minus-inner construction."""
     total = np.zeros(3)
     # (sizes along x, y, z of one plate; its centre offset along x, y, z)
     plates = [((e, w, L), ((t - e) / 2, 0, 0)), ((t - 2 * e, e, L), (0, (w - e) / 2, 0)),
@@ -243,7 +243,7 @@ def test_hollow_box_against_six_plates():
     p = part(shape="hollow_box", length=L, width=w, thickness=t, wall=e, material="aluminium")
     volume = L * w * t - (L - 2 * e) * (w - 2 * e) * (t - 2 * e)
     assert_allclose(part_volume(p), volume, rtol=RTOL)
-    assert_allclose(part_mass(p), rho * volume, rtol=RTOL)          # aluminium density from sim.materials [mem]
+    assert_allclose(part_mass(p), rho * volume, rtol=RTOL)          # aluminium density from sim.model.materials [mem]
     assert_allclose(part_inertia(p, part_mass(p)), _six_plates_inertia(L, w, t, e, rho), rtol=1e-10)
 
 

@@ -13,10 +13,10 @@ import pytest
 from numpy.testing import assert_allclose
 
 from sim.cli import main
-from sim.overlay import DIAL_SPAN, PANEL, TEXT, Dashboard, readout
-from sim.render import Scene
-from sim.trial import run_trial
-from sim.video import TrialPainter, clip_duration_s, frame_count, write_clip, write_side_by_side
+from sim.media.overlay import DIAL_SPAN, PANEL, TEXT, Dashboard, readout
+from sim.media.render import Scene
+from sim.media.video import TrialPainter, clip_duration_s, frame_count, write_clip, write_side_by_side
+from sim.run.trial import run_trial
 
 from conftest import make_scenario, scenario_dict, write_scenario
 
@@ -219,7 +219,7 @@ def test_gif_frames_reach_the_file_as_they_are_painted_and_decode_as_pillows_own
     given the same palette frames (the reference: Pillow, a general-purpose imaging library)."""
     from PIL import Image
 
-    from sim.video import _gif_palette, _Sink
+    from sim.media.video import _gif_palette, _Sink
     frames = _noisy_frames(6)
     path = tmp_path / "s.gif"
     sink = _Sink(path, fps=10)
@@ -249,7 +249,7 @@ def test_stale_clip_temporaries_beside_a_video_are_cleaned_by_the_next_clip(tmp_
     import subprocess
     import sys
 
-    from sim.outputs import register_temp
+    from sim.core.outputs import register_temp
     clips = tmp_path / "clips"
     clips.mkdir()
     dead = subprocess.Popen([sys.executable, "-c", "pass"])
@@ -270,7 +270,7 @@ def test_a_gif_frame_that_repeats_the_one_before_stays_a_frame(tmp_path):
     (duration x fps) and decodes to the same picture twice."""
     from PIL import Image
 
-    from sim.video import _Sink
+    from sim.media.video import _Sink
     frames = _noisy_frames(3)
     frames.insert(2, frames[1].copy())
     sink = _Sink(tmp_path / "r.gif", fps=25)

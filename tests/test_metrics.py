@@ -1,4 +1,4 @@
-"""Metrics of one trial (sim.metrics): totals up to the fall, the saturation count, caught_at_s for
+"""Metrics of one trial (sim.run.metrics): totals up to the fall, the saturation count, caught_at_s for
 a trial held from the start, and pushes judged over their recovery window. Devices as in
 trial_cases.py (invented)."""
 
@@ -11,8 +11,8 @@ import pytest
 from numpy.testing import assert_allclose
 
 from conftest import make_scenario
-from sim.metrics import PUSH_RECOVER_S, trial_metrics
-from sim.trial import run_trial
+from sim.run.metrics import PUSH_RECOVER_S, trial_metrics
+from sim.run.trial import run_trial
 from trial_cases import BIG_WHEEL, bias_pid, plugin_scenario
 
 

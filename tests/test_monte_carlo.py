@@ -9,7 +9,7 @@ import pytest
 from scipy.stats import binomtest
 
 from sim.cli import main
-from sim.tolerances import interval_note, wilson_interval
+from sim.model.tolerances import interval_note, wilson_interval
 
 from test_verdicts import fast_raw, write_scenario
 

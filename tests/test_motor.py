@@ -15,10 +15,10 @@ from numpy.testing import assert_allclose
 from scipy.integrate import solve_ivp
 
 from conftest import make_scenario
-from sim.device import Device
-from sim.metrics import trial_metrics
-from sim.motor import MotorDrive
-from sim.trial import run_trial
+from sim.model.device import Device
+from sim.physics.motor import MotorDrive
+from sim.run.metrics import trial_metrics
+from sim.run.trial import run_trial
 
 # 80 g disk of radius 50 mm: I_w = m r^2 / 2 = 1e-4 kg m^2 (the check value's J in references.md)
 WHEEL_1E4 = {"at": 0.2, "parts": [{"shape": "disk", "radius": 0.05, "thickness": 0.005, "mass": 0.08}]}
@@ -56,7 +56,7 @@ def test_locked_body_fixed_voltage_speed_and_time_constant(kt_factor):
     # than k_e changes tau_m but not the final speed.
     # Tolerances: final speed rtol 1e-4 after ~14 tau_m (exp(-14) = 8e-7); 63.2% time rtol 5e-3
     # (linear interpolation between 1 ms samples on the exponential is late by up to
-    # dt^2 / (8 tau_m^2) = 0.23% at tau_m = 7.3 ms); whole trace atol 1e-6 of V/k_e (sim.motor solves
+    # dt^2 / (8 tau_m^2) = 0.23% at tau_m = 7.3 ms); whole trace atol 1e-6 of V/k_e (sim.physics.motor solves
     # the motor and a locked wheel exactly over each step: observed ~1e-11).
     k_e = 60 / (2 * math.pi * 100)
     r = bench(torque_constant=kt_factor * k_e)

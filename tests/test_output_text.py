@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 import math
 
-from sim.outputs import clean_json, write_json
+from sim.core.outputs import clean_json, write_json
 
 
 def test_json_has_no_negative_zero_and_no_binary_noise_in_times(tmp_path):
@@ -23,7 +23,7 @@ def test_json_has_no_negative_zero_and_no_binary_noise_in_times(tmp_path):
 
 
 def test_check_table_keeps_every_criterion_name_whole_at_80_columns(monkeypatch, capsys, tmp_path):
-    from sim.verdict_report import print_verdict
+    from sim.studies.verdict_report import print_verdict
 
     monkeypatch.setenv("COLUMNS", "80")
     names = ["monte_carlo_pass_fraction", "wheel_burst_safety_factor", "max_push_survived_n_m_s",
@@ -42,7 +42,7 @@ def test_check_table_keeps_every_criterion_name_whole_at_80_columns(monkeypatch,
 def test_clip_bars_show_the_supply_as_given():
     from types import SimpleNamespace
 
-    from sim.overlay import bar_texts
+    from sim.media.overlay import bar_texts
 
     volts, amps = bar_texts(SimpleNamespace(voltage_v=-3.456, supply_v=11.1, current_a=0.5, current_limit_a=2.25))
     assert volts == "-3.46 V / 11.1 V" and amps == "+0.50 A / 2.25 A"

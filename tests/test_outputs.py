@@ -19,9 +19,9 @@ from pathlib import Path
 import pytest
 
 from conftest import scenario_dict, write_scenario
-from sim.errors import InputError
-from sim.outputs import (LOCK, MARKER, atomic_path, prepare_out_dir, register_temp, release_locks, remove_stale_temps,
-                         write_json, write_text)
+from sim.core.errors import InputError
+from sim.core.outputs import (LOCK, MARKER, atomic_path, prepare_out_dir, register_temp, release_locks, remove_stale_temps,
+                              write_json, write_text)
 
 TRACE_FIELDS = 13  # trace.csv columns (README "trace.csv")
 
@@ -250,7 +250,7 @@ def test_out_folder_that_cannot_take_files_is_refused_before_work(tmp_path):
 def test_disk_full_while_writing_is_one_line_and_keeps_the_old_file(tmp_path, monkeypatch):
     import errno
 
-    from sim.outputs import MachineFault
+    from sim.core.outputs import MachineFault
     target = tmp_path / "m.json"
     target.write_text("old\n")
 
@@ -288,10 +288,10 @@ def read_only_out(tmp_path):
 def test_read_only_out_folder_is_refused_before_simulating(read_only_out, scenario_file, capsys, monkeypatch,
                                                            tmp_path):
     """Issue 13 part 6: a folder that exists, is ours, and cannot take a file (EROFS)."""
-    import sim.runfiles
+    import sim.run.runfiles
     from sim.cli import main
 
-    monkeypatch.setattr(sim.runfiles, "run_trial", lambda *a, **k: pytest.fail("simulated before the check"))
+    monkeypatch.setattr(sim.run.runfiles, "run_trial", lambda *a, **k: pytest.fail("simulated before the check"))
     code = main(["run", str(scenario_file), "--out", str(read_only_out)])
     err = capsys.readouterr().err.strip().splitlines()
     assert code == 2 and len(err) == 1, err
@@ -310,7 +310,7 @@ def test_disk_faults_while_a_run_writes_are_one_line(tmp_path, scenario_file, ca
     saying what to do, exit 2, and metrics.json of an earlier run is kept whole."""
     import errno
 
-    import sim.runfiles
+    import sim.run.runfiles
     from sim.cli import main
     assert code_ == {28: errno.ENOSPC, 30: errno.EROFS, 13: errno.EACCES}[code_]   # Linux's numbers
     out = tmp_path / "out"
@@ -320,7 +320,7 @@ def test_disk_faults_while_a_run_writes_are_one_line(tmp_path, scenario_file, ca
     def fail(trace, path, *args, **kwargs):
         Path(path).write_text("part of a trace")
         raise OSError(code_, os.strerror(code_), str(path))
-    monkeypatch.setattr(sim.runfiles, "write_csv", fail)
+    monkeypatch.setattr(sim.run.runfiles, "write_csv", fail)
     capsys.readouterr()
     code = main(["run", str(scenario_file), "--out", str(out)])
     err = capsys.readouterr().err.strip().splitlines()

@@ -7,8 +7,8 @@ import os
 
 import pytest
 
-from sim.errors import InputError
-from sim.parallel import run_tasks
+from sim.core.errors import InputError
+from sim.run.parallel import run_tasks
 
 
 def square_and_pid(x: int) -> tuple[int, int]:

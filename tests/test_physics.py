@@ -1,6 +1,6 @@
 """The engine model against published mechanics, an independent scipy integration, and the sensors.
 
-Conventions (sim.scenario): angle 0 upright, +-pi hanging; wheel speed relative to the body;
+Conventions (sim.model.scenario): angle 0 upright, +-pi hanging; wheel speed relative to the body;
 positive voltage accelerates the wheel positively and turns the body negatively.
 References: ../shared/references.md (Spong, Corke & Lozano 2001; Astrom, Block & Spong 2007 for
 the reaction-wheel equations; the pendulum period with scipy.special.ellipk).
@@ -17,11 +17,12 @@ from scipy.integrate import solve_ivp
 from scipy.special import ellipk
 
 from conftest import make_scenario
-from sim.device import Device
-from sim.engine import EngineModel, wrap_angle, wrap_angles
-from sim.scenario import Sensors
-from sim.sensors import SensorSuite
-from sim.trial import run_trial
+from sim.core.angles import wrap_angle, wrap_angles
+from sim.model.device import Device
+from sim.model.scenario import Sensors
+from sim.physics.engine import EngineModel
+from sim.physics.sensors import SensorSuite
+from sim.run.trial import run_trial
 
 
 def zero_crossings(t: np.ndarray, x: np.ndarray) -> np.ndarray:
@@ -40,10 +41,10 @@ def swing(amplitude_deg: float, *, duration: float = 2.5):
 # ----------------------------------------------------------------------------- free swing
 
 def test_large_amplitude_factor_matches_reference_check_values():
-    # The project's period formula (sim.fit_swing.period_ratio, used by the free-swing fit) against
+    # The project's period formula (sim.fit.fit_swing.period_ratio, used by the free-swing fit) against
     # references.md, "Pendulum identification": T/T0 = (2/pi) K(m), m = sin^2(theta0/2); check values
     # [calc] 1.001907, 1.017409, 1.180341 (7 digits quoted: rtol 1e-6).
-    from sim.fit_swing import period_ratio
+    from sim.fit.fit_swing import period_ratio
 
     assert_allclose([period_ratio(math.radians(a)) for a in (10, 30, 90)], [1.001907, 1.017409, 1.180341], rtol=1e-6)
     # and against the period integral itself, T/T0 = (2/pi) int_0^(pi/2) dphi / sqrt(1 - k^2 sin^2 phi),
@@ -152,7 +153,7 @@ def test_push_gives_the_body_impulse_over_inertia():
 
 def test_engine_has_no_joint_speed_clamp_and_no_link_damping():
     # references.md, "pybullet facts": every joint is clamped to +-100 rad/s by default and links carry
-    # 0.04 linear/angular damping. Both are switched off in sim.engine: a frictionless wheel set to
+    # 0.04 linear/angular damping. Both are switched off in sim.physics.engine: a frictionless wheel set to
     # 500 rad/s in zero gravity must keep exactly that speed, and the body its rate
     # (angular momentum conservation, any mechanics text). Tolerance 1e-9 relative.
     sc = make_scenario(world={"gravity": 0})
@@ -331,7 +332,7 @@ def test_trial_trace_shows_the_delayed_readings():
 
 
 def test_rate_without_gyro_is_the_angle_difference_over_one_period():
-    # Backward difference of successive angle readings over one control period (sim.sensors
+    # Backward difference of successive angle readings over one control period (sim.physics.sensors
     # docstring); exact for a constant rate. 500 Hz at 1 ms steps: one reading every 2 steps.
     suite = _sensor_suite(n_ticks=20, rate=500)
     angle, rate, wa, ws = _history(40, rate=-1.5)

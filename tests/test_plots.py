@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from sim.plots import summary_figure
-from sim.trial import run_trial
+from sim.media.plots import summary_figure
+from sim.run.trial import run_trial
 from tests.conftest import make_scenario
 
 

@@ -13,10 +13,10 @@ import numpy as np
 import pytest
 
 from sim.cli import main
-from sim.errors import ScenarioError
-from sim.metrics import trial_metrics
-from sim.scenario import load_scenario
-from sim.trial import run_trial
+from sim.core.errors import ScenarioError
+from sim.model.scenario import load_scenario
+from sim.run.metrics import trial_metrics
+from sim.run.trial import run_trial
 from tests.conftest import scenario_dict, write_scenario
 
 PLUGIN_FILE = Path(__file__).parent / "plugins" / "simple_laws.py"
@@ -232,15 +232,15 @@ def test_extra_metrics_that_are_not_json_are_dropped_with_a_note(tmp_path, capsy
 
 
 def test_many_phase_names_are_bounded_and_the_bookkeeping_is_not_timed(tmp_path, monkeypatch):
-    import sim.trial
-    from sim.trace import MAX_PHASES, OVERFLOW_PHASE, Trace
+    import sim.core.budget
+    from sim.run.trace import MAX_PHASES, OVERFLOW_PHASE, Trace
 
     inside, seen = [False], []
-    enter, leave, abandon = sim.trial.StrategyClock.enter, sim.trial.StrategyClock.leave, sim.trial.StrategyClock.abandon
+    enter, leave, abandon = sim.core.budget.StrategyClock.enter, sim.core.budget.StrategyClock.leave, sim.core.budget.StrategyClock.abandon
     code = Trace.phase_code
-    monkeypatch.setattr(sim.trial.StrategyClock, "enter", lambda self, k=-1: (inside.__setitem__(0, True), enter(self, k))[1])
-    monkeypatch.setattr(sim.trial.StrategyClock, "leave", lambda self: (inside.__setitem__(0, False), leave(self))[1])
-    monkeypatch.setattr(sim.trial.StrategyClock, "abandon", lambda self: (inside.__setitem__(0, False), abandon(self))[1])
+    monkeypatch.setattr(sim.core.budget.StrategyClock, "enter", lambda self, k=-1: (inside.__setitem__(0, True), enter(self, k))[1])
+    monkeypatch.setattr(sim.core.budget.StrategyClock, "leave", lambda self: (inside.__setitem__(0, False), leave(self))[1])
+    monkeypatch.setattr(sim.core.budget.StrategyClock, "abandon", lambda self: (inside.__setitem__(0, False), abandon(self))[1])
     monkeypatch.setattr(Trace, "phase_code", lambda self, phase: (seen.append(inside[0]), code(self, phase))[1])
     # 2 s at the default 500 Hz control rate: 1,000 distinct names
     res = run_trial(load_scenario(_hostile(tmp_path, "ManyPhases", duration=2.0)), isolate=False)
@@ -253,7 +253,7 @@ def test_many_phase_names_are_bounded_and_the_bookkeeping_is_not_timed(tmp_path,
 
 
 def test_many_phase_names_in_an_isolated_trial(tmp_path, capsys):
-    from sim.trace import MAX_PHASES, OVERFLOW_PHASE
+    from sim.run.trace import MAX_PHASES, OVERFLOW_PHASE
     path = _hostile(tmp_path, "ManyPhases", duration=2.0)
     res = run_trial(load_scenario(path), isolate=True)
     assert res.outcome == "completed" and len(res.trace.phases) == MAX_PHASES + 1
@@ -282,17 +282,17 @@ def test_odd_phase_names_round_trip_through_the_csv(tmp_path, capsys):
 
 
 def test_a_full_temporary_folder_falls_back_for_the_shared_trace(tmp_path, monkeypatch):
-    import sim.trace
-    from sim.trace import Trace
+    import sim.run.trace
+    from sim.run.trace import Trace
 
     sc = load_scenario(_scenario_with(tmp_path, {"plugin": "simple_laws.py:ProportionalDamping"}))
     reference = run_trial(sc, isolate=False)
-    monkeypatch.setattr(sim.trace, "_file_backed", lambda n_bytes: None)   # no room in the temporary folder
+    monkeypatch.setattr(sim.run.trace, "_file_backed", lambda n_bytes: None)   # no room in the temporary folder
     shared = run_trial(sc, isolate=True)
     assert shared.trace.file_backed is False and shared.outcome == reference.outcome == "balanced"
     for name in Trace.FLOAT_COLUMNS:
         np.testing.assert_array_equal(shared.trace.view(name), reference.trace.view(name))  # exact: same run
-    monkeypatch.setattr(sim.trace, "_anonymous_shared", lambda n_bytes: None)  # and no shared memory either
+    monkeypatch.setattr(sim.run.trace, "_anonymous_shared", lambda n_bytes: None)  # and no shared memory either
     here = run_trial(sc, isolate=True)      # runs in this process instead
     assert here.outcome == "balanced" and here.strategy.calls == reference.strategy.calls
 

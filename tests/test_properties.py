@@ -15,10 +15,10 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
 from conftest import scenario_dict
-from sim.errors import InputError, ScenarioError
-from sim.overrides import apply_overrides, parse_assignment
-from sim.scenario import Scenario, parse_yaml_text, validate_scenario
-from sim.units import KINDS, parse_quantity
+from sim.core.errors import InputError, ScenarioError
+from sim.core.units import KINDS, parse_quantity
+from sim.model.overrides import apply_overrides, parse_assignment
+from sim.model.scenario import Scenario, parse_yaml_text, validate_scenario
 
 SETTINGS = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 
@@ -148,7 +148,7 @@ def test_set_parses_applies_and_loads_or_is_a_scenario_error(text):
               st.lists(st.one_of(unit_strings, st.text(max_size=6)), max_size=4)),
 ))
 def test_vary_parses_or_is_an_input_error(text):
-    sweep = pytest.importorskip("sim.sweep")
+    sweep = pytest.importorskip("sim.studies.sweep")
     try:
         vary = sweep.parse_vary(text)
     except InputError as exc:  # ScenarioError is an InputError
@@ -169,7 +169,7 @@ def test_vary_parses_or_is_an_input_error(text):
 
 
 @SETTINGS
-@given(unit=st.sampled_from(sorted(__import__("sim.units", fromlist=["SIMPLE_UNITS"]).SIMPLE_UNITS)),
+@given(unit=st.sampled_from(sorted(__import__("sim.core.units", fromlist=["SIMPLE_UNITS"]).SIMPLE_UNITS)),
        number=st.floats(min_value=-1e12, max_value=1e12, allow_nan=False).filter(lambda x: abs(x) > 1e-12))
 def test_fast_unit_path_agrees_with_pint(unit, number):
     """Common units are converted without pint (start-up); pint itself is the reference.
@@ -179,7 +179,7 @@ def test_fast_unit_path_agrees_with_pint(unit, number):
     """
     from numpy.testing import assert_allclose
 
-    from sim.units import SIMPLE_UNITS, registry
+    from sim.core.units import SIMPLE_UNITS, registry
 
     si = SIMPLE_UNITS[unit][0]
     text = f"{number!r} {unit}"
@@ -262,7 +262,7 @@ SIZE_PATHS = [("wheel", "at"), ("body", "parts", 0, "length"), ("body", "parts",
 def test_any_finite_size_is_refused_or_gives_a_physical_device(path, value):
     """Bounds at load (issue 13, part 4): a value either is refused with its key, or the device
     built from it has finite, positive masses and inertias (no overflow, no zero spin inertia)."""
-    from sim.device import Device
+    from sim.model.device import Device
     raw = copy.deepcopy(BASE)
     raw.setdefault("sensors", {}).setdefault("angle", {})
     raw["sensors"].setdefault("wheel", {})

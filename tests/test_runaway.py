@@ -13,11 +13,11 @@ import yaml
 from numpy.testing import assert_allclose
 
 from sim.cli import main
-from sim.device import Device
-from sim.runaway import NO_DRIFT_Z, fit_drift, predict_bias_response, runaway_time_s
-from sim.scenario import validate_scenario
-from sim.trial import run_trial
-from sim.verdicts import bias_ends, runaway_criterion, runaway_hold, with_trial
+from sim.model.device import Device
+from sim.model.scenario import validate_scenario
+from sim.run.trial import run_trial
+from sim.studies.runaway import NO_DRIFT_Z, fit_drift, predict_bias_response, runaway_time_s
+from sim.studies.verdicts import bias_ends, runaway_criterion, runaway_hold, with_trial
 
 # A test fixture of our own invention: a 25 cm aluminium arm carrying a small aluminium wheel on a
 # weak 6 V motor, an angle sensor mounted 0.5 degree off, angle-only PID (default gains). Its
@@ -147,7 +147,7 @@ def test_simulated_lqr_offset_matches_the_final_value(delay):
 
 
 def test_angle_only_pid_ramp_matches_the_simulated_drift():
-    # the linear model's steady ramp (derived in sim.runaway._pid_ramp) against the simulated slope
+    # the linear model's steady ramp (derived in sim.studies.runaway._pid_ramp) against the simulated slope
     # before the fall; 1% covers the sensor noise of the encoder-free sensors (our choice of tolerance)
     raw, sc = _scenario()
     dev = Device.from_scenario(sc)
@@ -247,7 +247,7 @@ def test_a_wheel_still_settling_at_the_end_of_a_short_hold_is_not_a_runaway():
     """An exponential approach to an offset, w = w_inf (1 - exp(-t / tau)): its slope over the last
     third is exp(-T/3 / tau) of the middle third's (first-order response), so a hold of a few time
     constants reads as settling; a steady ramp keeps its slope (ratio 1) and stays a drift."""
-    from sim.runaway import SETTLING_RATIO, fit_drift, settling
+    from sim.studies.runaway import SETTLING_RATIO, fit_drift, settling
     rng = np.random.default_rng(4)
     t = np.arange(0.0, 5.0, 0.001)
     noise = rng.normal(0.0, 0.05, t.size)

@@ -13,9 +13,9 @@ import pytest
 from numpy.testing import assert_allclose
 
 from conftest import make_scenario, scenario_dict, write_scenario
-from sim.errors import ScenarioError
-from sim.scenario import load_scenario
-from sim.units import parse_quantity
+from sim.core.errors import ScenarioError
+from sim.core.units import parse_quantity
+from sim.model.scenario import load_scenario
 
 
 # ----------------------------------------------------------------------------- units
@@ -237,7 +237,7 @@ def test_a_scenario_reads_degc_per_watt_and_a_wheel_speed_in_hz():
     ("v: 2001-12-14", "2001-12-14"), ("v: true", True), ("v: False", False), ("v: ~", None), ("v: .inf", math.inf),
 ])
 def test_scenario_numbers_are_read_as_yaml_1_2(text, expected):
-    from sim.scenario import parse_yaml_text
+    from sim.model.scenario import parse_yaml_text
     value = parse_yaml_text(text, where="<t>")["v"]
     assert value == expected and type(value) is type(expected)
 
@@ -256,7 +256,7 @@ def test_demo_scenarios_load_to_the_same_values_as_before(tmp_path):
 
     import yaml
 
-    from sim.scenario import validate_scenario
+    from sim.model.scenario import validate_scenario
     root = Path(__file__).parent.parent
     files = sorted((root / "scenarios").glob("*.yaml")) + sorted((root / "sim" / "data").glob("*.yaml"))
     assert files
@@ -273,7 +273,7 @@ def test_wheel_of_point_masses_on_its_axis_is_refused_but_copies_off_axis_load()
     with pytest.raises(ScenarioError, match=r"wheel\.parts: the wheel's spin inertia is 0"):
         make_scenario(wheel={"parts": [{"shape": "point", "mass": 0.1}]})
     # the same mass as 4 copies at 5 cm: I = m r^2 = 0.1 * 0.05^2 (point masses, any mechanics handbook)
-    from sim.massprops import wheel_props
+    from sim.model.massprops import wheel_props
     sc = make_scenario(wheel={"parts": [{"shape": "point", "mass": 0.025, "at": 0.05, "count": 4}]})
     assert_allclose(wheel_props(sc.wheel.parts, rotor_inertia=0.0).inertia_com[0], 0.1 * 0.05**2, rtol=1e-12)
 
@@ -294,7 +294,7 @@ def test_absurd_finite_values_are_refused_at_load(sections, key):
 
 
 def test_a_push_on_the_last_step_or_later_is_refused_and_one_before_loads():
-    # 0.5 s at 1 ms is steps 0..499: a push rounds to step round(at / step) (sim/trial.py)
+    # 0.5 s at 1 ms is steps 0..499: a push rounds to step round(at / step) (sim/run/trial.py)
     with pytest.raises(ScenarioError, match=r"trial\.pushes\[0\]\.at: a push at 0\.5 s"):
         make_scenario(trial={"pushes": [{"at": 0.5, "impulse": 0.01}]})
     assert make_scenario(trial={"pushes": [{"at": 0.499, "impulse": 0.01}]}).trial.pushes[0].at == 0.499
@@ -321,7 +321,7 @@ def test_set_kind_drops_the_old_kinds_parameters_with_a_note(scenario_file, caps
 
 
 def test_rate_that_does_not_fit_the_step_suggests_steps_and_rates():
-    from sim.scenario import step_suggestion
+    from sim.model.scenario import step_suggestion
     # 400 Hz is a 2.5 ms period: 2.5/4 = 0.625 ms is the largest round divisor below 1 ms; at 1 ms
     # the periods 2 ms and 3 ms (500 Hz, 333.3 Hz) fit (plain arithmetic).
     assert step_suggestion(400.0, 1e-3) == "a world.step of 0.625 ms divides it, or use a rate of 333.333 Hz or 500 Hz"
@@ -352,7 +352,7 @@ def test_union_keys_are_named_by_the_field_not_by_a_type_branch():
 
 def test_largest_sensor_noise_allowed_ends_as_an_outcome():
     """At the bound (angle noise pi rad, rate noise 1e5 rad/s) a trial still ends with an outcome."""
-    from sim.trial import run_trial
+    from sim.run.trial import run_trial
     sc = make_scenario(strategy={"kind": "lqr"}, trial={"duration": 0.2},
                        sensors={"angle": {"noise": math.pi}, "rate_gyro": {"noise": 1e5}, "wheel": {"noise": 1e5}})
     assert run_trial(sc).outcome in {"balanced", "fell", "diverged", "not_caught"}

@@ -1,4 +1,4 @@
-"""`wheelbench apply` and the scenario editor behind it (sim/scenario_edit.py); `fit` merging through it.
+"""`wheelbench apply` and the scenario editor behind it (sim/model/scenario_edit.py); `fit` merging through it.
 
 A patch changes values and nothing else: comments, key order and layout stay as the author wrote
 them; a key that replaces another (k_e for Kv) takes its place and its tolerance; a plug-in path
@@ -18,7 +18,7 @@ import yaml
 from numpy.testing import assert_allclose
 
 from sim.cli import main
-from sim.scenario import load_scenario
+from sim.model.scenario import load_scenario
 
 PLUGINS = Path(__file__).parent / "plugins"
 

@@ -10,12 +10,12 @@ import numpy as np
 import pytest
 from numpy.testing import assert_allclose
 
-from sim.device import Device
-from sim.engine import wrap_angles
-from sim.metrics import trial_metrics
-from sim.scenario import load_scenario
+from sim.core.angles import wrap_angles
+from sim.model.device import Device
+from sim.model.scenario import load_scenario
+from sim.run.metrics import trial_metrics
+from sim.run.trial import run_trial
 from sim.strategies import BUILTIN, Reading, Strategy, builtin_class
-from sim.trial import run_trial
 from tests.conftest import make_scenario
 
 BRAKE = {"supply": 12.0, "brake_torque": 50.0}   # invented test drive with a strong brake
@@ -53,7 +53,7 @@ def test_swing_up_kinds_say_so():
 
 
 def test_supervisor_rejects_catch_angle_beyond_release():
-    from sim.errors import ScenarioError
+    from sim.core.errors import ScenarioError
     with pytest.raises(ScenarioError, match=r"strategy\.catch_angle"):
         make_scenario(strategy={"kind": "swing_and_catch", "catch_angle": "40 deg", "release_angle": "30 deg"})
     with pytest.raises(ScenarioError, match=r"strategy\.balance\.kind"):
@@ -192,7 +192,7 @@ def test_catch_region_matrix_solves_the_closed_loop_lyapunov_equation():
     # python-control's dlyap(A, Q) solves A X A' - X + Q = 0, so dlyap(Acl', Q) is our P.
     import control
 
-    from sim.lqr_design import design_lqr
+    from sim.strategies.lqr_design import design_lqr
     from sim.strategies.supervisor import lqr_catch_region
     sc = make_scenario(strategy={"kind": "swing_and_catch", "catch_region": True})
     dev = Device.from_scenario(sc)

@@ -5,10 +5,10 @@ import math
 import numpy as np
 import pytest
 
-from sim.device import Device
-from sim.scenario import load_scenario
-from sim.stress import (bored_disk_stress_pa, radial_bar_stress_pa, solid_disk_stress_pa, thin_ring_stress_pa,
-                        wheel_burst_check)
+from sim.model.device import Device
+from sim.model.scenario import load_scenario
+from sim.studies.stress import (bored_disk_stress_pa, radial_bar_stress_pa, solid_disk_stress_pa, thin_ring_stress_pa,
+                                wheel_burst_check)
 
 RHO_AL, NU_AL = 2700.0, 0.33          # Al 6061-T6, references.md [mem, datasheet ranges]
 W_10K_RPM = 10_000 * 2 * math.pi / 60
@@ -69,7 +69,7 @@ def test_printed_ring_uses_across_layer_strength_at_runaway_speed():
     np.testing.assert_allclose(check["runaway_speed_rad_s"], w, rtol=1e-12)
     # Rotating disk with a central bore, peak hoop stress at the bore (Timoshenko & Goodier, Theory
     # of Elasticity, rotating disks): (3 + nu)/4 rho w^2 (b^2 + (1 - nu)/(3 + nu) a^2), written out
-    # here; PLA density 1240 kg/m^3 and nu 0.36 as in sim.materials [mem]
+    # here; PLA density 1240 kg/m^3 and nu 0.36 as in sim.model.materials [mem]
     rho, nu, a, b = 1240.0, 0.36, 0.040, 0.060
     expect = (3 + nu) / 4 * rho * w**2 * (b**2 + (1 - nu) / (3 + nu) * a**2)
     row = check["parts"][0]
@@ -95,13 +95,13 @@ def test_unknown_strength_is_reported_not_guessed():
 def test_given_mass_sets_the_mean_density():
     # A steel disk whose given mass is half its solid mass: the mean density halves, so does the stress.
     r, t = 0.03, 0.005
-    solid_mass = 7850.0 * math.pi * r**2 * t        # mild steel density from sim.materials [mem]
+    solid_mass = 7850.0 * math.pi * r**2 * t        # mild steel density from sim.model.materials [mem]
     sc = _wheel_scenario([{"shape": "disk", "radius": r, "thickness": t, "material": "steel",
                            "mass": solid_mass / 2}])
     check = wheel_burst_check(sc, Device.from_scenario(sc))
     w = check["runaway_speed_rad_s"]
     # solid rotating disk, peak stress at the centre (Timoshenko & Goodier): (3 + nu)/8 rho w^2 r^2,
-    # written out here; steel nu 0.29 as in sim.materials [mem]
+    # written out here; steel nu 0.29 as in sim.model.materials [mem]
     np.testing.assert_allclose(check["parts"][0]["stress_pa"], (3 + 0.29) / 8 * (7850.0 / 2) * w**2 * r**2, rtol=1e-9)
     assert check["parts"][0]["strength_basis"].startswith("tensile")
 
@@ -137,7 +137,7 @@ def test_safety_factor_falls_as_bolt_mass_on_the_rim_rises():
 
 
 def test_thin_ring_rim_load_against_hand_computation():
-    # Hand computation, independent of sim.stress: N bolts of mass m at radius r on a thin ring of
+    # Hand computation, independent of sim.studies.stress: N bolts of mass m at radius r on a thin ring of
     # section A add a hoop stress N m r w^2 / (2 pi A) (references.md: Roark's Formulas for Stress and
     # Strain, thin ring under uniform radial load, sigma = p R / t); the ring's own hoop stress is
     # rho w^2 R^2 (Shigley, rotating ring); a bolt hole in a hoop-stressed ring peaks at K_t = 3 times
@@ -147,7 +147,7 @@ def test_thin_ring_rim_load_against_hand_computation():
     check = wheel_burst_check(sc, Device.from_scenario(sc))
     w = check["runaway_speed_rad_s"]
     added = n * m * r * w**2 / (2 * math.pi * (b - a) * t)
-    own = 2700.0 * w**2 * r**2                     # Al density from sim.materials [mem]
+    own = 2700.0 * w**2 * r**2                     # Al density from sim.model.materials [mem]
     row = check["parts"][0]
     # thin-ring formulas against the thick (Lame) solution: within 3% for a 2 mm wall at 61 mm
     np.testing.assert_allclose(row["rim_load_stress_pa"], added, rtol=0.03)
@@ -160,7 +160,7 @@ def test_rim_load_at_outer_edge_matches_lame_thick_ring():
     # Lame thick cylinder under outward traction p on its outer face (Timoshenko & Goodier, Theory of
     # Elasticity; Roark, thick-walled cylinder): hoop at the bore = 2 p b^2 / (b^2 - a^2); a solid disk
     # loaded at its edge is under uniform stress p in every direction.
-    from sim.stress import rim_load_coefficients, rim_load_stresses_pa
+    from sim.studies.stress import rim_load_coefficients, rim_load_stresses_pa
     f, a, b, t, nu = 500.0, 0.02, 0.05, 0.006, 0.33
     p = f / (2 * math.pi * b * t)
     coef = rim_load_coefficients(f, b, a, b, t, nu)
@@ -178,7 +178,7 @@ def test_rim_load_at_outer_edge_matches_lame_thick_ring():
 
 def test_rotating_disk_field_matches_the_peak_formulas():
     # Timoshenko & Goodier's rotating-disk field at the bore and at the centre gives the peak formulas above.
-    from sim.stress import rotating_disk_stresses_pa
+    from sim.studies.stress import rotating_disk_stresses_pa
     w, a, b = 700.0, 0.01, 0.05
     np.testing.assert_allclose(rotating_disk_stresses_pa(RHO_AL, w, b, a, NU_AL, a)[1],
                                bored_disk_stress_pa(RHO_AL, w, b, a, NU_AL), rtol=1e-12)

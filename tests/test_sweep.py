@@ -10,9 +10,9 @@ import numpy as np
 import pytest
 
 from sim.cli import main
-from sim.errors import InputError
-from sim.sweep import JOURNAL, parse_vary, run_sweep
-from sim.scenario import load_raw
+from sim.core.errors import InputError
+from sim.model.scenario import load_raw
+from sim.studies.sweep import JOURNAL, parse_vary, run_sweep
 from test_verdicts import fast_raw, write_scenario
 
 VARY = "drive.supply=6V..12V:6"
@@ -26,7 +26,7 @@ def read_rows(path):
 def test_parse_vary_ranges_lists_and_errors():
     v = parse_vary("drive.supply=6V..24V:4")
     assert v.key == "drive.supply" and v.path == ("drive", "supply") and len(v.values) == 4
-    from sim.units import parse_quantity
+    from sim.core.units import parse_quantity
     np.testing.assert_allclose([parse_quantity(x, "voltage") for x in v.values], [6, 12, 18, 24], rtol=1e-12)
     mixed = parse_vary("motor.resistance=500 mohm..2 ohm:4")     # HI converted to LO's unit
     np.testing.assert_allclose([parse_quantity(x, "resistance") for x in mixed.values], [0.5, 1.0, 1.5, 2.0], rtol=1e-12)
@@ -69,7 +69,7 @@ def test_reference_table_columns_and_values(reference):
     # the figure draws the margin (ink) and settle time (accent) lines; every point passed, so no
     # failure cross (limit red) appears
     from pictures import pixels_near
-    from sim.plots import ACCENT, INK, LIMIT
+    from sim.media.plots import ACCENT, INK, LIMIT
     png = d / "ref" / "sweep.png"
     assert all(r["passed"] == "True" for r in rows)
     assert pixels_near(png, INK) > 300 and pixels_near(png, ACCENT) > 300
@@ -83,7 +83,7 @@ def test_resume_after_a_real_kill_gives_the_same_table(reference, tmp_path):
     # The sweep kills itself (SIGKILL, no clean-up runs) right after its second point reaches the
     # journal: the kill lands mid-way by construction, not by the luck of polling a fast sweep.
     child = ("import os, signal, sys\n"
-             "import sim.sweep as sw\n"
+             "import sim.studies.sweep as sw\n"
              "add = sw.Journal.add\n"
              "def add_then_die(self, index, row):\n"
              "    add(self, index, row)\n"
@@ -154,7 +154,7 @@ def test_results_csv_is_written_in_point_order_from_an_unordered_journal(tmp_pat
     (a kill mid-write) is left out. Holds only one offset per point in memory."""
     import json
 
-    from sim.sweep import METRIC_COLUMNS, PointSummaries, read_journal, write_results_csv
+    from sim.studies.sweep import METRIC_COLUMNS, PointSummaries, read_journal, write_results_csv
 
     varies = [parse_vary("drive.supply=6,8,10"), parse_vary("sensors.rate=250,500")]   # 6 points
     spec = {"made": "by hand"}
@@ -186,7 +186,7 @@ def test_results_csv_is_written_in_point_order_from_an_unordered_journal(tmp_pat
 def judged(monkeypatch):
     """Points judged without simulating (in-process, one worker): a record of the supplies judged;
     a supply of 11 V makes the point's work raise, as a value that breaks its trial does."""
-    import sim.verdicts
+    import sim.studies.verdicts
     calls = []
 
     def judge(sc, *, seed):
@@ -194,7 +194,7 @@ def judged(monkeypatch):
         if abs(sc.drive.supply - 11.0) < 1e-9:
             raise FloatingPointError("a value this trial cannot take")
         return {"outcome": "balanced", "fail_reasons": ""}
-    monkeypatch.setattr(sim.verdicts, "judge_trial", judge)
+    monkeypatch.setattr(sim.studies.verdicts, "judge_trial", judge)
     return calls
 
 
@@ -239,21 +239,21 @@ def test_a_second_sweep_into_a_folder_in_use_is_refused_or_waits(tmp_path, judge
 def test_a_full_disk_mid_sweep_is_one_line_with_resume_instructions(tmp_path, judged, capsys, monkeypatch):
     import errno
 
-    import sim.sweep
+    import sim.studies.sweep
     scen = write_scenario(tmp_path / "s.yaml", fast_raw())
     out = tmp_path / "out"
     argv = ["sweep", scen, "--vary", "drive.supply=10,12,14", "--out", str(out), "--workers", "1"]
-    real_add = sim.sweep.Journal.add
+    real_add = sim.studies.sweep.Journal.add
 
     def add_then_fill(self, index, row):
         if index > 0:
             raise OSError(errno.ENOSPC, "No space left on device")
         real_add(self, index, row)
-    monkeypatch.setattr(sim.sweep.Journal, "add", add_then_fill)
+    monkeypatch.setattr(sim.studies.sweep.Journal, "add", add_then_fill)
     assert main(argv) == 2
     err = capsys.readouterr().err.strip().splitlines()
     assert len(err) == 1 and "disk is full" in err[0] and "resume" in err[0] and "1 of 3 points" in err[0], err
-    monkeypatch.setattr(sim.sweep.Journal, "add", real_add)
+    monkeypatch.setattr(sim.studies.sweep.Journal, "add", real_add)
     assert main(argv) == 0                                  # resumed: the finished point is not judged again
     assert len(judged) == 1 + 1 + 2
     assert [r["point"] for r in read_rows(out / "results.csv")] == ["0", "1", "2"]
@@ -261,7 +261,7 @@ def test_a_full_disk_mid_sweep_is_one_line_with_resume_instructions(tmp_path, ju
 
 def test_a_lost_dask_scheduler_is_one_line_with_resume_instructions(tmp_path, judged):
     distributed = pytest.importorskip("distributed")
-    from sim.outputs import MachineFault, prepare_out_dir
+    from sim.core.outputs import MachineFault, prepare_out_dir
     scen = write_scenario(tmp_path / "s.yaml", fast_raw())
     raw, where = load_raw(scen)
     cluster = distributed.LocalCluster(processes=False, n_workers=1, threads_per_worker=1, dashboard_address=None)

@@ -21,12 +21,12 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from numpy.testing import assert_allclose
 
-from sim.device import Device
-from sim.engine import wrap_angles
-from sim.metrics import trial_metrics
-from sim.scenario import validate_scenario
+from sim.core.angles import wrap_angles
+from sim.model.device import Device
+from sim.model.scenario import validate_scenario
+from sim.run.metrics import trial_metrics
+from sim.run.trial import run_trial
 from sim.strategies import Reading, Strategy, StrategyParams, StrategySpec
-from sim.trial import run_trial
 
 WHEEL_PARTS = [
     {"name": "rim", "shape": "ring", "outer_radius": "70 mm", "inner_radius": "55 mm", "thickness": "8 mm",

@@ -5,8 +5,8 @@ import math
 import numpy as np
 from scipy.integrate import solve_ivp
 
-from sim.scenario import load_scenario
-from sim.thermal import COPPER_TEMPCO_PER_K, steady_temperature_c, temperature_history_c, winding_check
+from sim.model.scenario import load_scenario
+from sim.studies.thermal import COPPER_TEMPCO_PER_K, steady_temperature_c, temperature_history_c, winding_check
 
 
 def _rhs(i_of_t, r20, rth, cth, amb, alpha):
@@ -68,10 +68,10 @@ def test_check_and_sweep_judge_the_winding_on_the_same_basis():
     # current, sweep the scenario's own trial). Both now use WINDING_BASIS. A design whose own trial
     # (a 3 degree start and a push) draws far more current than holding still tells the bases apart.
     from test_verdicts import fast_raw
-    from sim.scenario import validate_scenario
-    from sim.sweep import point_task
-    from sim.thermal import WINDING_BASIS
-    from sim.verdicts import judge_trial, run_check
+    from sim.model.scenario import validate_scenario
+    from sim.studies.sweep import point_task
+    from sim.studies.thermal import WINDING_BASIS
+    from sim.studies.verdicts import judge_trial, run_check
     raw = fast_raw(trial={"duration": "1.5 s", "start": {"angle": "3 deg"}, "seed": 3,
                           "pushes": [{"at": "0.5 s", "impulse": "8 mN*m*s"}]})
     thermal = run_check(raw, "t.yaml", trials=1, workers=1).verdict["thermal"]
@@ -91,9 +91,9 @@ def test_winding_basis_is_the_same_for_a_run_stopped_at_its_fall_and_one_that_fl
     # sweep stops a trial at the fall, check's nominal run goes on to its end: the basis cuts both at
     # fell_at_s, so a falling design gets one figure. A 60 mN m s push knocks the test pendulum over.
     from test_verdicts import fast_raw
-    from sim.scenario import validate_scenario
-    from sim.thermal import trial_rms_current_a
-    from sim.trial import run_trial
+    from sim.model.scenario import validate_scenario
+    from sim.studies.thermal import trial_rms_current_a
+    from sim.run.trial import run_trial
     sc = validate_scenario(fast_raw(trial={"duration": "1.5 s", "start": {"angle": "3 deg"}, "seed": 3,
                                            "pushes": [{"at": "0.5 s", "impulse": "60 mN*m*s"}]}), where="t.yaml")
     stopped, full = run_trial(sc, stop_early=True), run_trial(sc, stop_early=False)
@@ -109,7 +109,7 @@ def test_winding_basis_is_the_same_for_a_run_stopped_at_its_fall_and_one_that_fl
 def test_winding_basis_leaves_out_the_swing_up_before_the_catch():
     # the RMS is taken from the catch: rows before it (a one-off swing-up) do not count (definition
     # of the basis; RMS = sqrt(mean(i^2)) over the rows kept)
-    from sim.thermal import trial_rms_current_a
+    from sim.studies.thermal import trial_rms_current_a
     current = np.concatenate([np.full(2000, 4.0), np.full(3000, 0.5)])
     np.testing.assert_allclose(trial_rms_current_a(current, 0.001, None, 2.0), 0.5, rtol=1e-12)
     np.testing.assert_allclose(trial_rms_current_a(current, 0.001, 4.0, 2.0), 0.5, rtol=1e-12)

@@ -7,10 +7,10 @@ import os
 import numpy as np
 import pytest
 
-from sim import trace as trace_mod
-from sim.scenario import load_raw, validate_scenario
-from sim.trace import Trace, write_csv
-from sim.trial import run_trial
+from sim.model.scenario import load_raw, validate_scenario
+from sim.run import trace as trace_mod
+from sim.run.trace import Trace, write_csv
+from sim.run.trial import run_trial
 
 
 def _short_scenario():

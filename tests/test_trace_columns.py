@@ -18,8 +18,8 @@ import pytest
 from numpy.testing import assert_allclose
 
 from conftest import make_scenario
-from sim.trace import CSV_COLUMNS, write_csv
-from sim.trial import run_trial
+from sim.run.trace import CSV_COLUMNS, write_csv
+from sim.run.trial import run_trial
 from test_lqr import references_model
 
 DT, RATE_HZ = 1e-3, 500.0
@@ -133,7 +133,7 @@ def test_voltage_saturated_fraction_counts_the_ticks_that_asked_past_the_supply(
     # metrics.json's voltage_saturated_fraction (README): control ticks whose law asked for more than
     # the supply, over all ticks. Counted here from the measured columns at the tick rows and the
     # law's own answer -K x (K from python-control dlqr); the trial saturates on 13 of its 200 ticks.
-    from sim.metrics import trial_metrics
+    from sim.run.metrics import trial_metrics
 
     result, cols = run
     x = np.column_stack([cols["measured_angle_rad"], cols["measured_rate_rad_s"],

@@ -1,4 +1,4 @@
-"""The trial loop's drive and bookkeeping (sim.trial): the voltage limit is the scenario's supply,
+"""The trial loop's drive and bookkeeping (sim.run.trial): the voltage limit is the scenario's supply,
 enforced outside the strategy whatever a plug-in does; the phase after a fall reads "fallen";
 balanced traces are the same numbers as before the clamp moved. Devices as in trial_cases.py."""
 
@@ -9,8 +9,8 @@ import pytest
 from numpy.testing import assert_allclose
 
 from conftest import make_scenario
-from sim.metrics import trial_metrics
-from sim.trial import run_trial
+from sim.run.metrics import trial_metrics
+from sim.run.trial import run_trial
 from trial_cases import BIG_WHEEL, bias_pid, plugin_scenario
 
 

@@ -17,7 +17,8 @@ import pytest
 from numpy.testing import assert_allclose
 
 from conftest import make_scenario
-from sim.trial import StrategyClock, run_trial
+from sim.core.budget import StrategyClock
+from sim.run.trial import run_trial
 
 PLUGIN_HEAD = """
 import math, time
@@ -178,7 +179,7 @@ def test_huge_push_diverges_with_its_time():
 
 def test_non_finite_state_is_diverged(monkeypatch):
     """The engine returning NaN (as a blown-up solver would) ends the run as diverged."""
-    import sim.trial as trial_mod
+    import sim.run.trial as trial_mod
 
     real = trial_mod.EngineModel
 

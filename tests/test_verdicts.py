@@ -13,11 +13,11 @@ import pytest
 import yaml
 
 from sim.cli import main
-from sim.errors import ScenarioError
-from sim.scenario import validate_scenario
-from sim.scenario import load_raw
-from sim.tolerances import perturbed_raw, scenario_tolerances
-from sim.verdicts import max_push
+from sim.core.errors import ScenarioError
+from sim.model.scenario import validate_scenario
+from sim.model.scenario import load_raw
+from sim.model.tolerances import perturbed_raw, scenario_tolerances
+from sim.studies.verdicts import max_push
 
 FAST = {
     "name": "fast test pendulum",
@@ -70,7 +70,7 @@ def test_check_exit_codes_for_a_passing_and_a_failing_design(tmp_path):
         assert "![pushes](pushes.png)" in report
         # the push figure marks the bisection's tries: survived (green o) and lost (red x) both occur
         from pictures import pixels_near
-        from sim.verdict_report import FAIL_COLOUR, PASS_COLOUR
+        from sim.studies.verdict_report import FAIL_COLOUR, PASS_COLOUR
         tries = v["pushes"]["positive"]["evals"] + v["pushes"]["negative"]["evals"]
         for colour, survived in ((PASS_COLOUR, True), (FAIL_COLOUR, False)):
             shown = pixels_near(tmp_path / name / "pushes.png", colour, tol=20 / 255)
@@ -96,7 +96,7 @@ def _survives_by_trace(impulse: float) -> bool:
     upright at rest, one push at 0.5 s, 3 s to recover (the battery's stated set-up); survived when
     the angle never passes the 30 deg release angle and the last 0.5 s stay within 1 deg and
     slower than 0.2 rad/s (README, check: "clearly caught")."""
-    from sim.trial import run_trial
+    from sim.run.trial import run_trial
     raw = fast_raw(trial={"duration": 3.5, "start": {"angle": 0.0}, "pushes": [{"at": 0.5, "impulse": impulse}]})
     tr = run_trial(validate_scenario(raw, where="fast.yaml"), seed=3).trace
     angle = np.abs(np.remainder(tr.view("angle") + np.pi, 2 * np.pi) - np.pi)

@@ -29,6 +29,7 @@ from typing import Any
 
 from pydantic import ValidationError
 
+from ..core.exception_text import describe_exception
 from .base import Reading, Strategy, StrategyParams, StrategySpec
 
 __all__ = ["BUILTIN", "Reading", "Strategy", "StrategyParams", "StrategySpec", "resolve_spec", "known_kinds",
@@ -45,7 +46,7 @@ BUILTIN: dict[str, str] = {
     "swing_and_catch": "sim.strategies.supervisor:SwingAndCatch",
     "pid": "sim.strategies.pid:PidBalance",
     "jump": "sim.strategies.jump:BrakeJump",
-    "firmware": "sim.firmware.strategy:FirmwareStrategy",
+    "firmware": "sim.strategies.firmware.strategy:FirmwareStrategy",
 }
 
 ENTRY_POINT_GROUP = "wheelbench.strategies"
@@ -131,7 +132,7 @@ def resolve_spec(raw: Any, *, base_dir: Path, anywhere: bool = False) -> Strateg
     try:
         params = cls.Params.model_validate(raw, context={"base_dir": base_dir, "in_memory": anywhere})
     except ValidationError as exc:
-        from ..scenario import describe_problems
+        from ..core.validation_messages import describe_problems
         raise ValueError("; ".join("@" + piece for piece in describe_problems(exc, cls.Params))) from None
     except (ValueError, RecursionError):
         raise                       # our own messages (a nested strategy's) and the loader's depth guard
@@ -225,11 +226,11 @@ def _import_file(path: Path, plugin: str):
 
 
 def _probe(load, failed: str) -> None:
-    """Import in a forked child first (`sim.isolation.probe_in_child`): a plug-in whose import ends
+    """Import in a forked child first (`sim.core.isolation.probe_in_child`): a plug-in whose import ends
     its process (os._exit, a crash), raises or hangs, even in compiled code, is refused before it
     runs here. Skipped where fork is unsafe or missing (other threads running, no os.fork); the
     guarded import in this process still catches every exception then."""
-    from .. import isolation
+    from ..core import isolation
     if not isolation.AVAILABLE or threading.active_count() != 1:
         return
 
@@ -249,30 +250,6 @@ def _probe(load, failed: str) -> None:
         raise ValueError(f"{failed} did not finish within {IMPORT_BUDGET_S:g} s (stuck in compiled code?)")
 
 
-def describe_exception(exc: BaseException, *, limit: int = 300) -> str:
-    """'Type: text' for an exception raised by plug-in code (see `exception_parts`)."""
-    name, text = exception_parts(exc, limit=limit)
-    return f"{name}: {text}" if text else name
-
-
-def exception_parts(exc: BaseException, *, limit: int = 300) -> tuple[str, str]:
-    """(type name, message) of an exception raised by plug-in code, never raising itself: the
-    message is cut to `limit` characters, and one whose __str__ raises is named as such."""
-    try:
-        name = type(exc).__name__
-        name = str.__str__(name) if isinstance(name, str) else "exception"
-    except BaseException:  # noqa: B036
-        name = "exception"
-    try:
-        text = str(exc)
-        text = str.__str__(text).strip()
-    except BaseException as inner:  # noqa: B036 - a hostile __str__ (or a timeout inside it)
-        return name, f"(its message could not be read: __str__ raised {type(inner).__name__})"
-    if len(text) > limit:
-        text = text[:limit] + "..."
-    return name, text
-
-
 IMPORT_BUDGET_S = 30.0
 """Wall time, s, a plug-in's import may take before loading gives up (an endless loop at import
 time must not hang `validate`; the trial's own budget covers the strategy's calls)."""
@@ -280,7 +257,7 @@ time must not hang `validate`; the trial's own budget covers the strategy's call
 
 def _within_budget(load, what: str):
     """Run `load()` under the strategy clock; a plug-in import past the budget becomes a TimeoutError."""
-    from ..trial import StrategyClock, StrategyTimeout
+    from ..core.budget import StrategyClock, StrategyTimeout
 
     with StrategyClock(IMPORT_BUDGET_S) as clock:
         clock.enter()

@@ -8,8 +8,8 @@ from typing import Any, ClassVar
 
 from pydantic import BaseModel, ConfigDict
 
-from ..errors import StrategyError
-from ..units import Q
+from ..core.errors import StrategyError
+from ..core.units import Q
 
 
 class StrategyParams(BaseModel):
@@ -22,7 +22,7 @@ class StrategyParams(BaseModel):
 
 
 class Reading:
-    """What the sensors report at one control tick (SI; conventions as in `sim.scenario`).
+    """What the sensors report at one control tick (SI; conventions as in `sim.model.scenario`).
 
     One object is reused for the whole trial: copy values out if a strategy keeps them.
     """
@@ -41,7 +41,7 @@ class Strategy:
 
     1. Construction. The runner builds one instance per trial as
        ``Cls(device=..., params=..., rng=...)``: `device` is the strategy's own copy of the
-       `sim.device.Device` (lumped SI parameters, including `supply_v`, `control_rate_hz` and
+       `sim.model.device.Device` (lumped SI parameters, including `supply_v`, `control_rate_hz` and
        `delay_s`; changing it changes nothing the runner simulates); `params` is an
        instance of the class's `Params` (a `StrategyParams` subclass), already validated when
        the scenario loaded; `rng` is the trial's seeded numpy Generator, the only randomness
@@ -60,7 +60,7 @@ class Strategy:
        Ctrl-C still stops the command), and an exception whose message cannot be read.
     4. Phase. `self.phase` names what the law is doing now, in a few words ("balance",
        "swing up", ...); the trace's `mode` column reports it. A trace keeps the first 256
-       distinct names (`sim.trace.MAX_PHASES`), each cut to 200 characters; every later new
+       distinct names (`sim.run.trace.MAX_PHASES`), each cut to 200 characters; every later new
        name is recorded as "(other phases)". Recording phases is the runner's work and is not
        charged to the strategy's time budget.
     5. Goal. `goal = "balance"` for strategies that aim to hold the body upright (the runner

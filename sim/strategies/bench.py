@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from ..units import Q
+from ..core.units import Q
 from .base import Reading, Strategy, StrategyParams
 
 

@@ -7,8 +7,8 @@ from typing import Annotated
 import numpy as np
 from pydantic import Field
 
-from ..lqr_design import DelayPredictor, design_lqr
 from .base import Reading, Strategy, StrategyParams
+from .lqr_design import DelayPredictor, design_lqr
 
 
 class LqrBalance(Strategy):
@@ -17,7 +17,7 @@ class LqrBalance(Strategy):
     With a sensor delay the state fed to K is the model's prediction of the present state from
     the delayed reading and the commands sent since (equivalent to LQR on the delay-augmented
     state). Parameters: `weights` (3 diagonal state weights, SI: 1/rad^2, s^2/rad^2, s^2/rad^2)
-    and `effort` (input weight, 1/V^2); defaults by Bryson's rule, see `sim.lqr_design`.
+    and `effort` (input weight, 1/V^2); defaults by Bryson's rule, see `sim.strategies.lqr_design`.
     """
 
     kind = "lqr"

@@ -1,6 +1,6 @@
 """PID balance on the body angle, with an optional outer wheel-speed loop.
 
-Sign conventions (see `sim.scenario`): angle 0 upright; positive voltage accelerates the wheel
+Sign conventions (see `sim.model.scenario`): angle 0 upright; positive voltage accelerates the wheel
 positively and turns the body negatively. So a body leaning positive needs positive volts, and
 
     volts = kp * e + ki * integral(e) + kd * rate,      e = angle - angle_ref

@@ -17,7 +17,7 @@ from typing import Annotated
 import numpy as np
 from pydantic import BeforeValidator, Field, model_validator
 
-from ..units import Q
+from ..core.units import Q
 from . import spec_from_raw
 from .base import Reading, Strategy, StrategyParams, StrategySpec
 
@@ -41,7 +41,7 @@ def lqr_catch_region(device, lqr_params, *, catch_angle_rad: float) -> tuple[np.
     """
     from scipy.linalg import solve_discrete_lyapunov
 
-    from ..lqr_design import design_lqr
+    from .lqr_design import design_lqr
     des = design_lqr(device, weights=lqr_params.weights, effort=lqr_params.effort)
     K = des.K_discrete.reshape(1, 3)
     acl = des.Ad - des.Bd @ K

@@ -1,0 +1,75 @@
+"""The derived figures `validate` prints: what a builder checks before buying parts.
+
+All SI in the keys' units; angles also in degrees and speeds also in rpm where a person reads them.
+"""
+
+from __future__ import annotations
+
+import math
+
+
+def device_figures(device) -> dict:
+    """Derived figures of a device (sim.model.device.Device), keys with units.
+
+    Stall torque is given twice: with the supply across the winding alone (k_t V / R) and with the
+    drive's current limit applied (k_t min(V/R, I_max)); the second is what the motor can give.
+    The largest angle the motor can hold is asin(stall torque / (mbar g)) (static torque balance,
+    common practice, no source); the open-loop pole sqrt(mbar g / J) is how fast a lean grows.
+    """
+    mgd = device.gravity_torque_coeff_n_m
+    stall_supply = device.k_t_n_m_a * device.supply_v / device.resistance_ohm
+    stall = device.stall_torque_n_m
+    mass = device.mass_kg
+    return {
+        "mass_kg": mass,
+        "centre_of_mass_from_pivot_m": device.mbar_kg_m / mass if mass > 0 else 0.0,
+        "mbar_g_n_m": mgd,
+        "body_inertia_about_pivot_kg_m2": device.J_kg_m2,
+        "wheel_spin_inertia_kg_m2": device.I_w_kg_m2,
+        "open_loop_pole_rad_s": device.open_loop_pole_rad_s,
+        "no_load_speed_rad_s": device.no_load_speed_rad_s,
+        "no_load_speed_rpm": device.no_load_speed_rad_s * 60.0 / (2.0 * math.pi),
+        "stall_torque_supply_only_n_m": stall_supply,
+        "stall_torque_with_current_limit_n_m": stall,
+        "current_limited": math.isfinite(device.current_limit_a) and device.current_limit_a < device.supply_v / device.resistance_ohm,
+        "largest_holdable_angle_rad": math.asin(min(1.0, stall / mgd)) if mgd > 0 else math.pi,
+    }
+
+
+def strategy_in_use(spec, device) -> dict:
+    """The strategy's parameters as the trial will run them: the scenario's values, and for the
+    ones left to a default, the value the built law derives from the device (when it exposes one)."""
+    import numpy as np
+
+    law = spec.build(device, rng=np.random.default_rng(0))
+    out = {}
+    for name, value in spec.params.model_dump().items():
+        if value is None and isinstance(getattr(law, name, None), (int, float)):
+            out[name] = (float(getattr(law, name)), "default")
+        elif isinstance(value, dict) and "kind" in value:
+            out[name] = (value["kind"], "nested law")
+        else:
+            out[name] = (value, "scenario" if name in spec.params.model_fields_set else "default")
+    return out
+
+
+def figures_text(device, spec) -> list[str]:
+    """Lines for the terminal."""
+    f = device_figures(device)
+    lines = [
+        f"mass {f['mass_kg'] * 1000:.1f} g, centre of mass {f['centre_of_mass_from_pivot_m'] * 1000:.1f} mm from the "
+        f"pivot, mbar g {f['mbar_g_n_m'] * 1000:.2f} mN m",
+        f"J {f['body_inertia_about_pivot_kg_m2']:.4g} kg m^2 about the pivot, wheel I_w "
+        f"{f['wheel_spin_inertia_kg_m2']:.4g} kg m^2, open-loop pole sqrt(mbar g / J) {f['open_loop_pole_rad_s']:.3g} rad/s",
+        f"no-load speed {f['no_load_speed_rad_s']:.1f} rad/s ({f['no_load_speed_rpm']:.0f} rpm) at the supply",
+        f"stall torque {f['stall_torque_supply_only_n_m'] * 1000:.1f} mN m from the supply alone (k_t V/R), "
+        f"{f['stall_torque_with_current_limit_n_m'] * 1000:.1f} mN m with the current limit"
+        + (" (the limit binds)" if f["current_limited"] else " (the limit does not bind)"),
+        f"largest angle the motor can hold: {math.degrees(f['largest_holdable_angle_rad']):.3g} deg "
+        "(asin of stall torque over mbar g)",
+        f"strategy {spec.kind}:",
+    ]
+    for name, (value, source) in strategy_in_use(spec, device).items():
+        shown = f"{value:.6g}" if isinstance(value, float) else str(value)
+        lines.append(f"  {name} = {shown} ({source})")
+    return lines

@@ -1,0 +1,599 @@
+"""Scenario files: YAML in, one validation pass, frozen typed objects in SI units out.
+
+Every value is checked here and nowhere later. Quantities accept unit strings ("80 g",
+"300 rpm/V"); bare numbers are SI. Unknown keys are rejected with the nearest known key.
+
+Bounds (checked at load, SI): every number is finite, and sizes, masses, inertias, noise and
+rates stay within ranges a bench device can have, so that a typo (1e300 m, noise 1e308) is
+refused with its key instead of overflowing later. Our choices, generous by orders of magnitude:
+lengths, sizes and distances up to 100 m; masses up to 10 t;
+densities up to 1e5 kg/m^3 (the densest element is about 2.3e4); strengths up to 1e12 Pa;
+inertias and inertia corrections up to 1e8 kg m^2 (10 t at 100 m); friction and brake torques
+up to 1e4 N m; pushes up to 1e4 N m s; speeds and rate-sensor noise and bias up to 1e5 rad/s
+(about 10^6 rpm); angle noise and bias up to pi rad (beyond that a reading carries no angle);
+start angles up to 1e3 rad; winding resistance from 1 uohm to 1 Mohm; inductance up to 10 H;
+current limits up to 1e4 A; Kv up to 1e5 rad/s/V; k_e and k_t up to 1e3. The wheel's spin
+inertia must be above zero (a wheel of point masses on its axis cannot store momentum).
+
+Conventions: body angle 0 = upright, +-pi = hanging, measured about the pivot axis by the
+right-hand rule. Wheel speed is relative to the body, about the same axis. Positive voltage
+accelerates the wheel in the positive sense; its reaction turns the body the negative way.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+from typing import Annotated, Any, Literal
+
+import yaml
+from pydantic import (BaseModel, BeforeValidator, ConfigDict, Field, ValidationError,
+                      ValidationInfo, field_validator, model_validator)
+
+from ..core.errors import ScenarioError
+from ..core.units import Q
+from ..core.validation_messages import (describe_problems, describe_validation_error,  # noqa: F401 (re-exported)
+                                        format_path, short_repr, step_suggestion)
+from ..core.yaml12 import Yaml12Loader
+from ..strategies.base import StrategySpec
+
+MAX_STEPS = 5_000_000          # physics steps in one trial; more is a typo, not a plan
+MAX_FILE_BYTES = 1_000_000
+MAX_ALIASES = 100
+MAX_NODES = 100_000            # YAML nodes after aliases are expanded; a scenario has a few hundred
+
+# Physical bounds, SI (see the module docstring for why).
+MAX_SIZE_M = 100.0
+MAX_MASS_KG = 1e4
+MAX_INERTIA = 1e8
+MAX_TORQUE = 1e4
+MAX_SPEED = 1e5
+MAX_ANGLE_NOISE = math.pi
+
+
+Length = Q("length", ge=-MAX_SIZE_M, le=MAX_SIZE_M)
+PositiveLength = Q("length", gt=0, le=MAX_SIZE_M)
+PositiveMass = Q("mass", gt=0, le=MAX_MASS_KG)
+Fraction = Q("fraction", gt=0, le=1)
+
+
+class Strict(BaseModel):
+    """Base for scenario sections: frozen, unknown keys rejected."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True, arbitrary_types_allowed=True)
+
+
+class World(Strict):
+    gravity: Q("acceleration", ge=0, le=1000) = 9.81
+    """Gravitational acceleration, m/s^2 (0 allowed)."""
+    step: Q("time", gt=0, le=0.01) = 1e-3
+    """Physics step, s."""
+
+
+class Friction(Strict):
+    coulomb: Q("torque", ge=0, le=MAX_TORQUE) = 0.0
+    """Coulomb (dry) friction torque, N m."""
+    viscous: Q("viscous", ge=0, le=MAX_TORQUE) = 0.0
+    """Viscous friction coefficient, N m s/rad."""
+
+
+class MaterialSpec(Strict):
+    """A material given inline instead of by name."""
+
+    name: str = "custom"
+    density: Q("density", gt=0, le=1e5) | None = None
+    tensile_strength: Q("stress", gt=0, le=1e12) | None = None
+    poisson_ratio: Annotated[float, Field(gt=-1, lt=0.5)] = 0.33
+    printed: bool = False
+
+
+SHAPE_SIZES: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
+    # shape: (required sizes, optional sizes)
+    "point": ((), ()),
+    "rod": (("length",), ("radius",)),
+    "box": (("length", "width", "thickness"), ()),
+    "disk": (("radius",), ("thickness",)),
+    "ring": (("outer_radius", "inner_radius"), ("thickness",)),
+    "hollow_box": (("length", "width", "thickness", "wall"), ()),   # closed six-faced shell, outer sizes
+}
+
+
+def _material_spec(value: Any) -> Any:
+    """An inline material mapping validated on its own, so a bad field is reported under
+    `material.<field>` (not as the union's 'expected a string')."""
+    if not isinstance(value, dict):
+        return value
+    try:
+        return MaterialSpec.model_validate(value)
+    except ValidationError as exc:
+        raise ValueError("; ".join("@" + piece for piece in describe_problems(exc, MaterialSpec))) from None
+
+
+class Part(Strict):
+    """A primitive part. Body parts: `at` is the distance of the part's centre from the pivot
+    along the body axis (negative below the pivot). Wheel parts: `at` is the radial distance of
+    the part's centre from the wheel axis, with `count` copies spaced evenly around it.
+
+    Orientation: rods and boxes lie with `length` along the body axis (for wheel parts, across
+    the wheel axis); `width` is in the swing plane; `thickness` is along the pivot axis. Disks
+    and rings have their axis parallel to the pivot axis. A hollow box is a closed six-faced shell
+    oriented like a box, its sizes the outside ones, its faces `wall` thick.
+    """
+
+    name: str | None = None
+    shape: Literal["point", "rod", "box", "disk", "ring", "hollow_box"]
+    length: PositiveLength | None = None
+    width: PositiveLength | None = None
+    thickness: PositiveLength | None = None
+    radius: PositiveLength | None = None
+    outer_radius: PositiveLength | None = None
+    inner_radius: Q("length", ge=0, le=MAX_SIZE_M) | None = None
+    wall: PositiveLength | None = None
+    mass: PositiveMass | None = None
+    material: Annotated[str | MaterialSpec | None, BeforeValidator(_material_spec)] = None
+    infill: Fraction | None = None
+    at: Length = 0.0
+    count: Annotated[int, Field(ge=1, le=1000, strict=True)] = 1
+
+    @model_validator(mode="after")
+    def _sizes_fit_shape(self):
+        needed, optional = SHAPE_SIZES[self.shape]
+        for key in needed:
+            if getattr(self, key) is None:
+                raise ValueError(f"@{key}: a {self.shape} needs '{key}'")
+        for key in ("length", "width", "thickness", "radius", "outer_radius", "inner_radius", "wall"):
+            if getattr(self, key) is not None and key not in needed + optional:
+                raise ValueError(f"@{key}: a {self.shape} takes no '{key}' (it takes {', '.join(needed + optional) or 'no sizes'})")
+        if self.shape == "ring" and self.inner_radius >= self.outer_radius:
+            raise ValueError("@inner_radius: must be smaller than outer_radius")
+        if self.shape == "hollow_box" and 2 * self.wall >= min(self.length, self.width, self.thickness):
+            raise ValueError("@wall: twice the wall must be smaller than the box's length, width and thickness")
+        if isinstance(self.material, str):
+            from .materials import known_names, lookup
+            if lookup(self.material) is None:
+                raise ValueError(f"@material: unknown material {self.material!r}; known: {', '.join(known_names())}, "
+                                 "or a mapping with density and tensile_strength")
+        if self.mass is None:
+            from .massprops import part_volume
+            if self.density_kg_m3 is None:
+                raise ValueError("@mass: give a mass, or a material with a density")
+            if part_volume(self) is None:
+                raise ValueError(f"@mass: give a mass, or the sizes that fix a {self.shape}'s volume "
+                                 "(a rod's radius, a disk's or ring's thickness)")
+        if self.infill is not None and not self.is_printed:
+            raise ValueError("@infill: infill applies to printed materials only")
+        return self
+
+    @property
+    def material_props(self):
+        """The part's `materials.Material`, or None when no material is given."""
+        from .materials import Material, lookup
+        if self.material is None:
+            return None
+        if isinstance(self.material, str):
+            return lookup(self.material)
+        m = self.material
+        return Material(m.name, m.density, m.tensile_strength, poisson_ratio=m.poisson_ratio, printed=m.printed)
+
+    @property
+    def is_printed(self) -> bool:
+        mat = self.material_props
+        return bool(mat and mat.printed)
+
+    @property
+    def density_kg_m3(self) -> float | None:
+        """Effective density (infill applied), kg/m^3, or None."""
+        mat = self.material_props
+        if mat is None or mat.density_kg_m3 is None:
+            return None
+        return mat.density_kg_m3 * (self.infill if self.infill is not None else 1.0)
+
+
+class Body(Strict):
+    parts: Annotated[list[Part], Field(min_length=1, max_length=200)]
+    pivot_friction: Friction = Friction()
+    locked: bool = False
+    """True clamps the body at its start angle (a bench test of the wheel drive)."""
+    inertia_correction: Q("inertia", ge=-MAX_INERTIA, le=MAX_INERTIA) = 0.0
+    """Signed, kg m^2: added to the body's inertia about the pivot (e.g. from `wheelbench fit`)."""
+
+
+class Wheel(Strict):
+    at: PositiveLength
+    """Pivot-to-wheel-axis distance, m."""
+    parts: Annotated[list[Part], Field(min_length=1, max_length=200)]
+    bearing_friction: Friction = Friction()
+    inertia_correction: Q("inertia", ge=-MAX_INERTIA, le=MAX_INERTIA) = 0.0
+    """Signed, kg m^2: added to the wheel's spin inertia (e.g. from `wheelbench fit`)."""
+
+    @field_validator("parts")
+    @classmethod
+    def _balanced(cls, parts):
+        for i, p in enumerate(parts):
+            if p.count == 1 and p.at != 0.0:
+                raise ValueError(f"@[{i}].at: a single part off the wheel axis unbalances the wheel; "
+                                 "give count >= 2 for evenly spaced copies")
+        return parts
+
+
+class MotorThermal(Strict):
+    """Winding heating, first-order model (see `sim.studies.thermal`). Temperatures in degC (bare numbers too).
+
+    Defaults: common practice for small hobby motors, no source; replace them with your motor's
+    datasheet figures.
+    """
+
+    thermal_resistance: Q("temperature_rise_per_watt", gt=0) = 10.0
+    """Winding-to-ambient thermal resistance, K/W."""
+    thermal_capacity: Q("heat_capacity", gt=0) = 20.0
+    """Heat capacity of winding and stator, J/K."""
+    ambient: Q("temperature", ge=-60, le=200) = 25.0
+    """Ambient temperature, degC."""
+    max_temperature: Q("temperature", gt=-60, le=400) = 100.0
+    """Highest acceptable winding temperature, degC (kept well below insulation class B, 130 degC)."""
+
+
+class Motor(Strict):
+    name: str | None = None
+    speed_constant: Q("speed_constant", gt=0, le=1e5) | None = None
+    """Kv, stored in rad/s per V."""
+    back_emf_constant: Q("back_emf", gt=0, le=1e3) | None = None
+    """k_e, V s/rad."""
+    torque_constant: Q("torque_constant", gt=0, le=1e3) | None = None
+    """k_t, N m/A (defaults to k_e: equal in SI for an ideal motor)."""
+    resistance: Q("resistance", ge=1e-6, le=1e6)
+    inductance: Q("inductance", ge=0, le=10) = 0.0
+    current_limit: Q("current", gt=0, le=1e4) | None = None
+    rotor_inertia: Q("inertia", ge=0, le=MAX_INERTIA) = 0.0
+    mass: Q("mass", ge=0, le=MAX_MASS_KG) = 0.0
+    thermal: MotorThermal = MotorThermal()
+
+    @model_validator(mode="after")
+    def _one_speed_constant(self):
+        if (self.speed_constant is None) == (self.back_emf_constant is None):
+            raise ValueError("@speed_constant: give exactly one of speed_constant (Kv) and back_emf_constant")
+        return self
+
+    @property
+    def k_e(self) -> float:
+        """Back-EMF constant, V s/rad."""
+        return self.back_emf_constant if self.back_emf_constant is not None else 1.0 / self.speed_constant
+
+    @property
+    def k_t(self) -> float:
+        """Torque constant, N m/A."""
+        return self.torque_constant if self.torque_constant is not None else self.k_e
+
+
+class Pwm(Strict):
+    resolution_bits: Annotated[int, Field(ge=1, le=31, strict=True)]
+    """Duty resolution, bits: firmware strategies get pwm_max = 2^bits - 1 and write a duty."""
+
+
+class Drive(Strict):
+    supply: Q("voltage", gt=0, le=1000)
+    """Supply voltage, V; the commanded voltage is clamped to +-supply."""
+    brake_torque: Q("torque", gt=0, le=MAX_TORQUE) | None = None
+    """A mechanical brake on the wheel (for brake-to-jump strategies), N m."""
+    pwm: Pwm | None = None
+    """Optional, read by firmware strategies only (no PWM model: a duty acts as its mean voltage)."""
+
+
+class AngleSensor(Strict):
+    counts_per_rev: Annotated[int, Field(ge=4, le=2**31, strict=True)] | None = None
+    noise: Q("angle", ge=0, le=MAX_ANGLE_NOISE) = 0.0
+    bias: Q("angle", ge=-MAX_ANGLE_NOISE, le=MAX_ANGLE_NOISE) = 0.0
+
+
+class RateGyro(Strict):
+    noise: Q("angular_speed", ge=0, le=MAX_SPEED) = 0.0
+    bias: Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED) = 0.0
+
+
+class WheelSensor(Strict):
+    counts_per_rev: Annotated[int, Field(ge=4, le=2**31, strict=True)] | None = None
+    noise: Q("angular_speed", ge=0, le=MAX_SPEED) = 0.0
+
+
+class Sensors(Strict):
+    rate: Q("frequency", gt=0, le=100_000) = 500.0
+    """Control loop rate, Hz."""
+    delay: Q("time", ge=0, le=1.0) = 0.0
+    """Measurement delay, s (rounded to whole physics steps)."""
+    angle: AngleSensor = AngleSensor()
+    rate_gyro: RateGyro | None = None
+    """Absent: the body rate is estimated from successive angle readings."""
+    wheel: WheelSensor = WheelSensor()
+
+
+class Start(Strict):
+    angle: Q("angle", ge=-1e3, le=1e3) = 0.0
+    rate: Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED) = 0.0
+    wheel_speed: Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED) = 0.0
+
+
+class Push(Strict):
+    at: Q("time", ge=0)
+    impulse: Q("impulse", ge=-MAX_TORQUE, le=MAX_TORQUE)
+    """Angular impulse about the pivot, N m s, applied over one physics step."""
+
+
+class Trial(Strict):
+    duration: Q("time", gt=0) = 10.0
+    start: Start = Start()
+    pushes: Annotated[list[Push], Field(max_length=1000)] = []
+    seed: Annotated[int, Field(ge=0, lt=2**63, strict=True)] = 0
+    stop_early: bool = False
+    """True ends the trial as soon as its outcome is settled (used by sweeps and bisection)."""
+
+
+class Requirements(Strict):
+    """Limits the `check` battery judges against. Defaults are our choice unless noted."""
+
+    wheel_speed_margin: Q("fraction", ge=0, lt=1) = 0.2
+    """Peak wheel speed must stay this far below the no-load speed at the supply."""
+    settle_time: Q("time", gt=0) = 2.0
+    """From the catch until the angle stays within 1 degree, s."""
+    swing_up_time: Q("time", gt=0) = 10.0
+    """From hanging to caught, s (strategies that swing up)."""
+    min_push: Q("impulse", ge=0) = 0.005
+    """Smallest angular impulse about the pivot the design must survive, N m s."""
+    burst_safety_factor: Annotated[float, Field(gt=0, le=1000, allow_inf_nan=False)] = 4.0
+    """On stress at the runaway speed; 4 on the across-layer strength is a suggested minimum for
+    printed parts (references.md, [mem])."""
+    pass_fraction: Q("fraction", ge=0, le=1) = 0.95
+    """Share of Monte Carlo trials over the tolerances that must pass."""
+    voltage_headroom: Q("fraction", ge=0, lt=1) = 0.1
+    """While holding: 1 - (99th percentile |V|) / supply."""
+    current_headroom: Q("fraction", ge=0, lt=1) = 0.1
+    """While holding: 1 - (99th percentile |i|) / (current limit, or stall current without one)."""
+    hold_time: Q("time", ge=1, le=3600) = 60.0
+    """Length of the long holds that measure the wheel's slow drift under an angle bias, s."""
+    run_time: Q("time", gt=0) = 600.0
+    """How long the device must run before its wheel drifts to its speed limit, s (a demo's length)."""
+
+
+def _strategy_from_raw(raw: Any, info: ValidationInfo) -> StrategySpec:
+    from ..strategies import spec_from_raw
+    return spec_from_raw(raw, info)
+
+
+class Scenario(Strict):
+    name: str = "unnamed"
+    description: str = ""
+    world: World = World()
+    body: Body
+    wheel: Wheel
+    motor: Motor
+    drive: Drive
+    sensors: Sensors = Sensors()
+    strategy: Annotated[StrategySpec, BeforeValidator(_strategy_from_raw)]
+    trial: Trial = Trial()
+    requirements: Requirements = Requirements()
+    tolerances: dict[str, float | str] | None = None
+    """Monte Carlo tolerances: dotted key -> "10%" (relative) or a quantity (absolute); see `sim.model.tolerances`.
+    None: the defaults in `sim.model.tolerances.DEFAULT_TOLERANCES`."""
+    source: str = "<memory>"
+    """Where the scenario came from (for messages)."""
+
+    @model_validator(mode="after")
+    def _step_counts(self):
+        steps = self.trial.duration / self.world.step
+        if steps > MAX_STEPS:
+            raise ValueError(f"@trial.duration: {self.trial.duration:g} s at a {self.world.step:g} s step needs "
+                             f"{steps:.3g} steps; the limit is {MAX_STEPS:.0e}")
+        req = self.requirements   # `check` runs trials of these lengths too: the same limit holds
+        for key, seconds in (("swing_up_time", req.swing_up_time + req.settle_time + 1.0), ("hold_time", req.hold_time)):
+            if seconds / self.world.step > MAX_STEPS:
+                raise ValueError(f"@requirements.{key}: check's {seconds:g} s trial at a {self.world.step:g} s step "
+                                 f"needs {seconds / self.world.step:.3g} steps; the limit is {MAX_STEPS:.0e}")
+        ratio = 1.0 / (self.sensors.rate * self.world.step)
+        if ratio < 0.999 or abs(ratio - round(ratio)) > 1e-6 * ratio:
+            raise ValueError(f"@sensors.rate: the control period (1/{self.sensors.rate:g} Hz) must be a whole "
+                             f"number of physics steps ({self.world.step:g} s); "
+                             + step_suggestion(self.sensors.rate, self.world.step))
+        for i, push in enumerate(self.trial.pushes):  # the trial applies a push on step round(at/step)
+            if round(push.at / self.world.step) >= self.n_steps:
+                raise ValueError(f"@trial.pushes[{i}].at: a push at {push.at:g} s is at or after the end of the "
+                                 f"trial ({self.trial.duration:g} s) and would never be applied")
+        if self.tolerances is not None:
+            from .tolerances import parse_tolerances
+            parse_tolerances(self, self.tolerances)  # raises ValueError("@tolerances.<key>: ...")
+        return self
+
+    @model_validator(mode="after")
+    def _wheel_spins(self):
+        # a wheel of point masses on its axis has no spin inertia: the run would divide by zero
+        from .massprops import wheel_props
+        spin = wheel_props(self.wheel.parts, rotor_inertia=self.motor.rotor_inertia).inertia_com[0]
+        if spin <= 0.0 and not self.wheel.inertia_correction:  # a correction is checked below
+            raise ValueError("@wheel.parts: the wheel's spin inertia is 0 kg m^2 (only point masses on its axis); "
+                             "give it a part with a size (a disk or ring), copies off the axis, or motor.rotor_inertia")
+        return self
+
+    @model_validator(mode="after")
+    def _corrected_inertias_positive(self):
+        # a fitted correction may be negative; the corrected inertias must stay physical
+        from .massprops import body_props, wheel_props
+        corr = self.body.inertia_correction
+        if corr:
+            extra = [(self.motor.mass, self.wheel.at)] if self.motor.mass else []
+            own = body_props(self.body.parts, extra_point_masses=extra).inertia_com[0]
+            if own + corr <= 0.0:
+                raise ValueError(f"@body.inertia_correction: {corr:.4g} kg m^2 would make the body's inertia "
+                                 f"about its centre of mass ({own:.4g} kg m^2) zero or negative")
+        corr = self.wheel.inertia_correction
+        if corr:
+            own = wheel_props(self.wheel.parts, rotor_inertia=self.motor.rotor_inertia).inertia_com[0]
+            if own + corr <= 0.0:
+                raise ValueError(f"@wheel.inertia_correction: {corr:.4g} kg m^2 would make the wheel's spin "
+                                 f"inertia ({own:.4g} kg m^2) zero or negative")
+        return self
+
+    @property
+    def control_steps(self) -> int:
+        """Physics steps per control tick."""
+        return int(round(1.0 / (self.sensors.rate * self.world.step)))
+
+    @property
+    def n_steps(self) -> int:
+        return int(round(self.trial.duration / self.world.step))
+
+
+# ----------------------------------------------------------------------------- loading
+
+class _GuardedLoader(Yaml12Loader):
+    """PyYAML's safe loader reading numbers as YAML 1.2 does (`sim.core.yaml12`), with caps on aliases
+    and on the nodes the document holds once every alias is expanded (a small file must not expand
+    into a huge one: 22 aliases that each repeat the one before twice make 4 million nodes), and no
+    recursive aliases."""
+
+    def construct_document(self, node):
+        _check_expanded_size(node)
+        return super().construct_document(node)
+
+    def compose_node(self, parent, index):
+        if self.check_event(yaml.AliasEvent):
+            self._aliases = getattr(self, "_aliases", 0) + 1
+            if self._aliases > MAX_ALIASES:
+                raise yaml.YAMLError(f"more than {MAX_ALIASES} aliases")
+        return super().compose_node(parent, index)
+
+    def construct_mapping(self, node, deep=False):
+        # YAML forbids repeated keys; PyYAML keeps the last silently, hiding a typo'd edit
+        seen = set()
+        for key_node, _ in node.value:
+            key = key_node.value if isinstance(key_node, yaml.ScalarNode) else None
+            if key in seen and key != "<<":
+                raise yaml.MarkedYAMLError(problem=f"duplicate key {key!r}", problem_mark=key_node.start_mark)
+            if key is not None:
+                seen.add(key)
+        return super().construct_mapping(node, deep=deep)
+
+
+def _check_expanded_size(root) -> None:
+    """Count `root`'s nodes as they are after alias expansion (a shared node counts once per
+    reference), without expanding anything; raise a YAMLError past MAX_NODES or on a cycle."""
+    sizes: dict[int, int] = {}
+    open_: set[int] = set()
+
+    def size(node) -> int:
+        key = id(node)
+        if key in sizes:
+            return sizes[key]
+        if key in open_:
+            raise yaml.MarkedYAMLError(problem="an alias refers to a node that contains it (a recursive structure)",
+                                       problem_mark=node.start_mark)
+        total = 1
+        if isinstance(node, (yaml.SequenceNode, yaml.MappingNode)):
+            open_.add(key)
+            items = node.value if isinstance(node, yaml.SequenceNode) else [n for pair in node.value for n in pair]
+            for child in items:
+                total += size(child)
+                if total > MAX_NODES:
+                    raise yaml.MarkedYAMLError(problem=f"more than {MAX_NODES:,} values once its aliases are "
+                                               "expanded", problem_mark=node.start_mark)
+            open_.discard(key)
+        sizes[key] = total
+        return total
+
+    size(root)
+
+
+def read_yaml(path: Path) -> Any:
+    """Parse a YAML file safely. Raises ScenarioError naming the file on any problem."""
+    from ..core.textfiles import read_text_file
+    text = read_text_file(path, max_bytes=MAX_FILE_BYTES, what="a scenario", error=ScenarioError)
+    return parse_yaml_text(text, where=str(path))
+
+
+def parse_yaml_text(text: str, *, where: str) -> Any:
+    try:
+        return yaml.load(text, Loader=_GuardedLoader)  # noqa: S506 - a SafeLoader subclass
+    except yaml.constructor.ConstructorError as exc:
+        problem = str(getattr(exc, "problem", "") or "")
+        if "unhashable key" in problem:  # a list or mapping used as a key: `? [a, b]` or `{[1]: x}`
+            mark = exc.problem_mark or exc.context_mark
+            at = f"at line {mark.line + 1}, column {mark.column + 1}: " if mark is not None else ""
+            raise ScenarioError(f"{where}: {at}a key must be a plain word or number, found a list or mapping "
+                                "used as a key") from None
+        if "constructor for the tag" not in problem:
+            raise ScenarioError(f"{where}: YAML error {_yaml_where(exc)}") from None
+        raise ScenarioError(f"{where}: YAML tags that construct objects are not allowed ({_yaml_where(exc)})") from None
+    except yaml.YAMLError as exc:
+        raise ScenarioError(f"{where}: YAML syntax error {_yaml_where(exc)}".rstrip()) from None
+    except RecursionError:
+        raise ScenarioError(f"{where}: YAML nested too deeply") from None
+
+
+def _yaml_where(exc: yaml.YAMLError) -> str:
+    mark = getattr(exc, "problem_mark", None)
+    problem = getattr(exc, "problem", None) or str(exc).splitlines()[0]
+    if mark is not None:
+        return f"at line {mark.line + 1}, column {mark.column + 1}: {problem}"
+    return str(problem)
+
+
+def load_scenario(path: str | Path | None = None, *, overrides: tuple[str, ...] | list[str] = (),
+                  data: dict | None = None) -> Scenario:
+    """Load, override and validate a scenario.
+
+    Parameters
+    ----------
+    path : file to read; None means the bundled default demo (unless `data` is given).
+    overrides : "key.path=value" strings, applied to the raw mapping before validation.
+    data : an already-parsed mapping (then `path` only names it in messages).
+    """
+    raw, where = load_raw(path, overrides, data=data)
+    return validate_loaded(raw, where=where)
+
+
+def validate_loaded(raw: dict, *, where: str) -> Scenario:
+    """`validate_scenario` plus the checks made once per load, not per perturbed copy: each
+    tolerance's band ends must give valid scenarios (`sim.model.tolerances.check_band_ends`)."""
+    sc = validate_scenario(raw, where=where)
+    from .tolerances import check_band_ends
+    check_band_ends(raw, sc, where=where, validate=lambda trial: validate_scenario(trial, where=where))
+    return sc
+
+
+def load_raw(path: str | Path | None = None, overrides=(), *, data: dict | None = None) -> tuple[dict, str]:
+    """Read a scenario file (or the bundled default) and apply overrides: (raw mapping, where).
+
+    The raw mapping is what sweeps and Monte Carlo perturb and validate again per trial.
+    """
+    if path is None and data is None:
+        path = default_scenario_path()
+    where = str(path) if path is not None else "<scenario>"
+    raw = read_yaml(Path(path)) if data is None else data
+    if raw is None:
+        raise ScenarioError(f"{where}: the file is empty")
+    if not isinstance(raw, dict):
+        raise ScenarioError(f"{where}: expected a mapping of scenario keys at the top, found {type(raw).__name__}")
+    from .overrides import apply_overrides
+    notes: list[str] = []
+    out = apply_overrides(raw, tuple(overrides or ()), where=where, notes=notes)
+    if notes:  # said only when the result is valid: bad input still gets exactly one line
+        validate_loaded(out, where=where)
+        import sys
+        for note in notes:
+            print(note, file=sys.stderr)
+    return out, where
+
+
+def validate_scenario(raw: dict, *, where: str) -> Scenario:
+    base_dir = Path(where).parent if where and not where.startswith("<") else Path.cwd()
+    raw = dict(raw)
+    raw.pop("source", None)
+    try:
+        # a mapping given in memory (no file) comes from Python code: its plug-ins may lie anywhere
+        sc = Scenario.model_validate(raw, context={"base_dir": base_dir, "in_memory": where.startswith("<")})
+    except ValidationError as exc:
+        raise ScenarioError(f"{where}: {describe_validation_error(exc, Scenario)}") from None
+    except RecursionError:
+        raise ScenarioError(f"{where}: scenario nested too deeply") from None
+    return sc.model_copy(update={"source": where})
+
+
+def default_scenario_path() -> Path:
+    return Path(__file__).parent / "data" / "desk_pendulum.yaml"

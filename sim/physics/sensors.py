@@ -1,0 +1,96 @@
+"""Sensors: what the strategy sees of the true state, at the control rate.
+
+Each reading is taken from the true state `delay` seconds earlier (rounded to whole physics
+steps), then:
+- angle: quantised by an encoder (floor to whole counts), plus a fixed bias and white noise,
+  wrapped to (-pi, pi];
+- body rate: a rate gyro (true rate + bias + noise), or, with no gyro, the backward difference
+  of successive angle readings over one control period;
+- wheel speed: from encoder counts over one control period when `counts_per_rev` is set,
+  else the true relative speed; plus white noise.
+Noise is Gaussian with the given standard deviation, drawn from the trial's seeded generator.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..core.angles import wrap_angle
+
+NOISE_CHUNK = 4096  # control ticks of noise drawn and converted to Python floats at a time
+
+
+class SensorSuite:
+    """Turns true-state history into measured values. `read(k)` is called on control ticks only."""
+
+    def __init__(self, sensors, *, step_s: float, n_ticks: int, rng: np.random.Generator):
+        self.delay_steps = int(round(sensors.delay / step_s))
+        self.period_s = 1.0 / sensors.rate
+        a, g, w = sensors.angle, sensors.rate_gyro, sensors.wheel
+        self.angle_res = 2 * math.pi / a.counts_per_rev if a.counts_per_rev else 0.0
+        self.angle_bias, self.angle_noise = a.bias, a.noise
+        self.has_gyro = g is not None
+        self.gyro_bias = g.bias if g else 0.0
+        self.gyro_noise = g.noise if g else 0.0
+        self.wheel_res = 2 * math.pi / w.counts_per_rev if w.counts_per_rev else 0.0
+        self.wheel_noise = w.noise
+        # The trial's noise is the first n_ticks x 3 standard normals of the trial's generator, as if
+        # drawn up front, but read a chunk at a time from a private copy of the stream (a 5,000 s
+        # trial would otherwise hold 60 MB of it); the trial's generator is moved past the same
+        # draws, a chunk at a time, so whatever draws from it next sees the same numbers.
+        self.n_ticks = max(n_ticks, 1)
+        self._noise_rng = np.random.Generator(type(rng.bit_generator)())
+        self._noise_rng.bit_generator.state = rng.bit_generator.state
+        for start in range(0, self.n_ticks, NOISE_CHUNK):
+            rng.standard_normal((min(NOISE_CHUNK, self.n_ticks - start), 3))
+        self._last_row: list = []
+        self.tick = 0
+        self.prev_angle: float | None = None
+        self.prev_wheel_counts = 0.0
+        self._chunk: list = []       # the next rows of `noise` as Python floats (cheaper per tick)
+        self._chunk_end = 0
+
+    def _noise_row(self) -> list:
+        """This tick's three standard-normal draws (the last row again if the trial outruns them)."""
+        i = self.tick
+        if i >= self._chunk_end:
+            if i >= self.n_ticks:
+                return self._last_row
+            self._chunk = self._noise_rng.standard_normal((min(NOISE_CHUNK, self.n_ticks - i), 3)).tolist()
+            self._chunk_end = i + len(self._chunk)
+            self._last_row = self._chunk[-1]
+        return self._chunk[i - self._chunk_end + len(self._chunk)]
+
+    def read(self, k: int, angle: np.ndarray, rate: np.ndarray, wheel_angle: np.ndarray,
+             wheel_speed: np.ndarray) -> tuple[float, float, float]:
+        """(angle rad, body rate rad/s, wheel speed rad/s) as measured at physics step k.
+
+        The arrays are the true-state history (the trace's columns), filled up to index k.
+        """
+        j = k - self.delay_steps
+        if j < 0:
+            j = 0
+        n = self._noise_row()
+        self.tick += 1
+        theta = float(angle[j])
+        if self.angle_res:
+            theta = math.floor(theta / self.angle_res) * self.angle_res
+        theta_m = wrap_angle(theta + self.angle_bias + self.angle_noise * n[0])
+        if self.has_gyro:
+            rate_m = float(rate[j]) + self.gyro_bias + self.gyro_noise * n[1]
+        elif self.prev_angle is None:
+            rate_m = 0.0
+        else:
+            rate_m = wrap_angle(theta_m - self.prev_angle) / self.period_s
+        self.prev_angle = theta_m
+        if self.wheel_res:
+            counts = math.floor(float(wheel_angle[j]) / self.wheel_res)
+            if self.tick == 1:
+                self.prev_wheel_counts = math.floor(wheel_angle[j] / self.wheel_res - wheel_speed[j] * self.period_s / self.wheel_res)
+            wheel_m = (counts - self.prev_wheel_counts) * self.wheel_res / self.period_s
+            self.prev_wheel_counts = counts
+        else:
+            wheel_m = float(wheel_speed[j])
+        return theta_m, rate_m, wheel_m + self.wheel_noise * n[2]

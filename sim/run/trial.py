@@ -1,0 +1,536 @@
+"""The trial runner: one scenario, one strategy, one simulated trial -> trace + outcome.
+
+The loop, per physics step: read the joint states -> (on control ticks) sensors -> strategy ->
+(every step) drive and motor -> friction and pushes -> engine step. A strategy that raises,
+returns nonsense or runs past its time budget, and a state that turns non-finite or absurd, end
+the trial with an outcome; they never raise out of `run_trial`. A plug-in's trial runs in a forked
+child process (`sim.core.isolation`), so that strategy code stuck in compiled code, or crashing, is an
+outcome too.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+import time
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from ..core import isolation
+from ..core.angles import wrap_angle
+from ..core.budget import AFTER_S, StrategyClock, StrategyTimeout
+from ..core.errors import StrategyError
+from ..core.exception_text import describe_exception, exception_parts
+from ..model.device import Device
+from ..physics.engine import EngineModel
+from ..physics.motor import MotorDrive
+from ..physics.sensors import SensorSuite
+from ..strategies import plugins_in
+from ..strategies.base import Reading
+from .causes import find_cause
+from .metrics import saturated_ticks
+from .trace import Trace
+
+OUTCOMES = ("balanced", "fell", "not_caught", "diverged", "strategy_failed", "completed")
+ABSURD_RATE_RAD_S = 1e4          # a body spinning at 1,600 rev/s is a numerical blow-up
+ABSURD_WHEEL_FACTOR = 20.0       # wheel beyond 20x its no-load speed: likewise
+ABSURD_ANGLE_RAD = 1e6           # ~160,000 turns: the unwrapped angle has run away
+STRATEGY_BUDGET_S = 60.0
+"""Default wall-clock budget, s, for all strategy work in one trial (building it and every
+control tick together). The built-in laws use well under 1 s for a minute of simulated time;
+a plug-in past the budget ends the trial with outcome `strategy_failed`."""
+
+
+@dataclass
+class TrialResult:
+    """What a trial produced. `outcome` is one of OUTCOMES; `message` explains failures.
+
+    `ended_at_s` is where simulated time stopped: the full duration, or the time of the step
+    at which the run diverged, the strategy failed or (with stop_early) the body fell.
+    """
+
+    outcome: str
+    message: str | None
+    trace: Trace
+    device: Device
+    scenario: object
+    caught_at_s: float | None
+    fell_at_s: float | None
+    ended_at_s: float
+    control_ticks: int
+    saturated_ticks: int
+    wall_s: float
+    strategy: object = None
+    events: list = field(default_factory=list)
+    cause: str | None = None            # why a trial that is not balanced/completed ended so (sim.run.causes)
+    cause_detail: str | None = None     # one sentence with the figures behind `cause`
+
+
+class _WatchedClock(StrategyClock):
+    """A StrategyClock that also keeps the watchdog's heartbeat: isolated trials only (see
+    `sim.core.isolation`), so that the in-process loop pays nothing for it."""
+
+    def __init__(self, budget_s: float, beat: isolation.Heartbeat):
+        super().__init__(budget_s)
+        self.beat = beat
+
+    def enter(self, k: int = -1) -> None:
+        super().enter(k)
+        self.beat.entered(k, self.t_in + max(self.budget_s - self.used_s, 0.0) + isolation.GRACE_S)
+
+    def leave(self) -> None:
+        self.beat.left(getattr(self.strategy, "saturated_ticks", 0))
+        super().leave()
+
+    def abandon(self) -> None:
+        self.beat.left(getattr(self.strategy, "saturated_ticks", 0))
+        super().abandon()
+
+    def after(self, work, fallback):
+        # the watchdog covers these calls too (strategy code stuck in C while being pickled, say)
+        left = self.budget_s - min(self.used_s, self.budget_s - AFTER_S)
+        self.beat.entered(int(self.beat.slots[isolation.Heartbeat.STEP]), time.perf_counter() + left + isolation.GRACE_S)
+        try:
+            return super().after(work, fallback)
+        finally:
+            self.beat.left(int(self.beat.slots[isolation.Heartbeat.SATURATED]))
+
+
+class _PublishedTrace(Trace):
+    """A shared trace whose phase names also go to the heartbeat as they appear (isolated trials):
+    the parent cannot ask a child it had to kill for them."""
+
+    def __init__(self, capacity: int, *, step_s: float, beat: isolation.Heartbeat):
+        super().__init__(capacity, step_s=step_s, shared=True)
+        self.beat = beat
+
+    def phase_code(self, phase: str) -> int:
+        known = len(self.phases)
+        code = super().phase_code(phase)
+        if len(self.phases) != known:
+            self.beat.publish_phases(self.phases)
+        return code
+
+
+def run_trial(scenario, *, seed: int | None = None, stop_early: bool | None = None,
+              visual=None, on_step=None, strategy_budget_s: float | None = None,
+              isolate: bool | None = None) -> TrialResult:
+    """Simulate one trial of `scenario`.
+
+    Parameters
+    ----------
+    seed : overrides `trial.seed` (all randomness of the trial comes from it).
+    stop_early : overrides `trial.stop_early` (end as soon as the outcome is settled).
+    visual : optional visual model for rendering (see `sim.media.render`); None for none.
+    on_step : optional callable(k, engine) after every engine step (rendering hooks).
+    strategy_budget_s : wall-clock budget for strategy code, s (default STRATEGY_BUDGET_S).
+    isolate : run the trial in a forked child process watched by this one (`sim.core.isolation`), so
+        that strategy code stuck in compiled code or crashing ends as `strategy_failed` instead of
+        hanging or killing this process. None (default): exactly when the strategy, or one nested
+        in it, is a plug-in, no `visual` is given and the platform can fork. The numbers are the
+        same either way; an `on_step` hook then runs in the child (its exceptions and attributes
+        come back, other side effects stay there).
+    """
+    device = Device.from_scenario(scenario)
+    seed = scenario.trial.seed if seed is None else seed
+    stop_early = scenario.trial.stop_early if stop_early is None else stop_early
+    budget = STRATEGY_BUDGET_S if strategy_budget_s is None else strategy_budget_s
+    if isolate is None:
+        isolate = visual is None and isolation.AVAILABLE and bool(plugins_in(scenario.strategy))
+    if not isolate:
+        trace = Trace(scenario.n_steps, step_s=scenario.world.step)
+        return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
+                         visual=visual, on_step=on_step)
+    if visual is not None or not isolation.AVAILABLE:
+        raise ValueError("isolate=True needs os.fork and no visual (rendering runs in this process only)")
+    return _run_isolated(scenario, device, budget, seed=seed, stop_early=stop_early, on_step=on_step)
+
+
+def _simulate(scenario, device, trace, clock, *, seed, stop_early, visual, on_step) -> TrialResult:
+    """The trial in this process, its rows into `trace`, its strategy timed by `clock`."""
+    dt, n = scenario.world.step, scenario.n_steps
+    rng = np.random.default_rng(seed)
+    start = scenario.trial.start
+    engine = EngineModel(device, step_s=dt, start_angle_rad=start.angle, visual=visual)
+    try:
+        engine.reset(angle_rad=start.angle, rate_rad_s=start.rate, wheel_speed_rad_s=start.wheel_speed)
+        if n > 0:  # where the body starts, recorded even if the strategy cannot be built
+            trace.angle[0], trace.rate[0], trace.wheel_angle[0], trace.wheel_speed[0] = engine.read()
+        sensors = SensorSuite(scenario.sensors, step_s=dt, n_ticks=n // scenario.control_steps + 1, rng=rng)
+        with clock:
+            strategy, failure = _build_strategy(scenario, device, rng, clock)
+            clock.strategy = strategy
+            result = _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock)
+            return _settle_extra_metrics(result, clock)
+    finally:
+        engine.close()
+
+
+def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step) -> TrialResult:
+    """The trial in a forked child (`sim.core.isolation`): its rows land in a shared trace, the rest of
+    its result comes back pickled. A child stuck in strategy code or dead ends as strategy_failed."""
+    from .parallel import _warm_imports
+    # What a child would otherwise build for itself every time, it inherits: the heavy modules, and
+    # an idle engine client holding this device's body (connecting and building cost ~25 ms).
+    _warm_imports()
+    EngineModel(device, step_s=scenario.world.step, start_angle_rad=scenario.trial.start.angle).close()
+    beat = isolation.Heartbeat()
+    try:
+        trace = _PublishedTrace(scenario.n_steps, step_s=scenario.world.step, beat=beat)
+    except OSError:     # no room for a shared trace, in the temporary folder or in memory: run here
+        trace = Trace(scenario.n_steps, step_s=scenario.world.step)
+        return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
+                         visual=None, on_step=on_step)
+    clock = _WatchedClock(budget, beat)
+
+    def work():
+        result = _simulate(scenario, device, trace, clock, seed=seed, stop_early=stop_early, visual=None,
+                           on_step=on_step)
+        # pickling the strategy's attributes may run its code as well
+        strategy = clock.after(lambda: isolation.pack_strategy(result.strategy), None)
+        return replace(result, trace=None, device=None, scenario=None, strategy=strategy), trace.n, trace.phases
+
+    sent, lost = isolation.run_in_child(work, beat=beat, mirror=on_step)
+    if lost is not None:
+        return _lost_child_result(scenario, device, trace, budget, lost)
+    result, trace.n, trace.phases = sent
+    return replace(result, trace=trace, device=device, scenario=scenario,
+                   strategy=isolation.unpack_strategy(result.strategy, device=device))
+
+
+def _lost_child_result(scenario, device, trace, budget: float, lost: isolation.LostChild) -> TrialResult:
+    """strategy_failed at the step of the lost child's last strategy call, with the conventions of the
+    in-process failure: row k holds the state at the failure, the tick's measurements and held mode."""
+    dt, cs = scenario.world.step, scenario.control_steps
+    building, k = lost.step < 0, max(lost.step, 0)
+    cause = (f"strategy code did not return within its {budget:g} s budget (stuck in compiled code?)"
+             if lost.stuck else f"the strategy's process died ({lost.how})")
+    message = (f"building the strategy failed: {cause}" if building
+               else f"{cause} at control tick {k // cs} (t = {k * dt:.4f} s)")
+    if not building:  # the call never returned: the phase is the one held from the tick before
+        trace.mode[k] = trace.mode[k - cs] if k >= cs else 0
+    trace.phases = list(lost.phases)
+    strategy = isolation.record_from_spec(scenario.strategy, device=device, saturated_ticks=lost.saturated)
+    ticks = 0 if building else k // cs + 1
+    return _result(scenario, device, trace, strategy, "strategy_failed", message, k, None, None, False,
+                   False, ticks, lost.wall_s)
+
+
+def _build_strategy(scenario, device, rng, clock):
+    """(strategy, None), or (None, message) when building it fails: an outcome, like failing later."""
+    try:
+        clock.enter()
+        # the strategy gets its own copy of the device: what it does to it never reaches the
+        # runner's motor, drive limits or metrics
+        strategy = scenario.strategy.build(copy.deepcopy(device), rng=rng)
+        clock.leave()
+        return strategy, None
+    except BaseException as exc:  # noqa: B036 - whatever strategy code raises is its failure
+        clock.t_in = None           # first, and no call before it: no timeout is raised into the runner now
+        if isinstance(exc, KeyboardInterrupt) and clock.user_interrupt:
+            raise                   # the user's Ctrl-C, not the strategy's
+        text = clock.after(lambda: describe_exception(exc), _unread(exc))   # __str__ is theirs: timed
+        clock.abandon()
+        return None, f"building the strategy failed: {text}"
+
+
+EXTRA_METRICS_DROPPED = "extra_metrics_dropped"
+"""The key that says what of a strategy's `extra_metrics` was left out, and why."""
+
+MAX_EXTRA_TEXT = 1000
+"""Longest text value, characters, kept from a strategy's `extra_metrics`."""
+
+
+def _settle_extra_metrics(result: TrialResult, clock: StrategyClock) -> TrialResult:
+    """Replace the strategy's `extra_metrics` with a plain dict of JSON values (`clean_extra_metrics`),
+    read under the strategy's clock (reading it may run strategy code). A strategy whose attribute
+    cannot be replaced is swapped for an `isolation.StrategyRecord` of itself."""
+    strategy = result.strategy
+    if strategy is None:
+        return result
+    late = {EXTRA_METRICS_DROPPED: "extra_metrics could not be read within the strategy's time"}
+    clean, settled = clock.after(lambda: _read_extra_metrics(strategy, clock), (late, False))
+    if settled or clean is None:
+        return result
+    record = clock.after(lambda: isolation.unpack_strategy(isolation.pack_strategy(strategy), device=result.device),
+                         None)
+    if record is None:  # not even its attributes could be read in time: what the scenario says
+        record = isolation.record_from_spec(result.scenario.strategy, device=result.device,
+                                            saturated_ticks=result.saturated_ticks)
+    record.extra_metrics = clean
+    return replace(result, strategy=record)
+
+
+def _read_extra_metrics(strategy, clock: StrategyClock) -> tuple[dict | None, bool]:
+    """(the cleaned extra metrics or None when there are none, whether the strategy now holds them)."""
+    try:
+        raw = getattr(strategy, "extra_metrics", None)
+        clean = None if raw is None else clean_extra_metrics(raw)
+    except BaseException as exc:  # noqa: B036 - a property or container of the strategy's raised
+        _reraise_ours(exc, clock)
+        clean = {EXTRA_METRICS_DROPPED: f"extra_metrics could not be read ({describe_exception(exc)})"}
+    if clean is None:
+        return None, True
+    try:
+        strategy.extra_metrics = clean
+        return clean, strategy.extra_metrics is clean
+    except BaseException as exc:  # noqa: B036 - a read-only or hostile attribute
+        _reraise_ours(exc, clock)
+        return clean, False
+
+
+def _reraise_ours(exc: BaseException, clock: StrategyClock) -> None:
+    """Raise `exc` again when it is not the strategy's: the clock's timeout or the user's Ctrl-C."""
+    if isinstance(exc, StrategyTimeout) or (isinstance(exc, KeyboardInterrupt) and clock.user_interrupt):
+        raise exc
+
+
+def clean_extra_metrics(raw) -> dict:
+    """A strategy's `extra_metrics` as metrics.json can hold it: a dict with text keys whose values
+    are None, booleans, numbers, text (up to MAX_EXTRA_TEXT characters) or lists and dicts of those.
+    Whatever else is left out, and EXTRA_METRICS_DROPPED says what and why."""
+    if not isinstance(raw, dict):
+        return {EXTRA_METRICS_DROPPED: f"extra_metrics must be a dict, found {type(raw).__name__}"}
+    clean, dropped = {}, []
+    for key, value in list(dict.items(raw))[:1000]:
+        value = _json_value(value, depth=0) if type(key) is str else _DROP
+        if value is _DROP:
+            dropped.append(key if type(key) is str else f"a {type(key).__name__} key")
+        else:
+            clean[key] = value
+    if len(raw) > 1000:
+        dropped.append(f"{len(raw) - 1000} keys past the first 1000")
+    if dropped:
+        shown = ", ".join(repr(d) for d in dropped[:10]) + (", ..." if len(dropped) > 10 else "")
+        clean[EXTRA_METRICS_DROPPED] = f"left out (not JSON numbers, text, lists or dicts): {shown}"
+    return clean
+
+
+_DROP = object()
+
+
+def _json_value(value, *, depth: int):
+    """`value` as plain JSON data, or _DROP. Only exact built-in types (and numpy scalars) pass, so
+    no strategy code runs while checking."""
+    if isinstance(value, np.generic) and value.dtype.kind in "biuf":
+        value = value.item()
+    if value is None or type(value) is bool:
+        return value
+    if type(value) is int:
+        return value if -2**63 <= value < 2**64 else _DROP
+    if type(value) is float:
+        return value
+    if type(value) is str:
+        return value if len(value) <= MAX_EXTRA_TEXT else _DROP
+    if depth < 3 and type(value) in (list, tuple) and len(value) <= 1000:
+        items = [_json_value(v, depth=depth + 1) for v in value]
+        return _DROP if any(v is _DROP for v in items) else items
+    if depth < 3 and type(value) is dict and len(value) <= 1000:
+        items = {k: _json_value(v, depth=depth + 1) for k, v in dict.items(value)}
+        if any(type(k) is not str or v is _DROP for k, v in items.items()):
+            return _DROP
+        return items
+    return _DROP
+
+
+def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock) -> TrialResult:
+    dt, n, cs = scenario.world.step, scenario.n_steps, scenario.control_steps
+    outcome, message = ("strategy_failed", failure) if failure else (None, None)
+    reading = Reading()
+    release = getattr(getattr(strategy, "params", None), "release_angle", math.pi)
+    wants_balance = strategy is not None and strategy.goal == "balance"
+    # the supply as the scenario states it: nothing the strategy holds (its `supply_v`, its device)
+    supply = float(scenario.drive.supply)
+    fallen = None  # the trace's phase code "fallen", once a body has fallen
+    motor = MotorDrive(device, step_s=dt)
+    pushes = _push_schedule(scenario, dt, n)
+    next_push, push_torque = pushes.pop() if pushes else (-1, 0.0)
+    wheel_limit = ABSURD_WHEEL_FACTOR * device.no_load_speed_rad_s + 100.0
+    bp, bw = device.pivot_viscous_n_m_s, device.wheel_viscous_n_m_s
+    brake_on, open_circuit, volts, mode, phase, name = False, False, 0.0, 0, None, None
+    meas = (0.0, 0.0, 0.0)
+    catch_k = fell_k = None
+    fall_final = False
+    ticks = 0
+    # the columns through memoryviews: a Python float in or out costs about half what numpy's
+    # item access does, and the loop writes six to eleven values a step (the same memory)
+    t_angle, t_rate, t_wangle, t_wspeed = (memoryview(c) for c in (trace.angle, trace.rate, trace.wheel_angle,
+                                                                   trace.wheel_speed))
+    t_volt, t_cur, t_torq, t_mode = (memoryview(c) for c in (trace.voltage, trace.current, trace.torque, trace.mode))
+    t_ma, t_mr, t_mw = (memoryview(c) for c in (trace.meas_angle, trace.meas_rate, trace.meas_wheel))
+    read, advance = engine.io()
+    command = strategy.command if strategy is not None else None
+    sense, enter, leave, update = sensors.read, clock.enter, clock.leave, motor.update
+    # Angles at the instant of their rates. The engine's semi-implicit Euler step moves each angle
+    # with the rate at the step's end (w[k+1] = w[k] + a dt, x[k+1] = x[k] + w[k+1] dt), so its
+    # angle x[k] = x[0] + dt (w[1] + ... + w[k]) runs half a step ahead of the rate w[k] (which is
+    # at t = k dt: the motor's step-mean current gives each step's exact impulse). Recorded, and
+    # read by the sensors, is the trapezoid integral of the rates from the start angle, i.e.
+    # x[k] - (w[k] - w[0]) dt / 2: row 0 is the start angle exactly.
+    half_dt = 0.5 * dt
+    thd0, phd0 = (float(trace.rate[0]), float(trace.wheel_speed[0])) if n > 0 else (0.0, 0.0)  # as read at the start
+    k = 0
+    wall0 = time.perf_counter()
+    while k < n and outcome is None:
+        th, thd, ph, phd = read()
+        t_angle[k], t_rate[k] = th - (thd - thd0) * half_dt, thd
+        t_wangle[k], t_wspeed[k] = ph - (phd - phd0) * half_dt, phd
+        # written as inside-the-range tests so that NaN fails them too
+        if not (-ABSURD_RATE_RAD_S < thd < ABSURD_RATE_RAD_S and -wheel_limit < phd < wheel_limit
+                and -ABSURD_ANGLE_RAD < th < ABSURD_ANGLE_RAD):
+            outcome, message = "diverged", f"the state became non-finite or absurd at t = {k * dt:.4f} s"
+            break
+        if k % cs == 0:
+            t = k * dt
+            meas = sense(k, t_angle, t_rate, t_wangle, t_wspeed)
+            reading.t_s, reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = t, meas[0], meas[1], meas[2]
+            ticks += 1
+            t_ma[k], t_mr[k], t_mw[k] = meas  # before the call: an isolated child may never come back
+            try:
+                enter(k)
+                volts = command(reading)
+                if not -supply <= volts <= supply:  # the drive's limit, whatever the strategy did
+                    volts = _drive_limit(volts, supply)
+                if strategy.phase != phase:
+                    phase = strategy.phase
+                    name = str(phase)   # the strategy's own __str__: timed with it
+                if strategy.brake != brake_on:
+                    brake_on = _set_brake(engine, device, bool(strategy.brake))
+                open_circuit = bool(strategy.open_circuit)
+                leave()
+            except BaseException as exc:  # noqa: B036 - the strategy's failure is its outcome
+                clock.t_in = None       # first, and no call before it: no timeout is raised into the runner now
+                if isinstance(exc, KeyboardInterrupt) and clock.user_interrupt:
+                    raise               # the user's Ctrl-C, not the strategy's
+                message = clock.after(lambda: _describe(exc, t), _describe_unread(exc, t))  # __str__ is theirs
+                clock.abandon()
+                outcome = "strategy_failed"
+                t_mode[k] = mode if name is None else trace.phase_code(name)  # a phase named before the failure
+                break
+            if name is not None:    # the runner's bookkeeping, not charged to the strategy's budget
+                mode, name = trace.phase_code(name), None
+            # held until the next tick: written once here, copied down the tick's rows at the end
+            t_volt[k], t_mode[k] = (0.0 if open_circuit else volts), mode
+            if wants_balance:
+                inside = abs(wrap_angle(th)) <= release
+                if strategy.balancing and inside:
+                    if catch_k is None and not fall_final:
+                        catch_k, fell_k = k, None
+                elif catch_k is not None:
+                    fell_k, catch_k = k, None
+                    # a balance-only law that did not hand over will not catch it again; a swing-up
+                    # supervisor sees the angle through its sensors a little later and may catch it again
+                    fall_final = strategy.balancing and not getattr(strategy, "swings_up", False)
+                    if stop_early and fall_final:
+                        outcome = "fell"  # this step still runs; the loop ends after it
+                if fell_k is not None and catch_k is None and strategy.balancing:
+                    # the law still says "balance", but the body is down: the trace says so
+                    fallen = trace.phase_code("fallen") if fallen is None else fallen
+                    t_mode[k] = fallen
+        if open_circuit:
+            motor.current, cur, torque = 0.0, 0.0, 0.0
+        else:
+            cur, torque = update(volts, phd)
+        pivot_torque = -bp * thd
+        if k == next_push:
+            pivot_torque += push_torque
+            next_push, push_torque = pushes.pop() if pushes else (-1, 0.0)
+        advance(pivot_torque, torque - bw * phd)
+        t_cur[k], t_torq[k] = cur, torque
+        if on_step is not None:
+            on_step(k, engine)
+        k += 1
+    wall = time.perf_counter() - wall0
+    return _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, fall_final,
+                   wants_balance, ticks, wall)
+
+
+def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, fall_final,
+            wants_balance, ticks, wall) -> TrialResult:
+    """Close the trace and judge the outcome. `k` is the step the loop stopped at."""
+    dt, n = scenario.world.step, scenario.n_steps
+    if outcome in ("diverged", "strategy_failed") and k < n:
+        # row k holds the state at the failure (nothing was applied after it); time ends there
+        trace.n, ended = k + 1, k * dt
+    elif outcome == "fell":
+        trace.n, ended = k, (fell_k if fell_k is not None else k) * dt
+    else:
+        trace.n, ended = k, k * dt
+    trace.t[: trace.n] = np.arange(trace.n) * dt
+    _hold_tick_values(trace, scenario.control_steps)
+    if outcome in ("diverged", "strategy_failed") and k < n:
+        trace.voltage[k] = 0.0  # nothing was applied after the failure
+    if outcome is None:
+        outcome = _final_outcome(wants_balance, strategy, catch_k, fell_k, fall_final)
+    result = TrialResult(
+        outcome=outcome, message=message, trace=trace, device=device, scenario=scenario,
+        # a body balanced from the first step was never caught: it started inside the catch region
+        caught_at_s=catch_k * dt if (catch_k and outcome == "balanced") else None,
+        fell_at_s=fell_k * dt if fell_k is not None else None, ended_at_s=ended,
+        control_ticks=ticks, saturated_ticks=saturated_ticks(trace, scenario.control_steps, scenario.drive.supply),
+        wall_s=wall, strategy=strategy,
+    )
+    result.cause, result.cause_detail = find_cause(result)
+    return result
+
+
+def _hold_tick_values(trace: Trace, cs: int) -> None:
+    """Copy each control tick's held values (voltage, mode, measurements) down to the rows until
+    the next tick: the loop writes them on tick rows only."""
+    rows = (np.arange(trace.n) // cs) * cs
+    for col in (trace.voltage, trace.mode, trace.meas_angle, trace.meas_rate, trace.meas_wheel):
+        col[: trace.n] = col[rows]
+
+
+def _push_schedule(scenario, dt: float, n: int) -> list[tuple[int, float]]:
+    """Pushes as (step, torque N m) in reverse time order, to be popped; pushes on one step add up."""
+    torques: dict[int, float] = {}
+    for p in scenario.trial.pushes:
+        k = int(round(p.at / dt))
+        torques[k] = torques.get(k, 0.0) + p.impulse / dt
+    return sorted(torques.items(), reverse=True)
+
+
+def _final_outcome(wants_balance, strategy, catch_k, fell_k, fall_final) -> str:
+    if not wants_balance:
+        return "completed"
+    if catch_k is not None:
+        return "balanced"
+    return "fell" if fell_k is not None else "not_caught"
+
+
+def _drive_limit(volts, supply_v: float) -> float:
+    """A command outside +-supply_v clamped to it, V. A command that is no finite number (possible
+    from a strategy that replaces `command`) ends the trial, as the base's own check does."""
+    try:
+        v = float(volts)
+    except (TypeError, ValueError):
+        raise StrategyError(f"the strategy's command was {type(volts).__name__}, not a voltage") from None
+    if not math.isfinite(v):
+        raise StrategyError(f"the strategy's command was a non-finite voltage ({v})")
+    return math.copysign(supply_v, v)
+
+
+def _set_brake(engine, device, on: bool) -> bool:
+    if on and device.brake_torque_n_m is None:
+        raise StrategyError("the strategy engaged a brake, but the scenario has no drive.brake_torque")
+    wheel = device.wheel_coulomb_n_m + (device.brake_torque_n_m if on else 0.0)
+    engine.set_dry_friction(pivot_n_m=device.pivot_coulomb_n_m, wheel_n_m=wheel)
+    return on
+
+
+def _unread(exc: BaseException) -> str:
+    """The failure's name alone, for an exception whose message did not come in time."""
+    return f"{type(exc).__name__} (its message could not be read in time)"
+
+
+def _describe_unread(exc: BaseException, t: float) -> str:
+    return f"{type(exc).__name__} at t = {t:.4f} s (its message could not be read in time)"
+
+
+def _describe(exc: BaseException, t: float) -> str:
+    """"Type at t = ... s: first line of the message"; never raises (see describe_exception)."""
+    name, text = exception_parts(exc)
+    text = text.splitlines()[0] if text else ""
+    return f"{name} at t = {t:.4f} s" + (f": {text}" if text else "")
