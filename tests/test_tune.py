@@ -159,8 +159,8 @@ def test_a_killed_tune_resumes_to_the_requested_count_with_none_repeated_or_lost
 def test_pareto_front_keeps_only_non_dominated_designs():
     # definition of Pareto dominance (at least as good in every objective, better in one; any
     # multi-objective optimisation text): push maximised, peak current minimised
-    from sim.tune_outputs import pareto_front
-    from sim.tune_study import Evaluation
+    from sim.studies.tune_outputs import pareto_front
+    from sim.studies.tune_study import Evaluation
 
     def ev(n, push, amps):
         return Evaluation(n, {}, {"error": None, "criteria": [], "objectives": [push, amps]}, 0)

@@ -184,7 +184,7 @@ def tune_figure(evals: list[Evaluation], params: list[Param], objectives: list[s
 
 def _pareto_panel(ax, evals: list[Evaluation], objectives: list[str]) -> None:
     """Two objectives against each other: every evaluation, the Pareto front of the passing ones joined."""
-    from .plots import ACCENT, INK, MUTED
+    from ..media.plots import ACCENT, INK, MUTED
     ax.cla()
     for e in evals:
         a, b = e.row["objectives"][:2]
