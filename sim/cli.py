@@ -286,7 +286,8 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
     from .core.options import check_trials
     from .core.outputs import check_out_path, prepare_out_dir
     from .media.plots import save_figure
-    from .studies.sweep import check_color, parse_vary, run_sweep, sweep_figure
+    from .studies.sweep import parse_vary, run_sweep
+    from .studies.sweep_figure import check_color, sweep_figure
     check_color(color)
     check_trials(trials, minimum=0)
     check_out_path(out)
