@@ -34,7 +34,7 @@ SeedOpt = typer.Option(None, "--seed", callback=_check_seed,
 
 
 def _load(scenario: Optional[Path], overrides: Optional[List[str]]):
-    from .model.scenario import load_scenario
+    from .model.scenario_yaml import load_scenario
     sc = load_scenario(scenario, overrides=tuple(overrides or ()))
     _announce_plugins(sc)
     return sc
@@ -220,13 +220,13 @@ def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers:
     """The raw scenario mapping (re-validated per trial by check, sweep and catch-map), options checked first."""
     from .core.errors import InputError
     from .core.options import check_cluster, check_workers
-    from .model.scenario import load_raw
+    from .model.scenario_yaml import load_raw
     check_workers(workers)
     check_cluster(cluster)
     if workers is not None and cluster is not None:
         raise InputError("--workers and --cluster: give one (the cluster's scheduler decides its workers)")
     raw, where = load_raw(scenario, tuple(overrides or ()))
-    from .model.scenario import validate_loaded
+    from .model.scenario_yaml import validate_loaded
     _announce_plugins(validate_loaded(raw, where=where))  # bad input fails here, before an --out folder is made
     return raw, where
 
@@ -322,7 +322,7 @@ def tune(scenario: Optional[Path] = ScenarioArg,
     from .core.errors import InputError
     from .core.options import MAX_TRIALS, check_trials
     from .core.outputs import check_out_path, prepare_out_dir
-    from .model.scenario import default_scenario_path
+    from .model.scenario_yaml import default_scenario_path
     from .studies.tune_outputs import run_tune
     from .studies.verdicts import DEFAULT_TRIALS
     check_trials(trials)

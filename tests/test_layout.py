@@ -188,7 +188,7 @@ def test_the_public_paths_stay():
 
 def test_the_bundled_scenario_and_header_are_where_the_code_looks():
     # package data moved with their layers (pyproject.toml package-data); the demo link follows
-    from sim.model.scenario import default_scenario_path
+    from sim.model.scenario_yaml import default_scenario_path
     from sim.strategies.firmware import HEADER
     assert default_scenario_path().is_file() and HEADER.is_file()
     link = SIM.parent / "scenarios" / "desk_pendulum.yaml"

@@ -11,7 +11,7 @@ import pytest
 
 from sim.cli import main
 from sim.core.errors import InputError
-from sim.model.scenario import load_raw
+from sim.model.scenario_yaml import load_raw
 from sim.studies.sweep import JOURNAL, parse_vary, run_sweep
 from test_verdicts import fast_raw, write_scenario
 

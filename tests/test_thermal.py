@@ -5,7 +5,7 @@ import math
 import numpy as np
 from scipy.integrate import solve_ivp
 
-from sim.model.scenario import load_scenario
+from sim.model.scenario_yaml import load_scenario
 from sim.studies.thermal import COPPER_TEMPCO_PER_K, steady_temperature_c, temperature_history_c, winding_check
 
 
