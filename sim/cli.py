@@ -231,7 +231,6 @@ def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers:
     return raw, where
 
 
-
 @app.command()
 def check(scenario: Optional[Path] = ScenarioArg,
           out: Path = typer.Option(Path("runs/check"), "--out", help="Output folder."),

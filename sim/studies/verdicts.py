@@ -398,7 +398,6 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
     }
 
 
-
 def _run_criteria(sc, metrics: dict, push_value: float, worse: str) -> list[dict]:
     """Criteria judged from the simulated runs: swing-up, hold, settling, push, wheel speed."""
     req = sc.requirements
