@@ -26,7 +26,7 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 
-from sim.model.scenario import load_scenario  # noqa: E402
+from sim.model.scenario_yaml import load_scenario
 from sim.run.trial import run_trial  # noqa: E402
 
 EXAMPLE = HERE.parent / "scenarios" / "firmware" / "desk_firmware.yaml"

@@ -52,7 +52,7 @@ def machine() -> str:
 
 def full_fidelity_scenario(seconds: float):
     """The bundled demo (motor with friction, encoders, gyro, 2 ms delay) with LQR at 500 Hz."""
-    from sim.model.scenario import load_scenario
+    from sim.model.scenario_yaml import load_scenario
 
     sc = load_scenario(None, overrides=FULL_FIDELITY + [f"trial.duration={seconds}"])
     assert sc.sensors.rate == 500 and sc.world.step == 1e-3 and sc.sensors.delay > 0

@@ -29,7 +29,7 @@ MEMORY = ["strategy={kind: lqr}", "trial.pushes=[]", "trial.start.angle=3 deg", 
 
 
 def _raw(overrides):
-    from sim.model.scenario import load_raw
+    from sim.model.scenario_yaml import load_raw
 
     return load_raw(None, tuple(overrides))
 

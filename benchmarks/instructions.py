@@ -32,7 +32,7 @@ import ctypes, sys
 sys.path[:0] = [{root!r}, {bench!r}]
 helper = ctypes.CDLL({lib!r})
 from sim.model.device import Device
-from sim.model.scenario import load_scenario
+from sim.model.scenario_yaml import load_scenario
 from sim.run.trial import run_trial
 from yardsticks import bare_engine_rtf
 sc = load_scenario(None, overrides=["strategy={{kind: lqr}}", "trial.pushes=[]", "trial.start.angle=3 deg",

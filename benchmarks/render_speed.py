@@ -29,7 +29,7 @@ def _cpu_s() -> float:
 
 
 def main(argv=None) -> int:
-    from sim.model.scenario import load_scenario
+    from sim.model.scenario_yaml import load_scenario
     from sim.run.trial import run_trial
     from sim.media.video import DEFAULT_FPS, parse_size, render_scale_for, write_clip
 

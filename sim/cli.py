@@ -9,6 +9,7 @@ from typing import List, Optional
 
 import typer
 
+from .cli_print import dim, print_run, print_tune, progress
 from .core.errors import WheelbenchError
 from .core.safety import SAFETY_LINE as SAFETY
 
@@ -33,7 +34,7 @@ SeedOpt = typer.Option(None, "--seed", callback=_check_seed,
 
 
 def _load(scenario: Optional[Path], overrides: Optional[List[str]]):
-    from .model.scenario import load_scenario
+    from .model.scenario_yaml import load_scenario
     sc = load_scenario(scenario, overrides=tuple(overrides or ()))
     _announce_plugins(sc)
     return sc
@@ -93,7 +94,7 @@ def run(scenario: Optional[Path] = ScenarioArg,
     if clip:
         check_clip_frames(sc.trial.duration, clip["fps"], option=f"--video {video}")
     result, metrics = run_to_folder(sc, out, seed=seed, force=force)
-    _print_run(sc, metrics, out)
+    print_run(sc, metrics, out)
     if clip:
         info = write_clip(result, clip.pop("path"), **clip)
         typer.echo(f"wrote {info.path} ({info.frames} frames, {info.duration_s:.2f} s at {info.fps} fps)")
@@ -219,23 +220,15 @@ def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers:
     """The raw scenario mapping (re-validated per trial by check, sweep and catch-map), options checked first."""
     from .core.errors import InputError
     from .core.options import check_cluster, check_workers
-    from .model.scenario import load_raw
+    from .model.scenario_yaml import load_raw
     check_workers(workers)
     check_cluster(cluster)
     if workers is not None and cluster is not None:
         raise InputError("--workers and --cluster: give one (the cluster's scheduler decides its workers)")
     raw, where = load_raw(scenario, tuple(overrides or ()))
-    from .model.scenario import validate_loaded
+    from .model.scenario_yaml import validate_loaded
     _announce_plugins(validate_loaded(raw, where=where))  # bad input fails here, before an --out folder is made
     return raw, where
-
-
-def _progress(label: str):
-    """A progress bar (sim.core.progress) as an on_progress(done, total) callback, and the Progress to close."""
-    from .core.progress import progress_bar
-    bar = progress_bar()
-    task = bar.add_task(label, total=None)
-    return bar, lambda done, total: bar.update(task, completed=done, total=total)
 
 
 @app.command()
@@ -256,7 +249,7 @@ def check(scenario: Optional[Path] = ScenarioArg,
     raw, where = _load_raw(scenario, set_, workers, cluster)  # validated there
     n = DEFAULT_TRIALS if trials is None else trials
     out_dir = prepare_out_dir(out, force=force)
-    bar, update = _progress("Monte Carlo")
+    bar, update = progress("Monte Carlo")
     with bar:
         done = [0]
 
@@ -264,7 +257,7 @@ def check(scenario: Optional[Path] = ScenarioArg,
             done[0] += 1
             update(done[0], n)
         outcome = run_check(raw, where, trials=n, workers=workers, cluster=cluster,
-                            on_stage=lambda text: bar.console.print(_dim(f"{text}...")), on_done=one_done)
+                            on_stage=lambda text: bar.console.print(dim(f"{text}...")), on_done=one_done)
     write_check_outputs(outcome, out_dir)
     print_verdict(outcome.verdict, out_dir)
     if not outcome.verdict["passed"]:
@@ -286,14 +279,15 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
     from .core.options import check_trials
     from .core.outputs import check_out_path, prepare_out_dir
     from .media.plots import save_figure
-    from .studies.sweep import check_color, parse_vary, run_sweep, sweep_figure
+    from .studies.sweep import parse_vary, run_sweep
+    from .studies.sweep_figure import check_color, sweep_figure
     check_color(color)
     check_trials(trials, minimum=0)
     check_out_path(out)
     raw, where = _load_raw(scenario, set_, workers, cluster)
     varies = [parse_vary(v) for v in vary]
     out_dir = prepare_out_dir(out, force=force, wait=wait)
-    bar, update = _progress("sweep")
+    bar, update = progress("sweep")
     with bar:
         points = run_sweep(raw, where, varies, out_dir, trials=trials, workers=workers, cluster=cluster,
                            on_progress=update, color=color)
@@ -327,7 +321,7 @@ def tune(scenario: Optional[Path] = ScenarioArg,
     from .core.errors import InputError
     from .core.options import MAX_TRIALS, check_trials
     from .core.outputs import check_out_path, prepare_out_dir
-    from .model.scenario import default_scenario_path
+    from .model.scenario_yaml import default_scenario_path
     from .studies.tune_outputs import run_tune
     from .studies.verdicts import DEFAULT_TRIALS
     check_trials(trials)
@@ -338,7 +332,7 @@ def tune(scenario: Optional[Path] = ScenarioArg,
     raw, where = _load_raw(scenario, None, workers, cluster)
     _tune_dry_check(raw, where, param or [], only, objective)
     out_dir = prepare_out_dir(out, force=force)
-    bar, update = _progress("tune")
+    bar, update = progress("tune")
     best = [None]
     with bar:
         def one_done(number, row):
@@ -351,7 +345,7 @@ def tune(scenario: Optional[Path] = ScenarioArg,
         outcome = run_tune(raw, where, Path(scenario) if scenario else default_scenario_path(), out_dir,
                            param_texts=param or [], only=only, objective=objective, n_trials=trials, mc_trials=mc,
                            workers=workers, cluster=cluster, seed=seed, storage=storage, on_done=one_done)
-    _print_tune(outcome, out_dir)
+    print_tune(outcome, out_dir)
     if outcome.winner is None:
         raise SystemExit(1)
 
@@ -367,38 +361,6 @@ def _tune_dry_check(raw, where, params, only, objective) -> None:
     keys = {p.key for p in given}
     space = ([] if only else [p for p in default_space(sc, Device.from_scenario(sc)) if p.key not in keys]) + given
     check_space(prefill(raw, sc, space), where, space)
-
-
-def _print_tune(outcome, out_dir: Path) -> None:
-    from rich.console import Console
-    from rich.markup import escape
-
-    from .studies.tune import OBJECTIVES, failed_criteria
-    console = Console()
-    obj = outcome.objectives[0]
-    unit = OBJECTIVES[obj][2]
-    start = next((e for e in outcome.evaluations if e.number == 0), None)
-    pick = outcome.winner or outcome.closest
-    for note in outcome.notes:
-        console.print(escape(f"note: {note}"))
-    if pick is None:
-        console.print("no evaluation finished")
-        return
-    value = pick.row["objectives"][0]
-    failing = failed_criteria(pick.row, outcome.objectives) or outcome.recheck_failed.get(pick.number, [])
-    head = (f"best: evaluation {pick.number}, {obj} {value:.4g} {unit}" if outcome.winner is not None else
-            f"no design passed; closest: evaluation {pick.number}, failing " + ", ".join(failing)
-            + (" in the full check" if not failed_criteria(pick.row, outcome.objectives) else ""))
-    if start is not None and start.row["objectives"][0] is not None and outcome.winner is not None:
-        head += f" (model-based start: {start.row['objectives'][0]:.4g} {unit})"
-    console.print(escape(head))
-    for p in outcome.params:
-        console.print(escape(f"  {p.key} = {pick.params[p.key]:.6g}"
-                             + (f" (start {p.start:.6g})" if p.start is not None else "") + f": {p.does}"))
-    if len(outcome.objectives) > 1:
-        console.print(escape(f"Pareto front: {len(outcome.front)} designs (tune.csv has every evaluation)"))
-    console.print(escape(f"wrote {out_dir}/" + ", ".join(outcome.written)))
-    console.print(f"[dim]{escape(SAFETY)}[/dim]")
 
 
 @app.command("catch-map")
@@ -425,7 +387,7 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
     from .studies.catchmap import check_map_options
     check_map_options(grid=grid, angle_max=limits[0], rate_max=limits[1])
     out_dir = prepare_out_dir(out, force=force)
-    bar, update = _progress("catch map")
+    bar, update = progress("catch map")
     with bar:
         result = catch_map(raw, where, grid=grid, angle_max=limits[0], rate_max=limits[1], workers=workers,
                            cluster=cluster, on_progress=update)
@@ -435,45 +397,6 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
                f"(angle +-{result['angle_max_rad']:.3f} rad, rate +-{result['rate_max_rad_s']:.3f} rad/s); "
                f"wrote {out_dir}/catch_map.csv, catch_map.png")
     typer.echo(SAFETY)
-
-
-def _print_run(sc, m: dict, out: Path) -> None:
-    from rich.console import Console
-    from rich.markup import escape
-    from rich.table import Table
-    from rich.text import Text
-
-    console = Console()
-    # user strings (names, plug-in paths, messages quoting them) are Text: never read as markup
-    table = Table(title=Text(f"{sc.name} - {m['strategy']}"), show_header=False, box=None)
-    rows = [
-        ("outcome", m["outcome"] + (f" ({m['message']})" if m.get("message") else "")),
-        *([("cause", escape(f"{m['cause']}: {m['cause_detail']}"))] if m.get("cause") else []),
-        *([("fell at", _fmt(m["fell_at_s"], "s") + " (totals up to here)")] if m.get("fell_at_s") is not None else []),
-        ("caught at", _fmt(m["caught_at_s"], "s")), ("settle time", _fmt(m["settle_time_s"], "s")),
-        ("peak wheel speed", f"{_fmt(m['peak_wheel_speed_rad_s'], 'rad/s')} of {m['wheel_speed_limit_rad_s']:.1f} rad/s"),
-        ("peak current", f"{_fmt(m['peak_current_a'], 'A')} (rms {_fmt(m['rms_current_a'], 'A')})"),
-        ("voltage saturated", f"{100 * m['voltage_saturated_fraction']:.1f}% of ticks"),
-        ("energy from supply", _fmt(m["energy_from_supply_j"], "J")),
-        ("real-time factor", _fmt(m["real_time_factor"], "x")),
-    ]
-    for p in m.get("pushes", []):
-        rows.append((f"push {p['impulse_n_m_s'] * 1000:.1f} mN m s at {p['at_s']:.2f} s",
-                     "survived" if p["survived"] else "not survived"))
-    for k, v in rows:
-        table.add_row(k, Text(v))
-    console.print(table)
-    console.print(Text(f"wrote {out}/metrics.json, trace.csv, summary.png"))
-
-
-def _dim(text: str):
-    """`text` dimmed, printed literally (no markup)."""
-    from rich.text import Text
-    return Text(text, style="dim")
-
-
-def _fmt(value, unit: str) -> str:
-    return "-" if value is None else f"{value:.4g} {unit}"
 
 
 def main(argv: Optional[list[str]] = None) -> int:

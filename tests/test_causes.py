@@ -116,7 +116,7 @@ def test_cause_is_in_the_run_table_and_metrics_json(tmp_path, capsys):
 
 
 def test_cause_is_in_the_sweeps_fail_reasons(tmp_path):
-    from sim.studies.verdicts import judge_trial
+    from sim.studies.monte_carlo import judge_trial
 
     row = judge_trial(CASES["voltage_at_supply"](tmp_path), seed=1)
     assert "fell (voltage_at_supply)" in row["fail_reasons"].split(";")

@@ -155,10 +155,10 @@ def test_headrooms_and_monte_carlo_fraction_on_a_bench_design_with_known_values(
     #   mean, (V/R) exp(-t_k/tau) (tau/dt) (1 - exp(-dt/tau)); p99 by numpy.percentile. rtol 1e-6.
     # - Monte Carlo over drive.supply +-40% (uniform): a trial passes when the wheel-speed margin
     #   1 - w_peak k_e / S >= 0.4; the wheel reaches V/k_e (1 - 2.3e-4) in 2 s, so the draws with
-    #   S >= 6 V / 0.6 = 10 V pass, and those below fail (none lies within 5 mV of 10 V). Draws from sim.studies.verdicts.monte_carlo (the check's own), the
+    #   S >= 6 V / 0.6 = 10 V pass, and those below fail (none lies within 5 mV of 10 V). Draws from sim.studies.monte_carlo.monte_carlo (the check's own), the
     #   fraction counted here from them; the check's criterion must report it.
     from conftest import scenario_dict
-    from sim.studies.verdicts import monte_carlo
+    from sim.studies.monte_carlo import monte_carlo
     from sim.model.scenario import validate_scenario
 
     raw = scenario_dict(world={"step": 0.002}, body={"locked": True}, strategy={"kind": "fixed_voltage", "volts": 6.0},

@@ -284,7 +284,7 @@ def test_summary_plot_drawn_beside_the_csv_matches_one_drawn_here(tmp_path, monk
     import os
 
     import sim.run.runfiles as runfiles
-    from sim.model.scenario import load_scenario
+    from sim.model.scenario_yaml import load_scenario
 
     sc = load_scenario(None, overrides=["trial.duration=1", "trial.pushes=[]"])
     runfiles.run_to_folder(sc, tmp_path / "forked")

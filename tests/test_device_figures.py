@@ -9,7 +9,7 @@ from numpy.testing import assert_allclose
 from sim.cli import main
 from sim.model.device import Device
 from sim.model.device_figures import device_figures
-from sim.model.scenario import load_scenario
+from sim.model.scenario_yaml import load_scenario
 from tests.conftest import scenario_dict, write_scenario
 
 

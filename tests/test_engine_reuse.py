@@ -6,7 +6,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from sim.model.scenario import load_raw, validate_scenario
+from sim.model.scenario import validate_scenario
+from sim.model.scenario_yaml import load_raw
 from sim.physics import engine as engine_mod
 from sim.run.trial import run_trial
 from tests.conftest import make_scenario

@@ -20,7 +20,7 @@ import yaml
 from sim.cli import main
 from sim.core import isolation
 from sim.model.device import Device
-from sim.model.scenario import load_scenario
+from sim.model.scenario_yaml import load_scenario
 from sim.run.trial import run_trial
 from sim.strategies.base import Reading
 from sim.strategies.firmware import build as fw_build

@@ -450,7 +450,7 @@ def _save(path, log: BenchLog) -> str:
 
 def test_cli_free_swing_writes_files_and_merged_scenario(tmp_path, capsys):
     from sim.cli import main
-    from sim.model.scenario import load_scenario
+    from sim.model.scenario_yaml import load_scenario
 
     sc, dev = pendulum_scenario()
     mgd = dev.mbar_kg_m * dev.gravity_m_s2
@@ -500,7 +500,7 @@ def test_cli_reads_rpm_and_milliseconds(tmp_path):
 
 def test_cli_spin_up_patch_replaces_speed_constant(tmp_path):
     from sim.cli import main
-    from sim.model.scenario import load_scenario
+    from sim.model.scenario_yaml import load_scenario
 
     csv = _save(tmp_path / "spin.csv", spin_up_log())
     scen = write_scenario(tmp_path / "bench.yaml", scenario_dict(body={"locked": True}))

@@ -14,7 +14,7 @@ from numpy.testing import assert_allclose
 
 from sim.cli import main
 from sim.model.device import Device
-from sim.model.scenario import load_scenario
+from sim.model.scenario_yaml import load_scenario
 from sim.strategies.lqr_design import design_lqr
 from tests.conftest import scenario_dict, write_scenario
 

@@ -14,7 +14,7 @@ import pytest
 
 from sim.cli import main
 from sim.core.errors import ScenarioError
-from sim.model.scenario import load_scenario
+from sim.model.scenario_yaml import load_scenario
 from sim.run.metrics import trial_metrics
 from sim.run.trial import run_trial
 from tests.conftest import scenario_dict, write_scenario

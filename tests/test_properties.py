@@ -18,7 +18,8 @@ from conftest import scenario_dict
 from sim.core.errors import InputError, ScenarioError
 from sim.core.units import KINDS, parse_quantity
 from sim.model.overrides import apply_overrides, parse_assignment
-from sim.model.scenario import Scenario, parse_yaml_text, validate_scenario
+from sim.model.scenario import Scenario, validate_scenario
+from sim.model.scenario_yaml import parse_yaml_text
 
 SETTINGS = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 

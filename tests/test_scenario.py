@@ -15,7 +15,7 @@ from numpy.testing import assert_allclose
 from conftest import make_scenario, scenario_dict, write_scenario
 from sim.core.errors import ScenarioError
 from sim.core.units import parse_quantity
-from sim.model.scenario import load_scenario
+from sim.model.scenario_yaml import load_scenario
 
 
 # ----------------------------------------------------------------------------- units
@@ -237,7 +237,7 @@ def test_a_scenario_reads_degc_per_watt_and_a_wheel_speed_in_hz():
     ("v: 2001-12-14", "2001-12-14"), ("v: true", True), ("v: False", False), ("v: ~", None), ("v: .inf", math.inf),
 ])
 def test_scenario_numbers_are_read_as_yaml_1_2(text, expected):
-    from sim.model.scenario import parse_yaml_text
+    from sim.model.scenario_yaml import parse_yaml_text
     value = parse_yaml_text(text, where="<t>")["v"]
     assert value == expected and type(value) is type(expected)
 

@@ -18,7 +18,7 @@ import yaml
 from numpy.testing import assert_allclose
 
 from sim.cli import main
-from sim.model.scenario import load_scenario
+from sim.model.scenario_yaml import load_scenario
 
 PLUGINS = Path(__file__).parent / "plugins"
 

@@ -12,7 +12,7 @@ from numpy.testing import assert_allclose
 
 from sim.core.angles import wrap_angles
 from sim.model.device import Device
-from sim.model.scenario import load_scenario
+from sim.model.scenario_yaml import load_scenario
 from sim.run.metrics import trial_metrics
 from sim.run.trial import run_trial
 from sim.strategies import BUILTIN, Reading, Strategy, builtin_class

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from sim.model.device import Device
-from sim.model.scenario import load_scenario
+from sim.model.scenario_yaml import load_scenario
 from sim.studies.stress import (bored_disk_stress_pa, radial_bar_stress_pa, solid_disk_stress_pa, thin_ring_stress_pa,
                                 wheel_burst_check)
 

@@ -11,7 +11,7 @@ import pytest
 
 from sim.cli import main
 from sim.core.errors import InputError
-from sim.model.scenario import load_raw
+from sim.model.scenario_yaml import load_raw
 from sim.studies.sweep import JOURNAL, parse_vary, run_sweep
 from test_verdicts import fast_raw, write_scenario
 
@@ -186,7 +186,7 @@ def test_results_csv_is_written_in_point_order_from_an_unordered_journal(tmp_pat
 def judged(monkeypatch):
     """Points judged without simulating (in-process, one worker): a record of the supplies judged;
     a supply of 11 V makes the point's work raise, as a value that breaks its trial does."""
-    import sim.studies.verdicts
+    import sim.studies.monte_carlo
     calls = []
 
     def judge(sc, *, seed):
@@ -194,7 +194,7 @@ def judged(monkeypatch):
         if abs(sc.drive.supply - 11.0) < 1e-9:
             raise FloatingPointError("a value this trial cannot take")
         return {"outcome": "balanced", "fail_reasons": ""}
-    monkeypatch.setattr(sim.studies.verdicts, "judge_trial", judge)
+    monkeypatch.setattr(sim.studies.monte_carlo, "judge_trial", judge)
     return calls
 
 

@@ -5,7 +5,7 @@ import math
 import numpy as np
 from scipy.integrate import solve_ivp
 
-from sim.model.scenario import load_scenario
+from sim.model.scenario_yaml import load_scenario
 from sim.studies.thermal import COPPER_TEMPCO_PER_K, steady_temperature_c, temperature_history_c, winding_check
 
 
@@ -71,7 +71,8 @@ def test_check_and_sweep_judge_the_winding_on_the_same_basis():
     from sim.model.scenario import validate_scenario
     from sim.studies.sweep import point_task
     from sim.studies.thermal import WINDING_BASIS
-    from sim.studies.verdicts import judge_trial, run_check
+    from sim.studies.monte_carlo import judge_trial
+    from sim.studies.verdicts import run_check
     raw = fast_raw(trial={"duration": "1.5 s", "start": {"angle": "3 deg"}, "seed": 3,
                           "pushes": [{"at": "0.5 s", "impulse": "8 mN*m*s"}]})
     thermal = run_check(raw, "t.yaml", trials=1, workers=1).verdict["thermal"]

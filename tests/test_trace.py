@@ -7,7 +7,8 @@ import os
 import numpy as np
 import pytest
 
-from sim.model.scenario import load_raw, validate_scenario
+from sim.model.scenario import validate_scenario
+from sim.model.scenario_yaml import load_raw
 from sim.run import trace as trace_mod
 from sim.run.trace import Trace, write_csv
 from sim.run.trial import run_trial

@@ -97,7 +97,7 @@ def test_tune_improves_the_push_over_brysons_lqr_without_failing_another_criteri
     assert verdict["max_push_survived_n_m_s"] > float(start["push_N_m_s"])
     assert "model-based start" in said and "strategy.weights[2]" in said
     # the winner as a scenario, with the found weights, loads and keeps the test file's keys
-    from sim.model.scenario import load_scenario
+    from sim.model.scenario_yaml import load_scenario
     best = load_scenario(out / "best_scenario.yaml")
     assert best.strategy.kind == "lqr" and len(best.strategy.params.weights) == 3
     assert (out / "tune.png").stat().st_size > 10_000

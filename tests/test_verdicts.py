@@ -15,7 +15,7 @@ import yaml
 from sim.cli import main
 from sim.core.errors import ScenarioError
 from sim.model.scenario import validate_scenario
-from sim.model.scenario import load_raw
+from sim.model.scenario_yaml import load_raw
 from sim.model.tolerances import perturbed_raw, scenario_tolerances
 from sim.studies.verdicts import max_push
 

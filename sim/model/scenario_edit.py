@@ -89,7 +89,8 @@ def apply_patches(scenario_path: str | Path, patches: list[dict], *, dest: str |
     Raises ScenarioError (naming the file and key) when the input or the merged scenario is
     invalid. Nothing is written here.
     """
-    from .scenario import read_yaml, validate_scenario, parse_yaml_text
+    from .scenario import validate_scenario
+    from .scenario_yaml import read_yaml, parse_yaml_text
 
     src = Path(scenario_path)
     read_yaml(src)                                  # the guarded loader's checks, once
@@ -185,7 +186,7 @@ def _rewrite_plugin_paths(node, src_dir: Path, dest_dir: Path, notes: list[str],
 
 def read_patch(path: str | Path) -> dict:
     """A patch file: a YAML mapping of scenario keys (read with the guarded loader)."""
-    from .scenario import read_yaml
+    from .scenario_yaml import read_yaml
     data = read_yaml(Path(path))
     if data is None:
         return {}

@@ -26,10 +26,10 @@ import numpy as np
 from ..core.safety import SAFETY_NOTES
 from ..model.device import Device
 from ..model.scenario import Push, validate_scenario
-from ..model.tolerances import interval_note, perturbed_raw, scenario_tolerances, trial_seed, wilson_interval
+from ..model.tolerances import interval_note
 from ..run.metrics import PUSH_RECOVER_S, SETTLE_BAND_RAD, trial_metrics
-from ..run.parallel import run_tasks
 from ..run.trial import run_trial
+from .monte_carlo import monte_carlo, outcome_with_cause
 from .stress import optimistic_summary, wheel_burst_check
 from .thermal import trial_rms_current_a, winding_check
 
@@ -297,73 +297,6 @@ def runaway_summary(holds: list[dict]) -> list[dict]:
     return out
 
 
-def judge_trial(scenario, *, seed: int) -> dict:
-    """Run a scenario's own trial and judge it against its requirements. A flat row, no traces."""
-    result = run_trial(scenario, seed=seed, stop_early=True)
-    m = trial_metrics(result)
-    req = scenario.requirements
-    reasons = []
-    if m["outcome"] not in ("balanced", "completed"):
-        reasons.append(_outcome(m))
-    if not all(p["survived"] for p in m["pushes"]):
-        reasons.append("push lost")
-    if result.strategy is not None and result.strategy.goal == "balance" and m["outcome"] == "balanced" and (
-            m["settle_time_s"] is None or m["settle_time_s"] > req.settle_time):
-        reasons.append("slow to settle")
-    if m["wheel_speed_margin"] is None or m["wheel_speed_margin"] < req.wheel_speed_margin:
-        reasons.append("wheel speed margin")
-    rms = trial_rms_current_a(result.trace.view("current"), result.trace.step_s, result.fell_at_s, result.caught_at_s)
-    temp = winding_check(scenario.motor, rms)["steady_winding_temperature_c"]
-    return {
-        "outcome": m["outcome"], "message": m["message"], "caught_at_s": m["caught_at_s"],
-        "settle_time_s": m["settle_time_s"], "peak_wheel_speed_rad_s": m["peak_wheel_speed_rad_s"],
-        "wheel_speed_margin": m["wheel_speed_margin"], "peak_current_a": m["peak_current_a"],
-        "rms_current_a": m["rms_current_a"], "winding_temperature_c": temp,
-        "pushes_survived": sum(p["survived"] for p in m["pushes"]), "pushes": len(m["pushes"]),
-        "passed": not reasons, "fail_reasons": ";".join(reasons),
-    }
-
-
-def monte_carlo_task(payload: dict) -> dict:
-    """One Monte Carlo trial (module-level so worker processes can run it).
-
-    payload: raw, where, tolerances (list of Tolerance), base_seed, index. Perturbs the raw
-    mapping, validates it again and judges its trial. An invalid perturbed design fails the trial.
-    """
-    from ..core.errors import ScenarioError
-    rng = np.random.default_rng(trial_seed(payload["base_seed"], payload["index"], 1))
-    raw, drawn = perturbed_raw(payload["raw"], payload["tolerances"], rng)
-    seed = trial_seed(payload["base_seed"], payload["index"])
-    try:
-        sc = validate_scenario(raw, where=payload["where"])
-    except ScenarioError as exc:
-        return {"outcome": "invalid", "message": str(exc), "passed": False, "fail_reasons": "invalid", "drawn": drawn,
-                "seed": seed}
-    row = judge_trial(sc, seed=seed)
-    row["drawn"], row["seed"] = drawn, seed
-    return row
-
-
-def monte_carlo(raw: dict, where: str, scenario, *, trials: int, workers: int | None = None, cluster=None,
-                on_done=None) -> dict:
-    """`trials` Monte Carlo trials over the scenario's tolerances; rows in trial order plus the pass fraction."""
-    tols = scenario_tolerances(scenario)
-    tasks = ((i, {"raw": raw, "where": where, "tolerances": tols, "base_seed": scenario.trial.seed, "index": i})
-             for i in range(trials))
-    rows: list = [None] * trials
-    for i, row in run_tasks(monte_carlo_task, tasks, workers=workers, cluster=cluster):
-        rows[i] = row
-        if on_done is not None:
-            on_done()
-    passed = sum(bool(r["passed"]) for r in rows)
-    low, high = wilson_interval(passed, trials) if trials else (None, None)
-    return {"trials": trials, "passed_trials": passed, "pass_fraction": passed / trials if trials else None,
-            "pass_fraction_low": low, "pass_fraction_high": high, "interval": "95% Wilson score interval",
-            "tolerances": {t.key: (f"{t.band:.4g} (relative)" if t.relative else f"{t.band:.6g} (absolute, SI)")
-                           for t in tols},
-            "rows": rows}
-
-
 # ----------------------------------------------------------------------------- the battery
 
 @dataclass
@@ -465,11 +398,6 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
     }
 
 
-def _outcome(m: dict) -> str:
-    """A run's outcome for a criterion's note, with its cause when it failed: "fell (bias_drift)"."""
-    return f"{m['outcome']} ({m['cause']})" if m.get("cause") else m["outcome"]
-
-
 def _run_criteria(sc, metrics: dict, push_value: float, worse: str) -> list[dict]:
     """Criteria judged from the simulated runs: swing-up, hold, settling, push, wheel speed."""
     req = sc.requirements
@@ -477,13 +405,13 @@ def _run_criteria(sc, metrics: dict, push_value: float, worse: str) -> list[dict
     if "swing_up" in metrics:
         m = metrics["swing_up"]
         crit.append(_at_most("swing_up_time_s", m["caught_at_s"] if m["outcome"] == "balanced" else None,
-                             req.swing_up_time, f"outcome {_outcome(m)}"))
+                             req.swing_up_time, f"outcome {outcome_with_cause(m)}"))
     hold, nominal = metrics["hold"], metrics["nominal"]
     crit.append(_criterion("hold_max_angle_rad", hold["max_angle_after_catch_rad"],
                            getattr(sc.strategy.params, "release_angle", math.pi), hold["outcome"] == "balanced",
-                           f"{HOLD_S:g} s upright with sensor noise: {_outcome(hold)}"))
+                           f"{HOLD_S:g} s upright with sensor noise: {outcome_with_cause(hold)}"))
     crit.append(_at_most("settle_time_s", nominal["settle_time_s"], req.settle_time,
-                         f"the scenario's own trial: {_outcome(nominal)}"))
+                         f"the scenario's own trial: {outcome_with_cause(nominal)}"))
     crit.append(_at_least("max_push_survived_n_m_s", push_value, req.min_push, f"worse direction: {worse}"))
     margins = [m["wheel_speed_margin"] for m in metrics.values()]
     margin = None if any(v is None for v in margins) else min(margins)

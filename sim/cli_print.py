@@ -1,0 +1,90 @@
+"""What the commands print on the terminal: the run table, tune's result, progress bars, dim notes.
+
+Beside `sim/cli.py` at the top of the layout (only the commands import it); the `check` table
+lives with its report (`sim.studies.verdict_report.print_verdict`). User strings (names, plug-in
+paths, messages quoting them) are printed as rich Text or escaped: never read as markup.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from .core.safety import SAFETY_LINE as SAFETY
+
+
+def progress(label: str):
+    """A progress bar (sim.core.progress) as an on_progress(done, total) callback, and the Progress to close."""
+    from .core.progress import progress_bar
+    bar = progress_bar()
+    task = bar.add_task(label, total=None)
+    return bar, lambda done, total: bar.update(task, completed=done, total=total)
+
+def print_tune(outcome, out_dir: Path) -> None:
+    from rich.console import Console
+    from rich.markup import escape
+
+    from .studies.tune import OBJECTIVES, failed_criteria
+    console = Console()
+    obj = outcome.objectives[0]
+    unit = OBJECTIVES[obj][2]
+    start = next((e for e in outcome.evaluations if e.number == 0), None)
+    pick = outcome.winner or outcome.closest
+    for note in outcome.notes:
+        console.print(escape(f"note: {note}"))
+    if pick is None:
+        console.print("no evaluation finished")
+        return
+    value = pick.row["objectives"][0]
+    failing = failed_criteria(pick.row, outcome.objectives) or outcome.recheck_failed.get(pick.number, [])
+    head = (f"best: evaluation {pick.number}, {obj} {value:.4g} {unit}" if outcome.winner is not None else
+            f"no design passed; closest: evaluation {pick.number}, failing " + ", ".join(failing)
+            + (" in the full check" if not failed_criteria(pick.row, outcome.objectives) else ""))
+    if start is not None and start.row["objectives"][0] is not None and outcome.winner is not None:
+        head += f" (model-based start: {start.row['objectives'][0]:.4g} {unit})"
+    console.print(escape(head))
+    for p in outcome.params:
+        console.print(escape(f"  {p.key} = {pick.params[p.key]:.6g}"
+                             + (f" (start {p.start:.6g})" if p.start is not None else "") + f": {p.does}"))
+    if len(outcome.objectives) > 1:
+        console.print(escape(f"Pareto front: {len(outcome.front)} designs (tune.csv has every evaluation)"))
+    console.print(escape(f"wrote {out_dir}/" + ", ".join(outcome.written)))
+    console.print(f"[dim]{escape(SAFETY)}[/dim]")
+
+
+def print_run(sc, m: dict, out: Path) -> None:
+    from rich.console import Console
+    from rich.markup import escape
+    from rich.table import Table
+    from rich.text import Text
+
+    console = Console()
+    # user strings (names, plug-in paths, messages quoting them) are Text: never read as markup
+    table = Table(title=Text(f"{sc.name} - {m['strategy']}"), show_header=False, box=None)
+    rows = [
+        ("outcome", m["outcome"] + (f" ({m['message']})" if m.get("message") else "")),
+        *([("cause", escape(f"{m['cause']}: {m['cause_detail']}"))] if m.get("cause") else []),
+        *([("fell at", _fmt(m["fell_at_s"], "s") + " (totals up to here)")] if m.get("fell_at_s") is not None else []),
+        ("caught at", _fmt(m["caught_at_s"], "s")), ("settle time", _fmt(m["settle_time_s"], "s")),
+        ("peak wheel speed", f"{_fmt(m['peak_wheel_speed_rad_s'], 'rad/s')} of {m['wheel_speed_limit_rad_s']:.1f} rad/s"),
+        ("peak current", f"{_fmt(m['peak_current_a'], 'A')} (rms {_fmt(m['rms_current_a'], 'A')})"),
+        ("voltage saturated", f"{100 * m['voltage_saturated_fraction']:.1f}% of ticks"),
+        ("energy from supply", _fmt(m["energy_from_supply_j"], "J")),
+        ("real-time factor", _fmt(m["real_time_factor"], "x")),
+    ]
+    for p in m.get("pushes", []):
+        rows.append((f"push {p['impulse_n_m_s'] * 1000:.1f} mN m s at {p['at_s']:.2f} s",
+                     "survived" if p["survived"] else "not survived"))
+    for k, v in rows:
+        table.add_row(k, Text(v))
+    console.print(table)
+    console.print(Text(f"wrote {out}/metrics.json, trace.csv, summary.png"))
+
+
+def dim(text: str):
+    """`text` dimmed, printed literally (no markup)."""
+    from rich.text import Text
+    return Text(text, style="dim")
+
+
+def _fmt(value, unit: str) -> str:
+    return "-" if value is None else f"{value:.4g} {unit}"
