@@ -322,6 +322,7 @@ def tune(scenario: Optional[Path] = ScenarioArg,
     from .core.options import MAX_TRIALS, check_trials
     from .core.outputs import check_out_path, prepare_out_dir
     from .model.scenario_yaml import default_scenario_path
+    from .studies.tune import failed_criteria, is_better, search_setup
     from .studies.tune_outputs import run_tune
     from .studies.verdicts import DEFAULT_TRIALS
     check_trials(trials)
@@ -330,37 +331,23 @@ def tune(scenario: Optional[Path] = ScenarioArg,
         raise InputError(f"--mc-trials {mc}: expected a whole number from 1 to {MAX_TRIALS:,}")
     check_out_path(out)
     raw, where = _load_raw(scenario, None, workers, cluster)
-    _tune_dry_check(raw, where, param or [], only, objective)
+    setup = search_setup(raw, where, param_texts=param or [], only=only, objective=objective)   # before --out
     out_dir = prepare_out_dir(out, force=force)
-    bar, update = progress("tune")
+    bar, _ = progress("tune")
     best = [None]
     with bar:
         def one_done(number, row):
-            v = row["objectives"][0]
-            if not row.get("error") and v is not None and all(c["passed"] for c in row["criteria"]
-                                                              if c["name"] != "max_push_survived_n_m_s"):
-                best[0] = v if best[0] is None else (max if objective.startswith(("push", "catch")) else min)(best[0], v)
+            v, first = row["objectives"][0], setup.objectives[0]
+            if v is not None and not failed_criteria(row, setup.objectives) and is_better(first, v, best[0]):
+                best[0] = v
             bar.update(bar.task_ids[0], description=f"tune (best {best[0]:.4g})" if best[0] is not None else "tune",
                        advance=1, total=trials)
-        outcome = run_tune(raw, where, Path(scenario) if scenario else default_scenario_path(), out_dir,
-                           param_texts=param or [], only=only, objective=objective, n_trials=trials, mc_trials=mc,
-                           workers=workers, cluster=cluster, seed=seed, storage=storage, on_done=one_done)
+        outcome = run_tune(setup, where, Path(scenario) if scenario else default_scenario_path(), out_dir,
+                           n_trials=trials, mc_trials=mc, workers=workers, cluster=cluster, seed=seed,
+                           storage=storage, on_done=one_done)
     print_tune(outcome, out_dir)
     if outcome.winner is None:
         raise SystemExit(1)
-
-
-def _tune_dry_check(raw, where, params, only, objective) -> None:
-    """Bad --param and --objective values fail before an --out folder is made."""
-    from .model.device import Device
-    from .model.scenario import validate_scenario
-    from .studies.tune import check_space, default_space, parse_objectives, parse_param, prefill
-    sc = validate_scenario(raw, where=where)
-    parse_objectives(objective, sc)
-    given = [parse_param(t) for t in params]
-    keys = {p.key for p in given}
-    space = ([] if only else [p for p in default_space(sc, Device.from_scenario(sc)) if p.key not in keys]) + given
-    check_space(prefill(raw, sc, space), where, space)
 
 
 @app.command("catch-map")

@@ -32,8 +32,7 @@ from pydantic import (BaseModel, BeforeValidator, ConfigDict, Field, ValidationE
 
 from ..core.errors import ScenarioError
 from ..core.units import Q
-from ..core.validation_messages import (describe_problems, describe_validation_error,  # noqa: F401 (re-exported)
-                                        format_path, short_repr, step_suggestion)
+from ..core.validation_messages import describe_problems, describe_validation_error, step_suggestion
 from ..strategies.base import StrategySpec
 
 MAX_STEPS = 5_000_000          # physics steps in one trial; more is a typo, not a plan
@@ -436,13 +435,16 @@ class Scenario(Strict):
         return int(round(self.trial.duration / self.world.step))
 
 
-def validate_scenario(raw: dict, *, where: str) -> Scenario:
+def validate_scenario(raw: dict, *, where: str, plugins_anywhere: bool = False) -> Scenario:
+    """Validate a raw mapping as the scenario file `where`. `plugins_anywhere`: plug-in files may
+    lie outside its folder (for a caller that reports where they lie instead of refusing)."""
     base_dir = Path(where).parent if where and not where.startswith("<") else Path.cwd()
     raw = dict(raw)
     raw.pop("source", None)
     try:
         # a mapping given in memory (no file) comes from Python code: its plug-ins may lie anywhere
-        sc = Scenario.model_validate(raw, context={"base_dir": base_dir, "in_memory": where.startswith("<")})
+        anywhere = plugins_anywhere or where.startswith("<")
+        sc = Scenario.model_validate(raw, context={"base_dir": base_dir, "in_memory": anywhere})
     except ValidationError as exc:
         raise ScenarioError(f"{where}: {describe_validation_error(exc, Scenario)}") from None
     except RecursionError:

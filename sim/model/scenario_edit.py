@@ -20,7 +20,6 @@ loader refuses (object tags, alias bombs, duplicate keys) reaches the round-trip
 
 from __future__ import annotations
 
-import contextlib
 import io
 import math
 import os
@@ -109,23 +108,9 @@ def apply_patches(scenario_path: str | Path, patches: list[dict], *, dest: str |
     buf = io.StringIO()
     _round_trip(source_text).dump(doc, buf)
     text = buf.getvalue()
-    with _plugins_outside_allowed():   # where the plug-in lives is said in a note, not refused here
-        validate_scenario(parse_yaml_text(text, where=str(dest)), where=str(dest))
+    # where a plug-in lies is said in a note (see _rewrite_plugin_paths), not refused here
+    validate_scenario(parse_yaml_text(text, where=str(dest)), where=str(dest), plugins_anywhere=True)
     return EditResult(text=text, notes=notes)
-
-
-@contextlib.contextmanager
-def _plugins_outside_allowed():
-    from ..strategies import ALLOW_OUTSIDE_ENV
-    before = os.environ.get(ALLOW_OUTSIDE_ENV)
-    os.environ[ALLOW_OUTSIDE_ENV] = "1"
-    try:
-        yield
-    finally:
-        if before is None:
-            os.environ.pop(ALLOW_OUTSIDE_ENV, None)
-        else:
-            os.environ[ALLOW_OUTSIDE_ENV] = before
 
 
 def _merge(root, node, patch: dict, path: tuple, notes: list[str]) -> None:

@@ -21,16 +21,14 @@ parameters, so none is lost or done twice, until the requested number has finish
 from __future__ import annotations
 
 import copy
-import json
 import math
 import re
 from dataclasses import dataclass
 
-import numpy as np
 
 from ..core.errors import InputError, ScenarioError
 from ..model.overrides import parse_path, set_path
-from ..model.tolerances import trial_seed, value_at
+from ..model.tolerances import value_at
 
 STUDY = "tune"
 RECHECK_BEST = 3
@@ -203,6 +201,38 @@ def value_at_raw(raw: dict, path: list):
         else:
             return None
     return node
+
+
+@dataclass(frozen=True)
+class SearchSetup:
+    """What a tune searches, checked: the validated scenario, the objectives, the space, and the raw
+    mapping with every searched key given a place (`prefill`)."""
+    scenario: object
+    objectives: list
+    params: list
+    raw: dict
+
+
+def search_setup(raw: dict, where: str, *, param_texts: list[str], only: bool, objective: str) -> SearchSetup:
+    """Check --objective and --param against the scenario and build the space (InputError or
+    ScenarioError on bad input, before anything is simulated or written)."""
+    from ..model.device import Device
+    from ..model.scenario import validate_scenario
+    sc = validate_scenario(raw, where=where)
+    objectives = parse_objectives(objective, sc)
+    given = [parse_param(t) for t in param_texts]
+    if only and not given:
+        raise InputError("--only: give the keys to search with --param KEY=LO..HI")
+    keys = {p.key for p in given}
+    params = ([] if only else [p for p in default_space(sc, Device.from_scenario(sc)) if p.key not in keys]) + given
+    filled = prefill(raw, sc, params)
+    check_space(filled, where, params)
+    return SearchSetup(sc, objectives, params, filled)
+
+
+def is_better(objective: str, value: float, than: float | None) -> bool:
+    """Is `value` of `objective` better than `than` (None: nothing yet)?"""
+    return than is None or (value > than if OBJECTIVES[objective][0] == "maximize" else value < than)
 
 
 def parse_objectives(text: str, sc) -> list[str]:

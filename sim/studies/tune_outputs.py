@@ -227,27 +227,16 @@ def importances(study, objectives: list[str]) -> dict | None:
 
 # ----------------------------------------------------------------------------- the whole tune
 
-def run_tune(raw: dict, where: str, scenario_path: Path, out_dir: Path, *, param_texts: list[str], only: bool,
-             objective: str, n_trials: int, mc_trials: int, workers: int | None, cluster, seed: int | None,
-             storage: str | None, on_done=None) -> TuneOutcome:
-    """Search, re-check the best with the full Monte Carlo, write the files. `out_dir` is prepared."""
-    from ..model.device import Device
-    from ..model.scenario import validate_scenario
-    from .tune import RECHECK_BEST, check_space, default_space, parse_objectives, parse_param, prefill
+def run_tune(setup, where: str, scenario_path: Path, out_dir: Path, *, n_trials: int, mc_trials: int,
+             workers: int | None, cluster, seed: int | None, storage: str | None, on_done=None) -> TuneOutcome:
+    """Search (`setup` from `tune.search_setup`), re-check the best with the full Monte Carlo, write
+    the files. `out_dir` is prepared."""
+    from .tune import RECHECK_BEST
     from .tune_study import open_study, run_study, study_spec
     from .verdict_report import write_check_outputs
     from .verdicts import run_check
 
-    sc = validate_scenario(raw, where=where)
-    objectives = parse_objectives(objective, sc)
-    given = [parse_param(t) for t in param_texts]
-    if only and not given:
-        from ..core.errors import InputError
-        raise InputError("--only: give the keys to search with --param KEY=LO..HI")
-    keys = {p.key for p in given}
-    params = ([] if only else [p for p in default_space(sc, Device.from_scenario(sc)) if p.key not in keys]) + given
-    raw = prefill(raw, sc, params)
-    check_space(raw, where, params)
+    sc, objectives, params, raw = setup.scenario, setup.objectives, setup.params, setup.raw
     base_seed = sc.trial.seed if seed is None else seed
     study = open_study(out_dir, storage=storage, spec=study_spec(raw, params, objectives, base_seed),
                        objectives=objectives, seed=base_seed, n_startup=min(10, max(3, n_trials // 4)))
