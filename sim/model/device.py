@@ -99,6 +99,13 @@ class Device:
         """sqrt(mbar g / J): the upright equilibrium's unstable pole with torque input, rad/s."""
         return math.sqrt(max(self.gravity_torque_coeff_n_m, 0.0) / self.J_kg_m2)
 
+    @property
+    def holdable_angle_rad(self) -> float:
+        """The largest lean the motor's stall torque can hold against gravity, asin(stall / mbar g), rad
+        (static torque balance, common practice, no source); pi when gravity needs no torque."""
+        mgd = self.gravity_torque_coeff_n_m
+        return math.asin(min(1.0, self.stall_torque_n_m / mgd)) if mgd > 0 else math.pi
+
     def body_energy_j(self, angle_rad: float, rate_rad_s: float) -> float:
         """E = 1/2 J theta_d^2 + mbar g (cos(theta) - 1): 0 upright at rest, -2 mbar g hanging."""
         return 0.5 * self.J_kg_m2 * rate_rad_s**2 + self.gravity_torque_coeff_n_m * (math.cos(angle_rad) - 1.0)

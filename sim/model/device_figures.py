@@ -32,7 +32,7 @@ def device_figures(device) -> dict:
         "stall_torque_supply_only_n_m": stall_supply,
         "stall_torque_with_current_limit_n_m": stall,
         "current_limited": math.isfinite(device.current_limit_a) and device.current_limit_a < device.supply_v / device.resistance_ohm,
-        "largest_holdable_angle_rad": math.asin(min(1.0, stall / mgd)) if mgd > 0 else math.pi,
+        "largest_holdable_angle_rad": device.holdable_angle_rad,
     }
 
 

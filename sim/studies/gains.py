@@ -97,7 +97,7 @@ def starting_values(device) -> dict:
         "open_loop_pole_rad_s": device.open_loop_pole_rad_s,
         "open_loop_pole_meaning": "sqrt(mbar g / J): how fast a small lean grows without control; the loop must be faster",
         "torque_per_volt_n_m_per_v": c,
-        "largest_holdable_angle_rad": (math.asin(min(1.0, device.stall_torque_n_m / mgd)) if mgd > 0 else math.pi),
+        "largest_holdable_angle_rad": device.holdable_angle_rad,
     }
 
 
