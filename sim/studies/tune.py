@@ -230,9 +230,14 @@ def search_setup(raw: dict, where: str, *, param_texts: list[str], only: bool, o
     return SearchSetup(sc, objectives, params, filled)
 
 
+def gain_sign(objective: str) -> float:
+    """+1 for an objective to maximise, -1 for one to minimise: sign * value grows as it gets better."""
+    return 1.0 if OBJECTIVES[objective][0] == "maximize" else -1.0
+
+
 def is_better(objective: str, value: float, than: float | None) -> bool:
     """Is `value` of `objective` better than `than` (None: nothing yet)?"""
-    return than is None or (value > than if OBJECTIVES[objective][0] == "maximize" else value < than)
+    return than is None or gain_sign(objective) * (value - than) > 0
 
 
 def parse_objectives(text: str, sc) -> list[str]:

@@ -18,7 +18,7 @@ from pathlib import Path
 import yaml
 
 from ..model.overrides import set_path
-from .tune import OBJECTIVES, Param, failed_criteria
+from .tune import OBJECTIVES, Param, failed_criteria, gain_sign
 from .tune_study import Evaluation
 
 
@@ -51,13 +51,13 @@ def ranked(evals: list[Evaluation], objectives: list[str]) -> list[Evaluation]:
 
 
 def _sort_key(objectives):
-    sign = -1.0 if OBJECTIVES[objectives[0]][0] == "maximize" else 1.0
+    sign = -gain_sign(objectives[0])   # best first
     return lambda e: (sign * e.row["objectives"][0], e.number)
 
 
 def pareto_front(evals: list[Evaluation], objectives: list[str]) -> list[Evaluation]:
     """Non-dominated evaluations (every objective at least as good, one better, dominates)."""
-    signs = [1.0 if OBJECTIVES[o][0] == "maximize" else -1.0 for o in objectives]
+    signs = [gain_sign(o) for o in objectives]
 
     def score(e):
         return [s * (v if v is not None else -math.inf * s) for s, v in zip(signs, e.row["objectives"])]
@@ -146,7 +146,7 @@ def tune_figure(evals: list[Evaluation], params: list[Param], objectives: list[s
     from ..media.plots import ACCENT, INK, MUTED
 
     obj = objectives[0]
-    sign = 1.0 if OBJECTIVES[obj][0] == "maximize" else -1.0
+    sign = gain_sign(obj)
     fig, (ax, axi) = plt.subplots(1, 2, figsize=(11, 4.2), constrained_layout=True, width_ratios=[3, 2])
     best, xs, ys = None, [], []
     for e in evals:
@@ -214,7 +214,7 @@ def importances(study, objectives: list[str]) -> dict | None:
     if len(study.trials) < 4:
         return None
     # PED-ANOVA ranks what makes the target low: a maximised objective is negated
-    sign = -1.0 if OBJECTIVES[objectives[0]][0] == "maximize" else 1.0
+    sign = -gain_sign(objectives[0])
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")   # optuna's notes on degenerate quantiles; the figure says enough

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 from ..core.errors import InputError
 from ..model.tolerances import trial_seed
 from ..run.parallel import WorkerPool
-from .tune import OBJECTIVES, STUDY, Param, constraints, evaluate
+from .tune import OBJECTIVES, STUDY, Param, constraints, evaluate, gain_sign
 
 DB = "tune.db"
 PENALTY = 1e6   # objective told to optuna for a value that could not be found (minimised objectives)
@@ -140,7 +140,7 @@ def finished(study) -> list[Evaluation]:
 
 def _told(value, objective: str) -> float:
     if value is None or not math.isfinite(value):
-        return 0.0 if OBJECTIVES[objective][0] == "maximize" else PENALTY
+        return 0.0 if gain_sign(objective) > 0 else PENALTY
     return float(value)
 
 
