@@ -364,6 +364,28 @@ def test_second_build_reuses_the_cache_and_a_changed_define_rebuilds(tmp_path, m
     assert load_scenario(tmp_path / "scenario.yaml").strategy.params.build.compiled_now
 
 
+def test_builds_from_a_folder_named_like_the_builds_own_files(tmp_path, monkeypatch):
+    # setuptools writes each object at its tmpdir plus the source's absolute path; a source under
+    # /check once collided with the check step's linked `check` in the same folder (a CI checkout
+    # at /check/... failed to build). Needs a writable root folder, else skipped.
+    import os
+    import tempfile
+    root = Path("/check")
+    made = not root.exists()
+    try:
+        root.mkdir(exist_ok=True)
+        folder = Path(tempfile.mkdtemp(dir=root))
+    except OSError:
+        pytest.skip("cannot write a folder at /check here")
+    try:
+        monkeypatch.setenv(fw_build.CACHE_ENV, str(tmp_path / "cache"))
+        assert firmware_scenario(folder, COUNTER).strategy.params.build.compiled_now
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)
+        if made:
+            os.rmdir(root)
+
+
 def test_a_changed_header_beside_the_source_rebuilds(tmp_path, monkeypatch):
     # local.h is found beside fw.c (not in an include folder): the compiler's list of what it read
     # decides whether the build is still good

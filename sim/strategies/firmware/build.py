@@ -157,9 +157,14 @@ def build_firmware(*, sources: list[Path], include: list[Path], defines: dict[st
         raise FirmwareBuildError(f"@sources: cannot use the firmware cache folder {str(root)!r} ({exc.strerror}); "
                                  f"set {CACHE_ENV} to a writable folder") from None
     try:
+        # Two folders of their own: setuptools puts each object at its tmpdir plus the source's
+        # absolute path, so a file of the check step beside it (e.g. `check`) could collide with
+        # the first folder of that path.
+        (work / "cc").mkdir()
+        (work / "cffi").mkdir()
         args = _compile_args(include, defines, cflags)
-        deps = {str(p): _sha256(p) for p in sorted(_check_compiles(sources, args, work))}
-        built = _cffi_build(name, sources, include, defines, cflags, work)
+        deps = {str(p): _sha256(p) for p in sorted(_check_compiles(sources, args, work / "cc"))}
+        built = _cffi_build(name, sources, include, defines, cflags, work / "cffi")
         final = builds / hashlib.sha256(json.dumps(deps, sort_keys=True).encode()).hexdigest()[:16]
         staging = Path(tempfile.mkdtemp(prefix=".stage-", dir=builds))
         shutil.copy2(built, staging / built.name)
@@ -311,7 +316,7 @@ def _cffi_build(name, sources, include, defines, cflags, work: Path) -> Path:
                    include_dirs=[str(HEADER.parent), *map(str, include)],
                    define_macros=list(defines.items()),
                    extra_compile_args=["-include", "wheelbench.h", *cflags], libraries=["m"])
-    log = work / "cffi.log"
+    log = work.parent / "cffi.log"   # beside the tmpdir, where no object can land
     try:
         with _output_to(log):
             built = ffi.compile(tmpdir=str(work), verbose=False)
