@@ -25,15 +25,25 @@ class Reading:
     """What the sensors report at one control tick (SI; conventions as in `sim.model.scenario`).
 
     One object is reused for the whole trial: copy values out if a strategy keeps them.
+
+    Vector form, for devices with several wheels or a ball mount (empty on today's one-wheel
+    loop, whose laws read the scalar fields): `angles_rad` (hinge: (angle,); ball: (tilt_x,
+    tilt_y), rotations about world x and y from upright), `rates_rad_s` (hinge: (body rate,);
+    ball: the body's angular velocity in the world frame (wx, wy, wz)), `wheel_speeds_rad_s`
+    (each wheel's speed relative to the body, in wheel order). Conventions: `sim.model.linear3d`.
     """
 
-    __slots__ = ("t_s", "angle_rad", "rate_rad_s", "wheel_speed_rad_s")
+    __slots__ = ("t_s", "angle_rad", "rate_rad_s", "wheel_speed_rad_s", "angles_rad", "rates_rad_s",
+                 "wheel_speeds_rad_s")
 
     def __init__(self) -> None:
         self.t_s = 0.0
         self.angle_rad = 0.0
         self.rate_rad_s = 0.0
         self.wheel_speed_rad_s = 0.0
+        self.angles_rad: tuple[float, ...] = ()
+        self.rates_rad_s: tuple[float, ...] = ()
+        self.wheel_speeds_rad_s: tuple[float, ...] = ()
 
 
 class Strategy:
@@ -99,7 +109,8 @@ class Strategy:
         self.balancing = self.goal == "balance"
         self.brake = False
         self.open_circuit = False
-        self.supply_v = device.supply_v
+        # a multi-wheel device may give each wheel its own supply and no single one (then None)
+        self.supply_v = getattr(device, "supply_v", None)
 
     def decide(self, reading: Reading) -> float:  # pragma: no cover - the contract
         raise NotImplementedError
