@@ -4,6 +4,7 @@ that does what the Python law does. Device: the corner cube of tests/test_linear
 from __future__ import annotations
 
 import json
+from types import SimpleNamespace
 import shutil
 import subprocess
 
@@ -81,3 +82,14 @@ def test_a_device_with_no_stabilising_design_is_one_line_of_bad_input():
     with pytest.raises(InputError) as info:
         multi_gains_report(spec, source="cube.yaml")
     assert "\n" not in str(info.value) and str(info.value).startswith("cube.yaml: strategy:")
+
+
+def test_a_device_handing_over_a_mapping_gets_the_same_report_with_its_parameters():
+    from sim.model.linear3d import SPEC_FIELDS
+    from sim.studies.gains_multi import device_gains_report
+    spec = corner_cube()
+    device = SimpleNamespace(linear_spec=lambda: {k: getattr(spec, k) for k in SPEC_FIELDS})
+    params = _params(weights=[40.0, 1.0, 1e-4], effort=0.05)
+    got = device_gains_report(device, source="cube.yaml", params=params)
+    assert got == multi_gains_report(spec, source="cube.yaml", weights=[40.0, 1.0, 1e-4], effort=0.05)
+    assert got["weights"]["source"].startswith("scenario") and got["weights"]["state"]["rate_z"] == 1.0

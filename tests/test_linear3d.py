@@ -204,3 +204,22 @@ def test_bad_specs_are_refused():
         corner_cube(mount="gimbal")
     with pytest.raises(ValueError, match="3x3"):
         corner_cube(body_inertia_com_kg_m2=((1, 0), (0, 1)))
+
+
+def test_a_spec_from_a_mapping_with_wheels_of_another_class_gives_the_same_model():
+    """A device module may define its own wheel record with the same fields and hand the fields over
+    as a mapping (the 3D device's `linear_spec()` may): `as_linear_spec` takes them field by field."""
+    from dataclasses import asdict, make_dataclass
+
+    from sim.model.linear3d import SPEC_FIELDS, WHEEL_FIELDS, as_linear_spec
+
+    spec = corner_cube()
+    OtherWheel = make_dataclass("OtherWheel", WHEEL_FIELDS, frozen=True)
+    fields = {k: getattr(spec, k) for k in SPEC_FIELDS}
+    fields["wheels"] = tuple(OtherWheel(**asdict(w)) for w in spec.wheels)
+    again = as_linear_spec(fields)
+    assert again == spec and as_linear_spec(spec) is spec
+    assert_allclose(again.linear_model().A, linearise(spec).A, rtol=0, atol=0)
+    del fields["delay_s"]
+    with pytest.raises(ValueError, match="delay_s"):
+        as_linear_spec(fields)

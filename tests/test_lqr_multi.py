@@ -132,8 +132,8 @@ def _params(**kw):
 
 
 def _stub(spec):
-    """The least a multi-wheel device offers the law: `linear_spec()` (h16core's Device3D offers more)."""
-    return SimpleNamespace(linear_spec=lambda: spec)
+    """The least a multi-wheel device offers the law: `linear_spec()` and the strategy base's `supply_v`."""
+    return SimpleNamespace(linear_spec=lambda: spec, supply_v=max(w.supply_v for w in spec.wheels))
 
 
 def _reading(spec, x) -> Reading:
@@ -158,6 +158,10 @@ def test_lqr_kind_dispatches_to_the_multi_wheel_law_and_its_volts_are_minus_k_x(
     # today's one-wheel device keeps today's law
     device = Device.from_scenario(load_scenario(default_scenario_path()))
     assert type(LqrBalance(device=device, params=_params(), rng=None)) is LqrBalance
+    # a device whose linear_spec() is a plain mapping is told what to return
+    with pytest.raises(Exception, match="as_linear_spec"):
+        LqrBalance(device=SimpleNamespace(linear_spec=lambda: {"mount": "ball"}, supply_v=12.0), params=_params(),
+                   rng=None)
     # a reading without the vector form is refused in words, not with a numpy error
     with pytest.raises(Exception, match="wheel speeds"):
         law.decide(Reading())

@@ -45,6 +45,7 @@ pivot friction and products of inertia with the vertical.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, fields
 
 import numpy as np
@@ -119,14 +120,16 @@ class LinearSpec:
     def __post_init__(self) -> None:
         if self.mount not in MOUNTS:
             raise ValueError(f"LinearSpec.mount must be one of {MOUNTS}, found {self.mount!r}")
-        if not self.wheels or not all(isinstance(w, WheelUnit) for w in self.wheels):
+        if not self.wheels:
             raise ValueError("LinearSpec.wheels must be a non-empty sequence of WheelUnit")
+        # a wheel of another module with the same fields (e.g. the 3D device's) is taken field by field
+        object.__setattr__(self, "wheels", tuple(w if isinstance(w, WheelUnit) else as_wheel_unit(w)
+                                                 for w in self.wheels))
         inertia = np.asarray(self.body_inertia_com_kg_m2, dtype=float)
         if inertia.shape != (3, 3) or not np.all(np.isfinite(inertia)):
             raise ValueError("LinearSpec.body_inertia_com_kg_m2 must be a finite 3x3 tensor")
         object.__setattr__(self, "body_com_m", tuple(float(v) for v in _vector(self.body_com_m, "body_com_m")))
         object.__setattr__(self, "body_inertia_com_kg_m2", tuple(tuple(float(v) for v in row) for row in inertia))
-        object.__setattr__(self, "wheels", tuple(self.wheels))
 
     def linear_model(self) -> "LinearModel":
         """`linearise(self)`, solved once per spec (a spec is immutable)."""
@@ -139,6 +142,29 @@ class LinearSpec:
 
 
 _MODELS: dict[LinearSpec, "LinearModel"] = {}
+
+
+def as_wheel_unit(wheel) -> WheelUnit:
+    """A `WheelUnit` from any object (or mapping) carrying its fields; ValueError naming a missing one."""
+    return WheelUnit(**_fields_of(wheel, WHEEL_FIELDS, "wheel"))
+
+
+def as_linear_spec(source) -> LinearSpec:
+    """A `LinearSpec` from a LinearSpec, a mapping of its fields (what a device's `linear_spec()`
+    may return) or any object carrying them as attributes (such as a 3D device itself)."""
+    if isinstance(source, LinearSpec):
+        return source
+    return LinearSpec(**_fields_of(source, SPEC_FIELDS, "device"))
+
+
+def _fields_of(source, names, what) -> dict:
+    get = source.get if isinstance(source, Mapping) else (lambda k, d=None: getattr(source, k, d))
+    missing = object()
+    values = {k: get(k, missing) for k in names}
+    absent = [k for k, v in values.items() if v is missing]
+    if absent:
+        raise ValueError(f"the {what} has no {', '.join(absent)} (fields of sim.model.linear3d)")
+    return values
 
 
 @dataclass(frozen=True)

@@ -22,15 +22,15 @@ class StrategyParams(BaseModel):
 
 
 class Reading:
-    """What the sensors report at one control tick (SI; conventions as in `sim.model.scenario`).
+    """What the sensors report at one control tick (SI; conventions as in `sim.model.scenario`
+    and, for 3D devices, `sim.core.frames`).
 
+    The vector form (every device): `angles_rad` is (theta,) on a hinge and (tilt_x, tilt_y) on a
+    ball mount, from upright; `rates_rad_s` is (theta_d,) on a hinge and the body's angular
+    velocity in the world frame (wx, wy, wz) on a ball; `wheel_speeds_rad_s` has one speed per
+    wheel, relative to the body. The scalar fields mirror the first entries, so one-wheel laws
+    read what they always did. On the planar one-wheel path the vector fields are left empty.
     One object is reused for the whole trial: copy values out if a strategy keeps them.
-
-    Vector form, for devices with several wheels or a ball mount (empty on today's one-wheel
-    loop, whose laws read the scalar fields): `angles_rad` (hinge: (angle,); ball: (tilt_x,
-    tilt_y), rotations about world x and y from upright), `rates_rad_s` (hinge: (body rate,);
-    ball: the body's angular velocity in the world frame (wx, wy, wz)), `wheel_speeds_rad_s`
-    (each wheel's speed relative to the body, in wheel order). Conventions: `sim.model.linear3d`.
     """
 
     __slots__ = ("t_s", "angle_rad", "rate_rad_s", "wheel_speed_rad_s", "angles_rad", "rates_rad_s",
@@ -109,8 +109,7 @@ class Strategy:
         self.balancing = self.goal == "balance"
         self.brake = False
         self.open_circuit = False
-        # a multi-wheel device may give each wheel its own supply and no single one (then None)
-        self.supply_v = getattr(device, "supply_v", None)
+        self.supply_v = device.supply_v
 
     def decide(self, reading: Reading) -> float:  # pragma: no cover - the contract
         raise NotImplementedError

@@ -93,6 +93,9 @@ class MultiWheelLqr(LqrBalance):
     def __init__(self, *, device, params, rng) -> None:
         Strategy.__init__(self, device=device, params=params, rng=rng)
         self.spec = device.linear_spec()
+        if not hasattr(self.spec, "linear_model"):
+            raise StrategyError(f"the device's linear_spec() gave {type(self.spec).__name__}, not a LinearSpec; "
+                                "return sim.model.linear3d.as_linear_spec(...) of its fields")
         self.design = design_lqr_spec(self.spec, weights=params.weights, effort=params.effort)
         self.K = self.design.K_discrete
         self.predictor = DelayPredictor(self.design, delay_s=self.spec.delay_s)

@@ -17,7 +17,7 @@ import warnings
 import numpy as np
 
 from ..core.errors import InputError
-from ..model.linear3d import LinearSpec, upright_rotation
+from ..model.linear3d import LinearSpec, as_linear_spec, upright_rotation
 from ..strategies.lqr_design import (ANGLE_LIMIT_RAD, RATE_LIMIT_RAD_S, WHEEL_SPEED_SHARE, DelayPredictor,
                                      bryson_limits, design_lqr_spec, state_kind)
 from .gains import CAUTION, _c_double, _c_float, c_opening
@@ -96,6 +96,14 @@ def multi_gains_report(spec: LinearSpec, *, source: str, weights=None, effort=No
                   "Ad": named(des.Ad, states, states), "Bd": named(des.Bd, states, inputs)},
         "caution": CAUTION,
     }
+
+
+def device_gains_report(device, *, source: str, params=None) -> dict:
+    """`multi_gains_report` of a multi-wheel device (anything with `linear_spec()` giving a LinearSpec
+    or a mapping of its fields) with the `lqr` law's parameters (`weights`, `effort`; None: Bryson)."""
+    spec = as_linear_spec(device.linear_spec())
+    return multi_gains_report(spec, source=source, weights=getattr(params, "weights", None),
+                              effort=getattr(params, "effort", None))
 
 
 def _complex_list(values) -> list[dict]:
