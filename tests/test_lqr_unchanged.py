@@ -18,6 +18,7 @@ import numpy as np
 import pytest
 
 from conftest import make_scenario
+from test_determinism import _timeless
 from sim.model.scenario_yaml import load_scenario
 from sim.run.metrics import trial_metrics
 from sim.run.trial import run_trial
@@ -55,14 +56,6 @@ PINNED = {
     "delayed_noisy_lqr": ("d33c8e5e47ca4916e0ad00e072c90c4dbaedadf9ac473cbf8a2912e9e8463044",
         "60a480e7f1e29c743fd96a9a80ee100ed66ab6cb209252b3ec33587a1833f442"),
 }
-
-
-def _timeless(value):
-    if isinstance(value, dict):
-        return {k: _timeless(v) for k, v in value.items() if k != "real_time_factor" and "wall" not in k}
-    if isinstance(value, list):
-        return [_timeless(v) for v in value]
-    return value
 
 
 def _digests(name: str) -> tuple[str, str]:
