@@ -201,3 +201,42 @@ def test_commands_held_by_the_predictor_are_clamped_to_each_wheels_supply():
     volts = law.decide(_reading(spec, x))
     assert np.max(np.abs(volts)) > 12.0
     assert_allclose(law.predictor.u[-1], np.clip(volts, -12.0, 12.0))
+
+
+def test_frictionless_ball_mount_designs_around_the_conserved_vertical_momentum():
+    """On a frictionless ball mount the angular momentum about the vertical is conserved whatever the
+    wheels do (no external moment about the vertical: Euler's second law, any dynamics text), so the
+    full model has no Riccati solution; the design works on the rest of the state."""
+    from scipy.linalg import null_space
+    from scipy.spatial.transform import Rotation
+
+    spec = corner_cube(pivot_viscous_n_m_s=0.0)
+    des = design_lqr_spec(spec)
+    assert des.conserved.shape == (1, 8)
+    # the conserved row is the vertical angular momentum about the pivot, from the parallel-axis
+    # theorem by hand: H_z = e_z . (I_O w + sum I_s a_i w_i), upright frame
+    m = np.array([spec.body_mass_kg] + [w.mass_kg for w in spec.wheels])
+    r = np.array([spec.body_com_m] + [w.at_m for w in spec.wheels])
+    com = m @ r / m.sum()
+    R0 = Rotation.align_vectors([[0.0, 0.0, 1.0]], [com / np.linalg.norm(com)])[0].as_matrix()
+    I_O = R0 @ np.array(spec.body_inertia_com_kg_m2) @ R0.T
+    for mass, at in zip(m, r @ R0.T):
+        I_O += mass * (at @ at * np.eye(3) - np.outer(at, at))
+    for w in spec.wheels:
+        a = R0 @ np.array(w.axis)
+        I_O += w.spin_inertia_kg_m2 * np.outer(a, a) + w.transverse_inertia_kg_m2 * (np.eye(3) - np.outer(a, a))
+    h_z = np.concatenate([[0.0, 0.0], I_O[2], [w.spin_inertia_kg_m2 * (R0 @ np.array(w.axis))[2] for w in spec.wheels]])
+    c = des.conserved[0]
+    assert_allclose(abs(c @ h_z), np.linalg.norm(h_z), rtol=1e-9)          # parallel rows
+    # the closed loop keeps it and settles everything else
+    closed = des.Ad - des.Bd @ des.K_discrete
+    assert_allclose(c @ closed, c, atol=1e-9)
+    eig = np.sort(np.abs(np.linalg.eigvals(closed)))
+    assert_allclose(eig[-1], 1.0, atol=1e-9) and np.all(eig[:-1] < 1.0)
+    # python-control dlqr on the rest of the state (scipy's null_space for the complement)
+    N = null_space(des.conserved)
+    Q_rest = N.T @ des.Q @ N
+    K_rest, _, _ = control.dlqr(N.T @ des.Ad @ N, N.T @ des.Bd, (Q_rest + Q_rest.T) / 2, des.R)
+    assert_allclose(des.K_discrete, K_rest @ N.T, rtol=1e-6, atol=1e-6 * np.abs(K_rest).max())
+    # with pivot friction there is nothing conserved and the full design stands
+    assert design_lqr_spec(corner_cube()).conserved.shape == (0, 8)

@@ -43,6 +43,7 @@ class LqrDesign:
     period_s: float
     state_names: tuple[str, ...] = STATE_NAMES
     input_names: tuple[str, ...] = ("voltage",)
+    conserved: np.ndarray | None = None   # multi-input: rows c with c x constant whatever the inputs (k x n)
 
     @property
     def several_inputs(self) -> bool:
@@ -179,17 +180,37 @@ def _solve_lqr(A: np.ndarray, B: np.ndarray, Q: np.ndarray, R, T: float, **names
     return LqrDesign(R=R, period_s=T, **arrays)
 
 
+def conserved_directions(A: np.ndarray, B: np.ndarray, *, rcond: float = 1e-12) -> np.ndarray:
+    """Rows c (orthonormal, k x n) with c A = 0 and c B = 0: combinations of the state no input and
+    no state can change, c x' = 0 (e.g. the angular momentum about the vertical of a body on a
+    frictionless ball mount: neither gravity nor the wheels' internal torques have a vertical moment).
+    Empty (0 x n) when there are none."""
+    from scipy.linalg import null_space
+
+    return null_space(np.hstack([A, B]).T, rcond=rcond).T
+
+
 def _solve_lqr_matrix(A, B, Q, R, T, *, state_names, input_names) -> LqrDesign:
-    from scipy.linalg import solve_continuous_are, solve_discrete_are
+    """The multi-input design. A conserved combination of the state (`conserved_directions`) is an
+    uncontrollable mode on the stability boundary, for which no Riccati solution exists; the design
+    is then made on the rest of the state (the orthogonal complement N: z = N' x, a subspace the
+    model maps into itself) and K = K_z N'. The closed loop leaves the conserved combination as it
+    is (the wheels settle at speeds that hold it); the poles reported are those of the rest."""
+    from scipy.linalg import null_space, solve_continuous_are, solve_discrete_are
 
     A, B, Q = (np.array(a, dtype=float) for a in (A, B, Q))
     Ad, Bd = zoh_discretise(A, B, T)
-    X = solve_continuous_are(A, B, Q, R)
-    Kc = np.linalg.solve(R, B.T @ X)
-    Xd = solve_discrete_are(Ad, Bd, Q, R)
-    Kd = np.linalg.solve(R + Bd.T @ Xd @ Bd, Bd.T @ Xd @ Ad)
-    arrays = dict(A=A, B=B, Ad=Ad, Bd=Bd, Q=Q, R=R, K_continuous=Kc, K_discrete=Kd,
-                  poles_continuous=np.linalg.eigvals(A - B @ Kc), poles_discrete=np.linalg.eigvals(Ad - Bd @ Kd))
+    C = conserved_directions(A, B)
+    N = null_space(C) if C.shape[0] else np.eye(A.shape[0])
+    Ar, Br, Qr, Adr, Bdr = N.T @ A @ N, N.T @ B, N.T @ Q @ N, N.T @ Ad @ N, N.T @ Bd
+    Qr = (Qr + Qr.T) / 2      # symmetric to the last bit
+    X = solve_continuous_are(Ar, Br, Qr, R)
+    Kc = np.linalg.solve(R, Br.T @ X)
+    Xd = solve_discrete_are(Adr, Bdr, Qr, R)
+    Kd = np.linalg.solve(R + Bdr.T @ Xd @ Bdr, Bdr.T @ Xd @ Adr)
+    arrays = dict(A=A, B=B, Ad=Ad, Bd=Bd, Q=Q, R=R, K_continuous=Kc @ N.T, K_discrete=Kd @ N.T,
+                  poles_continuous=np.linalg.eigvals(Ar - Br @ Kc), poles_discrete=np.linalg.eigvals(Adr - Bdr @ Kd),
+                  conserved=C)
     for a in arrays.values():
         a.setflags(write=False)
     return LqrDesign(period_s=T, state_names=tuple(state_names), input_names=tuple(input_names), **arrays)

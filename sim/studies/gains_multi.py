@@ -73,6 +73,10 @@ def multi_gains_report(spec: LinearSpec, *, source: str, weights=None, effort=No
         "period_s": des.period_s,
         "closed_loop_poles": {"continuous_rad_s": _complex_list(des.poles_continuous),
                               "discrete_z": _complex_list(des.poles_discrete)},
+        "conserved": {**named(des.conserved, [f"conserved{i + 1}" for i in range(des.conserved.shape[0])], states),
+                      "meaning": ("combinations of the state that no command can change (e.g. the angular momentum "
+                                  "about the vertical on a frictionless ball mount); the gains act on the rest and "
+                                  "the poles above are the rest's")},
         "weights": {"state": dict(zip(states, np.diag(des.Q).tolist())),
                     "effort": dict(zip(inputs, np.diag(des.R).tolist())),
                     "source": ("Bryson's rule" if weights is None and effort is None
