@@ -200,7 +200,7 @@ def test_commands_held_by_the_predictor_are_clamped_to_each_wheels_supply():
     x = np.array([0.5, 0.5, 0, 0, 0, 0, 0, 0])          # far out: the law asks for more than 12 V
     volts = law.decide(_reading(spec, x))
     assert np.max(np.abs(volts)) > 12.0
-    assert_allclose(law.predictor.u[-1], np.clip(volts, -12.0, 12.0))
+    assert_allclose(law.held_commands()[-1], np.clip(volts, -12.0, 12.0))
 
 
 def test_frictionless_ball_mount_designs_around_the_conserved_vertical_momentum():

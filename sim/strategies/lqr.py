@@ -99,30 +99,43 @@ class MultiWheelLqr(LqrBalance):
         self.design = design_lqr_spec(self.spec, weights=params.weights, effort=params.effort)
         self.K = self.design.K_discrete
         self.predictor = DelayPredictor(self.design, delay_s=self.spec.delay_s)
-        self._Gx, self._Gu = self.predictor.folded_gains(self.K)
+        G_x, G_u = self.predictor.folded_gains(self.K)
         kinds = [state_kind(name) for name in self.design.state_names]
         self._n_angles, self._n_rates, self._n_wheels = kinds.count(0), kinds.count(1), kinds.count(2)
         self.supplies_v = np.array([w.supply_v for w in self.spec.wheels], dtype=float)
-        self._x = np.zeros(len(kinds))
+        self._neg_supplies_v = -self.supplies_v
+        # one matrix on one buffer [measured state, held commands oldest first], so that a tick is a
+        # few numpy calls whatever the delay (the same law as K times the predicted state)
+        self._G = np.hstack([G_x, *G_u])
+        self._z = np.zeros(self._G.shape[1])
+        self._n_x, self._n_u = G_x.shape[1], len(self.supplies_v)
         self.phase = "balance"
 
+    def held_commands(self) -> np.ndarray:
+        """The commands the delay predictor holds, oldest first, as applied (clamped), V (rows: ticks)."""
+        return self._z[self._n_x:].reshape(-1, self._n_u).copy()
+
     def state_from(self, reading: Reading) -> np.ndarray:
-        """The measured state vector in the design's order (a buffer reused every tick)."""
+        """The measured state vector in the design's order (a view of a buffer reused every tick)."""
         na, nr, nw = self._n_angles, self._n_rates, self._n_wheels
         angles, rates, wheels = reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s
         if len(angles) < na or len(rates) < nr or len(wheels) != nw:
             raise StrategyError(f"the reading has {len(angles)} angles, {len(rates)} rates and {len(wheels)} wheel "
                                 f"speeds; this device's law needs {na}, {nr} and {nw}")
-        x = self._x
-        x[:na] = angles[:na]
-        x[na:na + nr] = rates[:nr]
-        x[na + nr:] = wheels
+        x = self._z[:self._n_x]
+        x[:] = (*angles[:na], *rates[:nr], *wheels)       # one assignment: cheaper than three
         return x
 
     def decide(self, reading: Reading) -> list[float]:
-        v = -(self._Gx @ self.state_from(reading))
-        if self._Gu:
-            for G, u in zip(self._Gu, self.predictor.u):
-                v -= G @ u
-            self.predictor.record(np.clip(v, -self.supplies_v, self.supplies_v))
+        self.state_from(reading)
+        z = self._z
+        v = self._G.dot(z)
+        np.negative(v, out=v)
+        if z.shape[0] > self._n_x:            # a delay: shift the held commands, append this one clamped
+            m = self._n_u
+            held = z[self._n_x:]
+            held[:-m] = held[m:].copy()
+            newest = held[-m:]
+            np.minimum(v, self.supplies_v, out=newest)
+            np.maximum(newest, self._neg_supplies_v, out=newest)
         return v.tolist()
