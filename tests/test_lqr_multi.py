@@ -240,3 +240,14 @@ def test_frictionless_ball_mount_designs_around_the_conserved_vertical_momentum(
     assert_allclose(des.K_discrete, K_rest @ N.T, rtol=1e-6, atol=1e-6 * np.abs(K_rest).max())
     # with pivot friction there is nothing conserved and the full design stands
     assert design_lqr_spec(corner_cube()).conserved.shape == (0, 8)
+
+
+@pytest.mark.parametrize("pivot_viscous", [1e-12, 1e-11, 1e-10, 1e-9, 1e-6])
+def test_a_nearly_frictionless_ball_mount_still_has_a_design(pivot_viscous):
+    # between "conserved" and "controllable but slow" the Riccati solvers must not be left without
+    # a solution (scipy's solvers gave none at 1e-11 and 1e-12 N m s before the tolerance was set)
+    des = design_lqr_spec(corner_cube(pivot_viscous_n_m_s=pivot_viscous))
+    closed = np.abs(np.linalg.eigvals(des.Ad - des.Bd @ des.K_discrete))
+    assert np.all(np.isfinite(des.K_discrete)) and np.max(closed) < 1.0 + 1e-9
+    assert np.sort(closed)[-2] < 0.9999           # every mode but the (nearly) conserved one settles
+    assert des.conserved.shape[0] == (1 if pivot_viscous < 5e-10 else 0)
