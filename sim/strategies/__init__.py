@@ -162,7 +162,9 @@ def _load_entry_point(ep):
         raise ValueError(f"@kind: loading entry point {ep.name!r} failed ({describe_exception(exc)})") from None
 
 
-def _class_for_plugin(plugin: Any, base_dir: Path, anywhere: bool) -> type[Strategy]:
+def _class_for_plugin(plugin: Any, base_dir: Path, anywhere: bool, base: type = Strategy) -> type:
+    """The class a "file.py:Class" or "module:Class" plug-in names, checked to subclass `base`
+    (the strategy contract, or another extension point's base such as the estimators')."""
     if not isinstance(plugin, str) or plugin.count(":") != 1:
         raise ValueError(f"@plugin: expected 'path/to/file.py:ClassName' or 'package.module:ClassName', found {plugin!r}")
     target, _, cls_name = plugin.partition(":")
@@ -179,7 +181,7 @@ def _class_for_plugin(plugin: Any, base_dir: Path, anywhere: bool) -> type[Strat
             raise ValueError(f"{failed} ({describe_exception(exc)})") from None
     try:
         cls = getattr(module, cls_name, None)   # a module-level __getattr__ is plug-in code too
-        cls = None if cls is None else _checked(cls, plugin)
+        cls = None if cls is None else _checked(cls, plugin, base)
     except ValueError:
         raise
     except BaseException as exc:  # noqa: B036
@@ -269,7 +271,7 @@ def _within_budget(load, what: str):
     return result
 
 
-def _checked(cls: Any, where: str) -> type[Strategy]:
-    if not (isinstance(cls, type) and issubclass(cls, Strategy)):
-        raise ValueError(f"@plugin: {where} is not a subclass of sim.strategies.Strategy")
+def _checked(cls: Any, where: str, base: type = Strategy) -> type:
+    if not (isinstance(cls, type) and issubclass(cls, base)):
+        raise ValueError(f"@plugin: {where} is not a subclass of {base.__module__.replace('.base', '')}.{base.__name__}")
     return cls

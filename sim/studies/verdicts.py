@@ -185,12 +185,12 @@ def bias_ends(scenario) -> list[float]:
     The band is the scenario's `tolerances` entry for `sensors.angle.bias`, or the default band of
     `sim.model.tolerances` when there is none (a relative band is taken of the nominal bias).
     """
-    from ..model.tolerances import DEFAULT_TOLERANCES, parse_tolerances, scenario_tolerances
-    key = "sensors.angle.bias"
+    from ..model.tolerances import ANGLE_BIAS_KEYS, DEFAULT_TOLERANCES, parse_tolerances, scenario_tolerances
+    key = ANGLE_BIAS_KEYS[scenario.sensors.estimator is not None]
     tol = next((t for t in scenario_tolerances(scenario) if t.key == key), None)
     if tol is None:
-        tol = parse_tolerances(scenario, {key: DEFAULT_TOLERANCES[key]})[0]
-    own = scenario.sensors.angle.bias
+        tol = parse_tolerances(scenario, {key: DEFAULT_TOLERANCES[ANGLE_BIAS_KEYS[False]]})[0]
+    own = _angle_bias(scenario)
     band = tol.band * abs(own) if tol.relative else tol.band
     return sorted({own - band, own + band})
 
@@ -204,9 +204,8 @@ def runaway_hold(scenario, *, bias_rad: float, seed: int) -> dict:
     """
     from .runaway import fit_drift, predict_bias_response, runaway_time_s, settling
     req = scenario.requirements
-    angle = scenario.sensors.angle.model_copy(update={"bias": bias_rad})
     sc = with_trial(scenario, duration=req.hold_time, start={"angle": 0.0, "rate": 0.0, "wheel_speed": 0.0}, pushes=[])
-    sc = sc.model_copy(update={"sensors": sc.sensors.model_copy(update={"angle": angle})})
+    sc = sc.model_copy(update={"sensors": _with_angle_bias(sc.sensors, bias_rad)})
     device = Device.from_scenario(sc)
     result = run_trial(sc, seed=seed, stop_early=True)
     wheel = result.trace.view("wheel_speed").copy()
@@ -226,6 +225,21 @@ def runaway_hold(scenario, *, bias_rad: float, seed: int) -> dict:
         k = 2 * wheel.size // 3
         out["drift"] = fit_drift(t[:k], wheel[:k], fraction=0.5)
     return out
+
+
+def _angle_bias(scenario) -> float:
+    """The bias of the law's angle the scenario states, rad: the encoder's, or with an estimator
+    the IMU's misalignment about the pivot axis (`sim.model.tolerances.ANGLE_BIAS_KEYS`)."""
+    s = scenario.sensors
+    return s.imu.orientation.roll if s.estimator is not None else s.angle.bias
+
+
+def _with_angle_bias(sensors, bias_rad: float):
+    """`sensors` with the law's angle bias set (see `_angle_bias`)."""
+    if sensors.estimator is None:
+        return sensors.model_copy(update={"angle": sensors.angle.model_copy(update={"bias": bias_rad})})
+    orientation = sensors.imu.orientation.model_copy(update={"roll": bias_rad})
+    return sensors.model_copy(update={"imu": sensors.imu.model_copy(update={"orientation": orientation})})
 
 
 def runaway_criterion(scenario, device, holds: list[dict]) -> dict:
