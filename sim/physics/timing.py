@@ -28,7 +28,8 @@ JITTER_CHUNK = 4096
 class TickSchedule:
     """Answers, tick by tick, where the next tick samples and when this tick's command applies."""
 
-    def __init__(self, timing, *, control_steps: int, step_s: float, rng: np.random.Generator):
+    def __init__(self, timing, *, control_steps: int, step_s: float, rng: np.random.Generator,
+                 end_step: int | None = None):
         self.cs = control_steps
         self.dt = step_s
         self.compute_steps = int(round(timing.compute_time / step_s))
@@ -36,6 +37,7 @@ class TickSchedule:
         self.skip = timing.overrun == "skip"
         self.rng = rng
         self.overruns = 0
+        self.end_step = end_step   # ticks due at or after it (past the trial's end) are not counted
         self.n = 0                 # the nominal index of the tick that runs next
         self._offsets: list = []
         self._i = 0
@@ -65,10 +67,12 @@ class TickSchedule:
         if apply_k > nxt:
             if self.skip:
                 while apply_k > nxt:
-                    self.overruns += 1
+                    if self.end_step is None or nxt < self.end_step:
+                        self.overruns += 1
                     self.n += 1
                     nxt = self.n * self.cs + self._offset()
             else:
-                self.overruns += 1
+                if self.end_step is None or nxt < self.end_step:
+                    self.overruns += 1
                 apply_k = -1
         return apply_k, nxt

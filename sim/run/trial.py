@@ -165,7 +165,7 @@ def _simulate(scenario, device, trace, clock, *, seed, stop_early, visual, on_st
         sensors = make_sensors(scenario, step_s=dt, n_ticks=n // scenario.control_steps + 1, rng=rng, seed=seed,
                                trace=trace)
         schedule = None if scenario.timing is None else TickSchedule(
-            scenario.timing, control_steps=scenario.control_steps, step_s=dt, rng=stream(seed, TIMING_STREAM))
+            scenario.timing, control_steps=scenario.control_steps, step_s=dt, rng=stream(seed, TIMING_STREAM), end_step=n)
         with clock:
             strategy, failure = _build_strategy(scenario, device, rng, clock)
             clock.strategy = strategy
