@@ -49,3 +49,22 @@ def test_encoder_over_speed_fails_its_criterion():
 def test_nothing_added_without_the_new_keys():
     sc = make_scenario(strategy={"kind": "lqr"}, trial={"duration": 0.2})
     assert sensing_checks(sc, {"hold": run_trial(sc)}, {}, push_scenario=None) == ([], {})
+
+
+def test_sweep_varies_the_new_keys(tmp_path):
+    # sweep's own machinery on the new keys: each point's scenario carries its values, and the
+    # runaway holds follow the IMU's misalignment (the angle bias of an estimator device)
+    import csv
+
+    from conftest import scenario_dict
+    from sim.studies.sweep import parse_vary, run_sweep
+    raw = scenario_dict(strategy={"kind": "pid"}, sensors=IMU, trial={"duration": 0.5},
+                        requirements={"hold_time": 2.0}, tolerances={"sensors.imu.orientation.roll": "0 deg"})
+    varies = [parse_vary("sensors.imu.orientation.roll=0deg,3deg"), parse_vary("sensors.estimator.time_constant=0.1,0.3")]
+    run_sweep(raw, "<test>", varies, tmp_path, workers=1)
+    rows = list(csv.DictReader(open(tmp_path / "results.csv")))
+    assert_allclose([(float(r["sensors.imu.orientation.roll"]), float(r["sensors.estimator.time_constant"])) for r in rows],
+                    [(0.0, 0.1), (0.0, 0.3), (math.radians(3), 0.1), (math.radians(3), 0.3)], rtol=1e-12)
+    # three degrees of misalignment drive the angle-only law's wheel far faster than none
+    peaks = [float(r["peak_wheel_speed_rad_s"]) for r in rows]
+    assert min(peaks[2:]) > 2 * max(peaks[:2])
