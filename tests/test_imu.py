@@ -128,3 +128,14 @@ def test_imu_only_device_needs_an_estimator():
         make_scenario(sensors={"angle": None})
     with pytest.raises(ScenarioError, match=r"sensors\.estimator: an estimator needs an IMU"):
         make_scenario(sensors={"estimator": {"kind": "complementary", "time_constant": 0.5}})
+
+
+def test_hinge_fast_path_equals_the_general_rigid_body_formula():
+    spec = ImuSpec.model_validate({"at": [0.01, -0.02, 0.13], "orientation": {"axes": ["z", "-x", "y"], "roll": 0.01,
+                                                                             "pitch": -0.02, "yaw": 0.03}})
+    a, b = (ImuModel(spec, rate_hz=500.0, gravity_m_s2=9.81, rng=np.random.default_rng(5)) for _ in range(2))
+    rng = np.random.default_rng(6)
+    for i in range(50):
+        th, w, al = rng.uniform(-4, 4), rng.uniform(-30, 30), rng.uniform(-500, 500)
+        assert_allclose(np.array(a.sample_hinge(i * 2e-3, th, w, al)), np.array(b.sample(i * 2e-3, *hinge_motion(th, w, al))),
+                        rtol=1e-12, atol=1e-12)

@@ -95,29 +95,44 @@ def imu_matrix(orientation) -> tuple:
 
 
 class _Channel:
-    """One sensor's error chain over three axes (see the module docstring)."""
+    """One sensor's error chain over three axes (see the module docstring). Written out per axis:
+    it runs on every IMU sample of a trial."""
 
     def __init__(self, spec, *, rate_hz: float, walk: float = 0.0):
         self.gain = 1.0 + spec.scale_error
         self.bias = tuple(float(b) for b in spec.bias)
         self.sigma = spec.noise_density * math.sqrt(rate_hz)
         self.limit = spec.range
+        self.limited = math.isfinite(spec.range)
         self.lsb = spec.resolution
         self.walk = walk
         self.drift = [0.0, 0.0, 0.0]
 
-    def read(self, true3, white, steps, dt_s: float) -> tuple[float, float, float]:
-        out = []
-        for i in range(3):
-            if self.walk:
-                self.drift[i] += self.walk * math.sqrt(dt_s) * steps[i]
-            v = true3[i] * self.gain + self.bias[i] + self.drift[i] + self.sigma * white[i]
-            if not -self.limit <= v <= self.limit:
-                v = math.copysign(self.limit, v)
-            if self.lsb:
-                v = round(v / self.lsb) * self.lsb
-            out.append(v)
-        return out[0], out[1], out[2]
+    def read(self, x: float, y: float, z: float, n: list, first: int, dt_s: float) -> tuple[float, float, float]:
+        """The readings of true values (x, y, z): white draws n[first:first+3], bias-walk draws the
+        three after them (gyro only), `dt_s` since the previous sample."""
+        g, b, s = self.gain, self.bias, self.sigma
+        d = self.drift
+        if self.walk:
+            step = self.walk * math.sqrt(dt_s)
+            d[0] += step * n[first + 3]
+            d[1] += step * n[first + 4]
+            d[2] += step * n[first + 5]
+        x = x * g + b[0] + d[0] + s * n[first]
+        y = y * g + b[1] + d[1] + s * n[first + 1]
+        z = z * g + b[2] + d[2] + s * n[first + 2]
+        if self.limited:
+            lim = self.limit
+            if not -lim <= x <= lim:
+                x = math.copysign(lim, x)
+            if not -lim <= y <= lim:
+                y = math.copysign(lim, y)
+            if not -lim <= z <= lim:
+                z = math.copysign(lim, z)
+        if self.lsb:
+            q = self.lsb
+            x, y, z = round(x / q) * q, round(y / q) * q, round(z / q) * q
+        return x, y, z
 
 
 class ImuModel:
@@ -127,6 +142,7 @@ class ImuModel:
     def __init__(self, spec, *, rate_hz: float, gravity_m_s2: float, rng: np.random.Generator):
         self.at = tuple(float(v) for v in spec.at)
         self.matrix = imu_matrix(spec.orientation)
+        self.aligned = self.matrix == ((1.0, 0.0, 0.0), (0.0, 1.0, 0.0), (0.0, 0.0, 1.0))   # M = I: skip it
         self.gravity = (0.0, 0.0, -gravity_m_s2)
         self.gyro = _Channel(spec.gyro, rate_hz=rate_hz, walk=spec.gyro.bias_instability)
         self.accel = _Channel(spec.accel, rate_hz=rate_hz)
@@ -151,12 +167,28 @@ class ImuModel:
         """One sample at time `t_s`, s: (gyro rad/s, accel m/s^2) in the IMU's axes, errors included.
         The bias drift advances by the time since the previous sample."""
         w_body, f_body = self.true_body(rotation, omega, alpha, a0_world)
-        n = self._draws()
+        return self._read(t_s, w_body, f_body)
+
+    def sample_hinge(self, t_s: float, angle_rad: float, rate_rad_s: float, accel_rad_s2: float):
+        """`sample` for a body turning about x on a fixed pivot (the one-wheel hinge), with the
+        general formula written out for omega = (w, 0, 0), alpha = (a, 0, 0), R = Rx(angle):
+        f = (0, g sin - a r_z - w^2 r_y, g cos + a r_y - w^2 r_z); the same numbers, fewer steps."""
+        g, (_, ry, rz) = -self.gravity[2], self.at
+        w, a = rate_rad_s, accel_rad_s2
+        w2 = w * w
+        f_body = (0.0, g * math.sin(angle_rad) - a * rz - w2 * ry, g * math.cos(angle_rad) + a * ry - w2 * rz)
+        return self._read(t_s, (w, 0.0, 0.0), f_body)
+
+    def _read(self, t_s: float, w_body, f_body):
+        if self._i < len(self._chunk):     # _draws() inline: this runs on every sample
+            n = self._chunk[self._i]
+            self._i += 1
+        else:
+            n = self._draws()
         dt = 0.0 if self.last_t_s is None else t_s - self.last_t_s
         self.last_t_s = t_s
-        gyro = self.gyro.read(mat_vec(self.matrix, w_body), n[0:3], n[3:6], dt)
-        accel = self.accel.read(mat_vec(self.matrix, f_body), n[6:9], (), 0.0)
-        return gyro, accel
+        w, f = (w_body, f_body) if self.aligned else (mat_vec(self.matrix, w_body), mat_vec(self.matrix, f_body))
+        return self.gyro.read(w[0], w[1], w[2], n, 0, dt), self.accel.read(f[0], f[1], f[2], n, 6, 0.0)
 
 
 def hinge_motion(angle_rad: float, rate_rad_s: float, accel_rad_s2: float):

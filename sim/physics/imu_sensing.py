@@ -23,7 +23,7 @@ import numpy as np
 
 from ..core.errors import StrategyError
 from ..core.exception_text import describe_exception
-from .imu import ImuModel, axis_mapping, hinge_motion, mat_vec, transpose
+from .imu import ImuModel, axis_mapping, mat_vec, transpose
 from .sensors import SensorSuite
 
 IMU_STREAM = (18, 1)        # SeedSequence spawn key of the IMU's generator (ours)
@@ -60,10 +60,12 @@ class ImuSensing:
             from ..model.scenario import AngleSensor
             s = s.model_copy(update={"angle": AngleSensor()})
         self.suite = SensorSuite(s, step_s=step_s, n_ticks=n_ticks, rng=rng)
+        self._suite_read = self.suite.read
         imu = s.imu
         rate = imu.rate if imu.rate is not None else s.rate
         self.imu_steps = int(round(1.0 / (rate * step_s)))
         self.imu = ImuModel(imu, rate_hz=rate, gravity_m_s2=scenario.world.gravity, rng=stream(seed, IMU_STREAM))
+        self._sample = self.imu.sample_hinge
         self.to_body = transpose(axis_mapping(imu.orientation.axes))   # what firmware knows: S^T
         self.dt = step_s
         self.delay_steps = self.suite.delay_steps
@@ -71,7 +73,7 @@ class ImuSensing:
         self.period_s = 1.0 / s.rate
         self.gravity = scenario.world.gravity
         self.estimator = None
-        self.cols = [memoryview(trace.extra[name]) for name in IMU_COLUMNS]
+        self.cols = tuple(memoryview(trace.extra[name]) for name in IMU_COLUMNS)
         self.est_cols = [memoryview(trace.extra[name]) for name in ESTIMATOR_COLUMNS] if self.spec else None
         self.meas_cols = (memoryview(trace.meas_angle), memoryview(trace.meas_rate))
         self._sample_row = -1
@@ -79,16 +81,19 @@ class ImuSensing:
         self.gyro = self.accel = (0.0, 0.0, 0.0)
 
     def read(self, k, angle, rate, wheel_angle, wheel_speed):
-        meas = self.suite.read(k, angle, rate, wheel_angle, wheel_speed)
+        meas = self._suite_read(k, angle, rate, wheel_angle, wheel_speed)
         j = k - self.delay_steps
-        j = (max(j, 0) // self.imu_steps) * self.imu_steps
+        if j < 0:
+            j = 0
+        j -= j % self.imu_steps        # the latest sample at the IMU's own rate
         if j != self._sample_row:
             self._sample_row = j
-            alpha = (rate[j] - rate[j - 1]) / self.dt if j > 0 else 0.0
-            self.gyro, self.accel = self.imu.sample(j * self.dt, *hinge_motion(float(angle[j]), float(rate[j]), alpha))
-        c = self.cols
-        c[0][k], c[1][k], c[2][k] = self.gyro
-        c[3][k], c[4][k], c[5][k] = self.accel
+            w = float(rate[j])
+            alpha = (w - rate[j - 1]) / self.dt if j > 0 else 0.0
+            self.gyro, self.accel = self._sample(j * self.dt, float(angle[j]), w, alpha)
+        c0, c1, c2, c3, c4, c5 = self.cols
+        c0[k], c1[k], c2[k] = self.gyro
+        c3[k], c4[k], c5[k] = self.accel
         self.k = k
         return meas
 
@@ -99,12 +104,14 @@ class ImuSensing:
         est_angle, est_rate = self.est_cols
         meas_angle, meas_rate = self.meas_cols
         to_body = self.to_body
+        plain = to_body == ((1.0, 0.0, 0.0), (0.0, 1.0, 0.0), (0.0, 0.0, 1.0))     # axes as the body's
 
         def estimate_then_decide(reading):
             try:
                 if self.estimator is None:
                     self.estimator = self.spec.build(period_s=self.period_s, gravity_m_s2=self.gravity)
-                angle, w = self.estimator.update(reading.t_s, mat_vec(to_body, self.gyro), mat_vec(to_body, self.accel))
+                gyro, accel = (self.gyro, self.accel) if plain else (mat_vec(to_body, self.gyro), mat_vec(to_body, self.accel))
+                angle, w = self.estimator.update(reading.t_s, gyro, accel)
                 angle, w = float(angle), float(w)
             except Exception as exc:  # plug-in code: its failure is the trial's outcome
                 raise StrategyError(f"the estimator failed: {describe_exception(exc)}") from None

@@ -65,8 +65,11 @@ def accel_tilt(accel_m_s2) -> float:
     return math.atan2(accel_m_s2[1], accel_m_s2[2])
 
 
+TWO_PI = 2.0 * math.pi
+
+
 def _wrap(x: float) -> float:
-    return math.remainder(x, 2.0 * math.pi)
+    return math.remainder(x, TWO_PI)
 
 
 class Complementary(Estimator):
@@ -138,7 +141,7 @@ class Kalman(Estimator):
 
     def update(self, t_s, gyro_rad_s, accel_m_s2):
         w, dt = gyro_rad_s[0], self.period_s
-        tilt = accel_tilt(accel_m_s2)
+        tilt = math.atan2(accel_m_s2[1], accel_m_s2[2])    # accel_tilt(), inline: it runs every tick
         if self.angle is None:
             self.angle = tilt
             return self.angle, w - self.bias
@@ -150,8 +153,8 @@ class Kalman(Estimator):
         # update with the tilt: C = [1, 0]
         s = p11 + self.r
         k1, k2 = p11 / s, p12 / s
-        innovation = _wrap(tilt - angle)
-        self.angle = _wrap(angle + k1 * innovation)
+        innovation = math.remainder(tilt - angle, TWO_PI)
+        self.angle = math.remainder(angle + k1 * innovation, TWO_PI)
         self.bias += k2 * innovation
         self.p11, self.p12, self.p22 = (1.0 - k1) * p11, (1.0 - k1) * p12, p22 - k2 * p12
         self.gain = (k1, k2)
