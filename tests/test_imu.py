@@ -30,8 +30,7 @@ def allan_deviation(rate: np.ndarray, dt: float, m: int) -> float:
 def _gyro_x_samples(n: int, rate_hz: float, *, density: float, walk: float, seed: int) -> np.ndarray:
     spec = ImuSpec.model_validate({"gyro": {"noise_density": density, "bias_instability": walk}})
     imu = ImuModel(spec, rate_hz=rate_hz, gravity_m_s2=9.81, rng=np.random.default_rng(seed))
-    still = hinge_motion(0.0, 0.0, 0.0)
-    return np.array([imu.sample(i / rate_hz, *still)[0][0] for i in range(n)])
+    return np.array([imu.sample_hinge(i / rate_hz, 0.0, 0.0, 0.0)[0][0] for i in range(n)])   # a body at rest
 
 
 def test_gyro_allan_deviation_shows_noise_density_and_bias_walk():

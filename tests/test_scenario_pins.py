@@ -24,14 +24,6 @@ ROOT = Path(__file__).resolve().parent.parent
 PINS = Path(__file__).resolve().parent / "pins" / "scenarios_main.json"
 
 
-def _timeless(value):
-    if isinstance(value, dict):
-        return {k: _timeless(v) for k, v in value.items() if k != "real_time_factor" and "wall" not in k}
-    if isinstance(value, list):
-        return [_timeless(v) for v in value]
-    return value
-
-
 def digests(path: Path) -> dict:
     """The digests of one scenario file's trial (see the module docstring)."""
     from sim.model.scenario_yaml import load_scenario
@@ -47,7 +39,8 @@ def digests(path: Path) -> dict:
     with tempfile.TemporaryDirectory() as tmp:
         write_csv(result.trace, Path(tmp) / "trace.csv")
         csv_digest = hashlib.sha256((Path(tmp) / "trace.csv").read_bytes()).hexdigest()
-    metrics = json.dumps(_timeless(trial_metrics(result)), sort_keys=True, default=str)
+    from conftest import timeless
+    metrics = json.dumps(timeless(trial_metrics(result)), sort_keys=True, default=str)
     return {"trace_sha256": h.hexdigest(), "csv_sha256": csv_digest,
             "metrics_sha256": hashlib.sha256(metrics.encode()).hexdigest(), "rows": result.trace.n}
 

@@ -19,7 +19,6 @@ from pydantic import BaseModel, BeforeValidator, ConfigDict, Field, ValidationIn
 from ..core.units import Q
 
 MAX_RATE_HZ = 100_000
-AXIS_NAMES = ("x", "y", "z", "-x", "-y", "-z")
 
 
 class _Strict(BaseModel):

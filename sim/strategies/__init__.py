@@ -119,12 +119,7 @@ def resolve_spec(raw: Any, *, base_dir: Path, anywhere: bool = False) -> Strateg
     `anywhere` (a scenario given in memory by Python code) or ALLOW_OUTSIDE_ENV is "1"."""
     if isinstance(raw, StrategySpec):
         return raw
-    if not isinstance(raw, dict):
-        raise ValueError(f"expected a mapping with 'kind' or 'plugin', found {type(raw).__name__}")
-    raw = dict(raw)
-    kind, plugin = raw.pop("kind", None), raw.pop("plugin", None)
-    if (kind is None) == (plugin is None):
-        raise ValueError("@kind: give exactly one of 'kind' (a built-in) and 'plugin' (file.py:Class or module:Class)")
+    raw, kind, plugin = kind_or_plugin(raw, "a built-in")
     if kind is not None:
         cls, name = _class_for_kind(kind), str(kind)
     else:
@@ -140,6 +135,18 @@ def resolve_spec(raw: Any, *, base_dir: Path, anywhere: bool = False) -> Strateg
         raise ValueError(f"@{'plugin' if plugin is not None else 'kind'}: validating the parameters of "
                          f"{name!r} failed ({describe_exception(exc)})") from None
     return StrategySpec(kind=name, cls=cls, params=params)
+
+
+def kind_or_plugin(raw: Any, kinds: str) -> tuple[dict, Any, Any]:
+    """(the mapping's other keys, kind, plugin) of an extension point's mapping that names exactly
+    one of `kind` (`kinds` says which) and `plugin`; ValueError("@kind: ...") otherwise."""
+    if not isinstance(raw, dict):
+        raise ValueError(f"expected a mapping with 'kind' or 'plugin', found {type(raw).__name__}")
+    raw = dict(raw)
+    kind, plugin = raw.pop("kind", None), raw.pop("plugin", None)
+    if (kind is None) == (plugin is None):
+        raise ValueError(f"@kind: give exactly one of 'kind' ({kinds}) and 'plugin' (file.py:Class or module:Class)")
+    return raw, kind, plugin
 
 
 def _class_for_kind(kind: Any) -> type[Strategy]:

@@ -185,21 +185,16 @@ class EstimatorSpec:
 
 def resolve_estimator(raw: Any, *, base_dir: Path, anywhere: bool = False) -> EstimatorSpec | None:
     """Validate a `sensors.estimator` mapping. Raises ValueError("@key: ...") for the scenario loader."""
+    from . import _class_for_plugin, kind_or_plugin
     if raw is None or isinstance(raw, EstimatorSpec):
         return raw
-    if not isinstance(raw, dict):
-        raise ValueError(f"expected a mapping with 'kind' or 'plugin', found {type(raw).__name__}")
-    raw = dict(raw)
-    kind, plugin = raw.pop("kind", None), raw.pop("plugin", None)
-    if (kind is None) == (plugin is None):
-        raise ValueError("@kind: give exactly one of 'kind' (complementary, kalman) and 'plugin' (file.py:Class)")
+    raw, kind, plugin = kind_or_plugin(raw, ", ".join(sorted(ESTIMATORS)))
     if kind is not None:
         if kind not in ESTIMATORS:
             raise ValueError(f"@kind: unknown estimator {kind!r}; known: {', '.join(sorted(ESTIMATORS))}, or a plugin")
         module, _, name = ESTIMATORS[kind].partition(":")
         cls = getattr(importlib.import_module(module), name)
     else:
-        from . import _class_for_plugin
         cls, kind = _class_for_plugin(plugin, base_dir, anywhere, base=Estimator), str(plugin)
     try:
         params = cls.Params.model_validate(raw)

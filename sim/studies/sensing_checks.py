@@ -19,7 +19,6 @@ import math
 import numpy as np
 
 from ..core.angles import wrap_angles
-from ..model.scenario import Push
 from ..run.metrics import PUSH_RECOVER_S, totals_end_row
 from ..run.trial import run_trial
 
