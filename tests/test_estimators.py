@@ -146,3 +146,17 @@ def test_unknown_estimator_and_bad_parameters_are_named():
         make_scenario(sensors={"imu": {}, "estimator": {"kind": "complementary", "time_constant": -1}})
     assert isinstance(_build({"kind": "kalman"}, 1e-3), Kalman)
     assert isinstance(_build({"kind": "complementary", "time_constant": 1}, 1e-3), Complementary)
+
+
+def test_demo_pair_shows_what_half_a_degree_of_misalignment_does():
+    # the two demo files' own claims (their top comments): aligned, the IMU pendulum holds with its
+    # wheel far from the limit; half a degree off, the angle-only law runs the wheel to its limit
+    from sim.model.scenario_yaml import load_scenario
+    root = Path(__file__).resolve().parent.parent / "scenarios"
+    good = trial_metrics(run_trial(load_scenario(root / "imu_pendulum.yaml")))
+    bad = trial_metrics(run_trial(load_scenario(root / "imu_pendulum_misaligned.yaml")))
+    assert good["outcome"] == "balanced" and good["peak_wheel_speed_rad_s"] < 30
+    assert bad["outcome"] == "fell" and bad["cause"] == "wheel_at_speed_limit"
+    # the misalignment passes through the filter as a steady angle error of about its size
+    assert_allclose(bad["estimator_angle_mean_error_rad"], math.radians(0.5), rtol=0.2)
+    assert abs(good["estimator_angle_mean_error_rad"]) < math.radians(0.1)
