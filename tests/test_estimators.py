@@ -4,7 +4,8 @@ steady gain and noise model, plug-in estimators and their failures.
 Sources: complementary filter, crossover at 1/(2 pi tau) (common practice, no source; references.md,
 Sensing); steady-state Kalman gain from the discrete algebraic Riccati equation (Simon, Optimal
 State Estimation, 2006; scipy.linalg.solve_discrete_are); exact discretisation of continuous
-process noise (Van Loan, IEEE Trans. Automatic Control 23 (1978) 395-404, with scipy.linalg.expm).
+process noise (Van Loan, "Computing integrals involving the matrix exponential", IEEE Trans. Automatic
+Control, 1978; volume and pages from memory: 23, 395-404; computed here with scipy.linalg.expm).
 """
 
 from __future__ import annotations
@@ -132,9 +133,11 @@ def test_plugin_estimator_runs_and_its_failure_is_an_outcome():
                              sensors={"imu": {}, "estimator": {"plugin": f"{PLUGINS / 'estimator_plugins.py'}:{cls}", **params}})
     res = run_trial(scenario("TrueTiltOnly", gain=1.0), isolate=False)
     assert res.outcome == "balanced"
-    res = run_trial(scenario("BreaksAfter", after_s=0.1), isolate=False)
-    assert res.outcome == "strategy_failed"
-    assert "the estimator failed" in res.message and "bus lost" in res.message
+    for isolate in (False, None):    # None: a plug-in estimator's trial runs in the isolation child
+        res = run_trial(scenario("BreaksAfter", after_s=0.1), isolate=isolate)
+        assert res.outcome == "strategy_failed"
+        assert "the estimator failed" in res.message and "bus lost" in res.message
+        assert res.trace.n == 101 and res.ended_at_s == 0.1      # row 100 (1 ms steps) holds the failure
     with pytest.raises(ScenarioError, match="not a subclass of sim.strategies.estimators.Estimator"):
         scenario("NotAnEstimator")
 

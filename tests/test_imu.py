@@ -1,7 +1,7 @@
 """The IMU model (sim.physics.imu) and its place in a trial (sim.physics.imu_sensing).
 
 Sources: IEEE Std 952-1997 (Annex C: the Allan variance and its terms), rigid-body kinematics
-(Meriam & Kraige, Dynamics, relative acceleration in rotating axes; references.md, Sensing).
+(references.md, Sensing; e.g. Meriam & Kraige, Dynamics, relative acceleration in rotating axes, from memory).
 """
 
 from __future__ import annotations

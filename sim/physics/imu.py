@@ -6,7 +6,7 @@ of the body frame's origin a0 (world frame, m/s^2; zero for a body on a fixed pi
 g (world frame, m/s^2; (0, 0, -9.81) here). Outputs: the gyro's three readings, rad/s, and the
 accelerometer's three readings, m/s^2, in the IMU's own axes.
 
-Kinematics (rigid body, e.g. Meriam & Kraige, Dynamics, relative acceleration in rotating
+Kinematics (rigid body; e.g. Meriam & Kraige, Dynamics, relative acceleration in rotating
 axes): a point fixed at r on the body accelerates by a0 + R (alpha x r + omega x (omega x r));
 an accelerometer measures specific force, its acceleration minus gravity:
     f_body = R^T (a0 - g) + alpha x r + omega x (omega x r),
