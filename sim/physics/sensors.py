@@ -84,12 +84,13 @@ class SensorSuite:
         if j < 0:
             j = 0
         ja = jw = j
-        if self.limited:
+        limited = self.limited
+        if limited:
             ja, jw = self._limits[0].row(j), self._limits[1].row(j)
         n = self._noise_row()
         self.tick += 1
         theta = float(angle[ja])
-        if self.limited and self._limits[0].max_speed:
+        if limited and self._limits[0].max_speed:
             theta = self._tracked(0, abs(rate[ja]), theta)
         if self.angle_res:
             theta = math.floor(theta / self.angle_res) * self.angle_res
@@ -101,11 +102,14 @@ class SensorSuite:
         else:
             rate_m = wrap_angle(theta_m - self.prev_angle) / self.period_s
         self.prev_angle = theta_m
-        wheel_pos, wheel_m = float(wheel_angle[jw]), float(wheel_speed[jw])
-        if self.limited and self._limits[1].max_speed:
-            wheel_pos, wheel_m = self._tracked(1, abs(wheel_m), (wheel_pos, wheel_m))
+        if limited:
+            wheel_pos, wheel_m = float(wheel_angle[jw]), float(wheel_speed[jw])
+            if self._limits[1].max_speed:
+                wheel_pos, wheel_m = self._tracked(1, abs(wheel_m), (wheel_pos, wheel_m))
+        elif not self.wheel_res:
+            wheel_m = float(wheel_speed[j])
         if self.wheel_res:
-            counts = math.floor(wheel_pos / self.wheel_res)
+            counts = math.floor((wheel_pos if limited else float(wheel_angle[j])) / self.wheel_res)
             if self.tick == 1:
                 self.prev_wheel_counts = math.floor(wheel_angle[jw] / self.wheel_res - wheel_speed[jw] * self.period_s / self.wheel_res)
             wheel_m = (counts - self.prev_wheel_counts) * self.wheel_res / self.period_s
