@@ -42,7 +42,9 @@ def print_tune(outcome, out_dir: Path) -> None:
     # evaluation 0 is the starting point only when every key has one (tune_study.run_study)
     started = all(p.start is not None and p.low <= p.start <= p.high for p in outcome.params)
     if started and start is not None and start.row["objectives"][0] is not None and outcome.winner is not None:
-        head += f" (model-based start: {start.row['objectives'][0]:.4g} {unit})"
+        # a firmware define starts where the scenario has it, not from a model of the device
+        label = "start" if any(p.as_written for p in outcome.params) else "model-based start"
+        head += f" ({label}: {start.row['objectives'][0]:.4g} {unit})"
     console.print(escape(head))
     for p in outcome.params:
         digits = ".7g" if p.as_written else ".6g"   # a define: as the winner's scenario writes it

@@ -69,16 +69,18 @@ def _take_place(node, old, new, value) -> None:
         node.ca.items[new] = comment
 
 
-def plain_value(value):
+def plain_value(value, *, exact: bool = False):
     """A patch value as it should appear in YAML: Python floats at 7 significant digits, numpy
-    scalars as Python numbers, mappings and lists recursively."""
+    scalars as Python numbers, mappings and lists recursively. The values of a firmware's
+    `defines` stay exact (`exact`): a define's text is part of the build, so a rounded one would
+    compile another firmware than the one that was judged."""
     if isinstance(value, dict):
-        return {str(k): plain_value(v) for k, v in value.items()}
+        return {str(k): plain_value(v, exact=exact or k == "defines") for k, v in value.items()}
     if isinstance(value, (list, tuple)):
-        return [plain_value(v) for v in value]
+        return [plain_value(v, exact=exact) for v in value]
     if hasattr(value, "item") and not isinstance(value, (str, bytes)):
         value = value.item()
-    if isinstance(value, float) and math.isfinite(value):
+    if isinstance(value, float) and math.isfinite(value) and not exact:
         return float(f"{value:.7g}") + 0.0   # + 0.0: no "-0.0" in a file a person reads
     return value
 
