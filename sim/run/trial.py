@@ -38,6 +38,9 @@ ABSURD_RATE_RAD_S = 1e4          # a body spinning at 1,600 rev/s is a numerical
 ABSURD_WHEEL_FACTOR = 20.0       # wheel beyond 20x its no-load speed: likewise
 ABSURD_ANGLE_RAD = 1e6           # ~160,000 turns: the unwrapped angle has run away
 _now = time.perf_counter
+# the heartbeat's slots, as module globals: a class attribute looked up through an instance costs
+# more, twice per control tick
+_STEP, _DEADLINE, _SATURATED = isolation.Heartbeat.STEP, isolation.Heartbeat.DEADLINE, isolation.Heartbeat.SATURATED
 STRATEGY_BUDGET_S = 60.0
 """Default wall-clock budget, s, for all strategy work in one trial (building it and every
 control tick together). The built-in laws use well under 1 s for a minute of simulated time;
@@ -78,14 +81,11 @@ class _WatchedClock(StrategyClock):
     dictionary (a missing attribute looked up with getattr raises and catches an AttributeError
     every tick)."""
 
-    _STEP, _DEADLINE, _SATURATED = isolation.Heartbeat.STEP, isolation.Heartbeat.DEADLINE, isolation.Heartbeat.SATURATED
-
     def __init__(self, budget_s: float, beat: isolation.Heartbeat):
-        self._state = {}
-        super().__init__(budget_s)
+        super().__init__(budget_s)          # sets `strategy` to None through the property below
         self.beat = beat
         self._slots = beat.slots
-        # deadline = entry + what is left of the budget (never below 0) + the grace
+        # deadline = entry + what is left of the budget + the grace
         self._slack = self.budget_s + isolation.GRACE_S
 
     @property
@@ -107,15 +107,17 @@ class _WatchedClock(StrategyClock):
     def enter(self, k: int = -1) -> None:
         t = self.t_in = _now()
         slots = self._slots
-        slots[self._STEP] = k              # before the deadline: the parent reads the deadline first
-        slots[self._DEADLINE] = t + max(self._slack - self.used_s, isolation.GRACE_S)
+        slots[_STEP] = k              # before the deadline: the parent reads the deadline first
+        # what is left of the budget is never below 0 here: leave() ends the trial when it is used
+        # up, and after() keeps AFTER_S of it (no max(): a builtin call costs more than the rest)
+        slots[_DEADLINE] = t + (self._slack - self.used_s)
 
     def leave(self) -> None:
         slots = self._slots
-        slots[self._DEADLINE] = 0.0
+        slots[_DEADLINE] = 0.0
         state = self._state
-        slots[self._SATURATED] = (state.get("saturated_ticks", 0) if state is not None
-                                  else getattr(self._strategy, "saturated_ticks", 0))
+        slots[_SATURATED] = (state.get("saturated_ticks", 0) if state is not None
+                             else getattr(self._strategy, "saturated_ticks", 0))
         self.used_s += _now() - self.t_in
         self.t_in = None
         if self.used_s > self.budget_s:
