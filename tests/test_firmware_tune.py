@@ -27,6 +27,9 @@ pytestmark = pytest.mark.skipif(shutil.which("cc") is None and shutil.which("gcc
 
 CAPPED = r"""
 #include <math.h>
+#if N_PHASE < 1 || N_PHASE > 255      /* the preprocessor takes whole numbers only: "2.0" fails here */
+#error "N_PHASE must be a phase number"
+#endif
 static float supply;
 void wb_init(const wb_config_t *cfg) { supply = cfg->supply_v; }
 void wb_step(const wb_input_t *in, wb_output_t *out) {

@@ -180,7 +180,7 @@ def check_space(raw: dict, where: str, params: list[Param]) -> None:
         if p.path in seen:
             raise InputError(f"--param {p.key}: the key is given twice")
         seen.add(p.path)
-        for value in (p.low, p.high):
+        for value in (p.assigned(p.low), p.assigned(p.high)):   # as an evaluation would set them
             trial = copy.deepcopy(raw)
             set_path(trial, list(p.path), value, where=f"{where} (--param {p.key})")
             try:
