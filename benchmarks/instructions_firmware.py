@@ -11,7 +11,8 @@ durations, so that set-up cancels: per step = (count(T2) - count(T1)) / (steps(T
 "fixed" is what is left of the shorter trial's count. Every process's count is added up (the
 child's too; callgrind follows the fork), except that an isolated trial's per-step figure is the
 child's alone: the parent's watchdog wakes every 0.1 s of wall time, and under valgrind a trial
-takes some fifty times longer, so its polls would count as if they were per step. The kernel's share (the fork, copied pages) is not an
+takes some fifty times longer, so its polls would count as if they were per step (they stay in
+an isolated trial's "fixed" figure, which is therefore larger than it is outside valgrind). The kernel's share (the fork, copied pages) is not an
 instruction count and shows only in bench_firmware.py. Needs valgrind with its headers and a C
 compiler. No assertion.
 """
