@@ -142,3 +142,18 @@ def test_a_sweep_over_a_define_reaches_the_firmware(tmp_path, capsys):
     assert float(capped["peak_current_a"]) <= bound(12.0 * (1 - 0.6), capped) * (1 + 1e-9)
     # at P = 0.3 the cap is the supply: the 0.05 rad start asks for more than the P = 0.9 cap allows
     assert float(rows[0.3]["peak_current_a"]) > bound(12.0 * (1 - 0.6), rows[0.3])
+
+
+def test_apply_to_another_folder_keeps_the_firmware_found(tmp_path, capsys):
+    # sources and include are relative to the scenario file: a scenario written elsewhere (apply
+    # --out, tune's best_scenario.yaml) names them relative to its own folder
+    path = capped_scenario(tmp_path)
+    (tmp_path / "patch.yaml").write_text("strategy:\n  defines:\n    P: 0.4\n")
+    out = tmp_path / "elsewhere" / "deeper" / "patched.yaml"
+    out.parent.mkdir(parents=True)
+    assert main(["apply", str(path), str(tmp_path / "patch.yaml"), "--out", str(out)]) == 0, capsys.readouterr().err
+    strategy = yaml.safe_load(out.read_text())["strategy"]
+    assert strategy["sources"] == ["../../fw/capped.c"] and strategy["include"] == ["../../fw"]
+    sc = load_scenario(out)
+    assert sc.strategy.params.sources == [str((tmp_path / "fw" / "capped.c").resolve())]
+    assert sc.strategy.params.defines["P"] == 0.4
