@@ -338,6 +338,22 @@ def test_static_variables_are_fresh_in_every_trial(tmp_path, isolate):
 
 
 @linux_only
+def test_an_isolated_trial_loads_the_build_itself_and_later_loads_in_a_process_copy_it(tmp_path):
+    # a process's first load of a build is its file (nothing of it mapped yet: fresh statics); the
+    # isolation child is forked from a process that has not loaded it, so it needs no copy. Loads
+    # after the first in one process are copies (a second load of one file gives the same statics)
+    sc = firmware_scenario(tmp_path, COUNTER, defines={"UNIQUE": tmp_path.name}, trial={"duration": "0.1 s"})
+    build = str(sc.strategy.params.build.path)
+    seen = []
+    for isolate in (True, True, False, False, True):
+        result = run_trial(sc, isolate=isolate)
+        assert result.trace.phases[int(result.trace.mode[2 * 49])] == "fw 50"     # statics fresh each time
+        seen.append(result.strategy.loaded_from)
+    assert seen[:3] == [build] * 3
+    assert seen[3] != build and seen[4] != build and seen[3] != seen[4]
+
+
+@linux_only
 def test_run_writes_the_firmwares_printf_to_firmware_log(tmp_path):
     path = firmware_scenario(tmp_path, COUNTER, trial={"duration": "0.1 s", "start": {"angle": "3 deg"}},
                              write_only=True, quiet=True)

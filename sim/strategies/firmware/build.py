@@ -213,20 +213,36 @@ def _sha256(path: Path) -> str | None:
         return None
 
 
+_LOADED: set[str] = set()
+"""Build files this process has loaded itself, or inherited loaded from the process it was forked from."""
+
+
 def load_fresh(build: Build):
-    """A fresh copy of the built module (its static variables at their initial values): the file is
-    copied to a temporary name and loaded from there (a second load of the same file would give
-    the same copy back), then the temporary file is removed; the mapping stays."""
+    """A fresh copy of the built module (its static variables at their initial values).
+
+    The first load of a build in a process is the build's file itself: nothing of it is mapped yet,
+    so its statics are fresh. That is every isolated trial: the isolation child is forked from a
+    process that runs firmware only in children, and it runs one trial. A later load in the same
+    process (in-process trials: `isolate=False`, clips) would get the same copy back, so the file is
+    copied to a temporary name and loaded from there, then the temporary file is removed (the
+    mapping stays)."""
+    if str(build.path) not in _LOADED:
+        _LOADED.add(str(build.path))
+        return _load_extension(build.module_name, str(build.path))
     fd, tmp = tempfile.mkstemp(prefix=build.module_name + "-", suffix=_ext_suffix())
     os.close(fd)
     try:
         shutil.copyfile(build.path, tmp)
-        loader = importlib.machinery.ExtensionFileLoader(build.module_name, tmp)
-        spec = importlib.util.spec_from_file_location(build.module_name, tmp, loader=loader)
-        module = importlib.util.module_from_spec(spec)
-        loader.exec_module(module)
+        return _load_extension(build.module_name, tmp)
     finally:
         os.unlink(tmp)
+
+
+def _load_extension(name: str, path: str):
+    loader = importlib.machinery.ExtensionFileLoader(name, path)
+    spec = importlib.util.spec_from_file_location(name, path, loader=loader)
+    module = importlib.util.module_from_spec(spec)
+    loader.exec_module(module)
     return module
 
 
