@@ -16,6 +16,7 @@ Needs valgrind with its headers (valgrind/callgrind.h) and a C compiler. No asse
 from __future__ import annotations
 
 import argparse
+import contextlib
 import re
 import subprocess
 import sys
@@ -58,16 +59,29 @@ def count(which: str, seconds: float, lib: Path, tmp: Path) -> int:
     return int(found[0])
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+def seconds_option(doc: str) -> tuple[float, float]:
+    """The two trial durations, s, from --seconds T1 T2 (the script's docstring as its help)."""
+    ap = argparse.ArgumentParser(description=doc.split("\n\n")[0])
     ap.add_argument("--seconds", type=float, nargs=2, default=[1.0, 3.0], metavar=("T1", "T2"))
-    args = ap.parse_args()
-    t1, t2 = args.seconds
+    t1, t2 = ap.parse_args().seconds
+    return t1, t2
+
+
+@contextlib.contextmanager
+def counting_folder():
+    """A temporary folder with the shared library that switches callgrind's counting on and off
+    compiled in it: (folder, library)."""
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
         (tmp / "helper.c").write_text(HELPER_C)
         lib = tmp / "libhelper.so"
         subprocess.run(["cc", "-shared", "-fPIC", "-O2", "-o", str(lib), str(tmp / "helper.c")], check=True)
+        yield tmp, lib
+
+
+def main() -> None:
+    t1, t2 = seconds_option(__doc__)
+    with counting_folder() as (tmp, lib):
         steps = (t2 - t1) * 1000.0   # the demo's 1 ms physics step
         per_step = {which: (count(which, t2, lib, tmp) - count(which, t1, lib, tmp)) / steps
                     for which in ("bare", "trial")}

@@ -40,12 +40,18 @@ def print_tune(outcome, out_dir: Path) -> None:
     head = (f"best: evaluation {pick.number}, {obj} {value:.4g} {unit}" if outcome.winner is not None else
             f"no design passed; closest: evaluation {pick.number}, failing " + ", ".join(failing)
             + (" in the full check" if not failed_criteria(pick.row, outcome.objectives) else ""))
-    if start is not None and start.row["objectives"][0] is not None and outcome.winner is not None:
-        head += f" (model-based start: {start.row['objectives'][0]:.4g} {unit})"
+    # evaluation 0 is the starting point only when every key has one (tune_study.run_study)
+    started = all(p.start is not None and p.low <= p.start <= p.high for p in outcome.params)
+    if started and start is not None and start.row["objectives"][0] is not None and outcome.winner is not None:
+        # a firmware define starts where the scenario has it, not from a model of the device
+        label = "start" if any(p.as_written for p in outcome.params) else "model-based start"
+        head += f" ({label}: {start.row['objectives'][0]:.4g} {unit})"
     console.print(escape(head))
     for p in outcome.params:
-        console.print(escape(f"  {p.key} = {pick.params[p.key]:.6g}"
-                             + (f" (start {p.start:.6g})" if p.start is not None else "") + f": {p.does}"))
+        digits = ".7g" if p.as_written else ".6g"   # a define: as the winner's scenario writes it
+        console.print(escape(f"  {p.key} = {p.assigned(pick.params[p.key]):{digits}}"
+                             + (f" (start {p.start:{digits}})" if p.start is not None else "")
+                             + (f": {p.does}" if p.does else "")))
     if len(outcome.objectives) > 1:
         console.print(escape(f"Pareto front: {len(outcome.front)} designs (tune.csv has every evaluation)"))
     console.print(escape(f"wrote {out_dir}/" + ", ".join(outcome.written)))

@@ -38,6 +38,10 @@ OUTCOMES = ("balanced", "fell", "not_caught", "diverged", "strategy_failed", "co
 ABSURD_RATE_RAD_S = 1e4          # a body spinning at 1,600 rev/s is a numerical blow-up
 ABSURD_WHEEL_FACTOR = 20.0       # wheel beyond 20x its no-load speed: likewise
 ABSURD_ANGLE_RAD = 1e6           # ~160,000 turns: the unwrapped angle has run away
+_now = time.perf_counter
+# the heartbeat's slots, as module globals: a class attribute looked up through an instance costs
+# more, twice per control tick
+_STEP, _DEADLINE, _SATURATED = isolation.Heartbeat.STEP, isolation.Heartbeat.DEADLINE, isolation.Heartbeat.SATURATED
 STRATEGY_BUDGET_S = 60.0
 """Default wall-clock budget, s, for all strategy work in one trial (building it and every
 control tick together). The built-in laws use well under 1 s for a minute of simulated time;
@@ -72,22 +76,57 @@ class TrialResult:
 
 class _WatchedClock(StrategyClock):
     """A StrategyClock that also keeps the watchdog's heartbeat: isolated trials only (see
-    `sim.core.isolation`), so that the in-process loop pays nothing for it."""
+    `sim.core.isolation`), so that the in-process loop pays nothing for it.
+
+    Called twice per control tick, so kept light: the base's enter/leave inlined, the heartbeat's
+    slots written directly, and the strategy's saturated-tick count read from its instance
+    dictionary (a missing attribute looked up with getattr raises and catches an AttributeError
+    every tick)."""
 
     def __init__(self, budget_s: float, beat: isolation.Heartbeat):
-        super().__init__(budget_s)
+        super().__init__(budget_s)          # sets `strategy` to None through the property below
         self.beat = beat
+        self._slots = beat.slots
+        # deadline = entry + what is left of the budget + the grace
+        self._slack = self.budget_s + isolation.GRACE_S
+
+    @property
+    def strategy(self):
+        return self._strategy
+
+    @strategy.setter
+    def strategy(self, strategy) -> None:
+        self._strategy = strategy
+        plain = (strategy is not None and hasattr(strategy, "__dict__")
+                 and not hasattr(type(strategy), "saturated_ticks"))
+        # None: read it with getattr (a class attribute, a property, slots); else this dict
+        self._state = vars(strategy) if plain else ({} if strategy is None else None)
+
+    def _saturated(self) -> int:
+        state = self._state
+        return state.get("saturated_ticks", 0) if state is not None else getattr(self._strategy, "saturated_ticks", 0)
 
     def enter(self, k: int = -1) -> None:
-        super().enter(k)
-        self.beat.entered(k, self.t_in + max(self.budget_s - self.used_s, 0.0) + isolation.GRACE_S)
+        t = self.t_in = _now()
+        slots = self._slots
+        slots[_STEP] = k              # before the deadline: the parent reads the deadline first
+        # what is left of the budget is never below 0 here: leave() ends the trial when it is used
+        # up, and after() keeps AFTER_S of it (no max(): a builtin call costs more than the rest)
+        slots[_DEADLINE] = t + (self._slack - self.used_s)
 
     def leave(self) -> None:
-        self.beat.left(getattr(self.strategy, "saturated_ticks", 0))
-        super().leave()
+        slots = self._slots
+        slots[_DEADLINE] = 0.0
+        state = self._state
+        slots[_SATURATED] = (state.get("saturated_ticks", 0) if state is not None
+                             else getattr(self._strategy, "saturated_ticks", 0))
+        self.used_s += _now() - self.t_in
+        self.t_in = None
+        if self.used_s > self.budget_s:
+            self._expire()
 
     def abandon(self) -> None:
-        self.beat.left(getattr(self.strategy, "saturated_ticks", 0))
+        self.beat.left(self._saturated())
         super().abandon()
 
     def after(self, work, fallback):
