@@ -143,6 +143,12 @@ def scenario_tolerances(scenario) -> list[Tolerance]:
     table = dict(DEFAULT_TOLERANCES)
     if scenario.motor.speed_constant is None:
         table["motor.back_emf_constant"] = table.pop("motor.speed_constant")
+    if scenario.battery is not None:
+        # a pack's supply is its charge state and sag: its resistance moves with temperature and age
+        # (common practice, no source), and drive.supply is not the scenario's to give
+        del table["drive.supply"]
+        b = scenario.battery
+        table["battery.internal_resistance" if b.internal_resistance is not None else "battery.cell_resistance"] = "20%"
     return parse_tolerances(scenario, table)
 
 

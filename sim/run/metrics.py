@@ -92,11 +92,29 @@ def trial_metrics(result) -> dict:
         "physics_step_s": dt,
         "control_rate_hz": dev.control_rate_hz,
     }
+    if result.power is not None:    # the power chain's figures, only when it ran (today's keys stay as they were)
+        metrics.update(power_metrics(result))
     # a strategy may report figures of its own (e.g. a jump's needed and reached wheel speed);
     # they never replace the runner's keys
     extra = getattr(result.strategy, "extra_metrics", None) or {}
     metrics.update({k: v for k, v in extra.items() if k not in metrics})
     return metrics
+
+
+def power_metrics(result) -> dict:
+    """The power chain's keys: the bus voltage's extremes (V; the peak shows regeneration), the charge
+    used (mAh, net of regeneration), the pack's state of charge at the end (null on a bench supply),
+    the driver's trips, the share of steps whose non-zero command fell in the PWM dead band (null
+    without a PWM model), the protection events, and the mean bus current over the trial (A)."""
+    p = result.power
+    tr = result.trace
+    out = {k: p[k] for k in ("min_supply_voltage_v", "peak_supply_voltage_v", "charge_used_mah",
+                             "battery_state_of_charge_end", "driver_trips", "pwm_dead_band_fraction",
+                             "power_events")}
+    out["mean_bus_current_a"] = float(np.mean(tr.bus_current[: tr.n])) if tr.n else 0.0
+    if "peak_winding_temperature_c" in p:
+        out["peak_winding_temperature_c"] = p["peak_winding_temperature_c"]
+    return out
 
 
 def settle_time(angle: np.ndarray, dt: float, caught_at_s: float | None, pushes) -> float | None:

@@ -24,6 +24,10 @@ CSV_COLUMNS = (
     "mode",
 )
 
+POWER_CSV_COLUMNS = ("supply_voltage_v", "bus_current_a")
+"""Added before `mode` when the trial drove through the power chain (a battery or a drive model):
+the bus voltage at each step's start, V, and the step's mean bus current, A (negative: regenerating)."""
+
 
 MAX_PHASES = 256
 """Distinct phase names a trace keeps. The first MAX_PHASES names a strategy uses get their own
@@ -46,6 +50,7 @@ cannot push the machine into swap or the out-of-memory killer."""
 class Trace:
     """Preallocated columns for `capacity` rows; `n` rows are filled.
 
+    `power=True` adds the power chain's columns `supply_voltage` and `bus_current` (POWER_CSV_COLUMNS).
     `shared=True` backs the columns with a temporary file mapped MAP_SHARED, so that a process
     forked after construction writes rows its parent can read; long traces are backed that way too
     (see IN_MEMORY_ROWS). Either way the columns are plain numpy arrays to their users.
@@ -54,9 +59,14 @@ class Trace:
     FLOAT_COLUMNS = ("t", "angle", "rate", "wheel_angle", "wheel_speed", "voltage", "current", "torque",
                      "meas_angle", "meas_rate", "meas_wheel")
 
-    def __init__(self, capacity: int, *, step_s: float, shared: bool = False):
+    POWER_COLUMNS = ("supply_voltage", "bus_current")
+
+    def __init__(self, capacity: int, *, step_s: float, shared: bool = False, power: bool = False):
         self.step_s = step_s
         self.n = 0
+        self.has_power_columns = power
+        if power:   # an instance attribute: the class's tuple stays the plain trace's
+            self.FLOAT_COLUMNS = Trace.FLOAT_COLUMNS + self.POWER_COLUMNS
         n_float = len(self.FLOAT_COLUMNS)
         n_bytes = capacity * (8 * n_float + 2)
         mapped = _file_backed(n_bytes) if (shared or capacity > IN_MEMORY_ROWS) else None
@@ -151,7 +161,7 @@ def write_csv(trace: Trace, path) -> None:
     Written a block of rows at a time: memory beyond the trace itself stays a few MB however long
     the trial (one table of Python floats for a 5,000,000-row trace would take gigabytes).
     """
-    names = list(CSV_COLUMNS[:-1])
+    names = list(CSV_COLUMNS[:-1]) + (list(POWER_CSV_COLUMNS) if trace.has_power_columns else [])
     with open(path, "w", encoding="utf-8", newline="") as fh:
         fh.write(",".join(names + ["mode"]) + "\n")
         # 9 significant digits (a float32-level record of float64 state)
@@ -191,4 +201,4 @@ def _block_columns(trace: Trace, start: int, stop: int) -> dict[str, np.ndarray]
         "measured_angle_rad": trace.meas_angle[s],
         "measured_rate_rad_s": trace.meas_rate[s],
         "measured_wheel_speed_rad_s": trace.meas_wheel[s],
-    }
+    } | ({"supply_voltage_v": trace.supply_voltage[s], "bus_current_a": trace.bus_current[s]} if trace.has_power_columns else {})

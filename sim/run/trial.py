@@ -24,6 +24,7 @@ from ..core.errors import StrategyError
 from ..core.exception_text import describe_exception, exception_parts
 from ..model.device import Device
 from ..physics.engine import EngineModel
+from ..physics.drive import PowerChain
 from ..physics.motor import MotorDrive
 from ..physics.sensors import SensorSuite
 from ..strategies import plugins_in
@@ -66,6 +67,7 @@ class TrialResult:
     events: list = field(default_factory=list)
     cause: str | None = None            # why a trial that is not balanced/completed ended so (sim.run.causes)
     cause_detail: str | None = None     # one sentence with the figures behind `cause`
+    power: dict | None = None           # the power chain's summary (`PowerChain.summary`), None without one
 
 
 class _WatchedClock(StrategyClock):
@@ -102,8 +104,8 @@ class _PublishedTrace(Trace):
     """A shared trace whose phase names also go to the heartbeat as they appear (isolated trials):
     the parent cannot ask a child it had to kill for them."""
 
-    def __init__(self, capacity: int, *, step_s: float, beat: isolation.Heartbeat):
-        super().__init__(capacity, step_s=step_s, shared=True)
+    def __init__(self, capacity: int, *, step_s: float, beat: isolation.Heartbeat, power: bool = False):
+        super().__init__(capacity, step_s=step_s, shared=True, power=power)
         self.beat = beat
 
     def phase_code(self, phase: str) -> int:
@@ -140,7 +142,7 @@ def run_trial(scenario, *, seed: int | None = None, stop_early: bool | None = No
     if isolate is None:
         isolate = visual is None and isolation.AVAILABLE and bool(plugins_in(scenario.strategy))
     if not isolate:
-        trace = Trace(scenario.n_steps, step_s=scenario.world.step)
+        trace = Trace(scenario.n_steps, step_s=scenario.world.step, power=scenario.power_model)
         return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
                          visual=visual, on_step=on_step)
     if visual is not None or not isolation.AVAILABLE:
@@ -178,9 +180,9 @@ def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step)
     EngineModel(device, step_s=scenario.world.step, start_angle_rad=scenario.trial.start.angle).close()
     beat = isolation.Heartbeat()
     try:
-        trace = _PublishedTrace(scenario.n_steps, step_s=scenario.world.step, beat=beat)
+        trace = _PublishedTrace(scenario.n_steps, step_s=scenario.world.step, beat=beat, power=scenario.power_model)
     except OSError:     # no room for a shared trace, in the temporary folder or in memory: run here
-        trace = Trace(scenario.n_steps, step_s=scenario.world.step)
+        trace = Trace(scenario.n_steps, step_s=scenario.world.step, power=scenario.power_model)
         return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
                          visual=None, on_step=on_step)
     clock = _WatchedClock(budget, beat)
@@ -245,7 +247,13 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
     # the supply as the scenario states it: nothing the strategy holds (its `supply_v`, its device)
     supply = float(scenario.drive.supply)
     fallen = None  # the trace's phase code "fallen", once a body has fallen
-    motor = MotorDrive(device, step_s=dt)
+    chain = PowerChain(scenario, device, step_s=dt) if scenario.power_model else None
+    if chain is None:
+        motor = MotorDrive(device, step_s=dt)   # today's ideal source
+    else:   # battery, PWM, current mode, ...: the same per-step call; the command's limit is the chain's
+        motor, supply = chain, chain.command_limit
+        applied = np.zeros(n)   # the chain's mean winding voltage per step (the trace's voltage column)
+        t_sup, t_bus, t_app = (memoryview(c) for c in (trace.supply_voltage, trace.bus_current, applied))
     pushes = _push_schedule(scenario, dt, n)
     next_push, push_torque = pushes.pop() if pushes else (-1, 0.0)
     wheel_limit = ABSURD_WHEEL_FACTOR * device.no_load_speed_rad_s + 100.0
@@ -331,9 +339,14 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
                     fallen = trace.phase_code("fallen") if fallen is None else fallen
                     t_mode[k] = fallen
         if open_circuit:
-            motor.current, cur, torque = 0.0, 0.0, 0.0
+            if chain is None:
+                motor.current, cur, torque = 0.0, 0.0, 0.0
+            else:
+                cur, torque = chain.float_winding()
         else:
             cur, torque = update(volts, phd)
+        if chain is not None:
+            t_sup[k], t_bus[k], t_app[k] = chain.bus_v, chain.bus_current_a, chain.applied_v
         pivot_torque = -bp * thd
         if k == next_push:
             pivot_torque += push_torque
@@ -344,12 +357,15 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
             on_step(k, engine)
         k += 1
     wall = time.perf_counter() - wall0
+    if chain is None:
+        return _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, fall_final,
+                       wants_balance, ticks, wall)
     return _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, fall_final,
-                   wants_balance, ticks, wall)
+                   wants_balance, ticks, wall, power=chain.summary(), applied=applied)
 
 
 def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, fall_final,
-            wants_balance, ticks, wall) -> TrialResult:
+            wants_balance, ticks, wall, *, power=None, applied=None) -> TrialResult:
     """Close the trace and judge the outcome. `k` is the step the loop stopped at."""
     dt, n = scenario.world.step, scenario.n_steps
     if outcome in ("diverged", "strategy_failed") and k < n:
@@ -361,6 +377,8 @@ def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fel
         trace.n, ended = k, k * dt
     trace.t[: trace.n] = np.arange(trace.n) * dt
     _hold_tick_values(trace, scenario.control_steps)
+    if applied is not None:     # through the power chain: what reached the winding, step by step
+        trace.voltage[: trace.n] = applied[: trace.n]
     if outcome in ("diverged", "strategy_failed") and k < n:
         trace.voltage[k] = 0.0  # nothing was applied after the failure
     if outcome is None:
@@ -371,7 +389,7 @@ def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fel
         caught_at_s=catch_k * dt if (catch_k and outcome == "balanced") else None,
         fell_at_s=fell_k * dt if fell_k is not None else None, ended_at_s=ended,
         control_ticks=ticks, saturated_ticks=saturated_ticks(trace, scenario.control_steps, scenario.drive.supply),
-        wall_s=wall, strategy=strategy,
+        wall_s=wall, strategy=strategy, power=power,
     )
     result.cause, result.cause_detail = find_cause(result)
     return result
