@@ -109,11 +109,12 @@ class PowerChain:
 
     def update(self, command: float, wheel_speed_rad_s: float) -> tuple[float, float]:
         """Advance one step (see the module docstring); returns (mean current A, torque N m)."""
-        t, dt = self.t, self.dt
-        self.t = t + dt
+        dt = self.dt
+        t = self.steps * dt          # by multiplication: no drift of a sum over millions of steps
         self.steps += 1
+        self.t = self.steps * dt
         bus = self.bus_v = self.supply.volts
-        if t < self.off_until:
+        if t < self.off_until - 1e-9 * dt:
             return self._off(dt)
         if self.reversal_s:
             command = self._reversal(command, t)
@@ -175,7 +176,7 @@ class PowerChain:
             return command
         if self.turn_at is None:
             self.turn_at = t + self.reversal_s
-        if t + 1e-12 * self.dt < self.turn_at:
+        if t < self.turn_at - 1e-9 * self.dt:
             return 0.0
         self.direction, self.turn_at = s, None
         return command
@@ -183,8 +184,8 @@ class PowerChain:
     def float_winding(self) -> tuple[float, float]:
         """One step with the winding open (a strategy's `open_circuit`): no current, the supply at rest."""
         self.bus_v = self.supply.volts
-        self.t += self.dt
         self.steps += 1
+        self.t = self.steps * self.dt
         return self._off(self.dt)
 
     # -- protections and heat ----------------------------------------------------------------
@@ -202,7 +203,7 @@ class PowerChain:
         if i > self.trip_a or i < -self.trip_a:
             if self.over_since is None:
                 self.over_since = t
-            if now - self.over_since >= self.trip_s - 1e-12:
+            if now - self.over_since >= self.trip_s - 1e-9 * self.dt:
                 self.trips += 1
                 self.events.append((now, "driver_tripped"))
                 self.off_until = now + self.recovery_s if self.recovery_s is not None else math.inf

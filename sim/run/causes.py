@@ -116,13 +116,13 @@ def _power_event(result) -> tuple[str, str] | None:
     if code == "battery_cutoff":
         cut = sc.battery.cells * sc.battery.cutoff_per_cell
         return code, (f"the bus sagged to {summary['min_supply_voltage_v']:.2f} V, below the pack's {cut:.2f} V "
-                      f"cut-off, at {t:.2f} s and the drive switched off; {fell}")
+                      f"cut-off, at {t:.3f} s and the drive switched off; {fell}")
     if code == "driver_tripped":
         trip = sc.drive.trip
-        return code, (f"the driver tripped at {t:.2f} s (|i| above {trip.current:.3g} A for {trip.time:g} s; "
+        return code, (f"the driver tripped at {t:.3f} s (|i| above {trip.current:.3g} A for {trip.time:g} s; "
                       f"{summary['driver_trips']} trip(s) in the trial) and stopped driving; {fell}")
     return code, (f"regeneration raised the bus to {summary['peak_supply_voltage_v']:.2f} V, above its "
-                  f"{sc.drive.max_bus_voltage:.3g} V limit, at {t:.2f} s and the drive switched off; {fell}")
+                  f"{sc.drive.max_bus_voltage:.3g} V limit, at {t:.3f} s and the drive switched off; {fell}")
 
 
 # ----------------------------------------------------------------------------- fell
