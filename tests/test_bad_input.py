@@ -183,6 +183,10 @@ KEY_CASES = {
     "dead_time_without_frequency": ({"drive": {"pwm": {"resolution_bits": 8, "dead_time": "1 us"}}},
                                     ["drive.pwm.dead_time", "frequency"]),
     "trip_without_current": ({"drive": {"trip": {"time": "1 ms"}}}, ["drive.trip.current"]),
+    "curve_torque_rising": ({"motor": {"speed_constant": "300 rpm/V", "torque_constant": "0.033 N*m/A",
+                                       "resistance": 2.0, "curve": {"voltage": "12 V", "points": [
+                                           {"speed": "0 rpm", "torque": 0.1}, {"speed": "1000 rpm", "torque": 0.2}]}}},
+                            ["motor.curve.points[1].torque", "must not rise"]),
 }
 
 

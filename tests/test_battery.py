@@ -94,3 +94,13 @@ def test_locked_wheel_at_full_duty_on_a_pack_settles_where_the_motor_equation_sa
     assert tr.supply_voltage[0] - tr.supply_voltage[1] > 1.0             # the start's inrush sags it too
     # the pack drains as it runs: the settled wheel slows with the open-circuit voltage
     assert tr.wheel_speed[k] < tr.wheel_speed[k - 100]
+
+
+def test_pack_open_circuit_voltage_is_the_cells_table_at_every_state_of_charge():
+    # the pack holds its table segment between steps: across segment edges, both ways, and past the
+    # ends (clamped) it must still read cells x the table (sim.model.cells)
+    for chem in ("lipo", "li-ion", "nimh"):
+        pack = Battery(chemistry=chem, cells=4, capacity_c=1.0, resistance_ohm=0.0, soc=0.97, capacitance_f=None)
+        for soc in [0.97 - 0.013 * k for k in range(80)] + [0.05 + 0.021 * k for k in range(50)] + [1.2, -0.3]:
+            pack.soc = soc
+            assert_allclose(pack.open_circuit_volts(), 4 * open_circuit_volts_per_cell(chem, soc), rtol=1e-12)

@@ -91,6 +91,32 @@ def test_braking_trial_regenerates_at_half_the_back_emf():
     assert m["charge_used_mah"] < 0
 
 
+def test_each_power_criterion_passes_and_fails_on_its_side_of_the_limit():
+    # the criteria's values from one set of runs, judged against lenient and strict limits
+    from sim.studies.power_checks import braking_trial, power_criteria
+    from sim.studies.verdicts import _criterion, hold_scenario
+    raw = fast_raw(drive={"supply": None, "trip": {"current": "3.9 A", "time": "1 s"}}, battery=PACK)
+    sc = validate_scenario(raw, where="<test>")
+    metrics = {"nominal": trial_metrics(run_trial(sc)), "hold": trial_metrics(run_trial(hold_scenario(sc)))}
+    braking = braking_trial(raw, sc, "<test>")[1]
+
+    def judged(**changes):
+        req = sc.requirements.model_copy(update={k: v for k, v in changes.items() if k != "drive"})
+        s = sc.model_copy(update={"requirements": req, "drive": sc.drive.model_copy(update=changes.get("drive", {}))})
+        return {c["name"]: c for c in power_criteria(s, metrics, braking, _criterion)}
+
+    lenient = judged(run_time=1.0, wheel_speed_margin=0.01)
+    strict = judged(run_time=1e9, wheel_speed_margin=0.999, drive={"max_bus_voltage": sc.drive.supply})
+    for name in ("battery_run_time_s", "sag_wheel_speed_margin", "peak_bus_voltage_v"):
+        assert lenient[name]["passed"] and not strict[name]["passed"], (lenient[name], strict[name])
+        assert lenient[name]["value"] == strict[name]["value"]
+    assert lenient["driver_trips"]["value"] == 0 and lenient["driver_trips"]["passed"]
+    tripped = dict(braking, driver_trips=2)
+    s = sc.model_copy(update={"requirements": sc.requirements.model_copy(update={"run_time": 1.0})})
+    trips = {c["name"]: c for c in power_criteria(s, metrics, tripped, _criterion)}["driver_trips"]
+    assert trips["value"] == 2 and not trips["passed"]
+
+
 @pytest.mark.slow
 def test_check_judges_the_power_criteria(tmp_path):
     raw = fast_raw(drive={"supply": None}, battery=PACK)

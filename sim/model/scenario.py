@@ -230,6 +230,33 @@ class MotorThermal(Strict):
     """True: the winding's temperature raises its resistance during the trial (`sim.physics.drive`)."""
 
 
+class CurvePoint(Strict):
+    speed: Q("angular_speed", ge=0, le=MAX_SPEED)
+    torque: Q("torque", ge=-MAX_TORQUE, le=MAX_TORQUE)
+
+
+class MotorCurve(Strict):
+    """A datasheet's torque-speed line at one voltage (`sim.physics.curve`), used by the drive instead
+    of the straight line from Kv and R. Speeds rising from 0, torque falling."""
+
+    voltage: Q("voltage", gt=0, le=1000)
+    points: Annotated[list[CurvePoint], Field(min_length=2, max_length=200)]
+
+    @field_validator("points")
+    @classmethod
+    def _rising_speed_falling_torque(cls, points):
+        for i, (a, b) in enumerate(zip(points, points[1:])):
+            if not b.speed > a.speed:
+                raise ValueError(f"@[{i + 1}].speed: speeds must rise from point to point")
+            if b.torque > a.torque:
+                raise ValueError(f"@[{i + 1}].torque: torque must not rise with speed")
+        if not points[-1].torque < points[0].torque:
+            raise ValueError("@[0].torque: the torque must fall over the curve")
+        if points[0].torque <= 0:
+            raise ValueError("@[0].torque: the first point's torque must be positive (the motor drives)")
+        return points
+
+
 class Motor(Strict):
     name: str | None = None
     speed_constant: Q("speed_constant", gt=0, le=1e5) | None = None
@@ -244,6 +271,8 @@ class Motor(Strict):
     rotor_inertia: Q("inertia", ge=0, le=MAX_INERTIA) = 0.0
     mass: Q("mass", ge=0, le=MAX_MASS_KG) = 0.0
     thermal: MotorThermal = MotorThermal()
+    curve: MotorCurve | None = None
+    """A datasheet torque-speed curve the drive uses instead of the line from Kv and R (voltage mode)."""
 
     @model_validator(mode="after")
     def _one_speed_constant(self):
@@ -489,6 +518,11 @@ class Scenario(Strict):
             # the supply the laws, margins and clamps read: the pack at rest at the start (frozen model:
             # set once here, in the one validation pass)
             self.drive.__dict__["supply"] = b.cells * open_circuit_volts_per_cell(b.chemistry, b.state_of_charge)
+        if self.motor.curve is not None and self.motor.thermal.coupled:
+            raise ValueError("@motor.thermal.coupled: the winding's resistance does not enter a motor.curve; "
+                             "give one or the other")
+        if self.drive.mode == "current" and self.motor.curve is not None:
+            raise ValueError("@motor.curve: applies to drive.mode voltage (a current-mode driver sets the current)")
         if self.drive.mode == "current" and not getattr(self.strategy.cls, "commands_current", False):
             raise ValueError(f"@drive.mode: strategy '{self.strategy.kind}' commands volts only; drive.mode "
                              "current needs a law that commands current (lqr, fixed_current)")
@@ -500,7 +534,8 @@ class Scenario(Strict):
     def power_model(self) -> bool:
         """True when any power-chain key is set: the runner then drives through
         `sim.physics.drive.PowerChain` instead of today's `MotorDrive` alone."""
-        return self.battery is not None or self.drive.models_power or self.motor.thermal.coupled
+        return (self.battery is not None or self.drive.models_power or self.motor.thermal.coupled
+                or self.motor.curve is not None)
 
     @model_validator(mode="after")
     def _wheel_spins(self):

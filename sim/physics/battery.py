@@ -24,7 +24,7 @@ from __future__ import annotations
 
 import math
 
-from ..model.cells import open_circuit_volts_per_cell
+from ..model.cells import OCV_TABLES
 
 
 class Battery:
@@ -39,22 +39,51 @@ class Battery:
         self.c = capacitance_f
         self.soc = soc
         self.charge_used_c = 0.0
+        self._table = OCV_TABLES[chemistry]
+        self._segment(soc)
+        self._decay_dt, self._decay = None, 0.0
         self.volts = self.open_circuit_volts()
 
+    def _segment(self, soc: float) -> None:
+        """Hold the table's segment around `soc` (the state of charge moves slowly: found again only
+        when it leaves the segment): the pack's open-circuit volts are v0 + slope (soc - s0) there."""
+        table = self._table
+        s = 0.0 if soc < 0.0 else (1.0 if soc > 1.0 else soc)
+        j = 1
+        while j < len(table) - 1 and table[j][0] < s:
+            j += 1
+        (s0, v0), (s1, v1) = table[j - 1], table[j]
+        # beyond the table's ends the end value holds (a clamped state of charge)
+        self._lo = s0 if j > 1 else -math.inf
+        self._hi = s1 if j < len(table) - 1 else math.inf
+        self._s0, self._v0 = s0, self.cells * v0
+        self._slope = self.cells * (v1 - v0) / (s1 - s0)
+
     def open_circuit_volts(self) -> float:
-        """The pack's open-circuit voltage at its present state of charge, V."""
-        return self.cells * open_circuit_volts_per_cell(self.chemistry, self.soc)
+        """The pack's open-circuit voltage at its present state of charge, V (linear in the table's segment)."""
+        soc = self.soc
+        if not self._lo <= soc <= self._hi:
+            self._segment(soc)
+        s = 0.0 if soc < 0.0 else (1.0 if soc > 1.0 else soc)
+        return self._v0 + self._slope * (s - self._s0)
 
     def draw(self, bus_current_a: float, dt_s: float) -> None:
         """Take `bus_current_a` (A, negative charges the pack) from the bus for `dt_s` seconds."""
-        self.soc -= bus_current_a * dt_s / self.capacity_c
-        self.charge_used_c += bus_current_a * dt_s
-        target = self.open_circuit_volts() - self.r * bus_current_a
+        q = bus_current_a * dt_s
+        soc = self.soc = self.soc - q / self.capacity_c
+        self.charge_used_c += q
+        if not self._lo <= soc <= self._hi:
+            self._segment(soc)
+        s = 0.0 if soc < 0.0 else (1.0 if soc > 1.0 else soc)
+        # `open_circuit_volts`, inline (every step), less the sag
+        target = self._v0 + self._slope * (s - self._s0) - self.r * bus_current_a
         if self.c is None or self.r <= 0.0:
             self.volts = target
         else:
             # C dV/dt = (OCV - V)/R - I: V relaxes to OCV - R I with tau = R C (current held over the step)
-            self.volts = target + (self.volts - target) * math.exp(-dt_s / (self.r * self.c))
+            if dt_s != self._decay_dt:
+                self._decay_dt, self._decay = dt_s, math.exp(-dt_s / (self.r * self.c))
+            self.volts = target + (self.volts - target) * self._decay
 
 
 class BenchSupply:

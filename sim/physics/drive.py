@@ -26,6 +26,9 @@ pack's cut-off and stays off for the rest of the trial; the bus over-voltage pro
 the bus rises above `drive.max_bus_voltage` and stays off for the rest of the trial. `events` lists
 them as (time s, code) with code in `battery_cutoff`, `driver_tripped`, `bus_over_voltage`.
 
+With `motor.curve` the voltage-mode motor follows the datasheet's torque-speed curve instead
+(`sim.physics.curve`: quasi-static, the winding's lag and the step-mean solution left out).
+
 Coupled thermal: the winding's temperature follows C dT/dt = i^2 R - (T - T_amb)/R_th and its
 resistance R = R_20 (1 + alpha (T - 20 degC)), alpha = 0.00393 /K for copper [pub: CRC Handbook of
 Chemistry and Physics, resistivity of copper; from memory]; the motor's step coefficients are
@@ -71,8 +74,15 @@ class PowerChain:
             self.pwm = Pwm(resolution_bits=p.resolution_bits, frequency_hz=p.frequency, dead_time_s=p.dead_time,
                            min_duty=p.min_duty)
             self.dead_loss = self.pwm.loss_fraction
-        self.loop_decay = (math.exp(-2.0 * math.pi * drive.current_bandwidth * step_s)
-                           if self.current_mode else 0.0)
+        # the loop's first-order step, exact: end = cmd + (i0 - cmd) a; step mean = cmd + (i0 - cmd) f
+        x = 2.0 * math.pi * drive.current_bandwidth * step_s if self.current_mode else math.inf
+        self.loop_decay = math.exp(-x)
+        self.loop_mean = -math.expm1(-x) / x
+        self.curve = None
+        if motor.curve is not None:
+            from .curve import TorqueCurve
+            self.curve = TorqueCurve(voltage=motor.curve.voltage, k_t=device.k_t_n_m_a,
+                                     points=[(p.speed, p.torque) for p in motor.curve.points])
         self.reversal_s = drive.reversal_delay or 0.0
         self.direction = 0.0
         self.turn_at = None          # time the bridge may turn round, s (None: no reversal pending)
@@ -97,6 +107,8 @@ class PowerChain:
         self.bus_current_a = 0.0
         self.applied_v = 0.0
         self.steps = 0
+        self.k_t = device.k_t_n_m_a
+        self._track_bus()             # a pack already below its cut-off at the start: off from t = 0
 
     @property
     def command_limit(self) -> float:
@@ -112,12 +124,14 @@ class PowerChain:
         dt = self.dt
         t = self.steps * dt          # by multiplication: no drift of a sum over millions of steps
         self.steps += 1
-        self.t = self.steps * dt
-        bus = self.bus_v = self.supply.volts
+        supply = self.supply
+        bus = self.bus_v = supply.volts
         if t < self.off_until - 1e-9 * dt:
             return self._off(dt)
-        if self.reversal_s:
-            command = self._reversal(command, t)
+        if self.reversal_s and command != 0.0 and self.direction != (1.0 if command > 0.0 else -1.0):
+            command = self._reversal(command, t)    # a turn to make (or under way)
+        elif self.turn_at is not None:
+            self.turn_at = None                     # back to the old direction: nothing to wait for
         if self.current_mode:
             i, v = self._current_step(command, wheel_speed_rad_s, bus)
         else:
@@ -125,11 +139,23 @@ class PowerChain:
         self.applied_v = v
         i_bus = v * i / bus if bus > 0.0 else 0.0     # d i, d = v / V_bus
         self.bus_current_a = i_bus
-        self.supply.draw(i_bus, dt)
-        self._watch(i, t)
+        supply.draw(i_bus, dt)
+        if -self.trip_a <= i <= self.trip_a:
+            self.over_since = None
+        else:
+            self._over(t)
+        v = supply.volts
+        if v < self.min_bus_v:       # a new extreme: maybe past a limit
+            self.min_bus_v = v
+            if v < self.cutoff_v:
+                self._track_bus()
+        elif v > self.peak_bus_v:
+            self.peak_bus_v = v
+            if v > self.max_bus_v:
+                self._track_bus()
         if self.coupled:
             self._heat(i, dt)
-        return i, self.device.k_t_n_m_a * i
+        return i, self.k_t * i
 
     # -- the bridge --------------------------------------------------------------------------
     def _voltage_step(self, volts: float, w: float, bus: float) -> tuple[float, float]:
@@ -140,6 +166,12 @@ class PowerChain:
             v = self.pwm.applied(duty, bus, 1.0 if c > 0.0 else (-1.0 if c < 0.0 else 0.0))
         else:
             v = duty * bus
+        if self.curve is not None:      # the datasheet's curve, quasi-static, within the current limit
+            lim = self.motor.i_max
+            i = self.curve.current(v, w)
+            i = lim if i > lim else (-lim if i < -lim else i)
+            self.motor.current = i
+            return i, v
         i, _ = self.motor.update(v, w)
         return i, v
 
@@ -152,10 +184,9 @@ class PowerChain:
             self.pwm.dead_band_hits += 1
             cmd = 0.0
         # exact first-order step: end value and the step's mean
-        i0, a = self.i_loop, self.loop_decay
-        end = cmd + (i0 - cmd) * a
-        x = -math.log(a) if a > 0.0 else math.inf
-        mean = cmd + (i0 - cmd) * (-math.expm1(-x) / x) if x > 1e-12 else i0
+        gap = self.i_loop - cmd
+        end = cmd + gap * self.loop_decay
+        mean = cmd + gap * self.loop_mean
         ceiling = bus * (1.0 - self.dead_loss)
         emf = m.k_e * w
         hi, lo = (ceiling - emf) / m.r, (-ceiling - emf) / m.r    # what the bus can drive at this speed
@@ -167,10 +198,8 @@ class PowerChain:
         return mean, m.r * mean + emf
 
     def _reversal(self, command: float, t: float) -> float:
-        s = 1.0 if command > 0.0 else (-1.0 if command < 0.0 else 0.0)
-        if s == 0.0 or s == self.direction:
-            self.turn_at = None           # back to the old direction: nothing to wait for
-            return command
+        """`command` (non-zero, against the bridge's direction) held at zero until the turn is done."""
+        s = 1.0 if command > 0.0 else -1.0
         if self.direction == 0.0:
             self.direction = s
             return command
@@ -185,7 +214,6 @@ class PowerChain:
         """One step with the winding open (a strategy's `open_circuit`): no current, the supply at rest."""
         self.bus_v = self.supply.volts
         self.steps += 1
-        self.t = self.steps * self.dt
         return self._off(self.dt)
 
     # -- protections and heat ----------------------------------------------------------------
@@ -198,22 +226,20 @@ class PowerChain:
             self._heat(0.0, dt)
         return 0.0, 0.0
 
-    def _watch(self, i: float, t: float) -> None:
-        now = t + self.dt
-        if i > self.trip_a or i < -self.trip_a:
-            if self.over_since is None:
-                self.over_since = t
-            if now - self.over_since >= self.trip_s - 1e-9 * self.dt:
-                self.trips += 1
-                self.events.append((now, "driver_tripped"))
-                self.off_until = now + self.recovery_s if self.recovery_s is not None else math.inf
-                self.over_since = None
-        else:
+    def _over(self, t: float) -> None:
+        """|i| above the trip current over the step from `t` (s): trip once it has lasted `trip.time`."""
+        now = (self.steps) * self.dt
+        if self.over_since is None:
+            self.over_since = t
+        if now - self.over_since >= self.trip_s - 1e-9 * self.dt:
+            self.trips += 1
+            self.events.append((now, "driver_tripped"))
+            self.off_until = now + self.recovery_s if self.recovery_s is not None else math.inf
             self.over_since = None
-        self._track_bus()
 
     def _track_bus(self) -> None:
         v = self.supply.volts
+        self.t = self.steps * self.dt
         if v < self.min_bus_v:
             self.min_bus_v = v
         if v > self.peak_bus_v:

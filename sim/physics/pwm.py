@@ -32,7 +32,7 @@ class Pwm:
     def applied(self, duty: float, bus_v: float, current_sign: float) -> float:
         """Mean voltage over the period, V, for a wanted `duty` on a bus of `bus_v` volts, with the
         winding current's sign `current_sign` (+1, -1, or 0 when no current flows: the duty's sign)."""
-        d = self.quantised(duty)
+        d = round(duty * self.full_scale) / self.full_scale     # `quantised`, inline: every step
         if d == 0.0:
             return 0.0
         if -self.min_duty < d < self.min_duty:
