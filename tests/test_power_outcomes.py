@@ -145,3 +145,35 @@ def test_sweep_varies_a_battery_key(tmp_path):
     with open(tmp_path / "sw" / "results.csv") as fh:
         rows = list(csv.DictReader(fh))
     assert [float(r["battery.state_of_charge"]) for r in rows] == pytest.approx([0.3, 0.6, 0.9])
+
+
+def test_the_hobby_demos_do_what_their_comments_say():
+    # scenarios/hobby_3s_pwm.yaml and its bench twin: the pack's sag eats the margin the bench leaves;
+    # regeneration charges the bench's bus capacitance far above its supply, the pack takes it back
+    from pathlib import Path
+
+    from sim.model.scenario_yaml import load_scenario
+    root = Path(__file__).resolve().parent.parent / "scenarios"
+    got = {}
+    for name in ("hobby_3s_pwm", "hobby_3s_bench"):
+        sc = load_scenario(str(root / f"{name}.yaml"))
+        m = trial_metrics(run_trial(sc))
+        assert m["outcome"] == "balanced"
+        got[name] = (m, 1.0 - m["peak_wheel_speed_rad_s"] / (m["min_supply_voltage_v"] / sc.motor.k_e))
+    pack, bench = got["hobby_3s_pwm"], got["hobby_3s_bench"]
+    assert pack[1] < 0.1 < 0.2 < bench[1]
+    assert pack[0]["min_supply_voltage_v"] < 10.8 and pack[0]["peak_supply_voltage_v"] < 12.6
+    assert bench[0]["peak_supply_voltage_v"] > 40.0
+    assert pack[0]["pwm_dead_band_fraction"] > 0.0
+
+
+def test_validate_states_the_supply_and_the_drive(tmp_path, capsys):
+    path = write_scenario(tmp_path / "pack.yaml", fast_raw(drive={"supply": None, "reversal_delay": "2 ms"}, battery=PACK))
+    assert main(["validate", path]) == 0
+    out = capsys.readouterr().out
+    # 0.6 charge of a LiPo: 3.90 V per cell at rest (sim.model.cells), 3 x 3.2 V cut-off (references.md)
+    assert "3-cell lipo pack at 60% charge, 11.70 V at rest" in out and "cut-off 9.60 V" in out
+    assert "drive: voltage mode; reversal 2 ms" in out
+    plain = write_scenario(tmp_path / "plain.yaml", fast_raw())
+    assert main(["validate", plain]) == 0
+    assert "supply:" not in capsys.readouterr().out
