@@ -133,3 +133,28 @@ def test_current_mode_lqr_balances_and_records_the_bus():
     k = tr.n // 2
     assert_allclose(tr.voltage[k], dev.resistance_ohm * tr.current[k] + dev.k_e_v_s_rad * tr.wheel_speed[k], rtol=1e-9)
     assert res.power["pwm_dead_band_fraction"] is None and res.power["battery_state_of_charge_end"] is None
+
+
+def test_coupled_winding_heat_raises_the_resistance_as_copper_does():
+    # stalled wheel (a bearing that holds it), 3 V across the winding: C dT/dt = V^2 / R(T) - (T - T_a) / R_th,
+    # R(T) = R_20 (1 + 0.00393 (T - 20 degC)) [pub: CRC Handbook, copper's temperature coefficient; from
+    # memory], integrated by scipy's solve_ivp as the reference
+    from scipy.integrate import solve_ivp
+    r_th, c_th, amb, volts, r20 = 10.0, 0.05, 25.0, 3.0, 2.0
+    sc = make_scenario(body={"locked": True}, wheel={"bearing_friction": {"coulomb": 1.0}},
+                       motor={"thermal": {"thermal_resistance": r_th, "thermal_capacity": c_th, "ambient": amb,
+                                          "coupled": True}},
+                       strategy={"kind": "fixed_voltage", "volts": volts}, trial={"duration": 2.0})
+    res = run_trial(sc)
+
+    def r_of(temp):
+        return r20 * (1 + 0.00393 * (temp - 20.0))
+
+    ref = solve_ivp(lambda t, y: [(volts**2 / r_of(y[0]) - (y[0] - amb) / r_th) / c_th], (0.0, 2.0), [amb],
+                    rtol=1e-10, atol=1e-10)
+    t_end = ref.y[0][-1]
+    assert t_end > amb + 30.0                                           # it did heat up
+    assert_allclose(res.power["peak_winding_temperature_c"], t_end, rtol=5e-3)
+    # the current follows the hot resistance (re-solved each 0.5% of R: within that)
+    assert_allclose(res.trace.current[res.trace.n - 1], volts / r_of(t_end), rtol=6e-3)
+    assert trial_metrics(res)["peak_winding_temperature_c"] == res.power["peak_winding_temperature_c"]

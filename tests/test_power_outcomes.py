@@ -177,3 +177,23 @@ def test_validate_states_the_supply_and_the_drive(tmp_path, capsys):
     plain = write_scenario(tmp_path / "plain.yaml", fast_raw())
     assert main(["validate", plain]) == 0
     assert "supply:" not in capsys.readouterr().out
+
+
+def test_an_isolated_trial_brings_the_power_columns_and_summary_back():
+    # a plug-in's trial runs in a forked child writing a shared trace (sim.core.isolation): the power
+    # columns must be in that shared trace and the chain's summary in the result sent back
+    import numpy as np
+    sc = make_scenario(drive={"supply": None}, battery=PACK, body={"locked": True},
+                       strategy={"kind": "fixed_voltage", "volts": 5.0})
+    here, child = run_trial(sc, isolate=False), run_trial(sc, isolate=True)
+    assert child.power == here.power and child.trace.n == here.trace.n
+    for col in ("supply_voltage", "bus_current", "voltage", "current"):
+        assert np.array_equal(child.trace.view(col), here.trace.view(col)), col
+
+
+def test_gains_refuses_a_current_mode_law_in_one_line(tmp_path, capsys):
+    raw = fast_raw(drive={"mode": "current", "current_bandwidth": "1 kHz"})
+    path = write_scenario(tmp_path / "cur.yaml", raw)
+    assert main(["gains", path]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "drive.mode" in err and "Traceback" not in err
