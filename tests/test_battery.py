@@ -92,6 +92,9 @@ def test_locked_wheel_at_full_duty_on_a_pack_settles_where_the_motor_equation_sa
     assert_allclose(tr.supply_voltage[k], ocv - r_int * tr.bus_current[k], rtol=1e-6)
     assert_allclose(tr.bus_current[k], tr.current[k], rtol=1e-9)       # duty 1: I_bus = i
     assert tr.supply_voltage[0] - tr.supply_voltage[1] > 1.0             # the start's inrush sags it too
+    # full duty on a sagging pack is saturation, though the volts stay below the starting supply
+    from sim.run.metrics import trial_metrics
+    assert trial_metrics(res)["voltage_saturated_fraction"] == 1.0 and tr.voltage[k] < sc.drive.supply
     # the pack drains as it runs: the settled wheel slows with the open-circuit voltage
     assert tr.wheel_speed[k] < tr.wheel_speed[k - 100]
 

@@ -51,7 +51,7 @@ import math
 import numpy as np
 
 from ..core.angles import wrap_angles
-from .metrics import PUSH_RECOVER_S, saturated_ticks, totals_end_row
+from .metrics import PUSH_RECOVER_S, saturated_ticks, supply_ceiling, totals_end_row
 
 CAUSES = {
     "wheel_at_speed_limit": "the wheel neared its no-load speed before the fall",
@@ -136,7 +136,13 @@ def _fell(result) -> tuple[str, str]:
     wheel = np.abs(tr.wheel_speed[:end])
     share = float(np.max(wheel[max(0, end - look):])) / limit
     supply = sc.drive.supply
-    volt_s = _run_before(np.abs(tr.voltage[:end]) >= supply * (1.0 - 1e-9), look) * dt
+    ceiling = supply_ceiling(tr, sc)
+    if isinstance(ceiling, np.ndarray):     # through the power chain: the bus row by row (0: no bus)
+        ceiling = ceiling[:end]
+        at_ceiling = (np.abs(tr.voltage[:end]) >= ceiling * (1.0 - 1e-9)) & (ceiling > 0.0)
+    else:
+        at_ceiling = np.abs(tr.voltage[:end]) >= ceiling * (1.0 - 1e-9)
+    volt_s = _run_before(at_ceiling, look) * dt
     held_from = _held_from(result, end)
     # sustained: SUSTAINED_S, or half the time the body was held when that was shorter
     sustained = max(min(SUSTAINED_S, 0.5 * (end - held_from) * dt), sc.control_steps * dt)
@@ -238,7 +244,7 @@ def _not_caught(result) -> tuple[str, str]:
     e_peak, well = float(np.max(energy)), 2.0 * dev.gravity_torque_coeff_n_m
     w_share = float(np.max(np.abs(tr.wheel_speed[:n]))) / dev.no_load_speed_rad_s
     ticks = -(-n // sc.control_steps)
-    sat = saturated_ticks(tr, sc.control_steps, sc.drive.supply) / ticks
+    sat = saturated_ticks(tr, sc.control_steps, supply_ceiling(tr, sc)) / ticks
     limits = (f"the wheel peaked at {w_share:.0%} of its no-load speed and the voltage was at the supply "
               f"on {sat:.0%} of the ticks")
     strategy = result.strategy

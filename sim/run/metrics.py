@@ -25,14 +25,28 @@ SATURATION_REL_TOL = 1e-9
 supply counts, whatever rounding its arithmetic did."""
 
 
-def saturated_ticks(trace, control_steps: int, supply_v: float, end_row: int | None = None) -> int:
+def saturated_ticks(trace, control_steps: int, supply_v, end_row: int | None = None) -> int:
     """Control ticks in rows [0, end_row) whose voltage reached the supply (see SATURATION_REL_TOL).
 
     Ticks are the rows k with k % control_steps == 0; the trace holds the voltage the drive applied.
+    `supply_v`: V, or an array of it by row (`supply_ceiling` of a trial through the power chain).
     """
     end = trace.n if end_row is None else min(end_row, trace.n)
     volts = trace.voltage[:end:control_steps]
+    if isinstance(supply_v, np.ndarray):   # a row with no bus (the row of a failure) is no saturation
+        ref = supply_v[:end:control_steps]
+        return int(np.count_nonzero((np.abs(volts) >= ref * (1.0 - SATURATION_REL_TOL)) & (ref > 0.0)))
     return int(np.count_nonzero(np.abs(volts) >= supply_v * (1.0 - SATURATION_REL_TOL)))
+
+
+def supply_ceiling(trace, scenario):
+    """The most the drive could apply, V: the scenario's supply, or, through the power chain, the bus
+    at each row less the dead-time loss (an array by row: a sagging pack's duty at 100% counts)."""
+    if not getattr(trace, "has_power_columns", False):
+        return scenario.drive.supply
+    pwm = scenario.drive.pwm
+    loss = 2.0 * pwm.dead_time * pwm.frequency if pwm is not None and pwm.frequency is not None else 0.0
+    return trace.supply_voltage * (1.0 - loss)
 
 
 def totals_end_row(result) -> int:
@@ -54,7 +68,7 @@ def trial_metrics(result) -> dict:
     limit = dev.no_load_speed_rad_s
     peak_wheel = float(np.max(np.abs(wheel[finite]))) if finite.any() else None
     ticks = -(-end // sc.control_steps)  # the tick rows among the first `end` rows
-    sat = saturated_ticks(tr, sc.control_steps, sc.drive.supply, end)
+    sat = saturated_ticks(tr, sc.control_steps, supply_ceiling(tr, sc), end)
     rms = float(np.sqrt(np.mean(cur**2))) if end else 0.0
     energy = float(np.sum(volt * cur) * dt)
     caught = result.caught_at_s

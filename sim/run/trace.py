@@ -201,4 +201,5 @@ def _block_columns(trace: Trace, start: int, stop: int) -> dict[str, np.ndarray]
         "measured_angle_rad": trace.meas_angle[s],
         "measured_rate_rad_s": trace.meas_rate[s],
         "measured_wheel_speed_rad_s": trace.meas_wheel[s],
-    } | ({"supply_voltage_v": trace.supply_voltage[s], "bus_current_a": trace.bus_current[s]} if trace.has_power_columns else {})
+    } | ({"supply_voltage_v": trace.supply_voltage[s], "bus_current_a": trace.bus_current[s]}
+         if trace.has_power_columns else {})

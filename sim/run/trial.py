@@ -31,7 +31,7 @@ from ..strategies import plugins_in
 from ..strategies.base import Reading
 from .causes import find_cause
 from .extra_metrics import settle_extra_metrics
-from .metrics import saturated_ticks
+from .metrics import saturated_ticks, supply_ceiling
 from .trace import Trace
 
 OUTCOMES = ("balanced", "fell", "not_caught", "diverged", "strategy_failed", "completed")
@@ -388,7 +388,8 @@ def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fel
         # a body balanced from the first step was never caught: it started inside the catch region
         caught_at_s=catch_k * dt if (catch_k and outcome == "balanced") else None,
         fell_at_s=fell_k * dt if fell_k is not None else None, ended_at_s=ended,
-        control_ticks=ticks, saturated_ticks=saturated_ticks(trace, scenario.control_steps, scenario.drive.supply),
+        control_ticks=ticks, saturated_ticks=saturated_ticks(trace, scenario.control_steps,
+                                                             supply_ceiling(trace, scenario)),
         wall_s=wall, strategy=strategy, power=power,
     )
     result.cause, result.cause_detail = find_cause(result)

@@ -59,7 +59,8 @@ def bus_voltage_limit(sc) -> tuple[float | None, str]:
         return sc.drive.max_bus_voltage, "drive.max_bus_voltage"
     if sc.battery is not None:
         b = sc.battery
-        return b.cells * MAX_CHARGE_PER_CELL_V[b.chemistry], f"{b.cells} x {MAX_CHARGE_PER_CELL_V[b.chemistry]:.2f} V, the pack's highest charge voltage"
+        per_cell = MAX_CHARGE_PER_CELL_V[b.chemistry]
+        return b.cells * per_cell, f"{b.cells} x {per_cell:.2f} V, the pack's highest charge voltage"
     return None, "a bench supply with no drive.max_bus_voltage"
 
 
