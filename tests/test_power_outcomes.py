@@ -145,6 +145,9 @@ def test_sweep_varies_a_battery_key(tmp_path):
     with open(tmp_path / "sw" / "results.csv") as fh:
         rows = list(csv.DictReader(fh))
     assert [float(r["battery.state_of_charge"]) for r in rows] == pytest.approx([0.3, 0.6, 0.9])
+    # the pack's rest voltage rises with its charge (sim.model.cells), and so does the lowest bus
+    lows = [float(r["min_supply_voltage_v"]) for r in rows]
+    assert lows == sorted(lows) and all(r["driver_trips"] == "0" for r in rows)
 
 
 def test_the_hobby_demos_do_what_their_comments_say():
