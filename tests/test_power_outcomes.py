@@ -60,6 +60,9 @@ def test_metrics_and_trace_columns_only_with_the_power_chain(tmp_path):
     assert_allclose(m["charge_used_mah"] * 3.6, res.trace.bus_current[:res.trace.n].sum() * sc.world.step, rtol=1e-9)
     assert m["min_supply_voltage_v"] < sc.drive.supply <= m["peak_supply_voltage_v"] + 1.0
     assert m["driver_trips"] == 0 and m["pwm_dead_band_fraction"] is None
+    # the bridge is lossless in the average model: V_bus I_bus = V_bus d i = v i step by step (power
+    # balance of an ideal converter)
+    assert_allclose(m["bus_energy_j"], m["energy_from_supply_j"], rtol=1e-9)
     from sim.run.trace import write_csv
     write_csv(res.trace, tmp_path / "t.csv")
     header = (tmp_path / "t.csv").read_text().splitlines()[0].split(",")
