@@ -47,7 +47,8 @@ def _announce_plugins(sc) -> None:
     """One line on stderr per plug-in, the first time a scenario with it loads in this command:
     plug-in code runs with the user's rights (the README says so too)."""
     from .strategies import plugin_origin, plugin_specs
-    for spec in plugin_specs(sc.strategy):
+    estimator = sc.sensors.estimator
+    for spec in plugin_specs(sc.strategy) + ([estimator] if estimator is not None and estimator.is_plugin else []):
         origin = plugin_origin(spec)
         if origin in _ANNOUNCED:
             continue
@@ -55,7 +56,8 @@ def _announce_plugins(sc) -> None:
         target = spec.kind.partition(":")[0]
         how = (f"imports module {target!r} from wherever Python finds it ({origin})"
                if ":" in spec.kind and not target.endswith(".py") else f"runs {origin}")
-        print(f"wheelbench: note: strategy plug-in {spec.kind!r} {how}; a scenario with a plug-in is a program "
+        what = "strategy" if spec is not estimator else "estimator"
+        print(f"wheelbench: note: {what} plug-in {spec.kind!r} {how}; a scenario with a plug-in is a program "
               "and runs with your rights", file=sys.stderr)
 
 

@@ -91,3 +91,12 @@ def firmware_cache(tmp_path_factory):
         os.environ.pop(CACHE_ENV, None)
     else:
         os.environ[CACHE_ENV] = before
+
+
+def timeless(value):
+    """`value` (metrics, a verdict) without wall-clock entries: they measure the machine, not the model."""
+    if isinstance(value, dict):
+        return {k: timeless(v) for k, v in value.items() if k != "real_time_factor" and "wall" not in k}
+    if isinstance(value, list):
+        return [timeless(v) for v in value]
+    return value

@@ -25,8 +25,9 @@ CSV_COLUMNS = (
 )
 
 POWER_CSV_COLUMNS = ("supply_voltage_v", "bus_current_a")
-"""Added before `mode` when the trial drove through the power chain (a battery or a drive model):
-the bus voltage at each step's start, V, and the step's mean bus current, A (negative: regenerating)."""
+"""Extra columns of a trial through the power chain (a battery or a drive model), written every step
+(not held between ticks): the bus voltage at each step's start, V, and the step's mean bus current, A
+(negative: regenerating)."""
 
 
 MAX_PHASES = 256
@@ -50,7 +51,6 @@ cannot push the machine into swap or the out-of-memory killer."""
 class Trace:
     """Preallocated columns for `capacity` rows; `n` rows are filled.
 
-    `power=True` adds the power chain's columns `supply_voltage` and `bus_current` (POWER_CSV_COLUMNS).
     `shared=True` backs the columns with a temporary file mapped MAP_SHARED, so that a process
     forked after construction writes rows its parent can read; long traces are backed that way too
     (see IN_MEMORY_ROWS). Either way the columns are plain numpy arrays to their users.
@@ -59,15 +59,10 @@ class Trace:
     FLOAT_COLUMNS = ("t", "angle", "rate", "wheel_angle", "wheel_speed", "voltage", "current", "torque",
                      "meas_angle", "meas_rate", "meas_wheel")
 
-    POWER_COLUMNS = ("supply_voltage", "bus_current")
-
-    def __init__(self, capacity: int, *, step_s: float, shared: bool = False, power: bool = False):
+    def __init__(self, capacity: int, *, step_s: float, shared: bool = False, extra: tuple[str, ...] = ()):
         self.step_s = step_s
         self.n = 0
-        self.has_power_columns = power
-        if power:   # an instance attribute: the class's tuple stays the plain trace's
-            self.FLOAT_COLUMNS = Trace.FLOAT_COLUMNS + self.POWER_COLUMNS
-        n_float = len(self.FLOAT_COLUMNS)
+        n_float = len(self.FLOAT_COLUMNS) + len(extra)
         n_bytes = capacity * (8 * n_float + 2)
         mapped = _file_backed(n_bytes) if (shared or capacity > IN_MEMORY_ROWS) else None
         self.file_backed = mapped is not None
@@ -82,6 +77,9 @@ class Trace:
             self.mode = mapped[8 * n_float * capacity:].view(np.int16)
         for i, name in enumerate(self.FLOAT_COLUMNS):
             setattr(self, name, floats[i])
+        # columns some scenarios add (an IMU's readings, an estimator's output), named with units;
+        # held between control ticks like the measured values, written to the CSV before `mode`
+        self.extra = {name: floats[len(self.FLOAT_COLUMNS) + i] for i, name in enumerate(extra)}
         self.phases: list[str] = []
         self._codes: dict[str, int] = {}
 
@@ -101,9 +99,25 @@ class Trace:
                 self._codes[phase] = code
         return code
 
+    @property
+    def has_power_columns(self) -> bool:
+        """True for a trial through the power chain (POWER_CSV_COLUMNS are among the extra columns)."""
+        return POWER_CSV_COLUMNS[0] in self.extra
+
+    @property
+    def supply_voltage(self) -> np.ndarray:
+        """The bus voltage column (all rows), V; power-chain traces only."""
+        return self.extra[POWER_CSV_COLUMNS[0]]
+
+    @property
+    def bus_current(self) -> np.ndarray:
+        """The bus current column (all rows), A; power-chain traces only."""
+        return self.extra[POWER_CSV_COLUMNS[1]]
+
     def view(self, name: str) -> np.ndarray:
-        """A filled column (a view, no copy)."""
-        return getattr(self, name)[: self.n]
+        """A filled column (a view, no copy); `name` a float column, `mode` or an extra column."""
+        col = self.extra.get(name)
+        return (getattr(self, name) if col is None else col)[: self.n]
 
     @property
     def power(self) -> np.ndarray:
@@ -161,7 +175,7 @@ def write_csv(trace: Trace, path) -> None:
     Written a block of rows at a time: memory beyond the trace itself stays a few MB however long
     the trial (one table of Python floats for a 5,000,000-row trace would take gigabytes).
     """
-    names = list(CSV_COLUMNS[:-1]) + (list(POWER_CSV_COLUMNS) if trace.has_power_columns else [])
+    names = list(CSV_COLUMNS[:-1]) + list(trace.extra)
     with open(path, "w", encoding="utf-8", newline="") as fh:
         fh.write(",".join(names + ["mode"]) + "\n")
         # 9 significant digits (a float32-level record of float64 state)
@@ -188,6 +202,10 @@ def csv_field(text: str) -> str:
 def _block_columns(trace: Trace, start: int, stop: int) -> dict[str, np.ndarray]:
     """The CSV's numeric columns for rows start..stop-1 (same values as `Trace.columns`)."""
     s = slice(start, stop)
+    return _base_columns(trace, s) | {name: col[s] for name, col in trace.extra.items()}
+
+
+def _base_columns(trace: Trace, s: slice) -> dict[str, np.ndarray]:
     return {
         "t_s": trace.t[s],
         "angle_rad": wrap_angles(trace.angle[s].copy()),
@@ -201,5 +219,4 @@ def _block_columns(trace: Trace, start: int, stop: int) -> dict[str, np.ndarray]
         "measured_angle_rad": trace.meas_angle[s],
         "measured_rate_rad_s": trace.meas_rate[s],
         "measured_wheel_speed_rad_s": trace.meas_wheel[s],
-    } | ({"supply_voltage_v": trace.supply_voltage[s], "bus_current_a": trace.bus_current[s]}
-         if trace.has_power_columns else {})
+    }

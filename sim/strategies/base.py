@@ -22,18 +22,28 @@ class StrategyParams(BaseModel):
 
 
 class Reading:
-    """What the sensors report at one control tick (SI; conventions as in `sim.model.scenario`).
+    """What the sensors report at one control tick (SI; conventions as in `sim.model.scenario`
+    and, for 3D devices, `sim.core.frames`).
 
+    The vector form (every device): `angles_rad` is (theta,) on a hinge and (tilt_x, tilt_y) on a
+    ball mount, from upright; `rates_rad_s` is (theta_d,) on a hinge and the body's angular
+    velocity in the world frame (wx, wy, wz) on a ball; `wheel_speeds_rad_s` has one speed per
+    wheel, relative to the body. The scalar fields mirror the first entries, so one-wheel laws
+    read what they always did. On the planar one-wheel path the vector fields are left empty.
     One object is reused for the whole trial: copy values out if a strategy keeps them.
     """
 
-    __slots__ = ("t_s", "angle_rad", "rate_rad_s", "wheel_speed_rad_s")
+    __slots__ = ("t_s", "angle_rad", "rate_rad_s", "wheel_speed_rad_s", "angles_rad", "rates_rad_s",
+                 "wheel_speeds_rad_s")
 
     def __init__(self) -> None:
         self.t_s = 0.0
         self.angle_rad = 0.0
         self.rate_rad_s = 0.0
         self.wheel_speed_rad_s = 0.0
+        self.angles_rad: tuple[float, ...] = ()
+        self.rates_rad_s: tuple[float, ...] = ()
+        self.wheel_speeds_rad_s: tuple[float, ...] = ()
 
 
 class Strategy:
