@@ -62,7 +62,7 @@ def count(which: str, seconds: float, lib: Path, tmp: Path) -> tuple[int, int]:
 
 
 def main() -> None:
-    t1, t2 = seconds_option(__doc__)
+    t1, t2, _ = seconds_option(__doc__)
     with counting_folder() as (tmp, lib):
         steps = (t2 - t1) * 1000.0   # the example's 1 ms physics step
         yardstick = None

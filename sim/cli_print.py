@@ -76,6 +76,7 @@ def print_run(sc, m: dict, out: Path) -> None:
         ("peak current", f"{_fmt(m['peak_current_a'], 'A')} (rms {_fmt(m['rms_current_a'], 'A')})"),
         ("voltage saturated", f"{100 * m['voltage_saturated_fraction']:.1f}% of ticks"),
         ("energy from supply", _fmt(m["energy_from_supply_j"], "J")),
+        *_power_rows(m),
         ("real-time factor", _fmt(m["real_time_factor"], "x")),
     ]
     if m.get("estimator") is not None:    # only with sensors.estimator / timing: today's table otherwise
@@ -92,6 +93,20 @@ def print_run(sc, m: dict, out: Path) -> None:
         table.add_row(k, Text(v))
     console.print(table)
     console.print(Text(f"wrote {out}/metrics.json, trace.csv, summary.png"))
+
+
+def _power_rows(m: dict) -> list[tuple[str, str]]:
+    """The power chain's rows (only when it ran: its keys are in the metrics)."""
+    if "min_supply_voltage_v" not in m:
+        return []
+    rows = [("supply", f"{_fmt(m['min_supply_voltage_v'], 'V')} to {_fmt(m['peak_supply_voltage_v'], 'V')}"),
+            ("charge used", _fmt(m["charge_used_mah"], "mAh")
+             + ("" if m["battery_state_of_charge_end"] is None else f" ({m['battery_state_of_charge_end']:.1%} left)"))]
+    if m["driver_trips"]:
+        rows.append(("driver trips", str(m["driver_trips"])))
+    if m["pwm_dead_band_fraction"] is not None:
+        rows.append(("PWM dead band", f"{100 * m['pwm_dead_band_fraction']:.1f}% of steps"))
+    return rows
 
 
 def dim(text: str):

@@ -7,6 +7,12 @@ below; they are our choice, not a standard):
 Outcome `strategy_failed` -> `strategy_failed`; outcome `diverged` -> `diverged` (the detail is
 the runner's message).
 
+Outcomes `fell` and `not_caught`, first of all: the power chain's protections (`sim.physics.drive`).
+When the drive switched itself off before the fall (or, not caught, at any time in the trial), the
+first such event is the cause: `battery_cutoff` (the bus sagged below the pack's cut-off),
+`driver_tripped` (the over-current trip fired), `bus_over_voltage` (regeneration raised the bus above
+`drive.max_bus_voltage`).
+
 Outcome `fell` (the body left the release angle after it was held), in this order:
 
 1. `push_too_large`: the fall came inside a push's recovery window (PUSH_RECOVER_S after it,
@@ -45,7 +51,7 @@ import math
 import numpy as np
 
 from ..core.angles import wrap_angles
-from .metrics import PUSH_RECOVER_S, saturated_ticks, totals_end_row
+from .metrics import PUSH_RECOVER_S, saturated_ticks, supply_ceiling, totals_end_row
 
 CAUSES = {
     "wheel_at_speed_limit": "the wheel neared its no-load speed before the fall",
@@ -59,6 +65,9 @@ CAUSES = {
     "diverged": "the simulated state became non-finite or absurd",
     "start_outside_release": "a balance-only trial started beyond the release angle",
     "catch_missed": "the body had the energy to come upright but was not caught",
+    "battery_cutoff": "the battery sagged below its cut-off and the drive switched off",
+    "driver_tripped": "the driver's over-current protection tripped and stopped driving",
+    "bus_over_voltage": "regeneration raised the bus above its limit and the drive switched off",
 }
 """Every cause code, with what it means (the README's table says the same)."""
 
@@ -81,9 +90,39 @@ def find_cause(result) -> tuple[str | None, str | None]:
         return outcome, result.message or outcome
     if result.trace.n == 0:
         return "catch_missed", "the trial recorded no steps"
+    power = _power_event(result)
+    if power is not None:
+        return power
     if outcome == "fell" and result.fell_at_s is not None:
         return _fell(result)
     return _not_caught(result)
+
+
+# ----------------------------------------------------------------------------- power
+
+def _power_event(result) -> tuple[str, str] | None:
+    """The first protection event of the power chain before the fall (any time when not caught)."""
+    summary = getattr(result, "power", None)
+    if not summary or not summary["power_events"]:
+        return None
+    t_end = result.fell_at_s if result.fell_at_s is not None else math.inf
+    events = [e for e in summary["power_events"] if e["at_s"] <= t_end]
+    if not events:
+        return None
+    first, sc = events[0], result.scenario
+    t, code = first["at_s"], first["cause"]
+    fell = (f"the body fell at {result.fell_at_s:.2f} s" if result.fell_at_s is not None
+            else "the body was not caught")
+    if code == "battery_cutoff":
+        cut = sc.battery.cells * sc.battery.cutoff_per_cell
+        return code, (f"the bus sagged to {summary['min_supply_voltage_v']:.2f} V, below the pack's {cut:.2f} V "
+                      f"cut-off, at {t:.3f} s and the drive switched off; {fell}")
+    if code == "driver_tripped":
+        trip = sc.drive.trip
+        return code, (f"the driver tripped at {t:.3f} s (|i| above {trip.current:.3g} A for {trip.time:g} s; "
+                      f"{summary['driver_trips']} trip(s) in the trial) and stopped driving; {fell}")
+    return code, (f"regeneration raised the bus to {summary['peak_supply_voltage_v']:.2f} V, above its "
+                  f"{sc.drive.max_bus_voltage:.3g} V limit, at {t:.3f} s and the drive switched off; {fell}")
 
 
 # ----------------------------------------------------------------------------- fell
@@ -97,7 +136,13 @@ def _fell(result) -> tuple[str, str]:
     wheel = np.abs(tr.wheel_speed[:end])
     share = float(np.max(wheel[max(0, end - look):])) / limit
     supply = sc.drive.supply
-    volt_s = _run_before(np.abs(tr.voltage[:end]) >= supply * (1.0 - 1e-9), look) * dt
+    ceiling = supply_ceiling(tr, sc)
+    if isinstance(ceiling, np.ndarray):     # through the power chain: the bus row by row (0: no bus)
+        ceiling = ceiling[:end]
+        at_ceiling = (np.abs(tr.voltage[:end]) >= ceiling * (1.0 - 1e-9)) & (ceiling > 0.0)
+    else:
+        at_ceiling = np.abs(tr.voltage[:end]) >= ceiling * (1.0 - 1e-9)
+    volt_s = _run_before(at_ceiling, look) * dt
     held_from = _held_from(result, end)
     # sustained: SUSTAINED_S, or half the time the body was held when that was shorter
     sustained = max(min(SUSTAINED_S, 0.5 * (end - held_from) * dt), sc.control_steps * dt)
@@ -199,7 +244,7 @@ def _not_caught(result) -> tuple[str, str]:
     e_peak, well = float(np.max(energy)), 2.0 * dev.gravity_torque_coeff_n_m
     w_share = float(np.max(np.abs(tr.wheel_speed[:n]))) / dev.no_load_speed_rad_s
     ticks = -(-n // sc.control_steps)
-    sat = saturated_ticks(tr, sc.control_steps, sc.drive.supply) / ticks
+    sat = saturated_ticks(tr, sc.control_steps, supply_ceiling(tr, sc)) / ticks
     limits = (f"the wheel peaked at {w_share:.0%} of its no-load speed and the voltage was at the supply "
               f"on {sat:.0%} of the ticks")
     strategy = result.strategy

@@ -24,6 +24,7 @@ from ..core.errors import StrategyError
 from ..core.exception_text import describe_exception, exception_parts
 from ..model.device import Device
 from ..physics.engine import EngineModel
+from ..physics.drive import PowerChain
 from ..physics.motor import MotorDrive
 from ..physics.imu_sensing import TIMING_STREAM, make_sensors, sensing_columns, stream
 from ..physics.timing import TickSchedule
@@ -31,8 +32,8 @@ from ..strategies import plugins_in
 from ..strategies.base import Reading
 from .causes import find_cause
 from .extra_metrics import settle_extra_metrics
-from .metrics import saturated_ticks
-from .trace import Trace
+from .metrics import saturated_ticks, supply_ceiling
+from .trace import POWER_CSV_COLUMNS, Trace
 
 OUTCOMES = ("balanced", "fell", "not_caught", "diverged", "strategy_failed", "completed")
 ABSURD_RATE_RAD_S = 1e4          # a body spinning at 1,600 rev/s is a numerical blow-up
@@ -71,6 +72,7 @@ class TrialResult:
     events: list = field(default_factory=list)
     cause: str | None = None            # why a trial that is not balanced/completed ended so (sim.run.causes)
     cause_detail: str | None = None     # one sentence with the figures behind `cause`
+    power: dict | None = None           # the power chain's summary (`PowerChain.summary`), None without one
     loop_overruns: int | None = None    # with a `timing` section: ticks skipped or commands dropped
 
 
@@ -183,7 +185,7 @@ def run_trial(scenario, *, seed: int | None = None, stop_early: bool | None = No
         isolate = visual is None and isolation.AVAILABLE and (bool(plugins_in(scenario.strategy))
                                                               or (estimator is not None and estimator.is_plugin))
     if not isolate:
-        trace = Trace(scenario.n_steps, step_s=scenario.world.step, extra=sensing_columns(scenario))
+        trace = Trace(scenario.n_steps, step_s=scenario.world.step, extra=trace_columns(scenario))
         return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
                          visual=visual, on_step=on_step)
     if visual is not None or not isolation.AVAILABLE:
@@ -226,9 +228,9 @@ def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step)
     beat = isolation.Heartbeat()
     try:
         trace = _PublishedTrace(scenario.n_steps, step_s=scenario.world.step, beat=beat,
-                                extra=sensing_columns(scenario))
+                                extra=trace_columns(scenario))
     except OSError:     # no room for a shared trace, in the temporary folder or in memory: run here
-        trace = Trace(scenario.n_steps, step_s=scenario.world.step, extra=sensing_columns(scenario))
+        trace = Trace(scenario.n_steps, step_s=scenario.world.step, extra=trace_columns(scenario))
         return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
                          visual=None, on_step=on_step)
     clock = _WatchedClock(budget, beat)
@@ -294,7 +296,13 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
     # the supply as the scenario states it: nothing the strategy holds (its `supply_v`, its device)
     supply = float(scenario.drive.supply)
     fallen = None  # the trace's phase code "fallen", once a body has fallen
-    motor = MotorDrive(device, step_s=dt)
+    chain = PowerChain(scenario, device, step_s=dt) if scenario.power_model else None
+    if chain is None:
+        motor = MotorDrive(device, step_s=dt)   # today's ideal source
+    else:   # battery, PWM, current mode, ...: the same per-step call; the command's limit is the chain's
+        motor, supply = chain, chain.command_limit
+        applied = np.zeros(n)   # the chain's mean winding voltage per step (the trace's voltage column)
+        t_sup, t_bus, t_app = (memoryview(c) for c in (trace.supply_voltage, trace.bus_current, applied))
     pushes = _push_schedule(scenario, dt, n)
     next_push, push_torque = pushes.pop() if pushes else (-1, 0.0)
     wheel_limit = ABSURD_WHEEL_FACTOR * device.no_load_speed_rad_s + 100.0
@@ -396,9 +404,14 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
                     fallen = trace.phase_code("fallen") if fallen is None else fallen
                     t_mode[k] = fallen
         if open_circuit:
-            motor.current, cur, torque = 0.0, 0.0, 0.0
+            if chain is None:
+                motor.current, cur, torque = 0.0, 0.0, 0.0
+            else:
+                cur, torque = chain.float_winding()
         else:
             cur, torque = update(volts, phd)
+        if chain is not None:
+            t_sup[k], t_bus[k], t_app[k] = chain.bus_v, chain.bus_current_a, chain.applied_v
         pivot_torque = -bp * thd
         if k == next_push:
             pivot_torque += push_torque
@@ -411,12 +424,14 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
             on_step(k, engine)
         k += 1
     wall = time.perf_counter() - wall0
+    power = {} if chain is None else {"power": chain.summary(), "applied": applied}
     return _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, fall_final,
-                   wants_balance, ticks, wall, tick_rows=tick_rows, overruns=schedule.overruns if timed else None)
+                   wants_balance, ticks, wall, tick_rows=tick_rows, overruns=schedule.overruns if timed else None,
+                   **power)
 
 
 def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, fall_final,
-            wants_balance, ticks, wall, *, tick_rows=None, overruns=None) -> TrialResult:
+            wants_balance, ticks, wall, *, tick_rows=None, overruns=None, power=None, applied=None) -> TrialResult:
     """Close the trace and judge the outcome. `k` is the step the loop stopped at."""
     dt, n = scenario.world.step, scenario.n_steps
     if outcome in ("diverged", "strategy_failed") and k < n:
@@ -428,6 +443,8 @@ def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fel
         trace.n, ended = k, k * dt
     trace.t[: trace.n] = np.arange(trace.n) * dt
     _hold_tick_values(trace, scenario.control_steps, tick_rows)
+    if applied is not None:     # through the power chain: what reached the winding, step by step
+        trace.voltage[: trace.n] = applied[: trace.n]
     if outcome in ("diverged", "strategy_failed") and k < n:
         trace.voltage[k] = 0.0  # nothing was applied after the failure
     if outcome is None:
@@ -437,18 +454,26 @@ def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fel
         # a body balanced from the first step was never caught: it started inside the catch region
         caught_at_s=catch_k * dt if (catch_k and outcome == "balanced") else None,
         fell_at_s=fell_k * dt if fell_k is not None else None, ended_at_s=ended,
-        control_ticks=ticks, saturated_ticks=saturated_ticks(trace, scenario.control_steps, scenario.drive.supply),
-        wall_s=wall, strategy=strategy, loop_overruns=overruns,
+        control_ticks=ticks, saturated_ticks=saturated_ticks(trace, scenario.control_steps,
+                                                             supply_ceiling(trace, scenario)),
+        wall_s=wall, strategy=strategy, loop_overruns=overruns, power=power,
     )
     result.cause, result.cause_detail = find_cause(result)
     return result
+
+
+def trace_columns(scenario) -> tuple[str, ...]:
+    """The extra trace columns of a scenario: its sensing columns, then the power chain's."""
+    return sensing_columns(scenario) + (POWER_CSV_COLUMNS if scenario.power_model else ())
 
 
 def _hold_tick_values(trace: Trace, cs: int, tick_rows: list[int] | None = None) -> None:
     """Copy each control tick's held values (voltage, mode, measurements, extra columns) down to
     the rows until the next tick: the loop writes them on tick rows only. With `tick_rows` (a
     timed loop: ticks where the schedule put them) the voltage is left as written, every row."""
-    cols = [trace.mode, trace.meas_angle, trace.meas_rate, trace.meas_wheel, *trace.extra.values()]
+    # the power chain's columns are written every step: not held
+    cols = [trace.mode, trace.meas_angle, trace.meas_rate, trace.meas_wheel,
+            *(c for name, c in trace.extra.items() if name not in POWER_CSV_COLUMNS)]
     if tick_rows is None:
         rows = (np.arange(trace.n) // cs) * cs
         cols.insert(0, trace.voltage)

@@ -39,3 +39,22 @@ class FixedVoltage(Strategy):
 
     def decide(self, reading: Reading) -> float:
         return self.params.volts
+
+
+class FixedCurrent(Strategy):
+    """A constant current in the winding (a step at t = 0), A: for a current-mode drive only."""
+
+    kind = "fixed_current"
+    goal = None
+    commands_current = True
+    needs_current_mode = True
+
+    class Params(StrategyParams):
+        amps: Q("current", ge=-1e4, le=1e4) = 0.0
+
+    def __init__(self, **kw) -> None:
+        super().__init__(**kw)
+        self.phase = "fixed current"
+
+    def decide(self, reading: Reading) -> float:
+        return self.params.amps
