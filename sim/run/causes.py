@@ -26,22 +26,27 @@ Outcome `fell` (the body left the release angle after it was held), in this orde
    gains at least DRIFT_MIN_SHARE of the no-load speed, and the speed keeps its sign over the
    stretch's second half. A steady torque demand (a sensor bias, an off-centre mass) that the law
    does not cancel.
-4. `current_at_limit`: the drive's current limit was reached (CURRENT_AT_LIMIT of it) for a
+4. `estimator_misread`: with an estimator making the law's angle (an IMU), its angle was off the
+   true angle by ESTIMATOR_MISREAD_RAD RMS or more over the stretch the body was held (up to
+   LOOKBACK_S before the fall, or the whole held stretch when that is shorter): the law balanced a
+   wrong angle (an IMU far from the pivot reading the body's own acceleration as tilt, a filter
+   trusting its accelerometer too much, a misaligned mount).
+5. `current_at_limit`: the drive's current limit was reached (CURRENT_AT_LIMIT of it) for a
    sustained stretch ending within LOOKBACK_S of the fall (sustained: SUSTAINED_S, or half the
    time the body was held, when that is shorter, and at least one control tick). Checked before the
    voltage: with the current at its limit the limit, not the supply, caps the torque.
-5. `voltage_at_supply`: the voltage was at the supply for a sustained stretch ending within
+6. `voltage_at_supply`: the voltage was at the supply for a sustained stretch ending within
    LOOKBACK_S of the fall, the wheel not at its limit: the motor could not give
    the torque the law asked for.
-6. `gains_too_weak`: none of the limits above was reached and the body still fell.
+7. `gains_too_weak`: none of the limits above was reached and the body still fell.
 
 Outcome `not_caught`:
 
-7. `swing_energy_short`: a swing-up that never brought the body the energy to come upright: the
+8. `swing_energy_short`: a swing-up that never brought the body the energy to come upright: the
    peak of E = 1/2 J theta_d^2 + mbar g (cos theta - 1) (0 upright at rest, -2 mbar g hanging)
    stayed below 0.
-8. `start_outside_release`: a balance-only law whose trial started beyond its release angle.
-9. `catch_missed`: anything else not caught (the energy was there, the catch did not happen).
+9. `start_outside_release`: a balance-only law whose trial started beyond its release angle.
+10. `catch_missed`: anything else not caught (the energy was there, the catch did not happen).
 """
 
 from __future__ import annotations
@@ -60,6 +65,7 @@ CAUSES = {
     "swing_energy_short": "a swing-up never gave the body the energy to come upright",
     "push_too_large": "the body fell inside a push's recovery window",
     "bias_drift": "the wheel drifted steadily with one sign before the fall",
+    "estimator_misread": "the estimator's angle was off the true angle while the body was held",
     "gains_too_weak": "the body fell with none of the limits reached",
     "strategy_failed": "the strategy raised, returned nonsense or ran past its time budget",
     "diverged": "the simulated state became non-finite or absurd",
@@ -78,6 +84,7 @@ CURRENT_AT_LIMIT = 0.98     # share of the current limit
 DRIFT_MIN_S = 2.0           # a drift needs a held stretch at least this long, s
 DRIFT_MIN_SHARE = 0.2       # ... gaining at least this share of the no-load speed
 DRIFT_MIN_R2 = 0.8          # ... and this straight (coefficient of determination of the line)
+ESTIMATOR_MISREAD_RAD = math.radians(1.0)   # estimator's RMS angle error that misleads the law, rad
 
 
 def find_cause(result) -> tuple[str | None, str | None]:
@@ -167,6 +174,13 @@ def _fell(result) -> tuple[str, str]:
             f"{at} after the wheel drifted steadily at {drift[0]:+.3g} rad/s per s for {drift[1]:.1f} s, to "
             f"{share:.0%} of its no-load speed: a steady torque demand (such as an angle-sensor bias or an "
             f"off-centre mass) that the law does not cancel")
+    misread = _estimator_error(result, held_from, end, look)
+    if misread is not None and misread[0] >= ESTIMATOR_MISREAD_RAD:
+        rms, peak = misread
+        return "estimator_misread", (
+            f"{at} after the estimator's angle was off the true angle by {math.degrees(rms):.2f} deg RMS "
+            f"({math.degrees(peak):.2f} deg at most) while the body was held: the law balanced a wrong angle "
+            f"(the IMU's place, its mounting or the filter's trust in the accelerometer)")
     i_lim = dev.current_limit_a
     if math.isfinite(i_lim):
         cur_s = _run_before(np.abs(tr.current[:end]) >= CURRENT_AT_LIMIT * i_lim, look) * dt
@@ -214,6 +228,19 @@ def _held_from(result, end: int) -> int:
         return end
     before = np.flatnonzero(outside[: inside[-1]])
     return int(before[-1]) + 1 if before.size else 0
+
+
+def _estimator_error(result, held_from: int, end: int, look: int) -> tuple[float, float] | None:
+    """(RMS, peak) of the estimator's angle error, rad, over the held stretch before the last `look`
+    rows (the whole held stretch when that leaves none); None without an estimator."""
+    est = result.trace.extra.get("estimated_angle_rad")
+    if est is None:
+        return None
+    stop = end - look if end - look > held_from else end
+    if stop <= held_from:
+        return None
+    err = wrap_angles(est[held_from:stop] - result.trace.angle[held_from:stop])
+    return float(np.sqrt(np.mean(err**2))), float(np.max(np.abs(err)))
 
 
 def _drift(result, start: int, stop: int) -> tuple[float, float] | None:
