@@ -134,6 +134,10 @@ KEY_CASES = {
                                               "material": "unobtainium"}]}}, ["body.parts[0].material"]),
     "unknown_strategy": ({"strategy": {"kind": "lqrr"}}, ["strategy.kind", "did you mean 'lqr'"]),
     "strategy_not_mapping": ({"strategy": "lqr"}, ["strategy", "mapping"]),
+    # a section given as a number names the keys it takes (not a class name)
+    "section_not_mapping": ({"sensors": {"imu": {}, "estimator": {"kind": "kalman", "process_noise": 0.001}}},
+                            ["sensors.estimator.process_noise", "expected a mapping with keys among rate, bias",
+                             "found 0.001"]),
     "missing_plugin_file": ({"strategy": {"plugin": "no_such_plugin.py:Law"}}, ["strategy.plugin", "no such file"]),
     "malformed_plugin": ({"strategy": {"plugin": "a:b:c"}}, ["strategy.plugin"]),
     "missing_required": ({"motor": {"resistance": None}}, ["motor.resistance"]),
