@@ -82,6 +82,14 @@ def test_overrides_set_values_with_units_and_list_items(scenario_file):
     assert sc.sensors.angle.counts_per_rev == 1024
 
 
+@pytest.mark.parametrize("spelling", ["null", "~", "NULL"])
+def test_set_null_means_none_as_in_a_file(spelling):
+    # YAML 1.2 core schema: null, Null, NULL and ~ are null; `--set key=null` does what `key: null` does
+    raw = scenario_dict(sensors={"rate": 500, "angle": {"counts_per_rev": 4096}})
+    sc = load_scenario(data=raw, overrides=(f"sensors.angle.counts_per_rev={spelling}",))
+    assert sc.sensors.angle.counts_per_rev is None
+
+
 def test_overrides_do_not_change_the_mapping_they_are_given():
     raw = scenario_dict()
     load_scenario(data=raw, overrides=("drive.supply=24",))

@@ -38,6 +38,9 @@ def parse_path(path: str, *, where: str) -> list[str | int]:
     return parts
 
 
+YAML_NULLS = ("null", "Null", "NULL", "~")   # YAML 1.2 core schema: `--set key=null` as in a file
+
+
 def parse_assignment(text: str, *, where: str = "--set") -> tuple[list[str | int], Any]:
     """Split 'key.path=value' into (path, value)."""
     if "=" not in text:
@@ -48,8 +51,8 @@ def parse_assignment(text: str, *, where: str = "--set") -> tuple[list[str | int
         parsed = load_yaml12(value) if value.strip() else None
     except (yaml.YAMLError, RecursionError):
         raise ScenarioError(f"{where} {text!r}: the value is not readable") from None
-    if value.strip() and parsed is None:
-        parsed = value.strip()
+    if value.strip() and parsed is None and value.strip() not in YAML_NULLS:
+        parsed = value.strip()     # e.g. a lone '#...': the text as given
     return path, parsed
 
 
