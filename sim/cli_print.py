@@ -106,6 +106,9 @@ def _power_rows(m: dict) -> list[tuple[str, str]]:
         rows.append(("driver trips", str(m["driver_trips"])))
     if m["pwm_dead_band_fraction"] is not None:
         rows.append(("PWM dead band", f"{100 * m['pwm_dead_band_fraction']:.1f}% of steps"))
+    if m.get("reversals") is not None:
+        rows.append(("reversals", f"{m['reversals']} (commands held at 0 on "
+                                  f"{100 * m['reversal_held_fraction']:.1f}% of steps)"))
     return rows
 
 

@@ -8,6 +8,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import pytest
 from numpy.testing import assert_allclose
 
 from conftest import make_scenario
@@ -75,6 +76,21 @@ def test_reversal_holds_the_command_at_zero_for_the_delay():
         chain.update(cmd, 0.0)
         out.append(chain.applied_v)
     assert out[5:10] == [0.0] * 5 and out[10:] == [2.0] * 5
+    # counted: no turn made (the command came back), 5 of 15 steps held
+    assert chain.summary()["reversals"] == 0
+    assert chain.summary()["reversal_held_fraction"] == pytest.approx(5 / 15)
+
+
+def test_reversals_are_counted_with_the_steps_they_held():
+    # a command that changes sign every 50 steps (5 ms at 0.1 ms) through a 2 ms (20-step) delay:
+    # 3 turns made, 20 steps held at zero each, over 200 steps
+    sc, dev, chain = chain_for(supply=12.0, reversal_delay=0.002)
+    for cmd in [3.0] * 50 + [-3.0] * 50 + [3.0] * 50 + [-3.0] * 50:
+        chain.update(cmd, 0.0)
+    s = chain.summary()
+    assert s["reversals"] == 3 and s["reversal_held_fraction"] == pytest.approx(60 / 200)
+    _, _, plain = chain_for(supply=12.0)
+    assert plain.summary()["reversals"] is None and plain.summary()["reversal_held_fraction"] is None
 
 
 def test_trip_switches_off_for_its_recovery_and_counts():

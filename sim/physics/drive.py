@@ -90,6 +90,8 @@ class PowerChain:
         self.reversal_s = drive.reversal_delay or 0.0
         self.direction = 0.0
         self.turn_at = None          # time the bridge may turn round, s (None: no reversal pending)
+        self.reversals = 0           # turns completed
+        self.reversal_held_steps = 0  # steps a command was held at zero waiting for a turn
         trip = drive.trip
         self.trip_a = trip.current if trip is not None else math.inf
         self.trip_s = trip.time if trip is not None else 0.0
@@ -211,8 +213,10 @@ class PowerChain:
         if self.turn_at is None:
             self.turn_at = t + self.reversal_s
         if t < self.turn_at - 1e-9 * self.dt:
+            self.reversal_held_steps += 1
             return 0.0
         self.direction, self.turn_at = s, None
+        self.reversals += 1
         return command
 
     def float_winding(self) -> tuple[float, float]:
@@ -288,6 +292,11 @@ class PowerChain:
             "pwm_dead_band_fraction": (self.pwm.dead_band_hits / self.steps if self.pwm is not None and self.steps
                                        else (0.0 if self.pwm is not None else None)),
             "power_events": [{"at_s": t, "cause": code} for t, code in self.events],
+            # with a reversal delay: turns made, and the share of steps a command waited for one
+            # (a balance law that reverses often loses that much of its authority: a limit cycle)
+            "reversals": self.reversals if self.reversal_s else None,
+            "reversal_held_fraction": (self.reversal_held_steps / self.steps if self.steps else 0.0)
+            if self.reversal_s else None,
         }
         if self.coupled:
             out["peak_winding_temperature_c"] = self.peak_temp_c

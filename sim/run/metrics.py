@@ -136,13 +136,14 @@ def power_metrics(result) -> dict:
     """The power chain's keys: the bus voltage's extremes (V; the peak shows regeneration), the charge
     used (mAh, net of regeneration), the pack's state of charge at the end (null on a bench supply),
     the driver's trips, the share of steps whose non-zero command fell in the PWM dead band (null
-    without a PWM model), the protection events, the mean bus current over the trial (A) and the energy
+    without a PWM model), the protection events, the reversals of a bridge with a reversal delay and
+    the share of steps a command waited for one (null without a delay), the mean bus current over the trial (A) and the energy
     drawn from the bus (J)."""
     p = result.power
     tr = result.trace
     out = {k: p[k] for k in ("min_supply_voltage_v", "peak_supply_voltage_v", "charge_used_mah",
                              "battery_state_of_charge_end", "driver_trips", "pwm_dead_band_fraction",
-                             "power_events")}
+                             "power_events", "reversals", "reversal_held_fraction")}
     out["mean_bus_current_a"] = float(np.mean(tr.bus_current[: tr.n])) if tr.n else 0.0
     # what the supply gave (negative: took back), the integral of V_bus I_bus; `energy_from_supply_j`
     # stays the winding's V i, as without the chain
