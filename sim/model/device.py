@@ -37,7 +37,7 @@ class Device:
     wheel_coulomb_n_m: float
     wheel_viscous_n_m_s: float
     control_rate_hz: float
-    delay_s: float
+    delay_s: float                    # sample to command acting: sensors.delay (+ timing.compute_time), s
     locked: bool
     angle_counts_per_rev: int = 0     # the angle encoder's counts per rev, 0 when the scenario sets none
     wheel_counts_per_rev: int = 0     # the wheel encoder's counts per rev, 0 when the scenario sets none
@@ -65,7 +65,7 @@ class Device:
             supply_v=sc.drive.supply, brake_torque_n_m=sc.drive.brake_torque,
             pivot_coulomb_n_m=sc.body.pivot_friction.coulomb, pivot_viscous_n_m_s=sc.body.pivot_friction.viscous,
             wheel_coulomb_n_m=w.bearing_friction.coulomb, wheel_viscous_n_m_s=w.bearing_friction.viscous,
-            control_rate_hz=sc.sensors.rate, delay_s=sc.sensors.delay, locked=sc.body.locked,
+            control_rate_hz=sc.sensors.rate, delay_s=_loop_delay_s(sc), locked=sc.body.locked,
             angle_counts_per_rev=(sc.sensors.angle.counts_per_rev if sc.sensors.angle is not None else None) or 0,
             wheel_counts_per_rev=sc.sensors.wheel.counts_per_rev or 0,
             pwm_max=2**sc.drive.pwm.resolution_bits - 1 if sc.drive.pwm is not None else 0,
@@ -147,6 +147,12 @@ class Device:
         ])
         B = c * np.array([[0.0], [-1.0 / J], [1.0 / Iw + 1.0 / J]])
         return A, B
+
+
+def _loop_delay_s(sc) -> float:
+    """From a sample to its command acting, s: the sensors' delay plus, with a `timing` section, the
+    controller's compute time (what a law's delay predictor has to bridge)."""
+    return sc.sensors.delay + sc.timing.compute_time if sc.timing is not None else sc.sensors.delay
 
 
 def _imu_lsb(imu) -> dict:
