@@ -91,3 +91,13 @@ def firmware_cache(tmp_path_factory):
         os.environ.pop(CACHE_ENV, None)
     else:
         os.environ[CACHE_ENV] = before
+
+
+def make_scenario3d(wheels: list, **sections):
+    """A validated 3D `Scenario`: the test mapping with `wheels:` instead of `wheel:` and `sections` merged in."""
+    from sim.model.scenario import validate_scenario
+
+    raw = scenario_dict(**sections)
+    raw.pop("wheel")
+    raw["wheels"] = copy.deepcopy(wheels)
+    return validate_scenario(raw, where="<test scenario>")

@@ -22,18 +22,28 @@ class StrategyParams(BaseModel):
 
 
 class Reading:
-    """What the sensors report at one control tick (SI; conventions as in `sim.model.scenario`).
+    """What the sensors report at one control tick (SI; conventions as in `sim.model.scenario`
+    and, for 3D devices, `sim.core.frames`).
 
+    The vector form (every device): `angles_rad` is (theta,) on a hinge and (tilt_x, tilt_y) on a
+    ball mount, from upright; `rates_rad_s` is (theta_d,) on a hinge and the body's angular
+    velocity in the world frame (wx, wy, wz) on a ball; `wheel_speeds_rad_s` has one speed per
+    wheel, relative to the body. The scalar fields mirror the first entries, so one-wheel laws
+    read what they always did. On the planar one-wheel path the vector fields are left empty.
     One object is reused for the whole trial: copy values out if a strategy keeps them.
     """
 
-    __slots__ = ("t_s", "angle_rad", "rate_rad_s", "wheel_speed_rad_s")
+    __slots__ = ("t_s", "angle_rad", "rate_rad_s", "wheel_speed_rad_s", "angles_rad", "rates_rad_s",
+                 "wheel_speeds_rad_s")
 
     def __init__(self) -> None:
         self.t_s = 0.0
         self.angle_rad = 0.0
         self.rate_rad_s = 0.0
         self.wheel_speed_rad_s = 0.0
+        self.angles_rad: tuple[float, ...] = ()
+        self.rates_rad_s: tuple[float, ...] = ()
+        self.wheel_speeds_rad_s: tuple[float, ...] = ()
 
 
 class Strategy:
@@ -47,7 +57,9 @@ class Strategy:
        the scenario loaded; `rng` is the trial's seeded numpy Generator, the only randomness
        a strategy may use. Designs (gains, predictors) are computed in `__init__`.
     2. The law. A subclass implements ``decide(reading) -> float``: the voltage it wants across
-       the motor winding, in volts, positive accelerating the wheel in the positive sense. It is
+       the motor winding, in volts, positive accelerating the wheel in the positive sense. On a
+       3D device (`sim.model.device3d.Device3D`, `device.n_wheels` wheels) it returns a sequence
+       of volts, one per wheel in the scenario's order (a number will do for one wheel). It is
        called once per control tick, in time order; the runner holds the result until the
        next tick (zero-order hold). It sees only the `Reading` (measured angle, body rate,
        wheel speed and time), never the true state or the engine.
@@ -87,6 +99,9 @@ class Strategy:
     kind: ClassVar[str] = "custom"
     goal: ClassVar[str | None] = "balance"
     swings_up: ClassVar[bool] = False   # True when the strategy can bring the body up from hanging
+    planar_only: ClassVar[bool] = False
+    """True for laws that are one-axis by nature: a scenario pairing one with a multi-wheel or
+    ball-mounted device (not `Scenario.is_planar`) is refused at load."""
 
     class Params(StrategyParams):
         model_config = ConfigDict(extra="allow", frozen=True)
@@ -115,6 +130,26 @@ class Strategy:
         if not math.isfinite(v):
             raise StrategyError(f"decide() returned a non-finite voltage ({v})")
         return v
+
+    def command_vector(self, reading: Reading, n_wheels: int) -> tuple[float, ...]:
+        """The base's part of each tick on a 3D device: `decide` returns a sequence of volts, one per
+        wheel (a single number is accepted for a one-wheel device). Returns a tuple of finite floats."""
+        v = self.decide(reading)
+        if isinstance(v, (int, float)) or (hasattr(v, "ndim") and getattr(v, "ndim", 1) == 0):
+            if n_wheels != 1:
+                raise StrategyError(f"decide() returned one voltage for a device with {n_wheels} wheels; "
+                                    "return a sequence with one voltage per wheel")
+            v = (v,)
+        try:
+            out = tuple(float(x) for x in v)
+        except (TypeError, ValueError):
+            raise StrategyError(f"decide() returned {type(v).__name__}, not a sequence of voltages") from None
+        if len(out) != n_wheels:
+            raise StrategyError(f"decide() returned {len(out)} voltages for a device with {n_wheels} wheels")
+        for x in out:
+            if not math.isfinite(x):
+                raise StrategyError(f"decide() returned a non-finite voltage ({x})")
+        return out
 
 
 @dataclass(frozen=True)

@@ -21,6 +21,7 @@ class LqrBalance(Strategy):
     """
 
     kind = "lqr"
+    planar_only = True   # the one-wheel design; 3D devices are refused at load until the multi-input design lands
     goal = "balance"
 
     class Params(StrategyParams):
