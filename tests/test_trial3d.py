@@ -21,6 +21,7 @@ from sim.run.trial import run_trial
 from pathlib import Path
 
 LAWS = Path(__file__).parent / "plugins" / "three_wheel_laws.py"
+PD_LAW = Path(__file__).resolve().parents[1] / "scenarios" / "tilt_pd_law.py"
 RING = {"shape": "ring", "outer_radius": 0.05, "inner_radius": 0.01, "thickness": 0.006, "mass": 0.12}
 MOTOR = {"speed_constant": "50 rad/s/V", "torque_constant": 0.02, "resistance": 1.0, "inductance": 1e-4, "mass": 0.03}
 THREE = [{"at": [0.03, 0.0, 0.1], "axis": [1, 0.2, 0], "parts": [RING]},
@@ -163,7 +164,7 @@ def test_a_tilt_law_holds_a_ball_mounted_body_with_three_wheels():
     # through their axes, is enough to show the loop's signs and axes are right: the body is held
     # and pushed about two axes, a law of the wrong sign would drop it
     sc = make_scenario3d(THREE, body=OFF_AXIS_BODY, motor=MOTOR, drive={"supply": 12.0},
-                         strategy={"plugin": f"{LAWS}:TiltPD", "kp": 120.0, "kd": 8.0, "kw": 0.01},
+                         strategy={"plugin": f"{PD_LAW}:TiltPD", "kp": 120.0, "kd": 8.0, "kw": 0.01},
                          trial={"duration": 1.5, "start": {"tilt": ["3 deg", "-2 deg"]},
                                 "pushes": [{"at": 0.5, "impulse": [0.01, -0.0067, 0.0]}]})
     held = run_trial(sc)
@@ -206,3 +207,15 @@ def test_other_commands_refuse_a_3d_device(command, tmp_path, capsys):
     assert code == 2
     assert len(err.splitlines()) == 1 and "takes one-wheel hinge devices only" in err, err
     assert not (tmp_path / "o").exists()
+
+
+@pytest.mark.parametrize("name, pushes", [("cube_corner.yaml", 2), ("tilted_axis.yaml", 1)])
+def test_3d_demos_do_what_their_comments_say(name, pushes):
+    # our own demos: the comment at the top of each file states these outcomes
+    from sim.model.scenario_yaml import load_scenario
+    from sim.run.metrics3d import trial_metrics3d
+    sc = load_scenario(PD_LAW.parent / name)
+    m = trial_metrics3d(run_trial(sc))
+    assert m["outcome"] == "balanced" and len(m["pushes"]) == pushes
+    assert all(p["survived"] for p in m["pushes"])
+    assert m["wheel_speed_margin"] > 0.1

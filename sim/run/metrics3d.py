@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 
-from .metrics import PUSH_RECOVER_S, SETTLE_BAND_RAD, push_outcomes, settle_time
+from .metrics import PUSH_RECOVER_S, SATURATION_REL_TOL, SETTLE_BAND_RAD, push_outcomes, settle_time
 
 
 def trial_metrics3d(result) -> dict:
@@ -53,7 +53,7 @@ def trial_metrics3d(result) -> dict:
         "current_limit_a": min(limits) if limits else None,
         "peak_voltage_v": max(w["peak_voltage_v"] for w in wheels),
         "supply_v": sc.drive.supply,
-        "voltage_saturated_fraction": result.saturated_ticks / ticks if ticks else 0.0,
+        "voltage_saturated_fraction": _saturated(tr, dev, end, sc.control_steps) / ticks if ticks else 0.0,
         "energy_from_supply_j": energy, "regenerated_energy_j": regen,
         "peak_tilt_rad": float(np.max(tilt[:end])) if end else None,
         "max_angle_after_catch_rad": float(np.max(tilt[int(round(held_from / dt)):])) if held_from is not None and tr.n else None,
@@ -65,3 +65,11 @@ def trial_metrics3d(result) -> dict:
         **{k: v for k, v in (getattr(result.strategy, "extra_metrics", None) or {}).items()},
     }
 
+
+
+def _saturated(trace, device, end: int, control_steps: int) -> int:
+    """Control ticks in rows [0, end) at which some wheel's voltage reached the supply."""
+    hit = np.zeros(len(range(0, end, control_steps)), dtype=bool)
+    for i, w in enumerate(device.wheels, start=1):
+        hit |= np.abs(trace.wheel(i, "voltage")[:end:control_steps]) >= w.supply_v * (1.0 - SATURATION_REL_TOL)
+    return int(np.count_nonzero(hit))

@@ -1,0 +1,42 @@
+"""A plain tilt PD for the 3D demos (the vector form of the strategy contract): a stand-in until
+the multi-input LQR for several wheels lands, when the demos switch to `strategy: {kind: lqr}`.
+
+Not a design method: its gains were picked by trying a small grid on each demo (kept in the demo
+files); it ignores the coupling between axes and the wheels' limits that an LQR design weighs."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from sim.strategies import Strategy, StrategyParams
+
+
+class TiltPD(Strategy):
+    """A PD on the tilts and rates, mapped to the wheels through their axes, with wheel-speed feedback.
+
+    Near upright the tilts (about world x and y) and the world rates form a small rotation vector;
+    the wanted reaction torque on the body is -(kp angle + kd rate). A wheel driven with +V pushes the
+    body the negative way about its axis, which points along R0 a_i in the world near upright (R0 the
+    upright attitude), so each wheel gets V = (R0 a_i) . (kp angle + kd rate) + kw * wheel speed
+    (SI gains: V/rad, V s/rad, V s/rad)."""
+
+    kind = "tilt_pd"
+
+    class Params(StrategyParams):
+        kp: float = 60.0
+        kd: float = 4.0
+        kw: float = 0.01
+
+    def __init__(self, **kw):
+        super().__init__(**kw)
+        r0 = np.array(self.device.upright())
+        self.axes = np.array([r0 @ np.array(w.axis) for w in self.device.wheels])
+
+    def decide(self, reading):
+        angle = np.zeros(3)
+        angle[: len(reading.angles_rad)] = reading.angles_rad
+        rate = np.zeros(3)
+        rate[: len(reading.rates_rad_s)] = reading.rates_rad_s
+        want = self.params.kp * angle + self.params.kd * rate
+        return self.axes @ want + self.params.kw * np.array(reading.wheel_speeds_rad_s)
+
