@@ -47,8 +47,9 @@ else:
 """
 
 
-def count(which: str, seconds: float, lib: Path, tmp: Path) -> int:
-    driver = DRIVER.format(root=str(HERE.parent), bench=str(HERE), lib=str(lib), seconds=seconds, which=which)
+def count(which: str, seconds: float, lib: Path, tmp: Path, *, driver: str = DRIVER) -> int:
+    """Instructions counted while `driver` (a Python source template) runs its measured call."""
+    driver = driver.format(root=str(HERE.parent), bench=str(HERE), lib=str(lib), seconds=seconds, which=which)
     proc = subprocess.run(["valgrind", "--tool=callgrind", "--instr-atstart=no",
                            f"--callgrind-out-file={tmp}/out.%p", sys.executable, "-c", driver],
                           capture_output=True, text=True)

@@ -30,13 +30,16 @@ class TiltPD(Strategy):
     def __init__(self, **kw):
         super().__init__(**kw)
         r0 = np.array(self.device.upright())
-        self.axes = np.array([r0 @ np.array(w.axis) for w in self.device.wheels])
+        # plain floats from here on: a few numbers a tick cost less in Python than through numpy
+        self.axes = [tuple(float(v) for v in r0 @ np.array(w.axis)) for w in self.device.wheels]
+        self.gains = (float(self.params.kp), float(self.params.kd), float(self.params.kw))
 
     def decide(self, reading):
-        angle = np.zeros(3)
-        angle[: len(reading.angles_rad)] = reading.angles_rad
-        rate = np.zeros(3)
-        rate[: len(reading.rates_rad_s)] = reading.rates_rad_s
-        want = self.params.kp * angle + self.params.kd * rate
-        return self.axes @ want + self.params.kw * np.array(reading.wheel_speeds_rad_s)
+        kp, kd, kw = self.gains
+        angles, rates = reading.angles_rad, reading.rates_rad_s
+        want = [kd * r for r in rates] + [0.0] * (3 - len(rates))
+        for j, a in enumerate(angles):
+            want[j] += kp * a
+        return [ax * want[0] + ay * want[1] + az * want[2] + kw * s
+                for (ax, ay, az), s in zip(self.axes, reading.wheel_speeds_rad_s)]
 

@@ -36,9 +36,9 @@ def _momentum_about_pivot(engine) -> np.ndarray:
     attitude and rate, wheel speeds) and our own inertias: L = R (J w_b + sum I_s,i phi_d,i a_i), J the
     whole device about the pivot with the wheels locked (Goldstein, Classical Mechanics, ch. 5:
     L = I w for a rigid body about a fixed point, plus each rotor's spin relative to its carrier)."""
-    r, rate, _, _, speeds, _ = engine.io()[0]()
+    rate, speeds = engine.body_rate_world(), engine.wheel_speeds()
     dev = engine.device
-    rot = np.array(r)
+    rot = np.array(engine.attitude())
     w_body = rot.T @ np.array(rate)
     inner = dev.inertia_about_pivot_kg_m2(with_spin=True) @ w_body
     for w, s in zip(dev.wheels, speeds):
@@ -98,8 +98,7 @@ def test_spinning_wheel_precesses_at_tau_over_L():
     headings = []
 
     def azimuth(k, eng):
-        r = np.array(eng.io()[0]()[0])
-        axis = r @ np.array([0.0, 0.0, 1.0])
+        axis = np.array(eng.attitude()) @ np.array([0.0, 0.0, 1.0])
         headings.append(math.atan2(axis[1], axis[0]))
     result = run_trial(sc, on_step=azimuth)
     t = np.arange(len(headings)) * sc.world.step
@@ -110,6 +109,8 @@ def test_spinning_wheel_precesses_at_tau_over_L():
     assert 0.3 < expected < 0.6                    # a visible precession, ~0.44 rad/s
     assert_allclose(rate, expected, rtol=0.005)     # measured: 0.04% off
     assert np.max(result.trace.tilt[: result.trace.n]) < math.radians(92)   # the axle holds up
+    # pybullet's 100 rad/s joint-speed clamp is off: the free wheel keeps its 2,000 rad/s
+    assert_allclose(result.trace.w1_speed[result.trace.n - 1], spin, rtol=1e-3)
 
 
 @pytest.mark.parametrize("axis", [(math.cos(math.radians(20)), math.sin(math.radians(20)), 0.0),
@@ -127,9 +128,9 @@ def test_tilted_axis_only_the_hinge_component_turns_the_body(axis):
         eng.reset(attitude=None)
         read, advance = eng.io()
         for _ in range(200):
-            r, *_ = read()
-            advance((0.0, 0.0, 0.0), [tau], r)
-        _, rate, *_ = read()
+            read()
+            advance(None, [tau])
+        rate = read()[4]
     j_prime = dev.inertia_about_pivot_kg_m2(with_spin=False)[0, 0]
     assert_allclose(rate[0], -axis[0] * tau / j_prime * 0.2, rtol=1e-9)
     # the full torque would have turned it by 1/cos(20 deg) = 6.4% more

@@ -10,11 +10,11 @@ joint-speed clamp, link damping, and the default joint motors (the spherical joi
 zero-force multi-DoF motor). Gyroscopic terms are on (pybullet's default).
 
 Units and frames of the calls:
-- `read()` -> (R_wb as row tuples, body rate (wx, wy, wz) rad/s in the world frame, hinge angle rad
-  (0.0 for a ball), wheel angles rad, wheel speeds rad/s relative to the body).
-- `advance(pivot_torque_world, wheel_torques)`: a torque on the body about the pivot, N m in the
-  world frame (a hinge takes its x component), and each wheel's net torque about its axis, N m
-  (the reaction acts on the body); one physics step.
+- `read()` -> (tilt_x, tilt_y, heading, tilt_rad, body rate (wx, wy, wz) rad/s in the world frame,
+  wheel angles rad, wheel speeds rad/s relative to the body); see `io`.
+- `advance(push_world, wheel_torques)`: each wheel's net torque about its axis, N m (the reaction acts
+  on the body), and a push's torque on the body about the pivot, N m in the world frame, or None (a
+  hinge takes its x component); the pivot's viscous friction is applied here; one physics step.
 Coulomb friction (and a brake) at the wheel joints are zero-target velocity motors with a force cap,
 as on the planar engine; viscous friction is applied by the caller as a torque.
 """
@@ -112,45 +112,113 @@ class Engine3D:
             pb.resetJointState(body, j, 0.0, float(s), physicsClientId=cid)
 
     def io(self):
-        """(read, advance) closures with every lookup bound once (see the module docstring)."""
-        pb, cid, body = self.pb, self.client, self.body_id
+        """(read, advance) closures with every lookup bound once (see the module docstring).
+
+        read() -> (tilt_x, tilt_y, heading, tilt rad, (wx, wy, wz) rad/s world, wheel angles rad,
+        wheel speeds rad/s): the attitude relative to upright (`sim.core.frames`); on a hinge
+        tilt_x is the unwrapped body angle from upright and tilt_y = heading = 0.
+        advance(push_world, wheel_torques): one step with each wheel's net torque about its axis
+        (N m) and, when not None, a torque on the body about the pivot in the world frame (N m, a
+        push); the pivot's viscous friction is applied here. Paid every physics step: plain floats,
+        no numpy, no keyword parsing where pybullet takes positions.
+        """
+        pb, cid, body, dev = self.pb, self.client, self.body_id, self.device
         states, torques, step = pb.getJointStates, pb.setJointMotorControlArray, pb.stepSimulation
-        mode, wheels = pb.TORQUE_CONTROL, self.wheel_joints
-        cos, sin = math.cos, math.sin
+        mode, wheels, bp = pb.TORQUE_CONTROL, self.wheel_joints, dev.pivot_viscous_n_m_s
+        atan2, asin, acos, fabs, pi = math.atan2, math.asin, math.acos, math.fabs, math.pi
         n = len(wheels)
         unused = (0.0,) * n
-        if self.ball:
-            multi, multi_torque = pb.getJointStateMultiDof, pb.setJointMotorControlMultiDof
-            p, pt = self.principal_axes, transpose(self.principal_axes)
-
-            def read():
-                q, w_principal = multi(body, BODY, cid)[:2]
-                r = matmul(matmul(p, quat_to_matrix(q)), pt)      # R_wb = P q P^T
-                rate = _mat_vec(r, _mat_vec(p, w_principal))     # world = R_wb P w
-                ws = states(body, wheels, cid)
-                return r, rate, 0.0, tuple(s[0] for s in ws), tuple(s[1] for s in ws), q
-
-            def advance(pivot_torque_world, wheel_torques, r):
-                local = _mat_vec(pt, _mat_vec(transpose(r), pivot_torque_world))
-                multi_torque(body, BODY, mode, force=local, physicsClientId=cid)
-                torques(body, wheels, mode, unused, unused, tuple(wheel_torques), unused, unused, cid)
-                step(cid)
-        else:
-            joints = (BODY,) + wheels
-            unused_all = (0.0,) * (n + 1)
+        r0 = dev.upright()
+        if not self.ball:
+            joints, unused_all = (BODY,) + wheels, (0.0,) * (n + 1)
+            a0 = atan2(r0[2][1], r0[2][2])
+            last = [0.0]
 
             def read():
                 ss = states(body, joints, cid)
-                th, thd = ss[0][0], ss[0][1]
-                c, s = cos(th), sin(th)
-                r = ((1.0, 0.0, 0.0), (0.0, c, -s), (0.0, s, c))
-                return (r, (thd, 0.0, 0.0), th, tuple(s[0] for s in ss[1:]), tuple(s[1] for s in ss[1:]), None)
+                tx, thd = ss[0][0] - a0, ss[0][1]
+                last[0] = thd
+                wrapped = fabs(tx) if -pi < tx <= pi else fabs((tx + pi) % (2 * pi) - pi)
+                return (tx, 0.0, 0.0, wrapped, (thd, 0.0, 0.0), [s[0] for s in ss[1:]], [s[1] for s in ss[1:]])
 
-            def advance(pivot_torque_world, wheel_torques, r):
-                torques(body, joints, mode, unused_all, unused_all, (pivot_torque_world[0], *wheel_torques),
-                        unused_all, unused_all, cid)
+            def advance(push_world, wheel_torques):
+                pivot = -bp * last[0] + (push_world[0] if push_world is not None else 0.0)
+                torques(body, joints, mode, unused_all, unused_all, (pivot, *wheel_torques), unused_all, unused_all, cid)
                 step(cid)
+            return read, advance
+
+        multi, multi_torque = pb.getJointStateMultiDof, pb.setJointMotorControlMultiDof
+        p = self.principal_axes
+        (p00, p01, p02), (p10, p11, p12), (p20, p21, p22) = p
+        cx, cy, cz, cw = matrix_to_quat(r0)
+        cx, cy, cz = -cx, -cy, -cz                          # conj(q0): relative to upright
+        state = [(0.0, 0.0, 0.0, 1.0), (0.0, 0.0, 0.0)]    # the last read: body quaternion, principal-axes rate
+        skip_pivot = bp == 0.0
+
+        def read():
+            (qx, qy, qz, w), wp = multi(body, BODY, cid)[:2]
+            # pybullet's joint quaternion is in the principal axes P: q_wb = (P v, w) (det P = 1)
+            x = p00 * qx + p01 * qy + p02 * qz
+            y = p10 * qx + p11 * qy + p12 * qz
+            z = p20 * qx + p21 * qy + p22 * qz
+            state[0], state[1] = (x, y, z, w), wp
+            # body rate: P wp in the body frame, turned to the world by q_wb (v + 2w u x v + 2 u x (u x v))
+            bx = p00 * wp[0] + p01 * wp[1] + p02 * wp[2]
+            by = p10 * wp[0] + p11 * wp[1] + p12 * wp[2]
+            bz = p20 * wp[0] + p21 * wp[1] + p22 * wp[2]
+            tx_, ty_, tz_ = 2.0 * (y * bz - z * by), 2.0 * (z * bx - x * bz), 2.0 * (x * by - y * bx)
+            rate = (bx + w * tx_ + y * tz_ - z * ty_, by + w * ty_ + z * tx_ - x * tz_, bz + w * tz_ + x * ty_ - y * tx_)
+            # attitude relative to upright: q_rel = q_wb conj(q0), then R = Rz(heading) Ry(tilt_y) Rx(tilt_x)
+            rx = w * cx + x * cw + y * cz - z * cy
+            ry = w * cy - x * cz + y * cw + z * cx
+            rz = w * cz + x * cy - y * cx + z * cw
+            rw = w * cw - x * cx - y * cy - z * cz
+            r22 = 1.0 - 2.0 * (rx * rx + ry * ry)
+            r20 = 2.0 * (rx * rz - ry * rw)
+            s20 = -r20 if -1.0 < -r20 < 1.0 else (1.0 if r20 <= -1.0 else -1.0)
+            tilt = acos(r22) if -1.0 < r22 < 1.0 else (0.0 if r22 >= 1.0 else pi)
+            ws = states(body, wheels, cid)
+            return (atan2(2.0 * (ry * rz + rx * rw), r22), asin(s20),
+                    atan2(2.0 * (rx * ry + rz * rw), 1.0 - 2.0 * (ry * ry + rz * rz)), tilt, rate,
+                    [s[0] for s in ws], [s[1] for s in ws])
+
+        def advance(push_world, wheel_torques):
+            # viscous pivot friction -bp w is -bp wp in the principal axes: no turning needed
+            if push_world is not None:
+                push = _to_principal(p, state[0], push_world)
+                wp = state[1]
+                multi_torque(body, BODY, mode, force=(push[0] - bp * wp[0], push[1] - bp * wp[1], push[2] - bp * wp[2]),
+                             physicsClientId=cid)
+            elif not skip_pivot:
+                wp = state[1]
+                multi_torque(body, BODY, mode, force=(-bp * wp[0], -bp * wp[1], -bp * wp[2]), physicsClientId=cid)
+            torques(body, wheels, mode, unused, unused, wheel_torques, unused, unused, cid)
+            step(cid)
         return read, advance
+
+    def attitude(self) -> tuple[tuple[float, float, float], ...]:
+        """R_wb, the body's attitude (body-frame vectors to world), row tuples (for checks)."""
+        pb = self.pb
+        if not self.ball:
+            th = pb.getJointState(self.body_id, BODY, physicsClientId=self.client)[0]
+            c, s = math.cos(th), math.sin(th)
+            return ((1.0, 0.0, 0.0), (0.0, c, -s), (0.0, s, c))
+        q = pb.getJointStateMultiDof(self.body_id, BODY, physicsClientId=self.client)[0]
+        p = self.principal_axes
+        return matmul(matmul(p, quat_to_matrix(q)), transpose(p))
+
+    def wheel_speeds(self) -> tuple[float, ...]:
+        """Each wheel's speed relative to the body, rad/s (for checks)."""
+        return tuple(s[1] for s in self.pb.getJointStates(self.body_id, list(self.wheel_joints),
+                                                          physicsClientId=self.client))
+
+    def body_rate_world(self) -> tuple[float, float, float]:
+        """The body's angular velocity in the world frame, rad/s (for checks)."""
+        pb = self.pb
+        if not self.ball:
+            return (pb.getJointState(self.body_id, BODY, physicsClientId=self.client)[1], 0.0, 0.0)
+        wp = pb.getJointStateMultiDof(self.body_id, BODY, physicsClientId=self.client)[1]
+        return _mat_vec(self.attitude(), _mat_vec(self.principal_axes, wp))
 
     def link_states(self):
         """[(world centre-of-mass position, world link-frame orientation quaternion, world linear
@@ -183,6 +251,11 @@ def principal(inertia: np.ndarray) -> tuple[list[float], list[float]]:
         vecs[:, 2] = -vecs[:, 2]
     rows = tuple(tuple(float(v) for v in row) for row in vecs)
     return [float(max(v, 0.0)) for v in vals], list(matrix_to_quat(rows))
+
+
+def _to_principal(p, q_wb, v_world) -> tuple[float, float, float]:
+    """A world-frame vector in the body's principal axes: P^T R_wb^T v."""
+    return _mat_vec(transpose(p), _mat_vec(transpose(quat_to_matrix(q_wb)), v_world))
 
 
 def _mat_vec(m, v) -> tuple[float, float, float]:

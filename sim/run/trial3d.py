@@ -22,10 +22,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..core.angles import wrap_angle
 from ..core.budget import StrategyClock
 from ..core.errors import StrategyError
-from ..core.frames import matmul, rotation_about_x_y, tilt_angles, transpose
+from ..core.frames import matmul, rotation_about_x_y
 from ..model.device3d import Device3D
 from ..physics.engine3d import Engine3D
 from ..physics.motor import MotorDrive
@@ -111,82 +110,78 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     dt, n, cs = scenario.world.step, scenario.n_steps, scenario.control_steps
     outcome, message = ("strategy_failed", failure) if failure else (None, None)
     ball, nw = device.mount == "ball", device.n_wheels
+    wheels = range(nw)
     reading = Reading()
     release = getattr(getattr(strategy, "params", None), "release_angle", math.pi)
     wants_balance = strategy is not None and strategy.goal == "balance"
     supply = float(scenario.drive.supply)
-    motors = [MotorDrive(_WheelMotor(device, i), step_s=dt) for i in range(nw)]
+    motors = [MotorDrive(_WheelMotor(device, i), step_s=dt) for i in wheels]
+    updates = [m.update for m in motors]
     pushes = _push_schedule(scenario, dt)
     next_push, push_torque = pushes.pop() if pushes else (-1, None)
     wheel_limit = [ABSURD_WHEEL_FACTOR * w.no_load_speed_rad_s + 100.0 for w in device.wheels]
-    bp, bw = device.pivot_viscous_n_m_s, [w.viscous_n_m_s for w in device.wheels]
-    r0t = transpose(device.upright())
-    a0 = math.atan2(device.upright()[2][1], device.upright()[2][2])
+    bw = [w.viscous_n_m_s for w in device.wheels]
     volts, mode, phase, name, brake_on, open_circuit = (0.0,) * nw, 0, None, None, False, False
     catch_k = fell_k = None
     ticks = saturated = 0
-    cols = {a: getattr(trace, a) for a in trace.FLOAT_COLUMNS}
-    tilt_c, tx_c, rx_c = cols["tilt"], cols["tilt_x"], cols["rate_x"]
-    ty_c, hd_c, ry_c, rz_c = (cols.get(a) for a in ("tilt_y", "heading", "rate_y", "rate_z"))
-    ws_c = [cols[f"w{i}_speed"] for i in range(1, nw + 1)]
-    wa_c = [cols[f"w{i}_angle"] for i in range(1, nw + 1)]
-    v_c = [cols[f"w{i}_voltage"] for i in range(1, nw + 1)]
-    i_c = [cols[f"w{i}_current"] for i in range(1, nw + 1)]
-    tq_c = [cols[f"w{i}_torque"] for i in range(1, nw + 1)]
-    m_angle = [cols["m_tilt_x"]] + ([cols["m_tilt_y"]] if ball else [])
-    m_rate = [cols["m_rate_x"]] + ([cols["m_rate_y"], cols["m_rate_z"]] if ball else [])
-    m_wheel = [cols[f"m_w{i}"] for i in range(1, nw + 1)]
-    zeros = np.zeros(max(n, 1))
+    at_supply = supply * (1.0 - 1e-9)
+    # the columns through memoryviews: a Python float in or out costs about half numpy's item access
+    col = {a: memoryview(getattr(trace, a)) for a in trace.FLOAT_COLUMNS}
+    tilt_c, tx_c, rx_c = col["tilt"], col["tilt_x"], col["rate_x"]
+    ty_c, hd_c, ry_c, rz_c = (col.get(a) for a in ("tilt_y", "heading", "rate_y", "rate_z"))
+    ws_c, wa_c, v_c, i_c, tq_c = ([col[f"w{i}_{q}"] for i in range(1, nw + 1)]
+                                  for q in ("speed", "angle", "voltage", "current", "torque"))
+    n_angles, n_rates = (2, 3) if ball else (1, 1)
+    m_angle = [col["m_tilt_x"]] + ([col["m_tilt_y"]] if ball else [])
+    m_rate = [col["m_rate_x"]] + ([col["m_rate_y"], col["m_rate_z"]] if ball else [])
+    m_wheel = [col[f"m_w{i}"] for i in range(1, nw + 1)]
+    zeros = memoryview(np.zeros(max(n, 1)))
     # each sensor suite reads one angle, one rate and one wheel (sensors.py applies its noise, bias,
     # delay and quantisation per axis); suites past the axes or wheels read zeros for those
     sense_angle = [tx_c] + ([ty_c, hd_c] if ball else [])
     sense_rate = [rx_c] + ([ry_c, rz_c] if ball else [])
-    suite_cols = [(sense_angle[j] if j < len(sense_angle) else zeros, sense_rate[j] if j < len(sense_rate) else zeros,
-                   wa_c[j] if j < nw else zeros, ws_c[j] if j < nw else zeros) for j in range(len(suites))]
-    n_angles, n_rates = (2, 3) if ball else (1, 1)
+    suite_reads = [(s.read, sense_angle[j] if j < len(sense_angle) else zeros,
+                    sense_rate[j] if j < len(sense_rate) else zeros, wa_c[j] if j < nw else zeros,
+                    ws_c[j] if j < nw else zeros) for j, s in enumerate(suites)]
     read, advance = engine.io()
+    command = strategy.command_vector if strategy is not None else None
+    lim = ABSURD_RATE_RAD_S
     k = 0
     wall0 = time.perf_counter()
     while k < n and outcome is None:
-        r, rate, th, wang, wspd, _ = read()
+        tx, ty, hd, tilt, rate, wang, wspd = read()
+        wx, wy, wz = rate
+        tilt_c[k], tx_c[k], rx_c[k] = tilt, tx, wx
         if ball:
-            rel = matmul(r, r0t)
-            tx, ty, hd = tilt_angles(rel)
-            tilt = math.acos(max(-1.0, min(1.0, rel[2][2])))
-            ty_c[k], hd_c[k], ry_c[k], rz_c[k] = ty, hd, rate[1], rate[2]
-        else:
-            tx = th - a0
-            tilt = abs(wrap_angle(tx))
-        tilt_c[k], tx_c[k], rx_c[k] = tilt, tx, rate[0]
-        bad = not (-ABSURD_RATE_RAD_S < rate[0] < ABSURD_RATE_RAD_S and -ABSURD_RATE_RAD_S < rate[1] < ABSURD_RATE_RAD_S
-                   and -ABSURD_RATE_RAD_S < rate[2] < ABSURD_RATE_RAD_S and tilt == tilt)
-        for i in range(nw):
-            ws_c[i][k], wa_c[i][k] = wspd[i], wang[i]
-            if not -wheel_limit[i] < wspd[i] < wheel_limit[i]:
+            ty_c[k], hd_c[k], ry_c[k], rz_c[k] = ty, hd, wy, wz
+        bad = not (-lim < wx < lim and -lim < wy < lim and -lim < wz < lim and tilt == tilt)
+        for s, a, s_col, a_col, w_lim in zip(wspd, wang, ws_c, wa_c, wheel_limit):
+            s_col[k], a_col[k] = s, a
+            if not -w_lim < s < w_lim:
                 bad = True
         if bad:
             outcome, message = "diverged", f"the state became non-finite or absurd at t = {k * dt:.4f} s"
             break
         if k % cs == 0:
             t = k * dt
-            meas = [s.read(k, *c) for s, c in zip(suites, suite_cols)]
-            reading.t_s = t
-            reading.angles_rad = tuple(m[0] for m in meas[:n_angles])
-            reading.rates_rad_s = tuple(m[1] for m in meas[:n_rates])
-            reading.wheel_speeds_rad_s = tuple(m[2] for m in meas[:nw])
-            reading.angle_rad, reading.rate_rad_s = reading.angles_rad[0], reading.rates_rad_s[0]
-            reading.wheel_speed_rad_s = reading.wheel_speeds_rad_s[0]
+            meas = [r(k, a, w, wa, ws) for r, a, w, wa, ws in suite_reads]
+            angles = tuple(m[0] for m in meas[:n_angles])
+            rates = tuple(m[1] for m in meas[:n_rates])
+            speeds = tuple(m[2] for m in meas[:nw])
+            reading.t_s, reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = t, angles, rates, speeds
+            reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = angles[0], rates[0], speeds[0]
             for j in range(n_angles):
-                m_angle[j][k] = reading.angles_rad[j]
+                m_angle[j][k] = angles[j]
             for j in range(n_rates):
-                m_rate[j][k] = reading.rates_rad_s[j]
-            for j in range(nw):
-                m_wheel[j][k] = reading.wheel_speeds_rad_s[j]
+                m_rate[j][k] = rates[j]
+            for j in wheels:
+                m_wheel[j][k] = speeds[j]
             ticks += 1
             try:
                 clock.enter(k)
-                volts = strategy.command_vector(reading, nw)
-                volts = tuple(v if -supply <= v <= supply else math.copysign(supply, v) for v in volts)
+                volts = command(reading, nw)
+                if not all(-supply <= v <= supply for v in volts):   # the drive's limit, whatever the law did
+                    volts = tuple(v if -supply <= v <= supply else math.copysign(supply, v) for v in volts)
                 if strategy.phase != phase:
                     phase = strategy.phase
                     name = str(phase)
@@ -205,11 +200,13 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 break
             if name is not None:
                 mode, name = trace.phase_code(name), None
-            if any(abs(v) >= supply * (1.0 - 1e-9) for v in volts):
-                saturated += 1
             trace.mode[k] = mode
-            for i in range(nw):
-                v_c[i][k] = 0.0 if open_circuit else volts[i]
+            for i in wheels:
+                v = volts[i]
+                v_c[i][k] = 0.0 if open_circuit else v
+                if v >= at_supply or v <= -at_supply:
+                    saturated += 1
+                    break
             if wants_balance:   # no 3D law swings up: once fallen, the body stays fallen
                 if tilt <= release and strategy.balancing:
                     if catch_k is None and fell_k is None:
@@ -217,26 +214,26 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 elif catch_k is not None:
                     fell_k, catch_k = k, None
                     outcome = "fell" if stop_early else None   # with stop_early this step still runs
-        wheel_torques = [0.0] * nw
-        for i in range(nw):
-            if open_circuit:
-                motors[i].current, cur, torque = 0.0, 0.0, 0.0
-            else:
-                cur, torque = motors[i].update(volts[i], wspd[i])
-            i_c[i][k], tq_c[i][k] = cur, torque
-            wheel_torques[i] = torque - bw[i] * wspd[i]
-        if k == next_push:   # viscous pivot friction, and a push's torque on its step
-            advance((push_torque[0] - bp * rate[0], push_torque[1] - bp * rate[1], push_torque[2] - bp * rate[2]),
-                    wheel_torques, r)
+        if open_circuit:
+            for i in wheels:
+                motors[i].current = i_c[i][k] = tq_c[i][k] = 0.0
+            net = [-b * s for b, s in zip(bw, wspd)]
+        else:
+            net = []
+            for update, v, s, c_col, t_col, b in zip(updates, volts, wspd, i_c, tq_c, bw):
+                cur, torque = update(v, s)
+                c_col[k], t_col[k] = cur, torque
+                net.append(torque - b * s)
+        if k == next_push:   # a push's torque on its step
+            advance(push_torque, net)
             next_push, push_torque = pushes.pop() if pushes else (-1, None)
         else:
-            advance((-bp * rate[0], -bp * rate[1], -bp * rate[2]), wheel_torques, r)
+            advance(None, net)
         if on_step is not None:
             on_step(k, engine)
         k += 1
     return _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, wants_balance,
                    ticks, saturated, time.perf_counter() - wall0)
-
 
 def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, wants_balance,
             ticks, saturated, wall) -> TrialResult3D:

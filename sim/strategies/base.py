@@ -141,15 +141,14 @@ class Strategy:
                                     "return a sequence with one voltage per wheel")
             v = (v,)
         try:
-            out = tuple(float(x) for x in v)
+            out = [float(x) for x in v]
         except (TypeError, ValueError):
             raise StrategyError(f"decide() returned {type(v).__name__}, not a sequence of voltages") from None
         if len(out) != n_wheels:
             raise StrategyError(f"decide() returned {len(out)} voltages for a device with {n_wheels} wheels")
-        for x in out:
-            if not math.isfinite(x):
-                raise StrategyError(f"decide() returned a non-finite voltage ({x})")
-        return out
+        if not all(-math.inf < x < math.inf for x in out):   # NaN fails the comparison too
+            raise StrategyError(f"decide() returned a non-finite voltage ({[x for x in out if not math.isfinite(x)][0]})")
+        return tuple(out)
 
 
 @dataclass(frozen=True)
