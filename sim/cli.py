@@ -49,7 +49,7 @@ def _refuse_3d(sc, command: str) -> None:
         from .core.errors import InputError
         raise InputError(f"{sc.source}: `wheelbench {command}` takes one-wheel hinge devices only in this release; "
                          "this scenario describes a 3D device (wheels:, a ball mount, parts placed in 3D, a start "
-                         "tilt or vector pushes): use `wheelbench run`")
+                         "tilt or vector pushes): use `wheelbench run`" + (" without --video" if command.startswith("run") else ""))
 
 
 _ANNOUNCED: set[str] = set()   # plug-in files this command has named on stderr (reset by main)
