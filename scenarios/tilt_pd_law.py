@@ -29,17 +29,19 @@ class TiltPD(Strategy):
 
     def __init__(self, **kw):
         super().__init__(**kw)
-        r0 = np.array(self.device.upright())
-        # plain floats from here on: a few numbers a tick cost less in Python than through numpy
-        self.axes = [tuple(float(v) for v in r0 @ np.array(w.axis)) for w in self.device.wheels]
+        if hasattr(self.device, "upright"):     # a 3D device (sim.model.device3d.Device3D)
+            r0 = np.array(self.device.upright())
+            # plain floats from here on: a few numbers a tick cost less in Python than through numpy
+            self.axes = [tuple(float(v) for v in r0 @ np.array(w.axis)) for w in self.device.wheels]
+        else:                                   # the one-wheel hinge device: its wheel on the hinge axis
+            self.axes = [(1.0, 0.0, 0.0)]
         self.gains = (float(self.params.kp), float(self.params.kd), float(self.params.kw))
 
     def decide(self, reading):
         kp, kd, kw = self.gains
         angles, rates = reading.angles_rad, reading.rates_rad_s
-        want = [kd * r for r in rates] + [0.0] * (3 - len(rates))
-        for j, a in enumerate(angles):
-            want[j] += kp * a
-        return [ax * want[0] + ay * want[1] + az * want[2] + kw * s
-                for (ax, ay, az), s in zip(self.axes, reading.wheel_speeds_rad_s)]
-
+        if len(rates) == 3:     # ball mount: tilts about x and y, rates about x, y, z
+            wx, wy, wz = kp * angles[0] + kd * rates[0], kp * angles[1] + kd * rates[1], kd * rates[2]
+        else:                   # hinge: the angle and rate about x
+            wx, wy, wz = kp * angles[0] + kd * rates[0], 0.0, 0.0
+        return [ax * wx + ay * wy + az * wz + kw * s for (ax, ay, az), s in zip(self.axes, reading.wheel_speeds_rad_s)]

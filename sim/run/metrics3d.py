@@ -66,7 +66,6 @@ def trial_metrics3d(result) -> dict:
     }
 
 
-
 def _saturated(trace, device, end: int, control_steps: int) -> int:
     """Control ticks in rows [0, end) at which some wheel's voltage reached the supply."""
     hit = np.zeros(len(range(0, end, control_steps)), dtype=bool)

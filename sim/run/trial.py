@@ -198,8 +198,6 @@ def _lost_child_result(scenario, device, trace, budget: float, lost: isolation.L
                    False, ticks, lost.wall_s)
 
 
-
-
 def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock) -> TrialResult:
     dt, n, cs = scenario.world.step, scenario.n_steps, scenario.control_steps
     outcome, message = ("strategy_failed", failure) if failure else (None, None)
@@ -251,6 +249,8 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
             t = k * dt
             meas = sense(k, t_angle, t_rate, t_wangle, t_wspeed)
             reading.t_s, reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = t, meas[0], meas[1], meas[2]
+            # the vector form too, so a law written for it reads a one-wheel hinge device as well
+            reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = (meas[0],), (meas[1],), (meas[2],)
             ticks += 1
             t_ma[k], t_mr[k], t_mw[k] = meas  # before the call: an isolated child may never come back
             try:
@@ -351,8 +351,6 @@ def _push_schedule(scenario, dt: float, n: int) -> list[tuple[int, float]]:
     return sorted(torques.items(), reverse=True)
 
 
-
-
 def _drive_limit(volts, supply_v: float) -> float:
     """A command outside +-supply_v clamped to it, V. A command that is no finite number (possible
     from a strategy that replaces `command`) ends the trial, as the base's own check does."""
@@ -371,8 +369,3 @@ def _set_brake(engine, device, on: bool) -> bool:
     wheel = device.wheel_coulomb_n_m + (device.brake_torque_n_m if on else 0.0)
     engine.set_dry_friction(pivot_n_m=device.pivot_coulomb_n_m, wheel_n_m=wheel)
     return on
-
-
-
-
-

@@ -165,9 +165,13 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
         if k % cs == 0:
             t = k * dt
             meas = [r(k, a, w, wa, ws) for r, a, w, wa, ws in suite_reads]
-            angles = tuple(m[0] for m in meas[:n_angles])
-            rates = tuple(m[1] for m in meas[:n_rates])
-            speeds = tuple(m[2] for m in meas[:nw])
+            m0 = meas[0]
+            if ball:
+                m1, m2 = meas[1], meas[2]
+                angles, rates = (m0[0], m1[0]), (m0[1], m1[1], m2[1])
+            else:
+                angles, rates = (m0[0],), (m0[1],)
+            speeds = tuple([m[2] for m in meas[:nw]])
             reading.t_s, reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = t, angles, rates, speeds
             reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = angles[0], rates[0], speeds[0]
             for j in range(n_angles):

@@ -93,7 +93,6 @@ def describe(exc: BaseException, t: float) -> str:
     return f"{name} at t = {t:.4f} s" + (f": {text}" if text else "")
 
 
-
 def with_strategy(scenario, device, rng, clock, loop):
     """Build the strategy under `clock`, run `loop(strategy, failure)` (failure: the build's message or
     None) and settle the strategy's extra metrics; returns the loop's result."""

@@ -29,7 +29,7 @@ class Reading:
     ball mount, from upright; `rates_rad_s` is (theta_d,) on a hinge and the body's angular
     velocity in the world frame (wx, wy, wz) on a ball; `wheel_speeds_rad_s` has one speed per
     wheel, relative to the body. The scalar fields mirror the first entries, so one-wheel laws
-    read what they always did. On the planar one-wheel path the vector fields are left empty.
+    read what they always did; a one-wheel hinge device fills both forms.
     One object is reused for the whole trial: copy values out if a strategy keeps them.
     """
 
@@ -126,7 +126,7 @@ class Strategy:
         try:
             v = float(v)
         except (TypeError, ValueError):
-            raise StrategyError(f"decide() returned {type(v).__name__}, not a voltage") from None
+            v = _only_voltage(v)    # a law written in the vector form: one voltage for the one wheel
         if not math.isfinite(v):
             raise StrategyError(f"decide() returned a non-finite voltage ({v})")
         return v
@@ -135,20 +135,32 @@ class Strategy:
         """The base's part of each tick on a 3D device: `decide` returns a sequence of volts, one per
         wheel (a single number is accepted for a one-wheel device). Returns a tuple of finite floats."""
         v = self.decide(reading)
-        if isinstance(v, (int, float)) or (hasattr(v, "ndim") and getattr(v, "ndim", 1) == 0):
-            if n_wheels != 1:
-                raise StrategyError(f"decide() returned one voltage for a device with {n_wheels} wheels; "
-                                    "return a sequence with one voltage per wheel")
-            v = (v,)
+        kind = type(v)
+        if kind is not list and kind is not tuple:     # the common answers skip these checks
+            if isinstance(v, (int, float)) or getattr(v, "ndim", 1) == 0:
+                if n_wheels != 1:
+                    raise StrategyError(f"decide() returned one voltage for a device with {n_wheels} wheels; "
+                                        "return a sequence with one voltage per wheel")
+                v = (v,)
         try:
-            out = [float(x) for x in v]
+            out = tuple(map(float, v))
         except (TypeError, ValueError):
             raise StrategyError(f"decide() returned {type(v).__name__}, not a sequence of voltages") from None
         if len(out) != n_wheels:
             raise StrategyError(f"decide() returned {len(out)} voltages for a device with {n_wheels} wheels")
-        if not all(-math.inf < x < math.inf for x in out):   # NaN fails the comparison too
-            raise StrategyError(f"decide() returned a non-finite voltage ({[x for x in out if not math.isfinite(x)][0]})")
-        return tuple(out)
+        for x in out:
+            if x - x != 0.0:                            # inf - inf and NaN - NaN are NaN
+                raise StrategyError(f"decide() returned a non-finite voltage ({x})")
+        return out
+
+def _only_voltage(v) -> float:
+    """The voltage of a one-element sequence of volts; a StrategyError for anything else."""
+    try:
+        if len(v) == 1:
+            return float(v[0])
+    except (TypeError, ValueError, KeyError, IndexError):
+        pass
+    raise StrategyError(f"decide() returned {type(v).__name__}, not a voltage") from None
 
 
 @dataclass(frozen=True)
