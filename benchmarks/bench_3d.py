@@ -6,7 +6,7 @@
     `sim.physics.engine3d`, stepped at 1 kHz with one state read of the ball joint and of the wheels
     and one torque command for the ball joint and per wheel each step, nothing else -> real-time factor
 (b) the full 3D trial of scenarios/cube_corner.yaml (three motors with friction and current limit,
-    sensors with noise and delay per axis, the tilt PD plug-in at 500 Hz, trace recorded), pushes
+    sensors with noise and delay per axis, the multi-input LQR at 500 Hz, trace recorded), pushes
     left out -> real-time factor, and its ratio to (a) (target >= 0.5)
 (a) and (b) run in interleaved rounds; the figure is the best of each, and each round's ratio is
 printed too. `--instructions` counts instructions per step of (a) and (b) with valgrind instead

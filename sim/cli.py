@@ -49,7 +49,8 @@ def _refuse_3d(sc, command: str) -> None:
         from .core.errors import InputError
         raise InputError(f"{sc.source}: `wheelbench {command}` takes one-wheel hinge devices only in this release; "
                          "this scenario describes a 3D device (wheels:, a ball mount, parts placed in 3D, a start "
-                         "tilt or vector pushes): use `wheelbench run`" + (" without --video" if command.startswith("run") else ""))
+                         "tilt or vector pushes): use `wheelbench run`" + (" without --video" if command.startswith("run")
+                                                                           else " or `wheelbench gains`"))
 
 
 _ANNOUNCED: set[str] = set()   # plug-in files this command has named on stderr (reset by main)
@@ -59,7 +60,8 @@ def _announce_plugins(sc) -> None:
     """One line on stderr per plug-in, the first time a scenario with it loads in this command:
     plug-in code runs with the user's rights (the README says so too)."""
     from .strategies import plugin_origin, plugin_specs
-    for spec in plugin_specs(sc.strategy):
+    estimator = sc.sensors.estimator
+    for spec in plugin_specs(sc.strategy) + ([estimator] if estimator is not None and estimator.is_plugin else []):
         origin = plugin_origin(spec)
         if origin in _ANNOUNCED:
             continue
@@ -67,7 +69,8 @@ def _announce_plugins(sc) -> None:
         target = spec.kind.partition(":")[0]
         how = (f"imports module {target!r} from wherever Python finds it ({origin})"
                if ":" in spec.kind and not target.endswith(".py") else f"runs {origin}")
-        print(f"wheelbench: note: strategy plug-in {spec.kind!r} {how}; a scenario with a plug-in is a program "
+        what = "strategy" if spec is not estimator else "estimator"
+        print(f"wheelbench: note: {what} plug-in {spec.kind!r} {how}; a scenario with a plug-in is a program "
               "and runs with your rights", file=sys.stderr)
 
 
@@ -166,7 +169,16 @@ def gains(scenario: Optional[Path] = ScenarioArg,
     writers = {"json": to_json, "c": to_c_header, "text": to_text}
     if format_ not in writers:
         raise InputError(f"--format: expected 'json', 'c' or 'text', found {format_!r}")
-    report = gains_report(_load(scenario, set_, command="gains"))
+    sc = _load(scenario, set_)
+    if not sc.is_planar:    # one to three wheels: the multi-input LQR's gain matrices
+        from .model.device3d import Device3D
+        from .studies import gains_multi
+        params = sc.strategy.params if sc.strategy.kind == "lqr" else None   # else Bryson's defaults
+        report = gains_multi.device_gains_report(Device3D.from_scenario(sc), source=sc.source, params=params)
+        writers = {"json": gains_multi.to_json, "c": gains_multi.to_c_header, "text": gains_multi.to_text}
+        typer.echo(writers[format_](report), nl=format_ == "json")
+        return
+    report = gains_report(sc)
     typer.echo(writers[format_](report), nl=format_ == "json")
 
 

@@ -7,6 +7,7 @@ paths, messages quoting them) are printed as rich Text or escaped: never read as
 
 from __future__ import annotations
 
+import math
 from pathlib import Path
 
 from .core.safety import SAFETY_LINE as SAFETY
@@ -77,6 +78,13 @@ def print_run(sc, m: dict, out: Path) -> None:
         for i, w in enumerate(m["wheels"], start=1):
             rows.insert(at + i, (f"wheel {i}", f"peak {_fmt(w['peak_speed_rad_s'], 'rad/s')} of "
                                               f"{w['speed_limit_rad_s']:.1f} rad/s, peak {_fmt(w['peak_current_a'], 'A')}"))
+    if m.get("estimator") is not None:    # only with sensors.estimator / timing: today's table otherwise
+        deg = 180.0 / math.pi
+        rows.append((f"estimator ({m['estimator']}) error", "-" if m["estimator_angle_rms_error_rad"] is None else
+                     f"{m['estimator_angle_rms_error_rad'] * deg:.3g} deg rms, {m['estimator_angle_peak_error_rad'] * deg:.3g} "
+                     f"deg peak, {m['estimator_angle_mean_error_rad'] * deg:+.3g} deg mean"))
+    if m.get("loop_overruns") is not None:
+        rows.append(("loop overruns", str(m["loop_overruns"])))
     for p in m.get("pushes", []):
         rows.append((f"push {_impulse_text(p['impulse_n_m_s'])} mN m s at {p['at_s']:.2f} s",
                      "survived" if p["survived"] else "not survived"))

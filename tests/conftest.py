@@ -101,3 +101,12 @@ def make_scenario3d(wheels: list, **sections):
     raw.pop("wheel")
     raw["wheels"] = copy.deepcopy(wheels)
     return validate_scenario(raw, where="<test scenario>")
+
+
+def timeless(value):
+    """`value` (metrics, a verdict) without wall-clock entries: they measure the machine, not the model."""
+    if isinstance(value, dict):
+        return {k: timeless(v) for k, v in value.items() if k != "real_time_factor" and "wall" not in k}
+    if isinstance(value, list):
+        return [timeless(v) for v in value]
+    return value

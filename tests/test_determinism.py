@@ -11,7 +11,7 @@ import json
 import numpy as np
 import pytest
 
-from conftest import make_scenario, scenario_dict, write_scenario
+from conftest import make_scenario, scenario_dict, timeless, write_scenario
 from sim.cli import app, main
 from sim.run.metrics import trial_metrics
 from sim.run.trial import run_trial
@@ -25,13 +25,7 @@ NOISY = dict(
 COMMANDS = {c.name or c.callback.__name__ for c in app.registered_commands}
 
 
-def _timeless(value):
-    """`value` without wall-clock entries (they measure the machine, not the model)."""
-    if isinstance(value, dict):
-        return {k: _timeless(v) for k, v in value.items() if k != "real_time_factor" and "wall" not in k}
-    if isinstance(value, list):
-        return [_timeless(v) for v in value]
-    return value
+_timeless = timeless
 
 
 def _trace_arrays(result) -> dict:

@@ -87,7 +87,7 @@ def test_one_wheel_written_as_wheels_matches_the_planar_device():
     assert_allclose(d3.wheels[0].spin_inertia_kg_m2, d2.I_w_kg_m2, rtol=1e-14)
     assert_allclose(d3.gravity_torque_coeff_n_m, d2.gravity_torque_coeff_n_m, rtol=1e-12)
     spec = d3.linear_spec()
-    assert spec["mount"] == "hinge" and len(spec["wheels"]) == 1 and spec["wheels"][0].axis == (1.0, 0.0, 0.0)
+    assert spec.mount == "hinge" and len(spec.wheels) == 1 and tuple(spec.wheels[0].axis) == (1.0, 0.0, 0.0)
 
 
 def test_frames_round_trip_and_upright():

@@ -13,8 +13,7 @@ from pathlib import Path
 
 import pytest
 
-from test_determinism import _timeless
-
+from conftest import timeless as _timeless
 from sim.model.scenario_yaml import load_scenario
 from sim.run.metrics import trial_metrics
 from sim.run.trace import write_csv

@@ -21,7 +21,8 @@ from sim.run.trial import run_trial
 from pathlib import Path
 
 LAWS = Path(__file__).parent / "plugins" / "three_wheel_laws.py"
-PD_LAW = Path(__file__).resolve().parents[1] / "scenarios" / "tilt_pd_law.py"
+PD_LAW = Path(__file__).parent / "plugins" / "tilt_pd_law.py"
+SCENARIOS = Path(__file__).resolve().parents[1] / "scenarios"
 RING = {"shape": "ring", "outer_radius": 0.05, "inner_radius": 0.01, "thickness": 0.006, "mass": 0.12}
 MOTOR = {"speed_constant": "50 rad/s/V", "torque_constant": 0.02, "resistance": 1.0, "inductance": 1e-4, "mass": 0.03}
 THREE = [{"at": [0.03, 0.0, 0.1], "axis": [1, 0.2, 0], "parts": [RING]},
@@ -194,7 +195,7 @@ def test_run_writes_per_axis_and_per_wheel_files(tmp_path):
     assert (tmp_path / "out" / "summary.png").stat().st_size > 10_000
 
 
-@pytest.mark.parametrize("command", [["check"], ["sweep", "--vary", "drive.supply=10,12"], ["gains"], ["validate"],
+@pytest.mark.parametrize("command", [["check"], ["sweep", "--vary", "drive.supply=10,12"], ["validate"],
                                      ["catch-map"]])
 def test_other_commands_refuse_a_3d_device(command, tmp_path, capsys):
     raw = scenario_dict(body=OFF_AXIS_BODY, motor=MOTOR, strategy={"kind": "coast"},
@@ -215,7 +216,7 @@ def test_3d_demos_do_what_their_comments_say(name, pushes):
     # our own demos: the comment at the top of each file states these outcomes
     from sim.model.scenario_yaml import load_scenario
     from sim.run.metrics3d import trial_metrics3d
-    sc = load_scenario(PD_LAW.parent / name)
+    sc = load_scenario(SCENARIOS / name)
     m = trial_metrics3d(run_trial(sc))
     assert m["outcome"] == "balanced" and len(m["pushes"]) == pushes
     assert all(p["survived"] for p in m["pushes"])
@@ -237,3 +238,12 @@ def test_a_vector_law_reads_a_planar_device_too():
     # measured: 0.0096 V apart at most (of 7.9 V), angles 5.6e-5 rad apart: the half-step convention
     assert_allclose(general.trace.w1_voltage[:n], planar.trace.voltage[:n], atol=0.03)
     assert_allclose(general.trace.tilt_x[:n], planar.trace.angle[:n], atol=2e-4)
+
+
+def test_gains_of_a_3d_device_name_every_wheel_and_state(tmp_path, capsys):
+    # `gains` on the corner cube: the multi-input LQR's matrices (sim.studies.gains_multi), one row per wheel
+    assert main(["gains", str(SCENARIOS / "cube_corner.yaml")]) == 0
+    report = json.loads(capsys.readouterr().out)
+    K = report["discrete"]
+    assert len(K["rows"]) == 3 and len(K["columns"]) >= 5
+    assert np.all(np.isfinite(np.array(K["matrix"] if "matrix" in K else K["values"], dtype=float)))

@@ -42,6 +42,9 @@ KINDS: dict[str, tuple[str, str]] = {
     "temperature_rise_per_watt": ("K/W", "a thermal resistance"),
     "heat_capacity": ("J/K", "a heat capacity"),
     "temperature": ("degC", "a temperature"),
+    "rate_noise_density": ("rad/s/Hz^0.5", "a rate noise density (e.g. '0.01 deg/s/Hz^0.5')"),
+    "accel_noise_density": ("m/s^2/Hz^0.5", "an acceleration noise density (e.g. '0.002 m/s^2/Hz^0.5')"),
+    "rate_random_walk": ("rad/s^1.5", "a bias random walk (e.g. '0.001 deg/s/s^0.5')"),
 }
 
 

@@ -67,7 +67,7 @@ class Device:
             pivot_coulomb_n_m=sc.body.pivot_friction.coulomb, pivot_viscous_n_m_s=sc.body.pivot_friction.viscous,
             wheel_coulomb_n_m=w.bearing_friction.coulomb, wheel_viscous_n_m_s=w.bearing_friction.viscous,
             control_rate_hz=sc.sensors.rate, delay_s=sc.sensors.delay, locked=sc.body.locked,
-            angle_counts_per_rev=sc.sensors.angle.counts_per_rev or 0,
+            angle_counts_per_rev=(sc.sensors.angle.counts_per_rev if sc.sensors.angle is not None else None) or 0,
             wheel_counts_per_rev=sc.sensors.wheel.counts_per_rev or 0,
             pwm_max=2**sc.drive.pwm.resolution_bits - 1 if sc.drive.pwm is not None else 0,
         )

@@ -79,11 +79,10 @@ class Device3D:
                    pivot_coulomb_n_m=sc.body.pivot_friction.coulomb, pivot_viscous_n_m_s=sc.body.pivot_friction.viscous,
                    control_rate_hz=sc.sensors.rate, delay_s=sc.sensors.delay, supply_v=sc.drive.supply)
 
-    def linear_spec(self) -> dict:
-        """The fields the multi-input linearisation reads (`sim.model.linear3d.LinearSpec` mirrors them)."""
-        keys = ("mount", "gravity_m_s2", "body_mass_kg", "body_com_m", "body_inertia_com_kg_m2", "wheels",
-                "pivot_coulomb_n_m", "pivot_viscous_n_m_s", "control_rate_hz", "delay_s")
-        return {k: getattr(self, k) for k in keys}
+    def linear_spec(self):
+        """The multi-input linearisation's input (`sim.model.linear3d.LinearSpec`), from this device's fields."""
+        from .linear3d import as_linear_spec
+        return as_linear_spec(self)
 
     # -- derived figures ------------------------------------------------------------------------
     @property

@@ -33,6 +33,7 @@ from pydantic import (BaseModel, BeforeValidator, ConfigDict, Field, ValidationE
 from ..core.errors import ScenarioError
 from ..core.units import Q, parse_quantity
 from ..core.validation_messages import describe_problems, describe_validation_error, step_suggestion
+from .sensing import EncoderLimits, EstimatorField, ImuSpec, Timing, check_sensing
 from ..strategies.base import StrategySpec
 
 MAX_STEPS = 5_000_000          # physics steps in one trial; more is a typo, not a plan
@@ -357,7 +358,7 @@ class WheelSpec(Wheel):
         return self.at if isinstance(self.at, tuple) else (0.0, 0.0, self.at)
 
 
-class AngleSensor(Strict):
+class AngleSensor(EncoderLimits):
     counts_per_rev: Annotated[int, Field(ge=4, le=2**31, strict=True)] | None = None
     noise: Q("angle", ge=0, le=MAX_ANGLE_NOISE) = 0.0
     bias: Q("angle", ge=-MAX_ANGLE_NOISE, le=MAX_ANGLE_NOISE) = 0.0
@@ -368,7 +369,7 @@ class RateGyro(Strict):
     bias: Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED) = 0.0
 
 
-class WheelSensor(Strict):
+class WheelSensor(EncoderLimits):
     counts_per_rev: Annotated[int, Field(ge=4, le=2**31, strict=True)] | None = None
     noise: Q("angular_speed", ge=0, le=MAX_SPEED) = 0.0
 
@@ -378,10 +379,16 @@ class Sensors(Strict):
     """Control loop rate, Hz."""
     delay: Q("time", ge=0, le=1.0) = 0.0
     """Measurement delay, s (rounded to whole physics steps)."""
-    angle: AngleSensor = AngleSensor()
+    angle: AngleSensor | None = AngleSensor()
+    """null: no angle encoder (an IMU-only device; it needs `imu` and `estimator`)."""
     rate_gyro: RateGyro | None = None
     """Absent: the body rate is estimated from successive angle readings."""
     wheel: WheelSensor = WheelSensor()
+    imu: ImuSpec | None = None
+    """A gyro and accelerometer on the body (`sim.model.sensing`); recorded in the trace."""
+    estimator: EstimatorField = None
+    """How the law's angle and rate are made from the IMU (`sim.strategies.estimators`); with one,
+    the strategy sees its output instead of the angle encoder's and rate gyro's."""
 
 
 class Start(Strict):
@@ -456,6 +463,8 @@ class Scenario(Strict):
     strategy: Annotated[StrategySpec, BeforeValidator(_strategy_from_raw)]
     trial: Trial = Trial()
     requirements: Requirements = Requirements()
+    timing: Timing | None = None
+    """Compute time, jitter and the overrun rule of the control loop (`sim.physics.timing`)."""
     tolerances: dict[str, float | str] | None = None
     """Monte Carlo tolerances: dotted key -> "10%" (relative) or a quantity (absolute); see `sim.model.tolerances`.
     None: the defaults in `sim.model.tolerances.DEFAULT_TOLERANCES`."""
@@ -535,6 +544,7 @@ class Scenario(Strict):
             raise ValueError(f"@sensors.rate: the control period (1/{self.sensors.rate:g} Hz) must be a whole "
                              f"number of physics steps ({self.world.step:g} s); "
                              + step_suggestion(self.sensors.rate, self.world.step))
+        check_sensing(self.sensors, self.world.step, self.sensors.rate, self.timing)
         for i, push in enumerate(self.trial.pushes):  # the trial applies a push on step round(at/step)
             if round(push.at / self.world.step) >= self.n_steps:
                 raise ValueError(f"@trial.pushes[{i}].at: a push at {push.at:g} s is at or after the end of the "

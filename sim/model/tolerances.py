@@ -40,6 +40,11 @@ DEFAULT_TOLERANCES: dict[str, str] = {
 }
 
 
+ANGLE_BIAS_KEYS = {False: "sensors.angle.bias", True: "sensors.imu.orientation.roll"}
+"""The key whose error is a bias of the law's angle: the encoder's bias, or, when an estimator
+makes the angle from an IMU, the IMU's misalignment about the pivot axis (a tilt offset)."""
+
+
 @dataclass(frozen=True)
 class Tolerance:
     """One toleranced key: `relative` bands are fractions of the nominal; absolute ones are SI."""
@@ -143,6 +148,8 @@ def scenario_tolerances(scenario) -> list[Tolerance]:
     table = dict(DEFAULT_TOLERANCES)
     if scenario.motor.speed_constant is None:
         table["motor.back_emf_constant"] = table.pop("motor.speed_constant")
+    if scenario.sensors.estimator is not None:   # the law's angle comes from the IMU: its mounting is the bias
+        table[ANGLE_BIAS_KEYS[True]] = table.pop(ANGLE_BIAS_KEYS[False])
     return parse_tolerances(scenario, table)
 
 

@@ -9,6 +9,13 @@ steps), then:
 - wheel speed: from encoder counts over one control period when `counts_per_rev` is set,
   else the true relative speed; plus white noise.
 Noise is Gaussian with the given standard deviation, drawn from the trial's seeded generator.
+
+Encoders read over a bus (optional `latency`, `update_rate`, `max_speed` of the angle and wheel
+sections): a channel's value is `latency` older still (whole steps), is refreshed only on
+multiples of its update period (the controller sees the last refresh between them), and beyond
+`max_speed` the sensor loses track: its position stays at the last tracked value (a speed from
+counts reads zero; a direct speed reading stays at its last tracked value) until the speed is
+back under the limit.
 """
 
 from __future__ import annotations
@@ -36,6 +43,10 @@ class SensorSuite:
         self.gyro_noise = g.noise if g else 0.0
         self.wheel_res = 2 * math.pi / w.counts_per_rev if w.counts_per_rev else 0.0
         self.wheel_noise = w.noise
+        self.limited = any(getattr(c, key, None) for c in (a, w) for key in ("max_speed", "update_rate", "latency"))
+        if self.limited:
+            self._limits = [_ChannelLimits(c, step_s) for c in (a, w)]
+            self._held = [None, None]   # last tracked (angle), (wheel angle, wheel speed)
         # The trial's noise is the first n_ticks x 3 standard normals of the trial's generator, as if
         # drawn up front, but read a chunk at a time from a private copy of the stream (a 5,000 s
         # trial would otherwise hold 60 MB of it); the trial's generator is moved past the same
@@ -72,9 +83,15 @@ class SensorSuite:
         j = k - self.delay_steps
         if j < 0:
             j = 0
+        ja = jw = j
+        limited = self.limited
+        if limited:
+            ja, jw = self._limits[0].row(j), self._limits[1].row(j)
         n = self._noise_row()
         self.tick += 1
-        theta = float(angle[j])
+        theta = float(angle[ja])
+        if limited and self._limits[0].max_speed:
+            theta = self._tracked(0, abs(rate[ja]), theta)
         if self.angle_res:
             theta = math.floor(theta / self.angle_res) * self.angle_res
         theta_m = wrap_angle(theta + self.angle_bias + self.angle_noise * n[0])
@@ -85,12 +102,38 @@ class SensorSuite:
         else:
             rate_m = wrap_angle(theta_m - self.prev_angle) / self.period_s
         self.prev_angle = theta_m
+        if limited:
+            wheel_pos, wheel_m = float(wheel_angle[jw]), float(wheel_speed[jw])
+            if self._limits[1].max_speed:
+                wheel_pos, wheel_m = self._tracked(1, abs(wheel_m), (wheel_pos, wheel_m))
+        elif not self.wheel_res:
+            wheel_m = float(wheel_speed[j])
         if self.wheel_res:
-            counts = math.floor(float(wheel_angle[j]) / self.wheel_res)
+            counts = math.floor((wheel_pos if limited else float(wheel_angle[j])) / self.wheel_res)
             if self.tick == 1:
-                self.prev_wheel_counts = math.floor(wheel_angle[j] / self.wheel_res - wheel_speed[j] * self.period_s / self.wheel_res)
+                self.prev_wheel_counts = math.floor(wheel_angle[jw] / self.wheel_res - wheel_speed[jw] * self.period_s / self.wheel_res)
             wheel_m = (counts - self.prev_wheel_counts) * self.wheel_res / self.period_s
             self.prev_wheel_counts = counts
-        else:
-            wheel_m = float(wheel_speed[j])
         return theta_m, rate_m, wheel_m + self.wheel_noise * n[2]
+
+    def _tracked(self, channel: int, speed: float, value):
+        """`value` while the channel's speed is within its max_speed, else the last tracked value."""
+        if speed > self._limits[channel].max_speed and self._held[channel] is not None:
+            return self._held[channel]
+        self._held[channel] = value
+        return value
+
+
+class _ChannelLimits:
+    """A bus-read encoder channel's extra age, refresh period (steps) and tracking limit (rad/s)."""
+
+    def __init__(self, section, step_s: float):
+        self.latency_steps = int(round(getattr(section, "latency", 0.0) / step_s))
+        rate = getattr(section, "update_rate", None)
+        self.every = int(round(1.0 / (rate * step_s))) if rate else 1
+        self.max_speed = getattr(section, "max_speed", None)
+
+    def row(self, j: int) -> int:
+        """The history row a read at row j sees (j already carries the suite's delay)."""
+        j = max(j - self.latency_steps, 0)
+        return (j // self.every) * self.every

@@ -96,7 +96,24 @@ def trial_metrics(result) -> dict:
     # they never replace the runner's keys
     extra = getattr(result.strategy, "extra_metrics", None) or {}
     metrics.update({k: v for k, v in extra.items() if k not in metrics})
-    return metrics
+    return metrics | sensing_metrics(result, angle, end)
+
+
+def sensing_metrics(result, angle: np.ndarray, end: int) -> dict:
+    """With an estimator: its angle error against the true angle, wrapped, over rows [0, end) (the
+    estimate as held between ticks): RMS, peak and mean (a steady error acts like an angle-sensor
+    bias), rad. With a `timing` section: `loop_overruns`. Empty otherwise (today's keys only)."""
+    out = {}
+    est = result.trace.extra.get("estimated_angle_rad")
+    if est is not None:
+        err = wrap_angles(est[:end] - angle[:end]) if end else np.zeros(0)
+        out |= {"estimator": result.scenario.sensors.estimator.kind,
+                "estimator_angle_rms_error_rad": float(np.sqrt(np.mean(err**2))) if err.size else None,
+                "estimator_angle_peak_error_rad": float(np.max(np.abs(err))) if err.size else None,
+                "estimator_angle_mean_error_rad": float(np.mean(err)) if err.size else None}
+    if result.loop_overruns is not None:
+        out["loop_overruns"] = result.loop_overruns
+    return out
 
 
 def settle_time(angle: np.ndarray, dt: float, caught_at_s: float | None, pushes) -> float | None:

@@ -54,10 +54,10 @@ class Trace:
     FLOAT_COLUMNS = ("t", "angle", "rate", "wheel_angle", "wheel_speed", "voltage", "current", "torque",
                      "meas_angle", "meas_rate", "meas_wheel")
 
-    def __init__(self, capacity: int, *, step_s: float, shared: bool = False):
+    def __init__(self, capacity: int, *, step_s: float, shared: bool = False, extra: tuple[str, ...] = ()):
         self.step_s = step_s
         self.n = 0
-        n_float = len(self.FLOAT_COLUMNS)
+        n_float = len(self.FLOAT_COLUMNS) + len(extra)
         n_bytes = capacity * (8 * n_float + 2)
         mapped = _file_backed(n_bytes) if (shared or capacity > IN_MEMORY_ROWS) else None
         self.file_backed = mapped is not None
@@ -72,6 +72,9 @@ class Trace:
             self.mode = mapped[8 * n_float * capacity:].view(np.int16)
         for i, name in enumerate(self.FLOAT_COLUMNS):
             setattr(self, name, floats[i])
+        # columns some scenarios add (an IMU's readings, an estimator's output), named with units;
+        # held between control ticks like the measured values, written to the CSV before `mode`
+        self.extra = {name: floats[len(self.FLOAT_COLUMNS) + i] for i, name in enumerate(extra)}
         self.phases: list[str] = []
         self._codes: dict[str, int] = {}
 
@@ -92,8 +95,9 @@ class Trace:
         return code
 
     def view(self, name: str) -> np.ndarray:
-        """A filled column (a view, no copy)."""
-        return getattr(self, name)[: self.n]
+        """A filled column (a view, no copy); `name` a float column, `mode` or an extra column."""
+        col = self.extra.get(name)
+        return (getattr(self, name) if col is None else col)[: self.n]
 
     @property
     def power(self) -> np.ndarray:
@@ -151,7 +155,7 @@ def write_csv(trace: Trace, path) -> None:
     Written a block of rows at a time: memory beyond the trace itself stays a few MB however long
     the trial (one table of Python floats for a 5,000,000-row trace would take gigabytes).
     """
-    names = list(CSV_COLUMNS[:-1])
+    names = list(CSV_COLUMNS[:-1]) + list(trace.extra)
     with open(path, "w", encoding="utf-8", newline="") as fh:
         fh.write(",".join(names + ["mode"]) + "\n")
         # 9 significant digits (a float32-level record of float64 state)
@@ -178,6 +182,10 @@ def csv_field(text: str) -> str:
 def _block_columns(trace: Trace, start: int, stop: int) -> dict[str, np.ndarray]:
     """The CSV's numeric columns for rows start..stop-1 (same values as `Trace.columns`)."""
     s = slice(start, stop)
+    return _base_columns(trace, s) | {name: col[s] for name, col in trace.extra.items()}
+
+
+def _base_columns(trace: Trace, s: slice) -> dict[str, np.ndarray]:
     return {
         "t_s": trace.t[s],
         "angle_rad": wrap_angles(trace.angle[s].copy()),

@@ -23,7 +23,8 @@ from ..core.errors import StrategyError
 from ..model.device import Device
 from ..physics.engine import EngineModel
 from ..physics.motor import MotorDrive
-from ..physics.sensors import SensorSuite
+from ..physics.imu_sensing import TIMING_STREAM, make_sensors, sensing_columns, stream
+from ..physics.timing import TickSchedule
 from ..strategies import plugins_in
 from ..strategies.base import Reading
 from .causes import find_cause
@@ -79,8 +80,8 @@ class _PublishedTrace(Trace):
     """A shared trace whose phase names also go to the heartbeat as they appear (isolated trials):
     the parent cannot ask a child it had to kill for them."""
 
-    def __init__(self, capacity: int, *, step_s: float, beat: isolation.Heartbeat):
-        super().__init__(capacity, step_s=step_s, shared=True)
+    def __init__(self, capacity: int, *, step_s: float, beat: isolation.Heartbeat, extra: tuple[str, ...] = ()):
+        super().__init__(capacity, step_s=step_s, shared=True, extra=extra)
         self.beat = beat
 
     def phase_code(self, phase: str) -> int:
@@ -121,9 +122,11 @@ def run_trial(scenario, *, seed: int | None = None, stop_early: bool | None = No
     stop_early = scenario.trial.stop_early if stop_early is None else stop_early
     budget = STRATEGY_BUDGET_S if strategy_budget_s is None else strategy_budget_s
     if isolate is None:
-        isolate = visual is None and isolation.AVAILABLE and bool(plugins_in(scenario.strategy))
+        estimator = scenario.sensors.estimator
+        isolate = visual is None and isolation.AVAILABLE and (bool(plugins_in(scenario.strategy))
+                                                              or (estimator is not None and estimator.is_plugin))
     if not isolate:
-        trace = Trace(scenario.n_steps, step_s=scenario.world.step)
+        trace = Trace(scenario.n_steps, step_s=scenario.world.step, extra=sensing_columns(scenario))
         return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
                          visual=visual, on_step=on_step)
     if visual is not None or not isolation.AVAILABLE:
@@ -141,9 +144,12 @@ def _simulate(scenario, device, trace, clock, *, seed, stop_early, visual, on_st
         engine.reset(angle_rad=start.angle, rate_rad_s=start.rate, wheel_speed_rad_s=start.wheel_speed)
         if n > 0:  # where the body starts, recorded even if the strategy cannot be built
             trace.angle[0], trace.rate[0], trace.wheel_angle[0], trace.wheel_speed[0] = engine.read()
-        sensors = SensorSuite(scenario.sensors, step_s=dt, n_ticks=n // scenario.control_steps + 1, rng=rng)
+        sensors = make_sensors(scenario, step_s=dt, n_ticks=n // scenario.control_steps + 1, rng=rng, seed=seed,
+                               trace=trace)
+        schedule = None if scenario.timing is None else TickSchedule(
+            scenario.timing, control_steps=scenario.control_steps, step_s=dt, rng=stream(seed, TIMING_STREAM), end_step=n)
         return with_strategy(scenario, device, rng, clock, lambda strategy, failure: _loop(
-            scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock))
+            scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock, schedule))
     finally:
         engine.close()
 
@@ -158,9 +164,10 @@ def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step)
     EngineModel(device, step_s=scenario.world.step, start_angle_rad=scenario.trial.start.angle).close()
     beat = isolation.Heartbeat()
     try:
-        trace = _PublishedTrace(scenario.n_steps, step_s=scenario.world.step, beat=beat)
+        trace = _PublishedTrace(scenario.n_steps, step_s=scenario.world.step, beat=beat,
+                                extra=sensing_columns(scenario))
     except OSError:     # no room for a shared trace, in the temporary folder or in memory: run here
-        trace = Trace(scenario.n_steps, step_s=scenario.world.step)
+        trace = Trace(scenario.n_steps, step_s=scenario.world.step, extra=sensing_columns(scenario))
         return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
                          visual=None, on_step=on_step)
     clock = _WatchedClock(budget, beat)
@@ -198,7 +205,8 @@ def _lost_child_result(scenario, device, trace, budget: float, lost: isolation.L
                    False, ticks, lost.wall_s)
 
 
-def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock) -> TrialResult:
+def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock,
+          schedule=None) -> TrialResult:
     dt, n, cs = scenario.world.step, scenario.n_steps, scenario.control_steps
     outcome, message = ("strategy_failed", failure) if failure else (None, None)
     reading = Reading()
@@ -225,6 +233,12 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
     t_ma, t_mr, t_mw = (memoryview(c) for c in (trace.meas_angle, trace.meas_rate, trace.meas_wheel))
     read, advance = engine.io()
     command = strategy.command if strategy is not None else None
+    if command is not None and hasattr(sensors, "wrap"):
+        command = sensors.wrap(command)     # an estimator runs first, in the strategy's time window
+    # ticks: every cs steps from 0, each command applied on its tick's step; or, with `timing`,
+    # where `schedule` (sim.physics.timing) places them, a command reaching the drive at change_k
+    timed = schedule is not None
+    tick_k, change_k, pending, tick_rows = (schedule.first(), -1, 0.0, []) if timed else (0, -1, 0.0, None)
     sense, enter, leave, update = sensors.read, clock.enter, clock.leave, motor.update
     # Angles at the instant of their rates. The engine's semi-implicit Euler step moves each angle
     # with the rate at the step's end (w[k+1] = w[k] + a dt, x[k+1] = x[k] + w[k+1] dt), so its
@@ -245,7 +259,9 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
                 and -ABSURD_ANGLE_RAD < th < ABSURD_ANGLE_RAD):
             outcome, message = "diverged", f"the state became non-finite or absurd at t = {k * dt:.4f} s"
             break
-        if k % cs == 0:
+        if k == change_k:
+            volts, change_k = pending, -1
+        if k == tick_k:
             t = k * dt
             meas = sense(k, t_angle, t_rate, t_wangle, t_wspeed)
             reading.t_s, reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = t, meas[0], meas[1], meas[2]
@@ -255,6 +271,7 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
             t_ma[k], t_mr[k], t_mw[k] = meas  # before the call: an isolated child may never come back
             try:
                 enter(k)
+                held = volts
                 volts = command(reading)
                 if not -supply <= volts <= supply:  # the drive's limit, whatever the strategy did
                     volts = _drive_limit(volts, supply)
@@ -276,6 +293,13 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
                 break
             if name is not None:    # the runner's bookkeeping, not charged to the strategy's budget
                 mode, name = trace.phase_code(name), None
+            if timed:
+                tick_rows.append(k)
+                apply_k, tick_k = schedule.after(k)
+                if apply_k != k:     # computing: the drive keeps the command in force until apply_k
+                    pending, volts, change_k = volts, held, apply_k
+            else:
+                tick_k += cs
             # held until the next tick: written once here, copied down the tick's rows at the end
             t_volt[k], t_mode[k] = (0.0 if open_circuit else volts), mode
             if wants_balance:
@@ -304,20 +328,22 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
             next_push, push_torque = pushes.pop() if pushes else (-1, 0.0)
         advance(pivot_torque, torque - bw * phd)
         t_cur[k], t_torq[k] = cur, torque
+        if timed:
+            t_volt[k] = 0.0 if open_circuit else volts
         if on_step is not None:
             on_step(k, engine)
         k += 1
     wall = time.perf_counter() - wall0
     return _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, fall_final,
-                   wants_balance, ticks, wall)
+                   wants_balance, ticks, wall, tick_rows=tick_rows, overruns=schedule.overruns if timed else None)
 
 
 def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, fall_final,
-            wants_balance, ticks, wall) -> TrialResult:
+            wants_balance, ticks, wall, *, tick_rows=None, overruns=None) -> TrialResult:
     """Close the trace and judge the outcome. `k` is the step the loop stopped at."""
     dt, n = scenario.world.step, scenario.n_steps
     ended = close_trace(trace, outcome=outcome, k=k, n=n, dt=dt, fell_k=fell_k)
-    _hold_tick_values(trace, scenario.control_steps)
+    _hold_tick_values(trace, scenario.control_steps, tick_rows)
     if outcome in ("diverged", "strategy_failed") and k < n:
         trace.voltage[k] = 0.0  # nothing was applied after the failure
     if outcome is None:
@@ -328,17 +354,25 @@ def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fel
         caught_at_s=catch_k * dt if (catch_k and outcome == "balanced") else None,
         fell_at_s=fell_k * dt if fell_k is not None else None, ended_at_s=ended,
         control_ticks=ticks, saturated_ticks=saturated_ticks(trace, scenario.control_steps, scenario.drive.supply),
-        wall_s=wall, strategy=strategy,
+        wall_s=wall, strategy=strategy, loop_overruns=overruns,
     )
     result.cause, result.cause_detail = find_cause(result)
     return result
 
 
-def _hold_tick_values(trace: Trace, cs: int) -> None:
-    """Copy each control tick's held values (voltage, mode, measurements) down to the rows until
-    the next tick: the loop writes them on tick rows only."""
-    rows = (np.arange(trace.n) // cs) * cs
-    for col in (trace.voltage, trace.mode, trace.meas_angle, trace.meas_rate, trace.meas_wheel):
+def _hold_tick_values(trace: Trace, cs: int, tick_rows: list[int] | None = None) -> None:
+    """Copy each control tick's held values (voltage, mode, measurements, extra columns) down to
+    the rows until the next tick: the loop writes them on tick rows only. With `tick_rows` (a
+    timed loop: ticks where the schedule put them) the voltage is left as written, every row."""
+    cols = [trace.mode, trace.meas_angle, trace.meas_rate, trace.meas_wheel, *trace.extra.values()]
+    if tick_rows is None:
+        rows = (np.arange(trace.n) // cs) * cs
+        cols.insert(0, trace.voltage)
+    else:
+        ticks = np.asarray(tick_rows + [0], dtype=np.int64)[:max(len(tick_rows), 1)]
+        rows = ticks[np.maximum(np.searchsorted(ticks, np.arange(trace.n), side="right") - 1, 0)]
+        rows = np.where(np.arange(trace.n) < ticks[0], 0, rows)
+    for col in cols:
         col[: trace.n] = col[rows]
 
 

@@ -119,12 +119,7 @@ def resolve_spec(raw: Any, *, base_dir: Path, anywhere: bool = False) -> Strateg
     `anywhere` (a scenario given in memory by Python code) or ALLOW_OUTSIDE_ENV is "1"."""
     if isinstance(raw, StrategySpec):
         return raw
-    if not isinstance(raw, dict):
-        raise ValueError(f"expected a mapping with 'kind' or 'plugin', found {type(raw).__name__}")
-    raw = dict(raw)
-    kind, plugin = raw.pop("kind", None), raw.pop("plugin", None)
-    if (kind is None) == (plugin is None):
-        raise ValueError("@kind: give exactly one of 'kind' (a built-in) and 'plugin' (file.py:Class or module:Class)")
+    raw, kind, plugin = kind_or_plugin(raw, "a built-in")
     if kind is not None:
         cls, name = _class_for_kind(kind), str(kind)
     else:
@@ -140,6 +135,18 @@ def resolve_spec(raw: Any, *, base_dir: Path, anywhere: bool = False) -> Strateg
         raise ValueError(f"@{'plugin' if plugin is not None else 'kind'}: validating the parameters of "
                          f"{name!r} failed ({describe_exception(exc)})") from None
     return StrategySpec(kind=name, cls=cls, params=params)
+
+
+def kind_or_plugin(raw: Any, kinds: str) -> tuple[dict, Any, Any]:
+    """(the mapping's other keys, kind, plugin) of an extension point's mapping that names exactly
+    one of `kind` (`kinds` says which) and `plugin`; ValueError("@kind: ...") otherwise."""
+    if not isinstance(raw, dict):
+        raise ValueError(f"expected a mapping with 'kind' or 'plugin', found {type(raw).__name__}")
+    raw = dict(raw)
+    kind, plugin = raw.pop("kind", None), raw.pop("plugin", None)
+    if (kind is None) == (plugin is None):
+        raise ValueError(f"@kind: give exactly one of 'kind' ({kinds}) and 'plugin' (file.py:Class or module:Class)")
+    return raw, kind, plugin
 
 
 def _class_for_kind(kind: Any) -> type[Strategy]:
@@ -162,7 +169,9 @@ def _load_entry_point(ep):
         raise ValueError(f"@kind: loading entry point {ep.name!r} failed ({describe_exception(exc)})") from None
 
 
-def _class_for_plugin(plugin: Any, base_dir: Path, anywhere: bool) -> type[Strategy]:
+def _class_for_plugin(plugin: Any, base_dir: Path, anywhere: bool, base: type = Strategy) -> type:
+    """The class a "file.py:Class" or "module:Class" plug-in names, checked to subclass `base`
+    (the strategy contract, or another extension point's base such as the estimators')."""
     if not isinstance(plugin, str) or plugin.count(":") != 1:
         raise ValueError(f"@plugin: expected 'path/to/file.py:ClassName' or 'package.module:ClassName', found {plugin!r}")
     target, _, cls_name = plugin.partition(":")
@@ -179,7 +188,7 @@ def _class_for_plugin(plugin: Any, base_dir: Path, anywhere: bool) -> type[Strat
             raise ValueError(f"{failed} ({describe_exception(exc)})") from None
     try:
         cls = getattr(module, cls_name, None)   # a module-level __getattr__ is plug-in code too
-        cls = None if cls is None else _checked(cls, plugin)
+        cls = None if cls is None else _checked(cls, plugin, base)
     except ValueError:
         raise
     except BaseException as exc:  # noqa: B036
@@ -269,7 +278,7 @@ def _within_budget(load, what: str):
     return result
 
 
-def _checked(cls: Any, where: str) -> type[Strategy]:
-    if not (isinstance(cls, type) and issubclass(cls, Strategy)):
-        raise ValueError(f"@plugin: {where} is not a subclass of sim.strategies.Strategy")
+def _checked(cls: Any, where: str, base: type = Strategy) -> type:
+    if not (isinstance(cls, type) and issubclass(cls, base)):
+        raise ValueError(f"@plugin: {where} is not a subclass of {base.__module__.replace('.base', '')}.{base.__name__}")
     return cls

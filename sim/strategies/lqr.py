@@ -1,4 +1,5 @@
-"""LQR balance on [angle, body rate, wheel speed], designed for the loop rate and sensor delay."""
+"""LQR balance designed for the loop rate and sensor delay: one wheel on [angle, body rate, wheel
+speed] (`LqrBalance`), or one to three wheels on any axes, hinge or ball mount (`MultiWheelLqr`)."""
 
 from __future__ import annotations
 
@@ -7,8 +8,9 @@ from typing import Annotated
 import numpy as np
 from pydantic import Field
 
+from ..core.errors import StrategyError
 from .base import Reading, Strategy, StrategyParams
-from .lqr_design import DelayPredictor, design_lqr
+from .lqr_design import DelayPredictor, design_lqr, design_lqr_spec, state_kind
 
 
 class LqrBalance(Strategy):
@@ -18,15 +20,23 @@ class LqrBalance(Strategy):
     the delayed reading and the commands sent since (equivalent to LQR on the delay-augmented
     state). Parameters: `weights` (3 diagonal state weights, SI: 1/rad^2, s^2/rad^2, s^2/rad^2)
     and `effort` (input weight, 1/V^2); defaults by Bryson's rule, see `sim.strategies.lqr_design`.
+
+    A device with `linear_spec()` (several wheels, a tilted wheel axis or a ball mount) gets
+    `MultiWheelLqr` instead: the same design for one voltage per wheel,
+    the three weights then applying to every angle, every body rate and every wheel speed.
     """
 
     kind = "lqr"
-    planar_only = True   # the one-wheel design; 3D devices are refused at load until the multi-input design lands
     goal = "balance"
 
     class Params(StrategyParams):
         weights: Annotated[list[Annotated[float, Field(ge=0, allow_inf_nan=False)]], Field(min_length=3, max_length=3)] | None = None
         effort: Annotated[float, Field(gt=0, allow_inf_nan=False)] | None = None
+
+    def __new__(cls, **kw):
+        if cls is LqrBalance and hasattr(kw.get("device"), "linear_spec"):
+            cls = MultiWheelLqr
+        return super().__new__(cls)
 
     def __init__(self, **kw) -> None:
         super().__init__(**kw)
@@ -66,3 +76,66 @@ class LqrBalance(Strategy):
             del held[0]
             held.append(cap if v > cap else (-cap if v < -cap else v))
         return v
+
+
+class MultiWheelLqr(LqrBalance):
+    """volts = -K x, one voltage per wheel, K from the discrete multi-input LQR design at the loop rate.
+
+    State x (`sim.model.linear3d`): hinge [angle, body_rate, wheel speeds...]; ball [tilt_x,
+    tilt_y, rate_x, rate_y, (rate_z when a wheel acts about the vertical), wheel speeds...], read
+    from the reading's vector form (`angles_rad`, `rates_rad_s`, `wheel_speeds_rad_s`). With a
+    sensor delay the gains act on the present state predicted from the delayed reading and the
+    commands applied since (each clamped to its wheel's supply, as the drive does), folded into
+    gains on the reading and on the held commands once at construction.
+    `decide` returns a list of volts in wheel order.
+    """
+
+    def __init__(self, *, device, params, rng) -> None:
+        Strategy.__init__(self, device=device, params=params, rng=rng)
+        self.spec = device.linear_spec()
+        if not hasattr(self.spec, "linear_model"):
+            raise StrategyError(f"the device's linear_spec() gave {type(self.spec).__name__}, not a LinearSpec; "
+                                "return sim.model.linear3d.as_linear_spec(...) of its fields")
+        self.design = design_lqr_spec(self.spec, weights=params.weights, effort=params.effort)
+        self.K = self.design.K_discrete
+        self.predictor = DelayPredictor(self.design, delay_s=self.spec.delay_s)
+        G_x, G_u = self.predictor.folded_gains(self.K)
+        kinds = [state_kind(name) for name in self.design.state_names]
+        self._n_angles, self._n_rates, self._n_wheels = kinds.count(0), kinds.count(1), kinds.count(2)
+        self.supplies_v = np.array([w.supply_v for w in self.spec.wheels], dtype=float)
+        self._neg_supplies_v = -self.supplies_v
+        # one matrix on one buffer [measured state, held commands oldest first], so that a tick is a
+        # few numpy calls whatever the delay (the same law as K times the predicted state)
+        self._G = np.hstack([G_x, *G_u])
+        self._z = np.zeros(self._G.shape[1])
+        self._n_x, self._n_u = G_x.shape[1], len(self.supplies_v)
+        self.phase = "balance"
+
+    def held_commands(self) -> np.ndarray:
+        """The commands the delay predictor holds, oldest first, as applied (clamped), V (rows: ticks)."""
+        return self._z[self._n_x:].reshape(-1, self._n_u).copy()
+
+    def state_from(self, reading: Reading) -> np.ndarray:
+        """The measured state vector in the design's order (a view of a buffer reused every tick)."""
+        na, nr, nw = self._n_angles, self._n_rates, self._n_wheels
+        angles, rates, wheels = reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s
+        if len(angles) < na or len(rates) < nr or len(wheels) != nw:
+            raise StrategyError(f"the reading has {len(angles)} angles, {len(rates)} rates and {len(wheels)} wheel "
+                                f"speeds; this device's law needs {na}, {nr} and {nw}")
+        x = self._z[:self._n_x]
+        x[:] = (*angles[:na], *rates[:nr], *wheels)       # one assignment: cheaper than three
+        return x
+
+    def decide(self, reading: Reading) -> list[float]:
+        self.state_from(reading)
+        z = self._z
+        v = self._G.dot(z)
+        np.negative(v, out=v)
+        if z.shape[0] > self._n_x:            # a delay: shift the held commands, append this one clamped
+            m = self._n_u
+            held = z[self._n_x:]
+            held[:-m] = held[m:].copy()
+            newest = held[-m:]
+            np.minimum(v, self.supplies_v, out=newest)
+            np.maximum(newest, self._neg_supplies_v, out=newest)
+        return v.tolist()

@@ -10,6 +10,7 @@ from pathlib import Path
 from ..core.outputs import write_json, write_text
 from ..core.safety import SAFETY_NOTES
 from ..media.plots import INK, ACCENT, LIMIT, MUTED, save_figure, summary_figure
+from .sensing_checks import sensing_markdown
 from .verdicts import CheckOutcome
 
 PASS_COLOUR, FAIL_COLOUR = "#2f7d4a", LIMIT
@@ -126,6 +127,7 @@ def report_markdown(v: dict, images: list[str]) -> str:
               f"{v['max_push_survived_n_m_s'] * 1e3:.3g} mN m s in the worse ({v['max_push_direction']}) direction; "
               + "; ".join(f"{d}: {p['max_survived_n_m_s'] * 1e3:.3g} mN m s" for d, p in v["pushes"].items())
               + ". Bisection to 5%, from upright at rest, push after 0.5 s, 3 s to recover.", ""]
+    lines += sensing_markdown(v.get("sensing") or {})
     lines += run_causes_markdown(v)
     lines += ["## Plots", ""] + [f"![{Path(img).stem}]({img})" for img in images] + [""]
     lines += ["## Safety", ""] + [f"- {s}" for s in SAFETY_NOTES] + [""]

@@ -135,10 +135,15 @@ def swing_up_scenario(scenario):
                       start={"angle": math.pi, "rate": 0.0, "wheel_speed": 0.0}, pushes=[])
 
 
+def push_scenario(scenario, impulse_n_m_s: float):
+    """The push test's trial: upright at rest, one push of this angular impulse (N m s) after PUSH_AT_S."""
+    return with_trial(scenario, duration=PUSH_AT_S + PUSH_RECOVER_S, pushes=[Push(at=PUSH_AT_S, impulse=impulse_n_m_s)],
+                      start={"angle": 0.0, "rate": 0.0, "wheel_speed": 0.0})
+
+
 def push_survived(scenario, impulse_n_m_s: float, *, seed: int) -> bool:
     """Does the design, held upright at rest, recover from one push of this angular impulse (N m s)?"""
-    sc = with_trial(scenario, duration=PUSH_AT_S + PUSH_RECOVER_S, pushes=[Push(at=PUSH_AT_S, impulse=impulse_n_m_s)],
-                    start={"angle": 0.0, "rate": 0.0, "wheel_speed": 0.0})
+    sc = push_scenario(scenario, impulse_n_m_s)
     return run_until_clear(sc, seed=seed, not_before_s=PUSH_AT_S + sc.world.step)["caught"]
 
 
@@ -185,12 +190,12 @@ def bias_ends(scenario) -> list[float]:
     The band is the scenario's `tolerances` entry for `sensors.angle.bias`, or the default band of
     `sim.model.tolerances` when there is none (a relative band is taken of the nominal bias).
     """
-    from ..model.tolerances import DEFAULT_TOLERANCES, parse_tolerances, scenario_tolerances
-    key = "sensors.angle.bias"
+    from ..model.tolerances import ANGLE_BIAS_KEYS, DEFAULT_TOLERANCES, parse_tolerances, scenario_tolerances
+    key = ANGLE_BIAS_KEYS[scenario.sensors.estimator is not None]
     tol = next((t for t in scenario_tolerances(scenario) if t.key == key), None)
     if tol is None:
-        tol = parse_tolerances(scenario, {key: DEFAULT_TOLERANCES[key]})[0]
-    own = scenario.sensors.angle.bias
+        tol = parse_tolerances(scenario, {key: DEFAULT_TOLERANCES[ANGLE_BIAS_KEYS[False]]})[0]
+    own = _angle_bias(scenario)
     band = tol.band * abs(own) if tol.relative else tol.band
     return sorted({own - band, own + band})
 
@@ -204,9 +209,8 @@ def runaway_hold(scenario, *, bias_rad: float, seed: int) -> dict:
     """
     from .runaway import fit_drift, predict_bias_response, runaway_time_s, settling
     req = scenario.requirements
-    angle = scenario.sensors.angle.model_copy(update={"bias": bias_rad})
     sc = with_trial(scenario, duration=req.hold_time, start={"angle": 0.0, "rate": 0.0, "wheel_speed": 0.0}, pushes=[])
-    sc = sc.model_copy(update={"sensors": sc.sensors.model_copy(update={"angle": angle})})
+    sc = sc.model_copy(update={"sensors": _with_angle_bias(sc.sensors, bias_rad)})
     device = Device.from_scenario(sc)
     result = run_trial(sc, seed=seed, stop_early=True)
     wheel = result.trace.view("wheel_speed").copy()
@@ -226,6 +230,21 @@ def runaway_hold(scenario, *, bias_rad: float, seed: int) -> dict:
         k = 2 * wheel.size // 3
         out["drift"] = fit_drift(t[:k], wheel[:k], fraction=0.5)
     return out
+
+
+def _angle_bias(scenario) -> float:
+    """The bias of the law's angle the scenario states, rad: the encoder's, or with an estimator
+    the IMU's misalignment about the pivot axis (`sim.model.tolerances.ANGLE_BIAS_KEYS`)."""
+    s = scenario.sensors
+    return s.imu.orientation.roll if s.estimator is not None else s.angle.bias
+
+
+def _with_angle_bias(sensors, bias_rad: float):
+    """`sensors` with the law's angle bias set (see `_angle_bias`)."""
+    if sensors.estimator is None:
+        return sensors.model_copy(update={"angle": sensors.angle.model_copy(update={"bias": bias_rad})})
+    orientation = sensors.imu.orientation.model_copy(update={"roll": bias_rad})
+    return sensors.model_copy(update={"imu": sensors.imu.model_copy(update={"orientation": orientation})})
 
 
 def runaway_criterion(scenario, device, holds: list[dict]) -> dict:
@@ -331,10 +350,13 @@ def run_check(raw: dict, where: str, *, trials: int = DEFAULT_TRIALS, workers: i
         mc = monte_carlo(raw, where, sc, trials=trials, workers=workers, cluster=cluster, on_done=on_done)
     stage(f"{sc.requirements.hold_time:g} s holds for wheel drift")
     holds = [runaway_hold(sc, bias_rad=b, seed=sc.trial.seed) for b in bias_ends(sc)]
+    from .sensing_checks import sensing_checks
+    sensing = sensing_checks(sc, runs, pushes, push_scenario=lambda impulse: push_scenario(sc, impulse))
     hold_tr = runs["hold"].trace
     verdict = build_verdict(sc, device, metrics, pushes, mc,
                             hold_signals=(hold_tr.view("voltage").copy(), hold_tr.view("current").copy()),
-                            runs_current={name: r.trace.view("current") for name, r in runs.items()}, holds=holds)
+                            runs_current={name: r.trace.view("current") for name, r in runs.items()}, holds=holds,
+                            sensing=sensing)
     return CheckOutcome(verdict=verdict, runs=runs, pushes=pushes, mc_rows=mc["rows"] if mc else [])
 
 
@@ -359,13 +381,15 @@ def _at_most(name, value, limit, note=""):
 
 
 def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_signals, runs_current,
-                  holds: list[dict] | None = None) -> dict:
+                  holds: list[dict] | None = None, sensing: tuple[list, dict] | None = None) -> dict:
     """Criteria and the verdict dictionary written to verdict.json.
 
     `hold_signals` = (voltage V, current A) arrays of the hold trial, for the headroom criteria;
     `runs_current` = {run name: current array A}, for the transient winding temperatures;
-    `holds` = `runaway_hold` results, for `wheel_runaway_time_s` (None: that criterion is left out).
+    `holds` = `runaway_hold` results, for `wheel_runaway_time_s` (None: that criterion is left out);
+    `sensing` = (criteria, summary) of `sim.studies.sensing_checks` (None or empty: nothing added).
     """
+    sensing_crit, sensing_summary = sensing or ([], {})
     worse = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
     thermal = winding_check(sc.motor, trial_rms_current_a(runs_current["nominal"], sc.world.step,
                                                           metrics["nominal"]["fell_at_s"],
@@ -376,7 +400,11 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
     burst = wheel_burst_check(sc, device)
     crit = (_run_criteria(sc, metrics, pushes[worse]["max_survived_n_m_s"], worse)
             + ([runaway_criterion(sc, device, holds)] if holds else [])
-            + _static_criteria(sc, device, hold_signals, thermal, burst, mc))
+            + _static_criteria(sc, device, hold_signals, thermal, burst, mc) + sensing_crit)
+    steady = sensing_summary.get("estimator_steady_error_rad")
+    for c in crit:
+        if c["name"] == "wheel_runaway_time_s" and steady is not None:
+            c["note"] += f"; the estimator's steady error in the upright hold is {math.degrees(steady):+.2f} deg (an angle bias)"
     return {
         "passed": all(c["passed"] for c in crit),
         "scenario": sc.source, "name": sc.name, "strategy": sc.strategy.kind,
@@ -393,6 +421,7 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
                                           "wheel_speed_margin", "peak_current_a", "rms_current_a")}
                  for name, m in metrics.items()},
         "runaway_holds": runaway_summary(holds or []),
+        **({"sensing": sensing_summary} if sensing_summary else {}),
         "requirements": sc.requirements.model_dump(),
         "safety": list(SAFETY_NOTES),
     }

@@ -36,3 +36,21 @@ class RaisesLater(Strategy):
 
 class NotAStrategy:
     """Not a Strategy subclass: loading it must be refused."""
+
+
+class CountingVolts(Strategy):
+    """Bench law: the n-th call returns n millivolts and notes its time, so a trace shows which
+    tick's command is in force on every row (for the loop-timing tests)."""
+
+    goal = None
+
+    class Params(StrategyParams):
+        pass
+
+    def __init__(self, **kw):
+        super().__init__(**kw)
+        self.times_s = []
+
+    def decide(self, reading: Reading) -> float:
+        self.times_s.append(reading.t_s)
+        return 1e-3 * len(self.times_s)

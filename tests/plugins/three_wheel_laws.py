@@ -1,4 +1,4 @@
-"""A misbehaving 3D law for the runner's checks (the demos' PD law is scenarios/tilt_pd_law.py)."""
+"""A misbehaving 3D law for the runner's checks (the tests' PD law is tilt_pd_law.py)."""
 
 from __future__ import annotations
 

@@ -1,8 +1,6 @@
-"""A plain tilt PD for the 3D demos (the vector form of the strategy contract): a stand-in until
-the multi-input LQR for several wheels lands, when the demos switch to `strategy: {kind: lqr}`.
-
-Not a design method: its gains were picked by trying a small grid on each demo (kept in the demo
-files); it ignores the coupling between axes and the wheels' limits that an LQR design weighs."""
+"""A plain tilt PD in the vector form of the strategy contract, for the 3D runner's tests (the
+demos use the multi-input `lqr`). Not a design method: its gains were picked by trying a small
+grid; it ignores the coupling between axes and the wheels' limits that an LQR design weighs."""
 
 from __future__ import annotations
 
