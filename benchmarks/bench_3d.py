@@ -110,14 +110,16 @@ def main() -> None:
     ap.add_argument("--repeat", type=int, default=5, help="interleaved rounds")
     ap.add_argument("--instructions", action="store_true", help="count instructions per step (valgrind)")
     args = ap.parse_args()
-    if args.instructions:
-        instructions()
-        return
-    sc = cube(args.seconds)
+    instructions() if args.instructions else wall_time_rounds(args.seconds, args.repeat)
+
+
+def wall_time_rounds(seconds: float, repeat: int) -> None:
+    """(a) and (b) in interleaved rounds; each round's ratio, then the best of each."""
+    sc = cube(seconds)
     trial_rtf(cube(0.2))        # imports and first-use costs out of the rounds
     bare, full = [], []
-    for i in range(args.repeat):
-        bare.append(bare_rtf(sc, args.seconds))
+    for i in range(repeat):
+        bare.append(bare_rtf(sc, seconds))
         full.append(trial_rtf(sc))
         print(f"round {i + 1}: (a) bare {bare[-1]:.1f}x  (b) trial {full[-1]:.1f}x  (b)/(a) {full[-1] / bare[-1]:.2f}",
               flush=True)

@@ -15,33 +15,8 @@ from dataclasses import dataclass, fields
 import numpy as np
 
 from ..core.frames import smallest_rotation_to_z
+from .linear3d import WheelUnit  # one wheel with its motor, drive and bearing (shared with the linearisation)
 from .massprops3d import body_mass_properties, wheel_axis, wheel_centre, wheel_inertias, wheel_tensor
-
-
-@dataclass(frozen=True)
-class WheelUnit:
-    """One wheel with its motor, drive and bearing (SI). `at_m`: centre in the body frame;
-    `axis`: unit spin axis in the body frame; positive speed and torque by the right-hand rule about it."""
-
-    at_m: tuple[float, float, float]
-    axis: tuple[float, float, float]
-    mass_kg: float
-    spin_inertia_kg_m2: float
-    transverse_inertia_kg_m2: float
-    k_e_v_s_rad: float
-    k_t_n_m_a: float
-    resistance_ohm: float
-    inductance_h: float
-    current_limit_a: float            # inf when the motor sets none
-    supply_v: float
-    brake_torque_n_m: float | None
-    coulomb_n_m: float
-    viscous_n_m_s: float
-
-    @property
-    def no_load_speed_rad_s(self) -> float:
-        """Wheel speed where back-EMF equals the supply: V / k_e, rad/s."""
-        return self.supply_v / self.k_e_v_s_rad
 
 
 @dataclass(frozen=True)
