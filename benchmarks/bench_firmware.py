@@ -9,7 +9,9 @@ Two real-time factors (simulated s per wall s) for each:
 - end to end: `run_trial` as a caller sees it (for the firmware: the fork of the isolation child,
   loading a fresh copy of the build, the trial, the result sent back);
 - loop: the trial loop alone (`TrialResult.wall_s`).
-Printed: each round's figures and ratios (firmware / lqr; target >= 0.9), and the best of the rounds.
+Printed: each round's figures and ratios (firmware / lqr; target >= 0.9), the best of the rounds,
+and the median of the rounds' own ratios (each round's two trials ran next to each other, so its
+ratio saw the same load; the best of each column may come from different rounds).
 A third trial, the Python `lqr` forced into the isolation child, splits the firmware's cost into
 what isolation costs any strategy (the fork, the watched clock) and what the C bridge adds.
 The build is compiled (or found in the cache), and each trial run once uncounted, before the first
@@ -19,6 +21,7 @@ round. No assertion.
 from __future__ import annotations
 
 import argparse
+import statistics
 import sys
 import time
 from pathlib import Path
@@ -51,6 +54,7 @@ def main() -> None:
                  "lqr": load_scenario(EXAMPLE, overrides=common + ["strategy={kind: lqr, release_angle: 30 deg}"])}
     scenarios["lqr isolated"] = scenarios["lqr"]
     best = {name: [0.0, 0.0] for name in scenarios}
+    ratios = []
     # warm-up, not counted: the first imports, the first isolation child
     for sc in (scenarios["firmware"], scenarios["lqr"]):
         run_trial(sc, isolate=True)
@@ -64,11 +68,14 @@ def main() -> None:
             got[name] = measure(scenarios[name], isolate=True if name == "lqr isolated" else None)
             best[name] = [max(b, g) for b, g in zip(best[name], got[name][:2])]
         fw, lq, iso = got["firmware"], got["lqr"], got["lqr isolated"]
+        ratios.append((fw[0] / lq[0], fw[1] / lq[1]))
         print(f"{r + 1:>5} {fw[0]:>9.1f} {lq[0]:>9.1f} {fw[0] / lq[0]:>6.2f} {fw[1]:>9.1f} {lq[1]:>9.1f} "
               f"{fw[1] / lq[1]:>6.2f} {iso[0]:>12.1f} {iso[1]:>13.1f}   ({fw[2]}, {lq[2]}, {iso[2]})")
     fw, lq, iso = best["firmware"], best["lqr"], best["lqr isolated"]
     print(f"{'best':>5} {fw[0]:>9.1f} {lq[0]:>9.1f} {fw[0] / lq[0]:>6.2f} {fw[1]:>9.1f} {lq[1]:>9.1f} "
           f"{fw[1] / lq[1]:>6.2f} {iso[0]:>12.1f} {iso[1]:>13.1f}   target: ratio >= 0.9")
+    e2e, loop = (statistics.median(r[i] for r in ratios) for i in (0, 1))
+    print(f"median of the rounds' ratios: end to end {e2e:.2f}, loop {loop:.2f}")
 
 
 if __name__ == "__main__":

@@ -1,6 +1,6 @@
 """Instructions per simulated step, counted by valgrind: a speed figure the machine's load cannot move.
 
-    python benchmarks/instructions.py [--seconds 1 3]
+    python benchmarks/instructions.py [--seconds 1 3] [--set KEY=VALUE ...]
 
 Wall time on a shared machine drifts by 20-30% within minutes, more than most changes to the
 per-step loop are worth. Instruction counts are exact and repeatable (to ~0.01% here), so they
@@ -8,7 +8,8 @@ judge such changes: run this before and after. Figures: (a) the bare engine loop
 of bench_speed.py) and (c) the full-fidelity trial, each counted over two durations so that
 set-up cancels out: per step = (count(T2) - count(T1)) / (steps(T2) - steps(T1)). Counting is
 switched on around the measured call only (callgrind's client requests, from a tiny C helper
-compiled here), so imports and start-up are not counted.
+compiled here), so imports and start-up are not counted. `--set` adds overrides to the trial (c)
+(e.g. the power chain's keys, as bench_power.py sets them), to count what they cost per step.
 
 Needs valgrind with its headers (valgrind/callgrind.h) and a C compiler. No assertion.
 """
@@ -16,6 +17,7 @@ Needs valgrind with its headers (valgrind/callgrind.h) and a C compiler. No asse
 from __future__ import annotations
 
 import argparse
+import contextlib
 import re
 import subprocess
 import sys
@@ -36,7 +38,7 @@ from sim.model.scenario_yaml import load_scenario
 from sim.run.trial import run_trial
 from yardsticks import bare_engine_rtf
 sc = load_scenario(None, overrides=["strategy={{kind: lqr}}", "trial.pushes=[]", "trial.start.angle=3 deg",
-                                    "trial.duration={seconds}"])
+                                    "trial.duration={seconds}"] + {extra!r})
 if {which!r} == "trial":
     run_trial(sc)                      # warm: imports, the LQR design, the engine client and body
     helper.count_start(); run_trial(sc); helper.count_stop()
@@ -47,9 +49,10 @@ else:
 """
 
 
-def count(which: str, seconds: float, lib: Path, tmp: Path, *, driver: str = DRIVER) -> int:
+def count(which: str, seconds: float, lib: Path, tmp: Path, extra: list[str] = (), *, driver: str = DRIVER) -> int:
     """Instructions counted while `driver` (a Python source template) runs its measured call."""
-    driver = driver.format(root=str(HERE.parent), bench=str(HERE), lib=str(lib), seconds=seconds, which=which)
+    driver = driver.format(root=str(HERE.parent), bench=str(HERE), lib=str(lib), seconds=seconds, which=which,
+                           extra=list(extra))
     proc = subprocess.run(["valgrind", "--tool=callgrind", "--instr-atstart=no",
                            f"--callgrind-out-file={tmp}/out.%p", sys.executable, "-c", driver],
                           capture_output=True, text=True)
@@ -59,18 +62,34 @@ def count(which: str, seconds: float, lib: Path, tmp: Path, *, driver: str = DRI
     return int(found[0])
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+def seconds_option(doc: str) -> tuple[float, float, list[str]]:
+    """The two trial durations, s, from --seconds T1 T2, and the --set overrides (the script's
+    docstring as its help)."""
+    ap = argparse.ArgumentParser(description=doc.split("\n\n")[0])
     ap.add_argument("--seconds", type=float, nargs=2, default=[1.0, 3.0], metavar=("T1", "T2"))
+    ap.add_argument("--set", action="append", default=[], metavar="KEY=VALUE", help="an override of trial (c)")
     args = ap.parse_args()
     t1, t2 = args.seconds
+    return t1, t2, args.set
+
+
+@contextlib.contextmanager
+def counting_folder():
+    """A temporary folder with the shared library that switches callgrind's counting on and off
+    compiled in it: (folder, library)."""
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
         (tmp / "helper.c").write_text(HELPER_C)
         lib = tmp / "libhelper.so"
         subprocess.run(["cc", "-shared", "-fPIC", "-O2", "-o", str(lib), str(tmp / "helper.c")], check=True)
+        yield tmp, lib
+
+
+def main() -> None:
+    t1, t2, overrides = seconds_option(__doc__)
+    with counting_folder() as (tmp, lib):
         steps = (t2 - t1) * 1000.0   # the demo's 1 ms physics step
-        per_step = {which: (count(which, t2, lib, tmp) - count(which, t1, lib, tmp)) / steps
+        per_step = {which: (count(which, t2, lib, tmp, overrides) - count(which, t1, lib, tmp, overrides)) / steps
                     for which in ("bare", "trial")}
     a, c = per_step["bare"], per_step["trial"]
     print(f"(a) bare engine loop       {a:10,.0f} instructions per step")

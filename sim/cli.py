@@ -150,11 +150,11 @@ def validate(scenario: Path = typer.Argument(..., help="Scenario YAML file."),
              set_: Optional[List[str]] = SetOpt):
     """Check a scenario file and print its derived device figures and the strategy parameters in use."""
     from .model.device import Device
-    from .model.device_figures import figures_text
+    from .model.device_figures import figures_text, power_text
     sc = _load(scenario, set_, command="validate")
     d = Device.from_scenario(sc)
     typer.echo(f"{scenario}: valid.")
-    for line in figures_text(d, sc.strategy):
+    for line in figures_text(d, sc.strategy) + power_text(sc):
         typer.echo(f"  {line}")
 
 

@@ -40,12 +40,18 @@ def print_tune(outcome, out_dir: Path) -> None:
     head = (f"best: evaluation {pick.number}, {obj} {value:.4g} {unit}" if outcome.winner is not None else
             f"no design passed; closest: evaluation {pick.number}, failing " + ", ".join(failing)
             + (" in the full check" if not failed_criteria(pick.row, outcome.objectives) else ""))
-    if start is not None and start.row["objectives"][0] is not None and outcome.winner is not None:
-        head += f" (model-based start: {start.row['objectives'][0]:.4g} {unit})"
+    # evaluation 0 is the starting point only when every key has one (tune_study.run_study)
+    started = all(p.start is not None and p.low <= p.start <= p.high for p in outcome.params)
+    if started and start is not None and start.row["objectives"][0] is not None and outcome.winner is not None:
+        # a firmware define starts where the scenario has it, not from a model of the device
+        label = "start" if any(p.as_written for p in outcome.params) else "model-based start"
+        head += f" ({label}: {start.row['objectives'][0]:.4g} {unit})"
     console.print(escape(head))
     for p in outcome.params:
-        console.print(escape(f"  {p.key} = {pick.params[p.key]:.6g}"
-                             + (f" (start {p.start:.6g})" if p.start is not None else "") + f": {p.does}"))
+        digits = ".7g" if p.as_written else ".6g"   # a define: as the winner's scenario writes it
+        console.print(escape(f"  {p.key} = {p.assigned(pick.params[p.key]):{digits}}"
+                             + (f" (start {p.start:{digits}})" if p.start is not None else "")
+                             + (f": {p.does}" if p.does else "")))
     if len(outcome.objectives) > 1:
         console.print(escape(f"Pareto front: {len(outcome.front)} designs (tune.csv has every evaluation)"))
     console.print(escape(f"wrote {out_dir}/" + ", ".join(outcome.written)))
@@ -70,6 +76,7 @@ def print_run(sc, m: dict, out: Path) -> None:
         ("peak current", f"{_fmt(m['peak_current_a'], 'A')} (rms {_fmt(m['rms_current_a'], 'A')})"),
         ("voltage saturated", f"{100 * m['voltage_saturated_fraction']:.1f}% of ticks"),
         ("energy from supply", _fmt(m["energy_from_supply_j"], "J")),
+        *_power_rows(m),
         ("real-time factor", _fmt(m["real_time_factor"], "x")),
     ]
     if "wheels" in m:   # a 3D device: the tilt and each wheel (the rows above hold the worst wheel)
@@ -92,6 +99,20 @@ def print_run(sc, m: dict, out: Path) -> None:
         table.add_row(k, Text(v))
     console.print(table)
     console.print(Text(f"wrote {out}/metrics.json, trace.csv, summary.png"))
+
+
+def _power_rows(m: dict) -> list[tuple[str, str]]:
+    """The power chain's rows (only when it ran: its keys are in the metrics)."""
+    if "min_supply_voltage_v" not in m:
+        return []
+    rows = [("supply", f"{_fmt(m['min_supply_voltage_v'], 'V')} to {_fmt(m['peak_supply_voltage_v'], 'V')}"),
+            ("charge used", _fmt(m["charge_used_mah"], "mAh")
+             + ("" if m["battery_state_of_charge_end"] is None else f" ({m['battery_state_of_charge_end']:.1%} left)"))]
+    if m["driver_trips"]:
+        rows.append(("driver trips", str(m["driver_trips"])))
+    if m["pwm_dead_band_fraction"] is not None:
+        rows.append(("PWM dead band", f"{100 * m['pwm_dead_band_fraction']:.1f}% of steps"))
+    return rows
 
 
 def dim(text: str):

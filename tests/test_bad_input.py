@@ -134,6 +134,10 @@ KEY_CASES = {
                                               "material": "unobtainium"}]}}, ["body.parts[0].material"]),
     "unknown_strategy": ({"strategy": {"kind": "lqrr"}}, ["strategy.kind", "did you mean 'lqr'"]),
     "strategy_not_mapping": ({"strategy": "lqr"}, ["strategy", "mapping"]),
+    # a section given as a number names the keys it takes (not a class name)
+    "section_not_mapping": ({"sensors": {"imu": {}, "estimator": {"kind": "kalman", "process_noise": 0.001}}},
+                            ["sensors.estimator.process_noise", "expected a mapping with keys among rate, bias",
+                             "found 0.001"]),
     "missing_plugin_file": ({"strategy": {"plugin": "no_such_plugin.py:Law"}}, ["strategy.plugin", "no such file"]),
     "malformed_plugin": ({"strategy": {"plugin": "a:b:c"}}, ["strategy.plugin"]),
     "missing_required": ({"motor": {"resistance": None}}, ["motor.resistance"]),
@@ -174,6 +178,27 @@ KEY_CASES = {
     "inline_material_field": ({"body": {"parts": [{"shape": "rod", "length": 0.2, "radius": 0.005,
                                                    "material": {"density": 2700, "tensile_strenght": 3e8}}]}},
                               ["body.parts[0].material.tensile_strenght", "did you mean 'tensile_strength'"]),
+    # issue 17: the power chain's keys
+    "supply_and_battery": ({"battery": {"cells": 3, "chemistry": "lipo", "capacity": "450 mAh",
+                                        "internal_resistance": 0.3}}, ["drive.supply", "exactly one"]),
+    "no_supply_at_all": ({"drive": {"supply": None}}, ["drive.supply", "exactly one"]),
+    "battery_unknown_chemistry": ({"drive": {"supply": None}, "battery": {"cells": 3, "chemistry": "lead",
+                                   "capacity": "450 mAh", "internal_resistance": 0.3}}, ["battery.chemistry"]),
+    "battery_capacity_in_volts": ({"drive": {"supply": None}, "battery": {"cells": 3, "chemistry": "lipo",
+                                   "capacity": "450 V", "internal_resistance": 0.3}}, ["battery.capacity", "charge"]),
+    "battery_two_resistances": ({"drive": {"supply": None}, "battery": {"cells": 3, "chemistry": "lipo",
+                                 "capacity": "450 mAh", "internal_resistance": 0.3, "cell_resistance": 0.1}},
+                                ["battery.internal_resistance", "exactly one"]),
+    "current_mode_without_bandwidth": ({"drive": {"mode": "current"}}, ["drive.current_bandwidth"]),
+    "current_mode_with_a_volts_law": ({"drive": {"mode": "current", "current_bandwidth": "1 kHz"}},
+                                      ["drive.mode", "commands volts only"]),
+    "dead_time_without_frequency": ({"drive": {"pwm": {"resolution_bits": 8, "dead_time": "1 us"}}},
+                                    ["drive.pwm.dead_time", "frequency"]),
+    "trip_without_current": ({"drive": {"trip": {"time": "1 ms"}}}, ["drive.trip.current"]),
+    "curve_torque_rising": ({"motor": {"speed_constant": "300 rpm/V", "torque_constant": "0.033 N*m/A",
+                                       "resistance": 2.0, "curve": {"voltage": "12 V", "points": [
+                                           {"speed": "0 rpm", "torque": 0.1}, {"speed": "1000 rpm", "torque": 0.2}]}}},
+                            ["motor.curve.points[1].torque", "must not rise"]),
 }
 
 

@@ -35,6 +35,10 @@ CASES = {
                                                   trial={"duration": 1.0, "start": {"angle": "10 deg", "rate": 0.5}}),
     "push_too_large": lambda tmp: make_scenario(wheel=BIG_WHEEL, strategy={"kind": "lqr"},
                                                 trial={"duration": 2.0, "pushes": [{"at": 0.3, "impulse": 0.05}]}),
+    # an IMU 300 mm up the arm read through a Kalman filter that trusts its accelerometer (0.5 deg):
+    # the body's own angular acceleration reads as tilt (r theta_dd, rigid-body kinematics) and the
+    # law balances a wrong angle; the same filter with the IMU at the pivot holds (test below)
+    "estimator_misread": lambda tmp: imu_scenario(at_mm=300.0),
     # a law far too soft to hold 3 deg, never near a limit
     "gains_too_weak": lambda tmp: make_scenario(strategy={"kind": "pid", "kp": 0.5, "ki": 0.0, "kd": 0.05},
                                                 trial={"duration": 1.5, "start": {"angle": "3 deg"}}),
@@ -63,6 +67,20 @@ CASES = {
             return 0.0
     """, "Raises"),
 }
+
+
+def imu_scenario(*, at_mm: float):
+    """The test pendulum with no angle encoder: an IMU `at_mm` up the body axis and a Kalman filter
+    that trusts its accelerometer to 0.5 deg; LQR from 3 deg."""
+    return make_scenario(wheel=BIG_WHEEL, strategy={"kind": "lqr"},
+                         sensors={"angle": None, "imu": {"at": [0.0, 0.0, at_mm / 1000.0]},
+                                  "estimator": {"kind": "kalman", "measurement_noise": "0.5 deg"}},
+                         trial={"duration": 1.5, "start": {"angle": "3 deg"}})
+
+
+def test_the_same_filter_with_the_imu_at_the_pivot_holds():
+    # the counter-case of estimator_misread: nothing but the IMU's place differs
+    assert run_trial(imu_scenario(at_mm=0.0)).outcome == "balanced"
 
 
 @pytest.mark.parametrize("cause", list(CASES))

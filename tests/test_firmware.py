@@ -338,6 +338,22 @@ def test_static_variables_are_fresh_in_every_trial(tmp_path, isolate):
 
 
 @linux_only
+def test_an_isolated_trial_loads_the_build_itself_and_later_loads_in_a_process_copy_it(tmp_path):
+    # a process's first load of a build is its file (nothing of it mapped yet: fresh statics); the
+    # isolation child is forked from a process that has not loaded it, so it needs no copy. Loads
+    # after the first in one process are copies (a second load of one file gives the same statics)
+    sc = firmware_scenario(tmp_path, COUNTER, defines={"UNIQUE": tmp_path.name}, trial={"duration": "0.1 s"})
+    build = str(sc.strategy.params.build.path)
+    seen = []
+    for isolate in (True, True, False, False, True):
+        result = run_trial(sc, isolate=isolate)
+        assert result.trace.phases[int(result.trace.mode[2 * 49])] == "fw 50"     # statics fresh each time
+        seen.append(result.strategy.loaded_from)
+    assert seen[:3] == [build] * 3
+    assert seen[3] != build and seen[4] != build and seen[3] != seen[4]
+
+
+@linux_only
 def test_run_writes_the_firmwares_printf_to_firmware_log(tmp_path):
     path = firmware_scenario(tmp_path, COUNTER, trial={"duration": "0.1 s", "start": {"angle": "3 deg"}},
                              write_only=True, quiet=True)
@@ -491,3 +507,111 @@ def test_inputs_are_the_encoders_counts_and_the_tick_time(tmp_path, capfd, start
     np.testing.assert_array_equal(np.diff(got[:, 2]), np.diff(wheel_counts))     # counts moved per tick
     # the wheel turns forwards all along (the first two ticks read the start: 2 ms delay)
     assert np.all(np.diff(got[1:, 2]) > 0)
+
+
+# ----------------------------------------------------------------------------- several wheels, one today
+
+ARRAY_FORM = """
+#include <math.h>
+#include "desk_gains.h"
+/* LQR on the readings (the wheel speed the mean of the reading and the counts' difference), volts
+   or a duty out. FORM 0 reads and writes the one-wheel fields; FORM 1 the per-wheel arrays' entry 0;
+   FORM 2 reads the arrays and writes both forms, the one-wheel field wrong (the array's entry
+   wins for wheel 1). Phase 1 while the arrays hold what wheelbench.h says, 9 if not. */
+static int32_t pwm_max, cpr, prev, ok;
+static float supply, period_s;
+void wb_init(const wb_config_t *cfg) {
+    pwm_max = cfg->pwm_max; supply = cfg->supply_v; period_s = cfg->period_us * 1e-6f;
+#if FORM
+    cpr = cfg->wheels_counts_per_rev[0];
+    ok = cfg->n_wheels == 1 && cfg->wheels_counts_per_rev[1] == 0 && cfg->wheels_counts_per_rev[2] == 0;
+#else
+    cpr = cfg->wheel_counts_per_rev;
+    ok = 1;
+#endif
+}
+void wb_step(const wb_input_t *in, wb_output_t *out) {
+#if FORM
+    float w = in->wheels_speed_rad_s[0];
+    int32_t c = in->wheels_counts[0];
+    ok = ok && in->wheels_speed_rad_s[1] == 0.0f && in->wheels_speed_rad_s[2] == 0.0f
+            && in->wheels_counts[1] == 0 && in->wheels_counts[2] == 0;
+#else
+    float w = in->wheel_speed_rad_s;
+    int32_t c = in->wheel_counts;
+#endif
+    float from_counts = (float)(c - prev) * 6.2831853f / (float)cpr / period_s;
+    prev = c;
+    float v = -(WB_K_DISCRETE[0] * in->angle_rad + WB_K_DISCRETE[1] * in->rate_rad_s
+                + WB_K_DISCRETE[2] * 0.5f * (w + from_counts));
+    int32_t duty = (int32_t)(v / supply * (float)pwm_max);
+#if FORM == 0
+    out->volts = v; out->duty = duty;
+#else
+    out->wheels_volts[0] = v; out->wheels_duty[0] = duty;
+#endif
+#if FORM == 2
+    out->volts = -v; out->duty = -duty;
+#endif
+    out->phase = ok ? 1 : 9;
+}
+"""
+
+
+@pytest.mark.parametrize("drive", ["volts", "pwm"])
+def test_a_firmware_reading_the_arrays_runs_the_same_trial_as_one_reading_the_scalars(tmp_path, drive):
+    # wheelbench.h: with one wheel, entry 0 of each per-wheel array is the one-wheel field, the
+    # others 0, n_wheels 1; wheel 1 follows the array's entry when the firmware set it
+    raw = yaml.safe_load(EXAMPLE.read_text())
+    if drive == "volts":
+        del raw["drive"]["pwm"]
+    (tmp_path / "form.c").write_text(ARRAY_FORM)
+    raw["trial"]["duration"] = "1 s"
+    raw["trial"]["pushes"] = [{"at": "0.5 s", "impulse": "8 mN*m*s"}]
+    traces = []
+    for form in (0, 1, 2):
+        raw["strategy"] = {"kind": "firmware", "sources": ["form.c"], "include": [str(EXAMPLE_DIR)],
+                           "defines": {"FORM": form}, "release_angle": "30 deg"}
+        path = tmp_path / f"form{form}.yaml"
+        path.write_text(yaml.safe_dump(raw, sort_keys=False))
+        result = run_trial(load_scenario(path))
+        assert result.outcome == "balanced", (form, result.message)
+        assert set(result.trace.phases) == {"fw 1"}, (form, result.trace.phases)
+        traces.append(result.trace)
+    assert np.abs(traces[0].voltage[:traces[0].n]).max() > 1.0          # the law did drive the wheel
+    for other in traces[1:]:
+        assert other.n == traces[0].n
+        for column in ("angle", "rate", "wheel_speed", "voltage", "current", "mode"):
+            np.testing.assert_array_equal(getattr(other, column)[:other.n], getattr(traces[0], column)[:other.n],
+                                          err_msg=column)
+
+
+def test_header_appends_the_per_wheel_arrays_after_the_one_wheel_fields():
+    # the one-wheel fields keep their offsets: code and checks written against them still fit
+    import cffi
+    ffi = cffi.FFI()
+    ffi.cdef(fw_build.contract_cdef())
+    for struct, first_new in (("wb_config_t", "n_wheels"), ("wb_input_t", "wheels_speed_rad_s"),
+                              ("wb_output_t", "wheels_volts")):
+        names = [name for name, _ in ffi.typeof(struct).fields]
+        new = names[names.index(first_new):]
+        assert all(name == "n_wheels" or name.startswith("wheels_") for name in new), names
+        assert all(not (name == "n_wheels" or name.startswith("wheels_")) for name in names[:names.index(first_new)])
+        for name in new:
+            if name != "n_wheels":
+                assert ffi.typeof(struct).fields[names.index(name)][1].type.length == 3   # WB_MAX_WHEELS
+    assert "#define WB_MAX_WHEELS 3" in fw_build.contract_cdef()
+
+
+def test_example_trial_is_unchanged_by_the_per_wheel_arrays():
+    # sha256 over the example firmware trial's columns, computed with the code before the arrays were
+    # added (the one-wheel header and wrapper): the scalars a one-wheel firmware reads and writes,
+    # and so its trial, must not move
+    import hashlib
+    result = run_trial(load_scenario(EXAMPLE))
+    tr, digest = result.trace, hashlib.sha256()
+    for name in ("angle", "rate", "wheel_angle", "wheel_speed", "voltage", "current", "torque", "mode",
+                 "meas_angle", "meas_rate", "meas_wheel"):
+        digest.update(getattr(tr, name)[:tr.n].tobytes())
+    assert (result.outcome, tr.n) == ("balanced", 3000)
+    assert digest.hexdigest() == "8223b356169c119454b53d943e45da7d4554602797dc230acf88989b56a30ee1"

@@ -53,6 +53,8 @@ def test_vector_keys_parse_with_units():
     (lambda raw: raw.update(wheels=[{"at": 0.2, "parts": [{"shape": "point", "mass": 0.1}]}], wheel=None),
      "wheels[0].parts: the wheel's spin inertia is 0"),
     (lambda raw: raw.update(body=BALL, timing={"jitter": 0.0001}), "timing: the IMU, estimator"),
+    (lambda raw: raw.update(body=BALL, battery={"chemistry": "lipo", "cells": 3, "capacity": "1 A*h", "internal_resistance": 0.05}, drive={"supply": None}),
+     "the power chain"),
     (lambda raw: raw.update(body=BALL, sensors={"wheel": {"max_speed": 100.0}}), "sensors.wheel.max_speed"),
 ])
 def test_bad_3d_keys_are_refused_in_one_line_naming_the_key(change, key):

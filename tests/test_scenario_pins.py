@@ -1,9 +1,11 @@
-"""Every scenario in scenarios/ gives exactly the numbers it gave before sensing and timing were modelled.
+"""Every scenario in scenarios/ gives exactly the numbers it gave before sensing and timing, and the
+power chain (battery, PWM, current mode, protections), were modelled.
 
 `tests/pins/scenarios_main.json` holds, per scenario file, SHA-256 digests of its trial's trace
 columns (bit for bit), its CSV file and its metrics (wall-clock keys left out), computed by the code on
-main before the IMU, estimators, encoder limits and loop timing were added (commit 68f704d). The new
-keys are optional: a scenario that sets none of them must run through exactly the old arithmetic.
+main before the IMU, estimators, encoder limits, loop timing and the power chain were added (commit
+68f704d). The new keys are optional: a scenario that sets none of them must run through exactly the
+old arithmetic.
 A scenario added to scenarios/ later has no pin and is skipped by name; refresh the file with
 `python tests/test_scenario_pins.py > tests/pins/scenarios_main.json` only for a change meant to
 alter the demos' numbers.

@@ -22,6 +22,8 @@ BRAKE = {"supply": 12.0, "brake_torque": 50.0}   # invented test drive with a st
 FIRMWARE = Path(__file__).resolve().parents[1] / "scenarios" / "firmware"
 REQUIRED = {"firmware": {"sources": [str(FIRMWARE / "balance_q16.c")], "include": [str(FIRMWARE)]}}
 """Kinds that cannot be built without some parameters: the least they need."""
+CURRENT_DRIVE = {"mode": "current", "current_bandwidth": 1000.0}   # invented: a torque-mode driver
+"""Added to BRAKE for kinds that command current only (`needs_current_mode`)."""
 
 
 # ----------------------------------------------------------------------------- contract
@@ -30,7 +32,8 @@ REQUIRED = {"firmware": {"sources": [str(FIRMWARE / "balance_q16.c")], "include"
 def test_every_kind_builds_with_no_parameters_and_answers_in_volts(kind):
     if kind == "firmware" and not (shutil.which("cc") or shutil.which("gcc")):
         pytest.skip("the firmware kind needs a C compiler (.ci/run installs one)")
-    sc = make_scenario(strategy={"kind": kind, **REQUIRED.get(kind, {})}, drive=BRAKE)
+    drive = BRAKE | (CURRENT_DRIVE if builtin_class(kind).needs_current_mode else {})
+    sc = make_scenario(strategy={"kind": kind, **REQUIRED.get(kind, {})}, drive=drive)
     device = Device.from_scenario(sc)
     law = sc.strategy.build(device, rng=np.random.default_rng(0))
     assert isinstance(law, Strategy)

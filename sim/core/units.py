@@ -42,6 +42,8 @@ KINDS: dict[str, tuple[str, str]] = {
     "temperature_rise_per_watt": ("K/W", "a thermal resistance"),
     "heat_capacity": ("J/K", "a heat capacity"),
     "temperature": ("degC", "a temperature"),
+    "charge": ("C", "a charge (e.g. '2200 mAh')"),
+    "capacitance": ("F", "a capacitance"),
     "rate_noise_density": ("rad/s/Hz^0.5", "a rate noise density (e.g. '0.01 deg/s/Hz^0.5')"),
     "accel_noise_density": ("m/s^2/Hz^0.5", "an acceleration noise density (e.g. '0.002 m/s^2/Hz^0.5')"),
     "rate_random_walk": ("rad/s^1.5", "a bias random walk (e.g. '0.001 deg/s/s^0.5')"),
@@ -165,6 +167,8 @@ SIMPLE_UNITS: dict[str, tuple[str, float]] = {
     "ohm": ("ohm", 1.0), "mohm": ("ohm", 1e-3), "H": ("H", 1.0), "mH": ("H", 1e-3), "uH": ("H", 1e-6),
     "rpm/V": ("rad/s/V", 2.0 * _PI / 60.0), "V*s/rad": ("V*s/rad", 1.0),
     "N*m/A": ("N*m/A", 1.0), "mN*m/A": ("N*m/A", 1e-3), "K/W": ("K/W", 1.0), "J/K": ("J/K", 1.0),
+    "C": ("C", 1.0), "mAh": ("C", 3.6), "Ah": ("C", 3600.0), "mA*h": ("C", 3.6), "A*h": ("C", 3600.0),
+    "F": ("F", 1.0), "mF": ("F", 1e-3), "uF": ("F", 1e-6),
 }
 _SIMPLE = re.compile(r"([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*(\S+)")
 

@@ -58,11 +58,7 @@ def _union_tag_at(loc) -> int | None:
 
 def _model_names(base: type) -> set[str]:
     """Names of every pydantic model class defined so far (the union branches pydantic names)."""
-    out: set[str] = set()
-    for sub in base.__subclasses__():
-        out.add(sub.__name__)
-        out |= _model_names(sub)
-    return out
+    return {m.__name__ for m in _model_classes(base)}
 
 
 def _union_resolved(errors: list[dict]) -> list[dict]:
@@ -123,9 +119,25 @@ def _describe_text(loc: list, msg: str, kind: str, err: dict, model) -> str:
     if kind in ("greater_than", "greater_than_equal", "less_than", "less_than_equal"):
         bound = msg.replace('Input should be', 'must be')
         return f"{path}: {bound} (the bound is in SI units; found {found})"
+    if kind == "model_type":    # a section given as a scalar or a list: name the keys it takes
+        keys = _section_keys((err.get("ctx") or {}).get("class_name"))
+        return f"{path}: expected a mapping" + (f" with keys among {', '.join(keys)}" if keys else "") + f", found {found}"
     if kind.endswith(("_type", "_parsing")) or kind.startswith("int_"):
         return f"{path}: {msg.replace('Input should be', 'expected')}, found {found}"
     return f"{path}: {msg}"
+
+
+def _section_keys(class_name: str | None) -> list[str]:
+    """The keys of the scenario section (a pydantic model) named `class_name`, or [] if unknown."""
+    found = [m for m in _model_classes(BaseModel) if m.__name__ == class_name]
+    return list(found[0].model_fields) if len(found) == 1 else []
+
+
+def _model_classes(base: type) -> list[type]:
+    out: list[type] = []
+    for sub in base.__subclasses__():
+        out += [sub, *_model_classes(sub)]
+    return out
 
 
 def step_suggestion(rate_hz: float, step_s: float) -> str:

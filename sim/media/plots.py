@@ -43,6 +43,12 @@ def summary_figure(result):
     ax.plot(*_thin(t, tr.view("voltage")), color=INK, lw=0.9)
     for s in (dev.supply_v, -dev.supply_v):
         ax.axhline(s, color=LIMIT, ls="--", lw=0.9)
+    if getattr(tr, "has_power_columns", False):   # the bus as it sagged and rose (power chain)
+        bus = tr.view("supply_voltage")
+        for sign in (1.0, -1.0):
+            ax.plot(*_thin(t, sign * bus), color=MUTED, lw=0.8)
+        ax.text(t[0] if len(t) else 0, float(bus[0]) if len(bus) else 0.0, " bus", color=MUTED, fontsize=7,
+                va="top")
     ax.set_ylabel("voltage [V]")
     ax = axes[4]
     ax.plot(*_thin(t, tr.view("current")), color=ACCENT, lw=0.9)

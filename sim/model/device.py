@@ -42,6 +42,7 @@ class Device:
     angle_counts_per_rev: int = 0     # the angle encoder's counts per rev, 0 when the scenario sets none
     wheel_counts_per_rev: int = 0     # the wheel encoder's counts per rev, 0 when the scenario sets none
     pwm_max: int = 0                  # full-scale duty (2^drive.pwm.resolution_bits - 1), 0 without drive.pwm
+    drive_mode: str = "voltage"       # "current": a torque-mode driver, laws command amps (drive.mode)
 
     @classmethod
     def from_scenario(cls, sc) -> "Device":
@@ -70,6 +71,7 @@ class Device:
             angle_counts_per_rev=(sc.sensors.angle.counts_per_rev if sc.sensors.angle is not None else None) or 0,
             wheel_counts_per_rev=sc.sensors.wheel.counts_per_rev or 0,
             pwm_max=2**sc.drive.pwm.resolution_bits - 1 if sc.drive.pwm is not None else 0,
+            drive_mode=sc.drive.mode,
         )
 
     # -- derived figures used across the tool -------------------------------------------------
@@ -92,6 +94,14 @@ class Device:
         back_emf = self.k_e_v_s_rad * wheel_speed_rad_s * math.copysign(1.0, direction)
         i = (self.supply_v - back_emf) / self.resistance_ohm
         return max(0.0, self.k_t_n_m_a * min(i, self.current_limit_a))
+
+    @property
+    def command_limit(self) -> float:
+        """The largest command the drive takes: the supply, V (voltage mode), or the current limit, A
+        (current mode; the stall current at the supply when there is no limit)."""
+        if self.drive_mode == "current":
+            return min(self.current_limit_a, self.supply_v / self.resistance_ohm)
+        return self.supply_v
 
     @property
     def gravity_torque_coeff_n_m(self) -> float:
@@ -120,11 +130,16 @@ class Device:
         Follows the model in ../shared/references.md (inductance neglected), with the pivot's and
         bearing's viscous friction added: J theta_dd = mbar g theta - tau - b_p theta_d,
         I_w (theta_dd + phi_dd) = tau - b_w phi_d, tau = k_t (V - k_e phi_d) / R.
+        With `drive_mode` "current" the input is amps and tau = k_t i (the current loop taken as
+        ideal at the control rate; back-EMF is the loop's to overcome, so it leaves the model).
         """
         J, Iw = self.J_kg_m2, self.I_w_kg_m2
         a = self.gravity_torque_coeff_n_m / J
-        c = self.k_t_n_m_a / self.resistance_ohm
-        d = c * self.k_e_v_s_rad + self.wheel_viscous_n_m_s      # total damping on phi_d, N m s
+        if self.drive_mode == "current":
+            c, d = self.k_t_n_m_a, self.wheel_viscous_n_m_s
+        else:
+            c = self.k_t_n_m_a / self.resistance_ohm
+            d = c * self.k_e_v_s_rad + self.wheel_viscous_n_m_s      # total damping on phi_d, N m s
         bp = self.pivot_viscous_n_m_s
         A = np.array([
             [0.0, 1.0, 0.0],

@@ -53,6 +53,41 @@ def strategy_in_use(spec, device) -> dict:
     return out
 
 
+def power_text(sc) -> list[str]:
+    """The power chain's set-up in a line or two (nothing when it is off: today's ideal source)."""
+    if not sc.power_model:
+        return []
+    d = sc.drive
+    b = sc.battery
+    lines = []
+    if b is not None:
+        r = b.internal_resistance if b.internal_resistance is not None else b.cell_resistance * b.cells
+        lines.append(f"supply: {b.cells}-cell {b.chemistry} pack at {b.state_of_charge:.0%} charge, {d.supply:.2f} V at "
+                     f"rest, {r:.3g} ohm, cut-off {b.cells * b.cutoff_per_cell:.2f} V (the figures above use the rest "
+                     "voltage; the trial sags it)")
+    else:
+        lines.append(f"supply: bench {d.supply:.3g} V, cannot sink" if d.bus_capacitance is not None
+                     else f"supply: bench {d.supply:.3g} V")
+    parts = [f"{d.mode} mode" + (f", current loop {d.current_bandwidth:.4g} Hz" if d.mode == "current" else "")]
+    if d.pwm is not None and d.pwm.frequency is not None:
+        p = d.pwm
+        parts.append(f"PWM {p.resolution_bits} bit at {p.frequency / 1e3:.4g} kHz, dead time {p.dead_time * 1e6:.3g} us, "
+                     f"min duty {p.min_duty:.3g}")
+    if d.bus_capacitance is not None:
+        parts.append(f"bus {d.bus_capacitance * 1e6:.4g} uF" + (f", limit {d.max_bus_voltage:.3g} V"
+                                                                   if d.max_bus_voltage is not None else ""))
+    if d.reversal_delay is not None:
+        parts.append(f"reversal {d.reversal_delay * 1e3:.3g} ms")
+    if d.trip is not None:
+        parts.append(f"trip above {d.trip.current:.3g} A for {d.trip.time * 1e3:.3g} ms")
+    if sc.motor.curve is not None:
+        parts.append(f"motor curve at {sc.motor.curve.voltage:.3g} V")
+    if sc.motor.thermal.coupled:
+        parts.append("winding heat coupled")
+    lines.append("drive: " + "; ".join(parts))
+    return lines
+
+
 def figures_text(device, spec) -> list[str]:
     """Lines for the terminal."""
     f = device_figures(device)

@@ -279,6 +279,35 @@ class MotorThermal(Strict):
     """Ambient temperature, degC."""
     max_temperature: Q("temperature", gt=-60, le=400) = 100.0
     """Highest acceptable winding temperature, degC (kept well below insulation class B, 130 degC)."""
+    coupled: bool = False
+    """True: the winding's temperature raises its resistance during the trial (`sim.physics.drive`)."""
+
+
+class CurvePoint(Strict):
+    speed: Q("angular_speed", ge=0, le=MAX_SPEED)
+    torque: Q("torque", ge=-MAX_TORQUE, le=MAX_TORQUE)
+
+
+class MotorCurve(Strict):
+    """A datasheet's torque-speed line at one voltage (`sim.physics.curve`), used by the drive instead
+    of the straight line from Kv and R. Speeds rising from 0, torque falling."""
+
+    voltage: Q("voltage", gt=0, le=1000)
+    points: Annotated[list[CurvePoint], Field(min_length=2, max_length=200)]
+
+    @field_validator("points")
+    @classmethod
+    def _rising_speed_falling_torque(cls, points):
+        for i, (a, b) in enumerate(zip(points, points[1:])):
+            if not b.speed > a.speed:
+                raise ValueError(f"@[{i + 1}].speed: speeds must rise from point to point")
+            if b.torque > a.torque:
+                raise ValueError(f"@[{i + 1}].torque: torque must not rise with speed")
+        if not points[-1].torque < points[0].torque:
+            raise ValueError("@[0].torque: the torque must fall over the curve")
+        if points[0].torque <= 0:
+            raise ValueError("@[0].torque: the first point's torque must be positive (the motor drives)")
+        return points
 
 
 class Motor(Strict):
@@ -295,6 +324,8 @@ class Motor(Strict):
     rotor_inertia: Q("inertia", ge=0, le=MAX_INERTIA) = 0.0
     mass: Q("mass", ge=0, le=MAX_MASS_KG) = 0.0
     thermal: MotorThermal = MotorThermal()
+    curve: MotorCurve | None = None
+    """A datasheet torque-speed curve the drive uses instead of the line from Kv and R (voltage mode)."""
 
     @model_validator(mode="after")
     def _one_speed_constant(self):
@@ -316,15 +347,94 @@ class Motor(Strict):
 class Pwm(Strict):
     resolution_bits: Annotated[int, Field(ge=1, le=31, strict=True)]
     """Duty resolution, bits: firmware strategies get pwm_max = 2^bits - 1 and write a duty."""
+    frequency: Q("frequency", gt=0, le=10e6) | None = None
+    """Switching frequency, Hz. Given, the drive models the PWM (`sim.physics.pwm`: duty quantised to
+    2^bits - 1 counts, dead band, dead-time loss); without it a duty acts as its mean voltage."""
+    dead_time: Q("time", ge=0, le=1e-3) = 0.0
+    """Dead time per switching edge, s (needs `frequency`)."""
+    min_duty: Q("fraction", ge=0, lt=1) = 0.0
+    """Duties below this (magnitude) apply nothing: a dead band (needs `frequency`)."""
+
+    @model_validator(mode="after")
+    def _timing_needs_frequency(self):
+        if self.frequency is None:
+            for key in ("dead_time", "min_duty"):
+                if getattr(self, key):
+                    raise ValueError(f"@{key}: needs drive.pwm.frequency (the PWM model)")
+        elif 2.0 * self.dead_time * self.frequency >= 1.0:
+            raise ValueError("@dead_time: twice the dead time fills the whole PWM period")
+        return self
+
+
+class Trip(Strict):
+    """Over-current protection: the driver switches off when |i| stays above `current` for `time`."""
+
+    current: Q("current", gt=0, le=1e4)
+    time: Q("time", ge=0, le=60) = 0.0
+    recovery: Q("time", gt=0, le=3600) | None = None
+    """Off this long after a trip, s; absent: off for the rest of the trial."""
 
 
 class Drive(Strict):
-    supply: Q("voltage", gt=0, le=1000)
-    """Supply voltage, V; the commanded voltage is clamped to +-supply."""
+    supply: Q("voltage", gt=0, le=1000) | None = None
+    """Bench supply voltage, V (a fixed source); the commanded voltage is clamped to +-supply. Give
+    this or a `battery`; with a battery it is set to the pack's open-circuit voltage at the start."""
     brake_torque: Q("torque", gt=0, le=MAX_TORQUE) | None = None
     """A mechanical brake on the wheel (for brake-to-jump strategies), N m."""
     pwm: Pwm | None = None
-    """Optional, read by firmware strategies only (no PWM model: a duty acts as its mean voltage)."""
+    """Firmware strategies read `resolution_bits`; with `frequency` the drive models the PWM."""
+    mode: Literal["voltage", "current"] = "voltage"
+    """voltage: strategies command volts; current: a torque-mode driver, strategies command amps."""
+    current_bandwidth: Q("frequency", gt=0, le=1e6) | None = None
+    """Current mode: the inner current loop's bandwidth, Hz (first order)."""
+    reversal_delay: Q("time", ge=0, le=10) | None = None
+    """Time the driver needs to change direction, s; the command is held at zero meanwhile."""
+    trip: Trip | None = None
+    bus_capacitance: Q("capacitance", gt=0, le=10) | None = None
+    """Capacitance on the driver's bus, F: regenerated charge that the supply cannot take raises its voltage."""
+    max_bus_voltage: Q("voltage", gt=0, le=1000) | None = None
+    """The driver's bus over-voltage limit, V: above it the driver switches off for the rest of the trial."""
+
+    @model_validator(mode="after")
+    def _current_mode_needs_bandwidth(self):
+        if self.mode == "current" and self.current_bandwidth is None:
+            raise ValueError("@current_bandwidth: drive.mode current needs the current loop's bandwidth")
+        if self.mode != "current" and self.current_bandwidth is not None:
+            raise ValueError("@current_bandwidth: applies to drive.mode current only")
+        return self
+
+    @property
+    def models_power(self) -> bool:
+        """True when any key of the power chain is set (`sim.physics.drive.PowerChain` runs the drive)."""
+        return (self.mode == "current" or self.reversal_delay is not None or self.trip is not None
+                or self.bus_capacitance is not None or self.max_bus_voltage is not None
+                or (self.pwm is not None and self.pwm.frequency is not None))
+
+
+class Battery(Strict):
+    """A pack of cells in series (`sim.physics.battery`). Give `internal_resistance` (the pack's) or
+    `cell_resistance` (per cell)."""
+
+    cells: Annotated[int, Field(ge=1, le=100, strict=True)]
+    chemistry: Literal["lipo", "li-ion", "nimh"]
+    capacity: Q("charge", gt=0, le=3.6e6)
+    """Rated capacity, C (e.g. '2200 mAh')."""
+    internal_resistance: Q("resistance", ge=0, le=100) | None = None
+    cell_resistance: Q("resistance", ge=0, le=100) | None = None
+    state_of_charge: Q("fraction", ge=0, le=1) = 1.0
+    cutoff: Q("voltage", gt=0, le=10) | None = None
+    """Low-voltage cut-off per cell under load, V (default by chemistry, `battery.CUTOFF_PER_CELL_V`)."""
+
+    @model_validator(mode="after")
+    def _one_resistance(self):
+        if (self.internal_resistance is None) == (self.cell_resistance is None):
+            raise ValueError("@internal_resistance: give exactly one of internal_resistance (pack) and cell_resistance")
+        return self
+
+    @property
+    def cutoff_per_cell(self) -> float:
+        from .cells import CUTOFF_PER_CELL_V
+        return self.cutoff if self.cutoff is not None else CUTOFF_PER_CELL_V[self.chemistry]
 
 
 class WheelSpec(Wheel):
@@ -459,6 +569,8 @@ class Scenario(Strict):
     motor: Motor | None
     """The motor of every wheel that names none of its own (required unless every wheel in `wheels` has one)."""
     drive: Drive
+    battery: Battery | None = None
+    """A battery pack instead of the bench supply `drive.supply`."""
     sensors: Sensors = Sensors()
     strategy: Annotated[StrategySpec, BeforeValidator(_strategy_from_raw)]
     trial: Trial = Trial()
@@ -517,6 +629,10 @@ class Scenario(Strict):
             if used:
                 raise ValueError(f"@{key}: the IMU, estimator, encoder bus limits and timing models take one-wheel "
                                  "hinge devices only in this release (this is a 3D device)")
+        if self.power_model:
+            raise ValueError("@drive: the power chain (battery, drive.mode current, PWM frequency, reversal delay, "
+                             "trips, bus capacitance, motor.curve, motor.thermal.coupled) takes one-wheel hinge "
+                             "devices only in this release (this is a 3D device)")
         if self.strategy is not None and getattr(self.strategy.cls, "planar_only", False):
             raise ValueError(f"@strategy.kind: {self.strategy.kind} works on one wheel on a hinge only; this device "
                              f"has {len(self.wheel_list)} wheel(s) on a {self.body.mount} mount")
@@ -566,6 +682,38 @@ class Scenario(Strict):
             from .tolerances import parse_tolerances
             parse_tolerances(self, self.tolerances)  # raises ValueError("@tolerances.<key>: ...")
         return self
+
+    @model_validator(mode="after")
+    def _one_supply(self):
+        if (self.drive.supply is None) == (self.battery is None):
+            raise ValueError("@drive.supply: give exactly one of drive.supply (a bench supply) and battery")
+        if self.battery is not None:
+            from .cells import open_circuit_volts_per_cell
+            b = self.battery
+            # the supply the laws, margins and clamps read: the pack at rest at the start (frozen model:
+            # set once here, in the one validation pass)
+            self.drive.__dict__["supply"] = b.cells * open_circuit_volts_per_cell(b.chemistry, b.state_of_charge)
+        if self.motor is not None and self.motor.curve is not None and self.motor.thermal.coupled:
+            raise ValueError("@motor.thermal.coupled: the winding's resistance does not enter a motor.curve; "
+                             "give one or the other")
+        if self.drive.mode == "current" and self.motor is not None and self.motor.curve is not None:
+            raise ValueError("@motor.curve: applies to drive.mode voltage (a current-mode driver sets the current)")
+        if self.drive.mode == "current" and not getattr(self.strategy.cls, "commands_current", False):
+            raise ValueError(f"@drive.mode: strategy '{self.strategy.kind}' commands volts only; drive.mode "
+                             "current needs a law that commands current (lqr, fixed_current)")
+        if self.drive.mode != "current" and getattr(self.strategy.cls, "needs_current_mode", False):
+            raise ValueError(f"@strategy.kind: '{self.strategy.kind}' commands current: it needs drive.mode current")
+        return self
+
+    @property
+    def power_model(self) -> bool:
+        """True when any power-chain key is set: the runner then drives through
+        `sim.physics.drive.PowerChain` instead of today's `MotorDrive` alone."""
+        return (self.battery is not None or self.drive.models_power
+                or any(m.thermal.coupled or m.curve is not None
+                       for m in ([self.motor] if self.motor is not None else []) + [getattr(w, "motor", None) or self.motor
+                                                                                   for w in self.wheel_list]
+                       if m is not None))
 
     @model_validator(mode="after")
     def _wheel_spins(self):

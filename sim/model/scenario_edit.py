@@ -10,7 +10,9 @@ survive. It also does what a merge by hand gets wrong:
   k_e = 1/Kv to first order has the same relative spread; an absolute band is dropped with a
   note, since its unit no longer fits);
 - plug-in paths: a `plugin: "laws.py:Class"` relative to the scenario's folder is rewritten
-  relative to the folder of the file being written, so the new file finds the same code;
+  relative to the folder of the file being written, so the new file finds the same code; so are
+  a firmware strategy's `sources` and `include` (`tune`'s best_scenario.yaml lies in its output
+  folder, not beside the firmware);
 - the merged text is validated as the file it will be (from its own folder) before anything is
   written, and written atomically (`sim.core.outputs`).
 
@@ -67,16 +69,18 @@ def _take_place(node, old, new, value) -> None:
         node.ca.items[new] = comment
 
 
-def plain_value(value):
+def plain_value(value, *, exact: bool = False):
     """A patch value as it should appear in YAML: Python floats at 7 significant digits, numpy
-    scalars as Python numbers, mappings and lists recursively."""
+    scalars as Python numbers, mappings and lists recursively. The values of a firmware's
+    `defines` stay exact (`exact`): a define's text is part of the build, so a rounded one would
+    compile another firmware than the one that was judged."""
     if isinstance(value, dict):
-        return {str(k): plain_value(v) for k, v in value.items()}
+        return {str(k): plain_value(v, exact=exact or k == "defines") for k, v in value.items()}
     if isinstance(value, (list, tuple)):
-        return [plain_value(v) for v in value]
+        return [plain_value(v, exact=exact) for v in value]
     if hasattr(value, "item") and not isinstance(value, (str, bytes)):
         value = value.item()
-    if isinstance(value, float) and math.isfinite(value):
+    if isinstance(value, float) and math.isfinite(value) and not exact:
         return float(f"{value:.7g}") + 0.0   # + 0.0: no "-0.0" in a file a person reads
     return value
 
@@ -162,11 +166,26 @@ def _rewrite_plugin_paths(node, src_dir: Path, dest_dir: Path, notes: list[str],
                                  + ("; it lies outside that folder, so loading the new file needs "
                                     "`wheelbench --allow-plugins-outside ...` (or WHEELBENCH_ALLOW_PLUGINS_OUTSIDE=1), "
                                     "or a copy of the plug-in beside it" if outside else ""))
+            elif key in FIRMWARE_PATHS and node.get("kind") == "firmware" and isinstance(value, list):
+                _rewrite_firmware_paths(value, src_dir, dest_dir)
             else:
                 _rewrite_plugin_paths(value, src_dir, dest_dir, notes, path + (key,))
     elif isinstance(node, list):
         for i, item in enumerate(node):
             _rewrite_plugin_paths(item, src_dir, dest_dir, notes, path + (f"[{i}]",))
+
+
+FIRMWARE_PATHS = ("sources", "include")   # a firmware strategy's paths, relative to the scenario file
+
+
+def _rewrite_firmware_paths(items: list, src_dir: Path, dest_dir: Path) -> None:
+    """Each relative path in a firmware strategy's `sources` or `include`, rewritten in place to
+    resolve from `dest_dir` (the firmware may lie anywhere: no note needed)."""
+    if src_dir == dest_dir:
+        return
+    for i, item in enumerate(items):
+        if isinstance(item, str) and not Path(item).is_absolute():
+            items[i] = Path(os.path.relpath(src_dir / item, dest_dir)).as_posix()
 
 
 def read_patch(path: str | Path) -> dict:

@@ -7,6 +7,12 @@ below; they are our choice, not a standard):
 Outcome `strategy_failed` -> `strategy_failed`; outcome `diverged` -> `diverged` (the detail is
 the runner's message).
 
+Outcomes `fell` and `not_caught`, first of all: the power chain's protections (`sim.physics.drive`).
+When the drive switched itself off before the fall (or, not caught, at any time in the trial), the
+first such event is the cause: `battery_cutoff` (the bus sagged below the pack's cut-off),
+`driver_tripped` (the over-current trip fired), `bus_over_voltage` (regeneration raised the bus above
+`drive.max_bus_voltage`).
+
 Outcome `fell` (the body left the release angle after it was held), in this order:
 
 1. `push_too_large`: the fall came inside a push's recovery window (PUSH_RECOVER_S after it,
@@ -20,22 +26,27 @@ Outcome `fell` (the body left the release angle after it was held), in this orde
    gains at least DRIFT_MIN_SHARE of the no-load speed, and the speed keeps its sign over the
    stretch's second half. A steady torque demand (a sensor bias, an off-centre mass) that the law
    does not cancel.
-4. `current_at_limit`: the drive's current limit was reached (CURRENT_AT_LIMIT of it) for a
+4. `estimator_misread`: with an estimator making the law's angle (an IMU), its angle was off the
+   true angle by ESTIMATOR_MISREAD_RAD RMS or more over the stretch the body was held (up to
+   LOOKBACK_S before the fall, or the whole held stretch when that is shorter): the law balanced a
+   wrong angle (an IMU far from the pivot reading the body's own acceleration as tilt, a filter
+   trusting its accelerometer too much, a misaligned mount).
+5. `current_at_limit`: the drive's current limit was reached (CURRENT_AT_LIMIT of it) for a
    sustained stretch ending within LOOKBACK_S of the fall (sustained: SUSTAINED_S, or half the
    time the body was held, when that is shorter, and at least one control tick). Checked before the
    voltage: with the current at its limit the limit, not the supply, caps the torque.
-5. `voltage_at_supply`: the voltage was at the supply for a sustained stretch ending within
+6. `voltage_at_supply`: the voltage was at the supply for a sustained stretch ending within
    LOOKBACK_S of the fall, the wheel not at its limit: the motor could not give
    the torque the law asked for.
-6. `gains_too_weak`: none of the limits above was reached and the body still fell.
+7. `gains_too_weak`: none of the limits above was reached and the body still fell.
 
 Outcome `not_caught`:
 
-7. `swing_energy_short`: a swing-up that never brought the body the energy to come upright: the
+8. `swing_energy_short`: a swing-up that never brought the body the energy to come upright: the
    peak of E = 1/2 J theta_d^2 + mbar g (cos theta - 1) (0 upright at rest, -2 mbar g hanging)
    stayed below 0.
-8. `start_outside_release`: a balance-only law whose trial started beyond its release angle.
-9. `catch_missed`: anything else not caught (the energy was there, the catch did not happen).
+9. `start_outside_release`: a balance-only law whose trial started beyond its release angle.
+10. `catch_missed`: anything else not caught (the energy was there, the catch did not happen).
 """
 
 from __future__ import annotations
@@ -45,7 +56,7 @@ import math
 import numpy as np
 
 from ..core.angles import wrap_angles
-from .metrics import PUSH_RECOVER_S, saturated_ticks, totals_end_row
+from .metrics import PUSH_RECOVER_S, saturated_ticks, supply_ceiling, totals_end_row
 
 CAUSES = {
     "wheel_at_speed_limit": "the wheel neared its no-load speed before the fall",
@@ -54,11 +65,15 @@ CAUSES = {
     "swing_energy_short": "a swing-up never gave the body the energy to come upright",
     "push_too_large": "the body fell inside a push's recovery window",
     "bias_drift": "the wheel drifted steadily with one sign before the fall",
+    "estimator_misread": "the estimator's angle was off the true angle while the body was held",
     "gains_too_weak": "the body fell with none of the limits reached",
     "strategy_failed": "the strategy raised, returned nonsense or ran past its time budget",
     "diverged": "the simulated state became non-finite or absurd",
     "start_outside_release": "a balance-only trial started beyond the release angle",
     "catch_missed": "the body had the energy to come upright but was not caught",
+    "battery_cutoff": "the battery sagged below its cut-off and the drive switched off",
+    "driver_tripped": "the driver's over-current protection tripped and stopped driving",
+    "bus_over_voltage": "regeneration raised the bus above its limit and the drive switched off",
 }
 """Every cause code, with what it means (the README's table says the same)."""
 
@@ -69,6 +84,7 @@ CURRENT_AT_LIMIT = 0.98     # share of the current limit
 DRIFT_MIN_S = 2.0           # a drift needs a held stretch at least this long, s
 DRIFT_MIN_SHARE = 0.2       # ... gaining at least this share of the no-load speed
 DRIFT_MIN_R2 = 0.8          # ... and this straight (coefficient of determination of the line)
+ESTIMATOR_MISREAD_RAD = math.radians(1.0)   # estimator's RMS angle error that misleads the law, rad
 
 
 def find_cause(result) -> tuple[str | None, str | None]:
@@ -81,9 +97,39 @@ def find_cause(result) -> tuple[str | None, str | None]:
         return outcome, result.message or outcome
     if result.trace.n == 0:
         return "catch_missed", "the trial recorded no steps"
+    power = _power_event(result)
+    if power is not None:
+        return power
     if outcome == "fell" and result.fell_at_s is not None:
         return _fell(result)
     return _not_caught(result)
+
+
+# ----------------------------------------------------------------------------- power
+
+def _power_event(result) -> tuple[str, str] | None:
+    """The first protection event of the power chain before the fall (any time when not caught)."""
+    summary = getattr(result, "power", None)
+    if not summary or not summary["power_events"]:
+        return None
+    t_end = result.fell_at_s if result.fell_at_s is not None else math.inf
+    events = [e for e in summary["power_events"] if e["at_s"] <= t_end]
+    if not events:
+        return None
+    first, sc = events[0], result.scenario
+    t, code = first["at_s"], first["cause"]
+    fell = (f"the body fell at {result.fell_at_s:.2f} s" if result.fell_at_s is not None
+            else "the body was not caught")
+    if code == "battery_cutoff":
+        cut = sc.battery.cells * sc.battery.cutoff_per_cell
+        return code, (f"the bus sagged to {summary['min_supply_voltage_v']:.2f} V, below the pack's {cut:.2f} V "
+                      f"cut-off, at {t:.3f} s and the drive switched off; {fell}")
+    if code == "driver_tripped":
+        trip = sc.drive.trip
+        return code, (f"the driver tripped at {t:.3f} s (|i| above {trip.current:.3g} A for {trip.time:g} s; "
+                      f"{summary['driver_trips']} trip(s) in the trial) and stopped driving; {fell}")
+    return code, (f"regeneration raised the bus to {summary['peak_supply_voltage_v']:.2f} V, above its "
+                  f"{sc.drive.max_bus_voltage:.3g} V limit, at {t:.3f} s and the drive switched off; {fell}")
 
 
 # ----------------------------------------------------------------------------- fell
@@ -97,7 +143,13 @@ def _fell(result) -> tuple[str, str]:
     wheel = np.abs(tr.wheel_speed[:end])
     share = float(np.max(wheel[max(0, end - look):])) / limit
     supply = sc.drive.supply
-    volt_s = _run_before(np.abs(tr.voltage[:end]) >= supply * (1.0 - 1e-9), look) * dt
+    ceiling = supply_ceiling(tr, sc)
+    if isinstance(ceiling, np.ndarray):     # through the power chain: the bus row by row (0: no bus)
+        ceiling = ceiling[:end]
+        at_ceiling = (np.abs(tr.voltage[:end]) >= ceiling * (1.0 - 1e-9)) & (ceiling > 0.0)
+    else:
+        at_ceiling = np.abs(tr.voltage[:end]) >= ceiling * (1.0 - 1e-9)
+    volt_s = _run_before(at_ceiling, look) * dt
     held_from = _held_from(result, end)
     # sustained: SUSTAINED_S, or half the time the body was held when that was shorter
     sustained = max(min(SUSTAINED_S, 0.5 * (end - held_from) * dt), sc.control_steps * dt)
@@ -122,6 +174,13 @@ def _fell(result) -> tuple[str, str]:
             f"{at} after the wheel drifted steadily at {drift[0]:+.3g} rad/s per s for {drift[1]:.1f} s, to "
             f"{share:.0%} of its no-load speed: a steady torque demand (such as an angle-sensor bias or an "
             f"off-centre mass) that the law does not cancel")
+    misread = _estimator_error(result, held_from, end, look)
+    if misread is not None and misread[0] >= ESTIMATOR_MISREAD_RAD:
+        rms, peak = misread
+        return "estimator_misread", (
+            f"{at} after the estimator's angle was off the true angle by {math.degrees(rms):.2f} deg RMS "
+            f"({math.degrees(peak):.2f} deg at most) while the body was held: the law balanced a wrong angle "
+            f"(the IMU's place, its mounting or the filter's trust in the accelerometer)")
     i_lim = dev.current_limit_a
     if math.isfinite(i_lim):
         cur_s = _run_before(np.abs(tr.current[:end]) >= CURRENT_AT_LIMIT * i_lim, look) * dt
@@ -171,6 +230,19 @@ def _held_from(result, end: int) -> int:
     return int(before[-1]) + 1 if before.size else 0
 
 
+def _estimator_error(result, held_from: int, end: int, look: int) -> tuple[float, float] | None:
+    """(RMS, peak) of the estimator's angle error, rad, over the held stretch before the last `look`
+    rows (the whole held stretch when that leaves none); None without an estimator."""
+    est = result.trace.extra.get("estimated_angle_rad")
+    if est is None:
+        return None
+    stop = end - look if end - look > held_from else end
+    if stop <= held_from:
+        return None
+    err = wrap_angles(est[held_from:stop] - result.trace.angle[held_from:stop])
+    return float(np.sqrt(np.mean(err**2))), float(np.max(np.abs(err)))
+
+
 def _drift(result, start: int, stop: int) -> tuple[float, float] | None:
     """(slope rad/s per s, length s) of a steady one-signed wheel drift over rows start..stop-1, or None."""
     tr, dev = result.trace, result.device
@@ -199,7 +271,7 @@ def _not_caught(result) -> tuple[str, str]:
     e_peak, well = float(np.max(energy)), 2.0 * dev.gravity_torque_coeff_n_m
     w_share = float(np.max(np.abs(tr.wheel_speed[:n]))) / dev.no_load_speed_rad_s
     ticks = -(-n // sc.control_steps)
-    sat = saturated_ticks(tr, sc.control_steps, sc.drive.supply) / ticks
+    sat = saturated_ticks(tr, sc.control_steps, supply_ceiling(tr, sc)) / ticks
     limits = (f"the wheel peaked at {w_share:.0%} of its no-load speed and the voltage was at the supply "
               f"on {sat:.0%} of the ticks")
     strategy = result.strategy

@@ -25,14 +25,28 @@ SATURATION_REL_TOL = 1e-9
 supply counts, whatever rounding its arithmetic did."""
 
 
-def saturated_ticks(trace, control_steps: int, supply_v: float, end_row: int | None = None) -> int:
+def saturated_ticks(trace, control_steps: int, supply_v, end_row: int | None = None) -> int:
     """Control ticks in rows [0, end_row) whose voltage reached the supply (see SATURATION_REL_TOL).
 
     Ticks are the rows k with k % control_steps == 0; the trace holds the voltage the drive applied.
+    `supply_v`: V, or an array of it by row (`supply_ceiling` of a trial through the power chain).
     """
     end = trace.n if end_row is None else min(end_row, trace.n)
     volts = trace.voltage[:end:control_steps]
+    if isinstance(supply_v, np.ndarray):   # a row with no bus (the row of a failure) is no saturation
+        ref = supply_v[:end:control_steps]
+        return int(np.count_nonzero((np.abs(volts) >= ref * (1.0 - SATURATION_REL_TOL)) & (ref > 0.0)))
     return int(np.count_nonzero(np.abs(volts) >= supply_v * (1.0 - SATURATION_REL_TOL)))
+
+
+def supply_ceiling(trace, scenario):
+    """The most the drive could apply, V: the scenario's supply, or, through the power chain, the bus
+    at each row less the dead-time loss (an array by row: a sagging pack's duty at 100% counts)."""
+    if not getattr(trace, "has_power_columns", False):
+        return scenario.drive.supply
+    pwm = scenario.drive.pwm
+    loss = 2.0 * pwm.dead_time * pwm.frequency if pwm is not None and pwm.frequency is not None else 0.0
+    return trace.supply_voltage * (1.0 - loss)
 
 
 def totals_end_row(result) -> int:
@@ -54,7 +68,7 @@ def trial_metrics(result) -> dict:
     limit = dev.no_load_speed_rad_s
     peak_wheel = float(np.max(np.abs(wheel[finite]))) if finite.any() else None
     ticks = -(-end // sc.control_steps)  # the tick rows among the first `end` rows
-    sat = saturated_ticks(tr, sc.control_steps, sc.drive.supply, end)
+    sat = saturated_ticks(tr, sc.control_steps, supply_ceiling(tr, sc), end)
     rms = float(np.sqrt(np.mean(cur**2))) if end else 0.0
     energy = float(np.sum(volt * cur) * dt)
     caught = result.caught_at_s
@@ -92,6 +106,8 @@ def trial_metrics(result) -> dict:
         "physics_step_s": dt,
         "control_rate_hz": dev.control_rate_hz,
     }
+    if result.power is not None:    # the power chain's figures, only when it ran (today's keys stay as they were)
+        metrics.update(power_metrics(result))
     # a strategy may report figures of its own (e.g. a jump's needed and reached wheel speed);
     # they never replace the runner's keys
     extra = getattr(result.strategy, "extra_metrics", None) or {}
@@ -113,6 +129,26 @@ def sensing_metrics(result, angle: np.ndarray, end: int) -> dict:
                 "estimator_angle_mean_error_rad": float(np.mean(err)) if err.size else None}
     if result.loop_overruns is not None:
         out["loop_overruns"] = result.loop_overruns
+    return out
+
+
+def power_metrics(result) -> dict:
+    """The power chain's keys: the bus voltage's extremes (V; the peak shows regeneration), the charge
+    used (mAh, net of regeneration), the pack's state of charge at the end (null on a bench supply),
+    the driver's trips, the share of steps whose non-zero command fell in the PWM dead band (null
+    without a PWM model), the protection events, the mean bus current over the trial (A) and the energy
+    drawn from the bus (J)."""
+    p = result.power
+    tr = result.trace
+    out = {k: p[k] for k in ("min_supply_voltage_v", "peak_supply_voltage_v", "charge_used_mah",
+                             "battery_state_of_charge_end", "driver_trips", "pwm_dead_band_fraction",
+                             "power_events")}
+    out["mean_bus_current_a"] = float(np.mean(tr.bus_current[: tr.n])) if tr.n else 0.0
+    # what the supply gave (negative: took back), the integral of V_bus I_bus; `energy_from_supply_j`
+    # stays the winding's V i, as without the chain
+    out["bus_energy_j"] = float(np.dot(tr.supply_voltage[: tr.n], tr.bus_current[: tr.n]) * tr.step_s)
+    if "peak_winding_temperature_c" in p:
+        out["peak_winding_temperature_c"] = p["peak_winding_temperature_c"]
     return out
 
 

@@ -24,6 +24,11 @@ CSV_COLUMNS = (
     "mode",
 )
 
+POWER_CSV_COLUMNS = ("supply_voltage_v", "bus_current_a")
+"""Extra columns of a trial through the power chain (a battery or a drive model), written every step
+(not held between ticks): the bus voltage at each step's start, V, and the step's mean bus current, A
+(negative: regenerating)."""
+
 
 MAX_PHASES = 256
 """Distinct phase names a trace keeps. The first MAX_PHASES names a strategy uses get their own
@@ -93,6 +98,21 @@ class Trace:
                 self.phases.append(phase)
                 self._codes[phase] = code
         return code
+
+    @property
+    def has_power_columns(self) -> bool:
+        """True for a trial through the power chain (POWER_CSV_COLUMNS are among the extra columns)."""
+        return POWER_CSV_COLUMNS[0] in self.extra
+
+    @property
+    def supply_voltage(self) -> np.ndarray:
+        """The bus voltage column (all rows), V; power-chain traces only."""
+        return self.extra[POWER_CSV_COLUMNS[0]]
+
+    @property
+    def bus_current(self) -> np.ndarray:
+        """The bus current column (all rows), A; power-chain traces only."""
+        return self.extra[POWER_CSV_COLUMNS[1]]
 
     def view(self, name: str) -> np.ndarray:
         """A filled column (a view, no copy); `name` a float column, `mode` or an extra column."""

@@ -22,14 +22,15 @@ from ..core.budget import AFTER_S, StrategyClock
 from ..core.errors import StrategyError
 from ..model.device import Device
 from ..physics.engine import EngineModel
+from ..physics.drive import PowerChain
 from ..physics.motor import MotorDrive
 from ..physics.imu_sensing import TIMING_STREAM, make_sensors, sensing_columns, stream
 from ..physics.timing import TickSchedule
 from ..strategies import plugins_in
 from ..strategies.base import Reading
 from .causes import find_cause
-from .metrics import saturated_ticks
-from .trace import Trace
+from .metrics import saturated_ticks, supply_ceiling
+from .trace import POWER_CSV_COLUMNS, Trace
 from .trial_common import TrialResult, close_trace  # noqa: F401 - TrialResult's home was here
 from .trial_common import describe as _describe
 from .trial_common import describe_unread as _describe_unread
@@ -40,6 +41,10 @@ OUTCOMES = ("balanced", "fell", "not_caught", "diverged", "strategy_failed", "co
 ABSURD_RATE_RAD_S = 1e4          # a body spinning at 1,600 rev/s is a numerical blow-up
 ABSURD_WHEEL_FACTOR = 20.0       # wheel beyond 20x its no-load speed: likewise
 ABSURD_ANGLE_RAD = 1e6           # ~160,000 turns: the unwrapped angle has run away
+_now = time.perf_counter
+# the heartbeat's slots, as module globals: a class attribute looked up through an instance costs
+# more, twice per control tick
+_STEP, _DEADLINE, _SATURATED = isolation.Heartbeat.STEP, isolation.Heartbeat.DEADLINE, isolation.Heartbeat.SATURATED
 STRATEGY_BUDGET_S = 60.0
 """Default wall-clock budget, s, for all strategy work in one trial (building it and every
 control tick together). The built-in laws use well under 1 s for a minute of simulated time;
@@ -48,22 +53,57 @@ a plug-in past the budget ends the trial with outcome `strategy_failed`."""
 
 class _WatchedClock(StrategyClock):
     """A StrategyClock that also keeps the watchdog's heartbeat: isolated trials only (see
-    `sim.core.isolation`), so that the in-process loop pays nothing for it."""
+    `sim.core.isolation`), so that the in-process loop pays nothing for it.
+
+    Called twice per control tick, so kept light: the base's enter/leave inlined, the heartbeat's
+    slots written directly, and the strategy's saturated-tick count read from its instance
+    dictionary (a missing attribute looked up with getattr raises and catches an AttributeError
+    every tick)."""
 
     def __init__(self, budget_s: float, beat: isolation.Heartbeat):
-        super().__init__(budget_s)
+        super().__init__(budget_s)          # sets `strategy` to None through the property below
         self.beat = beat
+        self._slots = beat.slots
+        # deadline = entry + what is left of the budget + the grace
+        self._slack = self.budget_s + isolation.GRACE_S
+
+    @property
+    def strategy(self):
+        return self._strategy
+
+    @strategy.setter
+    def strategy(self, strategy) -> None:
+        self._strategy = strategy
+        plain = (strategy is not None and hasattr(strategy, "__dict__")
+                 and not hasattr(type(strategy), "saturated_ticks"))
+        # None: read it with getattr (a class attribute, a property, slots); else this dict
+        self._state = vars(strategy) if plain else ({} if strategy is None else None)
+
+    def _saturated(self) -> int:
+        state = self._state
+        return state.get("saturated_ticks", 0) if state is not None else getattr(self._strategy, "saturated_ticks", 0)
 
     def enter(self, k: int = -1) -> None:
-        super().enter(k)
-        self.beat.entered(k, self.t_in + max(self.budget_s - self.used_s, 0.0) + isolation.GRACE_S)
+        t = self.t_in = _now()
+        slots = self._slots
+        slots[_STEP] = k              # before the deadline: the parent reads the deadline first
+        # what is left of the budget is never below 0 here: leave() ends the trial when it is used
+        # up, and after() keeps AFTER_S of it (no max(): a builtin call costs more than the rest)
+        slots[_DEADLINE] = t + (self._slack - self.used_s)
 
     def leave(self) -> None:
-        self.beat.left(getattr(self.strategy, "saturated_ticks", 0))
-        super().leave()
+        slots = self._slots
+        slots[_DEADLINE] = 0.0
+        state = self._state
+        slots[_SATURATED] = (state.get("saturated_ticks", 0) if state is not None
+                             else getattr(self._strategy, "saturated_ticks", 0))
+        self.used_s += _now() - self.t_in
+        self.t_in = None
+        if self.used_s > self.budget_s:
+            self._expire()
 
     def abandon(self) -> None:
-        self.beat.left(getattr(self.strategy, "saturated_ticks", 0))
+        self.beat.left(self._saturated())
         super().abandon()
 
     def after(self, work, fallback):
@@ -126,7 +166,7 @@ def run_trial(scenario, *, seed: int | None = None, stop_early: bool | None = No
         isolate = visual is None and isolation.AVAILABLE and (bool(plugins_in(scenario.strategy))
                                                               or (estimator is not None and estimator.is_plugin))
     if not isolate:
-        trace = Trace(scenario.n_steps, step_s=scenario.world.step, extra=sensing_columns(scenario))
+        trace = Trace(scenario.n_steps, step_s=scenario.world.step, extra=trace_columns(scenario))
         return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
                          visual=visual, on_step=on_step)
     if visual is not None or not isolation.AVAILABLE:
@@ -165,9 +205,9 @@ def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step)
     beat = isolation.Heartbeat()
     try:
         trace = _PublishedTrace(scenario.n_steps, step_s=scenario.world.step, beat=beat,
-                                extra=sensing_columns(scenario))
+                                extra=trace_columns(scenario))
     except OSError:     # no room for a shared trace, in the temporary folder or in memory: run here
-        trace = Trace(scenario.n_steps, step_s=scenario.world.step, extra=sensing_columns(scenario))
+        trace = Trace(scenario.n_steps, step_s=scenario.world.step, extra=trace_columns(scenario))
         return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
                          visual=None, on_step=on_step)
     clock = _WatchedClock(budget, beat)
@@ -215,7 +255,13 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
     # the supply as the scenario states it: nothing the strategy holds (its `supply_v`, its device)
     supply = float(scenario.drive.supply)
     fallen = None  # the trace's phase code "fallen", once a body has fallen
-    motor = MotorDrive(device, step_s=dt)
+    chain = PowerChain(scenario, device, step_s=dt) if scenario.power_model else None
+    if chain is None:
+        motor = MotorDrive(device, step_s=dt)   # today's ideal source
+    else:   # battery, PWM, current mode, ...: the same per-step call; the command's limit is the chain's
+        motor, supply = chain, chain.command_limit
+        applied = np.zeros(n)   # the chain's mean winding voltage per step (the trace's voltage column)
+        t_sup, t_bus, t_app = (memoryview(c) for c in (trace.supply_voltage, trace.bus_current, applied))
     pushes = _push_schedule(scenario, dt, n)
     next_push, push_torque = pushes.pop() if pushes else (-1, 0.0)
     wheel_limit = ABSURD_WHEEL_FACTOR * device.no_load_speed_rad_s + 100.0
@@ -319,9 +365,14 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
                     fallen = trace.phase_code("fallen") if fallen is None else fallen
                     t_mode[k] = fallen
         if open_circuit:
-            motor.current, cur, torque = 0.0, 0.0, 0.0
+            if chain is None:
+                motor.current, cur, torque = 0.0, 0.0, 0.0
+            else:
+                cur, torque = chain.float_winding()
         else:
             cur, torque = update(volts, phd)
+        if chain is not None:
+            t_sup[k], t_bus[k], t_app[k] = chain.bus_v, chain.bus_current_a, chain.applied_v
         pivot_torque = -bp * thd
         if k == next_push:
             pivot_torque += push_torque
@@ -334,16 +385,20 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
             on_step(k, engine)
         k += 1
     wall = time.perf_counter() - wall0
+    power = {} if chain is None else {"power": chain.summary(), "applied": applied}
     return _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, fall_final,
-                   wants_balance, ticks, wall, tick_rows=tick_rows, overruns=schedule.overruns if timed else None)
+                   wants_balance, ticks, wall, tick_rows=tick_rows, overruns=schedule.overruns if timed else None,
+                   **power)
 
 
 def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, fall_final,
-            wants_balance, ticks, wall, *, tick_rows=None, overruns=None) -> TrialResult:
+            wants_balance, ticks, wall, *, tick_rows=None, overruns=None, power=None, applied=None) -> TrialResult:
     """Close the trace and judge the outcome. `k` is the step the loop stopped at."""
     dt, n = scenario.world.step, scenario.n_steps
     ended = close_trace(trace, outcome=outcome, k=k, n=n, dt=dt, fell_k=fell_k)
     _hold_tick_values(trace, scenario.control_steps, tick_rows)
+    if applied is not None:     # through the power chain: what reached the winding, step by step
+        trace.voltage[: trace.n] = applied[: trace.n]
     if outcome in ("diverged", "strategy_failed") and k < n:
         trace.voltage[k] = 0.0  # nothing was applied after the failure
     if outcome is None:
@@ -353,18 +408,26 @@ def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fel
         # a body balanced from the first step was never caught: it started inside the catch region
         caught_at_s=catch_k * dt if (catch_k and outcome == "balanced") else None,
         fell_at_s=fell_k * dt if fell_k is not None else None, ended_at_s=ended,
-        control_ticks=ticks, saturated_ticks=saturated_ticks(trace, scenario.control_steps, scenario.drive.supply),
-        wall_s=wall, strategy=strategy, loop_overruns=overruns,
+        control_ticks=ticks, saturated_ticks=saturated_ticks(trace, scenario.control_steps,
+                                                             supply_ceiling(trace, scenario)),
+        wall_s=wall, strategy=strategy, loop_overruns=overruns, power=power,
     )
     result.cause, result.cause_detail = find_cause(result)
     return result
+
+
+def trace_columns(scenario) -> tuple[str, ...]:
+    """The extra trace columns of a scenario: its sensing columns, then the power chain's."""
+    return sensing_columns(scenario) + (POWER_CSV_COLUMNS if scenario.power_model else ())
 
 
 def _hold_tick_values(trace: Trace, cs: int, tick_rows: list[int] | None = None) -> None:
     """Copy each control tick's held values (voltage, mode, measurements, extra columns) down to
     the rows until the next tick: the loop writes them on tick rows only. With `tick_rows` (a
     timed loop: ticks where the schedule put them) the voltage is left as written, every row."""
-    cols = [trace.mode, trace.meas_angle, trace.meas_rate, trace.meas_wheel, *trace.extra.values()]
+    # the power chain's columns are written every step: not held
+    cols = [trace.mode, trace.meas_angle, trace.meas_rate, trace.meas_wheel,
+            *(c for name, c in trace.extra.items() if name not in POWER_CSV_COLUMNS)]
     if tick_rows is None:
         rows = (np.arange(trace.n) // cs) * cs
         cols.insert(0, trace.voltage)

@@ -35,6 +35,7 @@ class TrialResult:
     events: list = field(default_factory=list)
     cause: str | None = None            # why a trial that is not balanced/completed ended so (sim.run.causes)
     cause_detail: str | None = None     # one sentence with the figures behind `cause`
+    power: dict | None = None           # the power chain's summary (`PowerChain.summary`), None without one
     loop_overruns: int | None = None    # with a `timing` section: ticks skipped or commands dropped
 
 

@@ -40,6 +40,7 @@ __all__ = ["BUILTIN", "Reading", "Strategy", "StrategyParams", "StrategySpec", "
 BUILTIN: dict[str, str] = {
     "coast": "sim.strategies.bench:Coast",
     "fixed_voltage": "sim.strategies.bench:FixedVoltage",
+    "fixed_current": "sim.strategies.bench:FixedCurrent",
     "lqr": "sim.strategies.lqr:LqrBalance",
     "energy": "sim.strategies.swingup:EnergySwingUp",
     "pump": "sim.strategies.swingup:PumpSwingUp",

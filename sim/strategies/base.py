@@ -84,6 +84,11 @@ class Strategy:
        `self.brake = True` to clamp the wheel to the body with the brake, and False to release
        it. `self.open_circuit = True` floats the winding: no current flows whatever the voltage
        (a driver switched off, as opposed to one holding 0 V, which brakes by back-EMF).
+    6a. Current mode. With `drive.mode: current` (a torque-mode driver) the runner reads the
+       command as amps in the winding, not volts, and clamps it to the current limit (or the stall
+       current at the starting supply). Only a class with `commands_current = True` may run there;
+       it reads `self.device.drive_mode` ("voltage" or "current") and answers in the unit that
+       says. `needs_current_mode = True` marks a law that commands amps only (`fixed_current`).
     7. Registration. Built-ins are named in `sim.strategies.BUILTIN`; a plug-in is any subclass
        named in a scenario by "file.py:Class" or "package.module:Class", or registered under the
        entry-point group "wheelbench.strategies". A plug-in file must lie in the scenario file's
@@ -102,6 +107,8 @@ class Strategy:
     planar_only: ClassVar[bool] = False
     """True for laws that are one-axis by nature: a scenario pairing one with a multi-wheel or
     ball-mounted device (not `Scenario.is_planar`) is refused at load."""
+    commands_current: ClassVar[bool] = False   # True: answers in amps when device.drive_mode is "current"
+    needs_current_mode: ClassVar[bool] = False  # True: answers in amps only
 
     class Params(StrategyParams):
         model_config = ConfigDict(extra="allow", frozen=True)

@@ -41,3 +41,23 @@ class FixedVoltage(Strategy):
     def decide(self, reading: Reading):
         n = getattr(self.device, "n_wheels", 1)
         return self.params.volts if n == 1 else (self.params.volts,) * n
+
+
+class FixedCurrent(Strategy):
+    """A constant current in the winding (a step at t = 0), A: for a current-mode drive only."""
+
+    kind = "fixed_current"
+    goal = None
+    planar_only = True   # a current-mode drive: one-wheel hinge devices only (refused for 3D at load)
+    commands_current = True
+    needs_current_mode = True
+
+    class Params(StrategyParams):
+        amps: Q("current", ge=-1e4, le=1e4) = 0.0
+
+    def __init__(self, **kw) -> None:
+        super().__init__(**kw)
+        self.phase = "fixed current"
+
+    def decide(self, reading: Reading) -> float:
+        return self.params.amps

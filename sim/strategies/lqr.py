@@ -24,10 +24,14 @@ class LqrBalance(Strategy):
     A device with `linear_spec()` (several wheels, a tilted wheel axis or a ball mount) gets
     `MultiWheelLqr` instead: the same design for one voltage per wheel,
     the three weights then applying to every angle, every body rate and every wheel speed.
+
+    With `drive.mode: current` the law is designed on current input (the device's linear model with
+    torque k_t i) and answers in amps; `effort` is then in 1/A^2.
     """
 
     kind = "lqr"
     goal = "balance"
+    commands_current = True
 
     class Params(StrategyParams):
         weights: Annotated[list[Annotated[float, Field(ge=0, allow_inf_nan=False)]], Field(min_length=3, max_length=3)] | None = None
@@ -45,6 +49,7 @@ class LqrBalance(Strategy):
         self.predictor = DelayPredictor(self.design, delay_s=self.device.delay_s)
         self._gx, self._gu = self.folded_gains(self.design, self.predictor)
         self.phase = "balance"
+        self._volts = self.device.drive_mode != "current"
 
     @staticmethod
     def folded_gains(design, pred) -> tuple[tuple[float, float, float], tuple[float, ...]]:
@@ -72,7 +77,7 @@ class LqrBalance(Strategy):
             for g, u in zip(self._gu, held):
                 v -= g * u
             # what the drive will apply, recorded as DelayPredictor.record does (inline: every tick)
-            cap = self.supply_v
+            cap = self.supply_v if self._volts else self.device.command_limit
             del held[0]
             held.append(cap if v > cap else (-cap if v < -cap else v))
         return v

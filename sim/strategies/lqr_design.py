@@ -57,9 +57,12 @@ def bryson_weights(device) -> tuple[np.ndarray, float]:
     Largest acceptable excursions: angle 3 deg; body rate 0.5 rad/s; wheel speed half the
     no-load speed (the other half is kept for disturbances); input the full supply voltage.
     These choices are ours (common practice, no source) and are stated in `wheelbench gains`.
+    With a current-mode drive the input is amps and its largest value the drive's current limit
+    (`device.command_limit`).
     """
     x_max = np.array([ANGLE_LIMIT_RAD, RATE_LIMIT_RAD_S, WHEEL_SPEED_SHARE * device.no_load_speed_rad_s])
-    return 1.0 / x_max**2, 1.0 / device.supply_v**2
+    u_max = device.command_limit if getattr(device, "drive_mode", "voltage") == "current" else device.supply_v
+    return 1.0 / x_max**2, 1.0 / u_max**2
 
 
 def state_kind(name: str) -> int:

@@ -54,6 +54,9 @@ def gains_report(scenario) -> dict:
     """Everything firmware needs from the balance law's design, SI units, as plain JSON-ready data."""
     from ..model.device import Device
     device = Device.from_scenario(scenario)
+    if device.drive_mode == "current":
+        raise InputError(f"{scenario.source}: drive.mode: gains are written for voltage-mode laws only; a current-mode "
+                         "law's gains are in amps (run the scenario to use them; `gains` does not write them yet)")
     law, spec = balance_spec(scenario)
     if law == "pid":
         return pid_report(scenario, device, spec)

@@ -23,6 +23,10 @@ def outcome_with_cause(m: dict) -> str:
     """A run's outcome for a criterion's note, with its cause when it failed: "fell (bias_drift)"."""
     return f"{m['outcome']} ({m['cause']})" if m.get("cause") else m["outcome"]
 
+POWER_ROW_KEYS = ("min_supply_voltage_v", "peak_supply_voltage_v", "charge_used_mah", "driver_trips")
+"""The power chain's figures a judged row carries when the chain ran (sweep's results.csv adds them)."""
+
+
 def judge_trial(scenario, *, seed: int) -> dict:
     """Run a scenario's own trial and judge it against its requirements. A flat row, no traces."""
     result = run_trial(scenario, seed=seed, stop_early=True)
@@ -40,7 +44,8 @@ def judge_trial(scenario, *, seed: int) -> dict:
         reasons.append("wheel speed margin")
     rms = trial_rms_current_a(result.trace.view("current"), result.trace.step_s, result.fell_at_s, result.caught_at_s)
     temp = winding_check(scenario.motor, rms)["steady_winding_temperature_c"]
-    return {
+    power = {k: m[k] for k in POWER_ROW_KEYS} if "min_supply_voltage_v" in m else {}   # the power chain ran
+    return power | {
         "outcome": m["outcome"], "message": m["message"], "caught_at_s": m["caught_at_s"],
         "settle_time_s": m["settle_time_s"], "peak_wheel_speed_rad_s": m["peak_wheel_speed_rad_s"],
         "wheel_speed_margin": m["wheel_speed_margin"], "peak_current_a": m["peak_current_a"],

@@ -338,9 +338,13 @@ def write_results_csv(path: Path, varies: list[Vary], journal_path: Path) -> Non
 
     Streamed from the journal (rows are in finishing order there): one pass finds each point's
     line, a second writes them in point order, so memory is one offset per point, not one row.
+    When any point ran through the power chain, its figures (`monte_carlo.POWER_ROW_KEYS`) follow the
+    metric columns (blank for points without it); a sweep without one has exactly the columns it had.
     """
+    from .monte_carlo import POWER_ROW_KEYS
     columns = [v.key for v in varies] + list(METRIC_COLUMNS)
     offsets = np.full(int(np.prod([len(v.values) for v in varies])), -1, dtype=np.int64)
+    power = False
     if journal_path.exists():
         with open(journal_path, "rb") as fh:
             fh.readline()                               # the header
@@ -348,7 +352,10 @@ def write_results_csv(path: Path, varies: list[Vary], journal_path: Path) -> Non
             for line in fh:
                 if line.endswith(b"\n"):
                     offsets[_journal_index(line)] = at
+                    power = power or b'"min_supply_voltage_v"' in line
                 at += len(line)
+    if power:
+        columns += list(POWER_ROW_KEYS)
     with atomic_path(path) as tmp, open(tmp, "w", newline="", encoding="utf-8") as out:
         writer = csv.DictWriter(out, fieldnames=columns, extrasaction="ignore")
         writer.writeheader()

@@ -23,7 +23,7 @@ from __future__ import annotations
 import copy
 import math
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 
 from ..core.errors import InputError, ScenarioError
@@ -53,6 +53,19 @@ class Param:
     log: bool
     start: float | None = None
     does: str = ""
+    integer: bool = False
+    """Searched over whole numbers (the key's value in the scenario is an integer, e.g. a firmware
+    define written as `KP: 240`): the bounds are whole numbers too."""
+    as_written: bool = False
+    """A firmware define: each value tried is first rounded as best_patch.yaml writes it (7
+    significant digits), so that the build an evaluation compiled is the one the winner's
+    scenario compiles (a define's text is part of the build)."""
+
+    def assigned(self, value):
+        """The value the scenario gets at this key for the search's `value`."""
+        if self.integer:
+            return int(value)
+        return float(f"{value:.7g}") + 0.0 if self.as_written else value
 
 
 # ----------------------------------------------------------------------------- the search space
@@ -118,7 +131,23 @@ def _law_space(spec, device, prefix: tuple) -> list[Param]:
                   "wheel_ki": (wki / 30.0, wki * 10.0, wki)}
         return [Param(f"{key}.{n}", prefix + (n,), lo, hi, True, start, PID_TERMS[n][1])
                 for n, (lo, hi, start) in ranges.items()]
+    if spec.kind == "firmware":
+        return _define_space(spec, prefix)
     return _generic_space(spec, device, prefix)
+
+
+def _define_space(spec, prefix: tuple) -> list[Param]:
+    """Compiled firmware: each define the scenario gives as a positive real number (`KP: 240.0`), a
+    decade either side, on a log scale. Integer defines are left to --param (an integer may be a
+    switch, a size or a fixed-point shift as well as a gain); so are defines the firmware defaults
+    itself (`#ifndef`). The firmware is not built here (its wb_init would run in this process)."""
+    out = []
+    for name, value in spec.params.defines.items():
+        if isinstance(value, float) and value > 0:
+            path = prefix + ("defines", name)
+            out.append(Param(".".join(path), path, value / 10.0, value * 10.0, True, value,
+                             f"firmware define {name}", as_written=True))
+    return out
 
 
 def _generic_space(spec, device, prefix: tuple) -> list[Param]:
@@ -151,7 +180,7 @@ def check_space(raw: dict, where: str, params: list[Param]) -> None:
         if p.path in seen:
             raise InputError(f"--param {p.key}: the key is given twice")
         seen.add(p.path)
-        for value in (p.low, p.high):
+        for value in (p.assigned(p.low), p.assigned(p.high)):   # as an evaluation would set them
             trial = copy.deepcopy(raw)
             set_path(trial, list(p.path), value, where=f"{where} (--param {p.key})")
             try:
@@ -223,11 +252,42 @@ def search_setup(raw: dict, where: str, *, param_texts: list[str], only: bool, o
     given = [parse_param(t) for t in param_texts]
     if only and not given:
         raise InputError("--only: give the keys to search with --param KEY=LO..HI")
+    given = [_given_param(p, sc) for p in given]
     keys = {p.key for p in given}
     params = ([] if only else [p for p in default_space(sc, Device.from_scenario(sc)) if p.key not in keys]) + given
     filled = prefill(raw, sc, params)
     check_space(filled, where, params)
     return SearchSetup(sc, objectives, params, filled)
+
+
+def _given_param(p: Param, sc) -> Param:
+    """A --param key as searched. Under a firmware's `defines` its values are rounded as written
+    (`Param.as_written`) and the scenario's value, inside the range, is the first evaluation's. Over
+    whole numbers when the scenario holds an integer at the key (a define written as `N: 4`, an
+    encoder's counts per revolution); over real numbers otherwise (also for a define the scenario
+    does not give, which the firmware defaults itself with `#ifndef`)."""
+    try:
+        parent = value_at(sc, list(p.path[:-1]))
+    except KeyError:
+        parent = None
+    if isinstance(parent, dict):        # a firmware's defines: the only mapping keyed by the user's names
+        p = replace(p, as_written=True)
+    try:
+        now = value_at(sc, list(p.path))
+    except KeyError:
+        return p
+    if p.as_written and isinstance(now, (int, float)) and not isinstance(now, bool) and p.low <= now <= p.high:
+        p = replace(p, start=now)
+    if isinstance(now, bool) or not isinstance(now, int):
+        return p
+    low, high = math.ceil(p.low), math.floor(p.high)
+    if low >= high:
+        raise InputError(f"--param {p.key}: the scenario gives an integer here ({now}), so the range must hold "
+                         f"two whole numbers, found {p.low:g}..{p.high:g}")
+    if p.log and low <= 0:
+        raise InputError(f"--param {p.key}: a log range of whole numbers must start at 1 or more, "
+                         f"found {p.low:g}..{p.high:g}")
+    return replace(p, low=float(low), high=float(high), integer=True)
 
 
 def gain_sign(objective: str) -> float:
@@ -265,7 +325,7 @@ def evaluate(payload: dict) -> dict:
 
     raw = copy.deepcopy(payload["raw"])
     for path, value in payload["assign"]:
-        set_path(raw, list(path), value, where=payload["where"])
+        set_path(raw, list(path), value, where=payload["where"])   # values as `Param.assigned` gave them
     raw.setdefault("trial", {})["seed"] = payload["seed"]
     try:
         outcome = run_check(raw, payload["where"], trials=0, workers=1)

@@ -83,7 +83,7 @@ def closest(evals: list[Evaluation], objectives: list[str]) -> Evaluation | None
 def scenario_with(raw: dict, params: list[Param], values: dict) -> dict:
     out = copy.deepcopy(raw)
     for p in params:
-        set_path(out, list(p.path), values[p.key], where="tune")
+        set_path(out, list(p.path), p.assigned(values[p.key]), where="tune")
     return out
 
 
@@ -108,11 +108,17 @@ def write_tune_csv(path: Path, evals: list[Evaluation], params: list[Param], obj
     for e in evals:
         values = {c["name"]: c["value"] for c in e.row["criteria"]}
         failed = failed_criteria(e.row, objectives)
-        w.writerow([e.number, e.seed] + [repr(float(e.params[p.key])) for p in params]
+        w.writerow([e.number, e.seed] + [_param_cell(p, e.params[p.key]) for p in params]
                    + ["" if v is None else repr(float(v)) for v in e.row["objectives"]]
                    + [not failed, ";".join(failed)] + [_cell(values.get(n)) for n in crit_names]
                    + [e.row.get("error") or ""])
     write_text(path, buf.getvalue())
+
+
+def _param_cell(p: Param, value) -> str:
+    """The value the evaluation's scenario had (`Param.assigned`)."""
+    value = p.assigned(value)
+    return str(value) if p.integer else repr(float(value))
 
 
 def _cell(v) -> str:

@@ -39,7 +39,9 @@ def _quiet_optuna():
 
 def study_spec(raw: dict, params: list[Param], objectives: list[str], seed: int) -> str:
     from ..core.outputs import clean_json
-    text = json.dumps({"raw": clean_json(raw), "params": [(p.key, p.low, p.high, p.log) for p in params],
+    # an integer search is marked only where it applies: the spec of every other tune is as before
+    space = [(p.key, p.low, p.high, p.log) + (("integer",) if p.integer else ()) for p in params]
+    text = json.dumps({"raw": clean_json(raw), "params": space,
                        "objectives": objectives, "seed": seed}, sort_keys=True, default=str)
     return hashlib.sha256(text.encode()).hexdigest()
 
@@ -79,8 +81,9 @@ def requeue_interrupted(study) -> int:
 
 
 def distributions(params: list[Param]) -> dict:
-    from optuna.distributions import FloatDistribution
-    return {p.key: FloatDistribution(p.low, p.high, log=p.log) for p in params}
+    from optuna.distributions import FloatDistribution, IntDistribution
+    return {p.key: (IntDistribution(int(p.low), int(p.high), log=p.log) if p.integer
+                    else FloatDistribution(p.low, p.high, log=p.log)) for p in params}
 
 
 def run_study(study, raw: dict, where: str, params: list[Param], objectives: list[str], *, n_trials: int,
@@ -110,7 +113,7 @@ def run_study(study, raw: dict, where: str, params: list[Param], objectives: lis
             seed = trial_seed(base_seed, trial.number)
             trial.set_user_attr("seed", seed)
             payload = {"raw": raw, "where": where, "objectives": objectives, "seed": seed,
-                       "assign": [(list(by_key[k].path), v) for k, v in trial.params.items()]}
+                       "assign": [(list(by_key[k].path), by_key[k].assigned(v)) for k, v in trial.params.items()]}
             flight.append((trial, pool.submit(evaluate, payload)))
 
         while complete + len(flight) < n_trials and len(flight) < depth:

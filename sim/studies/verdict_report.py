@@ -25,7 +25,7 @@ def format_value(name: str, value) -> str:
     if name.endswith(("_margin", "_headroom", "_fraction")):
         return f"{100 * value:.1f}%"
     for suffix, unit, scale in (("_n_m_s", "mN m s", 1e3), ("_time_s", "s", 1.0), ("_rad", "deg", 180 / math.pi),
-                                ("_c", "degC", 1.0), ("_s", "s", 1.0)):
+                                ("_c", "degC", 1.0), ("_s", "s", 1.0), ("_v", "V", 1.0)):
         if name.endswith(suffix):
             return f"{value * scale:.4g} {unit}"
     return f"{value:.4g}"

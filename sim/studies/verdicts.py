@@ -8,7 +8,8 @@ Runs, on one scenario:
 5. Monte Carlo over the scenario's `tolerances` (each trial re-validates a perturbed copy of the
    raw scenario and runs its own trial);
 6. static checks: wheel burst safety factor at the runaway speed, winding temperature.
-7. long holds (`requirements.hold_time`) with the angle-sensor bias at each end of its tolerance
+7. with a battery or a drive model, a braking trial and the power criteria (`sim.studies.power_checks`);
+8. long holds (`requirements.hold_time`) with the angle-sensor bias at each end of its tolerance
    band: the wheel's slow drift, extrapolated to its speed limit (`wheel_runaway_time_s`, see
    `sim.studies.runaway`).
 
@@ -352,11 +353,17 @@ def run_check(raw: dict, where: str, *, trials: int = DEFAULT_TRIALS, workers: i
     holds = [runaway_hold(sc, bias_rad=b, seed=sc.trial.seed) for b in bias_ends(sc)]
     from .sensing_checks import sensing_checks
     sensing = sensing_checks(sc, runs, pushes, push_scenario=lambda impulse: push_scenario(sc, impulse))
+    power = None
+    if sc.power_model:
+        from .power_checks import braking_trial, power_criteria
+        stage("braking trial")
+        runs["braking"], braking = braking_trial(raw, sc, where)
+        power = power_criteria(sc, metrics, braking, _criterion)
     hold_tr = runs["hold"].trace
     verdict = build_verdict(sc, device, metrics, pushes, mc,
                             hold_signals=(hold_tr.view("voltage").copy(), hold_tr.view("current").copy()),
-                            runs_current={name: r.trace.view("current") for name, r in runs.items()}, holds=holds,
-                            sensing=sensing)
+                            runs_current={name: r.trace.view("current") for name, r in runs.items() if name != "braking"},
+                            holds=holds, sensing=sensing, power_criteria=power)
     return CheckOutcome(verdict=verdict, runs=runs, pushes=pushes, mc_rows=mc["rows"] if mc else [])
 
 
@@ -381,13 +388,15 @@ def _at_most(name, value, limit, note=""):
 
 
 def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_signals, runs_current,
-                  holds: list[dict] | None = None, sensing: tuple[list, dict] | None = None) -> dict:
+                  holds: list[dict] | None = None, sensing: tuple[list, dict] | None = None,
+                  power_criteria: list[dict] | None = None) -> dict:
     """Criteria and the verdict dictionary written to verdict.json.
 
     `hold_signals` = (voltage V, current A) arrays of the hold trial, for the headroom criteria;
     `runs_current` = {run name: current array A}, for the transient winding temperatures;
     `holds` = `runaway_hold` results, for `wheel_runaway_time_s` (None: that criterion is left out);
     `sensing` = (criteria, summary) of `sim.studies.sensing_checks` (None or empty: nothing added).
+    `power_criteria` = `sim.studies.power_checks.power_criteria`'s, appended (None: none).
     """
     sensing_crit, sensing_summary = sensing or ([], {})
     worse = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
@@ -400,7 +409,7 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
     burst = wheel_burst_check(sc, device)
     crit = (_run_criteria(sc, metrics, pushes[worse]["max_survived_n_m_s"], worse)
             + ([runaway_criterion(sc, device, holds)] if holds else [])
-            + _static_criteria(sc, device, hold_signals, thermal, burst, mc) + sensing_crit)
+            + _static_criteria(sc, device, hold_signals, thermal, burst, mc) + sensing_crit + (power_criteria or []))
     steady = sensing_summary.get("estimator_steady_error_rad")
     for c in crit:
         if c["name"] == "wheel_runaway_time_s" and steady is not None:

@@ -39,7 +39,7 @@ from pathlib import Path
 
 HEADER = Path(__file__).with_name("wheelbench.h")
 CACHE_ENV = "WHEELBENCH_FIRMWARE_CACHE"
-BUILD_RECIPE = "3"   # bump when the generated wrapper below changes: old builds are then not reused
+BUILD_RECIPE = "4"   # bump when the generated wrapper below changes: old builds are then not reused
 ERROR_LINES = 2
 
 # The wrapper cffi compiles around the firmware: one call per tick with the three readings (cheaper
@@ -47,7 +47,9 @@ ERROR_LINES = 2
 # readings into cumulative counts (the angle from 0 at upright, unwrapped across +-pi; the wheel
 # from 0, adding each tick's speed times the period), zeroes the output, calls wb_step, flushes
 # stdout (a trial that crashes keeps the printf output of every tick before), and returns volts
-# (from the duty when pwm_max > 0).
+# (from the duty when pwm_max > 0). The per-wheel arrays (wheelbench.h) are filled for the one
+# wheel: entry 0 mirrors the one-wheel fields; wheel 1's command is the array's entry when the
+# firmware set it (non-zero), else the one-wheel field, and its brake is either one's.
 _WRAPPER = """
 #include <math.h>
 #include <stdio.h>
@@ -58,8 +60,10 @@ static wb_config_t wbx_cfg;
 static double wbx_period_s, wbx_angle_res, wbx_wheel_res;
 static uint64_t wbx_tick_n;
 static int32_t wbx_angle_prev;
-static void wbx_init(const wb_config_t *cfg, double period_s) {
+static void wbx_init(wb_config_t *cfg, double period_s) {
     memset(&wbx_in, 0, sizeof wbx_in);
+    cfg->n_wheels = 1;
+    cfg->wheels_counts_per_rev[0] = cfg->wheel_counts_per_rev;
     wbx_cfg = *cfg;
     wbx_period_s = period_s;
     wbx_angle_res = cfg->angle_counts_per_rev ? 6.283185307179586 / cfg->angle_counts_per_rev : 0.0;
@@ -86,15 +90,23 @@ static double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_r
     }
     if (wbx_wheel_res > 0.0)
         wbx_in.wheel_counts += (int32_t)lround(wheel_speed_rad_s * wbx_period_s / wbx_wheel_res);
+    wbx_in.wheels_speed_rad_s[0] = wbx_in.wheel_speed_rad_s;
+    wbx_in.wheels_counts[0] = wbx_in.wheel_counts;
     wbx_tick_n++;
     memset(out, 0, sizeof *out);
     wb_step(&wbx_in, out);
     fflush(stdout);
-    return wbx_cfg.pwm_max > 0 ? (double)out->duty / wbx_cfg.pwm_max * wbx_cfg.supply_v : (double)out->volts;
+    if (out->wheels_brake[0])
+        out->brake = 1;
+    if (wbx_cfg.pwm_max > 0) {
+        int32_t duty = out->wheels_duty[0] != 0 ? out->wheels_duty[0] : out->duty;
+        return (double)duty / wbx_cfg.pwm_max * wbx_cfg.supply_v;
+    }
+    return out->wheels_volts[0] != 0.0f ? (double)out->wheels_volts[0] : (double)out->volts;
 }
 """
 _WRAPPER_CDEF = """
-void wbx_init(const wb_config_t *cfg, double period_s);
+void wbx_init(wb_config_t *cfg, double period_s);
 double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_rad_s, wb_output_t *out);
 """
 
@@ -201,20 +213,36 @@ def _sha256(path: Path) -> str | None:
         return None
 
 
+_LOADED: set[str] = set()
+"""Build files this process has loaded itself, or inherited loaded from the process it was forked from."""
+
+
 def load_fresh(build: Build):
-    """A fresh copy of the built module (its static variables at their initial values): the file is
-    copied to a temporary name and loaded from there (a second load of the same file would give
-    the same copy back), then the temporary file is removed; the mapping stays."""
+    """A fresh copy of the built module (its static variables at their initial values).
+
+    The first load of a build in a process is the build's file itself: nothing of it is mapped yet,
+    so its statics are fresh. That is every isolated trial: the isolation child is forked from a
+    process that runs firmware only in children, and it runs one trial. A later load in the same
+    process (in-process trials: `isolate=False`, clips) would get the same copy back, so the file is
+    copied to a temporary name and loaded from there, then the temporary file is removed (the
+    mapping stays)."""
+    if str(build.path) not in _LOADED:
+        _LOADED.add(str(build.path))
+        return _load_extension(build.module_name, str(build.path))
     fd, tmp = tempfile.mkstemp(prefix=build.module_name + "-", suffix=_ext_suffix())
     os.close(fd)
     try:
         shutil.copyfile(build.path, tmp)
-        loader = importlib.machinery.ExtensionFileLoader(build.module_name, tmp)
-        spec = importlib.util.spec_from_file_location(build.module_name, tmp, loader=loader)
-        module = importlib.util.module_from_spec(spec)
-        loader.exec_module(module)
+        return _load_extension(build.module_name, tmp)
     finally:
         os.unlink(tmp)
+
+
+def _load_extension(name: str, path: str):
+    loader = importlib.machinery.ExtensionFileLoader(name, path)
+    spec = importlib.util.spec_from_file_location(name, path, loader=loader)
+    module = importlib.util.module_from_spec(spec)
+    loader.exec_module(module)
     return module
 
 

@@ -4,7 +4,7 @@ Scenario: `strategy: {kind: firmware, sources: [a.c, ...], include: [dir, ...], 
 cflags: [...]}`; paths relative to the scenario file. The sources are compiled when the scenario
 loads (`validate` too), so firmware that does not compile is bad input before anything runs.
 
-Each trial loads a fresh copy of the build (fresh static variables) and, being marked `isolated`,
+Each trial loads a fresh copy of the build (fresh static variables: `build.load_fresh`) and, being marked `isolated`,
 runs in the forked isolation child (`sim.core.isolation`): a crash or a call that never returns ends
 the trial as strategy_failed at that tick. printf output goes to the file named by
 `firmware_log_to` (the `run` command's firmware.log), else nowhere.
@@ -138,6 +138,7 @@ class FirmwareStrategy(Strategy):
                                         "wheel_counts_per_rev": d.wheel_counts_per_rev, "pwm_max": self.pwm_max})
         self._out = ffi.new("wb_output_t *")
         self._tick, self._module = lib.wbx_tick, module   # the module keeps the loaded copy alive
+        self.loaded_from = module.__file__    # the build's file, or a temporary copy of it (build.load_fresh)
         self._phases = [f"fw {i}" for i in range(256)]
         lib.wbx_init(cfg, period_s)
         self.phase = self._phases[0]

@@ -35,9 +35,16 @@
  * strategy_failed at that tick, and the run, sweep or check goes on. printf output goes to
  * firmware.log in the run folder of `wheelbench run` (other commands drop it).
  *
- * Several wheels (not yet simulated): the one-wheel fields below keep their names and places;
- * per-wheel arrays will be appended at the marked ends of the structs, so one-wheel code keeps
- * compiling and working unchanged.
+ * Several wheels. Each struct ends with per-wheel arrays of WB_MAX_WHEELS entries, appended
+ * after the one-wheel fields (which keep their names and places, so one-wheel code compiles and
+ * works unchanged). Entry 0 is wheel 1, the wheel the one-wheel fields describe; entries from
+ * n_wheels on are 0. Wheelbench simulates one wheel today, so n_wheels is 1:
+ *   - wb_config_t: n_wheels, and wheels_counts_per_rev[0] == wheel_counts_per_rev;
+ *   - wb_input_t: wheels_speed_rad_s[0] == wheel_speed_rad_s, wheels_counts[0] == wheel_counts;
+ *   - wb_output_t: wheel 1 is driven by wheels_volts[0] (wheels_duty[0] with a PWM resolution)
+ *     when the firmware set it to anything but 0, else by volts (duty); it is braked when brake
+ *     or wheels_brake[0] is 1. Firmware may thus write either form; one that writes both should
+ *     write the same value to both.
  */
 #ifndef WHEELBENCH_H
 #define WHEELBENCH_H
@@ -45,12 +52,16 @@
 #include <stdint.h>
 
 /* WB_CDEF_BEGIN (Wheelbench reads the declarations from here to WB_CDEF_END) */
+#define WB_MAX_WHEELS 3     /* length of the per-wheel arrays (entry 0: wheel 1) */
+
 typedef struct {            /* given once */
     uint32_t period_us;     /* control period */
     float supply_v;         /* drive supply (nominal) */
     int32_t angle_counts_per_rev, wheel_counts_per_rev;   /* 0 when that sensor is ideal */
     int32_t pwm_max;        /* full-scale duty when the drive has a PWM resolution, else 0 */
-    /* later: per-wheel arrays for several wheels go here, after the one-wheel fields */
+    /* several wheels: appended after the one-wheel fields */
+    int32_t n_wheels;       /* wheels on the device, 1..WB_MAX_WHEELS (1 today) */
+    int32_t wheels_counts_per_rev[WB_MAX_WHEELS];     /* [0] == wheel_counts_per_rev */
 } wb_config_t;
 
 typedef struct {            /* given every tick: what the firmware would read */
@@ -58,7 +69,9 @@ typedef struct {            /* given every tick: what the firmware would read */
     float angle_rad, rate_rad_s, wheel_speed_rad_s;   /* the same readings the Python strategies see */
     int32_t angle_counts, wheel_counts;               /* raw encoder counts (cumulative) */
     int16_t gyro_raw[3], accel_raw[3];                /* raw IMU readings when an IMU is set, else 0 */
-    /* later: per-wheel arrays for several wheels go here, after the one-wheel fields */
+    /* several wheels: appended after the one-wheel fields */
+    float wheels_speed_rad_s[WB_MAX_WHEELS];          /* [0] == wheel_speed_rad_s */
+    int32_t wheels_counts[WB_MAX_WHEELS];             /* [0] == wheel_counts */
 } wb_input_t;
 
 typedef struct {            /* filled by the firmware every tick */
@@ -66,7 +79,10 @@ typedef struct {            /* filled by the firmware every tick */
     int32_t duty;           /* signed duty, used when pwm_max > 0 */
     uint8_t brake;          /* 1 engages the wheel brake */
     uint8_t phase;          /* free for the firmware's own state; shown as the trace's mode */
-    /* later: per-wheel arrays for several wheels go here, after the one-wheel fields */
+    /* several wheels: appended after the one-wheel fields; for wheel 1 a non-zero entry wins */
+    float wheels_volts[WB_MAX_WHEELS];                /* used when pwm_max == 0 */
+    int32_t wheels_duty[WB_MAX_WHEELS];               /* used when pwm_max > 0 */
+    uint8_t wheels_brake[WB_MAX_WHEELS];              /* 1 engages that wheel's brake */
 } wb_output_t;
 
 void wb_init(const wb_config_t *cfg);

@@ -1,0 +1,289 @@
+"""The power chain as built: supply (battery or bench) -> bridge (PWM, reversal delay, trips) ->
+motor, composed into one object with MotorDrive's per-step call.
+
+`PowerChain.update(command, wheel_speed_rad_s) -> (current A, torque N m)`, once per physics step:
+    command: volts across the winding (drive.mode voltage) or amps in the winding (drive.mode current),
+    sign as in `sim.model.scenario` (positive accelerates the wheel the positive way).
+After the call `bus_v` (V, the bus at the step's start), `bus_current_a` (A, mean over the step,
+negative when regenerating) and `applied_v` (V, the mean voltage across the winding) describe the step.
+
+Order within a step: protections (a tripped, cut-off or over-volted driver applies nothing: the
+bridge is off and the winding open, its current dropped at once) -> reversal delay (a command whose
+sign differs from the bridge's direction is held at zero for `reversal_delay`, then the bridge turns
+round) -> voltage mode: duty = command / V_bus, clamped to +-1, through the PWM model
+(`sim.physics.pwm`), then today's exact motor step (`sim.physics.motor.MotorDrive`) at that mean
+voltage; current mode: the command (clamped to the current limit) filtered by a first-order current
+loop of bandwidth f_bw (time constant 1/(2 pi f_bw), references.md; the loop hides the winding's own
+L/R, which must be faster), the voltage it needs R i + k_e w capped by the bus (less the dead-time
+loss), where back-EMF caps the current -> the bus current d i (average H-bridge model,
+references.md: ripple neglected) -> the supply's step (`sim.physics.battery`) -> the over-current
+trip and the winding's temperature (when coupled).
+
+Protections (our model of what drivers commonly do; no source): the over-current trip fires when
+|i| stays above `trip.current` for `trip.time` and switches the bridge off for `trip.recovery` (or for
+the rest of the trial without one); the low-voltage cut-off fires when the bus falls below the
+pack's cut-off and stays off for the rest of the trial; the bus over-voltage protection fires when
+the bus rises above `drive.max_bus_voltage` and stays off for the rest of the trial. `events` lists
+them as (time s, code) with code in `battery_cutoff`, `driver_tripped`, `bus_over_voltage`.
+
+With `motor.curve` the voltage-mode motor follows the datasheet's torque-speed curve instead
+(`sim.physics.curve`: quasi-static, the winding's lag and the step-mean solution left out).
+
+Coupled thermal: the winding's temperature follows C dT/dt = i^2 R - (T - T_amb)/R_th and its
+resistance R = R_20 (1 + alpha (T - 20 degC)), alpha = 0.00393 /K for copper [pub: CRC Handbook of
+Chemistry and Physics, resistivity of copper; from memory]; the motor's step coefficients are
+re-solved whenever R has moved 0.5 % since they were last solved.
+"""
+
+from __future__ import annotations
+
+import math
+
+from ..model.device import Device
+from .battery import Battery, BenchSupply
+from .motor import MotorDrive
+
+COPPER_ALPHA_PER_K = 0.00393
+RESOLVE_SHARE = 0.005   # re-solve the motor step when R has moved this share
+
+
+class PowerChain:
+    """The supply, the bridge and the motor of one wheel (see the module docstring)."""
+
+    def __init__(self, scenario, device: Device, *, step_s: float):
+        drive, motor, bat = scenario.drive, scenario.motor, scenario.battery
+        self.device = device
+        self.dt = step_s
+        self.t = 0.0
+        self.motor = MotorDrive(device, step_s=step_s)
+        self.current_mode = drive.mode == "current"
+        if bat is not None:
+            r = bat.internal_resistance if bat.internal_resistance is not None else bat.cell_resistance * bat.cells
+            self.supply = Battery(chemistry=bat.chemistry, cells=bat.cells, capacity_c=bat.capacity,
+                                  resistance_ohm=r, soc=bat.state_of_charge, capacitance_f=drive.bus_capacitance)
+            self.cutoff_v = bat.cells * bat.cutoff_per_cell
+        else:
+            self.supply = BenchSupply(volts=drive.supply, capacitance_f=drive.bus_capacitance)
+            self.cutoff_v = -math.inf
+        self.max_bus_v = drive.max_bus_voltage if drive.max_bus_voltage is not None else math.inf
+        self.pwm = None
+        self.dead_loss = 0.0
+        if drive.pwm is not None and drive.pwm.frequency is not None:
+            from .pwm import Pwm
+            p = drive.pwm
+            self.pwm = Pwm(resolution_bits=p.resolution_bits, frequency_hz=p.frequency, dead_time_s=p.dead_time,
+                           min_duty=p.min_duty)
+            self.dead_loss = self.pwm.loss_fraction
+        # the loop's first-order step, exact: end = cmd + (i0 - cmd) a; step mean = cmd + (i0 - cmd) f
+        x = 2.0 * math.pi * drive.current_bandwidth * step_s if self.current_mode else math.inf
+        self.loop_decay = math.exp(-x)
+        self.loop_mean = -math.expm1(-x) / x
+        self.curve = None
+        if motor.curve is not None:
+            from .curve import TorqueCurve
+            self.curve = TorqueCurve(voltage=motor.curve.voltage, k_t=device.k_t_n_m_a,
+                                     points=[(p.speed, p.torque) for p in motor.curve.points])
+        self.reversal_s = drive.reversal_delay or 0.0
+        self.direction = 0.0
+        self.turn_at = None          # time the bridge may turn round, s (None: no reversal pending)
+        trip = drive.trip
+        self.trip_a = trip.current if trip is not None else math.inf
+        self.trip_s = trip.time if trip is not None else 0.0
+        self.recovery_s = trip.recovery if trip is not None else None
+        self.over_since = None
+        self.off_until = -1.0        # bridge off until this time, s (inf: for good)
+        self.trips = 0
+        self.events: list[tuple[float, str]] = []
+        th = motor.thermal
+        self.coupled = th.coupled
+        self.r20 = device.resistance_ohm
+        self.r_solved = device.resistance_ohm
+        self.temp_c = th.ambient
+        self.ambient_c, self.r_th, self.c_th = th.ambient, th.thermal_resistance, th.thermal_capacity
+        self.peak_temp_c = th.ambient
+        self.i_loop = 0.0            # the current loop's state, A
+        self.bus_v = self.supply.volts
+        self.min_bus_v = self.peak_bus_v = self.supply.volts
+        self.bus_current_a = 0.0
+        self.applied_v = 0.0
+        self.steps = 0
+        self.k_t = device.k_t_n_m_a
+        self._track_bus()             # a pack already below its cut-off at the start: off from t = 0
+
+    @property
+    def command_limit(self) -> float:
+        """The largest command magnitude the drive takes: the current limit (or the stall current at
+        the starting bus) in current mode, the starting supply in voltage mode."""
+        d = self.device
+        if self.current_mode:
+            return d.current_limit_a if math.isfinite(d.current_limit_a) else d.supply_v / d.resistance_ohm
+        return d.supply_v
+
+    def update(self, command: float, wheel_speed_rad_s: float) -> tuple[float, float]:
+        """Advance one step (see the module docstring); returns (mean current A, torque N m)."""
+        dt = self.dt
+        t = self.steps * dt          # by multiplication: no drift of a sum over millions of steps
+        self.steps += 1
+        supply = self.supply
+        bus = self.bus_v = supply.volts
+        if t < self.off_until - 1e-9 * dt:
+            return self._off(dt)
+        if self.reversal_s and command != 0.0 and self.direction != (1.0 if command > 0.0 else -1.0):
+            command = self._reversal(command, t)    # a turn to make (or under way)
+        elif self.turn_at is not None:
+            self.turn_at = None                     # back to the old direction: nothing to wait for
+        if self.current_mode:
+            i, v = self._current_step(command, wheel_speed_rad_s, bus)
+        else:
+            i, v = self._voltage_step(command, wheel_speed_rad_s, bus)
+        self.applied_v = v
+        i_bus = v * i / bus if bus > 0.0 else 0.0     # d i, d = v / V_bus
+        self.bus_current_a = i_bus
+        supply.draw(i_bus, dt)
+        if -self.trip_a <= i <= self.trip_a:
+            self.over_since = None
+        else:
+            self._over(t)
+        v = supply.volts
+        if v < self.min_bus_v:       # a new extreme: maybe past a limit
+            self.min_bus_v = v
+            if v < self.cutoff_v:
+                self._track_bus()
+        elif v > self.peak_bus_v:
+            self.peak_bus_v = v
+            if v > self.max_bus_v:
+                self._track_bus()
+        if self.coupled:
+            self._heat(i, dt)
+        return i, self.k_t * i
+
+    # -- the bridge --------------------------------------------------------------------------
+    def _voltage_step(self, volts: float, w: float, bus: float) -> tuple[float, float]:
+        duty = volts / bus if bus > 0.0 else 0.0
+        duty = 1.0 if duty > 1.0 else (-1.0 if duty < -1.0 else duty)
+        if self.pwm is not None:
+            c = self.motor.current
+            v = self.pwm.applied(duty, bus, 1.0 if c > 0.0 else (-1.0 if c < 0.0 else 0.0))
+        else:
+            v = duty * bus
+        if self.curve is not None:      # the datasheet's curve, quasi-static, within the current limit
+            lim = self.motor.i_max
+            i = self.curve.current(v, w)
+            i = lim if i > lim else (-lim if i < -lim else i)
+            self.motor.current = i
+            return i, v
+        i, _ = self.motor.update(v, w)
+        return i, v
+
+    def _current_step(self, amps: float, w: float, bus: float) -> tuple[float, float]:
+        m = self.motor
+        lim = m.i_max
+        cmd = lim if amps > lim else (-lim if amps < -lim else amps)
+        if self.pwm is not None and -self.pwm.min_duty * bus < m.r * cmd + m.k_e * w < self.pwm.min_duty * bus \
+                and cmd != 0.0:
+            self.pwm.dead_band_hits += 1
+            cmd = 0.0
+        # exact first-order step: end value and the step's mean
+        gap = self.i_loop - cmd
+        end = cmd + gap * self.loop_decay
+        mean = cmd + gap * self.loop_mean
+        ceiling = bus * (1.0 - self.dead_loss)
+        emf = m.k_e * w
+        hi, lo = (ceiling - emf) / m.r, (-ceiling - emf) / m.r    # what the bus can drive at this speed
+        if mean > hi or mean < lo:
+            mean = hi if mean > hi else lo
+            end = mean                    # the loop's integrator held at the ceiling (no wind-up)
+        self.i_loop = end
+        m.current = end
+        return mean, m.r * mean + emf
+
+    def _reversal(self, command: float, t: float) -> float:
+        """`command` (non-zero, against the bridge's direction) held at zero until the turn is done."""
+        s = 1.0 if command > 0.0 else -1.0
+        if self.direction == 0.0:
+            self.direction = s
+            return command
+        if self.turn_at is None:
+            self.turn_at = t + self.reversal_s
+        if t < self.turn_at - 1e-9 * self.dt:
+            return 0.0
+        self.direction, self.turn_at = s, None
+        return command
+
+    def float_winding(self) -> tuple[float, float]:
+        """One step with the winding open (a strategy's `open_circuit`): no current, the supply at rest."""
+        self.bus_v = self.supply.volts
+        self.steps += 1
+        return self._off(self.dt)
+
+    # -- protections and heat ----------------------------------------------------------------
+    def _off(self, dt: float) -> tuple[float, float]:
+        self.motor.current = self.i_loop = 0.0
+        self.applied_v = self.bus_current_a = 0.0
+        self.supply.draw(0.0, dt)
+        self._track_bus()
+        if self.coupled:
+            self._heat(0.0, dt)
+        return 0.0, 0.0
+
+    def _over(self, t: float) -> None:
+        """|i| above the trip current over the step from `t` (s): trip once it has lasted `trip.time`."""
+        now = (self.steps) * self.dt
+        if self.over_since is None:
+            self.over_since = t
+        if now - self.over_since >= self.trip_s - 1e-9 * self.dt:
+            self.trips += 1
+            self.events.append((now, "driver_tripped"))
+            self.off_until = now + self.recovery_s if self.recovery_s is not None else math.inf
+            self.over_since = None
+
+    def _track_bus(self) -> None:
+        v = self.supply.volts
+        self.t = self.steps * self.dt
+        if v < self.min_bus_v:
+            self.min_bus_v = v
+        if v > self.peak_bus_v:
+            self.peak_bus_v = v
+        if v < self.cutoff_v and self.off_until != math.inf:
+            self.events.append((self.t, "battery_cutoff"))
+            self.off_until = math.inf
+        elif v > self.max_bus_v and self.off_until != math.inf:
+            self.events.append((self.t, "bus_over_voltage"))
+            self.off_until = math.inf
+
+    def _heat(self, i: float, dt: float) -> None:
+        m = self.motor
+        p = i * i * m.r
+        tau = self.r_th * self.c_th
+        rise = p * self.r_th
+        self.temp_c = self.ambient_c + rise + (self.temp_c - self.ambient_c - rise) * math.exp(-dt / tau)
+        if self.temp_c > self.peak_temp_c:
+            self.peak_temp_c = self.temp_c
+        r = self.r20 * (1.0 + COPPER_ALPHA_PER_K * (self.temp_c - 20.0))
+        m.r = r
+        if abs(r - self.r_solved) > RESOLVE_SHARE * self.r_solved:
+            self._resolve(r)
+
+    def _resolve(self, r: float) -> None:
+        from dataclasses import replace
+        current = self.motor.current
+        self.motor = MotorDrive(replace(self.device, resistance_ohm=r), step_s=self.dt)
+        self.motor.current = current
+        self.r_solved = r
+
+    def summary(self) -> dict:
+        """What the chain saw, for metrics and causes (SI; keys carry units)."""
+        s = self.supply
+        out = {
+            "min_supply_voltage_v": self.min_bus_v,
+            "peak_supply_voltage_v": self.peak_bus_v,
+            "charge_used_mah": s.charge_used_c / 3.6,
+            "battery_state_of_charge_end": s.soc if isinstance(s, Battery) else None,
+            "driver_trips": self.trips,
+            "pwm_dead_band_fraction": (self.pwm.dead_band_hits / self.steps if self.pwm is not None and self.steps
+                                       else (0.0 if self.pwm is not None else None)),
+            "power_events": [{"at_s": t, "cause": code} for t, code in self.events],
+        }
+        if self.coupled:
+            out["peak_winding_temperature_c"] = self.peak_temp_c
+        return out
