@@ -587,19 +587,24 @@ def test_a_firmware_reading_the_arrays_runs_the_same_trial_as_one_reading_the_sc
 
 
 def test_header_appends_the_per_wheel_arrays_after_the_one_wheel_fields():
-    # the one-wheel fields keep their offsets: code and checks written against them still fit
+    # the one-wheel fields keep their places: code and checks written against them still fit; what
+    # came later (the wheels' arrays, then the IMU's LSBs) is appended, in that order
     import cffi
     ffi = cffi.FFI()
     ffi.cdef(fw_build.contract_cdef())
-    for struct, first_new in (("wb_config_t", "n_wheels"), ("wb_input_t", "wheels_speed_rad_s"),
-                              ("wb_output_t", "wheels_volts")):
-        names = [name for name, _ in ffi.typeof(struct).fields]
-        new = names[names.index(first_new):]
-        assert all(name == "n_wheels" or name.startswith("wheels_") for name in new), names
-        assert all(not (name == "n_wheels" or name.startswith("wheels_")) for name in names[:names.index(first_new)])
-        for name in new:
-            if name != "n_wheels":
-                assert ffi.typeof(struct).fields[names.index(name)][1].type.length == 3   # WB_MAX_WHEELS
+    expected = {
+        "wb_config_t": (["period_us", "supply_v", "angle_counts_per_rev", "wheel_counts_per_rev", "pwm_max"],
+                        ["n_wheels", "wheels_counts_per_rev", "gyro_rad_s_per_lsb", "accel_m_s2_per_lsb"]),
+        "wb_input_t": (["t_us", "angle_rad", "rate_rad_s", "wheel_speed_rad_s", "angle_counts", "wheel_counts",
+                        "gyro_raw", "accel_raw"], ["wheels_speed_rad_s", "wheels_counts"]),
+        "wb_output_t": (["volts", "duty", "brake", "phase"], ["wheels_volts", "wheels_duty", "wheels_brake"]),
+    }
+    for struct, (first, appended) in expected.items():
+        fields = ffi.typeof(struct).fields
+        assert [name for name, _ in fields] == first + appended
+        for name, field in fields:
+            if name.startswith("wheels_"):
+                assert field.type.length == 3   # WB_MAX_WHEELS
     assert "#define WB_MAX_WHEELS 3" in fw_build.contract_cdef()
 
 
@@ -615,3 +620,59 @@ def test_example_trial_is_unchanged_by_the_per_wheel_arrays():
         digest.update(getattr(tr, name)[:tr.n].tobytes())
     assert (result.outcome, tr.n) == ("balanced", 3000)
     assert digest.hexdigest() == "8223b356169c119454b53d943e45da7d4554602797dc230acf88989b56a30ee1"
+
+
+# ----------------------------------------------------------------------------- IMU words and duty on a sagging bus
+
+IMU_PROBE = """
+static float lsb_g, lsb_a;
+void wb_init(const wb_config_t *cfg) { lsb_g = cfg->gyro_rad_s_per_lsb; lsb_a = cfg->accel_m_s2_per_lsb; }
+void wb_step(const wb_input_t *in, wb_output_t *out) {
+    /* probe: the gyro's x word and the accelerometer's z word, back in SI, as volts and duty */
+    out->volts = (float)in->gyro_raw[0] * lsb_g + 0.001f * (float)in->accel_raw[2] * lsb_a;
+}
+"""
+
+
+def test_firmware_reads_the_imus_raw_words(tmp_path):
+    # gyro_raw / accel_raw are the IMU's readings (the trace's imu_* columns) over one LSB, rounded
+    # (a 16-bit MEMS word; common practice, no source); the LSBs reach wb_config_t
+    path = firmware_scenario(tmp_path, IMU_PROBE, trial={"duration": "0.3 s", "start": {"angle": "2 deg", "rate": 1.0}},
+                             write_only=True)
+    raw = yaml.safe_load(path.read_text())
+    raw["sensors"]["imu"] = {"at": [0.0, 0.0, 0.1], "gyro": {"resolution": "0.01 deg/s"},
+                             "accel": {"range": "8 g0"}}   # pint: g0 is standard gravity, g a gram
+    path.write_text(yaml.safe_dump(raw, sort_keys=False))
+    result = run_trial(load_scenario(path))
+    tr, cs = result.trace, result.scenario.control_steps
+    lsb_g, lsb_a = math.radians(0.01), 8 * 9.80665 / 32768
+    rows = np.arange(0, tr.n, cs)
+    gyro, accel = tr.extra["imu_gyro_x_rad_s"][rows], tr.extra["imu_accel_z_m_s2"][rows]
+    expected = np.round(gyro / lsb_g) * lsb_g + 0.001 * np.round(accel / lsb_a) * lsb_a
+    assert np.ptp(gyro) > 100 * lsb_g                     # the probe saw the body move
+    assert np.max(np.abs(tr.voltage[rows] - expected)) < 1e-6   # float32 on the way
+
+
+DUTY_HALF = """
+static int32_t full;
+void wb_init(const wb_config_t *cfg) { full = cfg->pwm_max; }
+void wb_step(const wb_input_t *in, wb_output_t *out) { (void)in; out->duty = full / 2 + 1; }
+"""
+
+
+def test_a_duty_acts_on_the_sagging_bus_of_a_battery(tmp_path):
+    # an H-bridge's mean output is duty times the bus (references.md, power and drive): with a pack
+    # that sags under the load, a fixed duty gives duty x the sagged bus, not x the nominal supply
+    path = firmware_scenario(tmp_path, DUTY_HALF, trial={"duration": "0.4 s"}, write_only=True)
+    raw = yaml.safe_load(path.read_text())
+    raw["body"]["locked"] = True
+    raw["drive"] = {"pwm": {"resolution_bits": 8}}
+    raw["battery"] = {"cells": 3, "chemistry": "lipo", "capacity": "300 mAh", "internal_resistance": "1 ohm",
+                      "state_of_charge": 0.8}
+    path.write_text(yaml.safe_dump(raw, sort_keys=False))
+    result = run_trial(load_scenario(path))
+    tr = result.trace
+    bus, applied = tr.extra["supply_voltage_v"][:tr.n], tr.voltage[:tr.n]
+    share = 128 / 255
+    assert bus[0] - bus.min() > 0.2                       # the pack sagged under the load
+    assert np.max(np.abs(applied[1:] - share * bus[1:])) < 0.02 * bus.max()

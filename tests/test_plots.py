@@ -49,3 +49,14 @@ def test_a_fall_is_marked():
         result = run_trial(sc)
     assert result.fell_at_s is not None
     assert "fell" in _texts(summary_figure(result).axes[0])
+
+
+def test_a_body_that_falls_and_whirls_keeps_its_start_angle_on_the_axis():
+    # a balance law pushing on after the fall: the body goes round its pivot several times; the
+    # panel keeps the start angle as given (not shifted by the whole turns of the end)
+    sc = make_scenario(strategy={"kind": "fixed_voltage", "volts": 12.0},
+                       trial={"duration": 3.0, "start": {"angle": "5 deg"}})
+    result = run_trial(sc)
+    true = _lines(summary_figure(result).axes[0])["true"].get_ydata()
+    assert abs(true[-1] - true[0]) > 360.0, "the constructed body must go round at least once"
+    assert abs(true[0] - 5.0) < 0.5

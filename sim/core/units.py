@@ -24,7 +24,7 @@ KINDS: dict[str, tuple[str, str]] = {
     "frequency": ("Hz", "a rate"),
     "angle": ("rad", "an angle"),
     "angular_speed": ("rad/s", "an angular speed"),
-    "acceleration": ("m/s^2", "an acceleration"),
+    "acceleration": ("m/s^2", "an acceleration (standard gravity is g0: '8 g0'; g is a gram)"),
     "torque": ("N*m", "a torque"),
     "viscous": ("N*m*s/rad", "a viscous friction coefficient"),
     "impulse": ("N*m*s", "an angular impulse"),

@@ -22,7 +22,7 @@ def summary_figure(result):
     fig.suptitle(title, color=INK, fontsize=12, fontweight="bold", parse_math=False)  # user text, literally
     ax = axes[0]
     true_t, true_deg = _thin(t, tr.view("angle"), scale=DEG)
-    shift = _upright_shift(true_deg)
+    shift = _upright_shift(true_deg, ended_upright=result.outcome == "balanced")
     ax.plot(true_t, true_deg - shift, color=INK, lw=1.2, label="true")
     meas_t, meas_deg = _thin(t, tr.view("meas_angle"), scale=DEG)
     ax.plot(meas_t, _continuous_like(meas_deg, true_deg) - shift, color=MUTED, lw=0.7, alpha=0.8, label="measured")
@@ -86,11 +86,15 @@ def _thin(t: np.ndarray, y: np.ndarray, *, scale: float = 1.0, buckets: int = 20
     return t, y
 
 
-def _upright_shift(deg: np.ndarray) -> float:
-    """The multiple of 360 deg that puts the angle's final value nearest upright (0), so a body
-    caught after swinging over reads 0 at the end and the curve stays continuous (no wrap jumps)."""
+def _upright_shift(deg: np.ndarray, *, ended_upright: bool) -> float:
+    """The multiple of 360 deg to subtract from the angle, the curve kept continuous (no wrap jumps):
+    for a body that ended upright, the one that puts its final value nearest 0 (a body caught after
+    swinging over reads 0 at the end); otherwise the one that puts its start nearest 0 (a body that
+    fell and whirled round its pivot reads its start angle as given)."""
     finite = deg[np.isfinite(deg)]
-    return float(360.0 * np.round(finite[-1] / 360.0)) if finite.size else 0.0
+    if not finite.size:
+        return 0.0
+    return float(360.0 * np.round((finite[-1] if ended_upright else finite[0]) / 360.0))
 
 
 def _continuous_like(meas_deg: np.ndarray, true_deg: np.ndarray) -> np.ndarray:

@@ -42,6 +42,8 @@ class Device:
     angle_counts_per_rev: int = 0     # the angle encoder's counts per rev, 0 when the scenario sets none
     wheel_counts_per_rev: int = 0     # the wheel encoder's counts per rev, 0 when the scenario sets none
     pwm_max: int = 0                  # full-scale duty (2^drive.pwm.resolution_bits - 1), 0 without drive.pwm
+    imu_gyro_lsb_rad_s: float = 0.0   # one LSB of the IMU's raw gyro word (sim.model.sensing.raw_lsb), 0 without an IMU
+    imu_accel_lsb_m_s2: float = 0.0   # one LSB of its raw accelerometer word, 0 without an IMU
     drive_mode: str = "voltage"       # "current": a torque-mode driver, laws command amps (drive.mode)
 
     @classmethod
@@ -71,6 +73,7 @@ class Device:
             angle_counts_per_rev=(sc.sensors.angle.counts_per_rev if sc.sensors.angle is not None else None) or 0,
             wheel_counts_per_rev=sc.sensors.wheel.counts_per_rev or 0,
             pwm_max=2**sc.drive.pwm.resolution_bits - 1 if sc.drive.pwm is not None else 0,
+            **_imu_lsb(sc.sensors.imu),
             drive_mode=sc.drive.mode,
         )
 
@@ -148,6 +151,15 @@ class Device:
         ])
         B = c * np.array([[0.0], [-1.0 / J], [1.0 / Iw + 1.0 / J]])
         return A, B
+
+
+def _imu_lsb(imu) -> dict:
+    """The IMU's raw LSBs as Device fields (none without an IMU)."""
+    if imu is None:
+        return {}
+    from .sensing import DEFAULT_ACCEL_FULL_SCALE_M_S2, DEFAULT_GYRO_FULL_SCALE_RAD_S, raw_lsb
+    return {"imu_gyro_lsb_rad_s": raw_lsb(imu.gyro, DEFAULT_GYRO_FULL_SCALE_RAD_S),
+            "imu_accel_lsb_m_s2": raw_lsb(imu.accel, DEFAULT_ACCEL_FULL_SCALE_M_S2)}
 
 
 def _corrected(props: RigidProps, correction_kg_m2: float) -> RigidProps:

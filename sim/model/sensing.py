@@ -64,6 +64,22 @@ class AccelSpec(_Strict):
     """One LSB, m/s^2 (0: no quantisation)."""
 
 
+# Full scales a raw reading is taken against when the scenario gives neither a resolution nor a
+# range: +-2000 deg/s and +-16 g over a signed 16-bit word (common MEMS settings; common practice,
+# no source).
+DEFAULT_GYRO_FULL_SCALE_RAD_S = math.radians(2000.0)
+DEFAULT_ACCEL_FULL_SCALE_M_S2 = 16 * 9.80665
+
+
+def raw_lsb(spec, default_full_scale: float) -> float:
+    """One LSB of the sensor's signed 16-bit raw word, SI: its `resolution` when set, else its
+    `range` over 32768, else `default_full_scale` over 32768."""
+    if spec.resolution > 0:
+        return float(spec.resolution)
+    full = spec.range if math.isfinite(spec.range) else default_full_scale
+    return float(full) / 32768.0
+
+
 class ImuOrientation(_Strict):
     axes: Annotated[list[Literal["x", "y", "z", "-x", "-y", "-z"]], Field(min_length=3, max_length=3)] = ["x", "y", "z"]
     """The body axis each IMU axis points along (a swapped or inverted axis is a different list)."""

@@ -52,6 +52,10 @@ class PowerChain:
 
     def __init__(self, scenario, device: Device, *, step_s: float):
         drive, motor, bat = scenario.drive, scenario.motor, scenario.battery
+        # None: a voltage command is turned into a duty by the bus as it is (a law that knows its
+        # bus); a voltage, V: by this fixed voltage instead (a law that writes a PWM duty, stated as
+        # volts at the nominal supply: duty = command / duty_base_v, whatever the bus does)
+        self.duty_base_v: float | None = None
         self.device = device
         self.dt = step_s
         self.t = 0.0
@@ -159,7 +163,8 @@ class PowerChain:
 
     # -- the bridge --------------------------------------------------------------------------
     def _voltage_step(self, volts: float, w: float, bus: float) -> tuple[float, float]:
-        duty = volts / bus if bus > 0.0 else 0.0
+        base = self.duty_base_v or bus
+        duty = volts / base if base > 0.0 else 0.0
         duty = 1.0 if duty > 1.0 else (-1.0 if duty < -1.0 else duty)
         if self.pwm is not None:
             c = self.motor.current

@@ -6,7 +6,8 @@ state `sensors.delay` earlier) and writes the raw readings into the trace. With 
 `wrap(command)` gives the runner a command function that first runs the estimator on that
 sample (inside the strategy's time window: its time counts in the budget and whatever it raises
 ends the trial as `strategy_failed`), puts its angle and rate in the reading, records them, and
-then calls the law.
+then calls the law. Either way the reading carries the sample itself (`imu_gyro_rad_s`,
+`imu_accel_m_s2`, in the IMU's own axes), for laws and firmware that read the chip.
 
 The body's angular acceleration for the accelerometer is the backward difference of the engine's
 body rate over the last physics step, (w[j] - w[j-1]) / dt: exactly the engine's acceleration
@@ -100,13 +101,18 @@ class ImuSensing:
     def wrap(self, command):
         """The runner's command function: the estimator, then the law (see the module docstring)."""
         if self.spec is None:
-            return command
+            def sample_then_decide(reading):
+                reading.imu_gyro_rad_s, reading.imu_accel_m_s2 = self.gyro, self.accel
+                return command(reading)
+
+            return sample_then_decide
         est_angle, est_rate = self.est_cols
         meas_angle, meas_rate = self.meas_cols
         to_body = self.to_body
         plain = to_body == ((1.0, 0.0, 0.0), (0.0, 1.0, 0.0), (0.0, 0.0, 1.0))     # axes as the body's
 
         def estimate_then_decide(reading):
+            reading.imu_gyro_rad_s, reading.imu_accel_m_s2 = self.gyro, self.accel
             try:
                 if self.estimator is None:
                     self.estimator = self.spec.build(period_s=self.period_s, gravity_m_s2=self.gravity)

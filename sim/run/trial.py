@@ -262,6 +262,10 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
         motor, supply = chain, chain.command_limit
         applied = np.zeros(n)   # the chain's mean winding voltage per step (the trace's voltage column)
         t_sup, t_bus, t_app = (memoryview(c) for c in (trace.supply_voltage, trace.bus_current, applied))
+    if chain is not None and getattr(strategy, "commands_duty", False):
+        # a law that writes a PWM duty (firmware) answers in volts at the nominal supply: the duty is
+        # that share of it, and acts on the bus as it is (a battery's sag)
+        chain.duty_base_v = device.supply_v
     pushes = _push_schedule(scenario, dt, n)
     next_push, push_torque = pushes.pop() if pushes else (-1, 0.0)
     wheel_limit = ABSURD_WHEEL_FACTOR * device.no_load_speed_rad_s + 100.0

@@ -34,7 +34,7 @@ class Reading:
     """
 
     __slots__ = ("t_s", "angle_rad", "rate_rad_s", "wheel_speed_rad_s", "angles_rad", "rates_rad_s",
-                 "wheel_speeds_rad_s")
+                 "wheel_speeds_rad_s", "imu_gyro_rad_s", "imu_accel_m_s2")
 
     def __init__(self) -> None:
         self.t_s = 0.0
@@ -44,6 +44,10 @@ class Reading:
         self.angles_rad: tuple[float, ...] = ()
         self.rates_rad_s: tuple[float, ...] = ()
         self.wheel_speeds_rad_s: tuple[float, ...] = ()
+        # with an IMU (sensors.imu): its latest sample in its own axes, as the chip reports it
+        # (the errors of sensors.imu applied), rad/s and m/s^2; empty without one
+        self.imu_gyro_rad_s: tuple[float, ...] = ()
+        self.imu_accel_m_s2: tuple[float, ...] = ()
 
 
 class Strategy:

@@ -96,7 +96,8 @@ def power_criteria(sc, metrics: dict, braking: dict, criterion) -> list[dict]:
         v0 = open_circuit_volts_per_cell(sc.battery.chemistry, sc.battery.state_of_charge)
         out.append(criterion("battery_run_time_s", t, req.run_time, t is not None and t >= req.run_time,
                              f"hold's mean bus current {hold['mean_bus_current_a']:.3g} A from {sc.battery.state_of_charge:.0%} "
-                             f"charge ({v0:.2f} V per cell at rest) to the {sc.battery.cutoff_per_cell:.2f} V per cell cut-off"))
+                             f"charge ({v0:.2f} V per cell at rest) to the {sc.battery.cutoff_per_cell:.2f} V per cell cut-off; "
+                             "the motor's draw only: the controller's, sensors' and driver's own current shortens it"))
     margins = []
     for name in ("nominal", "hold"):
         m = metrics[name]

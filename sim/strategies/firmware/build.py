@@ -39,7 +39,7 @@ from pathlib import Path
 
 HEADER = Path(__file__).with_name("wheelbench.h")
 CACHE_ENV = "WHEELBENCH_FIRMWARE_CACHE"
-BUILD_RECIPE = "4"   # bump when the generated wrapper below changes: old builds are then not reused
+BUILD_RECIPE = "5"   # bump when the generated wrapper below changes: old builds are then not reused
 ERROR_LINES = 2
 
 # The wrapper cffi compiles around the firmware: one call per tick with the three readings (cheaper
@@ -71,6 +71,21 @@ static void wbx_init(wb_config_t *cfg, double period_s) {
     wbx_tick_n = 0;
     wb_init(cfg);
     fflush(stdout);
+}
+static int16_t wbx_raw(double value, double lsb) {
+    double c;
+    if (!(lsb > 0.0))
+        return 0;
+    c = nearbyint(value / lsb);
+    return (int16_t)(c > 32767.0 ? 32767.0 : (c < -32768.0 ? -32768.0 : c));
+}
+static void wbx_imu(double gx, double gy, double gz, double ax, double ay, double az) {
+    double g[3] = {gx, gy, gz}, a[3] = {ax, ay, az};
+    int i;
+    for (i = 0; i < 3; i++) {
+        wbx_in.gyro_raw[i] = wbx_raw(g[i], wbx_cfg.gyro_rad_s_per_lsb);
+        wbx_in.accel_raw[i] = wbx_raw(a[i], wbx_cfg.accel_m_s2_per_lsb);
+    }
 }
 static double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_rad_s, wb_output_t *out) {
     wbx_in.t_us = (uint32_t)(uint64_t)llround((double)wbx_tick_n * wbx_period_s * 1e6);
@@ -108,6 +123,7 @@ static double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_r
 _WRAPPER_CDEF = """
 void wbx_init(wb_config_t *cfg, double period_s);
 double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_rad_s, wb_output_t *out);
+void wbx_imu(double gx, double gy, double gz, double ax, double ay, double az);
 """
 
 _STUB_MAIN = """

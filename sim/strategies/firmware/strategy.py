@@ -135,7 +135,13 @@ class FirmwareStrategy(Strategy):
         period_s = 1.0 / d.control_rate_hz
         cfg = ffi.new("wb_config_t *", {"period_us": round(period_s * 1e6), "supply_v": d.supply_v,
                                         "angle_counts_per_rev": d.angle_counts_per_rev,
-                                        "wheel_counts_per_rev": d.wheel_counts_per_rev, "pwm_max": self.pwm_max})
+                                        "wheel_counts_per_rev": d.wheel_counts_per_rev, "pwm_max": self.pwm_max,
+                                        "gyro_rad_s_per_lsb": d.imu_gyro_lsb_rad_s,
+                                        "accel_m_s2_per_lsb": d.imu_accel_lsb_m_s2})
+        # a duty is a share of the bus as it is: the runner scales the volts it stands for (duty /
+        # pwm_max * the nominal supply) by the bus over the nominal supply (a battery's sag)
+        self.commands_duty = self.pwm_max > 0
+        self._imu = lib.wbx_imu if d.imu_gyro_lsb_rad_s > 0 else None
         self._out = ffi.new("wb_output_t *")
         self._tick, self._module = lib.wbx_tick, module   # the module keeps the loaded copy alive
         self.loaded_from = module.__file__    # the build's file, or a temporary copy of it (build.load_fresh)
@@ -157,6 +163,8 @@ class FirmwareStrategy(Strategy):
 
     def decide(self, reading: Reading) -> float:
         out = self._out
+        if self._imu is not None:
+            self._imu(*reading.imu_gyro_rad_s, *reading.imu_accel_m_s2)
         volts = self._tick(reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s, out)
         self.phase = self._phases[out.phase]
         self.brake = out.brake != 0

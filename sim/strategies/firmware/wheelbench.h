@@ -20,13 +20,19 @@
  * upright, wheel counts from 0 at the first tick; they are whole-count equivalents of the
  * readings (exact when the sensor has no noise or bias), and 0 when the scenario gives that
  * sensor no counts_per_rev (then its *_counts_per_rev is 0 in wb_config_t). gyro_raw and
- * accel_raw are 0 (no IMU model yet). t_us counts microseconds from the trial's start and
- * wraps at 2^32 like a hardware timer.
+ * accel_raw are the IMU's latest sample (sensors.imu) as the chip's signed 16-bit words, in its
+ * own axes (its orientation and axis mapping applied, its errors included): the reading divided by
+ * one LSB (gyro_rad_s_per_lsb, accel_m_s2_per_lsb in wb_config_t: the scenario's resolution, else
+ * its range / 32768, else +-2000 deg/s and +-16 g over 32768), rounded and clipped to
+ * [-32768, 32767]; all 0, and both LSBs 0, without an IMU. t_us counts microseconds from the
+ * trial's start and wraps at 2^32 like a hardware timer.
  *
  * Outputs. volts is the voltage wanted across the motor winding when pwm_max == 0; duty is a
  * signed duty in [-pwm_max, pwm_max] when pwm_max > 0, that is when the scenario sets
- * drive.pwm.resolution_bits (pwm_max = 2^bits - 1). There is no PWM model: a duty acts as its
- * mean voltage, duty / pwm_max * supply. The drive clamps to +-supply. A non-finite volts ends the trial as strategy_failed. brake = 1
+ * drive.pwm.resolution_bits (pwm_max = 2^bits - 1). A duty acts on the bus as it is at the
+ * tick: its mean voltage is duty / pwm_max times the bus voltage (the supply, or a battery's sagged
+ * bus), through the drive's PWM model when the scenario has one (dead band, dead time). The drive
+ * clamps to +-supply. A non-finite volts ends the trial as strategy_failed. brake = 1
  * engages the wheel brake (the scenario needs drive.brake_torque). phase is the firmware's own
  * state number, shown as the trace's mode "fw <phase>".
  *
@@ -62,6 +68,8 @@ typedef struct {            /* given once */
     /* several wheels: appended after the one-wheel fields */
     int32_t n_wheels;       /* wheels on the device, 1..WB_MAX_WHEELS (1 today) */
     int32_t wheels_counts_per_rev[WB_MAX_WHEELS];     /* [0] == wheel_counts_per_rev */
+    /* the IMU's raw words: appended after the wheels */
+    float gyro_rad_s_per_lsb, accel_m_s2_per_lsb;     /* one LSB of gyro_raw / accel_raw; 0 without an IMU */
 } wb_config_t;
 
 typedef struct {            /* given every tick: what the firmware would read */
