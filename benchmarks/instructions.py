@@ -49,8 +49,9 @@ else:
 """
 
 
-def count(which: str, seconds: float, lib: Path, tmp: Path, extra: list[str]) -> int:
-    driver = DRIVER.format(root=str(HERE.parent), bench=str(HERE), lib=str(lib), seconds=seconds, which=which,
+def count(which: str, seconds: float, lib: Path, tmp: Path, extra: list[str] = (), *, driver: str = DRIVER) -> int:
+    """Instructions counted while `driver` (a Python source template) runs its measured call."""
+    driver = driver.format(root=str(HERE.parent), bench=str(HERE), lib=str(lib), seconds=seconds, which=which,
                            extra=list(extra))
     proc = subprocess.run(["valgrind", "--tool=callgrind", "--instr-atstart=no",
                            f"--callgrind-out-file={tmp}/out.%p", sys.executable, "-c", driver],

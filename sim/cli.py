@@ -33,11 +33,24 @@ SeedOpt = typer.Option(None, "--seed", callback=_check_seed,
                        help="Seed for all randomness (default: the scenario's trial.seed).")
 
 
-def _load(scenario: Optional[Path], overrides: Optional[List[str]]):
+def _load(scenario: Optional[Path], overrides: Optional[List[str]], *, command: Optional[str] = None):
+    """The validated scenario; `command`: the command's name when it takes one-wheel hinge devices only."""
     from .model.scenario_yaml import load_scenario
     sc = load_scenario(scenario, overrides=tuple(overrides or ()))
+    if command is not None:
+        _refuse_3d(sc, command)
     _announce_plugins(sc)
     return sc
+
+
+def _refuse_3d(sc, command: str) -> None:
+    """One line (exit 2) for a command that does not take 3D devices yet, instead of a crash or a wrong answer."""
+    if not sc.is_planar:
+        from .core.errors import InputError
+        raise InputError(f"{sc.source}: `wheelbench {command}` takes one-wheel hinge devices only in this release; "
+                         "this scenario describes a 3D device (wheels:, a ball mount, parts placed in 3D, a start "
+                         "tilt or vector pushes): use `wheelbench run`" + (" without --video" if command.startswith("run")
+                                                                           else " or `wheelbench gains`"))
 
 
 _ANNOUNCED: set[str] = set()   # plug-in files this command has named on stderr (reset by main)
@@ -91,7 +104,7 @@ def run(scenario: Optional[Path] = ScenarioArg,
     from .run.runfiles import run_to_folder
     from .media.video import clip_options, write_clip
     check_out_path(out)
-    sc = _load(scenario, set_)
+    sc = _load(scenario, set_, command="run --video" if video else None)
     clip = clip_options(video, fps=fps, size=size, camera=camera, force=force) if video else None
     if clip:
         check_clip_frames(sc.trial.duration, clip["fps"], option=f"--video {video}")
@@ -120,8 +133,8 @@ def compare(first: Optional[Path] = typer.Argument(None, help="First scenario (d
     from .media.video import clip_options
     from .run.runfiles import compare_to_clip
     check_labels(label)
-    scenarios = [_load(first, [*(set_ or ()), *(set_a or ())]),
-                 _load(second if second is not None else first, [*(set_ or ()), *(set_b or ())])]
+    scenarios = [_load(first, [*(set_ or ()), *(set_a or ())], command="compare"),
+                 _load(second if second is not None else first, [*(set_ or ()), *(set_b or ())], command="compare")]
     clip = clip_options(video, fps=fps, size=size, camera=camera, force=force)
     check_clip_frames(max(s.trial.duration for s in scenarios), clip["fps"], option=f"--video {video}")
     results, info = compare_to_clip(scenarios, label, seed=seed, **clip)
@@ -138,7 +151,7 @@ def validate(scenario: Path = typer.Argument(..., help="Scenario YAML file."),
     """Check a scenario file and print its derived device figures and the strategy parameters in use."""
     from .model.device import Device
     from .model.device_figures import figures_text, power_text
-    sc = _load(scenario, set_)
+    sc = _load(scenario, set_, command="validate")
     d = Device.from_scenario(sc)
     typer.echo(f"{scenario}: valid.")
     for line in figures_text(d, sc.strategy) + power_text(sc):
@@ -156,7 +169,16 @@ def gains(scenario: Optional[Path] = ScenarioArg,
     writers = {"json": to_json, "c": to_c_header, "text": to_text}
     if format_ not in writers:
         raise InputError(f"--format: expected 'json', 'c' or 'text', found {format_!r}")
-    report = gains_report(_load(scenario, set_))
+    sc = _load(scenario, set_)
+    if not sc.is_planar:    # one to three wheels: the multi-input LQR's gain matrices
+        from .model.device3d import Device3D
+        from .studies import gains_multi
+        params = sc.strategy.params if sc.strategy.kind == "lqr" else None   # else Bryson's defaults
+        report = gains_multi.device_gains_report(Device3D.from_scenario(sc), source=sc.source, params=params)
+        writers = {"json": gains_multi.to_json, "c": gains_multi.to_c_header, "text": gains_multi.to_text}
+        typer.echo(writers[format_](report), nl=format_ == "json")
+        return
+    report = gains_report(sc)
     typer.echo(writers[format_](report), nl=format_ == "json")
 
 
@@ -175,7 +197,7 @@ def fit(log: Path = typer.Argument(..., help="CSV bench log with units in the he
     if test not in TESTS:
         raise InputError(f"--test: unknown test {test!r}; known: {', '.join(TESTS)}")
     check_out_path(out)
-    sc = _load(scenario, None) if scenario is not None else None
+    sc = _load(scenario, None, command="fit") if scenario is not None else None
     result = fit_log(read_log(log), test, scenario=sc)
     written, notes = write_fit_outputs(result, out, log_path=str(log),
                                        scenario_path=str(scenario) if scenario else None, force=force)
@@ -218,7 +240,7 @@ ForceOpt = typer.Option(False, "--force", help="Write into a non-empty folder no
 
 
 def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers: Optional[int] = None,
-              cluster: Optional[str] = None):
+              cluster: Optional[str] = None, *, command: str):
     """The raw scenario mapping (re-validated per trial by check, sweep and catch-map), options checked first."""
     from .core.errors import InputError
     from .core.options import check_cluster, check_workers
@@ -229,7 +251,9 @@ def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers:
         raise InputError("--workers and --cluster: give one (the cluster's scheduler decides its workers)")
     raw, where = load_raw(scenario, tuple(overrides or ()))
     from .model.scenario_yaml import validate_loaded
-    _announce_plugins(validate_loaded(raw, where=where))  # bad input fails here, before an --out folder is made
+    sc = validate_loaded(raw, where=where)  # bad input fails here, before an --out folder is made
+    _refuse_3d(sc, command)
+    _announce_plugins(sc)
     return raw, where
 
 
@@ -248,7 +272,7 @@ def check(scenario: Optional[Path] = ScenarioArg,
     from .studies.verdicts import DEFAULT_TRIALS, run_check
     check_trials(trials)
     check_out_path(out)
-    raw, where = _load_raw(scenario, set_, workers, cluster)  # validated there
+    raw, where = _load_raw(scenario, set_, workers, cluster, command="check")  # validated there
     n = DEFAULT_TRIALS if trials is None else trials
     out_dir = prepare_out_dir(out, force=force)
     bar, update = progress("Monte Carlo")
@@ -286,7 +310,7 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
     check_color(color)
     check_trials(trials, minimum=0)
     check_out_path(out)
-    raw, where = _load_raw(scenario, set_, workers, cluster)
+    raw, where = _load_raw(scenario, set_, workers, cluster, command="sweep")
     varies = [parse_vary(v) for v in vary]
     out_dir = prepare_out_dir(out, force=force, wait=wait)
     bar, update = progress("sweep")
@@ -332,7 +356,7 @@ def tune(scenario: Optional[Path] = ScenarioArg,
     if not 1 <= mc <= MAX_TRIALS:
         raise InputError(f"--mc-trials {mc}: expected a whole number from 1 to {MAX_TRIALS:,}")
     check_out_path(out)
-    raw, where = _load_raw(scenario, None, workers, cluster)
+    raw, where = _load_raw(scenario, None, workers, cluster, command="tune")
     setup = search_setup(raw, where, param_texts=param or [], only=only, objective=objective)   # before --out
     out_dir = prepare_out_dir(out, force=force)
     bar, _ = progress("tune")
@@ -366,7 +390,7 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
     from .core.outputs import check_out_path, prepare_out_dir
     from .core.units import parse_quantity
     check_out_path(out)
-    raw, where = _load_raw(scenario, set_, workers, cluster)
+    raw, where = _load_raw(scenario, set_, workers, cluster, command="catch-map")
     limits = []
     for name, text, kind in (("--angle-max", angle_max, "angle"), ("--rate-max", rate_max, "angular_speed")):
         try:

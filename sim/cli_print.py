@@ -79,6 +79,12 @@ def print_run(sc, m: dict, out: Path) -> None:
         *_power_rows(m),
         ("real-time factor", _fmt(m["real_time_factor"], "x")),
     ]
+    if "wheels" in m:   # a 3D device: the tilt and each wheel (the rows above hold the worst wheel)
+        at = [k for k, _ in rows].index("peak wheel speed")
+        rows.insert(at, ("peak tilt", f"{_fmt(m['peak_tilt_rad'] and m['peak_tilt_rad'] * 57.29577951308232, 'deg')}"))
+        for i, w in enumerate(m["wheels"], start=1):
+            rows.insert(at + i, (f"wheel {i}", f"peak {_fmt(w['peak_speed_rad_s'], 'rad/s')} of "
+                                              f"{w['speed_limit_rad_s']:.1f} rad/s, peak {_fmt(w['peak_current_a'], 'A')}"))
     if m.get("estimator") is not None:    # only with sensors.estimator / timing: today's table otherwise
         deg = 180.0 / math.pi
         rows.append((f"estimator ({m['estimator']}) error", "-" if m["estimator_angle_rms_error_rad"] is None else
@@ -87,7 +93,7 @@ def print_run(sc, m: dict, out: Path) -> None:
     if m.get("loop_overruns") is not None:
         rows.append(("loop overruns", str(m["loop_overruns"])))
     for p in m.get("pushes", []):
-        rows.append((f"push {p['impulse_n_m_s'] * 1000:.1f} mN m s at {p['at_s']:.2f} s",
+        rows.append((f"push {_impulse_text(p['impulse_n_m_s'])} mN m s at {p['at_s']:.2f} s",
                      "survived" if p["survived"] else "not survived"))
     for k, v in rows:
         table.add_row(k, Text(v))
@@ -116,6 +122,13 @@ def dim(text: str):
     """`text` dimmed, printed literally (no markup)."""
     from rich.text import Text
     return Text(text, style="dim")
+
+
+def _impulse_text(impulse) -> str:
+    """A push's impulse in mN m s: a number, or a world-frame vector [x, y, z]."""
+    if isinstance(impulse, (list, tuple)):
+        return "[" + ", ".join(f"{1000 * v:.1f}" for v in impulse) + "]"
+    return f"{impulse * 1000:.1f}"
 
 
 def _fmt(value, unit: str) -> str:

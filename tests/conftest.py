@@ -93,6 +93,16 @@ def firmware_cache(tmp_path_factory):
         os.environ[CACHE_ENV] = before
 
 
+def make_scenario3d(wheels: list, **sections):
+    """A validated 3D `Scenario`: the test mapping with `wheels:` instead of `wheel:` and `sections` merged in."""
+    from sim.model.scenario import validate_scenario
+
+    raw = scenario_dict(**sections)
+    raw.pop("wheel")
+    raw["wheels"] = copy.deepcopy(wheels)
+    return validate_scenario(raw, where="<test scenario>")
+
+
 def timeless(value):
     """`value` (metrics, a verdict) without wall-clock entries: they measure the machine, not the model."""
     if isinstance(value, dict):

@@ -48,6 +48,10 @@ class Device:
 
     @classmethod
     def from_scenario(cls, sc) -> "Device":
+        if not sc.is_planar:
+            from ..core.errors import ScenarioError
+            raise ScenarioError(f"{sc.source}: a 3D device (wheels:, a ball mount or parts placed in 3D) runs with "
+                                "`wheelbench run` only in this release")
         w = sc.wheel
         wheel = _corrected(wheel_props(w.parts, rotor_inertia=sc.motor.rotor_inertia), w.inertia_correction)
         body = body_props(sc.body.parts, extra_point_masses=[(sc.motor.mass, w.at)] if sc.motor.mass else [])

@@ -31,7 +31,7 @@ from pydantic import (BaseModel, BeforeValidator, ConfigDict, Field, ValidationE
                       ValidationInfo, field_validator, model_validator)
 
 from ..core.errors import ScenarioError
-from ..core.units import Q
+from ..core.units import Q, parse_quantity
 from ..core.validation_messages import describe_problems, describe_validation_error, step_suggestion
 from .sensing import EncoderLimits, EstimatorField, ImuSpec, Timing, check_sensing
 from ..strategies.base import StrategySpec
@@ -51,6 +51,40 @@ Length = Q("length", ge=-MAX_SIZE_M, le=MAX_SIZE_M)
 PositiveLength = Q("length", gt=0, le=MAX_SIZE_M)
 PositiveMass = Q("mass", gt=0, le=MAX_MASS_KG)
 Fraction = Q("fraction", gt=0, le=1)
+
+
+def _parse_vector(value: Any, kind: str, bound: float, *, scalar_ok: bool):
+    """A quantity of `kind` (when `scalar_ok`) or a list of three, each finite and within +-`bound` (SI)."""
+    if isinstance(value, (list, tuple)):
+        if len(value) != 3:
+            raise ValueError(f"expected {'a number or ' if scalar_ok else ''}a list of three, found a list of {len(value)}")
+        out = tuple(parse_quantity(v, kind) for v in value)
+    elif scalar_ok:
+        out = parse_quantity(value, kind)
+    else:
+        raise ValueError(f"expected a list of three numbers, found {value!r}")
+    for v in (out if isinstance(out, tuple) else (out,)):
+        if not (math.isfinite(v) and -bound <= v <= bound):
+            raise ValueError(f"expected values within +-{bound:g} (SI), found {v:g}")
+    return out
+
+
+def _scalar_or_vector(kind: str, bound: float):
+    """A field type: a quantity of `kind`, or a list of three. A scalar stays a float and a list
+    becomes a 3-tuple, so that today's scalar files keep exactly today's values."""
+    return Annotated[float | tuple[float, float, float],
+                     BeforeValidator(lambda v: _parse_vector(v, kind, bound, scalar_ok=True))]
+
+
+def _vector(kind: str, bound: float):
+    """A field type: a list of three quantities of `kind`, as a 3-tuple."""
+    return Annotated[tuple[float, float, float], BeforeValidator(lambda v: _parse_vector(v, kind, bound, scalar_ok=False))]
+
+
+LengthOrVector = _scalar_or_vector("length", MAX_SIZE_M)
+AngleOrVector = _scalar_or_vector("angle", 1e3)
+ImpulseOrVector = _scalar_or_vector("impulse", MAX_TORQUE)
+Direction = _vector("fraction", 1e6)
 
 
 class Strict(BaseModel):
@@ -114,6 +148,11 @@ class Part(Strict):
     the wheel axis); `width` is in the swing plane; `thickness` is along the pivot axis. Disks
     and rings have their axis parallel to the pivot axis. A hollow box is a closed six-faced shell
     oriented like a box, its sizes the outside ones, its faces `wall` thick.
+
+    3D placement (body parts only): `at` may be a 3-vector [x, y, z] in the body frame (x the
+    hinge axis, z the body axis, y completing a right-handed frame; a scalar is [0, 0, at]), and
+    `rotation` turns the part from the orientation above: an angle about x, or [about x, about y,
+    about z] applied in that order about the body's fixed axes (R = Rz Ry Rx), rad.
     """
 
     name: str | None = None
@@ -128,8 +167,14 @@ class Part(Strict):
     mass: PositiveMass | None = None
     material: Annotated[str | MaterialSpec | None, BeforeValidator(_material_spec)] = None
     infill: Fraction | None = None
-    at: Length = 0.0
+    at: LengthOrVector = 0.0
+    rotation: AngleOrVector = 0.0
     count: Annotated[int, Field(ge=1, le=1000, strict=True)] = 1
+
+    @property
+    def placed_off_axis(self) -> bool:
+        """True when the part uses 3D placement: a vector `at` or any rotation."""
+        return isinstance(self.at, tuple) or self.rotation != 0.0
 
     @model_validator(mode="after")
     def _sizes_fit_shape(self):
@@ -187,6 +232,9 @@ class Part(Strict):
 
 class Body(Strict):
     parts: Annotated[list[Part], Field(min_length=1, max_length=200)]
+    mount: Literal["hinge", "ball"] = "hinge"
+    """hinge: a revolute joint about the body's x axis at the origin; ball: a spherical joint there
+    (the body can tip in any direction and turn about the vertical)."""
     pivot_friction: Friction = Friction()
     locked: bool = False
     """True clamps the body at its start angle (a bench test of the wheel drive)."""
@@ -206,6 +254,10 @@ class Wheel(Strict):
     @classmethod
     def _balanced(cls, parts):
         for i, p in enumerate(parts):
+            if isinstance(p.at, tuple):
+                raise ValueError(f"@[{i}].at: a wheel part's at is its distance from the wheel axis (a number)")
+            if p.rotation != 0.0:
+                raise ValueError(f"@[{i}].rotation: wheel parts lie on the wheel axis; set the wheel's axis instead")
             if p.count == 1 and p.at != 0.0:
                 raise ValueError(f"@[{i}].at: a single part off the wheel axis unbalances the wheel; "
                                  "give count >= 2 for evenly spaced copies")
@@ -385,6 +437,37 @@ class Battery(Strict):
         return self.cutoff if self.cutoff is not None else CUTOFF_PER_CELL_V[self.chemistry]
 
 
+class WheelSpec(Wheel):
+    """One wheel of a `wheels:` list. `at`: a 3-vector in the body frame, or a distance along the
+    body axis (as `wheel.at`), m. `axis`: the spin axis in the body frame (normalised; default the
+    hinge axis x). `motor` and `brake_torque`: this wheel's own, else the scenario's `motor` and
+    `drive.brake_torque`."""
+
+    at: LengthOrVector
+    axis: Direction = (1.0, 0.0, 0.0)
+    motor: Motor | None = None
+    brake_torque: Q("torque", gt=0, le=MAX_TORQUE) | None = None
+
+    @field_validator("axis")
+    @classmethod
+    def _axis_nonzero(cls, axis):
+        if math.hypot(*axis) < 1e-9:
+            raise ValueError("expected a direction, found a zero vector")
+        return axis
+
+    @field_validator("at")
+    @classmethod
+    def _at_positive(cls, at):
+        if not isinstance(at, tuple) and at <= 0.0:
+            raise ValueError(f"a distance along the body axis must be above 0 m, found {at:g}")
+        return at
+
+    @property
+    def at_vector_m(self) -> tuple[float, float, float]:
+        """The wheel centre in the body frame, m."""
+        return self.at if isinstance(self.at, tuple) else (0.0, 0.0, self.at)
+
+
 class AngleSensor(EncoderLimits):
     counts_per_rev: Annotated[int, Field(ge=4, le=2**31, strict=True)] | None = None
     noise: Q("angle", ge=0, le=MAX_ANGLE_NOISE) = 0.0
@@ -421,13 +504,17 @@ class Sensors(Strict):
 class Start(Strict):
     angle: Q("angle", ge=-1e3, le=1e3) = 0.0
     rate: Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED) = 0.0
-    wheel_speed: Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED) = 0.0
+    wheel_speed: Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED) | list[Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED)] = 0.0
+    """Relative wheel speed, rad/s: one for every wheel, or a list with one per wheel (`wheels:`)."""
+    tilt: Annotated[list[Q("angle", ge=-math.pi / 2, le=math.pi / 2)], Field(min_length=2, max_length=2)] | None = None
+    """Ball mount: the start attitude as [about x, about y] from upright (R = Ry(about_y) Rx(about_x)), rad."""
 
 
 class Push(Strict):
     at: Q("time", ge=0)
-    impulse: Q("impulse", ge=-MAX_TORQUE, le=MAX_TORQUE)
-    """Angular impulse about the pivot, N m s, applied over one physics step."""
+    impulse: ImpulseOrVector
+    """Angular impulse about the pivot, N m s, applied over one physics step: a number (about the
+    hinge axis, world x) or a 3-vector in the world frame."""
 
 
 class Trial(Strict):
@@ -475,8 +562,12 @@ class Scenario(Strict):
     description: str = ""
     world: World = World()
     body: Body
-    wheel: Wheel
-    motor: Motor
+    wheel: Wheel | None = None
+    """One wheel on the hinge axis (today's shorthand); give this or `wheels`."""
+    wheels: Annotated[list[WheelSpec], Field(min_length=1, max_length=3)] | None = None
+    """One to three wheels anywhere on the body, each on its own axis (the general 3D device)."""
+    motor: Motor | None
+    """The motor of every wheel that names none of its own (required unless every wheel in `wheels` has one)."""
     drive: Drive
     battery: Battery | None = None
     """A battery pack instead of the bench supply `drive.supply`."""
@@ -491,6 +582,80 @@ class Scenario(Strict):
     None: the defaults in `sim.model.tolerances.DEFAULT_TOLERANCES`."""
     source: str = "<memory>"
     """Where the scenario came from (for messages)."""
+
+    @model_validator(mode="before")
+    @classmethod
+    def _one_wheel_key(cls, raw: Any):
+        if isinstance(raw, dict):
+            if "wheel" in raw and "wheels" in raw:
+                raise ValueError("@wheels: give either wheel (one wheel on the hinge axis) or wheels (a list), not both")
+            if "wheel" not in raw and "wheels" not in raw:
+                raise ValueError("@wheel: missing: give wheel (one wheel) or wheels (a list of one to three)")
+            wheels = raw.get("wheels")
+            if ("motor" not in raw and isinstance(wheels, list) and wheels
+                    and all(isinstance(w, dict) and w.get("motor") is not None for w in wheels)):
+                raw = {**raw, "motor": None}    # every wheel has its own: no shared motor needed
+        return raw
+
+    @model_validator(mode="after")
+    def _device_keys_fit(self):
+        if self.motor is None and (self.wheels is None or any(w.motor is None for w in self.wheels)):
+            raise ValueError("@motor: expected a motor (shared), or a motor for every wheel in wheels")
+        if self.is_planar:
+            return self
+        if self.body.locked:
+            raise ValueError("@body.locked: a locked body is a one-wheel hinge bench (wheel:, hinge mount) only")
+        ball = self.body.mount == "ball"
+        if ball and self.body.pivot_friction.coulomb:
+            raise ValueError("@body.pivot_friction.coulomb: a ball mount takes viscous pivot friction only")
+        if self.trial.start.tilt is not None and not ball:
+            raise ValueError("@trial.start.tilt: a start tilt [about_x, about_y] needs body.mount: ball (a hinge takes start.angle)")
+        if ball and (self.trial.start.angle or self.trial.start.rate):
+            raise ValueError("@trial.start.angle: a ball mount starts from trial.start.tilt [about_x, about_y] at rest")
+        speeds = self.trial.start.wheel_speed
+        if isinstance(speeds, list) and len(speeds) != len(self.wheel_list):
+            raise ValueError(f"@trial.start.wheel_speed: expected one speed or {len(self.wheel_list)} (one per wheel), "
+                             f"found {len(speeds)}")
+        # the sensing and timing models are written for the one-wheel path; say so rather than ignore them
+        sens = self.sensors
+        for key, used in (("sensors.imu", sens.imu is not None), ("sensors.estimator", sens.estimator is not None),
+                          ("timing", self.timing is not None), ("sensors.angle", sens.angle is None),
+                          ("sensors.angle.max_speed", sens.angle is not None and (
+                              sens.angle.max_speed is not None or sens.angle.update_rate is not None
+                              or sens.angle.latency)),
+                          ("sensors.wheel.max_speed", getattr(sens.wheel, "max_speed", None) is not None
+                           or getattr(sens.wheel, "update_rate", None) is not None
+                           or bool(getattr(sens.wheel, "latency", 0.0)))):
+            if used:
+                raise ValueError(f"@{key}: the IMU, estimator, encoder bus limits and timing models take one-wheel "
+                                 "hinge devices only in this release (this is a 3D device)")
+        if self.power_model:
+            raise ValueError("@drive: the power chain (battery, drive.mode current, PWM frequency, reversal delay, "
+                             "trips, bus capacitance, motor.curve, motor.thermal.coupled) takes one-wheel hinge "
+                             "devices only in this release (this is a 3D device)")
+        if self.strategy is not None and getattr(self.strategy.cls, "planar_only", False):
+            raise ValueError(f"@strategy.kind: {self.strategy.kind} works on one wheel on a hinge only; this device "
+                             f"has {len(self.wheel_list)} wheel(s) on a {self.body.mount} mount")
+        return self
+
+    @property
+    def is_planar(self) -> bool:
+        """True for today's one-wheel planar device (it runs on the planar code path, numbers unchanged):
+        `wheel:` (not `wheels:`), a hinge mount, no body part placed in 3D, and no start tilt,
+        per-wheel start speeds or vector pushes."""
+        return (self.wheels is None and self.body.mount == "hinge"
+                and not any(p.placed_off_axis for p in self.body.parts)
+                and self.trial.start.tilt is None and not isinstance(self.trial.start.wheel_speed, list)
+                and not any(isinstance(p.impulse, tuple) for p in self.trial.pushes))
+
+    @property
+    def wheel_list(self) -> list:
+        """The wheels as a list: `wheels`, or the one `wheel`."""
+        return list(self.wheels) if self.wheels is not None else [self.wheel]
+
+    def wheel_motor(self, i: int) -> Motor:
+        """Wheel i's motor: its own, else the shared one."""
+        return getattr(self.wheel_list[i], "motor", None) or self.motor
 
     @model_validator(mode="after")
     def _step_counts(self):
@@ -528,10 +693,10 @@ class Scenario(Strict):
             # the supply the laws, margins and clamps read: the pack at rest at the start (frozen model:
             # set once here, in the one validation pass)
             self.drive.__dict__["supply"] = b.cells * open_circuit_volts_per_cell(b.chemistry, b.state_of_charge)
-        if self.motor.curve is not None and self.motor.thermal.coupled:
+        if self.motor is not None and self.motor.curve is not None and self.motor.thermal.coupled:
             raise ValueError("@motor.thermal.coupled: the winding's resistance does not enter a motor.curve; "
                              "give one or the other")
-        if self.drive.mode == "current" and self.motor.curve is not None:
+        if self.drive.mode == "current" and self.motor is not None and self.motor.curve is not None:
             raise ValueError("@motor.curve: applies to drive.mode voltage (a current-mode driver sets the current)")
         if self.drive.mode == "current" and not getattr(self.strategy.cls, "commands_current", False):
             raise ValueError(f"@drive.mode: strategy '{self.strategy.kind}' commands volts only; drive.mode "
@@ -544,17 +709,22 @@ class Scenario(Strict):
     def power_model(self) -> bool:
         """True when any power-chain key is set: the runner then drives through
         `sim.physics.drive.PowerChain` instead of today's `MotorDrive` alone."""
-        return (self.battery is not None or self.drive.models_power or self.motor.thermal.coupled
-                or self.motor.curve is not None)
+        return (self.battery is not None or self.drive.models_power
+                or any(m.thermal.coupled or m.curve is not None
+                       for m in ([self.motor] if self.motor is not None else []) + [getattr(w, "motor", None) or self.motor
+                                                                                   for w in self.wheel_list]
+                       if m is not None))
 
     @model_validator(mode="after")
     def _wheel_spins(self):
         # a wheel of point masses on its axis has no spin inertia: the run would divide by zero
         from .massprops import wheel_props
-        spin = wheel_props(self.wheel.parts, rotor_inertia=self.motor.rotor_inertia).inertia_com[0]
-        if spin <= 0.0 and not self.wheel.inertia_correction:  # a correction is checked below
-            raise ValueError("@wheel.parts: the wheel's spin inertia is 0 kg m^2 (only point masses on its axis); "
-                             "give it a part with a size (a disk or ring), copies off the axis, or motor.rotor_inertia")
+        for i, w in enumerate(self.wheel_list):
+            key = "wheel" if self.wheels is None else f"wheels[{i}]"
+            spin = wheel_props(w.parts, rotor_inertia=self.wheel_motor(i).rotor_inertia).inertia_com[0]
+            if spin <= 0.0 and not w.inertia_correction:  # a correction is checked below
+                raise ValueError(f"@{key}.parts: the wheel's spin inertia is 0 kg m^2 (only point masses on its axis); "
+                                 "give it a part with a size (a disk or ring), copies off the axis, or motor.rotor_inertia")
         return self
 
     @model_validator(mode="after")
@@ -563,17 +733,23 @@ class Scenario(Strict):
         from .massprops import body_props, wheel_props
         corr = self.body.inertia_correction
         if corr:
-            extra = [(self.motor.mass, self.wheel.at)] if self.motor.mass else []
-            own = body_props(self.body.parts, extra_point_masses=extra).inertia_com[0]
+            if self.is_planar:
+                extra = [(self.motor.mass, self.wheel.at)] if self.motor.mass else []
+                own = body_props(self.body.parts, extra_point_masses=extra).inertia_com[0]
+            else:
+                from .massprops3d import body_mass_properties
+                own = body_mass_properties(self).inertia_com_kg_m2[0][0]
             if own + corr <= 0.0:
                 raise ValueError(f"@body.inertia_correction: {corr:.4g} kg m^2 would make the body's inertia "
                                  f"about its centre of mass ({own:.4g} kg m^2) zero or negative")
-        corr = self.wheel.inertia_correction
-        if corr:
-            own = wheel_props(self.wheel.parts, rotor_inertia=self.motor.rotor_inertia).inertia_com[0]
-            if own + corr <= 0.0:
-                raise ValueError(f"@wheel.inertia_correction: {corr:.4g} kg m^2 would make the wheel's spin "
-                                 f"inertia ({own:.4g} kg m^2) zero or negative")
+        for i, w in enumerate(self.wheel_list):
+            corr = w.inertia_correction
+            if corr:
+                own = wheel_props(w.parts, rotor_inertia=self.wheel_motor(i).rotor_inertia).inertia_com[0]
+                if own + corr <= 0.0:
+                    key = "wheel" if self.wheels is None else f"wheels[{i}]"
+                    raise ValueError(f"@{key}.inertia_correction: {corr:.4g} kg m^2 would make the wheel's spin "
+                                     f"inertia ({own:.4g} kg m^2) zero or negative")
         return self
 
     @property

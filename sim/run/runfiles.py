@@ -12,7 +12,9 @@ from ..core.outputs import atomic_path, prepare_out_dir, write_json
 from ..media.plots import save_figure, summary_figure
 from ..strategies.firmware import firmware_log_for
 from .metrics import trial_metrics
+from .metrics3d import trial_metrics3d
 from .trace import write_csv
+from .trace3d import write_csv3d
 from .trial import run_trial
 
 
@@ -25,12 +27,13 @@ def run_to_folder(scenario, out: str | Path, *, seed: int | None = None, force: 
     out_dir = prepare_out_dir(out, force=force)
     with firmware_log_for(scenario.strategy, out_dir / "firmware.log"):  # printf of compiled firmware
         result = run_trial(scenario, seed=seed)
-    metrics = trial_metrics(result)
+    is_3d = getattr(result, "is_3d", False)
+    metrics = trial_metrics3d(result) if is_3d else trial_metrics(result)
     metrics["seed"] = scenario.trial.seed if seed is None else seed
     metrics["scenario"] = scenario.source
     with plot_beside(result, out_dir / "summary.png", enabled=plot):
         with atomic_path(out_dir / "trace.csv") as tmp:
-            write_csv(result.trace, tmp)
+            (write_csv3d if is_3d else write_csv)(result.trace, tmp)
     write_json(out_dir / "metrics.json", metrics)
     return result, metrics
 
@@ -45,7 +48,11 @@ def plot_beside(result, path: Path, *, enabled: bool = True):
     The child writes through `atomic_path`, so the PNG is complete or absent.
     """
     def draw() -> None:
-        save_figure(summary_figure(result), path)
+        if getattr(result, "is_3d", False):
+            from ..media.plots3d import summary_figure3d
+            save_figure(summary_figure3d(result), path)
+        else:
+            save_figure(summary_figure(result), path)
 
     child = fork_child(draw) if enabled and hasattr(os, "fork") else None
     try:

@@ -10,10 +10,9 @@ outcome too.
 
 from __future__ import annotations
 
-import copy
 import math
 import time
-from dataclasses import dataclass, field, replace
+from dataclasses import replace
 
 import numpy as np
 
@@ -21,7 +20,6 @@ from ..core import isolation
 from ..core.angles import wrap_angle
 from ..core.budget import AFTER_S, StrategyClock
 from ..core.errors import StrategyError
-from ..core.exception_text import describe_exception, exception_parts
 from ..model.device import Device
 from ..physics.engine import EngineModel
 from ..physics.drive import PowerChain
@@ -31,9 +29,13 @@ from ..physics.timing import TickSchedule
 from ..strategies import plugins_in
 from ..strategies.base import Reading
 from .causes import find_cause
-from .extra_metrics import settle_extra_metrics
 from .metrics import saturated_ticks, supply_ceiling
 from .trace import POWER_CSV_COLUMNS, Trace
+from .trial_common import TrialResult, close_trace  # noqa: F401 - TrialResult's home was here
+from .trial_common import describe as _describe
+from .trial_common import describe_unread as _describe_unread
+from .trial_common import final_outcome as _final_outcome
+from .trial_common import with_strategy
 
 OUTCOMES = ("balanced", "fell", "not_caught", "diverged", "strategy_failed", "completed")
 ABSURD_RATE_RAD_S = 1e4          # a body spinning at 1,600 rev/s is a numerical blow-up
@@ -47,33 +49,6 @@ STRATEGY_BUDGET_S = 60.0
 """Default wall-clock budget, s, for all strategy work in one trial (building it and every
 control tick together). The built-in laws use well under 1 s for a minute of simulated time;
 a plug-in past the budget ends the trial with outcome `strategy_failed`."""
-
-
-@dataclass
-class TrialResult:
-    """What a trial produced. `outcome` is one of OUTCOMES; `message` explains failures.
-
-    `ended_at_s` is where simulated time stopped: the full duration, or the time of the step
-    at which the run diverged, the strategy failed or (with stop_early) the body fell.
-    """
-
-    outcome: str
-    message: str | None
-    trace: Trace
-    device: Device
-    scenario: object
-    caught_at_s: float | None
-    fell_at_s: float | None
-    ended_at_s: float
-    control_ticks: int
-    saturated_ticks: int
-    wall_s: float
-    strategy: object = None
-    events: list = field(default_factory=list)
-    cause: str | None = None            # why a trial that is not balanced/completed ended so (sim.run.causes)
-    cause_detail: str | None = None     # one sentence with the figures behind `cause`
-    power: dict | None = None           # the power chain's summary (`PowerChain.summary`), None without one
-    loop_overruns: int | None = None    # with a `timing` section: ticks skipped or commands dropped
 
 
 class _WatchedClock(StrategyClock):
@@ -176,6 +151,12 @@ def run_trial(scenario, *, seed: int | None = None, stop_early: bool | None = No
         same either way; an `on_step` hook then runs in the child (its exceptions and attributes
         come back, other side effects stay there).
     """
+    if not scenario.is_planar:   # a 3D device: its own runner (the planar path below stays as it was)
+        if visual is not None:
+            raise ValueError("rendering a 3D device is not supported yet")
+        from .trial3d import run_trial3d
+        return run_trial3d(scenario, seed=seed, stop_early=stop_early, strategy_budget_s=strategy_budget_s,
+                           on_step=on_step)
     device = Device.from_scenario(scenario)
     seed = scenario.trial.seed if seed is None else seed
     stop_early = scenario.trial.stop_early if stop_early is None else stop_early
@@ -207,12 +188,8 @@ def _simulate(scenario, device, trace, clock, *, seed, stop_early, visual, on_st
                                trace=trace)
         schedule = None if scenario.timing is None else TickSchedule(
             scenario.timing, control_steps=scenario.control_steps, step_s=dt, rng=stream(seed, TIMING_STREAM), end_step=n)
-        with clock:
-            strategy, failure = _build_strategy(scenario, device, rng, clock)
-            clock.strategy = strategy
-            result = _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock,
-                           schedule)
-            return settle_extra_metrics(result, clock)
+        return with_strategy(scenario, device, rng, clock, lambda strategy, failure: _loop(
+            scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock, schedule))
     finally:
         engine.close()
 
@@ -266,24 +243,6 @@ def _lost_child_result(scenario, device, trace, budget: float, lost: isolation.L
     ticks = 0 if building else k // cs + 1
     return _result(scenario, device, trace, strategy, "strategy_failed", message, k, None, None, False,
                    False, ticks, lost.wall_s)
-
-
-def _build_strategy(scenario, device, rng, clock):
-    """(strategy, None), or (None, message) when building it fails: an outcome, like failing later."""
-    try:
-        clock.enter()
-        # the strategy gets its own copy of the device: what it does to it never reaches the
-        # runner's motor, drive limits or metrics
-        strategy = scenario.strategy.build(copy.deepcopy(device), rng=rng)
-        clock.leave()
-        return strategy, None
-    except BaseException as exc:  # noqa: B036 - whatever strategy code raises is its failure
-        clock.t_in = None           # first, and no call before it: no timeout is raised into the runner now
-        if isinstance(exc, KeyboardInterrupt) and clock.user_interrupt:
-            raise                   # the user's Ctrl-C, not the strategy's
-        text = clock.after(lambda: describe_exception(exc), _unread(exc))   # __str__ is theirs: timed
-        clock.abandon()
-        return None, f"building the strategy failed: {text}"
 
 
 def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_early, on_step, clock,
@@ -356,6 +315,8 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
             t = k * dt
             meas = sense(k, t_angle, t_rate, t_wangle, t_wspeed)
             reading.t_s, reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = t, meas[0], meas[1], meas[2]
+            # the vector form too, so a law written for it reads a one-wheel hinge device as well
+            reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = (meas[0],), (meas[1],), (meas[2],)
             ticks += 1
             t_ma[k], t_mr[k], t_mw[k] = meas  # before the call: an isolated child may never come back
             try:
@@ -438,14 +399,7 @@ def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fel
             wants_balance, ticks, wall, *, tick_rows=None, overruns=None, power=None, applied=None) -> TrialResult:
     """Close the trace and judge the outcome. `k` is the step the loop stopped at."""
     dt, n = scenario.world.step, scenario.n_steps
-    if outcome in ("diverged", "strategy_failed") and k < n:
-        # row k holds the state at the failure (nothing was applied after it); time ends there
-        trace.n, ended = k + 1, k * dt
-    elif outcome == "fell":
-        trace.n, ended = k, (fell_k if fell_k is not None else k) * dt
-    else:
-        trace.n, ended = k, k * dt
-    trace.t[: trace.n] = np.arange(trace.n) * dt
+    ended = close_trace(trace, outcome=outcome, k=k, n=n, dt=dt, fell_k=fell_k)
     _hold_tick_values(trace, scenario.control_steps, tick_rows)
     if applied is not None:     # through the power chain: what reached the winding, step by step
         trace.voltage[: trace.n] = applied[: trace.n]
@@ -498,14 +452,6 @@ def _push_schedule(scenario, dt: float, n: int) -> list[tuple[int, float]]:
     return sorted(torques.items(), reverse=True)
 
 
-def _final_outcome(wants_balance, strategy, catch_k, fell_k, fall_final) -> str:
-    if not wants_balance:
-        return "completed"
-    if catch_k is not None:
-        return "balanced"
-    return "fell" if fell_k is not None else "not_caught"
-
-
 def _drive_limit(volts, supply_v: float) -> float:
     """A command outside +-supply_v clamped to it, V. A command that is no finite number (possible
     from a strategy that replaces `command`) ends the trial, as the base's own check does."""
@@ -524,19 +470,3 @@ def _set_brake(engine, device, on: bool) -> bool:
     wheel = device.wheel_coulomb_n_m + (device.brake_torque_n_m if on else 0.0)
     engine.set_dry_friction(pivot_n_m=device.pivot_coulomb_n_m, wheel_n_m=wheel)
     return on
-
-
-def _unread(exc: BaseException) -> str:
-    """The failure's name alone, for an exception whose message did not come in time."""
-    return f"{type(exc).__name__} (its message could not be read in time)"
-
-
-def _describe_unread(exc: BaseException, t: float) -> str:
-    return f"{type(exc).__name__} at t = {t:.4f} s (its message could not be read in time)"
-
-
-def _describe(exc: BaseException, t: float) -> str:
-    """"Type at t = ... s: first line of the message"; never raises (see describe_exception)."""
-    name, text = exception_parts(exc)
-    text = text.splitlines()[0] if text else ""
-    return f"{name} at t = {t:.4f} s" + (f": {text}" if text else "")

@@ -29,7 +29,7 @@ class Reading:
     ball mount, from upright; `rates_rad_s` is (theta_d,) on a hinge and the body's angular
     velocity in the world frame (wx, wy, wz) on a ball; `wheel_speeds_rad_s` has one speed per
     wheel, relative to the body. The scalar fields mirror the first entries, so one-wheel laws
-    read what they always did. On the planar one-wheel path the vector fields are left empty.
+    read what they always did; a one-wheel hinge device fills both forms.
     One object is reused for the whole trial: copy values out if a strategy keeps them.
     """
 
@@ -61,7 +61,9 @@ class Strategy:
        the scenario loaded; `rng` is the trial's seeded numpy Generator, the only randomness
        a strategy may use. Designs (gains, predictors) are computed in `__init__`.
     2. The law. A subclass implements ``decide(reading) -> float``: the voltage it wants across
-       the motor winding, in volts, positive accelerating the wheel in the positive sense. It is
+       the motor winding, in volts, positive accelerating the wheel in the positive sense. On a
+       3D device (`sim.model.device3d.Device3D`, `device.n_wheels` wheels) it returns a sequence
+       of volts, one per wheel in the scenario's order (a number will do for one wheel). It is
        called once per control tick, in time order; the runner holds the result until the
        next tick (zero-order hold). It sees only the `Reading` (measured angle, body rate,
        wheel speed and time), never the true state or the engine.
@@ -106,6 +108,9 @@ class Strategy:
     kind: ClassVar[str] = "custom"
     goal: ClassVar[str | None] = "balance"
     swings_up: ClassVar[bool] = False   # True when the strategy can bring the body up from hanging
+    planar_only: ClassVar[bool] = False
+    """True for laws that are one-axis by nature: a scenario pairing one with a multi-wheel or
+    ball-mounted device (not `Scenario.is_planar`) is refused at load."""
     commands_current: ClassVar[bool] = False   # True: answers in amps when device.drive_mode is "current"
     needs_current_mode: ClassVar[bool] = False  # True: answers in amps only
 
@@ -132,10 +137,41 @@ class Strategy:
         try:
             v = float(v)
         except (TypeError, ValueError):
-            raise StrategyError(f"decide() returned {type(v).__name__}, not a voltage") from None
+            v = _only_voltage(v)    # a law written in the vector form: one voltage for the one wheel
         if not math.isfinite(v):
             raise StrategyError(f"decide() returned a non-finite voltage ({v})")
         return v
+
+    def command_vector(self, reading: Reading, n_wheels: int) -> tuple[float, ...]:
+        """The base's part of each tick on a 3D device: `decide` returns a sequence of volts, one per
+        wheel (a single number is accepted for a one-wheel device). Returns a tuple of finite floats."""
+        v = self.decide(reading)
+        kind = type(v)
+        if kind is not list and kind is not tuple:     # the common answers skip these checks
+            if isinstance(v, (int, float)) or getattr(v, "ndim", 1) == 0:
+                if n_wheels != 1:
+                    raise StrategyError(f"decide() returned one voltage for a device with {n_wheels} wheels; "
+                                        "return a sequence with one voltage per wheel")
+                v = (v,)
+        try:
+            out = tuple(map(float, v))
+        except (TypeError, ValueError):
+            raise StrategyError(f"decide() returned {type(v).__name__}, not a sequence of voltages") from None
+        if len(out) != n_wheels:
+            raise StrategyError(f"decide() returned {len(out)} voltages for a device with {n_wheels} wheels")
+        for x in out:
+            if x - x != 0.0:                            # inf - inf and NaN - NaN are NaN
+                raise StrategyError(f"decide() returned a non-finite voltage ({x})")
+        return out
+
+def _only_voltage(v) -> float:
+    """The voltage of a one-element sequence of volts; a StrategyError for anything else."""
+    try:
+        if len(v) == 1:
+            return float(v[0])
+    except (TypeError, ValueError, KeyError, IndexError):
+        pass
+    raise StrategyError(f"decide() returned {type(v).__name__}, not a voltage") from None
 
 
 @dataclass(frozen=True)

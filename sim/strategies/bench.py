@@ -20,12 +20,13 @@ class Coast(Strategy):
         self.phase = "coast"
         self.open_circuit = True
 
-    def decide(self, reading: Reading) -> float:
-        return 0.0
+    def decide(self, reading: Reading):
+        n = getattr(self.device, "n_wheels", 1)   # one zero per wheel on a 3D device
+        return 0.0 if n == 1 else (0.0,) * n
 
 
 class FixedVoltage(Strategy):
-    """A constant voltage across the winding (a step at t = 0), V."""
+    """A constant voltage across the winding (a step at t = 0), V; on a 3D device across every wheel's."""
 
     kind = "fixed_voltage"
     goal = None
@@ -37,8 +38,9 @@ class FixedVoltage(Strategy):
         super().__init__(**kw)
         self.phase = "fixed voltage"
 
-    def decide(self, reading: Reading) -> float:
-        return self.params.volts
+    def decide(self, reading: Reading):
+        n = getattr(self.device, "n_wheels", 1)
+        return self.params.volts if n == 1 else (self.params.volts,) * n
 
 
 class FixedCurrent(Strategy):
@@ -46,6 +48,7 @@ class FixedCurrent(Strategy):
 
     kind = "fixed_current"
     goal = None
+    planar_only = True   # a current-mode drive: one-wheel hinge devices only (refused for 3D at load)
     commands_current = True
     needs_current_mode = True
 

@@ -43,6 +43,7 @@ class BrakeJump(Strategy):
     """
 
     kind = "jump"
+    planar_only = True   # one wheel on a hinge: refused for 3D devices at load
     goal = None
     swings_up = True
 

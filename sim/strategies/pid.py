@@ -62,6 +62,7 @@ class PidBalance(Strategy):
     """
 
     kind = "pid"
+    planar_only = True   # one wheel on a hinge: refused for 3D devices at load
     goal = "balance"
 
     class Params(StrategyParams):

@@ -66,6 +66,7 @@ class SwingAndCatch(Strategy):
     """
 
     kind = "swing_and_catch"
+    planar_only = True   # one wheel on a hinge: refused for 3D devices at load
     goal = "balance"
     swings_up = True
 

@@ -86,6 +86,8 @@ class _SwingUpBase(Strategy):
     None for a target at or below hanging at rest).
     """
 
+    planar_only = True   # one wheel on a hinge: refused for 3D devices at load
+
     goal = None
     swings_up = True
 

@@ -120,6 +120,7 @@ class FirmwareStrategy(Strategy):
     """
 
     kind = "firmware"
+    planar_only = True   # the C contract carries one wheel: refused for 3D devices at load
     goal = "balance"
     isolated: ClassVar[bool] = True   # trials run in the isolation child (see sim.strategies.plugins_in)
     Params = FirmwareParams

@@ -1,0 +1,132 @@
+"""Speed of a 3D trial against a bare pybullet loop stepping the same bodies and joints, printed as ratios.
+
+    python benchmarks/bench_3d.py [--seconds 10] [--repeat 5] [--instructions]
+
+(a) bare engine loop: the corner cube's body on its spherical joint and its three wheels, built by
+    `sim.physics.engine3d`, stepped at 1 kHz with one state read of the ball joint and of the wheels
+    and one torque command for the ball joint and per wheel each step, nothing else -> real-time factor
+(b) the full 3D trial of scenarios/cube_corner.yaml (three motors with friction and current limit,
+    sensors with noise and delay per axis, the multi-input LQR at 500 Hz, trace recorded), pushes
+    left out -> real-time factor, and its ratio to (a) (target >= 0.5)
+(a) and (b) run in interleaved rounds; the figure is the best of each, and each round's ratio is
+printed too. `--instructions` counts instructions per step of (a) and (b) with valgrind instead
+(as benchmarks/instructions.py does; the machine's load cannot move it): (a)/(b) by instructions.
+No assertion: this prints figures; benchmarks/README.md records them with the machine.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent))
+
+SCENARIO = HERE.parent / "scenarios" / "cube_corner.yaml"
+
+
+def cube(seconds: float):
+    from sim.model.scenario_yaml import load_scenario
+
+    sc = load_scenario(SCENARIO, overrides=("trial.pushes=[]", f"trial.duration={seconds}"))
+    assert sc.body.mount == "ball" and len(sc.wheels) == 3 and sc.world.step == 1e-3
+    return sc
+
+
+def bare_rtf(sc, seconds: float) -> float:
+    """The engine's own pace for this device: one read and one command per joint per step."""
+    from sim.model.device3d import Device3D
+    from sim.physics.engine3d import BODY, Engine3D
+
+    dev = Device3D.from_scenario(sc)
+    with Engine3D(dev, step_s=sc.world.step) as eng:
+        eng.reset(attitude=dev.upright())
+        pb, cid, body = eng.pb, eng.client, eng.body_id
+        multi_read, multi_torque = pb.getJointStateMultiDof, pb.setJointMotorControlMultiDof
+        states, torques, step = pb.getJointStates, pb.setJointMotorControlArray, pb.stepSimulation
+        wheels, mode, unused = eng.wheel_joints, pb.TORQUE_CONTROL, (0.0, 0.0, 0.0)
+        n = int(round(seconds / sc.world.step))
+        t0 = time.perf_counter()
+        for _ in range(n):
+            q, w = multi_read(body, BODY, cid)[:2]
+            ws = states(body, wheels, cid)
+            # torques that depend on the reads, so no read can be skipped; small, so the body
+            # stays near where it started (the figure must not depend on it falling over)
+            multi_torque(body, BODY, mode, force=(-1e-3 * w[0], -1e-3 * w[1], -1e-3 * w[2]), physicsClientId=cid)
+            torques(body, wheels, mode, unused, unused, (-1e-5 * ws[0][1], -1e-5 * ws[1][1], -1e-5 * ws[2][1]),
+                    unused, unused, cid)
+            step(cid)
+        return seconds / (time.perf_counter() - t0)
+
+
+def trial_rtf(sc) -> float:
+    from sim.run.trial import run_trial
+
+    r = run_trial(sc)
+    assert r.outcome == "balanced", r.outcome   # a fallen body would measure a different loop
+    return r.ended_at_s / r.wall_s
+
+
+DRIVER = """
+import ctypes, sys
+sys.path[:0] = [{root!r}, {bench!r}]
+helper = ctypes.CDLL({lib!r})
+from bench_3d import bare_rtf, cube, trial_rtf
+sc = cube({seconds})
+if {which!r} == "trial":
+    trial_rtf(cube(0.2))
+    helper.count_start(); trial_rtf(sc); helper.count_stop()
+else:
+    bare_rtf(sc, 0.01)
+    helper.count_start(); bare_rtf(sc, {seconds}); helper.count_stop()
+"""
+
+
+def instructions(t1: float = 0.5, t2: float = 1.5) -> None:
+    """Instructions per step of (a) and (b), counted over two durations so that set-up cancels out."""
+    import subprocess
+    import tempfile
+
+    sys.path.insert(0, str(HERE))
+    from instructions import HELPER_C, count
+
+    with tempfile.TemporaryDirectory() as tmp:
+        tmp = Path(tmp)
+        (tmp / "helper.c").write_text(HELPER_C)
+        lib = tmp / "libhelper.so"
+        subprocess.run(["cc", "-shared", "-fPIC", "-O2", "-o", str(lib), str(tmp / "helper.c")], check=True)
+        per_step = {which: (count(which, t2, lib, tmp, driver=DRIVER) - count(which, t1, lib, tmp, driver=DRIVER))
+                    / ((t2 - t1) * 1000.0) for which in ("bare", "trial")}
+    a, b = per_step["bare"], per_step["trial"]
+    print(f"(a) bare 3D engine loop    {a:10,.0f} instructions per step")
+    print(f"(b) 3D trial               {b:10,.0f} instructions per step   (a)/(b) = {a / b:.2f} (by instructions)")
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--seconds", type=float, default=10.0, help="simulated seconds per measurement")
+    ap.add_argument("--repeat", type=int, default=5, help="interleaved rounds")
+    ap.add_argument("--instructions", action="store_true", help="count instructions per step (valgrind)")
+    args = ap.parse_args()
+    instructions() if args.instructions else wall_time_rounds(args.seconds, args.repeat)
+
+
+def wall_time_rounds(seconds: float, repeat: int) -> None:
+    """(a) and (b) in interleaved rounds; each round's ratio, then the best of each."""
+    sc = cube(seconds)
+    trial_rtf(cube(0.2))        # imports and first-use costs out of the rounds
+    bare, full = [], []
+    for i in range(repeat):
+        bare.append(bare_rtf(sc, seconds))
+        full.append(trial_rtf(sc))
+        print(f"round {i + 1}: (a) bare {bare[-1]:.1f}x  (b) trial {full[-1]:.1f}x  (b)/(a) {full[-1] / bare[-1]:.2f}",
+              flush=True)
+    print(f"(a) bare 3D engine loop, best real-time factor: {max(bare):.1f}x")
+    print(f"(b) 3D trial (corner cube, three wheels, ball mount), best real-time factor: {max(full):.1f}x")
+    print(f"(b)/(a), best of each: {max(full) / max(bare):.2f}  (target >= 0.5)")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,266 @@
+"""The 3D device in pybullet (DIRECT mode, CPU): a body on a hinge or ball joint, one to three wheels.
+
+A fixed base at the origin; link 0 is the body, on a revolute joint about the body's x axis
+(hinge) or a spherical joint (ball) at the origin; links 1..n are the wheels, each on a revolute
+joint about its own axis at its centre in the body frame. Link frames are the body frame (the body
+link) and body-frame-aligned frames at the wheel centres; each link's inertial frame is turned to
+the principal axes of its inertia tensor (pybullet takes a diagonal). Every pybullet default that
+distorts a fast wheel or a free body is switched off for every joint and link: the 100 rad/s
+joint-speed clamp, link damping, and the default joint motors (the spherical joint's included: a
+zero-force multi-DoF motor). Gyroscopic terms are on (pybullet's default).
+
+Units and frames of the calls:
+- `read()` -> (tilt_x, tilt_y, heading, tilt_rad, body rate (wx, wy, wz) rad/s in the world frame,
+  wheel angles rad, wheel speeds rad/s relative to the body); see `io`.
+- `advance(push_world, wheel_torques)`: each wheel's net torque about its axis, N m (the reaction acts
+  on the body), and a push's torque on the body about the pivot, N m in the world frame, or None (a
+  hinge takes its x component); the pivot's viscous friction is applied here; one physics step.
+Coulomb friction (and a brake) at the wheel joints are zero-target velocity motors with a force cap,
+as on the planar engine; viscous friction is applied by the caller as a torque.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..core.frames import matmul, matrix_to_quat, quat_to_matrix, transpose
+from ..model.device3d import Device3D
+from ..model.massprops3d import wheel_tensor
+from .engine import MAX_JOINT_SPEED, import_pybullet
+
+BODY = 0
+
+
+class Engine3D:
+    """One pybullet client holding one 3D device. Not thread-safe; one per trial."""
+
+    def __init__(self, device: Device3D, *, step_s: float):
+        pb = import_pybullet()
+        self.pb, self.device, self.step_s = pb, device, step_s
+        self.client = pb.connect(pb.DIRECT)
+        self.ball = device.mount == "ball"
+        self.wheel_joints = tuple(range(1, device.n_wheels + 1))
+        self.body_id = self._build()
+        self.set_dry_friction([w.coulomb_n_m for w in device.wheels])
+
+    def _build(self) -> int:
+        pb, dev, cid = self.pb, self.device, self.client
+        pb.resetSimulation(physicsClientId=cid)
+        pb.setGravity(0, 0, -dev.gravity_m_s2, physicsClientId=cid)
+        pb.setTimeStep(self.step_s, physicsClientId=cid)
+        pb.setPhysicsEngineParameter(numSubSteps=0, physicsClientId=cid)
+        body_diag, body_q = principal(np.array(dev.body_inertia_com_kg_m2))
+        # pybullet states a spherical joint's attitude, rate and torque in the body link's principal
+        # (inertial) axes P: q = P^T R P, w = P^T w_body, tau = P^T tau_body (seen on pybullet 3.2.7;
+        # tests/test_trial3d.py's momentum and precession checks hold the conversion)
+        self.principal_axes = quat_to_matrix(body_q)
+        diags, quats = [body_diag], [body_q]
+        for w in dev.wheels:
+            d, q = principal(wheel_tensor(w.spin_inertia_kg_m2, w.transverse_inertia_kg_m2, w.axis))
+            diags.append(d)
+            quats.append(q)
+        n = dev.n_wheels
+        body_id = pb.createMultiBody(
+            baseMass=0.0, baseCollisionShapeIndex=-1, baseVisualShapeIndex=-1, basePosition=[0, 0, 0],
+            linkMasses=[dev.body_mass_kg] + [w.mass_kg for w in dev.wheels],
+            linkCollisionShapeIndices=[-1] * (n + 1), linkVisualShapeIndices=[-1] * (n + 1),
+            linkPositions=[[0, 0, 0]] + [list(w.at_m) for w in dev.wheels],
+            linkOrientations=[[0, 0, 0, 1]] * (n + 1),
+            linkInertialFramePositions=[list(dev.body_com_m)] + [[0, 0, 0]] * n,
+            linkInertialFrameOrientations=quats,
+            linkParentIndices=[0] + [1] * n,
+            linkJointTypes=[pb.JOINT_SPHERICAL if self.ball else pb.JOINT_REVOLUTE] + [pb.JOINT_REVOLUTE] * n,
+            linkJointAxis=[[1, 0, 0]] + [list(w.axis) for w in dev.wheels],
+            physicsClientId=cid,
+        )
+        for link, diag in enumerate(diags):
+            # inertia in its own call: passing mass in the same call drops it (pybullet 3.2.7)
+            pb.changeDynamics(body_id, link, localInertiaDiagonal=list(diag), physicsClientId=cid)
+            pb.changeDynamics(body_id, link, linearDamping=0.0, angularDamping=0.0, jointDamping=0.0,
+                              maxJointVelocity=MAX_JOINT_SPEED, physicsClientId=cid)
+        if self.ball:   # the spherical joint's default motor holds it: zero force
+            pb.setJointMotorControlMultiDof(body_id, BODY, pb.POSITION_CONTROL, targetPosition=[0, 0, 0, 1],
+                                            positionGain=0, velocityGain=0, force=[0, 0, 0], physicsClientId=cid)
+        else:
+            pb.setJointMotorControl2(body_id, BODY, pb.VELOCITY_CONTROL, targetVelocity=0.0,
+                                     force=dev.pivot_coulomb_n_m, physicsClientId=cid)
+        return body_id
+
+    def set_dry_friction(self, wheel_n_m) -> None:
+        """Coulomb friction (or a brake) on each wheel's bearing, N m."""
+        pb = self.pb
+        pb.setJointMotorControlArray(self.body_id, list(self.wheel_joints), pb.VELOCITY_CONTROL,
+                                     targetVelocities=[0.0] * len(self.wheel_joints), forces=list(wheel_n_m),
+                                     physicsClientId=self.client)
+
+    def reset(self, *, attitude, rate_world=(0.0, 0.0, 0.0), hinge_angle_rad: float = 0.0,
+              hinge_rate_rad_s: float = 0.0, wheel_speeds_rad_s=None) -> None:
+        """Set the state: a ball's attitude R_wb (row tuples) and world rate, or a hinge's angle and
+        rate; wheel speeds relative to the body (wheel angles 0)."""
+        pb, cid, body = self.pb, self.client, self.body_id
+        if self.ball:
+            p, pt = self.principal_axes, transpose(self.principal_axes)
+            local = _mat_vec(pt, _mat_vec(transpose(attitude), rate_world))
+            pb.resetJointStateMultiDof(body, BODY, targetValue=list(matrix_to_quat(matmul(matmul(pt, attitude), p))),
+                                       targetVelocity=list(local), physicsClientId=cid)
+        else:
+            pb.resetJointState(body, BODY, hinge_angle_rad, hinge_rate_rad_s, physicsClientId=cid)
+        speeds = wheel_speeds_rad_s or [0.0] * len(self.wheel_joints)
+        for j, s in zip(self.wheel_joints, speeds):
+            pb.resetJointState(body, j, 0.0, float(s), physicsClientId=cid)
+
+    def io(self):
+        """(read, advance) closures with every lookup bound once (see the module docstring).
+
+        read() -> (tilt_x, tilt_y, heading, tilt rad, (wx, wy, wz) rad/s world, wheel angles rad,
+        wheel speeds rad/s): the attitude relative to upright (`sim.core.frames`); on a hinge
+        tilt_x is the unwrapped body angle from upright and tilt_y = heading = 0.
+        advance(push_world, wheel_torques): one step with each wheel's net torque about its axis
+        (N m) and, when not None, a torque on the body about the pivot in the world frame (N m, a
+        push); the pivot's viscous friction is applied here. Paid every physics step: plain floats,
+        no numpy, no keyword parsing where pybullet takes positions.
+        """
+        pb, cid, body, dev = self.pb, self.client, self.body_id, self.device
+        states, torques, step = pb.getJointStates, pb.setJointMotorControlArray, pb.stepSimulation
+        mode, wheels, bp = pb.TORQUE_CONTROL, self.wheel_joints, dev.pivot_viscous_n_m_s
+        atan2, asin, acos, fabs, pi = math.atan2, math.asin, math.acos, math.fabs, math.pi
+        n = len(wheels)
+        unused = (0.0,) * n
+        r0 = dev.upright()
+        if not self.ball:
+            joints, unused_all = (BODY,) + wheels, (0.0,) * (n + 1)
+            a0 = atan2(r0[2][1], r0[2][2])
+            last = [0.0]
+
+            def read():
+                ss = states(body, joints, cid)
+                tx, thd = ss[0][0] - a0, ss[0][1]
+                last[0] = thd
+                wrapped = fabs(tx) if -pi < tx <= pi else fabs((tx + pi) % (2 * pi) - pi)
+                return (tx, 0.0, 0.0, wrapped, (thd, 0.0, 0.0), [s[0] for s in ss[1:]], [s[1] for s in ss[1:]])
+
+            def advance(push_world, wheel_torques):
+                pivot = -bp * last[0] + (push_world[0] if push_world is not None else 0.0)
+                torques(body, joints, mode, unused_all, unused_all, (pivot, *wheel_torques), unused_all, unused_all, cid)
+                step(cid)
+            return read, advance
+
+        multi, multi_torque = pb.getJointStateMultiDof, pb.setJointMotorControlMultiDof
+        p = self.principal_axes
+        (p00, p01, p02), (p10, p11, p12), (p20, p21, p22) = p
+        cx, cy, cz, cw = matrix_to_quat(r0)
+        cx, cy, cz = -cx, -cy, -cz                          # conj(q0): relative to upright
+        state = [(0.0, 0.0, 0.0, 1.0), (0.0, 0.0, 0.0)]    # the last read: body quaternion, principal-axes rate
+        skip_pivot = bp == 0.0
+
+        def read():
+            (qx, qy, qz, w), wp = multi(body, BODY, cid)[:2]
+            # pybullet's joint quaternion is in the principal axes P: q_wb = (P v, w) (det P = 1)
+            x = p00 * qx + p01 * qy + p02 * qz
+            y = p10 * qx + p11 * qy + p12 * qz
+            z = p20 * qx + p21 * qy + p22 * qz
+            state[0], state[1] = (x, y, z, w), wp
+            # body rate: P wp in the body frame, turned to the world by q_wb (v + 2w u x v + 2 u x (u x v))
+            bx = p00 * wp[0] + p01 * wp[1] + p02 * wp[2]
+            by = p10 * wp[0] + p11 * wp[1] + p12 * wp[2]
+            bz = p20 * wp[0] + p21 * wp[1] + p22 * wp[2]
+            tx_, ty_, tz_ = 2.0 * (y * bz - z * by), 2.0 * (z * bx - x * bz), 2.0 * (x * by - y * bx)
+            rate = (bx + w * tx_ + y * tz_ - z * ty_, by + w * ty_ + z * tx_ - x * tz_, bz + w * tz_ + x * ty_ - y * tx_)
+            # attitude relative to upright: q_rel = q_wb conj(q0), then R = Rz(heading) Ry(tilt_y) Rx(tilt_x)
+            rx = w * cx + x * cw + y * cz - z * cy
+            ry = w * cy - x * cz + y * cw + z * cx
+            rz = w * cz + x * cy - y * cx + z * cw
+            rw = w * cw - x * cx - y * cy - z * cz
+            r22 = 1.0 - 2.0 * (rx * rx + ry * ry)
+            r20 = 2.0 * (rx * rz - ry * rw)
+            s20 = -r20 if -1.0 < -r20 < 1.0 else (1.0 if r20 <= -1.0 else -1.0)
+            tilt = acos(r22) if -1.0 < r22 < 1.0 else (0.0 if r22 >= 1.0 else pi)
+            ws = states(body, wheels, cid)
+            return (atan2(2.0 * (ry * rz + rx * rw), r22), asin(s20),
+                    atan2(2.0 * (rx * ry + rz * rw), 1.0 - 2.0 * (ry * ry + rz * rz)), tilt, rate,
+                    [s[0] for s in ws], [s[1] for s in ws])
+
+        def advance(push_world, wheel_torques):
+            # viscous pivot friction -bp w is -bp wp in the principal axes: no turning needed
+            if push_world is not None:
+                push = _to_principal(p, state[0], push_world)
+                wp = state[1]
+                multi_torque(body, BODY, mode, force=(push[0] - bp * wp[0], push[1] - bp * wp[1], push[2] - bp * wp[2]),
+                             physicsClientId=cid)
+            elif not skip_pivot:
+                wp = state[1]
+                multi_torque(body, BODY, mode, force=(-bp * wp[0], -bp * wp[1], -bp * wp[2]), physicsClientId=cid)
+            torques(body, wheels, mode, unused, unused, wheel_torques, unused, unused, cid)
+            step(cid)
+        return read, advance
+
+    def attitude(self) -> tuple[tuple[float, float, float], ...]:
+        """R_wb, the body's attitude (body-frame vectors to world), row tuples (for checks)."""
+        pb = self.pb
+        if not self.ball:
+            th = pb.getJointState(self.body_id, BODY, physicsClientId=self.client)[0]
+            c, s = math.cos(th), math.sin(th)
+            return ((1.0, 0.0, 0.0), (0.0, c, -s), (0.0, s, c))
+        q = pb.getJointStateMultiDof(self.body_id, BODY, physicsClientId=self.client)[0]
+        p = self.principal_axes
+        return matmul(matmul(p, quat_to_matrix(q)), transpose(p))
+
+    def wheel_speeds(self) -> tuple[float, ...]:
+        """Each wheel's speed relative to the body, rad/s (for checks)."""
+        return tuple(s[1] for s in self.pb.getJointStates(self.body_id, list(self.wheel_joints),
+                                                          physicsClientId=self.client))
+
+    def body_rate_world(self) -> tuple[float, float, float]:
+        """The body's angular velocity in the world frame, rad/s (for checks)."""
+        pb = self.pb
+        if not self.ball:
+            return (pb.getJointState(self.body_id, BODY, physicsClientId=self.client)[1], 0.0, 0.0)
+        wp = pb.getJointStateMultiDof(self.body_id, BODY, physicsClientId=self.client)[1]
+        return _mat_vec(self.attitude(), _mat_vec(self.principal_axes, wp))
+
+    def link_states(self):
+        """[(world centre-of-mass position, world link-frame orientation quaternion, world linear
+        velocity, world angular velocity)] of the body and each wheel, from pybullet (for checks and
+        rendering; pybullet hands these out in single precision)."""
+        pb, out = self.pb, []
+        for link in range(self.device.n_wheels + 1):
+            s = pb.getLinkState(self.body_id, link, computeLinkVelocity=1, computeForwardKinematics=1,
+                                physicsClientId=self.client)
+            out.append((s[0], s[5], s[6], s[7]))
+        return out
+
+    def close(self) -> None:
+        """Disconnect the client (once; a 3D body is not kept for reuse)."""
+        client, self.client = self.client, None
+        if client is not None and self.pb.isConnected(physicsClientId=client):
+            self.pb.disconnect(physicsClientId=client)
+
+    def __enter__(self) -> "Engine3D":
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+
+def principal(inertia: np.ndarray) -> tuple[list[float], list[float]]:
+    """(principal moments, quaternion (x, y, z, w) of the principal axes) of a symmetric tensor."""
+    vals, vecs = np.linalg.eigh(inertia)
+    if np.linalg.det(vecs) < 0:
+        vecs[:, 2] = -vecs[:, 2]
+    rows = tuple(tuple(float(v) for v in row) for row in vecs)
+    return [float(max(v, 0.0)) for v in vals], list(matrix_to_quat(rows))
+
+
+def _to_principal(p, q_wb, v_world) -> tuple[float, float, float]:
+    """A world-frame vector in the body's principal axes: P^T R_wb^T v."""
+    return _mat_vec(transpose(p), _mat_vec(transpose(quat_to_matrix(q_wb)), v_world))
+
+
+def _mat_vec(m, v) -> tuple[float, float, float]:
+    return (m[0][0] * v[0] + m[0][1] * v[1] + m[0][2] * v[2],
+            m[1][0] * v[0] + m[1][1] * v[1] + m[1][2] * v[2],
+            m[2][0] * v[0] + m[2][1] * v[1] + m[2][2] * v[2])
+
+

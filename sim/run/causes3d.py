@@ -1,0 +1,78 @@
+"""Why a 3D trial failed: one cause code (from `sim.run.causes.CAUSES`) and one sentence with figures.
+
+The planar rules, cut to what a 3D trace shows plainly, in this order (thresholds from
+`sim.run.causes`): `strategy_failed` and `diverged` carry the runner's message; a fall is
+`push_too_large` when it came inside a push's recovery window with every wheel below
+WHEEL_NEAR_LIMIT of its no-load speed at the push, `wheel_at_speed_limit` when a wheel (named) reached
+WHEEL_NEAR_LIMIT in the LOOKBACK_S before the fall, `current_at_limit` / `voltage_at_supply` when a
+wheel's current or voltage sat at its limit for SUSTAINED_S of that stretch, else `gains_too_weak`;
+not caught is `start_outside_release` when the start tilt was beyond the release angle, else
+`catch_missed`.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .causes import CURRENT_AT_LIMIT, LOOKBACK_S, SUSTAINED_S, WHEEL_NEAR_LIMIT
+from .metrics import PUSH_RECOVER_S
+
+
+def find_cause3d(result) -> tuple[str | None, str | None]:
+    """(cause code, sentence) for a `TrialResult3D`; (None, None) when balanced or completed."""
+    if result.outcome in ("balanced", "completed"):
+        return None, None
+    if result.outcome in ("strategy_failed", "diverged"):
+        return result.outcome, result.message or result.outcome
+    tr = result.trace
+    if tr.n == 0:
+        return "catch_missed", "the trial recorded no steps"
+    release = getattr(getattr(result.strategy, "params", None), "release_angle", math.pi)
+    if result.outcome != "fell" or result.fell_at_s is None:
+        tilt0 = float(tr.tilt[0])
+        if tilt0 > release:
+            return "start_outside_release", (f"the trial started at a tilt of {math.degrees(tilt0):.1f} deg, beyond "
+                                             f"the release angle of {math.degrees(release):.1f} deg")
+        return "catch_missed", "the body was never inside the release angle while the law balanced"
+    return _fell(result)
+
+
+def _fell(result) -> tuple[str, str]:
+    tr, dev, dt, t_fall = result.trace, result.device, result.trace.step_s, result.fell_at_s
+    end = max(min(int(round(t_fall / dt)), tr.n), 1)
+    start = max(0, end - max(1, int(round(LOOKBACK_S / dt))))
+    shares = [float(np.max(np.abs(tr.wheel(i + 1, "speed")[start:end]))) / w.no_load_speed_rad_s
+              for i, w in enumerate(dev.wheels)]
+    pushes = [p for p in result.scenario.trial.pushes if p.at <= t_fall < p.at + PUSH_RECOVER_S]
+    if pushes:
+        k_push = min(int(round(pushes[-1].at / dt)), tr.n - 1)
+        at_push = [abs(float(tr.wheel(i + 1, "speed")[k_push])) / w.no_load_speed_rad_s for i, w in enumerate(dev.wheels)]
+        if max(at_push) < WHEEL_NEAR_LIMIT:
+            return "push_too_large", (f"the body fell at {t_fall:.3f} s, {t_fall - pushes[-1].at:.3f} s after a push "
+                                      f"of {_size(pushes[-1].impulse):.4g} N m s, every wheel below "
+                                      f"{WHEEL_NEAR_LIMIT:.0%} of its no-load speed at the push")
+    worst = int(np.argmax(shares))
+    if shares[worst] >= WHEEL_NEAR_LIMIT:
+        return "wheel_at_speed_limit", (f"wheel {worst + 1} reached {shares[worst]:.0%} of its no-load speed "
+                                        f"({dev.wheels[worst].no_load_speed_rad_s:.1f} rad/s) in the "
+                                        f"{LOOKBACK_S:g} s before the fall at {t_fall:.3f} s")
+    sustained = max(1, int(round(SUSTAINED_S / dt)))
+    for i, w in enumerate(dev.wheels):
+        if math.isfinite(w.current_limit_a):
+            at_limit = np.abs(tr.wheel(i + 1, "current")[start:end]) >= CURRENT_AT_LIMIT * w.current_limit_a
+            if int(np.count_nonzero(at_limit)) >= sustained:
+                return "current_at_limit", (f"wheel {i + 1}'s current sat at its {w.current_limit_a:g} A limit for "
+                                            f"{np.count_nonzero(at_limit) * dt:.3f} s before the fall at {t_fall:.3f} s")
+    for i, w in enumerate(dev.wheels):
+        at_supply = np.abs(tr.wheel(i + 1, "voltage")[start:end]) >= w.supply_v * (1.0 - 1e-9)
+        if int(np.count_nonzero(at_supply)) >= sustained:
+            return "voltage_at_supply", (f"wheel {i + 1}'s voltage sat at the {w.supply_v:g} V supply for "
+                                         f"{np.count_nonzero(at_supply) * dt:.3f} s before the fall at {t_fall:.3f} s")
+    return "gains_too_weak", (f"the body fell at {t_fall:.3f} s with no wheel, current or voltage at its limit "
+                              f"(fastest wheel {worst + 1} at {shares[worst]:.0%} of its no-load speed)")
+
+
+def _size(impulse) -> float:
+    return math.sqrt(sum(x * x for x in impulse)) if isinstance(impulse, tuple) else abs(impulse)

@@ -1,0 +1,74 @@
+"""Metrics of one 3D trial (metrics.json): per-wheel figures, the worst wheel in today's scalar keys.
+
+`wheels` lists, per wheel in the scenario's order, peak_speed_rad_s, speed_limit_rad_s (no-load
+speed at the supply), speed_margin, peak_current_a, rms_current_a and peak_voltage_v; the scalar
+keys of the planar metrics hold the worst wheel (highest peak speed share, current and voltage).
+Angles: `peak_tilt_rad` (the largest `tilt_rad`, see `sim.core.frames`). Totals cover the trial up
+to the fall, as on the planar path (`totals_until_s`).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .metrics import PUSH_RECOVER_S, SATURATION_REL_TOL, SETTLE_BAND_RAD, push_outcomes, settle_time
+
+
+def trial_metrics3d(result) -> dict:
+    tr, dev, sc = result.trace, result.device, result.scenario
+    dt = tr.step_s
+    end = tr.n if result.fell_at_s is None else min(int(round(result.fell_at_s / dt)), tr.n)
+    wheels, energy, regen = [], 0.0, 0.0
+    for i, w in enumerate(dev.wheels, start=1):
+        speed, cur, volt = tr.wheel(i, "speed")[:end], tr.wheel(i, "current")[:end], tr.wheel(i, "voltage")[:end]
+        peak = float(np.max(np.abs(speed))) if end else 0.0
+        limit = w.no_load_speed_rad_s
+        wheels.append({"peak_speed_rad_s": peak, "speed_limit_rad_s": limit, "speed_margin": 1.0 - peak / limit,
+                       "peak_current_a": float(np.max(np.abs(cur))) if end else 0.0,
+                       "rms_current_a": float(np.sqrt(np.mean(cur ** 2))) if end else 0.0,
+                       "peak_voltage_v": float(np.max(np.abs(volt))) if end else 0.0})
+        energy += float(np.sum(volt * cur) * dt)
+        regen += float(-np.sum(np.minimum(volt * cur, 0.0)) * dt)
+    worst = min(range(len(wheels)), key=lambda j: wheels[j]["speed_margin"])
+    tilt = tr.tilt[: tr.n]
+    caught = result.caught_at_s
+    held_from = caught if caught is not None else (0.0 if result.outcome == "balanced" else None)
+    ticks = -(-end // sc.control_steps)
+    limits = [w.current_limit_a for w in dev.wheels if math.isfinite(w.current_limit_a)]
+    return {
+        "outcome": result.outcome, "message": result.message, "cause": result.cause,
+        "cause_detail": result.cause_detail, "strategy": sc.strategy.kind, "seed": None,
+        "mount": dev.mount, "wheel_count": dev.n_wheels,
+        "caught_at_s": caught, "fell_at_s": result.fell_at_s,
+        "settle_time_s": settle_time(tilt, dt, held_from, sc.trial.pushes), "settle_band_rad": SETTLE_BAND_RAD,
+        "simulated_s": result.ended_at_s, "totals_until_s": end * dt,
+        "wheels": wheels,
+        "peak_wheel_speed_rad_s": wheels[worst]["peak_speed_rad_s"],
+        "wheel_speed_limit_rad_s": wheels[worst]["speed_limit_rad_s"],
+        "wheel_speed_margin": wheels[worst]["speed_margin"],
+        "peak_current_a": max(w["peak_current_a"] for w in wheels),
+        "rms_current_a": max(w["rms_current_a"] for w in wheels),
+        "current_limit_a": min(limits) if limits else None,
+        "peak_voltage_v": max(w["peak_voltage_v"] for w in wheels),
+        "supply_v": sc.drive.supply,
+        "voltage_saturated_fraction": _saturated(tr, dev, end, sc.control_steps) / ticks if ticks else 0.0,
+        "energy_from_supply_j": energy, "regenerated_energy_j": regen,
+        "peak_tilt_rad": float(np.max(tilt[:end])) if end else None,
+        "max_angle_after_catch_rad": float(np.max(tilt[int(round(held_from / dt)):])) if held_from is not None and tr.n else None,
+        "final_tilt_rad": float(tilt[-1]) if tr.n else None,
+        "pushes": push_outcomes(result, tilt),   # peak_angle_rad: the peak tilt
+        "push_recovery_window_s": PUSH_RECOVER_S,
+        "real_time_factor": result.ended_at_s / result.wall_s if result.wall_s > 0 else None,
+        "physics_step_s": dt, "control_rate_hz": dev.control_rate_hz,
+        **{k: v for k, v in (getattr(result.strategy, "extra_metrics", None) or {}).items()},
+    }
+
+
+def _saturated(trace, device, end: int, control_steps: int) -> int:
+    """Control ticks in rows [0, end) at which some wheel's voltage reached the supply."""
+    hit = np.zeros(len(range(0, end, control_steps)), dtype=bool)
+    for i, w in enumerate(device.wheels, start=1):
+        hit |= np.abs(trace.wheel(i, "voltage")[:end:control_steps]) >= w.supply_v * (1.0 - SATURATION_REL_TOL)
+    return int(np.count_nonzero(hit))

@@ -1,0 +1,63 @@
+"""The 3D trial's trace: per-axis and per-wheel columns from a declared list, one row per physics step.
+
+Row k holds the true state at t = k * step (before that step) and each wheel's voltage, current and
+torque over the step that follows; measured values are the latest control tick's, held. Angles are
+as the engine's semi-implicit Euler step leaves them (half a step ahead of the rates). Column names
+say the quantity, the axis or wheel (wheels numbered from 1 in the scenario's order) and the unit;
+see `sim.core.frames` for the attitude conventions.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .trace import Trace, csv_field
+
+
+def column_names(*, ball: bool, n_wheels: int) -> tuple[tuple[str, str], ...]:
+    """(attribute, CSV name) of every numeric column, in CSV order."""
+    axes = ("x", "y", "z") if ball else ("x",)
+    cols = [("t", "t_s"), ("tilt", "tilt_rad"), ("tilt_x", "tilt_x_rad")]
+    if ball:
+        cols += [("tilt_y", "tilt_y_rad"), ("heading", "heading_rad")]
+    cols += [(f"rate_{a}", f"rate_{a}_rad_s") for a in axes]
+    for i in range(1, n_wheels + 1):
+        cols += [(f"w{i}_speed", f"wheel{i}_speed_rad_s"), (f"w{i}_angle", f"wheel{i}_angle_rad"),
+                 (f"w{i}_voltage", f"wheel{i}_voltage_v"), (f"w{i}_current", f"wheel{i}_current_a"),
+                 (f"w{i}_torque", f"wheel{i}_torque_n_m")]
+    cols += [("m_tilt_x", "measured_tilt_x_rad")] + ([("m_tilt_y", "measured_tilt_y_rad")] if ball else [])
+    cols += [(f"m_rate_{a}", f"measured_rate_{a}_rad_s") for a in axes]
+    cols += [(f"m_w{i}", f"measured_wheel{i}_speed_rad_s") for i in range(1, n_wheels + 1)]
+    return tuple(cols)
+
+
+class Trace3D(Trace):
+    """Preallocated columns (`column_names`) for `capacity` rows; `n` rows are filled."""
+
+    def __init__(self, capacity: int, *, step_s: float, ball: bool, n_wheels: int):
+        self.ball, self.n_wheels = ball, n_wheels
+        self.csv_names = column_names(ball=ball, n_wheels=n_wheels)
+        self.FLOAT_COLUMNS = tuple(attr for attr, _ in self.csv_names)
+        super().__init__(capacity, step_s=step_s)
+
+    def columns(self) -> dict[str, np.ndarray]:
+        return {name: getattr(self, attr)[: self.n] for attr, name in self.csv_names}
+
+    def wheel(self, i: int, quantity: str) -> np.ndarray:
+        """Wheel i's (from 1) filled column of `quantity` (speed, angle, voltage, current, torque)."""
+        return getattr(self, f"w{i}_{quantity}")[: self.n]
+
+
+def write_csv3d(trace: Trace3D, path, *, block_rows: int = 4096) -> None:
+    """Write the 3D trace as CSV (header with units, 9 significant digits, `mode` last)."""
+    names = [name for _, name in trace.csv_names]
+    attrs = [attr for attr, _ in trace.csv_names]
+    phases = [csv_field(name) for name in trace.phases]
+    fmt = ",".join(["%.9g"] * len(names)) + ",%s\n"
+    with open(path, "w", encoding="utf-8", newline="") as fh:
+        fh.write(",".join(names + ["mode"]) + "\n")
+        for start in range(0, trace.n, block_rows):
+            stop = min(start + block_rows, trace.n)
+            rows = np.column_stack([getattr(trace, a)[start:stop] for a in attrs]).tolist()
+            modes = [phases[c] for c in trace.mode[start:stop].tolist()] if phases else [""] * (stop - start)
+            fh.write("".join([fmt % (*row, mode) for row, mode in zip(rows, modes)]))

@@ -1,0 +1,275 @@
+"""The 3D trial runner: one to three wheels, a hinge or ball mount -> trace + outcome.
+
+The loop, per physics step: read the body's attitude and rate and the wheels' states -> (on
+control ticks) the sensors, one suite per axis -> the strategy's volts, one per wheel -> each
+wheel's drive and motor -> friction and pushes -> engine step. As on the planar runner, a strategy
+that raises, returns nonsense or runs past its time budget, and a state that turns non-finite or
+absurd, end the trial with an outcome, never an exception.
+
+Outcomes use `tilt_rad` (the angle between the pivot-to-centre-of-mass line and the vertical; on a
+hinge, the body angle from upright about x) against the strategy's release angle: `balanced`,
+`fell`, `not_caught`, `diverged`, `strategy_failed`, `completed` (bench strategies).
+
+Not yet here (planar runner only): plug-in trials in a forked child (a 3D plug-in runs in this
+process under its time budget, which cannot stop one stuck in compiled code), and rendering hooks.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..core.budget import StrategyClock
+from ..core.errors import StrategyError
+from ..core.frames import matmul, rotation_about_x_y
+from ..model.device3d import Device3D
+from ..physics.engine3d import Engine3D
+from ..physics.motor import MotorDrive
+from ..physics.sensors import SensorSuite
+from ..strategies.base import Reading
+from .trace3d import Trace3D
+from .trial_common import TrialResult, close_trace, describe, describe_unread, final_outcome, with_strategy
+
+ABSURD_RATE_RAD_S = 1e4          # as the planar runner
+ABSURD_WHEEL_FACTOR = 20.0
+STRATEGY_BUDGET_S = 60.0
+
+
+@dataclass
+class TrialResult3D(TrialResult):
+    """What a 3D trial produced (fields as `sim.run.trial_common.TrialResult`; `is_3d` marks it)."""
+
+    is_3d: bool = True
+
+
+class _WheelMotor:
+    """The figures `MotorDrive` reads, for one wheel: its motor against the inertia it turns
+    (the wheel in series with the body about its axis, `Device3D.inertia_seen_by_wheel_kg_m2`)."""
+
+    locked = True   # MotorDrive then takes I_w_kg_m2 as the inertia seen, as given
+
+    def __init__(self, device: Device3D, i: int):
+        w = device.wheels[i]
+        self.k_e_v_s_rad, self.k_t_n_m_a, self.resistance_ohm = w.k_e_v_s_rad, w.k_t_n_m_a, w.resistance_ohm
+        self.inductance_h, self.current_limit_a = w.inductance_h, w.current_limit_a
+        self.I_w_kg_m2, self.J_kg_m2 = device.inertia_seen_by_wheel_kg_m2(i), math.inf
+
+
+def run_trial3d(scenario, *, seed: int | None = None, stop_early: bool | None = None,
+                strategy_budget_s: float | None = None, on_step=None) -> TrialResult3D:
+    """Simulate one trial of a 3D scenario (`Scenario.is_planar` false), in this process.
+
+    `on_step`: optional callable(k, engine) after every engine step (checks and rendering hooks)."""
+    device = Device3D.from_scenario(scenario)
+    seed = scenario.trial.seed if seed is None else seed
+    stop_early = scenario.trial.stop_early if stop_early is None else stop_early
+    clock = StrategyClock(STRATEGY_BUDGET_S if strategy_budget_s is None else strategy_budget_s)
+    dt, n = scenario.world.step, scenario.n_steps
+    rng = np.random.default_rng(seed)
+    ball = device.mount == "ball"
+    trace = Trace3D(n, step_s=dt, ball=ball, n_wheels=device.n_wheels)
+    engine = Engine3D(device, step_s=dt)
+    try:
+        _reset(engine, scenario, device)
+        n_suites = max(3 if ball else 1, device.n_wheels)
+        suites = [SensorSuite(scenario.sensors, step_s=dt, n_ticks=n // scenario.control_steps + 1, rng=rng)
+                  for _ in range(n_suites)]
+        return with_strategy(scenario, device, rng, clock, lambda strategy, failure: _loop(
+            scenario, device, engine, suites, trace, strategy, failure, stop_early, clock, on_step))
+    finally:
+        engine.close()
+
+
+def _reset(engine: Engine3D, scenario, device: Device3D) -> None:
+    start = scenario.trial.start
+    speeds = start.wheel_speed if isinstance(start.wheel_speed, list) else [start.wheel_speed] * device.n_wheels
+    r0 = device.upright()
+    if device.mount == "ball":
+        tx, ty = start.tilt if start.tilt is not None else (0.0, 0.0)
+        engine.reset(attitude=matmul(rotation_about_x_y(tx, ty), r0), wheel_speeds_rad_s=speeds)
+    else:
+        a0 = math.atan2(r0[2][1], r0[2][2])
+        engine.reset(attitude=None, hinge_angle_rad=start.angle + a0, hinge_rate_rad_s=start.rate,
+                     wheel_speeds_rad_s=speeds)
+
+
+def _push_schedule(scenario, dt: float) -> list[tuple[int, tuple[float, float, float]]]:
+    """Pushes as (step, world torque N m) in reverse time order; a number is about world x."""
+    torques: dict[int, np.ndarray] = {}
+    for p in scenario.trial.pushes:
+        k = int(round(p.at / dt))
+        vec = np.array(p.impulse if isinstance(p.impulse, tuple) else (p.impulse, 0.0, 0.0)) / dt
+        torques[k] = torques.get(k, np.zeros(3)) + vec
+    return sorted(((k, tuple(float(x) for x in v)) for k, v in torques.items()), reverse=True)
+
+
+def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early, clock, on_step) -> TrialResult3D:
+    dt, n, cs = scenario.world.step, scenario.n_steps, scenario.control_steps
+    outcome, message = ("strategy_failed", failure) if failure else (None, None)
+    ball, nw = device.mount == "ball", device.n_wheels
+    wheels = range(nw)
+    reading = Reading()
+    release = getattr(getattr(strategy, "params", None), "release_angle", math.pi)
+    wants_balance = strategy is not None and strategy.goal == "balance"
+    supply = float(scenario.drive.supply)
+    motors = [MotorDrive(_WheelMotor(device, i), step_s=dt) for i in wheels]
+    updates = [m.update for m in motors]
+    pushes = _push_schedule(scenario, dt)
+    next_push, push_torque = pushes.pop() if pushes else (-1, None)
+    wheel_limit = [ABSURD_WHEEL_FACTOR * w.no_load_speed_rad_s + 100.0 for w in device.wheels]
+    bw = [w.viscous_n_m_s for w in device.wheels]
+    volts, mode, phase, name, brake_on, open_circuit = (0.0,) * nw, 0, None, None, False, False
+    catch_k = fell_k = None
+    ticks = saturated = 0
+    at_supply = supply * (1.0 - 1e-9)
+    # the columns through memoryviews: a Python float in or out costs about half numpy's item access
+    col = {a: memoryview(getattr(trace, a)) for a in trace.FLOAT_COLUMNS}
+    tilt_c, tx_c, rx_c = col["tilt"], col["tilt_x"], col["rate_x"]
+    ty_c, hd_c, ry_c, rz_c = (col.get(a) for a in ("tilt_y", "heading", "rate_y", "rate_z"))
+    ws_c, wa_c, v_c, i_c, tq_c = ([col[f"w{i}_{q}"] for i in range(1, nw + 1)]
+                                  for q in ("speed", "angle", "voltage", "current", "torque"))
+    n_angles, n_rates = (2, 3) if ball else (1, 1)
+    m_angle = [col["m_tilt_x"]] + ([col["m_tilt_y"]] if ball else [])
+    m_rate = [col["m_rate_x"]] + ([col["m_rate_y"], col["m_rate_z"]] if ball else [])
+    m_wheel = [col[f"m_w{i}"] for i in range(1, nw + 1)]
+    zeros = memoryview(np.zeros(max(n, 1)))
+    # each sensor suite reads one angle, one rate and one wheel (sensors.py applies its noise, bias,
+    # delay and quantisation per axis); suites past the axes or wheels read zeros for those
+    sense_angle = [tx_c] + ([ty_c, hd_c] if ball else [])
+    sense_rate = [rx_c] + ([ry_c, rz_c] if ball else [])
+    suite_reads = [(s.read, sense_angle[j] if j < len(sense_angle) else zeros,
+                    sense_rate[j] if j < len(sense_rate) else zeros, wa_c[j] if j < nw else zeros,
+                    ws_c[j] if j < nw else zeros) for j, s in enumerate(suites)]
+    read, advance = engine.io()
+    command = strategy.command_vector if strategy is not None else None
+    lim = ABSURD_RATE_RAD_S
+    k = 0
+    wall0 = time.perf_counter()
+    while k < n and outcome is None:
+        tx, ty, hd, tilt, rate, wang, wspd = read()
+        wx, wy, wz = rate
+        tilt_c[k], tx_c[k], rx_c[k] = tilt, tx, wx
+        if ball:
+            ty_c[k], hd_c[k], ry_c[k], rz_c[k] = ty, hd, wy, wz
+        bad = not (-lim < wx < lim and -lim < wy < lim and -lim < wz < lim and tilt == tilt)
+        for s, a, s_col, a_col, w_lim in zip(wspd, wang, ws_c, wa_c, wheel_limit):
+            s_col[k], a_col[k] = s, a
+            if not -w_lim < s < w_lim:
+                bad = True
+        if bad:
+            outcome, message = "diverged", f"the state became non-finite or absurd at t = {k * dt:.4f} s"
+            break
+        if k % cs == 0:
+            t = k * dt
+            meas = [r(k, a, w, wa, ws) for r, a, w, wa, ws in suite_reads]
+            m0 = meas[0]
+            if ball:
+                m1, m2 = meas[1], meas[2]
+                angles, rates = (m0[0], m1[0]), (m0[1], m1[1], m2[1])
+            else:
+                angles, rates = (m0[0],), (m0[1],)
+            speeds = tuple([m[2] for m in meas[:nw]])
+            reading.t_s, reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = t, angles, rates, speeds
+            reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = angles[0], rates[0], speeds[0]
+            for j in range(n_angles):
+                m_angle[j][k] = angles[j]
+            for j in range(n_rates):
+                m_rate[j][k] = rates[j]
+            for j in wheels:
+                m_wheel[j][k] = speeds[j]
+            ticks += 1
+            try:
+                clock.enter(k)
+                volts = command(reading, nw)
+                if not all(-supply <= v <= supply for v in volts):   # the drive's limit, whatever the law did
+                    volts = tuple(v if -supply <= v <= supply else math.copysign(supply, v) for v in volts)
+                if strategy.phase != phase:
+                    phase = strategy.phase
+                    name = str(phase)
+                if strategy.brake != brake_on:
+                    brake_on = _set_brake(engine, device, bool(strategy.brake))
+                open_circuit = bool(strategy.open_circuit)
+                clock.leave()
+            except BaseException as exc:  # noqa: B036 - the strategy's failure is its outcome
+                clock.t_in = None
+                if isinstance(exc, KeyboardInterrupt) and clock.user_interrupt:
+                    raise
+                message = clock.after(lambda: describe(exc, t), describe_unread(exc, t))
+                clock.abandon()
+                outcome = "strategy_failed"
+                trace.mode[k] = mode if name is None else trace.phase_code(name)
+                break
+            if name is not None:
+                mode, name = trace.phase_code(name), None
+            trace.mode[k] = mode
+            for i in wheels:
+                v = volts[i]
+                v_c[i][k] = 0.0 if open_circuit else v
+                if v >= at_supply or v <= -at_supply:
+                    saturated += 1
+                    break
+            if wants_balance:   # no 3D law swings up: once fallen, the body stays fallen
+                if tilt <= release and strategy.balancing:
+                    if catch_k is None and fell_k is None:
+                        catch_k = k
+                elif catch_k is not None:
+                    fell_k, catch_k = k, None
+                    outcome = "fell" if stop_early else None   # with stop_early this step still runs
+        if open_circuit:
+            for i in wheels:
+                motors[i].current = i_c[i][k] = tq_c[i][k] = 0.0
+            net = [-b * s for b, s in zip(bw, wspd)]
+        else:
+            net = []
+            for update, v, s, c_col, t_col, b in zip(updates, volts, wspd, i_c, tq_c, bw):
+                cur, torque = update(v, s)
+                c_col[k], t_col[k] = cur, torque
+                net.append(torque - b * s)
+        if k == next_push:   # a push's torque on its step
+            advance(push_torque, net)
+            next_push, push_torque = pushes.pop() if pushes else (-1, None)
+        else:
+            advance(None, net)
+        if on_step is not None:
+            on_step(k, engine)
+        k += 1
+    return _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, wants_balance,
+                   ticks, saturated, time.perf_counter() - wall0)
+
+def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, wants_balance,
+            ticks, saturated, wall) -> TrialResult3D:
+    """Close the trace, zero the voltages after a failure's row, judge the outcome and its cause."""
+    ended = close_trace(trace, outcome=outcome, k=k, n=scenario.n_steps, dt=scenario.world.step, fell_k=fell_k)
+    _hold_tick_values(trace, scenario.control_steps)
+    if outcome in ("diverged", "strategy_failed") and k < scenario.n_steps:
+        for i in range(1, device.n_wheels + 1):
+            getattr(trace, f"w{i}_voltage")[k] = 0.0
+    outcome = outcome or final_outcome(wants_balance, strategy, catch_k, fell_k, None)
+    dt = scenario.world.step
+    result = TrialResult3D(
+        outcome=outcome, message=message, trace=trace, device=device, scenario=scenario,
+        caught_at_s=catch_k * dt if (catch_k and outcome == "balanced") else None,
+        fell_at_s=fell_k * dt if fell_k is not None else None, ended_at_s=ended,
+        control_ticks=ticks, saturated_ticks=saturated, wall_s=wall, strategy=strategy)
+    from .causes3d import find_cause3d
+    result.cause, result.cause_detail = find_cause3d(result)
+    return result
+
+
+def _hold_tick_values(trace: Trace3D, cs: int) -> None:
+    """Copy each control tick's held values (voltages, mode, measurements) down to the rows until the next tick."""
+    rows = (np.arange(trace.n) // cs) * cs
+    held = [a for a in trace.FLOAT_COLUMNS if a.startswith("m_") or a.endswith("_voltage")]
+    for col in [getattr(trace, a) for a in held] + [trace.mode]:
+        col[: trace.n] = col[rows]
+
+
+def _set_brake(engine: Engine3D, device: Device3D, on: bool) -> bool:
+    if on and all(w.brake_torque_n_m is None for w in device.wheels):
+        raise StrategyError("the strategy engaged a brake, but no wheel has a brake_torque")
+    engine.set_dry_friction([w.coulomb_n_m + ((w.brake_torque_n_m or 0.0) if on else 0.0) for w in device.wheels])
+    return on
+
