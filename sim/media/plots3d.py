@@ -31,7 +31,7 @@ def summary_figure3d(result):
     ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8, frameon=False)
     ax = axes[1]
     for a in axes_names:
-        ax.plot(*_thin(t, tr.view(f"rate_{a}"), scale=DEG), color=INK, lw=0.9, ls=AXIS_STYLES[a], label=f"w{a} (world)")
+        ax.plot(*_thin(t, tr.view(f"rate_{a}"), scale=DEG), color=INK, lw=0.9, ls=AXIS_STYLES[a], label=f"w{a} (heading frame)")
     ax.set_ylabel("body rate [deg/s]")
     ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=8, frameon=False)
     for panel, quantity, label in ((2, "speed", "wheel speed [rad/s]"), (3, "voltage", "voltage [V]"),

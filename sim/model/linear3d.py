@@ -11,10 +11,13 @@ Conventions (SI throughout):
   the y-z plane (the hinge keeps world x = body x; a centre of mass off that plane loads the
   bearing, not the hinge).
 - Attitude relative to upright: R = R_wb R0^T = Rz(heading) Ry(tilt_y) Rx(tilt_x), so the tilts
-  are rotations about the world x and y axes (right-hand rule) and a positive tilt_x moves the
+  are rotations about the heading frame's x and y axes (the world's at heading 0; right-hand rule) and a positive tilt_x moves the
   centre of mass toward world -y.
-- Rates: the body's angular velocity in the world frame (wx, wy, wz), rad/s. Near upright and at
-  rest tilt_x' = wx, tilt_y' = wy, heading' = wz (first order).
+- Rates: the body's angular velocity in the heading frame (the world frame turned about the
+  vertical by the heading; the world frame at heading 0), (wx, wy, wz), rad/s. Near upright
+  tilt_x' = wx, tilt_y' = wy, heading' = wz (first order) at any heading: gravity does not change
+  under a turn about the vertical, so the model (and a law designed from it) is the same at
+  every heading.
 - Wheel speeds: each wheel's angular velocity relative to the body about its own axis, rad/s,
   positive by the right-hand rule about `axis`. A positive motor torque accelerates the wheel
   positively; its reaction acts on the body.

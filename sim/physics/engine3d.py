@@ -10,7 +10,8 @@ joint-speed clamp, link damping, and the default joint motors (the spherical joi
 zero-force multi-DoF motor). Gyroscopic terms are on (pybullet's default).
 
 Units and frames of the calls:
-- `read()` -> (tilt_x, tilt_y, heading, tilt_rad, body rate (wx, wy, wz) rad/s in the world frame,
+- `read()` -> (tilt_x, tilt_y, heading, tilt_rad, body rate (wx, wy, wz) rad/s in the heading frame
+  (the world frame turned about the vertical by the heading; the world frame at heading 0),
   wheel angles rad, wheel speeds rad/s relative to the body); see `io`.
 - `advance(push_world, wheel_torques)`: each wheel's net torque about its axis, N m (the reaction acts
   on the body), and a push's torque on the body about the pivot, N m in the world frame, or None (a
@@ -114,7 +115,7 @@ class Engine3D:
     def io(self):
         """(read, advance) closures with every lookup bound once (see the module docstring).
 
-        read() -> (tilt_x, tilt_y, heading, tilt rad, (wx, wy, wz) rad/s world, wheel angles rad,
+        read() -> (tilt_x, tilt_y, heading, tilt rad, (wx, wy, wz) rad/s in the heading frame, wheel angles rad,
         wheel speeds rad/s): the attitude relative to upright (`sim.core.frames`); on a hinge
         tilt_x is the unwrapped body angle from upright and tilt_y = heading = 0.
         advance(push_world, wheel_torques): one step with each wheel's net torque about its axis
@@ -125,7 +126,7 @@ class Engine3D:
         pb, cid, body, dev = self.pb, self.client, self.body_id, self.device
         states, torques, step = pb.getJointStates, pb.setJointMotorControlArray, pb.stepSimulation
         mode, wheels, bp = pb.TORQUE_CONTROL, self.wheel_joints, dev.pivot_viscous_n_m_s
-        atan2, asin, acos, fabs, pi = math.atan2, math.asin, math.acos, math.fabs, math.pi
+        atan2, asin, acos, fabs, pi, cos, sin = math.atan2, math.asin, math.acos, math.fabs, math.pi, math.cos, math.sin
         n = len(wheels)
         unused = (0.0,) * n
         r0 = dev.upright()
@@ -178,8 +179,12 @@ class Engine3D:
             s20 = -r20 if -1.0 < -r20 < 1.0 else (1.0 if r20 <= -1.0 else -1.0)
             tilt = acos(r22) if -1.0 < r22 < 1.0 else (0.0 if r22 >= 1.0 else pi)
             ws = states(body, wheels, cid)
-            return (atan2(2.0 * (ry * rz + rx * rw), r22), asin(s20),
-                    atan2(2.0 * (rx * ry + rz * rw), 1.0 - 2.0 * (ry * ry + rz * rz)), tilt, rate,
+            heading = atan2(2.0 * (rx * ry + rz * rw), 1.0 - 2.0 * (ry * ry + rz * rz))
+            # the rate in the heading frame (the world turned about the vertical by the heading): the
+            # tilts' own rates at any heading, so a law designed at heading 0 holds at every heading
+            ch, sh = cos(heading), sin(heading)
+            rate = (ch * rate[0] + sh * rate[1], ch * rate[1] - sh * rate[0], rate[2])
+            return (atan2(2.0 * (ry * rz + rx * rw), r22), asin(s20), heading, tilt, rate,
                     [s[0] for s in ws], [s[1] for s in ws])
 
         def advance(push_world, wheel_torques):

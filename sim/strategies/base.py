@@ -27,7 +27,8 @@ class Reading:
 
     The vector form (every device): `angles_rad` is (theta,) on a hinge and (tilt_x, tilt_y) on a
     ball mount, from upright; `rates_rad_s` is (theta_d,) on a hinge and the body's angular
-    velocity in the world frame (wx, wy, wz) on a ball; `wheel_speeds_rad_s` has one speed per
+    velocity in the heading frame (wx, wy, wz) on a ball (the world frame turned about the vertical
+    by the heading: x and y are the tilts' rates at any heading, z the heading's); `wheel_speeds_rad_s` has one speed per
     wheel, relative to the body. The scalar fields mirror the first entries, so one-wheel laws
     read what they always did; a one-wheel hinge device fills both forms.
     One object is reused for the whole trial: copy values out if a strategy keeps them.
