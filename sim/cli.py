@@ -151,10 +151,15 @@ def validate(scenario: Path = typer.Argument(..., help="Scenario YAML file."),
     """Check a scenario file and print its derived device figures and the strategy parameters in use."""
     from .model.device import Device
     from .model.device_figures import figures_text, power_text
-    sc = _load(scenario, set_, command="validate")
-    d = Device.from_scenario(sc)
+    sc = _load(scenario, set_)
+    if sc.is_planar:
+        lines = figures_text(Device.from_scenario(sc), sc.strategy) + power_text(sc)
+    else:
+        from .model.device3d import Device3D
+        from .model.device_figures3d import figures3d_text
+        lines = figures3d_text(Device3D.from_scenario(sc), sc.strategy)
     typer.echo(f"{scenario}: valid.")
-    for line in figures_text(d, sc.strategy) + power_text(sc):
+    for line in lines:
         typer.echo(f"  {line}")
 
 
