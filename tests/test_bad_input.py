@@ -134,6 +134,7 @@ KEY_CASES = {
                                               "material": "unobtainium"}]}}, ["body.parts[0].material"]),
     "unknown_strategy": ({"strategy": {"kind": "lqrr"}}, ["strategy.kind", "did you mean 'lqr'"]),
     "strategy_not_mapping": ({"strategy": "lqr"}, ["strategy", "mapping"]),
+    "wheel_null": ({"wheel": None}, ["wheel", "missing", "wheels"]),     # found by the property test
     # a section given as a number names the keys it takes (not a class name)
     "section_not_mapping": ({"sensors": {"imu": {}, "estimator": {"kind": "kalman", "process_noise": 0.001}}},
                             ["sensors.estimator.process_noise", "expected a mapping with keys among rate, bias",

@@ -587,9 +587,10 @@ class Scenario(Strict):
     @classmethod
     def _one_wheel_key(cls, raw: Any):
         if isinstance(raw, dict):
-            if "wheel" in raw and "wheels" in raw:
+            # a key given as null counts as not given
+            if raw.get("wheel") is not None and raw.get("wheels") is not None:
                 raise ValueError("@wheels: give either wheel (one wheel on the hinge axis) or wheels (a list), not both")
-            if "wheel" not in raw and "wheels" not in raw:
+            if raw.get("wheel") is None and raw.get("wheels") is None:
                 raise ValueError("@wheel: missing: give wheel (one wheel) or wheels (a list of one to three)")
             wheels = raw.get("wheels")
             if ("motor" not in raw and isinstance(wheels, list) and wheels
