@@ -15,22 +15,15 @@ from dataclasses import dataclass, fields
 import numpy as np
 
 from ..core.frames import smallest_rotation_to_z
-from .linear3d import WheelUnit  # one wheel with its motor, drive and bearing (shared with the linearisation)
+from .linear3d import LinearSpec, WheelUnit  # the linearisation's fields; one wheel with its motor, drive and bearing
 from .massprops3d import body_mass_properties, wheel_axis, wheel_centre, wheel_inertias, wheel_tensor
 
 
 @dataclass(frozen=True)
-class Device3D:
-    mount: str                         # "hinge" | "ball"
-    gravity_m_s2: float
-    body_mass_kg: float
-    body_com_m: tuple[float, float, float]
-    body_inertia_com_kg_m2: tuple[tuple[float, float, float], ...]
-    wheels: tuple[WheelUnit, ...]
-    pivot_coulomb_n_m: float
-    pivot_viscous_n_m_s: float
-    control_rate_hz: float
-    delay_s: float
+class Device3D(LinearSpec):
+    """The linearisation's fields (`sim.model.linear3d.LinearSpec`: mount, gravity, the body's mass
+    properties, the wheels, pivot friction, loop rate and delay), plus what the runner needs besides."""
+
     supply_v: float
     locked: bool = False               # never, for a 3D device (kept so shared code can ask)
 
@@ -54,10 +47,9 @@ class Device3D:
                    pivot_coulomb_n_m=sc.body.pivot_friction.coulomb, pivot_viscous_n_m_s=sc.body.pivot_friction.viscous,
                    control_rate_hz=sc.sensors.rate, delay_s=sc.sensors.delay, supply_v=sc.drive.supply)
 
-    def linear_spec(self):
-        """The multi-input linearisation's input (`sim.model.linear3d.LinearSpec`), from this device's fields."""
-        from .linear3d import as_linear_spec
-        return as_linear_spec(self)
+    def linear_spec(self) -> LinearSpec:
+        """The multi-input linearisation's input: the device itself (a `LinearSpec`)."""
+        return self
 
     # -- derived figures ------------------------------------------------------------------------
     @property
