@@ -123,15 +123,16 @@ def test_jitter_must_stay_under_the_control_period():
 
 
 def test_the_laws_delay_predictor_bridges_the_compute_time_too():
-    # a command acts compute_time after its sample, on top of sensors.delay: the LQR's predictor
-    # (sim.strategies.lqr_design.DelayPredictor) is built for the sum; without timing, as today
+    # a command acts compute_time after its sample (in whole physics steps, as the runner applies
+    # it), on top of sensors.delay: the LQR's predictor (sim.strategies.lqr_design.DelayPredictor)
+    # is built for the sum; without timing, as today
     from sim.model.device import Device
     from sim.strategies.lqr import LqrBalance
     sc = make_scenario(strategy={"kind": "lqr"}, sensors={"rate": 500, "delay": 0.002},
-                       timing={"compute_time": 0.0031})
+                       timing={"compute_time": 0.0034})
     dev = Device.from_scenario(sc)
-    assert dev.delay_s == pytest.approx(0.0051, abs=1e-15)
+    assert dev.delay_s == pytest.approx(0.005, abs=1e-15)    # 3.4 ms acts as 3 steps of 1 ms
     law = LqrBalance(device=dev, params=sc.strategy.params, rng=np.random.default_rng(0))
-    assert law.predictor.n == 2 and law.predictor.active      # 5.1 ms = 2 whole 2 ms periods + 1.1 ms
+    assert law.predictor.n == 2 and law.predictor.active      # 5 ms = 2 whole 2 ms periods + 1 ms
     plain = make_scenario(strategy={"kind": "lqr"}, sensors={"rate": 500, "delay": 0.002})
     assert Device.from_scenario(plain).delay_s == 0.002

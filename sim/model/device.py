@@ -155,8 +155,11 @@ class Device:
 
 def _loop_delay_s(sc) -> float:
     """From a sample to its command acting, s: the sensors' delay plus, with a `timing` section, the
-    controller's compute time (what a law's delay predictor has to bridge)."""
-    return sc.sensors.delay + sc.timing.compute_time if sc.timing is not None else sc.sensors.delay
+    controller's compute time as the runner applies it, in whole physics steps (what a law's delay
+    predictor has to bridge)."""
+    if sc.timing is None:
+        return sc.sensors.delay
+    return sc.sensors.delay + sc.timing.compute_steps(sc.world.step) * sc.world.step
 
 
 def _imu_lsb(imu) -> dict:

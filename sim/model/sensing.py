@@ -143,6 +143,11 @@ class Timing(_Strict):
     previous one) and starts the next tick on time. Either way each event counts in
     `loop_overruns`."""
 
+    def compute_steps(self, step_s: float) -> int:
+        """The compute time in whole physics steps: how late a command reaches the drive (rounded to
+        the nearest step, `sim.physics.timing`)."""
+        return int(round(self.compute_time / step_s))
+
 
 def check_sensing(sensors, world_step_s: float, control_rate_hz: float, timing) -> None:
     """Cross-field rules of the sensing sections; raises ValueError("@sensors...: ...")."""

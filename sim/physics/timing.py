@@ -32,7 +32,7 @@ class TickSchedule:
                  end_step: int | None = None):
         self.cs = control_steps
         self.dt = step_s
-        self.compute_steps = int(round(timing.compute_time / step_s))
+        self.compute_steps = timing.compute_steps(step_s)
         self.jitter_s = timing.jitter
         self.skip = timing.overrun == "skip"
         self.rng = rng
