@@ -59,10 +59,13 @@ class _WheelMotor:
 
 
 def run_trial3d(scenario, *, seed: int | None = None, stop_early: bool | None = None,
-                strategy_budget_s: float | None = None, on_step=None) -> TrialResult3D:
+                strategy_budget_s: float | None = None, on_step=None,
+                angle_bias_rad: tuple[float, ...] | None = None) -> TrialResult3D:
     """Simulate one trial of a 3D scenario (`Scenario.is_planar` false), in this process.
 
-    `on_step`: optional callable(k, engine) after every engine step (checks and rendering hooks)."""
+    `on_step`: optional callable(k, engine) after every engine step (checks and rendering hooks).
+    `angle_bias_rad`: the angle sensor's bias per tilt axis (x, then y on a ball), rad, in place of
+    `sensors.angle.bias` on those axes (check's per-axis bias holds); None keeps the scenario's."""
     device = Device3D.from_scenario(scenario)
     seed = scenario.trial.seed if seed is None else seed
     stop_early = scenario.trial.stop_early if stop_early is None else stop_early
@@ -77,6 +80,8 @@ def run_trial3d(scenario, *, seed: int | None = None, stop_early: bool | None = 
         n_suites = max(3 if ball else 1, device.n_wheels)
         suites = [SensorSuite(scenario.sensors, step_s=dt, n_ticks=n // scenario.control_steps + 1, rng=rng)
                   for _ in range(n_suites)]
+        for suite, bias in zip(suites, angle_bias_rad or ()):
+            suite.angle_bias = float(bias)
         return with_strategy(scenario, device, rng, clock, lambda strategy, failure: _loop(
             scenario, device, engine, suites, trace, strategy, failure, stop_early, clock, on_step))
     finally:
