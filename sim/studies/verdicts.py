@@ -295,8 +295,8 @@ def worst_hold(holds: list[dict], *, run_time_s: float) -> tuple[dict, float | N
     return worst, value, not fallen and not unmeasured and (value is None or value >= run_time_s), bool(fallen)
 
 
-def runaway_note(hold: dict, limit_rad_s: float) -> str:
-    """What one hold showed and what the law predicts, in a few words."""
+def runaway_note(hold: dict, limit_rad_s: float, *, unpredicted: str = "no linear prediction for this law") -> str:
+    """What one hold showed and what the law predicts (`unpredicted` when there is no prediction), in a few words."""
     b = f"{math.degrees(hold['bias_rad']):+.2f} deg"
     if hold["outcome"] != "balanced":
         text = (f"at {b} the body {hold['outcome'].replace('_', ' ')} at {hold['fell_at_s'] or 0:.1f} s with the wheel "
@@ -312,7 +312,7 @@ def runaway_note(hold: dict, limit_rad_s: float) -> str:
         text += "" if hold["runaway_time_s"] is None else f", reaching {limit_rad_s:.0f} rad/s at {hold['runaway_time_s']:.1f} s"
     p = hold["prediction"]
     if p is None:
-        return text + "; no linear prediction for this law"
+        return text + "; " + unpredicted
     if p.kind == "ramp" and p.wheel_accel_rad_s2 is None:
         return text + f"; the law predicts a wheel speed growing without bound ({p.basis})"
     if p.kind == "ramp":

@@ -142,7 +142,7 @@ def _run_criteria(sc, metrics: dict, pushes: dict, worst_dir: str, wheels: list[
     return [
         _criterion("hold_max_tilt_rad", hold["max_angle_after_catch_rad"], sc.strategy.params.release_angle
                    if hasattr(sc.strategy.params, "release_angle") else math.pi, hold["outcome"] == "balanced",
-                   f"{HOLD_S:g} s from a {math.degrees(check3d.HOLD_TILT_RAD):g} deg tilt with sensor noise: "
+                   f"{HOLD_S:g} s from a {math.degrees(check3d.HOLD_TILT_RAD):g} deg tilt with the scenario's sensors: "
                    f"{outcome_with_cause(hold)}"),
         _at_most("settle_time_s", nominal["settle_time_s"], req.settle_time,
                  f"the scenario's own trial: {outcome_with_cause(nominal)}"),
@@ -172,7 +172,7 @@ def runaway_criterion3d(sc, holds: list[dict]) -> dict:
     axes = sorted({h["axis"] for h in holds})
     note = (f"{req.hold_time:g} s holds at angle bias {', '.join(f'{b:+.2f}' for b in biases)} deg about "
             f"{' and '.join(axes)} in turn; worst: about {worst['axis']}, wheel {worst['wheel']}: "
-            + runaway_note(worst, worst["limit_rad_s"]))
+            + runaway_note(worst, worst["limit_rad_s"], unpredicted="no linear prediction on a 3D device yet"))
     return _criterion("wheel_runaway_time_s", value, req.run_time, passed, note + ("; cause bias_drift" if drifted else ""))
 
 
