@@ -136,3 +136,22 @@ def test_compare_without_a_clip_or_a_folder_is_one_line_and_exit_2(tmp_path, cap
     assert main(["compare", str(planar)]) == 2
     err = capsys.readouterr().err.strip()
     assert len(err.splitlines()) == 1 and "--video" in err and "--out" in err
+
+
+@pytest.mark.parametrize("name", ["cube_corner.yaml", "tilted_axis.yaml"])
+def test_clip_poses_the_body_as_the_engine_had_it(name):
+    """The picture is posed from the trace alone; it must agree with pybullet's own attitude
+    (`Engine3D.attitude`, read through the runner's on_step hook after each step)."""
+    from sim.media.clip3d import TrialPainter3D
+    from sim.run.trial3d import run_trial3d
+    sc = load_scenario(ROOT / "scenarios" / name, overrides=("trial.duration=0.25", "trial.pushes=[]"))
+    seen = {}
+
+    def record(k, engine):
+        if k % 50 == 0:
+            seen[k + 1] = np.array(engine.attitude())   # after step k: the state of trace row k + 1
+    result = run_trial3d(sc, on_step=record)
+    painter = TrialPainter3D(result, width=160, height=120, supersample=1)
+    assert len(seen) >= 4
+    for row, r_wb in seen.items():
+        assert_allclose(painter.pose_at(row)[0], r_wb, atol=1e-9)

@@ -15,6 +15,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..core.angles import wrap_angle
 from .overlay import (CURRENT_AT_LIMIT, DIAL_SPAN, DIM, NEAR_NO_LOAD, PANEL, PUSH, PUSH_SHOWN_S, TEXT,
                       VOLTAGE_AT_SUPPLY, WARN, Dashboard, dial_track, ending_text, push_arrow, row_index)
 from .scene3d import WHEEL_TINTS
@@ -42,7 +43,7 @@ class Readout3D:
     t_s: float
     phase: str
     tilt_rad: float
-    tilt_x_rad: float
+    tilt_x_rad: float           # as in the trace (a hinge's is unwrapped); shown wrapped to (-180, 180] deg
     tilt_y_rad: float | None
     wheels: tuple
     notes: tuple = ()
@@ -131,7 +132,7 @@ class Panel3D(Dashboard):
         ph = self.height - self.top
         d.text((pad, self.top + 0.14 * ph), f"{r.t_s:5.2f} s", font=self.f_big, fill=TEXT, anchor="lt")
         tilt = f"tilt {math.degrees(r.tilt_rad):5.2f} deg" if math.isfinite(r.tilt_rad) else "tilt --"
-        parts = f"about x {math.degrees(r.tilt_x_rad):+.2f}°" + (f"  y {math.degrees(r.tilt_y_rad):+.2f}°"
+        parts = f"about x {math.degrees(wrap_angle(r.tilt_x_rad)):+.2f}°" + (f"  y {math.degrees(r.tilt_y_rad):+.2f}°"
                                                           if r.tilt_y_rad is not None else "")
         tx, ty = (pad, self.top + 0.45 * ph) if self.wide else (int(0.45 * self.width), self.top + 0.1 * ph)
         d.text((tx, ty), tilt, font=self.f_mid, fill=TEXT, anchor="lt")
@@ -168,7 +169,7 @@ class Panel3D(Dashboard):
                width=max(1, rad // 14))
         hub = max(2, rad // 10)
         d.ellipse([cx - hub, cy - hub, cx + hub, cy + hub], fill=TEXT)
-        value = f"{w.speed_rad_s:+.0f}/{w.limit_rad_s:.0f}" if finite else "--"
+        value = f"{round(w.speed_rad_s):+d}/{w.limit_rad_s:.0f}" if finite else "--"
         d.text((cx, cy - rad * 1.22), value, font=self.f_small, fill=TEXT, anchor="mb")
         return (90.0 - needle) / 90.0 * DIAL_SPAN * w.limit_rad_s if finite else math.nan
 

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -66,6 +67,10 @@ class Camera3D:
         u = np.cross(r, f)
         return np.array([r, -u, f])
 
+    @cached_property
+    def _p(self) -> np.ndarray:
+        return self.matrix()
+
     def matrix(self) -> np.ndarray:
         """P = K [R_cw | -R_cw eye], 3x4: homogeneous world points to homogeneous pixels."""
         k = np.array([[self.focal_px, 0.0, self.cx], [0.0, self.focal_px, self.cy], [0.0, 0.0, 1.0]])
@@ -75,7 +80,7 @@ class Camera3D:
     def project(self, points) -> tuple[np.ndarray, np.ndarray]:
         """(pixels (N, 2) as column, row; depth along the line of sight (N,), m) of world points (N, 3)."""
         p = np.atleast_2d(np.asarray(points, dtype=float))
-        m = self.matrix()
+        m = self._p
         h = p @ m[:, :3].T + m[:, 3]
         return h[:, :2] / h[:, 2:3], h[:, 2]
 
@@ -108,15 +113,22 @@ def frame_camera(corners, *, preset: str, width: int, height: int, margin: float
 
 
 class _Group:
-    """Faces of one rigid piece, packed into arrays once: vertices, per-face slices, normals, centres."""
+    """Faces of one rigid piece, packed into arrays once: vertices, per-face slices, normals, centres,
+    colours (0..255 before shading), opacities, whether a face may be culled, depth biases."""
 
     def __init__(self, faces: list, spheres: list = ()):
         self.faces = faces
         self.verts = np.concatenate([f.verts for f in faces]) if faces else np.zeros((0, 3))
         sizes = [len(f.verts) for f in faces]
-        self.starts = np.cumsum([0] + sizes)
+        self.starts = np.cumsum([0] + sizes).tolist()
         self.normals = np.array([f.normal for f in faces]).reshape(-1, 3)
         self.centres = np.array([f.verts.mean(axis=0) for f in faces]).reshape(-1, 3)
+        self.rgb = 255.0 * np.array([f.rgb for f in faces]).reshape(-1, 3)
+        self.alpha = [int(255 * f.alpha) for f in faces]
+        self.cull = np.array([f.cull for f in faces], dtype=bool)
+        self.bias = np.array([f.bias for f in faces], dtype=float)
+        self.marks = self.bias > 0          # spin marks: washed into the wheel's colour when it turns fast
+        self.outline = [None if f.outline is None else tuple(int(255 * v) for v in f.outline) + (235,) for f in faces]
         self.spheres = list(spheres)
 
 
@@ -185,7 +197,8 @@ class Scene3D:
         corners = [(x * hx * reach, y * hy * reach, z * reach) for x in (-1, 1) for y in (-1, 1) for z in (low, 1.02)]
         self.camera = frame_camera(corners, preset=camera, width=width, height=height)
         self._cam = self.camera.scaled(self.ss)
-        self._background = self._draw_background()
+        self._background = self._draw_background()          # drawing size (supersampled)
+        self._background_small = self._background.reduce(self.ss) if self.ss != 1 else self._background
 
     # -- posing ---------------------------------------------------------------------------------
     def attitude(self, tilt_x: float, tilt_y: float = 0.0, heading: float = 0.0) -> np.ndarray:
@@ -203,72 +216,110 @@ class Scene3D:
     def draw_image(self, r_wb: np.ndarray, wheel_angles, *, mark_fade=()):
         """The picture (a PIL RGB image, width x height) at body attitude `r_wb` and wheel angles (rad,
         relative to the body). `mark_fade` : per wheel 0..1, how far its spin mark is washed into the
-        wheel (a fast wheel's mark would jump about between frames)."""
+        wheel (a fast wheel's mark would jump about between frames).
+
+        Only the box around what moves (and the stand) is drawn, at `supersample` times the size,
+        then shrunk into the cached background: the cost follows the pixels drawn.
+        """
         from PIL import ImageDraw
 
-        img = self._background.copy()
-        draw = ImageDraw.Draw(img, "RGBA")
         pieces = self._posed(r_wb, wheel_angles)
-        self._shadow(draw, pieces[1:])
-        items = []
-        cam = self._cam
-        eye = np.asarray(cam.eye)
+        dist, polys, fills, outlines, pixels = [], [], [], [], []
+        eye = np.asarray(self._cam.eye)
         for gi, (group, rot, origin) in enumerate(pieces):
-            if not len(group.faces) and not group.spheres:
-                continue
-            px, _ = cam.project(group.verts @ rot.T + origin) if len(group.verts) else (None, None)
-            normals = group.normals @ rot.T
-            centres = group.centres @ rot.T + origin
-            facing = np.einsum("ij,ij->i", normals, eye - centres)
-            dist = np.linalg.norm(centres - eye, axis=1)
-            light = normals @ LIGHT_WORLD
-            fade = mark_fade[gi - 2] if gi >= 2 and gi - 2 < len(mark_fade) else 0.0
-            for j, f in enumerate(group.faces):
-                if f.cull and facing[j] <= 0:
-                    continue
-                lit = AMBIENT + DIFFUSE * (max(light[j], 0.0) if f.cull else abs(light[j]))
-                rgb = f.rgb if not (fade and f.bias) else _mix(f.rgb, group.faces[0].rgb, fade)
-                items.append((dist[j] - f.bias, 0, px[group.starts[j]:group.starts[j + 1]], rgb, lit, f))
+            if len(group.faces):
+                fade = mark_fade[gi - 2] if 2 <= gi < 2 + len(mark_fade) else 0.0
+                self._shade(group, rot, origin, eye, fade, dist, polys, fills, outlines, pixels)
             for centre, radius, rgb in group.spheres:
                 c = rot @ centre + origin
-                items.append((float(np.linalg.norm(c - eye)) - radius, 1, c, rgb, radius, None))
-        items.sort(key=lambda it: -it[0])
-        for _, kind, a, rgb, b, f in items:
-            if kind == 0:
-                fill = tuple(int(255 * min(1.0, v * b)) for v in rgb) + (int(255 * f.alpha),)
-                outline = None if f.outline is None else tuple(int(255 * v) for v in f.outline) + (235,)
-                draw.polygon(a.ravel().tolist(), fill=fill, outline=outline, width=max(1, self.ss) if outline else 0)
+                (x, y), depth = (v[0] for v in self._cam.project(c[None, :]))
+                r = self._cam.focal_px * radius / max(depth, 1e-9)
+                dist.append(float(np.linalg.norm(c - eye)) - radius)
+                polys.append(np.array([[x - r, y - r], [x + r, y + r]]))
+                fills.append(rgb)
+                outlines.append("sphere")
+                pixels.append(polys[-1])
+        hull = self._shadow_hull(pieces[1:])
+        box = self._draw_box(pixels + ([hull] if hull is not None else []))
+        img = self._background_small.copy()
+        if box is None:
+            return img
+        x0, y0, x1, y1 = box
+        crop = self._background.crop(box)
+        draw = ImageDraw.Draw(crop, "RGBA")
+        offset = np.array([x0, y0], dtype=float)
+        if hull is not None:
+            draw.polygon((hull - offset).ravel().tolist(), fill=(40, 44, 52, 46))
+        for j in np.argsort(-np.asarray(dist), kind="stable").tolist():
+            pts = polys[j] - offset
+            if outlines[j] == "sphere":
+                self._sphere(draw, pts, fills[j])
             else:
-                self._sphere(draw, a, b, rgb)
-        if self.ss != 1:
-            img = img.reduce(self.ss)
+                draw.polygon(pts.ravel().tolist(), fill=fills[j], outline=outlines[j],
+                             width=self.ss if outlines[j] else 0)
+        img.paste(crop.reduce(self.ss) if self.ss != 1 else crop, (x0 // self.ss, y0 // self.ss))
         return img
 
-    def _sphere(self, draw, centre, radius, rgb) -> None:
-        (x, y), depth = (v[0] for v in self._cam.project(centre[None, :]))
-        r = self._cam.focal_px * radius / max(depth, 1e-9)
-        draw.ellipse([x - r, y - r, x + r, y + r], fill=tuple(int(200 * v) for v in rgb) + (255,))
+    def _shade(self, group, rot, origin, eye, fade, dist, polys, fills, outlines, pixels) -> None:
+        """Project one posed group; append its visible faces' depth, pixels, fill and outline."""
+        px, _ = self._cam.project(group.verts @ rot.T + origin)
+        pixels.append(px)
+        normals = group.normals @ rot.T
+        centres = group.centres @ rot.T + origin
+        facing = np.einsum("ij,ij->i", normals, eye - centres)
+        light = normals @ LIGHT_WORLD
+        lit = AMBIENT + DIFFUSE * np.where(group.cull, np.maximum(light, 0.0), np.abs(light))
+        rgb = group.rgb
+        if fade:
+            rgb = rgb.copy()
+            rgb[group.marks] = (1 - fade) * rgb[group.marks] + fade * rgb[0]
+        colour = np.minimum(rgb * lit[:, None], 255.0).astype(int).tolist()
+        d = (np.linalg.norm(centres - eye, axis=1) - group.bias).tolist()
+        starts = group.starts
+        for j in np.flatnonzero(~group.cull | (facing > 0)).tolist():
+            dist.append(d[j])
+            polys.append(px[starts[j]:starts[j + 1]])
+            fills.append((*colour[j], group.alpha[j]))
+            outlines.append(group.outline[j])
+
+    def _draw_box(self, pixel_sets) -> tuple | None:
+        """(x0, y0, x1, y1) at drawing size, multiples of the supersampling, holding every pixel set."""
+        pts = np.concatenate([p.reshape(-1, 2) for p in pixel_sets]) if pixel_sets else np.zeros((0, 2))
+        if not len(pts):
+            return None
+        ss, w, h = self.ss, self._cam.width, self._cam.height
+        x0 = max(0, (int(np.floor(pts[:, 0].min())) - 2 * ss) // ss * ss)
+        y0 = max(0, (int(np.floor(pts[:, 1].min())) - 2 * ss) // ss * ss)
+        x1 = min(w // ss * ss, -(-(int(np.ceil(pts[:, 0].max())) + 2 * ss) // ss) * ss)
+        y1 = min(h // ss * ss, -(-(int(np.ceil(pts[:, 1].max())) + 2 * ss) // ss) * ss)
+        return (x0, y0, x1, y1) if x1 - x0 >= ss and y1 - y0 >= ss else None
+
+    def _sphere(self, draw, corners, rgb) -> None:
+        """A ball (the socket) as a shaded disc with a highlight; `corners` its pixel box."""
+        (xa, ya), (xb, yb) = corners
+        x, y, r = (xa + xb) / 2, (ya + yb) / 2, (xb - xa) / 2
+        draw.ellipse([xa, ya, xb, yb], fill=tuple(int(200 * v) for v in rgb) + (255,))
         h = 0.45 * r   # a highlight towards the light
         draw.ellipse([x - 0.35 * r - h, y - 0.4 * r - h, x - 0.35 * r + h, y - 0.4 * r + h],
                      fill=tuple(int(min(255, 255 * (0.3 + v))) for v in rgb) + (255,))
 
-    def _shadow(self, draw, pieces) -> None:
-        """A soft dark patch on the floor under the device: its points dropped straight down."""
+    def _shadow_hull(self, pieces) -> np.ndarray | None:
+        """Pixels (drawing size) of a soft dark patch on the floor under the device: the convex hull
+        of its points dropped straight down; None when it has no area in view."""
         pts = [g.verts[::3] @ rot.T + origin for g, rot, origin in pieces if len(g.verts)]
         if not pts:
-            return
+            return None
         pts = np.concatenate(pts)
         pts[:, 2] = self.layout.floor_z_m
         px, depth = self._cam.project(pts)
         px = px[depth > 0]
         if len(px) < 3:
-            return
+            return None
         from scipy.spatial import ConvexHull, QhullError
         try:
-            hull = px[ConvexHull(px).vertices]
+            return px[ConvexHull(px).vertices]
         except QhullError:   # the points lie on a line: no area to darken
-            return
-        draw.polygon(hull.ravel().tolist(), fill=(40, 44, 52, 46))
+            return None
 
     def _draw_background(self):
         """Sky and floor with a grid, at the drawing size (supersampled)."""
