@@ -155,3 +155,22 @@ def test_clip_poses_the_body_as_the_engine_had_it(name):
     assert len(seen) >= 4
     for row, r_wb in seen.items():
         assert_allclose(painter.pose_at(row)[0], r_wb, atol=1e-9)
+
+
+def test_a_floor_mount_stands_on_the_ground_plane_without_a_stand():
+    """Room for `body.mount: floor` (another issue): the scene reads only the device's mount, upright
+    attitude, centre of mass and wheels, so a stand-in device with mount "floor" can try it."""
+    from types import SimpleNamespace
+    sc = load_scenario(ROOT / "scenarios" / "cube_corner.yaml")
+    dev = Device3D.from_scenario(sc)
+    floor = SimpleNamespace(mount="floor", upright=dev.upright, com_m=dev.com_m, wheels=dev.wheels)
+    scene = Scene3D(sc, floor, width=320, height=200, supersample=1)
+    assert scene.layout.floor_z_m == 0.0 and scene.stand.faces == [] and scene.stand.spheres == []
+    ball = Scene3D(sc, dev, width=320, height=200, supersample=1)
+    assert ball.layout.floor_z_m < 0 and len(ball.stand.faces) > 0 and len(ball.stand.spheres) == 1
+    # the ground plane is drawn at z = 0: a point of it in front of the device shows the floor colour
+    img = np.asarray(scene.draw_image(scene.attitude(0.0), [0.0, 0.0, 0.0]))
+    x, y = scene.camera.project([[0.1, -0.3, 0.0]])[0][0]   # before the device, on the ground, off the grid lines
+    from sim.media.render import COLOURS
+    floor_rgb = 255 * np.array(COLOURS["floor"][:3])
+    assert np.abs(img[int(y), int(x)].astype(float) - floor_rgb).max() < 3
