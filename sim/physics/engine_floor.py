@@ -200,15 +200,16 @@ class FloorEngine:
             tx, ty, tz = 2.0 * (y * oz - z * oy), 2.0 * (z * ox - x * oz), 2.0 * (x * oy - y * ox)
             cxw = ox + w * tx + y * tz - z * ty
             cyw = oy + w * ty + z * tx - x * tz
+            found = contacts(body, plane, BASE, -1, cid)
+            if not found:
+                return px - cxw, py - cyw, 0.0, 0.0
             fn = fx = fy = 0.0
-            touching = 0.0
-            for c in contacts(body, plane, BASE, -1, cid):
-                touching = 1.0
+            for c in found:
                 fn += c[9]
                 f1, d1, f2, d2 = c[10], c[11], c[12], c[13]
                 fx += f1 * d1[0] + f2 * d2[0]
                 fy += f1 * d1[1] + f2 * d2[1]
-            return px - cxw, py - cyw, touching, (sqrt(fx * fx + fy * fy) / fn if fn > 0.0 else 0.0)
+            return px - cxw, py - cyw, 1.0, (sqrt(fx * fx + fy * fy) / fn if fn > 0.0 else 0.0)
 
         def advance(push_world, wheel_torques):
             if push_world is not None:

@@ -38,21 +38,26 @@ class FloorWatch:
         self.balance_k = None
         self.fell_k = None
 
-    def see(self, k: int, balancing: bool) -> bool:
-        """Record step k; True when the trial should end now as `slipped` (with stop_early)."""
-        x, y, touching, ratio = self.contact()
+    def stepper(self):
+        """see(k, balancing) -> bool: record step k; True when the trial should end now as `slipped`
+        (with stop_early). A closure with its lookups bound once: it runs every physics step."""
+        contact, stop_early, limit2 = self.contact, self.stop_early, self.limit2
         cx, cy, ct, cr = self.cols
-        cx[k], cy[k], ct[k], cr[k] = x, y, touching, ratio
-        if not balancing or self.slipped_k is not None:
+
+        def see(k, balancing):
+            x, y, touching, ratio = contact()
+            cx[k], cy[k], ct[k], cr[k] = x, y, touching, ratio
+            if not balancing or self.slipped_k is not None:
+                return False
+            if self.origin is None:
+                self.origin, self.balance_k = (x, y), k
+                return False
+            dx, dy = x - self.origin[0], y - self.origin[1]
+            if dx * dx + dy * dy > limit2:
+                self.slipped_k = k
+                return stop_early
             return False
-        if self.origin is None:
-            self.origin, self.balance_k = (x, y), k
-            return False
-        dx, dy = x - self.origin[0], y - self.origin[1]
-        if dx * dx + dy * dy > self.limit2:
-            self.slipped_k = k
-            return self.stop_early
-        return False
+        return see
 
     def outcome(self, outcome, fell_k):
         """The trial's outcome with a slip before any fall counted: `slipped`."""

@@ -155,6 +155,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     io = engine.io()
     read, advance = io[0], io[1]
     watch = FloorWatch(io[2], trace, device.floor, stop_early) if len(io) > 2 else None
+    see = watch.stepper() if watch is not None else None
     command = strategy.command_vector if strategy is not None else None
     lim = ABSURD_RATE_RAD_S
     k = 0
@@ -173,7 +174,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
         if bad:
             outcome, message = "diverged", f"the state became non-finite or absurd at t = {k * dt:.4f} s"
             break
-        if watch is not None and watch.see(k, catch_k is not None) and outcome is None:
+        if see is not None and see(k, catch_k is not None) and outcome is None:
             outcome = "slipped"   # with stop_early; this step still runs, as a fall's does
         if k % cs == 0:
             t = k * dt
