@@ -243,3 +243,26 @@ def test_floor_keys_refused_off_the_floor(tmp_path):
         argv = ["validate", str(corner)] + [a for s in sets for a in ("--set", s)]
         proc = subprocess.run([sys.executable, "-m", "sim.cli", *argv], capture_output=True, text=True, cwd=tmp_path)
         assert proc.returncode == 2 and len(proc.stderr.strip().splitlines()) == 1 and key in proc.stderr
+
+
+def test_corner_cube_on_the_floor_balances_on_its_corner():
+    # the three-wheel corner cube with its socket replaced by a floor: lqr designs as for a ball at the
+    # corner and holds it through a push; the corner stays put (no slip) and on the floor
+    from sim.run.trial import run_trial
+    corner = ROOT / "scenarios" / "cube_corner.yaml"
+    sc = load_scenario(corner, overrides=["body.mount=floor", "body.balance_on=corner", "body.pivot_friction.viscous=0",
+                                          "floor={friction: 0.6, restitution: 0.1}", "trial.duration=2.5 s",
+                                          "trial.pushes=[{at: 2 s, impulse: [30 mN*m*s, 0, 0]}]"])
+    assert Device3D.from_scenario(sc).mount == "ball"
+    result = run_trial(sc)
+    assert result.outcome == "balanced"
+    assert result.floor["slip_m"] < 2e-3 and result.floor["lift_off_s"] == 0.0
+    # resting on the corner: upright at rest, the corner (origin) on the floor
+    rest = load_scenario(corner, overrides=["body.mount=floor", "body.balance_on=corner", "body.pivot_friction.viscous=0",
+                                            "floor={friction: 0.6, restitution: 0.1}", "trial.start.tilt=null",
+                                            "trial.start.resting_on=corner"])
+    device, eng = _engine(rest)
+    with eng:
+        eng.reset(attitude=start_attitude(rest, device)[0])
+        assert abs(eng.origin_m()[2]) < 1e-9
+        assert eng.io()[0]()[3] < 1e-9

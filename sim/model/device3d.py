@@ -46,7 +46,8 @@ class Device3D(LinearSpec):
                 current_limit_a=motor.current_limit if motor.current_limit is not None else math.inf,
                 supply_v=sc.drive.supply, brake_torque_n_m=brake if brake is not None else sc.drive.brake_torque,
                 coulomb_n_m=w.bearing_friction.coulomb, viscous_n_m_s=w.bearing_friction.viscous))
-        return cls(mount=sc.design_mount, floor=floor_spec(sc) if sc.body.mount == "floor" else None, gravity_m_s2=sc.world.gravity, body_mass_kg=body.mass_kg,
+        return cls(mount=sc.design_mount, floor=floor_spec(sc) if sc.body.mount == "floor" else None,
+                   gravity_m_s2=sc.world.gravity, body_mass_kg=body.mass_kg,
                    body_com_m=body.com_m, body_inertia_com_kg_m2=body.inertia_com_kg_m2, wheels=tuple(units),
                    pivot_coulomb_n_m=sc.body.pivot_friction.coulomb, pivot_viscous_n_m_s=sc.body.pivot_friction.viscous,
                    control_rate_hz=sc.sensors.rate, delay_s=sc.sensors.delay, supply_v=sc.drive.supply)

@@ -41,6 +41,7 @@ SLIP_LIMIT_M = 0.005
 trial (the contact solver's compliance; `tests/test_floor.py` measures the demo's), while 5 mm is about a
 tenth of a small cube's half-width: a contact that moved that far has slid, not crept (our choice)."""
 THIN_DISK_M = 1e-3
+CONTACT_TOLERANCE_M = 1e-4   # a body reaching this far below its balance contact is refused (our choice)
 RIM_POINTS = 64        # points per cylinder rim when finding the resting angle (about 0.1% of the radius off)
 
 
@@ -117,9 +118,28 @@ def check_floor(sc) -> None:
             raise ValueError("@trial.start.resting_on: give resting_on or a start angle/tilt, not both")
     if start.side is not None and start.resting_on != "face":
         raise ValueError("@trial.start.side: the side a body lies on goes with resting_on: face")
-    if not collision_shapes(sc.body.parts):
+    shapes = collision_shapes(sc.body.parts)
+    if not shapes:
         raise ValueError("@body.parts: a body on the floor needs a part with a shape that touches it "
                          "(box, hollow_box, disk, ring, or a rod with a radius)")
+    below = -lowest_z(shapes, _upright(sc, corner))
+    if below > CONTACT_TOLERANCE_M:
+        where = "corner" if corner else "edge"
+        raise ValueError(f"@body.balance_on: balanced on its {where}, the body reaches {below * 1e3:.1f} mm below "
+                         f"it; the body frame's origin must be on the {where} the body stands on (its lowest "
+                         f"{'point' if corner else 'line'} when balanced)")
+
+
+def _upright(sc, corner: bool):
+    """The balanced attitude from the scenario's mass properties (as `Device3D.upright`)."""
+    from .massprops3d import body_mass_properties, wheel_centre, wheel_inertias
+    body = body_mass_properties(sc)
+    first, mass = body.mass_kg * np.array(body.com_m), body.mass_kg
+    for i, w in enumerate(sc.wheel_list):
+        m = wheel_inertias(w, rotor_inertia=sc.wheel_motor(i).rotor_inertia)[0]
+        first, mass = first + m * np.array(wheel_centre(w)), mass + m
+    com = first / mass
+    return smallest_rotation_to_z(tuple(float(v) for v in (com if corner else (0.0, com[1], com[2]))))
 
 
 # -- geometry ---------------------------------------------------------------------------------------
