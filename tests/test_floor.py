@@ -226,6 +226,7 @@ def test_fall_names_the_face():
     ({"trial.start.side": "1"}, "trial.start.side"),
     ({"floor": "null"}, "floor"),
     ({"body.pivot_friction.viscous": "1e-4"}, "body.pivot_friction"),
+    ({"body.parts[0].at": "[0, 70 mm, 75 mm]"}, "body.balance_on"),     # the shell reaches below the edge
 ])
 def test_bad_floor_input_is_one_line_exit_2(sets, key, tmp_path):
     argv = ["validate", str(DEMO)] + [a for k, v in sets.items() for a in ("--set", f"{k}={v}")]
