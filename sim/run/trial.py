@@ -37,7 +37,7 @@ from .trial_common import describe_unread as _describe_unread
 from .trial_common import final_outcome as _final_outcome
 from .trial_common import with_strategy
 
-OUTCOMES = ("balanced", "fell", "not_caught", "diverged", "strategy_failed", "completed")
+OUTCOMES = ("balanced", "fell", "not_caught", "diverged", "strategy_failed", "completed", "slipped")
 ABSURD_RATE_RAD_S = 1e4          # a body spinning at 1,600 rev/s is a numerical blow-up
 ABSURD_WHEEL_FACTOR = 20.0       # wheel beyond 20x its no-load speed: likewise
 ABSURD_ANGLE_RAD = 1e6           # ~160,000 turns: the unwrapped angle has run away

@@ -8,7 +8,9 @@ absurd, end the trial with an outcome, never an exception.
 
 Outcomes use `tilt_rad` (the angle between the pivot-to-centre-of-mass line and the vertical; on a
 hinge, the body angle from upright about x) against the strategy's release angle: `balanced`,
-`fell`, `not_caught`, `diverged`, `strategy_failed`, `completed` (bench strategies).
+`fell`, `not_caught`, `diverged`, `strategy_failed`, `completed` (bench strategies), and on the floor
+`slipped` (the balancing contact slid more than `floor.slip_limit` from where it was when balancing
+began, before any fall; `sim.run.floor_contact`).
 
 Not yet here (planar runner only): plug-in trials in a forked child (a 3D plug-in runs in this
 process under its time budget, which cannot stop one stuck in compiled code), and rendering hooks.
@@ -26,10 +28,13 @@ from ..core.budget import StrategyClock
 from ..core.errors import StrategyError
 from ..core.frames import matmul, rotation_about_x_y
 from ..model.device3d import Device3D
+from ..model.floor import start_attitude
 from ..physics.engine3d import Engine3D
+from ..physics.engine_floor import FloorEngine
 from ..physics.motor import MotorDrive
 from ..physics.sensors import SensorSuite
 from ..strategies.base import Reading
+from .floor_contact import FloorWatch, floor_cause
 from .trace3d import Trace3D
 from .trial_common import TrialResult, close_trace, describe, describe_unread, final_outcome, with_strategy
 
@@ -43,6 +48,7 @@ class TrialResult3D(TrialResult):
     """What a 3D trial produced (fields as `sim.run.trial_common.TrialResult`; `is_3d` marks it)."""
 
     is_3d: bool = True
+    floor: dict | None = None   # a body on the floor: `sim.run.floor_contact.FloorWatch.summary`
 
 
 class _WheelMotor:
@@ -70,8 +76,8 @@ def run_trial3d(scenario, *, seed: int | None = None, stop_early: bool | None = 
     dt, n = scenario.world.step, scenario.n_steps
     rng = np.random.default_rng(seed)
     ball = device.mount == "ball"
-    trace = Trace3D(n, step_s=dt, ball=ball, n_wheels=device.n_wheels)
-    engine = Engine3D(device, step_s=dt)
+    trace = Trace3D(n, step_s=dt, ball=ball, n_wheels=device.n_wheels, floor=device.floor is not None)
+    engine = Engine3D(device, step_s=dt) if device.floor is None else FloorEngine(device, step_s=dt)
     try:
         _reset(engine, scenario, device)
         n_suites = max(3 if ball else 1, device.n_wheels)
@@ -87,7 +93,10 @@ def _reset(engine: Engine3D, scenario, device: Device3D) -> None:
     start = scenario.trial.start
     speeds = start.wheel_speed if isinstance(start.wheel_speed, list) else [start.wheel_speed] * device.n_wheels
     r0 = device.upright()
-    if device.mount == "ball":
+    if device.floor is not None:
+        attitude, rate = start_attitude(scenario, device)
+        engine.reset(attitude=attitude, rate_world=rate, wheel_speeds_rad_s=speeds)
+    elif device.mount == "ball":
         tx, ty = start.tilt if start.tilt is not None else (0.0, 0.0)
         engine.reset(attitude=matmul(rotation_about_x_y(tx, ty), r0), wheel_speeds_rad_s=speeds)
     else:
@@ -143,7 +152,10 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     suite_reads = [(s.read, sense_angle[j] if j < len(sense_angle) else zeros,
                     sense_rate[j] if j < len(sense_rate) else zeros, wa_c[j] if j < nw else zeros,
                     ws_c[j] if j < nw else zeros) for j, s in enumerate(suites)]
-    read, advance = engine.io()
+    io = engine.io()
+    read, advance = io[0], io[1]
+    watch = FloorWatch(io[2], trace, device.floor, stop_early) if len(io) > 2 else None
+    see = watch.stepper() if watch is not None else None
     command = strategy.command_vector if strategy is not None else None
     lim = ABSURD_RATE_RAD_S
     k = 0
@@ -162,6 +174,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
         if bad:
             outcome, message = "diverged", f"the state became non-finite or absurd at t = {k * dt:.4f} s"
             break
+        if see is not None and see(k, catch_k is not None) and outcome is None:
+            outcome = "slipped"   # with stop_early; this step still runs, as a fall's does
         if k % cs == 0:
             t = k * dt
             meas = [r(k, a, w, wa, ws) for r, a, w, wa, ws in suite_reads]
@@ -236,13 +250,21 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
         if on_step is not None:
             on_step(k, engine)
         k += 1
-    return _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, wants_balance,
-                   ticks, saturated, time.perf_counter() - wall0)
+    wall = time.perf_counter() - wall0
+    if watch is not None:
+        outcome = watch.outcome(outcome, fell_k)
+    result = _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, wants_balance,
+                     ticks, saturated, wall)
+    if watch is not None:
+        result.floor = watch.summary(engine, dt)
+        result.cause, result.cause_detail = floor_cause(result) or (result.cause, result.cause_detail)
+    return result
 
 def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, wants_balance,
             ticks, saturated, wall) -> TrialResult3D:
     """Close the trace, zero the voltages after a failure's row, judge the outcome and its cause."""
-    ended = close_trace(trace, outcome=outcome, k=k, n=scenario.n_steps, dt=scenario.world.step, fell_k=fell_k)
+    ended = close_trace(trace, outcome=outcome, k=k, n=scenario.n_steps, dt=scenario.world.step,
+                        fell_k=fell_k if outcome != "slipped" else None)
     _hold_tick_values(trace, scenario.control_steps)
     if outcome in ("diverged", "strategy_failed") and k < scenario.n_steps:
         for i in range(1, device.n_wheels + 1):
