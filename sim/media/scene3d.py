@@ -173,7 +173,8 @@ class Scene3D:
         self.ss = supersample
         self.upright = np.asarray(device.upright(), dtype=float)
         self.com_m = np.asarray(device.com_m, dtype=float)
-        self.mount = device.mount
+        # a body on the floor: `device.mount` is the mount its law designs for (sim.model.floor)
+        self.mount = "floor" if getattr(device, "floor", None) is not None else device.mount
         body_faces, spheres = [], []
         reach0 = max(_part_reach(p) for p in scenario.body.parts)
         for p in scenario.body.parts:
