@@ -36,12 +36,13 @@ F32 = 2.0**-24          # unit roundoff of IEEE 754 single precision (binary32)
 
 def cube_scenario(folder: Path, source: str, *, defines: dict | None = None, trial: dict | None = None,
                   edit=None, write_only: bool = False):
-    """The bundled cube scenario with the firmware `source` (C text, in `folder`) as its strategy."""
+    """The bundled cube scenario with the firmware `source` (C text, in `folder`) as its strategy
+    (with a `duration` in `trial`, without the pushes)."""
     (folder / "fw.c").write_text(source)
     raw = yaml.safe_load(CUBE.read_text())
     raw["strategy"] = {"kind": "firmware", "sources": ["fw.c"], "include": [str(EXAMPLE_DIR)],
                        "defines": defines or {}}
-    raw["trial"].update(trial or {})
+    raw["trial"].update({"pushes": [], **trial} if trial and "duration" in trial else (trial or {}))
     if edit is not None:
         edit(raw)
     path = folder / "scenario.yaml"
@@ -143,3 +144,218 @@ void wb_step(const wb_input_t *in, wb_output_t *out) { out->wheels_brake[1] = in
     assert abs(braked.wheel(2, "speed")[-1]) < 0.5 * abs(free.wheel(2, "speed")[-1])
     for i in (1, 3):    # the other wheels only feel the body's reaction: within 10% of the run without
         np.testing.assert_allclose(braked.wheel(i, "speed")[-1], free.wheel(i, "speed")[-1], rtol=0.1)
+
+
+# ----------------------------------------------------------------------------- the bundled example
+
+def test_bundled_cube_gains_header_is_the_gains_commands_output(capsys):
+    # the example's numbers come from `wheelbench gains scenarios/cube_corner.yaml --format c`;
+    # everything but the first comment line (which names the source) must be that output
+    assert main(["gains", str(EXAMPLE_DIR.parent / "cube_corner.yaml"), "--format", "c"]) == 0
+    fresh = capsys.readouterr().out.splitlines()[1:]
+    bundled = (EXAMPLE_DIR / "cube_gains.h").read_text().splitlines()[1:]
+    assert bundled == fresh, "regenerate scenarios/firmware/cube_gains.h with `wheelbench gains ... --format c`"
+
+
+def test_cube_scenario_is_the_corner_cube_but_for_its_strategy():
+    # the firmware example simulates the same device and trial as scenarios/cube_corner.yaml
+    cube, fw = (yaml.safe_load(p.read_text()) for p in (EXAMPLE_DIR.parent / "cube_corner.yaml", CUBE))
+    for raw in (cube, fw):
+        for key in ("name", "description", "strategy"):
+            raw.pop(key)
+    assert fw == cube
+
+
+def test_cube_law_matches_python_lqr_tick_by_tick():
+    # both laws fed the same readings, tick by tick (those of the Python trial). The firmware computes
+    # in float32, Python in float64: a dot product of m terms in floating point is within
+    # gamma_m = m u / (1 - m u) of sum |g_i| |z_i| (Higham, Accuracy and Stability of Numerical
+    # Algorithms, 2nd ed., 2002, eq. 3.5), u = 2^-24 for binary32. Per tick m = 8 readings + 6 held
+    # commands, plus three more roundings per term (the reading and the gain to float32, the sum
+    # to a float): gamma_(m+3). The held commands carry earlier ticks' differences through the gains on
+    # them (row sums rho < 1): the per-tick bound over 1 - rho (a geometric series).
+    short = ["trial.duration=2 s", "trial.pushes=[{at: 1 s, impulse: [50 mN*m*s, 0, 0]}]"]
+    fw = load_scenario(CUBE, overrides=short)
+    lq = load_scenario(CUBE, overrides=short + [LQR_TWIN])
+    trace = run_trial(lq).trace
+    device = Device3D.from_scenario(fw)
+    rng = np.random.default_rng(0)
+    laws = fw.strategy.build(device, rng=rng), lq.strategy.build(device, rng=rng)
+    reading, volts = Reading(), []
+    cols = [trace.m_tilt_x, trace.m_tilt_y, trace.m_rate_x, trace.m_rate_y, trace.m_rate_z,
+            trace.m_w1, trace.m_w2, trace.m_w3]
+    ticks = range(0, trace.n, fw.control_steps)
+    for k in ticks:
+        x = [float(c[k]) for c in cols]
+        reading.t_s = k * fw.world.step
+        reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = tuple(x[:2]), tuple(x[2:5]), tuple(x[5:])
+        volts.append([np.clip(law.command_vector(reading, 3), -24.0, 24.0) for law in laws])
+    volts = np.array(volts)                                   # [tick, law, wheel]
+    g = np.abs(laws[1]._G)                                    # the Python law's gains on [reading, held commands]
+    n_x = 8
+    z_max = np.concatenate([np.abs(np.array(cols))[:, :trace.n].max(axis=1), np.full(g.shape[1] - n_x, 24.0)])
+    m = g.shape[1] + 3
+    rho = g[:, n_x:].sum(axis=1).max()
+    assert rho < 1
+    bound = (m * F32 / (1 - m * F32)) * (g @ z_max).max() / (1 - rho)
+    assert bound < 0.01                                       # small enough for the check to mean something
+    diff = np.abs(volts[:, 0] - volts[:, 1]).max()
+    print(f"float32 vs float64 law: {diff:.3g} V, bound {bound:.3g} V")
+    assert diff <= bound, (diff, bound)
+    assert diff > 0                                           # the firmware really ran in float32
+
+
+def test_cube_trial_matches_python_lqr_trial():
+    # The whole trial (6 s, pushes about x and y) against the Python multi-wheel lqr's. Tolerances:
+    # the laws differ by float32 rounding, under 1e-2 V a tick (test above), but the readings go
+    # through the wheel encoders (2048 counts/rev: one count moved in a 2 ms period is 1.53 rad/s,
+    # about 0.14 V through a wheel-speed gain of 0.09 V s/rad), so a state a hair off can read one
+    # count apart and the traces part by more than the per-tick bound; no closed-form bound for
+    # that. Measured when written: tilt within 2.4e-6 rad, wheel speeds within 0.10 rad/s. The
+    # limits, 1e-4 rad (0.006 deg) and 2 rad/s (0.5% of the 400 rad/s peak), are 40x and 20x that:
+    # a law that differed by a gain or a sign would miss them by far (test_a_flipped_wheel_falls).
+    fw, lq = run_trial(load_scenario(CUBE)), run_trial(load_scenario(CUBE, overrides=[LQR_TWIN]))
+    assert fw.outcome == lq.outcome == "balanced"
+    a, b = fw.trace, lq.trace
+    assert a.n == b.n == 6000
+    for name in ("tilt_x", "tilt_y"):
+        np.testing.assert_allclose(getattr(a, name)[:a.n], getattr(b, name)[:b.n], rtol=0, atol=1e-4, err_msg=name)
+    for i in (1, 2, 3):
+        np.testing.assert_allclose(a.wheel(i, "speed"), b.wheel(i, "speed"), rtol=0, atol=2.0, err_msg=f"wheel {i}")
+    assert set(a.phases) <= {"fw 1", "fw 2"}                 # balance, or a command at the supply
+
+
+@pytest.mark.parametrize("wheel", [1, 3])
+def test_a_flipped_wheel_falls(wheel):
+    # one motor wired the wrong way round: that wheel pushes the body further over
+    sc = load_scenario(CUBE, overrides=[f"strategy.defines={{FLIP_WHEEL: {wheel}}}", "trial.duration=3 s",
+                                        "trial.pushes=[]", "trial.stop_early=true"])
+    result = run_trial(sc)
+    assert result.outcome == "fell", result.outcome
+    assert result.fell_at_s < 3.0
+
+
+# ----------------------------------------------------------------------------- crashes are outcomes
+
+CRASHING = """
+#include "cube_gains.h"
+#include <stdlib.h>
+static wb_balance_state_t law;
+static volatile int zero = 0;
+void wb_init(const wb_config_t *cfg) { (void)cfg; wb_balance_reset(&law); }
+void wb_step(const wb_input_t *in, wb_output_t *out) {
+    double x[8] = {in->tilt_rad[0], in->tilt_rad[1], in->rates_rad_s[0], in->rates_rad_s[1],
+                   in->rates_rad_s[2], in->wheels_speed_rad_s[0], in->wheels_speed_rad_s[1],
+                   in->wheels_speed_rad_s[2]}, v[3];
+    if (in->t_us >= 100000) {   /* tick 50 at 500 Hz */
+#if KIND == 1
+        *(volatile int *)0 = 1;
+#elif KIND == 2
+        abort();
+#elif KIND == 3
+        out->volts = 1000 / zero;
+#elif KIND == 4
+        for (;;) { }
+#endif
+    }
+    wb_balance_volts(&law, x, v);
+    for (int j = 0; j < 3; j++) out->wheels_volts[j] = (float)v[j];
+}
+"""
+
+
+@linux_only
+@pytest.mark.parametrize("kind, how", [(1, "SIGSEGV"), (2, "SIGABRT"), (3, "SIGFPE")])
+def test_a_crash_is_strategy_failed_with_the_signal_and_the_tick(tmp_path, kind, how):
+    sc = cube_scenario(tmp_path, CRASHING, defines={"KIND": kind}, trial={"duration": "0.3 s"})
+    result = run_trial(sc)
+    assert result.outcome == "strategy_failed"
+    assert how in result.message and "at control tick 50 (t = 0.1000 s)" in result.message
+    np.testing.assert_allclose(result.ended_at_s, 0.1, rtol=0, atol=1e-12)
+    # the rows the child wrote before it died are this process's: the same as a trial that goes on
+    same = run_trial(cube_scenario(tmp_path, CRASHING, defines={"KIND": 0}, trial={"duration": "0.3 s"}))
+    assert result.trace.n == 101
+    for name in ("tilt_x", "tilt_y", "rate_z", "w1_speed", "w3_speed", "m_tilt_y", "m_w2"):
+        np.testing.assert_array_equal(getattr(result.trace, name)[:101], getattr(same.trace, name)[:101], err_msg=name)
+    np.testing.assert_array_equal(result.trace.w2_voltage[:100], same.trace.w2_voltage[:100])
+    assert result.trace.w2_voltage[100] == 0.0                 # nothing applied after the failure
+
+
+@linux_only
+def test_an_endless_loop_is_stopped_at_its_tick(tmp_path):
+    sc = cube_scenario(tmp_path, CRASHING, defines={"KIND": 4}, trial={"duration": "0.3 s"})
+    result = run_trial(sc, strategy_budget_s=1.0)
+    assert result.outcome == "strategy_failed"
+    assert "did not return" in result.message and "at control tick 50 (t = 0.1000 s)" in result.message
+
+
+def _point(path: str) -> tuple[str, str | None]:
+    result = run_trial(load_scenario(path))
+    return result.outcome, result.message
+
+
+@linux_only
+def test_a_crash_does_not_end_a_run_of_several_trials(tmp_path):
+    # two points, as a sweep runs them (sim.run.parallel.run_tasks, in this process): the first
+    # crashes, the second still runs to its end
+    paths = []
+    for kind in (1, 0):
+        folder = tmp_path / f"kind{kind}"
+        folder.mkdir()
+        paths.append(str(cube_scenario(folder, CRASHING, defines={"KIND": kind}, trial={"duration": "0.5 s"},
+                                       write_only=True)))
+    done = dict(run_tasks(_point, enumerate(paths), workers=1))
+    assert done[0][0] == "strategy_failed" and "SIGSEGV" in done[0][1]
+    assert done[1] == ("balanced", None)
+
+
+# ----------------------------------------------------------------------------- isolation of 3D plug-ins
+
+PLUGIN = '''
+import ctypes, faulthandler
+from sim.strategies import Reading, Strategy
+
+
+class HoldsThenSegfaults(Strategy):
+    """1 V on every wheel, then a read of address 0 at 0.1 s (SIGSEGV) when CRASH is set."""
+    CRASH = {crash}
+
+    def decide(self, reading: Reading):
+        if self.CRASH and reading.t_s >= 0.1:
+            faulthandler.disable()
+            ctypes.string_at(0)
+        self.ticks = getattr(self, "ticks", 0) + 1
+        self.extra_metrics = {{"ticks": self.ticks}}
+        return [1.0, -1.0, 0.5]
+'''
+
+
+def plugin_scenario(folder: Path, *, crash: bool):
+    (folder / "law.py").write_text(PLUGIN.format(crash=crash))
+    raw = yaml.safe_load(CUBE.read_text())
+    raw["strategy"] = {"plugin": "law.py:HoldsThenSegfaults"}
+    raw["trial"].update(duration="0.3 s", pushes=[])
+    path = folder / "plugin.yaml"
+    path.write_text(yaml.safe_dump(raw, sort_keys=False))
+    return load_scenario(path)
+
+
+@linux_only
+def test_a_3d_plugin_runs_isolated_with_the_same_numbers(tmp_path):
+    sc = plugin_scenario(tmp_path, crash=False)
+    isolated, here = run_trial(sc), run_trial(sc, isolate=False)
+    assert isinstance(isolated.strategy, isolation.StrategyRecord)     # it ran in the child
+    assert not isinstance(here.strategy, isolation.StrategyRecord)
+    assert isolated.strategy.extra_metrics == {"ticks": 150} == here.strategy.extra_metrics
+    a, b = isolated.trace, here.trace
+    assert a.n == b.n == 300
+    for name in a.FLOAT_COLUMNS:
+        np.testing.assert_array_equal(getattr(a, name)[:a.n], getattr(b, name)[:b.n], err_msg=name)
+
+
+@linux_only
+def test_a_3d_plugin_that_crashes_is_strategy_failed(tmp_path):
+    result = run_trial(plugin_scenario(tmp_path, crash=True))
+    assert result.outcome == "strategy_failed"
+    assert "SIGSEGV" in result.message and "at control tick 50 (t = 0.1000 s)" in result.message
+    assert result.trace.n == 101 and result.trace.w1_voltage[99] == 1.0 and result.trace.w1_voltage[100] == 0.0

@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import replace
 
 import numpy as np
 
@@ -38,7 +37,7 @@ from .trial_common import final_outcome as _final_outcome
 from .trial_common import with_strategy
 from .trial_isolated import PublishedTrace as _PublishedTrace
 from .trial_isolated import WatchedClock as _WatchedClock
-from .trial_isolated import lost_child_message
+from .trial_isolated import lost_child_message, run_watched
 
 OUTCOMES = ("balanced", "fell", "not_caught", "diverged", "strategy_failed", "completed")
 ABSURD_RATE_RAD_S = 1e4          # a body spinning at 1,600 rev/s is a numerical blow-up
@@ -129,20 +128,11 @@ def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step)
         return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
                          visual=None, on_step=on_step)
     clock = _WatchedClock(budget, beat)
-
-    def work():
-        result = _simulate(scenario, device, trace, clock, seed=seed, stop_early=stop_early, visual=None,
-                           on_step=on_step)
-        # pickling the strategy's attributes may run its code as well
-        strategy = clock.after(lambda: isolation.pack_strategy(result.strategy), None)
-        return replace(result, trace=None, device=None, scenario=None, strategy=strategy), trace.n, trace.phases
-
-    sent, lost = isolation.run_in_child(work, beat=beat, mirror=on_step)
-    if lost is not None:
-        return _lost_child_result(scenario, device, trace, budget, lost)
-    result, trace.n, trace.phases = sent
-    return replace(result, trace=trace, device=device, scenario=scenario,
-                   strategy=isolation.unpack_strategy(result.strategy, device=device))
+    return run_watched(
+        lambda: _simulate(scenario, device, trace, clock, seed=seed, stop_early=stop_early, visual=None,
+                          on_step=on_step),
+        trace=trace, clock=clock, scenario=scenario, device=device, on_step=on_step,
+        lost_result=lambda lost: _lost_child_result(scenario, device, trace, budget, lost))
 
 
 def _lost_child_result(scenario, device, trace, budget: float, lost: isolation.LostChild) -> TrialResult:

@@ -21,7 +21,7 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -37,7 +37,7 @@ from ..strategies import plugins_in
 from ..strategies.base import Reading
 from .trace3d import Trace3D
 from .trial_common import TrialResult, close_trace, describe, describe_unread, final_outcome, with_strategy
-from .trial_isolated import PublishedTrace3D, WatchedClock, lost_child_message
+from .trial_isolated import PublishedTrace3D, WatchedClock, lost_child_message, run_watched
 
 ABSURD_RATE_RAD_S = 1e4          # as the planar runner
 ABSURD_WHEEL_FACTOR = 20.0
@@ -122,19 +122,10 @@ def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step)
         return _simulate(scenario, device, _trace(scenario, device), StrategyClock(budget),
                          seed=seed, stop_early=stop_early, on_step=on_step)
     clock = WatchedClock(budget, beat)
-
-    def work():
-        result = _simulate(scenario, device, trace, clock, seed=seed, stop_early=stop_early, on_step=on_step)
-        # pickling the strategy's attributes may run its code as well
-        strategy = clock.after(lambda: isolation.pack_strategy(result.strategy), None)
-        return replace(result, trace=None, device=None, scenario=None, strategy=strategy), trace.n, trace.phases
-
-    sent, lost = isolation.run_in_child(work, beat=beat, mirror=on_step)
-    if lost is not None:
-        return _lost_child_result(scenario, device, trace, budget, lost)
-    result, trace.n, trace.phases = sent
-    return replace(result, trace=trace, device=device, scenario=scenario,
-                   strategy=isolation.unpack_strategy(result.strategy, device=device))
+    return run_watched(
+        lambda: _simulate(scenario, device, trace, clock, seed=seed, stop_early=stop_early, on_step=on_step),
+        trace=trace, clock=clock, scenario=scenario, device=device, on_step=on_step,
+        lost_result=lambda lost: _lost_child_result(scenario, device, trace, budget, lost))
 
 
 def _lost_child_result(scenario, device, trace, budget: float, lost: isolation.LostChild) -> TrialResult3D:

@@ -10,6 +10,7 @@ to its last strategy call are the parent's rows even when the child never comes 
 from __future__ import annotations
 
 import time
+from dataclasses import replace
 
 from ..core import isolation
 from ..core.budget import AFTER_S, StrategyClock
@@ -126,3 +127,21 @@ def lost_child_message(lost: isolation.LostChild, *, budget_s: float, step_s: fl
         return f"building the strategy failed: {cause}"
     k = lost.step
     return f"{cause} at control tick {k // control_steps} (t = {k * step_s:.4f} s)"
+
+
+def run_watched(simulate, *, trace, clock: WatchedClock, scenario, device, on_step, lost_result):
+    """`simulate()` (the trial into the shared `trace`, timed by `clock`) in a forked child; returns its
+    result with this process's trace, scenario, device and a `StrategyRecord`, or, when the child is
+    lost, `lost_result(lost)` (`isolation.LostChild`)."""
+    def work():
+        result = simulate()
+        # pickling the strategy's attributes may run its code as well
+        strategy = clock.after(lambda: isolation.pack_strategy(result.strategy), None)
+        return replace(result, trace=None, device=None, scenario=None, strategy=strategy), trace.n, trace.phases
+
+    sent, lost = isolation.run_in_child(work, beat=clock.beat, mirror=on_step)
+    if lost is not None:
+        return lost_result(lost)
+    result, trace.n, trace.phases = sent
+    return replace(result, trace=trace, device=device, scenario=scenario,
+                   strategy=isolation.unpack_strategy(result.strategy, device=device))
