@@ -178,29 +178,29 @@ def test_cube_law_matches_python_lqr_tick_by_tick():
     fw = load_scenario(CUBE, overrides=short)
     lq = load_scenario(CUBE, overrides=short + [LQR_TWIN])
     trace = run_trial(lq).trace
-    device = Device3D.from_scenario(fw)
     rng = np.random.default_rng(0)
-    laws = fw.strategy.build(device, rng=rng), lq.strategy.build(device, rng=rng)
-    reading, volts = Reading(), []
-    cols = [trace.m_tilt_x, trace.m_tilt_y, trace.m_rate_x, trace.m_rate_y, trace.m_rate_z,
-            trace.m_w1, trace.m_w2, trace.m_w3]
-    ticks = range(0, trace.n, fw.control_steps)
-    for k in ticks:
-        x = [float(c[k]) for c in cols]
-        reading.t_s = k * fw.world.step
-        reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = tuple(x[:2]), tuple(x[2:5]), tuple(x[5:])
-        volts.append([np.clip(law.command_vector(reading, 3), -24.0, 24.0) for law in laws])
-    volts = np.array(volts)                                   # [tick, law, wheel]
-    g = np.abs(laws[1]._G)                                    # the Python law's gains on [reading, held commands]
+    firmware, python = (sc.strategy.build(Device3D.from_scenario(sc), rng=rng) for sc in (fw, lq))
+    # the readings, one row per state in the design's order, at the control ticks
+    x_ticks = np.array([trace.m_tilt_x, trace.m_tilt_y, trace.m_rate_x, trace.m_rate_y, trace.m_rate_z,
+                        trace.m_w1, trace.m_w2, trace.m_w3])[:, :trace.n:fw.control_steps]
+
+    def commands(law) -> np.ndarray:
+        """The law's volts at every tick, clamped to the supply as the drive does (sim/run/trial3d.py)."""
+        reading, out = Reading(), np.empty((x_ticks.shape[1], 3))
+        for j, x in enumerate(x_ticks.T.tolist()):
+            reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = tuple(x[:2]), tuple(x[2:5]), tuple(x[5:])
+            out[j] = law.command_vector(reading, 3)
+        return np.clip(out, -24.0, 24.0)
+
+    g = np.abs(python._G)                                     # the Python law's gains on [reading, held commands]
     n_x = 8
-    z_max = np.concatenate([np.abs(np.array(cols))[:, :trace.n].max(axis=1), np.full(g.shape[1] - n_x, 24.0)])
+    z_max = np.concatenate([np.abs(x_ticks).max(axis=1), np.full(g.shape[1] - n_x, 24.0)])
     m = g.shape[1] + 3
     rho = g[:, n_x:].sum(axis=1).max()
     assert rho < 1
     bound = (m * F32 / (1 - m * F32)) * (g @ z_max).max() / (1 - rho)
     assert bound < 0.01                                       # small enough for the check to mean something
-    diff = np.abs(volts[:, 0] - volts[:, 1]).max()
-    print(f"float32 vs float64 law: {diff:.3g} V, bound {bound:.3g} V")
+    diff = np.abs(commands(firmware) - commands(python)).max()
     assert diff <= bound, (diff, bound)
     assert diff > 0                                           # the firmware really ran in float32
 
