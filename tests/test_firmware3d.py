@@ -359,3 +359,20 @@ def test_a_3d_plugin_that_crashes_is_strategy_failed(tmp_path):
     assert result.outcome == "strategy_failed"
     assert "SIGSEGV" in result.message and "at control tick 50 (t = 0.1000 s)" in result.message
     assert result.trace.n == 101 and result.trace.w1_voltage[99] == 1.0 and result.trace.w1_voltage[100] == 0.0
+
+
+@linux_only
+def test_every_wheels_command_is_recorded_when_one_is_at_the_supply(tmp_path):
+    # wheel 1 at the full 24 V supply: the other wheels' commands are still the trace's (they once
+    # were left at 0 after the first wheel at the supply), and the tick counts once as saturated
+    src = """
+void wb_init(const wb_config_t *cfg) { (void)cfg; }
+void wb_step(const wb_input_t *in, wb_output_t *out) {
+    (void)in; out->wheels_volts[0] = 24.0f; out->wheels_volts[1] = 5.0f; out->wheels_volts[2] = -3.0f;
+}
+"""
+    result = run_trial(cube_scenario(tmp_path, src, trial={"duration": "0.1 s"}))
+    tr = result.trace
+    for i, v in enumerate((24.0, 5.0, -3.0), start=1):
+        np.testing.assert_array_equal(tr.wheel(i, "voltage"), v)
+    assert result.saturated_ticks == result.control_ticks == 50

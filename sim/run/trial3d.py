@@ -270,12 +270,13 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
             if name is not None:
                 mode, name = trace.phase_code(name), None
             trace.mode[k] = mode
-            for i in wheels:
+            at_limit = False
+            for i in wheels:     # every wheel's command recorded; the tick counts once if any is at the supply
                 v = volts[i]
                 v_c[i][k] = 0.0 if open_circuit else v
                 if v >= at_supply or v <= -at_supply:
-                    saturated += 1
-                    break
+                    at_limit = True
+            saturated += at_limit
             if wants_balance:   # no 3D law swings up: once fallen, the body stays fallen
                 if tilt <= release and strategy.balancing:
                     if catch_k is None and fell_k is None:
