@@ -376,3 +376,28 @@ void wb_step(const wb_input_t *in, wb_output_t *out) {
     for i, v in enumerate((24.0, 5.0, -3.0), start=1):
         np.testing.assert_array_equal(tr.wheel(i, "voltage"), v)
     assert result.saturated_ticks == result.control_ticks == 50
+
+
+def test_a_one_wheel_hinge_device_gets_the_attitude_fields_too(tmp_path):
+    # the desk example (planar path): tilt_rad[0] and rates_rad_s[0] mirror angle_rad and rate_rad_s,
+    # the other entries are 0; a mismatch writes a non-finite volt, which ends the trial
+    src = """
+#include <math.h>
+void wb_init(const wb_config_t *cfg) { (void)cfg; }
+void wb_step(const wb_input_t *in, wb_output_t *out) {
+    int same = in->tilt_rad[0] == in->angle_rad && in->rates_rad_s[0] == in->rate_rad_s
+               && in->tilt_rad[1] == 0.0f && in->rates_rad_s[1] == 0.0f && in->rates_rad_s[2] == 0.0f
+               && in->angle_rad != 0.0f;
+    out->volts = same ? 0.0f : NAN;
+}
+"""
+    (tmp_path / "fw.c").write_text(src)
+    raw = yaml.safe_load((EXAMPLE_DIR / "desk_firmware.yaml").read_text())
+    raw["drive"].pop("pwm")
+    raw["strategy"] = {"kind": "firmware", "sources": ["fw.c"]}
+    raw["trial"].update(duration="0.1 s", pushes=[])
+    path = tmp_path / "desk.yaml"
+    path.write_text(yaml.safe_dump(raw, sort_keys=False))
+    result = run_trial(load_scenario(path), isolate=False)
+    assert result.outcome != "strategy_failed", result.message
+    assert result.control_ticks == 50
