@@ -279,6 +279,10 @@ def test_a_crash_is_strategy_failed_with_the_signal_and_the_tick(tmp_path, kind,
         np.testing.assert_array_equal(getattr(result.trace, name)[:101], getattr(same.trace, name)[:101], err_msg=name)
     np.testing.assert_array_equal(result.trace.w2_voltage[:100], same.trace.w2_voltage[:100])
     assert result.trace.w2_voltage[100] == 0.0                 # nothing applied after the failure
+    # the saturated ticks, counted again from the shared rows (the child's count died with it): the
+    # ticks before the crash at which some wheel's command was at the 24 V supply
+    at_supply = np.abs(np.array([same.trace.wheel(i, "voltage")[:100:2] for i in (1, 2, 3)])) >= 24.0
+    assert result.saturated_ticks == int(at_supply.any(axis=0).sum()) > 0
 
 
 @linux_only
