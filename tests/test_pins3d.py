@@ -3,7 +3,10 @@
 `tests/pins/scenarios3d_main.json` holds, per 3D scenario file, SHA-256 digests of its trial's trace
 columns (bit for bit), its CSV file and its metrics (wall-clock keys left out), computed by the code
 on main at commit 7b62bdc, before `body.mount: floor` was added. The floor keys are optional: a hinge or
-ball scenario must run through exactly the old arithmetic. Refresh with
+ball scenario must run through exactly the old arithmetic. cube_corner's digests were refreshed once, when
+the 3D runner's recording of voltages was fixed (it had left the other wheels' voltage columns at 0 on a
+tick where one wheel reached the supply; the motors had the right voltage): compared column by column,
+only wheel2_voltage_v and wheel3_voltage_v moved. Refresh with
 `python tests/test_pins3d.py > tests/pins/scenarios3d_main.json` only for a change meant to alter them.
 """
 

@@ -30,6 +30,8 @@ class Device3D(LinearSpec):
     floor: FloorSpec | None = None
     """A body on the floor (`body.mount: floor`): its contact figures; `mount` is then the mount the law
     designs for, a hinge at the balance edge or a ball at the balance corner (`sim.model.floor`)."""
+    angle_counts_per_rev: int = 0      # the attitude encoders' counts per rev (sensors.angle), 0 when none is set
+    wheel_counts_per_rev: int = 0      # each wheel encoder's counts per rev (sensors.wheel), 0 when none is set
 
     @classmethod
     def from_scenario(cls, sc) -> "Device3D":
@@ -50,7 +52,9 @@ class Device3D(LinearSpec):
                    gravity_m_s2=sc.world.gravity, body_mass_kg=body.mass_kg,
                    body_com_m=body.com_m, body_inertia_com_kg_m2=body.inertia_com_kg_m2, wheels=tuple(units),
                    pivot_coulomb_n_m=sc.body.pivot_friction.coulomb, pivot_viscous_n_m_s=sc.body.pivot_friction.viscous,
-                   control_rate_hz=sc.sensors.rate, delay_s=sc.sensors.delay, supply_v=sc.drive.supply)
+                   control_rate_hz=sc.sensors.rate, delay_s=sc.sensors.delay, supply_v=sc.drive.supply,
+                   angle_counts_per_rev=(sc.sensors.angle.counts_per_rev if sc.sensors.angle is not None else None) or 0,
+                   wheel_counts_per_rev=sc.sensors.wheel.counts_per_rev or 0)
 
     def linear_spec(self) -> LinearSpec:
         """The multi-input linearisation's input: the device itself (a `LinearSpec`)."""

@@ -39,11 +39,12 @@ def column_names(*, ball: bool, n_wheels: int, floor: bool = False) -> tuple[tup
 class Trace3D(Trace):
     """Preallocated columns (`column_names`) for `capacity` rows; `n` rows are filled."""
 
-    def __init__(self, capacity: int, *, step_s: float, ball: bool, n_wheels: int, floor: bool = False):
+    def __init__(self, capacity: int, *, step_s: float, ball: bool, n_wheels: int, floor: bool = False,
+                 shared: bool = False):
         self.ball, self.n_wheels = ball, n_wheels
         self.csv_names = column_names(ball=ball, n_wheels=n_wheels, floor=floor)
         self.FLOAT_COLUMNS = tuple(attr for attr, _ in self.csv_names)
-        super().__init__(capacity, step_s=step_s)
+        super().__init__(capacity, step_s=step_s, shared=shared)   # shared: an isolated trial (`Trace`)
 
     def columns(self) -> dict[str, np.ndarray]:
         return {name: getattr(self, attr)[: self.n] for attr, name in self.csv_names}
