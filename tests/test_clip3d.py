@@ -158,19 +158,34 @@ def test_clip_poses_the_body_as_the_engine_had_it(name):
 
 
 def test_a_floor_mount_stands_on_the_ground_plane_without_a_stand():
-    """Room for `body.mount: floor` (another issue): the scene reads only the device's mount, upright
-    attitude, centre of mass and wheels, so a stand-in device with mount "floor" can try it."""
-    from types import SimpleNamespace
-    sc = load_scenario(ROOT / "scenarios" / "cube_corner.yaml")
-    dev = Device3D.from_scenario(sc)
-    floor = SimpleNamespace(mount="floor", upright=dev.upright, com_m=dev.com_m, wheels=dev.wheels)
-    scene = Scene3D(sc, floor, width=320, height=200, supersample=1)
+    """A body on the floor (`body.mount: floor`) is drawn on the ground plane z = 0, with no stand."""
+    sc = load_scenario(ROOT / "scenarios" / "floor_cube.yaml")
+    scene = Scene3D(sc, Device3D.from_scenario(sc), width=320, height=200, supersample=1)
+    assert scene.mount == "floor"
     assert scene.layout.floor_z_m == 0.0 and scene.stand.faces == [] and scene.stand.spheres == []
-    ball = Scene3D(sc, dev, width=320, height=200, supersample=1)
+    corner = load_scenario(ROOT / "scenarios" / "cube_corner.yaml")
+    ball = Scene3D(corner, Device3D.from_scenario(corner), width=320, height=200, supersample=1)
     assert ball.layout.floor_z_m < 0 and len(ball.stand.faces) > 0 and len(ball.stand.spheres) == 1
     # the ground plane is drawn at z = 0: a point of it in front of the device shows the floor colour
-    img = np.asarray(scene.draw_image(scene.attitude(0.0), [0.0, 0.0, 0.0]))
-    x, y = scene.camera.project([[0.1, -0.3, 0.0]])[0][0]   # before the device, on the ground, off the grid lines
+    img = np.asarray(scene.draw_image(scene.attitude(0.0), [0.0]))
+    x, y = scene.camera.project([[0.1, -0.15, 0.0]])[0][0]   # before the device, on the ground, off the grid lines
     from sim.media.render import COLOURS
     floor_rgb = 255 * np.array(COLOURS["floor"][:3])
     assert np.abs(img[int(y), int(x)].astype(float) - floor_rgb).max() < 3
+
+
+def test_a_cube_that_fell_on_the_floor_is_drawn_lying_on_it():
+    # Left alone at 15 deg the floor cube tips onto a face. The clip poses it from the trace (its whole
+    # attitude and where its frame's origin is): resting, its lowest drawn point is on the floor
+    # (geometry: a body lying on a plane touches it; 2 mm for the engine's contact tolerance).
+    from sim.media.clip3d import TrialPainter3D
+    from sim.run.trial3d import run_trial3d
+    sc = load_scenario(ROOT / "scenarios" / "floor_cube.yaml",
+                       overrides=("trial.start.angle=15 deg", "strategy.kind=coast", "trial.pushes=[]",
+                                  "trial.duration=1.5"))
+    result = run_trial3d(sc)
+    painter = TrialPainter3D(result, width=160, height=120, supersample=1)
+    r_wb, _, origin = painter.pose_at(result.trace.n - 1)
+    verts = painter.scene.body.verts @ r_wb.T + origin
+    assert math.degrees(float(result.trace.tilt[result.trace.n - 1])) > 35     # it did fall
+    assert abs(float(verts[:, 2].min())) < 2e-3

@@ -73,7 +73,7 @@ def _fall(sc, theta0, steps):
         rows = []
         for _ in range(steps):
             tx = read()[0]
-            x, y, touching, ratio = contact()
+            x, y, _, touching, ratio = contact()
             rows.append((tx, x, y, touching, ratio))
             advance(None, [0.0])
         return device, np.array(rows)

@@ -43,16 +43,20 @@ class TrialPainter3D:
         self.scene = Scene3D(result.scenario, result.device, width=width, height=self.panel.top,
                              camera=camera or "oblique", supersample=supersample)
         self._full = (width, height)
-        self._cols = [tr.tilt_x, tr.tilt_y if tr.ball else None, tr.heading if tr.ball else None]
-        self._last = (np.eye(3), [0.0] * self.n_wheels)
+        # a free body on the floor records its whole attitude and where its frame's origin is
+        self._cols = [tr.tilt_x, getattr(tr, "tilt_y", None), getattr(tr, "heading", None)]
+        self._origin = ([tr.contact_x, tr.contact_y, tr.contact_z] if hasattr(tr, "contact_z") else None)
+        self._last = (np.eye(3), [0.0] * self.n_wheels, None)
 
-    def pose_at(self, k: int) -> tuple[np.ndarray, list]:
-        """(R_wb, wheel angles rad) of trace row k; the last finite pose when row k is not finite."""
+    def pose_at(self, k: int) -> tuple[np.ndarray, list, np.ndarray | None]:
+        """(R_wb, wheel angles rad, the body frame's origin m or None at the pivot) of trace row k; the
+        last finite pose when row k is not finite."""
         tr = self.result.trace
         tx, ty, h = (float(c[k]) if c is not None else 0.0 for c in self._cols)
         angles = [float(getattr(tr, f"w{i}_angle")[k]) for i in range(1, self.n_wheels + 1)]
-        if all(math.isfinite(v) for v in (tx, ty, h, *angles)):
-            self._last = (self.scene.attitude(tx, ty, h), angles)
+        origin = None if self._origin is None else np.array([float(c[k]) for c in self._origin])
+        if all(math.isfinite(v) for v in (tx, ty, h, *angles)) and (origin is None or np.all(np.isfinite(origin))):
+            self._last = (self.scene.attitude(tx, ty, h), angles, origin)
         return self._last
 
     def paint(self, t_s: float):
@@ -62,13 +66,13 @@ class TrialPainter3D:
         from .overlay import row_index
         tr = self.result.trace
         k = row_index(tr, t_s)
-        r_wb, angles = self.pose_at(k)
+        r_wb, angles, origin = self.pose_at(k)
         fades = [mark_fade(float(getattr(tr, f"w{i}_speed")[k]) / self.fps) for i in range(1, self.n_wheels + 1)]
-        scene = self.scene.draw_image(r_wb, angles, mark_fade=fades)
+        scene = self.scene.draw_image(r_wb, angles, mark_fade=fades, origin=origin)
         frame = Image.new("RGB", self._full, (16, 24, 34))
         frame.paste(scene, (0, 0))
         r = readout3d(self.result, t_s)
-        arrow = self.scene.push_arrow(r_wb, r.push_n_m_s) if r.push_n_m_s is not None else None
+        arrow = self.scene.push_arrow(r_wb, r.push_n_m_s, origin) if r.push_n_m_s is not None else None
         return self.panel.draw(frame, r, push_arrow=arrow)
 
     def close(self) -> None:   # nothing held outside Python objects (no engine client)

@@ -206,17 +206,19 @@ class Scene3D:
         """R_wb of a trace row (`body_to_world` with this device's upright attitude)."""
         return body_to_world(tilt_x, tilt_y, heading, self.upright)
 
-    def _posed(self, r_wb: np.ndarray, wheel_angles) -> list[tuple[_Group, np.ndarray, np.ndarray]]:
-        """(group, rotation to world, origin in world) of every piece."""
-        pieces = [(self.stand, np.eye(3), np.zeros(3)), (self.body, r_wb, np.zeros(3))]
+    def _posed(self, r_wb: np.ndarray, wheel_angles, origin=None) -> list[tuple[_Group, np.ndarray, np.ndarray]]:
+        """(group, rotation to world, origin in world) of every piece; `origin`: the body frame's origin
+        in the world, m (the pivot at 0 unless the body is free on the floor)."""
+        o = np.zeros(3) if origin is None else np.asarray(origin, dtype=float)
+        pieces = [(self.stand, np.eye(3), np.zeros(3)), (self.body, r_wb, o)]
         for (group, basis, at, _), angle in zip(self.wheels, wheel_angles):
-            pieces.append((group, r_wb @ basis @ rot_x(angle), r_wb @ at))
+            pieces.append((group, r_wb @ basis @ rot_x(angle), r_wb @ at + o))
         return pieces
 
     # -- drawing --------------------------------------------------------------------------------
-    def draw_image(self, r_wb: np.ndarray, wheel_angles, *, mark_fade=()):
-        """The picture (a PIL RGB image, width x height) at body attitude `r_wb` and wheel angles (rad,
-        relative to the body). `mark_fade` : per wheel 0..1, how far its spin mark is washed into the
+    def draw_image(self, r_wb: np.ndarray, wheel_angles, *, mark_fade=(), origin=None):
+        """The picture (a PIL RGB image, width x height) at body attitude `r_wb`, the body frame's origin
+        at `origin` (world, m; None: at the pivot) and wheel angles (rad, relative to the body). `mark_fade` : per wheel 0..1, how far its spin mark is washed into the
         wheel (a fast wheel's mark would jump about between frames).
 
         Only the box around what moves (and the stand) is drawn, at `supersample` times the size,
@@ -224,7 +226,7 @@ class Scene3D:
         """
         from PIL import ImageDraw
 
-        pieces = self._posed(r_wb, wheel_angles)
+        pieces = self._posed(r_wb, wheel_angles, origin)
         dist, polys, fills, outlines, pixels = [], [], [], [], []
         eye = np.asarray(self._cam.eye)
         for gi, (group, rot, origin) in enumerate(pieces):
@@ -345,7 +347,7 @@ class Scene3D:
                     draw.line(cam.project(seg)[0].ravel().tolist(), fill=(150, 150, 142, 120), width=self.ss)
         return img
 
-    def push_arrow(self, r_wb: np.ndarray, impulse_world) -> tuple | None:
+    def push_arrow(self, r_wb: np.ndarray, impulse_world, origin=None) -> tuple | None:
         """Pixel tail and head of an arrow towards the body's upper part, along the way an angular
         impulse (N m s, world frame) first moves it (omega x r, omega along the impulse for a
         roughly round body); None when the push turns the body about its own centre line."""
@@ -358,7 +360,7 @@ class Scene3D:
         if np.linalg.norm(way) < 1e-12 * max(np.linalg.norm(impulse_world), 1e-300) * n:
             return None
         way = way / np.linalg.norm(way)
-        head = tip - way * 0.12 * self.layout.reach_m
+        head = tip - way * 0.12 * self.layout.reach_m + (0.0 if origin is None else np.asarray(origin, dtype=float))
         tail = head - way * 0.5 * self.layout.reach_m
         px, _ = self.camera.project([tail, head])
         return tuple(px[0]), tuple(px[1])

@@ -20,7 +20,7 @@ Units and frames of the calls (as `sim.physics.engine3d.Engine3D`):
 - `read()` -> (tilt_x, tilt_y, heading, tilt_rad, body rate (wx, wy, wz) rad/s in the heading frame,
   wheel angles rad, wheel speeds rad/s relative to the body): the attitude relative to upright about the
   balancing contact (`sim.core.frames`); for an edge device tilt_x turns about the edge.
-- `contact()` -> (x, y of the balancing contact (the body frame's origin) in the world, m; 1.0 while
+- `contact()` -> (x, y, z of the balancing contact (the body frame's origin) in the world, m; 1.0 while
   the body touches the floor else 0.0; |F_t| / F_n of the body's floor contacts over the last step).
 - `advance(push_world, wheel_torques)`: each wheel's net torque about its axis, N m (the reaction acts on
   the body), and a push, N m in the world frame about the balancing contact, or None: applied as a force
@@ -195,21 +195,22 @@ class FloorEngine:
             external(body, BASE, (torque[0] - m[0], torque[1] - m[1], torque[2] - m[2]), world_frame, cid)
 
         def contact():
-            (px, py, _), (x, y, z, w) = pose
+            (px, py, pz), (x, y, z, w) = pose
             # the body frame's origin: the centre of mass minus R_wF c_F (v + 2w u x v + 2 u x (u x v))
             tx, ty, tz = 2.0 * (y * oz - z * oy), 2.0 * (z * ox - x * oz), 2.0 * (x * oy - y * ox)
             cxw = ox + w * tx + y * tz - z * ty
             cyw = oy + w * ty + z * tx - x * tz
+            czw = oz + w * tz + x * ty - y * tx
             found = contacts(body, plane, BASE, -1, cid)
             if not found:
-                return px - cxw, py - cyw, 0.0, 0.0
+                return px - cxw, py - cyw, pz - czw, 0.0, 0.0
             fn = fx = fy = 0.0
             for c in found:
                 fn += c[9]
                 f1, d1, f2, d2 = c[10], c[11], c[12], c[13]
                 fx += f1 * d1[0] + f2 * d2[0]
                 fy += f1 * d1[1] + f2 * d2[1]
-            return px - cxw, py - cyw, 1.0, (sqrt(fx * fx + fy * fy) / fn if fn > 0.0 else 0.0)
+            return px - cxw, py - cyw, pz - czw, 1.0, (sqrt(fx * fx + fy * fy) / fn if fn > 0.0 else 0.0)
 
         def advance(push_world, wheel_torques):
             if push_world is not None:

@@ -30,8 +30,8 @@ class FloorWatch:
 
     def __init__(self, contact, trace, floor, stop_early: bool):
         self.contact, self.trace, self.floor, self.stop_early = contact, trace, floor, stop_early
-        self.cols = (memoryview(trace.contact_x), memoryview(trace.contact_y), memoryview(trace.in_contact),
-                     memoryview(trace.friction_ratio))
+        self.cols = (memoryview(trace.contact_x), memoryview(trace.contact_y), memoryview(trace.contact_z),
+                     memoryview(trace.in_contact), memoryview(trace.friction_ratio))
         self.limit2 = floor.slip_limit_m ** 2
         self.origin = None        # the contact's (x, y) when balancing began
         self.slipped_k = None
@@ -42,11 +42,11 @@ class FloorWatch:
         """see(k, balancing) -> bool: record step k; True when the trial should end now as `slipped`
         (with stop_early). A closure with its lookups bound once: it runs every physics step."""
         contact, stop_early, limit2 = self.contact, self.stop_early, self.limit2
-        cx, cy, ct, cr = self.cols
+        cx, cy, cz, ct, cr = self.cols
 
         def see(k, balancing):
-            x, y, touching, ratio = contact()
-            cx[k], cy[k], ct[k], cr[k] = x, y, touching, ratio
+            x, y, z, touching, ratio = contact()
+            cx[k], cy[k], cz[k], ct[k], cr[k] = x, y, z, touching, ratio
             if not balancing or self.slipped_k is not None:
                 return False
             if self.origin is None:

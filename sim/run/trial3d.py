@@ -231,6 +231,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
         tilt_c[k], tx_c[k], rx_c[k] = tilt, tx, wx
         if ball:
             ty_c[k], hd_c[k], ry_c[k], rz_c[k] = ty, hd, wy, wz
+        elif ty_c is not None:   # a floor body on its edge: free in 3D, its whole attitude recorded
+            ty_c[k], hd_c[k] = ty, hd
         bad = not (-lim < wx < lim and -lim < wy < lim and -lim < wz < lim and tilt == tilt)
         for s, a, s_col, a_col, w_lim in zip(wspd, wang, ws_c, wa_c, wheel_limit):
             s_col[k], a_col[k] = s, a
