@@ -43,9 +43,12 @@ def _load(scenario: Optional[Path], overrides: Optional[List[str]], *, command: 
     return sc
 
 
+TAKES_3D = {"check"}   # commands (besides run and gains) that take 3D devices
+
+
 def _refuse_3d(sc, command: str) -> None:
     """One line (exit 2) for a command that does not take 3D devices yet, instead of a crash or a wrong answer."""
-    if not sc.is_planar:
+    if not sc.is_planar and command not in TAKES_3D:
         from .core.errors import InputError
         raise InputError(f"{sc.source}: `wheelbench {command}` takes one-wheel hinge devices only in this release; "
                          "this scenario describes a 3D device (wheels:, a ball mount, parts placed in 3D, a start "
@@ -287,17 +290,26 @@ def check(scenario: Optional[Path] = ScenarioArg,
           out: Path = typer.Option(Path("runs/check"), "--out", help="Output folder."),
           trials: Optional[int] = TrialsOpt, workers: Optional[int] = WorkersOpt,
           cluster: Optional[str] = ClusterOpt, set_: Optional[List[str]] = SetOpt, force: bool = ForceOpt):
-    """Judge a design: swing-up, hold, largest push, Monte Carlo, burst and thermal checks.
+    """Judge a design: swing-up, hold, largest push, Monte Carlo, burst and thermal checks (per wheel on 3D devices).
 
     Writes verdict.json, report.md and plots. Exit code 0 when every criterion passes, 1 when any fails.
     """
     from .core.options import check_trials
     from .core.outputs import check_out_path, prepare_out_dir
+    from .model.scenario_yaml import validate_loaded
     from .studies.verdict_report import print_verdict, write_check_outputs
     from .studies.verdicts import DEFAULT_TRIALS, run_check
     check_trials(trials)
     check_out_path(out)
     raw, where = _load_raw(scenario, set_, workers, cluster, command="check")  # validated there
+    sc = validate_loaded(raw, where=where)
+    if sc.body.mount == "floor":
+        from .core.errors import InputError
+        raise InputError(f"{sc.source}: body.mount: floor: `wheelbench check` takes hinge and ball mounts in this "
+                         "release; use `wheelbench run`")
+    if not sc.is_planar:   # a 3D device: its own battery and files
+        from .studies.verdict_report3d import write_check_outputs3d as write_check_outputs  # noqa: F811
+        from .studies.verdicts3d import run_check3d as run_check  # noqa: F811
     n = DEFAULT_TRIALS if trials is None else trials
     out_dir = prepare_out_dir(out, force=force)
     bar, update = progress("Monte Carlo")

@@ -44,7 +44,6 @@ def test_vector_keys_parse_with_units():
     (lambda raw: raw["body"]["parts"][0].update(at=[0, 0, "1e9 m"]), "body.parts[0].at: expected values within"),
     (lambda raw: raw["wheel"]["parts"][0].update(rotation=0.2), "wheel.parts[0].rotation"),
     (lambda raw: raw["trial"].update(start={"tilt": [0.1, 0.0]}), "trial.start.tilt"),
-    (lambda raw: raw.update(body={**BALL, "pivot_friction": {"coulomb": 0.01}}), "body.pivot_friction.coulomb"),
     (lambda raw: raw.update(body=BALL, strategy={"kind": "pid"}), "strategy.kind: pid works on one wheel"),
     (lambda raw: raw.update(body={**BALL, "locked": True}), "body.locked"),
     (lambda raw: raw.update(body=BALL, trial={"start": {"angle": 0.1}}), "trial.start.angle"),

@@ -619,8 +619,6 @@ class Scenario(Strict):
         if self.body.locked:
             raise ValueError("@body.locked: a locked body is a one-wheel hinge bench (wheel:, hinge mount) only")
         ball = self.design_mount == "ball"
-        if ball and self.body.pivot_friction.coulomb:
-            raise ValueError("@body.pivot_friction.coulomb: a ball mount takes viscous pivot friction only")
         if self.trial.start.tilt is not None and not ball:
             raise ValueError("@trial.start.tilt: a start tilt [about_x, about_y] needs body.mount: ball (a hinge takes start.angle)")
         if ball and (self.trial.start.angle or self.trial.start.rate):

@@ -17,7 +17,9 @@ Units and frames of the calls:
   on the body), and a push's torque on the body about the pivot, N m in the world frame, or None (a
   hinge takes its x component); the pivot's viscous friction is applied here; one physics step.
 Coulomb friction (and a brake) at the wheel joints are zero-target velocity motors with a force cap,
-as on the planar engine; viscous friction is applied by the caller as a torque.
+as on the planar engine; viscous friction is applied by the caller as a torque. Coulomb friction at a
+ball mount is a torque against the body's rate while it slides and the spherical joint's capped
+velocity motor while it sticks (`ball_friction`).
 """
 
 from __future__ import annotations
@@ -29,6 +31,7 @@ import numpy as np
 from ..core.frames import matmul, matrix_to_quat, quat_to_matrix, transpose
 from ..model.device3d import Device3D
 from ..model.massprops3d import wheel_tensor
+from .ball_friction import BallFriction
 from .engine import MAX_JOINT_SPEED, import_pybullet
 
 BODY = 0
@@ -81,7 +84,12 @@ class Engine3D:
             pb.changeDynamics(body_id, link, localInertiaDiagonal=list(diag), physicsClientId=cid)
             pb.changeDynamics(body_id, link, linearDamping=0.0, angularDamping=0.0, jointDamping=0.0,
                               maxJointVelocity=MAX_JOINT_SPEED, physicsClientId=cid)
-        if self.ball:   # the spherical joint's default motor holds it: zero force
+        self.ball_friction = None
+        if self.ball and dev.pivot_coulomb_n_m > 0:   # Coulomb friction: slide or hold (`ball_friction`)
+            least = float(np.linalg.eigvalsh(dev.inertia_about_pivot_kg_m2(with_spin=False))[0])
+            self.ball_friction = BallFriction(dev.pivot_coulomb_n_m, least_inertia_kg_m2=least, step_s=self.step_s)
+            _ball_hold(pb, body_id, cid, dev.pivot_coulomb_n_m)
+        elif self.ball:   # the spherical joint's default motor holds it: zero force
             pb.setJointMotorControlMultiDof(body_id, BODY, pb.POSITION_CONTROL, targetPosition=[0, 0, 0, 1],
                                             positionGain=0, velocityGain=0, force=[0, 0, 0], physicsClientId=cid)
         else:
@@ -155,6 +163,7 @@ class Engine3D:
         cx, cy, cz = -cx, -cy, -cz                          # conj(q0): relative to upright
         state = [(0.0, 0.0, 0.0, 1.0), (0.0, 0.0, 0.0)]    # the last read: body quaternion, principal-axes rate
         skip_pivot = bp == 0.0
+        friction = self.ball_friction
 
         def read():
             (qx, qy, qz, w), wp = multi(body, BODY, cid)[:2]
@@ -187,6 +196,9 @@ class Engine3D:
             return (atan2(2.0 * (ry * rz + rx * rw), r22), asin(s20), heading, tilt, rate,
                     [s[0] for s in ws], [s[1] for s in ws])
 
+        if friction is not None:
+            return read, self._advance_with_friction(state, bp, friction)
+
         def advance(push_world, wheel_torques):
             # viscous pivot friction -bp w is -bp wp in the principal axes: no turning needed
             if push_world is not None:
@@ -200,6 +212,29 @@ class Engine3D:
             torques(body, wheels, mode, unused, unused, wheel_torques, unused, unused, cid)
             step(cid)
         return read, advance
+
+    def _advance_with_friction(self, state, bp: float, friction):
+        """`advance` on a ball mount with Coulomb friction: the sliding torque joins the pivot's other
+        torques (principal axes, N m), or the hold is switched on when the body comes to rest."""
+        pb, cid, body = self.pb, self.client, self.body_id
+        multi_torque, torques, step = pb.setJointMotorControlMultiDof, pb.setJointMotorControlArray, pb.stepSimulation
+        mode, wheels, p, cap = pb.TORQUE_CONTROL, self.wheel_joints, self.principal_axes, friction.coulomb_n_m
+        unused = (0.0,) * len(wheels)
+
+        def advance(push_world, wheel_torques):
+            wp = state[1]
+            was_holding = friction.holding
+            slide = friction.torque(wp[0], wp[1], wp[2])
+            if friction.holding != was_holding:
+                _ball_hold(pb, body, cid, cap if friction.holding else 0.0)
+            fx, fy, fz = slide if slide is not None else (0.0, 0.0, 0.0)
+            if push_world is not None:
+                push = _to_principal(p, state[0], push_world)
+                fx, fy, fz = fx + push[0], fy + push[1], fz + push[2]
+            multi_torque(body, BODY, mode, force=(fx - bp * wp[0], fy - bp * wp[1], fz - bp * wp[2]), physicsClientId=cid)
+            torques(body, wheels, mode, unused, unused, wheel_torques, unused, unused, cid)
+            step(cid)
+        return advance
 
     def attitude(self) -> tuple[tuple[float, float, float], ...]:
         """R_wb, the body's attitude (body-frame vectors to world), row tuples (for checks)."""
@@ -247,6 +282,14 @@ class Engine3D:
 
     def __exit__(self, *exc) -> None:
         self.close()
+
+
+def _ball_hold(pb, body: int, cid: int, cap_n_m: float) -> None:
+    """The spherical joint's velocity motor: target rate 0, force capped at `cap_n_m` (N m; pybullet
+    applies the first of the three caps to every axis), 0 to release it."""
+    pb.setJointMotorControlMultiDof(body, BODY, pb.POSITION_CONTROL, targetPosition=[0, 0, 0, 1],
+                                    targetVelocity=[0, 0, 0], positionGain=0, velocityGain=1,
+                                    force=[cap_n_m] * 3, physicsClientId=cid)
 
 
 def principal(inertia: np.ndarray) -> tuple[list[float], list[float]]:

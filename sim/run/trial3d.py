@@ -71,13 +71,16 @@ class _WheelMotor:
 
 
 def run_trial3d(scenario, *, seed: int | None = None, stop_early: bool | None = None,
-                strategy_budget_s: float | None = None, on_step=None, isolate: bool | None = None) -> TrialResult3D:
+                strategy_budget_s: float | None = None, on_step=None, isolate: bool | None = None,
+                angle_bias_rad: tuple[float, ...] | None = None) -> TrialResult3D:
     """Simulate one trial of a 3D scenario (`Scenario.is_planar` false).
 
     `on_step`: optional callable(k, engine) after every engine step (checks and rendering hooks).
     `isolate`: run the trial in a forked child watched by this process, as `sim.run.trial.run_trial`
     does; None (default): exactly when the strategy, or one nested in it, is a plug-in or compiled
-    firmware and the platform can fork. The numbers are the same either way."""
+    firmware and the platform can fork. The numbers are the same either way.
+    `angle_bias_rad`: the angle sensor's bias per tilt axis (x, then y on a ball), rad, in place of
+    `sensors.angle.bias` on those axes (check's per-axis bias holds); None keeps the scenario's."""
     device = Device3D.from_scenario(scenario)
     seed = scenario.trial.seed if seed is None else seed
     stop_early = scenario.trial.stop_early if stop_early is None else stop_early
@@ -88,8 +91,9 @@ def run_trial3d(scenario, *, seed: int | None = None, stop_early: bool | None = 
         raise ValueError("isolate=True needs os.fork")
     if not isolate:
         return _simulate(scenario, device, _trace(scenario, device), StrategyClock(budget),
-                         seed=seed, stop_early=stop_early, on_step=on_step)
-    return _run_isolated(scenario, device, budget, seed=seed, stop_early=stop_early, on_step=on_step)
+                         seed=seed, stop_early=stop_early, on_step=on_step, angle_bias_rad=angle_bias_rad)
+    return _run_isolated(scenario, device, budget, seed=seed, stop_early=stop_early, on_step=on_step,
+                         angle_bias_rad=angle_bias_rad)
 
 
 def _trace(scenario, device: Device3D, **shared) -> Trace3D:
@@ -99,7 +103,7 @@ def _trace(scenario, device: Device3D, **shared) -> Trace3D:
                 n_wheels=device.n_wheels, floor=device.floor is not None, **shared)
 
 
-def _simulate(scenario, device, trace, clock, *, seed, stop_early, on_step) -> TrialResult3D:
+def _simulate(scenario, device, trace, clock, *, seed, stop_early, on_step, angle_bias_rad=None) -> TrialResult3D:
     """The trial in this process, its rows into `trace`, its strategy timed by `clock`."""
     dt, n = scenario.world.step, scenario.n_steps
     rng = np.random.default_rng(seed)
@@ -110,13 +114,15 @@ def _simulate(scenario, device, trace, clock, *, seed, stop_early, on_step) -> T
         n_suites = max(3 if ball else 1, device.n_wheels)
         suites = [SensorSuite(scenario.sensors, step_s=dt, n_ticks=n // scenario.control_steps + 1, rng=rng)
                   for _ in range(n_suites)]
+        for suite, bias in zip(suites, angle_bias_rad or ()):
+            suite.angle_bias = float(bias)
         return with_strategy(scenario, device, rng, clock, lambda strategy, failure: _loop(
             scenario, device, engine, suites, trace, strategy, failure, stop_early, clock, on_step))
     finally:
         engine.close()
 
 
-def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step) -> TrialResult3D:
+def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step, angle_bias_rad=None) -> TrialResult3D:
     """The trial in a forked child (`sim.core.isolation`): its rows land in a shared trace, the rest of
     its result comes back pickled. A child stuck in strategy code or dead ends as strategy_failed."""
     from .parallel import _warm_imports
@@ -126,10 +132,11 @@ def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step)
         trace = _trace(scenario, device, beat=beat)
     except OSError:     # no room for a shared trace, in the temporary folder or in memory: run here
         return _simulate(scenario, device, _trace(scenario, device), StrategyClock(budget),
-                         seed=seed, stop_early=stop_early, on_step=on_step)
+                         seed=seed, stop_early=stop_early, on_step=on_step, angle_bias_rad=angle_bias_rad)
     clock = WatchedClock(budget, beat)
     return run_watched(
-        lambda: _simulate(scenario, device, trace, clock, seed=seed, stop_early=stop_early, on_step=on_step),
+        lambda: _simulate(scenario, device, trace, clock, seed=seed, stop_early=stop_early, on_step=on_step,
+                          angle_bias_rad=angle_bias_rad),
         trace=trace, clock=clock, scenario=scenario, device=device, on_step=on_step,
         lost_result=lambda lost: _lost_child_result(scenario, device, trace, budget, lost))
 

@@ -28,7 +28,11 @@ POWER_ROW_KEYS = ("min_supply_voltage_v", "peak_supply_voltage_v", "charge_used_
 
 
 def judge_trial(scenario, *, seed: int) -> dict:
-    """Run a scenario's own trial and judge it against its requirements. A flat row, no traces."""
+    """Run a scenario's own trial and judge it against its requirements. A flat row, no traces.
+    A 3D scenario is judged by `sim.studies.judge3d.judge_trial3d` (the same row keys)."""
+    if not scenario.is_planar:
+        from .judge3d import judge_trial3d
+        return judge_trial3d(scenario, seed=seed)
     result = run_trial(scenario, seed=seed, stop_early=True)
     m = trial_metrics(result)
     req = scenario.requirements

@@ -31,17 +31,22 @@ def format_value(name: str, value) -> str:
     return f"{value:.4g}"
 
 
-def write_check_outputs(outcome: CheckOutcome, out_dir: Path) -> list[str]:
-    """Write the plots, report.md and verdict.json (last, so it only exists when all went well)."""
+def write_check_outputs(outcome: CheckOutcome, out_dir: Path, *, run_figure=None, pushes_figure=None,
+                        report=None) -> list[str]:
+    """Write the plots, report.md and verdict.json (last, so it only exists when all went well).
+
+    `run_figure(result)`, `pushes_figure(pushes)` and `report(verdict, images)` default to the
+    planar ones (`sim.studies.verdict_report3d` hands in the 3D ones)."""
+    run_figure, pushes_figure = run_figure or summary_figure, pushes_figure or push_figure
     written = []
     for name, result in outcome.runs.items():
-        save_figure(summary_figure(result), out_dir / f"{name}.png")
+        save_figure(run_figure(result), out_dir / f"{name}.png")
         written.append(f"{name}.png")
-    save_figure(push_figure(outcome.pushes), out_dir / "pushes.png")
+    save_figure(pushes_figure(outcome.pushes), out_dir / "pushes.png")
     written.append("pushes.png")
     keys = list(outcome.verdict["monte_carlo"]["tolerances"])
     write_text(out_dir / "monte_carlo.csv", monte_carlo_csv(outcome.mc_rows, keys))
-    write_text(out_dir / "report.md", report_markdown(outcome.verdict, written))
+    write_text(out_dir / "report.md", (report or report_markdown)(outcome.verdict, written))
     write_json(out_dir / "verdict.json", outcome.verdict)
     return written + ["monte_carlo.csv", "report.md", "verdict.json"]
 
@@ -114,16 +119,8 @@ def report_markdown(v: dict, images: list[str]) -> str:
               f"{format_value('_c', th.get('hold_steady_winding_temperature_c'))}; peaks over the battery's runs "
               "from ambient: " + ", ".join(f"{k} {format_value('_c', t)}" for k, t in th["peak_over_runs_c"].items())
               + "."]
-    mc = v["monte_carlo"]
-    lines += ["", "## Monte Carlo", "",
-              f"{mc['passed_trials']} of {mc['trials']} trials passed"
-              + (f" (95% Wilson score interval {100 * mc['pass_fraction_low']:.1f}-"
-                 f"{100 * mc['pass_fraction_high']:.1f}%)" if mc.get("pass_fraction_low") is not None else "")
-              + "; each trial's draws, outcome and failed criteria are in monte_carlo.csv. "
-              "Tolerances drawn uniformly within their band: "
-              + ", ".join(f"`{k}` {t}" for k, t in mc["tolerances"].items()) + ".",
-              ("Failures: " + ", ".join(f"{k} x{n}" for k, n in mc["failures"].items()) + ".") if mc["failures"] else "",
-              "", "## Largest push", "",
+    lines += monte_carlo_markdown(v["monte_carlo"])
+    lines += ["", "## Largest push", "",
               f"{v['max_push_survived_n_m_s'] * 1e3:.3g} mN m s in the worse ({v['max_push_direction']}) direction; "
               + "; ".join(f"{d}: {p['max_survived_n_m_s'] * 1e3:.3g} mN m s" for d, p in v["pushes"].items())
               + ". Bisection to 5%, from upright at rest, push after 0.5 s, 3 s to recover.", ""]
@@ -132,6 +129,18 @@ def report_markdown(v: dict, images: list[str]) -> str:
     lines += ["## Plots", ""] + [f"![{Path(img).stem}]({img})" for img in images] + [""]
     lines += ["## Safety", ""] + [f"- {s}" for s in SAFETY_NOTES] + [""]
     return "\n".join(lines)
+
+
+def monte_carlo_markdown(mc: dict) -> list[str]:
+    """report.md's Monte Carlo section (a blank line first; the failures line is empty when none failed)."""
+    return ["", "## Monte Carlo", "",
+            f"{mc['passed_trials']} of {mc['trials']} trials passed"
+            + (f" (95% Wilson score interval {100 * mc['pass_fraction_low']:.1f}-"
+               f"{100 * mc['pass_fraction_high']:.1f}%)" if mc.get("pass_fraction_low") is not None else "")
+            + "; each trial's draws, outcome and failed criteria are in monte_carlo.csv. "
+            "Tolerances drawn uniformly within their band: "
+            + ", ".join(f"`{k}` {t}" for k, t in mc["tolerances"].items()) + ".",
+            ("Failures: " + ", ".join(f"{k} x{n}" for k, n in mc["failures"].items()) + ".") if mc["failures"] else ""]
 
 
 NARROW_TERMINAL = 110   # columns below which the notes are printed under the table

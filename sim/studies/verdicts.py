@@ -75,10 +75,15 @@ class EarlyStop:
             return
         th, thd, _, phd = engine.read()
         self.peak_wheel_rad_s = max(self.peak_wheel_rad_s, abs(phd))
-        angle = math.remainder(th, 2 * math.pi)
-        if abs(angle) > self.release:
+        angle = abs(math.remainder(th, 2 * math.pi))
+        self.judge(k, angle, angle <= SETTLE_BAND_RAD and abs(thd) <= SETTLED_RATE_RAD_S)
+
+    def judge(self, k: int, angle_rad: float, settled: bool) -> None:
+        """Raise the stop for tick k: lost beyond the release angle (`angle_rad` >= 0), caught after
+        `settled` (within the band, slowly turning) held for SETTLED_FOR_S from `not_before_s`."""
+        if angle_rad > self.release:
             raise _Stop("lost", k * self.dt)
-        if k < self.first_k or abs(angle) > SETTLE_BAND_RAD or abs(thd) > SETTLED_RATE_RAD_S:
+        if k < self.first_k or not settled:
             self.settled_since = None
             return
         if self.settled_since is None:
@@ -150,7 +155,16 @@ def push_survived(scenario, impulse_n_m_s: float, *, seed: int) -> bool:
 
 def max_push(scenario, *, sign: float, seed: int, start_n_m_s: float, rel_tol: float = PUSH_REL_TOL,
              max_evals: int = PUSH_MAX_EVALS) -> dict:
-    """Largest push survived in one direction, by doubling to bracket it and then bisection.
+    """Largest push survived in one direction (`largest_survived` over `push_survived`)."""
+    return largest_survived(lambda x: push_survived(scenario, sign * x, seed=seed), start_n_m_s=start_n_m_s,
+                            rel_tol=rel_tol, max_evals=max_evals)
+
+
+def largest_survived(survived, *, start_n_m_s: float, rel_tol: float = PUSH_REL_TOL,
+                     max_evals: int = PUSH_MAX_EVALS, floor_n_m_s: float = 0.0) -> dict:
+    """Largest impulse (N m s) for which `survived(impulse) -> bool` holds, by doubling to bracket
+    it and then bisection; the bisection also stops once the smallest lost push is at or below
+    `floor_n_m_s` (a design that loses pushes that small needs no finer figure).
 
     Assumes survival falls off monotonically with the impulse. Returns `max_survived_n_m_s` (0
     when even the smallest tried push is lost), `smallest_lost_n_m_s` (None if none was lost
@@ -159,7 +173,7 @@ def max_push(scenario, *, sign: float, seed: int, start_n_m_s: float, rel_tol: f
     evals: list[tuple[float, bool]] = []
 
     def survives(x: float) -> bool:
-        ok = push_survived(scenario, sign * x, seed=seed)
+        ok = survived(x)
         evals.append((x, ok))
         return ok
 
@@ -170,7 +184,7 @@ def max_push(scenario, *, sign: float, seed: int, start_n_m_s: float, rel_tol: f
             lo, x = x, 2.0 * x
         else:
             hi = x
-    while hi is not None and hi - lo > rel_tol * hi and len(evals) < max_evals:
+    while hi is not None and hi - lo > rel_tol * hi and len(evals) < max_evals and hi > floor_n_m_s:
         mid = 0.5 * (lo + hi)
         if survives(mid):
             lo = mid
@@ -255,6 +269,17 @@ def runaway_criterion(scenario, device, holds: list[dict]) -> dict:
     worst hold's bias, the simulated drift and what the law predicts; a failure carries cause `bias_drift`.
     """
     req = scenario.requirements
+    worst, value, passed, fallen = worst_hold(holds, run_time_s=req.run_time)
+    # a fall with the wheel far from its limit is not a slow runaway: no bias_drift cause for it
+    drifted = not passed and (not fallen or worst["peak_wheel_speed_rad_s"] >= RUNAWAY_NEAR_LIMIT * device.no_load_speed_rad_s)
+    biases = ", ".join(f"{math.degrees(h['bias_rad']):+.2f}" for h in holds)
+    note = f"{req.hold_time:g} s holds at angle bias {biases} deg; " + runaway_note(worst, device.no_load_speed_rad_s)
+    return _criterion("wheel_runaway_time_s", value, req.run_time, passed, note + ("; cause bias_drift" if drifted else ""))
+
+
+def worst_hold(holds: list[dict], *, run_time_s: float) -> tuple[dict, float | None, bool, bool]:
+    """(the hold to report, the runaway time judged (s; 0 after a fall, None for no drift), passed,
+    some hold fell) over bias holds with the keys of `runaway_hold`."""
     fallen = [h for h in holds if h["outcome"] != "balanced"]
     timed = [h for h in holds if h["runaway_time_s"] is not None]
     if fallen:
@@ -267,16 +292,11 @@ def runaway_criterion(scenario, device, holds: list[dict]) -> dict:
     unmeasured = [h for h in holds if h["outcome"] == "balanced" and h["drift"] is None]
     if unmeasured and not fallen and value is None:
         worst = unmeasured[0]       # too short a hold to fit: cannot vouch for the wheel
-    passed = not fallen and not unmeasured and (value is None or value >= req.run_time)
-    # a fall with the wheel far from its limit is not a slow runaway: no bias_drift cause for it
-    drifted = not passed and (not fallen or worst["peak_wheel_speed_rad_s"] >= RUNAWAY_NEAR_LIMIT * device.no_load_speed_rad_s)
-    biases = ", ".join(f"{math.degrees(h['bias_rad']):+.2f}" for h in holds)
-    note = f"{req.hold_time:g} s holds at angle bias {biases} deg; " + runaway_note(worst, device.no_load_speed_rad_s)
-    return _criterion("wheel_runaway_time_s", value, req.run_time, passed, note + ("; cause bias_drift" if drifted else ""))
+    return worst, value, not fallen and not unmeasured and (value is None or value >= run_time_s), bool(fallen)
 
 
-def runaway_note(hold: dict, limit_rad_s: float) -> str:
-    """What one hold showed and what the law predicts, in a few words."""
+def runaway_note(hold: dict, limit_rad_s: float, *, unpredicted: str = "no linear prediction for this law") -> str:
+    """What one hold showed and what the law predicts (`unpredicted` when there is no prediction), in a few words."""
     b = f"{math.degrees(hold['bias_rad']):+.2f} deg"
     if hold["outcome"] != "balanced":
         text = (f"at {b} the body {hold['outcome'].replace('_', ' ')} at {hold['fell_at_s'] or 0:.1f} s with the wheel "
@@ -292,7 +312,7 @@ def runaway_note(hold: dict, limit_rad_s: float) -> str:
         text += "" if hold["runaway_time_s"] is None else f", reaching {limit_rad_s:.0f} rad/s at {hold['runaway_time_s']:.1f} s"
     p = hold["prediction"]
     if p is None:
-        return text + "; no linear prediction for this law"
+        return text + "; " + unpredicted
     if p.kind == "ramp" and p.wheel_accel_rad_s2 is None:
         return text + f"; the law predicts a wheel speed growing without bound ({p.basis})"
     if p.kind == "ramp":

@@ -1,0 +1,195 @@
+"""The `check` battery's trials for a 3D device (one to three wheels, a hinge or a ball mount).
+
+The planar battery (`sim.studies.verdicts`) judges one angle and one wheel; here:
+1. the scenario's own trial ("nominal");
+2. a hold: HOLD_S from a small tilt (HOLD_TILT_RAD; on a ball split evenly about x and y), at rest,
+   the scenario's sensor noise, no pushes: a law that is wrong about an axis shows it here, where a
+   start exactly upright would leave it idle;
+3. the largest push survived, by bisection on the impulse, about each of `push_directions`
+   (world horizontal axes; every 45 degrees on a ball, +-x on a hinge); the worst direction is the
+   figure judged;
+4. Monte Carlo over the tolerances (`sim.studies.monte_carlo`, judged by `sim.studies.judge3d`);
+5. long holds (`requirements.hold_time`) with the angle sensor's bias at each end of its tolerance
+   band, one tilt axis at a time (x, and y on a ball): each wheel's drift fitted and extrapolated to
+   its own no-load speed (`sim.studies.runaway`);
+6. on a hinge with a wheel off the hinge axis, the same design with every wheel axis along the hinge
+   (`axis_twin`), for what the tilt costs.
+Criteria and files: `sim.studies.verdicts3d`, `sim.studies.verdict_report3d`.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+
+import numpy as np
+
+from ..model.device3d import Device3D
+from ..model.scenario import Push, validate_scenario
+from ..run.metrics import PUSH_RECOVER_S, SETTLE_BAND_RAD, push_outcomes
+from ..run.metrics3d import trial_metrics3d
+from ..run.trial3d import run_trial3d
+from .runaway import fit_drift, runaway_time_s, settling
+from .verdicts import (HOLD_S, PUSH_AT_S, RUNAWAY_HORIZON_FACTOR, SETTLED_RATE_RAD_S, EarlyStop, _Stop, bias_ends,
+                       largest_survived, with_trial)
+
+HOLD_TILT_RAD = math.radians(1.0)   # the hold's start tilt from upright (our choice: inside any release angle,
+                                    # outside the 1 degree settle band's centre, so the law has work to do)
+BALL_DIRECTIONS = {"+x": 0, "+x+y": 45, "+y": 90, "-x+y": 135, "-x": 180, "-x-y": 225, "-y": 270, "+x-y": 315}
+"""A ball's push axes: label -> angle in the horizontal plane from world +x toward +y, degrees."""
+PUSH_FLOOR_SHARE = 1 / 16   # bisection stops below min_push / 16: enough to tell how far a design falls short (our choice)
+
+
+def push_directions(device) -> dict[str, tuple[float, float, float]]:
+    """Unit world axes the pushes' angular impulses act about, by label ("+x+y": halfway between +x and
+    +y). A hinge takes only the x component, so it is pushed about +-x."""
+    if device.mount != "ball":
+        return {"+x": (1.0, 0.0, 0.0), "-x": (-1.0, 0.0, 0.0)}
+    return {label: (math.cos(math.radians(deg)), math.sin(math.radians(deg)), 0.0)
+            for label, deg in BALL_DIRECTIONS.items()}
+
+
+def tilt_axes(device) -> tuple[str, ...]:
+    """The tilt axes the law reads an angle about: x (and y on a ball)."""
+    return ("x", "y") if device.mount == "ball" else ("x",)
+
+
+def _at_rest(sc, *, tilt_rad: float = 0.0) -> dict:
+    if sc.body.mount == "ball":
+        each = tilt_rad / math.sqrt(2.0)
+        return {"tilt": [each, each], "angle": 0.0, "rate": 0.0, "wheel_speed": 0.0}
+    return {"angle": tilt_rad, "rate": 0.0, "wheel_speed": 0.0}
+
+
+def hold_scenario3d(sc):
+    """The hold: HOLD_S from HOLD_TILT_RAD at rest, no pushes."""
+    return with_trial(sc, duration=HOLD_S, start=_at_rest(sc, tilt_rad=HOLD_TILT_RAD), pushes=[])
+
+
+def push_scenario3d(sc, impulse: tuple[float, float, float]):
+    """Upright at rest, one push of this world angular impulse (N m s) after PUSH_AT_S."""
+    value = impulse[0] if sc.body.mount != "ball" else tuple(float(v) for v in impulse)
+    return with_trial(sc, duration=PUSH_AT_S + PUSH_RECOVER_S, pushes=[Push(at=PUSH_AT_S, impulse=value)],
+                      start=_at_rest(sc))
+
+
+# ----------------------------------------------------------------------------- early stopping
+
+class EarlyStop3D(EarlyStop):
+    """An `on_step` hook ending a 3D run once clearly caught or clearly lost (control ticks only).
+
+    As the planar `EarlyStop`, on the tilt: caught after `not_before_s` with the tilt within the
+    settle band (1 degree) and the horizontal body rate (about the heading frame's x and y: a ball's
+    turning about the vertical is free) below SETTLED_RATE_RAD_S for SETTLED_FOR_S; lost with the
+    tilt beyond the strategy's release angle.
+    """
+
+    read = None
+
+    def __call__(self, k: int, engine) -> None:
+        if k % self.every:
+            return
+        if self.read is None:
+            self.read = engine.io()[0]   # its own closures: the runner's state is not touched
+        tilt, (wx, wy, _) = self.read()[3:5]
+        self.judge(k, tilt, tilt <= SETTLE_BAND_RAD and math.hypot(wx, wy) <= SETTLED_RATE_RAD_S)
+
+
+def push_survived3d(sc, impulse: tuple[float, float, float], *, seed: int) -> bool:
+    """Does the design, held upright at rest, recover from one push of this world angular impulse (N m s)?"""
+    scen = push_scenario3d(sc, impulse)
+    watch = EarlyStop3D(scen, not_before_s=PUSH_AT_S + scen.world.step)
+    try:
+        result = run_trial3d(scen, seed=seed, stop_early=True, on_step=watch)
+    except _Stop as stop:
+        return stop.outcome == "caught"
+    return result.outcome == "balanced" and all(p["survived"] for p in push_outcomes(result, result.trace.tilt[: result.trace.n]))
+
+
+def max_push3d(sc, direction: tuple[float, float, float], *, seed: int) -> dict:
+    """Largest push survived about one world axis (`sim.studies.verdicts.largest_survived`), the
+    bisection ending early below PUSH_FLOOR_SHARE of `requirements.min_push`."""
+    return largest_survived(lambda x: push_survived3d(sc, tuple(x * d for d in direction), seed=seed),
+                            start_n_m_s=max(sc.requirements.min_push, 1e-3),
+                            floor_n_m_s=PUSH_FLOOR_SHARE * sc.requirements.min_push)
+
+
+# ----------------------------------------------------------------------------- bias holds
+
+def runaway_hold3d(sc, device, *, axis: int, bias_rad: float, seed: int) -> dict:
+    """Hold upright at rest for `requirements.hold_time` with the angle bias set about one tilt axis.
+
+    The other axis keeps the scenario's own bias. Each wheel's speed is fitted (`fit_drift`) and
+    extrapolated to its own no-load speed; the hold reports the wheel that gets there first (or, with
+    none drifting, the one with the largest drift against its limit). Keys as
+    `sim.studies.verdicts.runaway_hold`'s, plus `axis` ("x"/"y"), `wheel` (1-based) and `limit_rad_s`.
+    """
+    req = sc.requirements
+    hold = with_trial(sc, duration=req.hold_time, start=_at_rest(sc), pushes=[])
+    biases = [sc.sensors.angle.bias] * len(tilt_axes(device))
+    biases[axis] = bias_rad
+    result = run_trial3d(hold, seed=seed, stop_early=True, angle_bias_rad=tuple(biases))
+    tr = result.trace
+    t = np.arange(tr.n) * tr.step_s
+    per_wheel = []
+    for i, w in enumerate(device.wheels):
+        speed = tr.wheel(i + 1, "speed")[: tr.n].copy()
+        entry = {"wheel": i + 1, "limit_rad_s": w.no_load_speed_rad_s, "drift": None, "runaway_time_s": None,
+                 "settling": False, "peak_wheel_speed_rad_s": float(np.max(np.abs(speed))) if speed.size else 0.0}
+        if result.outcome == "balanced" and speed.size >= 60:
+            drift = fit_drift(t, speed)
+            k = 2 * speed.size // 3
+            entry["drift"], entry["settling"] = drift, settling(fit_drift(t[:k], speed[:k], fraction=0.5), drift)
+            entry["runaway_time_s"] = None if entry["settling"] else runaway_time_s(
+                drift, limit_rad_s=w.no_load_speed_rad_s, horizon_s=RUNAWAY_HORIZON_FACTOR * req.run_time)
+        elif speed.size >= 90:
+            k = 2 * speed.size // 3
+            entry["drift"] = fit_drift(t[:k], speed[:k], fraction=0.5)
+        per_wheel.append(entry)
+    timed = [e for e in per_wheel if e["runaway_time_s"] is not None]
+    if timed:
+        worst = min(timed, key=lambda e: e["runaway_time_s"])
+    elif result.outcome != "balanced":
+        worst = max(per_wheel, key=lambda e: e["peak_wheel_speed_rad_s"] / e["limit_rad_s"])
+    else:
+        worst = max(per_wheel, key=lambda e: 0.0 if e["drift"] is None else abs(e["drift"].slope_rad_s2) / e["limit_rad_s"])
+    return {"axis": tilt_axes(device)[axis], "bias_rad": bias_rad, "outcome": result.outcome,
+            "fell_at_s": result.fell_at_s, "prediction": None, **worst}
+
+
+def runaway_holds3d(sc, device, *, seed: int) -> list[dict]:
+    """The bias holds: each tilt axis at each end of the angle bias's band (`bias_ends`)."""
+    return [runaway_hold3d(sc, device, axis=j, bias_rad=b, seed=seed)
+            for j in range(len(tilt_axes(device))) for b in bias_ends(sc)]
+
+
+# ----------------------------------------------------------------------------- a tilted wheel's cost
+
+def hinge_shares(device) -> list[float]:
+    """Each wheel's hinge-wise torque share |a_x| (the cosine of its axis's angle from the hinge; a
+    hinge turns with the torque's x component only, the rest goes into the bearing: statics)."""
+    return [abs(w.axis[0]) for w in device.wheels]
+
+
+def aligned_raw(raw: dict) -> dict:
+    """The raw scenario with every wheel's axis along the hinge ([1, 0, 0]), all else kept."""
+    out = copy.deepcopy(raw)
+    for key in ("wheels", "wheel"):
+        wheels = out.get(key)
+        for w in (wheels if isinstance(wheels, list) else [wheels] if isinstance(wheels, dict) else []):
+            if isinstance(w, dict):
+                w["axis"] = [1, 0, 0]
+    return out
+
+
+def axis_twin(raw: dict, where: str, sc, device, *, seed: int, on_stage) -> dict | None:
+    """On a hinge with a wheel axis off the hinge: the same device with its axes along the hinge, its
+    own LQR, and its trials (nominal, largest push each way), for `verdicts3d.axis_cost`. None otherwise."""
+    if device.mount != "hinge" or min(hinge_shares(device)) > 1.0 - 1e-9:
+        return None
+    on_stage("the same design with its wheel axes along the hinge")
+    twin = validate_scenario(aligned_raw(raw), where=where)
+    twin_device = Device3D.from_scenario(twin)
+    nominal = trial_metrics3d(run_trial3d(twin))
+    pushes = {label: max_push3d(twin, d, seed=seed) for label, d in push_directions(twin_device).items()}
+    return {"device": twin_device, "nominal": nominal, "pushes": pushes}

@@ -1,0 +1,247 @@
+"""`check` on a 3D device: the battery run (`run_check3d`) and its criteria, per wheel where it matters.
+
+Criteria (each a value against a `requirements` limit; a value that could not be found fails):
+- `hold_max_tilt_rad`: the hold from a small tilt (`sim.studies.check3d`) ends balanced;
+- `settle_time_s`: the scenario's own trial;
+- `max_push_survived_n_m_s`: the smallest of the largest pushes over the directions tried (the note
+  names that direction);
+- `wheel_speed_margin`: the lowest over the battery's runs and the wheels (the note names the wheel
+  and the run);
+- `wheel_runaway_time_s`: the shortest over the per-axis bias holds and the wheels;
+- `voltage_headroom`, `current_headroom`: the hold, the worst wheel;
+- `winding_temperature_c`: each wheel's motor at its own RMS current in the scenario's own trial,
+  the hottest judged;
+- `wheel_burst_safety_factor`: each wheel's parts at its own runaway speed (its no-load speed at
+  full supply), the weakest judged;
+- `monte_carlo_pass_fraction`.
+"""
+
+from __future__ import annotations
+
+import math
+from types import SimpleNamespace
+
+import numpy as np
+
+from ..core.safety import SAFETY_NOTES
+from ..model.device3d import Device3D
+from ..model.device_figures3d import holdable_tilt, stall_torque_n_m
+from ..model.scenario import validate_scenario
+from ..model.tolerances import interval_note
+from ..run.metrics3d import trial_metrics3d
+from ..run.trial3d import run_trial3d
+from . import check3d
+from .judge3d import wheel_temperatures_c
+from .monte_carlo import monte_carlo, outcome_with_cause
+from .stress import optimistic_summary, wheel_burst_check
+from .thermal import temperature_history_c
+from .verdicts import (HOLD_S, RUNAWAY_NEAR_LIMIT, CheckOutcome, _at_least, _at_most, _criterion, _failure_counts,
+                       _headroom, runaway_note, runaway_summary, worst_hold)
+
+
+def run_check3d(raw: dict, where: str, *, trials: int, workers=None, cluster=None, on_stage=None,
+                on_done=None) -> CheckOutcome:
+    """Run the 3D battery on a raw scenario mapping (see `sim.studies.check3d`)."""
+    stage = on_stage or (lambda text: None)
+    sc = validate_scenario(raw, where=where)
+    device = Device3D.from_scenario(sc)
+    runs = {}
+    for name, scen in (("nominal", sc), ("hold", check3d.hold_scenario3d(sc))):
+        stage(f"{name} trial")
+        runs[name] = run_trial3d(scen)
+    metrics = {name: trial_metrics3d(r) for name, r in runs.items()}
+    pushes = {}
+    for label, direction in check3d.push_directions(device).items():
+        stage(f"largest push about {label}")
+        pushes[label] = check3d.max_push3d(sc, direction, seed=sc.trial.seed)
+    mc = None
+    if trials > 0:
+        stage(f"Monte Carlo, {trials} trials")
+        mc = monte_carlo(raw, where, sc, trials=trials, workers=workers, cluster=cluster, on_done=on_done)
+    stage(f"{sc.requirements.hold_time:g} s holds for wheel drift, about each tilt axis")
+    holds = check3d.runaway_holds3d(sc, device, seed=sc.trial.seed)
+    twin = check3d.axis_twin(raw, where, sc, device, seed=sc.trial.seed, on_stage=stage)
+    verdict = build_verdict3d(sc, device, runs, metrics, pushes, mc, holds, twin)
+    return CheckOutcome(verdict=verdict, runs=runs, pushes=pushes, mc_rows=mc["rows"] if mc else [])
+
+
+def build_verdict3d(sc, device, runs: dict, metrics: dict, pushes: dict, mc: dict | None, holds: list[dict],
+                    twin: dict | None) -> dict:
+    """Criteria and the verdict dictionary written to verdict.json (SI, units in the keys)."""
+    worst_dir = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
+    wheels = wheel_figures(sc, device, runs, metrics)
+    crit = (_run_criteria(sc, metrics, pushes, worst_dir, wheels) + [runaway_criterion3d(sc, holds)]
+            + _static_criteria(sc, device, runs["hold"], wheels, mc))
+    return {
+        "passed": all(c["passed"] for c in crit),
+        "scenario": sc.source, "name": sc.name, "strategy": sc.strategy.kind,
+        "mount": device.mount, "wheel_count": device.n_wheels,
+        "criteria": crit,
+        "max_push_survived_n_m_s": pushes[worst_dir]["max_survived_n_m_s"],
+        "max_push_direction": worst_dir,
+        "pushes": pushes,
+        "wheels": wheels,
+        "wheel_burst_safety_factor": _smallest([w["burst"]["safety_factor"] for w in wheels]),
+        "monte_carlo": (None if mc is None else
+                        {k: v for k, v in mc.items() if k != "rows"} | {"failures": _failure_counts(mc["rows"])}),
+        "runs": {name: {k: m[k] for k in ("outcome", "message", "cause", "cause_detail", "caught_at_s", "settle_time_s",
+                                          "peak_tilt_rad", "peak_wheel_speed_rad_s", "wheel_speed_margin",
+                                          "peak_current_a", "rms_current_a")}
+                 for name, m in metrics.items()},
+        "runaway_holds": [{"axis": h["axis"], "wheel": h["wheel"], **s} for h, s in zip(holds, runaway_summary(holds))],
+        **({"axis_cost": axis_cost(device, pushes, metrics["nominal"], twin)} if twin is not None else {}),
+        "requirements": sc.requirements.model_dump(),
+        "safety": list(SAFETY_NOTES),
+    }
+
+
+def _smallest(values):
+    known = [v for v in values if v is not None]
+    return min(known) if known else None
+
+
+def wheel_figures(sc, device, runs: dict, metrics: dict) -> list[dict]:
+    """Per wheel: speed margin (lowest run named), burst check at its runaway speed, winding temperature."""
+    out = []
+    temps = wheel_temperatures_c(runs["nominal"])
+    for i, w in enumerate(device.wheels):
+        margins = {name: m["wheels"][i]["speed_margin"] for name, m in metrics.items()}
+        low = min(margins, key=margins.get)
+        burst = wheel_burst_check(SimpleNamespace(wheel=sc.wheel_list[i]),
+                                  SimpleNamespace(no_load_speed_rad_s=w.no_load_speed_rad_s))
+        motor = sc.wheel_motor(i)
+        out.append({"wheel": i + 1, "axis": list(w.axis), "speed_limit_rad_s": w.no_load_speed_rad_s,
+                    "speed_margin": margins[low], "speed_margin_run": low,
+                    "peak_speed_rad_s": metrics[low]["wheels"][i]["peak_speed_rad_s"],
+                    "burst": burst, "winding_temperature_c": temps[i],
+                    "max_winding_temperature_c": motor.thermal.max_temperature,
+                    "rms_current_a": metrics["nominal"]["wheels"][i]["rms_current_a"],
+                    "peak_winding_over_runs_c": _transient_peaks(sc, motor, runs, i)})
+    return out
+
+
+def _transient_peaks(sc, motor, runs: dict, i: int) -> dict:
+    """Peak winding temperature of wheel i's motor over each run, from ambient, degC (first-order model)."""
+    th, out = motor.thermal, {}
+    stride = max(1, int(round(0.01 / sc.world.step)))   # one value per 10 ms: plenty for minutes
+    for name, r in runs.items():
+        current = r.trace.wheel(i + 1, "current")
+        rms = np.sqrt(np.add.reduceat(current**2, np.arange(0, len(current), stride)) / stride) if len(current) else current
+        temps = temperature_history_c(rms, stride * sc.world.step, resistance_20c_ohm=motor.resistance,
+                                      thermal_resistance_k_w=th.thermal_resistance,
+                                      thermal_capacity_j_k=th.thermal_capacity, ambient_c=th.ambient)
+        out[name] = float(temps.max()) if len(temps) else th.ambient
+    return out
+
+
+def _run_criteria(sc, metrics: dict, pushes: dict, worst_dir: str, wheels: list[dict]) -> list[dict]:
+    req = sc.requirements
+    hold, nominal = metrics["hold"], metrics["nominal"]
+    tried = ", ".join(f"{d} {p['max_survived_n_m_s'] * 1e3:.3g}" for d, p in pushes.items())
+    low = min(wheels, key=lambda w: w["speed_margin"])
+    return [
+        _criterion("hold_max_tilt_rad", hold["max_angle_after_catch_rad"], sc.strategy.params.release_angle
+                   if hasattr(sc.strategy.params, "release_angle") else math.pi, hold["outcome"] == "balanced",
+                   f"{HOLD_S:g} s from a {math.degrees(check3d.HOLD_TILT_RAD):g} deg tilt with the scenario's sensors: "
+                   f"{outcome_with_cause(hold)}"),
+        _at_most("settle_time_s", nominal["settle_time_s"], req.settle_time,
+                 f"the scenario's own trial: {outcome_with_cause(nominal)}"),
+        _at_least("max_push_survived_n_m_s", pushes[worst_dir]["max_survived_n_m_s"], req.min_push,
+                  f"worst direction: about {worst_dir} (of {tried} mN m s)"),
+        _at_least("wheel_speed_margin", low["speed_margin"], req.wheel_speed_margin,
+                  f"worst wheel {low['wheel']} (axis {_axis(low['axis'])}) in the {low['speed_margin_run']} run; "
+                  "lowest over the battery's runs: "
+                  + ", ".join(f"wheel {w['wheel']} {100 * w['speed_margin']:.0f}%" for w in wheels)),
+    ]
+
+
+def _axis(axis) -> str:
+    return "[" + ", ".join(f"{v:.3g}" for v in axis) + "]"
+
+
+def runaway_criterion3d(sc, holds: list[dict]) -> dict:
+    """`wheel_runaway_time_s`: the shortest time to a wheel's speed limit over the per-axis holds.
+
+    A fall during a hold gives 0; no drift in any hold gives None (passes). The note names the worst
+    hold's axis, bias and wheel; a failure with a wheel near its limit carries cause `bias_drift`.
+    """
+    req = sc.requirements
+    worst, value, passed, fallen = worst_hold(holds, run_time_s=req.run_time)
+    drifted = not passed and (not fallen or worst["peak_wheel_speed_rad_s"] >= RUNAWAY_NEAR_LIMIT * worst["limit_rad_s"])
+    biases = sorted({round(math.degrees(h["bias_rad"]), 4) for h in holds})
+    axes = sorted({h["axis"] for h in holds})
+    note = (f"{req.hold_time:g} s holds at angle bias {', '.join(f'{b:+.2f}' for b in biases)} deg about "
+            f"{' and '.join(axes)} in turn; worst: about {worst['axis']}, wheel {worst['wheel']}: "
+            + runaway_note(worst, worst["limit_rad_s"], unpredicted="no linear prediction on a 3D device yet"))
+    return _criterion("wheel_runaway_time_s", value, req.run_time, passed, note + ("; cause bias_drift" if drifted else ""))
+
+
+def _static_criteria(sc, device, hold_run, wheels: list[dict], mc: dict | None) -> list[dict]:
+    """Headroom (worst wheel in the hold), winding temperature, burst and Monte Carlo criteria."""
+    req, tr = sc.requirements, hold_run.trace
+    volt, amp = [], []
+    for i, w in enumerate(device.wheels):
+        limited = math.isfinite(w.current_limit_a)
+        volt.append(_headroom(tr.wheel(i + 1, "voltage").copy(), w.supply_v))
+        amp.append(_headroom(tr.wheel(i + 1, "current").copy(), w.current_limit_a if limited else w.supply_v / w.resistance_ohm))
+    hot = max(wheels, key=lambda w: w["winding_temperature_c"] - w["max_winding_temperature_c"])
+    bursts = [(w["wheel"], w["burst"]) for w in wheels]
+    known = [(i, b) for i, b in bursts if b["safety_factor"] is not None]
+    weak_i, weak = min(known, key=lambda ib: ib[1]["safety_factor"]) if known else (None, None)
+    unknown = [f"wheel {i}: {', '.join(b['unknown_parts'])}" for i, b in bursts if b["unknown_parts"]]
+    note = "each wheel's parts at its own runaway speed (no-load speed at full supply)"
+    if weak is not None:
+        part = min((p for p in weak["parts"] if p["safety_factor"] is not None), key=lambda p: p["safety_factor"])
+        note = f"weakest: wheel {weak_i}, {part['part']} at {weak['runaway_speed_rad_s']:.0f} rad/s; " + note
+    if unknown:
+        note = f"strength unknown for {'; '.join(unknown)}: cannot confirm; " + note
+    notes = [optimistic_summary(b) for _, b in bursts if optimistic_summary(b)]
+    if notes:
+        note += "; " + "; ".join(notes)
+    factor = weak["safety_factor"] if weak is not None else None
+    return [
+        _at_least("voltage_headroom", _worst_of(volt), req.voltage_headroom,
+                  f"holding: 1 - p99(|V|)/supply, worst wheel {_worst_index(volt)}"),
+        _at_least("current_headroom", _worst_of(amp), req.current_headroom,
+                  f"holding: 1 - p99(|i|)/current limit (or stall current), worst wheel {_worst_index(amp)}"),
+        _at_most("winding_temperature_c", hot["winding_temperature_c"], hot["max_winding_temperature_c"],
+                 f"hottest: wheel {hot['wheel']}'s motor at {hot['rms_current_a']:.3g} A RMS, steady state over the "
+                 "scenario's own trial; " + ", ".join(f"wheel {w['wheel']} {w['winding_temperature_c']:.1f} degC" for w in wheels)),
+        _criterion("wheel_burst_safety_factor", factor, req.burst_safety_factor,
+                   factor is not None and not unknown and factor >= req.burst_safety_factor, note),
+    ] + ([] if mc is None else [
+        _at_least("monte_carlo_pass_fraction", mc["pass_fraction"], req.pass_fraction,
+                  f"{mc['trials']} trials over the tolerances; " + interval_note(mc["passed_trials"], mc["trials"], req.pass_fraction))])
+
+
+def _worst_of(values):
+    return None if any(v is None for v in values) else min(values)
+
+
+def _worst_index(values) -> str:
+    known = [(v, i) for i, v in enumerate(values) if v is not None]
+    return str(min(known)[1] + 1) if known else "-"
+
+
+def axis_cost(device, pushes: dict, nominal: dict, twin: dict) -> dict:
+    """What tilted wheel axes cost a hinge device, against its twin with every axis along the hinge.
+
+    `hinge_torque_share` per wheel: |a_x| = cos(angle from the hinge) (statics: a hinge turns with
+    the torque's x component only); the largest tilt the wheels' stall torque can hold, each way
+    (`sim.model.device_figures3d.holdable_tilt`); the largest push (worst direction), the peak wheel
+    speed and the energy from the supply in the scenario's own trial, each way.
+    """
+    tilt, tilt_twin = holdable_tilt(device)[0], holdable_tilt(twin["device"])[0]
+    push = min(p["max_survived_n_m_s"] for p in pushes.values())
+    push_twin = min(p["max_survived_n_m_s"] for p in twin["pushes"].values())
+    tw = twin["nominal"]
+    return {
+        "hinge_torque_share": check3d.hinge_shares(device),
+        "axis_from_hinge_deg": [math.degrees(math.acos(min(1.0, s))) for s in check3d.hinge_shares(device)],
+        "stall_torque_n_m": [stall_torque_n_m(w) for w in device.wheels],
+        "holdable_tilt_rad": tilt, "aligned_holdable_tilt_rad": tilt_twin,
+        "max_push_survived_n_m_s": push, "aligned_max_push_survived_n_m_s": push_twin,
+        "peak_wheel_speed_rad_s": nominal["peak_wheel_speed_rad_s"], "aligned_peak_wheel_speed_rad_s": tw["peak_wheel_speed_rad_s"],
+        "energy_from_supply_j": nominal["energy_from_supply_j"], "aligned_energy_from_supply_j": tw["energy_from_supply_j"],
+        "aligned_outcome": tw["outcome"],
+    }
