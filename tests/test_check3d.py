@@ -58,7 +58,9 @@ def test_check_passes_a_strong_three_wheel_ball_device(tmp_path, monkeypatch):
     names = [c["name"] for c in v["criteria"]]
     assert names == ["hold_max_tilt_rad", "settle_time_s", "max_push_survived_n_m_s", "wheel_speed_margin",
                      "wheel_runaway_time_s", "voltage_headroom", "current_headroom", "winding_temperature_c",
-                     "wheel_burst_safety_factor", "monte_carlo_pass_fraction"]
+                     "wheel_burst_safety_factor", "monte_carlo_pass_fraction", "step_halving_change"]
+    # the nominal trial again at half the step moves little (step-halving, common practice, no source)
+    assert v["step_convergence"]["converged"] and v["step_convergence"]["half_step_s"] == pytest.approx(1e-3)
     assert set(v["pushes"]) == set(FOUR) and v["max_push_direction"] in FOUR
     assert [w["wheel"] for w in v["wheels"]] == [1, 2, 3]
     assert {h["axis"] for h in v["runaway_holds"]} == {"x", "y"} and len(v["runaway_holds"]) == 4

@@ -37,8 +37,10 @@ def _rel(a: float, b: float) -> float:
     return abs(a - b) / scale if scale > 0 else 0.0
 
 
-def step_convergence(scenario, *, seed: int | None = None) -> dict:
+def step_convergence(scenario, *, seed: int | None = None, coarse=None) -> dict:
     """Run the scenario at its step and at half of it; SI figures of how far the two differ.
+
+    `coarse`: the trial at the scenario's own step when it has already been run (same seed), else None.
 
     Returns step_s, outcomes (coarse, fine), peak_tilt_rad (coarse, fine), peak_wheel_speed_rad_s
     (coarse, fine), their relative changes, max_tilt_difference_rad over the common rows (up to the
@@ -48,7 +50,8 @@ def step_convergence(scenario, *, seed: int | None = None) -> dict:
     from ..run.trial import run_trial
     fine_world = scenario.world.model_copy(update={"step": scenario.world.step / 2.0})
     fine_sc = scenario.model_copy(update={"world": fine_world})
-    coarse, fine = run_trial(scenario, seed=seed), run_trial(fine_sc, seed=seed)
+    coarse = run_trial(scenario, seed=seed) if coarse is None else coarse
+    fine = run_trial(fine_sc, seed=seed)
     (pt_c, ws_c, tilt_c), (pt_f, ws_f, tilt_f) = _peaks(coarse), _peaks(fine)
     rows = min(len(tilt_c), (len(tilt_f) + 1) // 2)
     diff = float(np.max(np.abs(tilt_c[:rows] - tilt_f[: 2 * rows : 2]))) if rows else 0.0

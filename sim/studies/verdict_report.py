@@ -22,7 +22,7 @@ def format_value(name: str, value) -> str:
         return "none (settles)" if name == "wheel_runaway_time_s" else "unknown"
     if isinstance(value, float) and not math.isfinite(value):
         return "inf"
-    if name.endswith(("_margin", "_headroom", "_fraction")):
+    if name.endswith(("_margin", "_headroom", "_fraction", "_change")):
         return f"{100 * value:.1f}%"
     for suffix, unit, scale in (("_n_m_s", "mN m s", 1e3), ("_time_s", "s", 1.0), ("_rad", "deg", 180 / math.pi),
                                 ("_c", "degC", 1.0), ("_s", "s", 1.0), ("_v", "V", 1.0)):

@@ -13,7 +13,8 @@ Criteria (each a value against a `requirements` limit; a value that could not be
   the hottest judged;
 - `wheel_burst_safety_factor`: each wheel's parts at its own runaway speed (its no-load speed at
   full supply), the weakest judged;
-- `monte_carlo_pass_fraction`.
+- `monte_carlo_pass_fraction`;
+- `step_halving_change`: the scenario's own trial again at half the physics step (`sim.studies.step_check`).
 """
 
 from __future__ import annotations
@@ -33,6 +34,7 @@ from ..run.trial3d import run_trial3d
 from . import check3d
 from .judge3d import wheel_temperatures_c
 from .monte_carlo import monte_carlo, outcome_with_cause
+from .step_check import STEP_REL_TOL, step_convergence, step_note
 from .stress import optimistic_summary, wheel_burst_check
 from .thermal import temperature_history_c
 from .verdicts import (HOLD_S, RUNAWAY_NEAR_LIMIT, CheckOutcome, _at_least, _at_most, _criterion, _failure_counts,
@@ -61,17 +63,20 @@ def run_check3d(raw: dict, where: str, *, trials: int, workers=None, cluster=Non
     stage(f"{sc.requirements.hold_time:g} s holds for wheel drift, about each tilt axis")
     holds = check3d.runaway_holds3d(sc, device, seed=sc.trial.seed)
     twin = check3d.axis_twin(raw, where, sc, device, seed=sc.trial.seed, on_stage=stage)
-    verdict = build_verdict3d(sc, device, runs, metrics, pushes, mc, holds, twin)
+    stage(f"the scenario's own trial at half the step ({sc.world.step / 2 * 1e3:g} ms)")
+    conv = step_convergence(sc, coarse=runs["nominal"])
+    verdict = build_verdict3d(sc, device, runs, metrics, pushes, mc, holds, twin, conv)
     return CheckOutcome(verdict=verdict, runs=runs, pushes=pushes, mc_rows=mc["rows"] if mc else [])
 
 
 def build_verdict3d(sc, device, runs: dict, metrics: dict, pushes: dict, mc: dict | None, holds: list[dict],
-                    twin: dict | None) -> dict:
-    """Criteria and the verdict dictionary written to verdict.json (SI, units in the keys)."""
+                    twin: dict | None, conv: dict | None = None) -> dict:
+    """Criteria and the verdict dictionary written to verdict.json (SI, units in the keys); `conv`: the
+    step-halving figures (`sim.studies.step_check`), judged as `step_halving_change` (None: left out)."""
     worst_dir = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
     wheels = wheel_figures(sc, device, runs, metrics)
     crit = (_run_criteria(sc, metrics, pushes, worst_dir, wheels) + [runaway_criterion3d(sc, holds)]
-            + _static_criteria(sc, device, runs["hold"], wheels, mc))
+            + _static_criteria(sc, device, runs["hold"], wheels, mc) + ([step_criterion(conv)] if conv else []))
     return {
         "passed": all(c["passed"] for c in crit),
         "scenario": sc.source, "name": sc.name, "strategy": sc.strategy.kind,
@@ -90,9 +95,18 @@ def build_verdict3d(sc, device, runs: dict, metrics: dict, pushes: dict, mc: dic
                  for name, m in metrics.items()},
         "runaway_holds": [{"axis": h["axis"], "wheel": h["wheel"], **s} for h, s in zip(holds, runaway_summary(holds))],
         **({"axis_cost": axis_cost(device, pushes, metrics["nominal"], twin)} if twin is not None else {}),
+        **({"step_convergence": conv} if conv else {}),
         "requirements": sc.requirements.model_dump(),
         "safety": list(SAFETY_NOTES),
     }
+
+
+def step_criterion(conv: dict) -> dict:
+    """`step_halving_change`: the largest relative change of peak tilt or peak wheel speed when the physics
+    step halves, against STEP_REL_TOL; fails too on a changed or diverged outcome or parted traces
+    (pybullet takes the gyroscopic coupling explicitly: README, 3D devices)."""
+    value = max(conv["peak_tilt_change"], conv["peak_wheel_speed_change"])
+    return _criterion("step_halving_change", value, STEP_REL_TOL, conv["converged"], step_note(conv))
 
 
 def _smallest(values):
@@ -188,14 +202,20 @@ def _static_criteria(sc, device, hold_run, wheels: list[dict], mc: dict | None) 
     bursts = [(w["wheel"], w["burst"]) for w in wheels]
     known = [(i, b) for i, b in bursts if b["safety_factor"] is not None]
     weak_i, weak = min(known, key=lambda ib: ib[1]["safety_factor"]) if known else (None, None)
-    unknown = [f"wheel {i}: {', '.join(b['unknown_parts'])}" for i, b in bursts if b["unknown_parts"]]
+    unknown = [f"wheel {i}: {', '.join(b['unknown_parts']).replace('wheel.parts[', f'wheels[{i - 1}].parts[')}"
+               if sc.wheels is not None else f"wheel {i}: {', '.join(b['unknown_parts'])}" for i, b in bursts if b["unknown_parts"]]
     note = "each wheel's parts at its own runaway speed (no-load speed at full supply)"
+    # the stress check names a part as `wheel.parts[k]`; with a `wheels:` list the key is wheels[i].parts[k]
+    listed = sc.wheels is not None
+
+    def key(i: int, text: str) -> str:
+        return text.replace("wheel.parts[", f"wheels[{i - 1}].parts[") if listed else text
     if weak is not None:
         part = min((p for p in weak["parts"] if p["safety_factor"] is not None), key=lambda p: p["safety_factor"])
-        note = f"weakest: wheel {weak_i}, {part['part']} at {weak['runaway_speed_rad_s']:.0f} rad/s; " + note
+        note = f"weakest: wheel {weak_i}, {key(weak_i, part['part'])} at {weak['runaway_speed_rad_s']:.0f} rad/s; " + note
     if unknown:
         note = f"strength unknown for {'; '.join(unknown)}: cannot confirm; " + note
-    notes = [optimistic_summary(b) for _, b in bursts if optimistic_summary(b)]
+    notes = [f"wheel {i}: {key(i, optimistic_summary(b))}" for i, b in bursts if optimistic_summary(b)]
     if notes:
         note += "; " + "; ".join(notes)
     factor = weak["safety_factor"] if weak is not None else None
