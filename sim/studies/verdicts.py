@@ -75,10 +75,14 @@ class EarlyStop:
             return
         th, thd, _, phd = engine.read()
         self.peak_wheel_rad_s = max(self.peak_wheel_rad_s, abs(phd))
-        angle = math.remainder(th, 2 * math.pi)
-        if abs(angle) > self.release:
+        self.judge(k, abs(math.remainder(th, 2 * math.pi)), abs(thd))
+
+    def judge(self, k: int, angle_rad: float, rate_rad_s: float) -> None:
+        """Raise `_Stop` when the run is clearly lost or caught at tick row k (|angle|, |rate|;
+        a 3D device's tilt and tilt rate, `sim.studies.battery3d.EarlyStop3D`)."""
+        if angle_rad > self.release:
             raise _Stop("lost", k * self.dt)
-        if k < self.first_k or abs(angle) > SETTLE_BAND_RAD or abs(thd) > SETTLED_RATE_RAD_S:
+        if k < self.first_k or angle_rad > SETTLE_BAND_RAD or rate_rad_s > SETTLED_RATE_RAD_S:
             self.settled_since = None
             return
         if self.settled_since is None:
