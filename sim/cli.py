@@ -51,7 +51,7 @@ def _refuse_3d(sc, command: str) -> None:
         raise InputError(f"{sc.source}: `wheelbench {command}` takes one-wheel hinge devices only in this release; "
                          "this scenario describes a 3D device (wheels:, a ball mount, parts placed in 3D, a start "
                          "tilt or vector pushes): use `wheelbench run`" + (" without --video" if command.startswith("run")
-                                                                           else " or `wheelbench gains`"))
+                                                                           else ", `gains`, `sweep`, `tune` or `catch-map`"))
 
 
 _ANNOUNCED: set[str] = set()   # plug-in files this command has named on stderr (reset by main)
