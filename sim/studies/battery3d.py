@@ -32,7 +32,7 @@ from ..run.metrics import PUSH_RECOVER_S
 from ..run.metrics3d import trial_metrics3d
 from ..run.trial import run_trial
 from .thermal import winding_check
-from .verdicts import PUSH_AT_S, PUSH_REL_TOL, EarlyStop, _Stop
+from .verdicts import PUSH_AT_S, PUSH_REL_TOL, EarlyStop, _Stop, with_trial
 
 HOLD_S = 3.0            # the upright hold with sensor noise (shorter than check's 5 s: a 3D trial costs more)
 PUSH_MAX_EVALS = 16     # per direction (check's 24 for one; a ball mount has four)
@@ -125,12 +125,6 @@ def run_until_clear3d(scenario, *, seed: int, not_before_s: float = 0.0) -> dict
 
 # ----------------------------------------------------------------------------- pushes
 
-def with_trial3d(scenario, **changes):
-    """A copy of a validated scenario with its `trial` section changed (re-checked by pydantic)."""
-    trial = scenario.trial.model_validate({**scenario.trial.model_dump(), **changes})
-    return scenario.model_copy(update={"trial": trial})
-
-
 def upright_start(scenario) -> dict:
     """The start at rest upright: `tilt` on a ball mount, `angle` on a hinge."""
     if scenario.body.mount == "ball":
@@ -149,7 +143,7 @@ def push_directions(scenario) -> dict[str, tuple[float, float, float]]:
 def push_survived3d(scenario, direction, impulse_n_m_s: float, *, seed: int) -> bool:
     """Held upright at rest, does the device recover from one push of this size along `direction`?"""
     vec = [float(impulse_n_m_s * c) for c in direction]
-    sc = with_trial3d(scenario, duration=PUSH_AT_S + PUSH_RECOVER_S, start=upright_start(scenario),
+    sc = with_trial(scenario, duration=PUSH_AT_S + PUSH_RECOVER_S, start=upright_start(scenario),
                       pushes=[Push(at=PUSH_AT_S, impulse=tuple(vec))])
     return run_until_clear3d(sc, seed=seed, not_before_s=PUSH_AT_S + sc.world.step)["caught"]
 
@@ -213,7 +207,7 @@ def run_battery3d(raw: dict, where: str, *, trials: int = 0) -> Battery3D:
     req = sc.requirements
     release = getattr(sc.strategy.params, "release_angle", math.pi)
     nominal = judge_trial3d(sc, seed=sc.trial.seed)
-    hold = judge_trial3d(with_trial3d(sc, duration=HOLD_S, start=upright_start(sc), pushes=[]), seed=sc.trial.seed)
+    hold = judge_trial3d(with_trial(sc, duration=HOLD_S, start=upright_start(sc), pushes=[]), seed=sc.trial.seed)
     start = max(req.min_push, 1e-3)
     pushes = {name: max_push3d(sc, d, seed=sc.trial.seed, start_n_m_s=start) for name, d in push_directions(sc).items()}
     worse = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])

@@ -101,13 +101,14 @@ def cell_start(kind: str, x: float, y: float, direction_rad: float) -> dict:
 
 def cell_task3d(payload: dict) -> dict:
     """Run one cell (module-level so worker processes can run it)."""
-    from .battery3d import run_until_clear3d, with_trial3d
+    from .battery3d import run_until_clear3d
+    from .verdicts import with_trial
     kind = payload["kind"]
     (xcol, _, _), (ycol, _, _) = AXES[kind]
     row = {xcol: payload["x"], ycol: payload["y"]}
     try:
         base, limits = _base_scenario(payload)
-        sc = with_trial3d(base, start=cell_start(kind, payload["x"], payload["y"], payload["direction_rad"]))
+        sc = with_trial(base, start=cell_start(kind, payload["x"], payload["y"], payload["direction_rad"]))
     except (ScenarioError, ValueError) as exc:   # pydantic's ValidationError is a ValueError
         return row | {"caught": False, "outcome": "invalid", "message": str(exc).splitlines()[0]}
     res = run_until_clear3d(sc, seed=payload["seed"])
