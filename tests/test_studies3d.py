@@ -241,3 +241,16 @@ def test_tune_searches_the_multi_wheel_lqr_and_resumes(tmp_path, capsys):
     assert main([*argv[:3], "3", *argv[4:]]) == 0
     again = _rows(out / "tune.csv")
     assert len(again) == 3 and again[:2] == rows
+
+
+@pytest.mark.slow
+def test_one_wheel_sweep_and_catch_map_files_are_unchanged(tmp_path):
+    """The planar outputs byte for byte: digests of the same commands run by main at 7b62bdc,
+    before sweep and catch-map learned 3D devices."""
+    import hashlib
+    assert main(["sweep", "--vary", "drive.supply=10V,14V", "--set", "trial.duration=1.5 s", "--set", "trial.pushes=[]",
+                 "--out", str(tmp_path / "sw"), "--workers", "1"]) == 0
+    assert main(["catch-map", "--grid", "3", "--out", str(tmp_path / "cm"), "--workers", "1"]) == 0
+    digests = {f: hashlib.sha256((tmp_path / f).read_bytes()).hexdigest() for f in ("sw/results.csv", "cm/catch_map.csv")}
+    assert digests == {"sw/results.csv": "682222c27220191bdfab356824c2b9484e6924804b07823d5bb9805da22d4f08",
+                       "cm/catch_map.csv": "4b2e512d321542dc5a942839bc32e0796fb7803865b23598ccaedff2206653b0"}
