@@ -127,7 +127,7 @@ def run_until_clear3d(scenario, *, seed: int, not_before_s: float = 0.0) -> dict
 
 def upright_start(scenario) -> dict:
     """The start at rest upright: `tilt` on a ball mount, `angle` on a hinge."""
-    if scenario.body.mount == "ball":
+    if scenario.design_mount == "ball":
         return {"tilt": [0.0, 0.0], "angle": 0.0, "rate": 0.0, "wheel_speed": 0.0}
     return {"tilt": None, "angle": 0.0, "rate": 0.0, "wheel_speed": 0.0}
 
@@ -135,7 +135,7 @@ def upright_start(scenario) -> dict:
 def push_directions(scenario) -> dict[str, tuple[float, float, float]]:
     """Horizontal world directions a push is tried along: +-x on a hinge (its axis), +-x and +-y on a ball."""
     out = {"+x": (1.0, 0.0, 0.0), "-x": (-1.0, 0.0, 0.0)}
-    if scenario.body.mount == "ball":
+    if scenario.design_mount == "ball":
         out |= {"+y": (0.0, 1.0, 0.0), "-y": (0.0, -1.0, 0.0)}
     return out
 

@@ -53,15 +53,18 @@ AXES_OPTIONS = {"tilt-x,tilt-y": "tilt", "tilt,rate": "rate", "angle,rate": "rat
 
 def map_kind(scenario, *, axes: str | None, direction_rad: float | None, rate_given: bool) -> str:
     """Which map the options ask for on this device; InputError naming the option when it does not fit."""
-    ball = scenario.body.mount == "ball"
+    ball = scenario.design_mount == "ball"     # a floor mount balancing on a corner maps as a ball
+    if direction_rad is not None and scenario.body.mount == "floor":
+        raise InputError(f"--direction: {scenario.source} has a floor mount, whose start takes no rate about "
+                         "two axes; map its start tilts (--axes tilt-x,tilt-y)")
     if axes is not None and axes.replace(" ", "") not in AXES_OPTIONS:
         raise InputError(f"--axes {axes!r}: expected one of {', '.join(AXES_OPTIONS)}")
     wanted = None if axes is None else AXES_OPTIONS[axes.replace(" ", "")]
     if direction_rad is not None and not ball:
-        raise InputError(f"--direction: {scenario.source} has a hinge mount, which tips about its hinge only; "
+        raise InputError(f"--direction: {scenario.source} balances on a hinge or an edge, which tips about it only; "
                          "a direction is for a ball mount")
     if wanted == "tilt" and not ball:
-        raise InputError(f"--axes {axes}: {scenario.source} has a hinge mount, which has no tilt about world y; "
+        raise InputError(f"--axes {axes}: {scenario.source} balances on a hinge or an edge, which has no tilt about world y; "
                          "its map is angle against rate")
     if wanted == "tilt" and direction_rad is not None:
         raise InputError(f"--axes {axes} and --direction: a grid of two tilts has no direction; give --axes tilt,rate")
