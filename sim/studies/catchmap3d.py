@@ -42,7 +42,7 @@ AXES = {   # kind: ((CSV column, axis label, unit shown), (...)); angles shown i
     "tilt": (("tilt_x_rad", "start tilt about world x", "deg"), ("tilt_y_rad", "start tilt about world y", "deg")),
     "direction": (("tilt_along_rad", "start tilt about the axis at {phi} deg from world x", "deg"),
                   ("rate_along_rad_s", "start tilt rate about that axis", "rad/s")),
-    "angle": (("angle_rad", "start angle about the hinge", "deg"), ("rate_rad_s", "start body rate about the hinge",
+    "angle": (("angle_rad", "start angle about the hinge (or balance edge)", "deg"), ("rate_rad_s", "start body rate about it",
                                                                       "rad/s")),
 }
 
