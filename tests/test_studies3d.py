@@ -194,6 +194,9 @@ def test_catch_map_refuses_options_that_do_not_fit_the_device(tmp_path, capsys):
     _one_line_exit_2(capsys, ["catch-map", POLE, "--rate-max", "1 rad/s", "--out", out], out=out,
                      says=("--rate-max", "--direction"))
     _one_line_exit_2(capsys, ["catch-map", POLE, "--axes", "tilt-z,rate", "--out", out], out=out, says=("--axes",))
+    floor = str(ROOT / "scenarios" / "floor_cube.yaml")     # its start takes no rate about two axes
+    _one_line_exit_2(capsys, ["catch-map", floor, "--direction", "10 deg", "--out", out], out=out,
+                     says=("--direction", "floor"))
     _one_line_exit_2(capsys, ["catch-map", POLE, "--direction", "north", "--out", out], out=out, says=("--direction",))
 
 
