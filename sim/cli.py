@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 import os
 import sys
 from pathlib import Path
@@ -43,7 +44,7 @@ def _load(scenario: Optional[Path], overrides: Optional[List[str]], *, command: 
     return sc
 
 
-TAKES_3D = {"check"}   # commands (besides run and gains) that take 3D devices
+TAKES_3D = {"check", "sweep", "tune", "catch-map"}   # commands (besides run, compare and gains) that take 3D devices
 
 
 def _refuse_3d(sc, command: str) -> None:
@@ -52,8 +53,8 @@ def _refuse_3d(sc, command: str) -> None:
         from .core.errors import InputError
         raise InputError(f"{sc.source}: `wheelbench {command}` takes one-wheel hinge devices only in this release; "
                          "this scenario describes a 3D device (wheels:, a ball mount, parts placed in 3D, a start "
-                         "tilt or vector pushes): use `wheelbench run`" + (" without --video" if command.startswith("run")
-                                                                           else " or `wheelbench gains`"))
+                         "tilt or vector pushes): `run`, `compare`, `gains`, `check`, `sweep`, `tune` and `catch-map` "
+                         "take it")
 
 
 _ANNOUNCED: set[str] = set()   # plug-in files this command has named on stderr (reset by main)
@@ -348,6 +349,9 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
     check_trials(trials, minimum=0)
     check_out_path(out)
     raw, where = _load_raw(scenario, set_, workers, cluster, command="sweep")
+    from .model.scenario_yaml import validate_loaded
+    from .studies.sweep_figure import check_color_fits
+    check_color_fits(color, validate_loaded(raw, where=where))
     varies = [parse_vary(v) for v in vary]
     out_dir = prepare_out_dir(out, force=force, wait=wait)
     bar, update = progress("sweep")
@@ -420,7 +424,12 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
                   rate_max: Optional[str] = typer.Option(None, "--rate-max", help="Largest start body rate, e.g. '3 rad/s'."),
                   out: Path = typer.Option(Path("runs/catch_map"), "--out", help="Output folder."),
                   workers: Optional[int] = WorkersOpt, cluster: Optional[str] = ClusterOpt,
-                  set_: Optional[List[str]] = SetOpt, force: bool = ForceOpt):
+                  set_: Optional[List[str]] = SetOpt, force: bool = ForceOpt,
+                  axes: Optional[str] = typer.Option(None, "--axes", help="3D devices: tilt-x,tilt-y (a ball "
+                                                     "mount's default: two start tilts) or tilt,rate."),
+                  direction: Optional[str] = typer.Option(None, "--direction", help="Ball mount: map tilt against "
+                                                          "rate about the horizontal axis this far from world x, "
+                                                          "e.g. '30 deg'.")):
     """Map which start states (angle, body rate) the balance law catches; catch_map.csv and .png."""
     from .studies.catchmap import catch_map, write_catch_map
     from .core.errors import InputError
@@ -428,6 +437,11 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
     from .core.units import parse_quantity
     check_out_path(out)
     raw, where = _load_raw(scenario, set_, workers, cluster, command="catch-map")
+    from .model.scenario_yaml import validate_loaded
+    sc = validate_loaded(raw, where=where)
+    if sc.is_planar and (axes is not None or direction is not None):
+        raise InputError(f"{'--axes' if axes is not None else '--direction'}: {sc.source} describes a one-wheel "
+                         "hinge device; its map is angle against rate (the option is for 3D devices)")
     limits = []
     for name, text, kind in (("--angle-max", angle_max, "angle"), ("--rate-max", rate_max, "angular_speed")):
         try:
@@ -436,6 +450,10 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
             raise InputError(f"{name}: {exc}") from None
     from .studies.catchmap import check_map_options
     check_map_options(grid=grid, angle_max=limits[0], rate_max=limits[1])
+    if not sc.is_planar:    # one to three wheels, hinge or ball
+        _catch_map3d(raw, where, sc, grid=grid, limits=limits, axes=axes, direction=direction, out=out,
+                     workers=workers, cluster=cluster, force=force)
+        return
     out_dir = prepare_out_dir(out, force=force)
     bar, update = progress("catch map")
     with bar:
@@ -446,6 +464,32 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
     typer.echo(f"{caught} of {len(result['rows'])} start states caught by {result['strategy']} "
                f"(angle +-{result['angle_max_rad']:.3f} rad, rate +-{result['rate_max_rad_s']:.3f} rad/s); "
                f"wrote {out_dir}/catch_map.csv, catch_map.png")
+    typer.echo(SAFETY)
+
+
+def _catch_map3d(raw, where, sc, *, grid, limits, axes, direction, out, workers, cluster, force) -> None:
+    from .core.errors import InputError
+    from .core.outputs import prepare_out_dir
+    from .core.units import parse_quantity
+    from .studies.catchmap3d import axis_labels, catch_map3d, map_kind, write_catch_map3d
+    try:
+        phi = None if direction is None else parse_quantity(direction, "angle")
+    except ValueError as exc:
+        raise InputError(f"--direction: {exc}") from None
+    map_kind(sc, axes=axes, direction_rad=phi, rate_given=limits[1] is not None)   # before --out is made
+    out_dir = prepare_out_dir(out, force=force)
+    bar, update = progress("catch map")
+    with bar:
+        result = catch_map3d(raw, where, grid=grid, angle_max=limits[0], rate_max=limits[1], axes=axes,
+                             direction_rad=phi, workers=workers, cluster=cluster, on_progress=update)
+    write_catch_map3d(result, out_dir)
+    caught = sum(bool(r["caught"]) for r in result["rows"])
+    ranges = ", ".join(f"{label} +-{(math.degrees(m) if '[deg]' in label else m):.3g}"
+                       for label, m in zip(axis_labels(result), (result["angle_max_rad"], result["rate_max_rad_s"]
+                                                                 or result["angle_max_rad"])))
+    typer.echo(f"{caught} of {len(result['rows'])} start states caught by {result['strategy']} ({ranges}); "
+               f"largest tilt the wheels can hold (statics): {math.degrees(result['holdable_tilt_rad']):.3g} deg; "
+               f"wrote {out_dir}/catch_map.csv, catch_map.json, catch_map.png")
     typer.echo(SAFETY)
 
 

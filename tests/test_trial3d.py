@@ -195,15 +195,16 @@ def test_run_writes_per_axis_and_per_wheel_files(tmp_path):
     assert (tmp_path / "out" / "summary.png").stat().st_size > 10_000
 
 
-@pytest.mark.parametrize("command", [["sweep", "--vary", "drive.supply=10,12"], ["catch-map"]])
-def test_other_commands_refuse_a_3d_device(command, tmp_path, capsys):
+def test_fit_refuses_a_3d_device(tmp_path, capsys):
+    # every other command takes 3D devices; fitting a bench log to a 3D model is not built
     raw = scenario_dict(body=OFF_AXIS_BODY, motor=MOTOR, strategy={"kind": "coast"},
                         trial={"duration": 0.2, "start": {"tilt": [0.1, 0.0]}})
     raw.pop("wheel")
     raw["wheels"] = copy.deepcopy(THREE)
     path = write_scenario(tmp_path / "three.yaml", raw)
-    code = main([command[0], str(path), *command[1:], *(["--out", str(tmp_path / "o")] if command[0] in
-                                                         ("check", "sweep", "catch-map") else [])])
+    log = tmp_path / "log.csv"
+    log.write_text("t_s,angle_rad\n" + "".join(f"{k * 0.01},{0.1 * (-1) ** (k // 20)}\n" for k in range(200)))
+    code = main(["fit", str(log), "--test", "free-swing", "--scenario", str(path), "--out", str(tmp_path / "o")])
     err = capsys.readouterr().err.strip()
     assert code == 2
     assert len(err.splitlines()) == 1 and "takes one-wheel hinge devices only" in err, err

@@ -38,24 +38,42 @@ def holdable_tilt(device) -> tuple[float, float | None]:
     if device.mount == "hinge":
         capacity = float(np.sum(stalls * np.abs(axes[:, 0])))
         return math.asin(min(1.0, capacity / mgd)), None
-    from scipy.optimize import linprog
-
     worst, worst_phi = math.inf, 0.0
-    n = len(stalls)
     for phi in np.linspace(0.0, math.pi, HOLD_DIRECTIONS // 2, endpoint=False):   # +-u hold alike
-        u = np.array([math.cos(phi), math.sin(phi)])
-        v = np.array([-u[1], u[0]])
-        # variables: wheel torques t_i and the torque alpha along u; maximise alpha with
-        # sum t_i (a_i . u) = alpha, sum t_i (a_i . v) = 0 (horizontal components), |t_i| <= stall_i
-        c = np.zeros(n + 1)
-        c[-1] = -1.0
-        a_eq = np.vstack([np.append(axes[:, :2] @ u, -1.0), np.append(axes[:, :2] @ v, 0.0)])
-        bounds = [(-s, s) for s in stalls] + [(0.0, None)]
-        res = linprog(c, A_eq=a_eq, b_eq=np.zeros(2), bounds=bounds, method="highs")
-        alpha = float(res.x[-1]) if res.success else 0.0
+        alpha = _hold_torque(axes, stalls, float(phi))
         if alpha < worst:
             worst, worst_phi = alpha, float(phi)
     return math.asin(min(1.0, worst / mgd)), worst_phi
+
+
+def holdable_tilt_about(device, phi_rad: float) -> float:
+    """The largest tilt (rad) a ball-mounted device's wheels can hold about the horizontal axis at
+    `phi_rad` from the heading frame's x axis (the same linear program as `holdable_tilt`)."""
+    mgd = device.gravity_torque_coeff_n_m
+    if mgd <= 0:
+        return math.pi
+    r0 = np.array(device.upright())
+    axes = np.array([r0 @ np.array(w.axis) for w in device.wheels])
+    stalls = np.array([stall_torque_n_m(w) for w in device.wheels])
+    return math.asin(min(1.0, _hold_torque(axes, stalls, phi_rad) / mgd))
+
+
+def _hold_torque(axes: np.ndarray, stalls: np.ndarray, phi: float) -> float:
+    """The largest torque about the horizontal axis u at `phi` the wheels give with no torque about
+    the other horizontal axis, N m (`axes`: wheel axes upright, world frame)."""
+    from scipy.optimize import linprog
+
+    n = len(stalls)
+    u = np.array([math.cos(phi), math.sin(phi)])
+    v = np.array([-u[1], u[0]])
+    # variables: wheel torques t_i and the torque alpha along u; maximise alpha with
+    # sum t_i (a_i . u) = alpha, sum t_i (a_i . v) = 0 (horizontal components), |t_i| <= stall_i
+    c = np.zeros(n + 1)
+    c[-1] = -1.0
+    a_eq = np.vstack([np.append(axes[:, :2] @ u, -1.0), np.append(axes[:, :2] @ v, 0.0)])
+    bounds = [(-s, s) for s in stalls] + [(0.0, None)]
+    res = linprog(c, A_eq=a_eq, b_eq=np.zeros(2), bounds=bounds, method="highs")
+    return float(res.x[-1]) if res.success else 0.0
 
 
 def figures3d_text(device, spec) -> list[str]:

@@ -513,6 +513,8 @@ class Start(Strict):
     """Relative wheel speed, rad/s: one for every wheel, or a list with one per wheel (`wheels:`)."""
     tilt: Annotated[list[Q("angle", ge=-math.pi / 2, le=math.pi / 2)], Field(min_length=2, max_length=2)] | None = None
     """Ball mount: the start attitude as [about x, about y] from upright (R = Ry(about_y) Rx(about_x)), rad."""
+    tilt_rate: Annotated[list[Q("angular_speed", ge=-MAX_SPEED, le=MAX_SPEED)], Field(min_length=2, max_length=2)] | None = None
+    """Ball mount: the start body rate [about world x, about world y], rad/s (default: at rest)."""
     resting_on: Literal["face", "edge", "corner"] | None = None
     """Floor mount: start lying on a face, on the balance edge or on the corner, at rest (`sim.model.floor`)."""
     side: Literal[1, -1] | None = None
@@ -621,6 +623,9 @@ class Scenario(Strict):
         ball = self.design_mount == "ball"
         if self.trial.start.tilt is not None and not ball:
             raise ValueError("@trial.start.tilt: a start tilt [about_x, about_y] needs body.mount: ball (a hinge takes start.angle)")
+        if self.trial.start.tilt_rate is not None and not ball:
+            raise ValueError("@trial.start.tilt_rate: a start rate [about_x, about_y] needs body.mount: ball "
+                             "(a hinge takes start.rate)")
         if ball and (self.trial.start.angle or self.trial.start.rate):
             raise ValueError("@trial.start.angle: a ball mount starts from trial.start.tilt [about_x, about_y] at rest")
         speeds = self.trial.start.wheel_speed
@@ -656,7 +661,8 @@ class Scenario(Strict):
         per-wheel start speeds or vector pushes."""
         return (self.wheels is None and self.body.mount == "hinge"
                 and not any(p.placed_off_axis for p in self.body.parts)
-                and self.trial.start.tilt is None and not isinstance(self.trial.start.wheel_speed, list)
+                and self.trial.start.tilt is None and self.trial.start.tilt_rate is None
+                and not isinstance(self.trial.start.wheel_speed, list)
                 and not any(isinstance(p.impulse, tuple) for p in self.trial.pushes))
 
     @property

@@ -170,7 +170,9 @@ def _reset(engine: Engine3D, scenario, device: Device3D) -> None:
         engine.reset(attitude=attitude, rate_world=rate, wheel_speeds_rad_s=speeds)
     elif device.mount == "ball":
         tx, ty = start.tilt if start.tilt is not None else (0.0, 0.0)
-        engine.reset(attitude=matmul(rotation_about_x_y(tx, ty), r0), wheel_speeds_rad_s=speeds)
+        rx, ry = start.tilt_rate if start.tilt_rate is not None else (0.0, 0.0)
+        engine.reset(attitude=matmul(rotation_about_x_y(tx, ty), r0), rate_world=(rx, ry, 0.0),
+                     wheel_speeds_rad_s=speeds)
     else:
         a0 = math.atan2(r0[2][1], r0[2][2])
         engine.reset(attitude=None, hinge_angle_rad=start.angle + a0, hinge_rate_rad_s=start.rate,

@@ -59,16 +59,19 @@ _BASE: dict = {}
 
 
 def _base_scenario(payload: dict):
-    """(validated balance scenario with the cell window, wheel no-load speed rad/s), cached by key."""
+    """(validated balance scenario with the cell window, wheel no-load speed rad/s), cached by key.
+    A 3D device's (`sim.studies.catchmap3d`) gives a list: each wheel's no-load speed."""
     key = payload["key"]
     if key not in _BASE:
         from ..model.device import Device
+        from ..model.device3d import Device3D
         from ..model.scenario import validate_scenario
         raw = copy.deepcopy(payload["raw"])
         raw["trial"] = {**(raw.get("trial") or {}), "duration": payload["window_s"], "pushes": []}
         sc = validate_scenario(raw, where=payload["where"])
         _BASE.clear()
-        _BASE[key] = (sc, Device.from_scenario(sc).no_load_speed_rad_s)
+        _BASE[key] = (sc, Device.from_scenario(sc).no_load_speed_rad_s if sc.is_planar
+                      else [w.no_load_speed_rad_s for w in Device3D.from_scenario(sc).wheels])
     return _BASE[key]
 
 

@@ -47,6 +47,7 @@ METRIC_COLUMNS = ("point", "seed", "outcome", "caught_at_s", "settle_time_s", "p
                   "wheel_burst_safety_factor", "burst_note", "wheel_runaway_time_s", "pushes_survived", "pushes",
                   "mc_trials", "pass_fraction", "pass_fraction_low", "pass_fraction_high",
                   "passed", "fail_reasons", "message")
+_WHEEL_COUNT = re.compile(rb'"wheel_count": (\d+)')
 _RANGE = re.compile(r"^(?P<lo>.+?)\.\.(?P<hi>.+):(?P<n>\d+)$")
 
 
@@ -183,6 +184,9 @@ def _point(payload: dict) -> dict:
     for key, path, _ in payload["assign"]:
         si = value_at(sc, path)
         row[key] = si if isinstance(si, (int, float, str)) else str(si)
+    if not sc.is_planar:    # one to three wheels, hinge or ball: judged by `battery3d`
+        from .battery3d import sweep_row3d
+        return row | sweep_row3d(sc, raw, payload["where"], seed=seed, trials=payload["trials"])
     row.update(judge_trial(sc, seed=seed))
     device = Device.from_scenario(sc)
     burst_check = wheel_burst_check(sc, device)
@@ -261,7 +265,7 @@ class PointSummaries:
     the figure's axes) or None for a point not finished.
     """
 
-    FIELDS = ("wheel_speed_margin", "pass_fraction", "settle_time_s", "mc_trials")
+    FIELDS = ("wheel_speed_margin", "pass_fraction", "settle_time_s", "mc_trials", "peak_tilt_rad")
 
     def __init__(self, varies: list[Vary], *, extra: tuple[str, ...] = ()):
         self.FIELDS = self.FIELDS + tuple(f for f in extra if f not in self.FIELDS)   # e.g. --color's metric
@@ -340,11 +344,12 @@ def write_results_csv(path: Path, varies: list[Vary], journal_path: Path) -> Non
     line, a second writes them in point order, so memory is one offset per point, not one row.
     When any point ran through the power chain, its figures (`monte_carlo.POWER_ROW_KEYS`) follow the
     metric columns (blank for points without it); a sweep without one has exactly the columns it had.
+    Points of a 3D device add `peak_tilt_rad`, `wheel_count` and each wheel's figures last.
     """
     from .monte_carlo import POWER_ROW_KEYS
     columns = [v.key for v in varies] + list(METRIC_COLUMNS)
     offsets = np.full(int(np.prod([len(v.values) for v in varies])), -1, dtype=np.int64)
-    power = False
+    power, wheels = False, 0
     if journal_path.exists():
         with open(journal_path, "rb") as fh:
             fh.readline()                               # the header
@@ -353,9 +358,14 @@ def write_results_csv(path: Path, varies: list[Vary], journal_path: Path) -> Non
                 if line.endswith(b"\n"):
                     offsets[_journal_index(line)] = at
                     power = power or b'"min_supply_voltage_v"' in line
+                    found = _WHEEL_COUNT.search(line)
+                    wheels = max(wheels, int(found.group(1)) if found else 0)
                 at += len(line)
     if power:
         columns += list(POWER_ROW_KEYS)
+    if wheels:      # a 3D device's points: the peak tilt and each wheel's figures (`battery3d.wheel_columns`)
+        from .battery3d import wheel_columns
+        columns += ["peak_tilt_rad", "wheel_count"] + wheel_columns(wheels)
     with atomic_path(path) as tmp, open(tmp, "w", newline="", encoding="utf-8") as out:
         writer = csv.DictWriter(out, fieldnames=columns, extrasaction="ignore")
         writer.writeheader()

@@ -15,13 +15,29 @@ from .sweep import PointSummaries, Vary, axis_indices
 COLOR_METRICS = ("wheel_speed_margin", "pass_fraction", "settle_time_s", "caught_at_s", "peak_wheel_speed_rad_s",
                  "peak_current_a", "rms_current_a", "winding_temperature_c", "wheel_burst_safety_factor",
                  "wheel_runaway_time_s", "pushes_survived")
+COLOR_METRICS_3D = ("peak_tilt_rad",) + tuple(f"wheel{i}_{k}" for i in (1, 2, 3) for k in (
+    "peak_speed_rad_s", "speed_margin", "peak_current_a", "rms_current_a"))
+"""Columns only a 3D device's points have (`sim.studies.battery3d`); wheels numbered from 1."""
 
 
 def check_color(metric: str | None) -> str | None:
     """`--color METRIC`: a numeric column of results.csv. InputError naming the option otherwise."""
-    if metric is not None and metric not in COLOR_METRICS:
-        raise InputError(f"--color {metric!r}: expected one of {', '.join(COLOR_METRICS)}")
+    if metric is not None and metric not in COLOR_METRICS + COLOR_METRICS_3D:
+        raise InputError(f"--color {metric!r}: expected one of {', '.join(COLOR_METRICS)} "
+                         f"(3D devices also: peak_tilt_rad, wheelN_peak_speed_rad_s, wheelN_speed_margin, "
+                         "wheelN_peak_current_a, wheelN_rms_current_a)")
     return metric
+
+
+def check_color_fits(metric: str | None, scenario) -> None:
+    """`--color` against the device: a 3D column needs a 3D device, a wheel number one it has."""
+    if metric is None or metric not in COLOR_METRICS_3D:
+        return
+    if scenario.is_planar:
+        raise InputError(f"--color {metric}: a column of 3D devices only; {scenario.source} describes a "
+                         "one-wheel planar device")
+    if metric.startswith("wheel") and int(metric[5]) > len(scenario.wheel_list):
+        raise InputError(f"--color {metric}: {scenario.source} has {len(scenario.wheel_list)} wheel(s)")
 
 
 def axis_display(v: Vary, values: list) -> tuple[list, str]:
@@ -79,9 +95,13 @@ def _line_plot(key: str, xs: list, rows: list, color: str | None = None):
     from ..media.plots import ACCENT, INK, LIMIT
     plt = _pyplot()
     pos, labels = _positions(xs)
-    fig, (ax1, ax2) = plt.subplots(2, 1, figsize=(7.5, 5.5), sharex=True, constrained_layout=True)
     metric = color or _shown_metric(rows)
-    for ax, name, colour in ((ax1, metric, INK), (ax2, "settle_time_s", ACCENT)):
+    panels = [(metric, INK), ("settle_time_s", ACCENT)]
+    if any(r is not None and r.get("peak_tilt_rad") is not None for r in rows) and metric != "peak_tilt_rad":
+        panels.append(("peak_tilt_rad", INK))     # a 3D device's points: how far the body tipped
+    fig, axes = plt.subplots(len(panels), 1, figsize=(7.5, 2.75 * len(panels)), sharex=True, constrained_layout=True)
+    ax1, ax2 = axes[0], axes[-1]
+    for ax, (name, colour) in zip(axes, panels):
         ys = [np.nan if (r is None or r.get(name) is None) else r[name] for r in rows]
         ax.plot(pos, ys, color=colour, lw=1.2, marker="o", ms=3)
         for x, y, r in zip(pos, ys, rows):

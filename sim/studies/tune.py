@@ -111,7 +111,7 @@ def _law_space(spec, device, prefix: tuple) -> list[Param]:
 
     key = ".".join(prefix)
     if spec.kind == "lqr":
-        q0, r0 = bryson_weights(device)
+        q0, r0 = bryson_weights(device) if not hasattr(device, "wheels") else _bryson_per_kind(device)
         names = ("angle", "body rate", "wheel speed")
         out = [Param(f"{key}.weights[{i}]", prefix + ("weights", i), q / 30.0, q * 30.0, True, float(q),
                      f"weight on the {names[i]}: higher holds it closer to zero, at the cost of effort"
@@ -134,6 +134,21 @@ def _law_space(spec, device, prefix: tuple) -> list[Param]:
     if spec.kind == "firmware":
         return _define_space(spec, prefix)
     return _generic_space(spec, device, prefix)
+
+
+def _bryson_per_kind(device) -> tuple[list[float], float]:
+    """A multi-wheel design's three weights (angles, rates, wheel speeds) and effort by Bryson's rule
+    (`lqr_design.bryson_limits`), one number per kind: the geometric mean over the wheels where
+    their limits differ (three weights are what `MultiWheelLqr.Params` takes)."""
+    import numpy as np
+
+    from ..strategies.lqr_design import bryson_limits, state_kind
+    spec = device.linear_spec()
+    model = spec.linear_model()
+    x_max, u_max = bryson_limits(spec, model)
+    kinds = np.array([state_kind(n) for n in model.state_names])
+    q = [float(np.exp(np.mean(np.log(1.0 / x_max[kinds == k] ** 2)))) for k in (0, 1, 2)]
+    return q, float(np.exp(np.mean(np.log(1.0 / u_max ** 2))))
 
 
 def _define_space(spec, prefix: tuple) -> list[Param]:
@@ -246,15 +261,17 @@ def search_setup(raw: dict, where: str, *, param_texts: list[str], only: bool, o
     """Check --objective and --param against the scenario and build the space (InputError or
     ScenarioError on bad input, before anything is simulated or written)."""
     from ..model.device import Device
+    from ..model.device3d import Device3D
     from ..model.scenario import validate_scenario
     sc = validate_scenario(raw, where=where)
     objectives = parse_objectives(objective, sc)
+    device = (Device if sc.is_planar else Device3D).from_scenario(sc)
     given = [parse_param(t) for t in param_texts]
     if only and not given:
         raise InputError("--only: give the keys to search with --param KEY=LO..HI")
     given = [_given_param(p, sc) for p in given]
     keys = {p.key for p in given}
-    params = ([] if only else [p for p in default_space(sc, Device.from_scenario(sc)) if p.key not in keys]) + given
+    params = ([] if only else [p for p in default_space(sc, device) if p.key not in keys]) + given
     filled = prefill(raw, sc, params)
     check_space(filled, where, params)
     return SearchSetup(sc, objectives, params, filled)
@@ -321,20 +338,30 @@ def parse_objectives(text: str, sc) -> list[str]:
 def evaluate(payload: dict) -> dict:
     """One evaluation (module-level, so worker processes can run it): the check battery without
     Monte Carlo on the scenario with the trial's parameters. Returns a flat, JSON-ready row."""
-    from .verdicts import run_check
-
     raw = copy.deepcopy(payload["raw"])
     for path, value in payload["assign"]:
         set_path(raw, list(path), value, where=payload["where"])   # values as `Param.assigned` gave them
     raw.setdefault("trial", {})["seed"] = payload["seed"]
     try:
-        outcome = run_check(raw, payload["where"], trials=0, workers=1)
+        outcome = run_battery(raw, payload["where"], trials=0, workers=1)
     except ScenarioError as exc:
         return {"error": str(exc), "criteria": [], "objectives": [None] * len(payload["objectives"])}
     v = outcome.verdict
     values = [objective_value(name, v, outcome, raw, payload["where"]) for name in payload["objectives"]]
     crit = [{"name": c["name"], "value": c["value"], "limit": c["limit"], "passed": c["passed"]} for c in v["criteria"]]
     return {"error": None, "criteria": crit, "objectives": values}
+
+
+def run_battery(raw: dict, where: str, *, trials: int, workers: int | None = None, cluster=None):
+    """`check`'s battery for a planar device (`verdicts.run_check`); for a 3D device the battery of
+    `sim.studies.battery3d` (nominal, hold, largest push per direction, Monte Carlo). Both give an
+    object with `verdict` (criteria, max_push_survived_n_m_s, runs)."""
+    from ..model.scenario import validate_scenario
+    if validate_scenario(raw, where=where).is_planar:
+        from .verdicts import run_check
+        return run_check(raw, where, trials=trials, workers=workers, cluster=cluster)
+    from .battery3d import run_battery3d
+    return run_battery3d(raw, where, trials=trials)
 
 
 def objective_value(name: str, verdict: dict, outcome, raw: dict, where: str) -> float | None:
@@ -347,7 +374,9 @@ def objective_value(name: str, verdict: dict, outcome, raw: dict, where: str) ->
         return max(r["peak_current_a"] for r in verdict["runs"].values())
     if name == "catch_area":
         from .catchmap import catch_map
-        rows = catch_map(raw, where, grid=CATCH_GRID, workers=1)["rows"]
+        from .catchmap3d import catch_map3d
+        planar = outcome.verdict.get("wheel_count") is None     # the 3D battery's verdict names its wheels
+        rows = (catch_map if planar else catch_map3d)(raw, where, grid=CATCH_GRID, workers=1)["rows"]
         return sum(bool(r["caught"]) for r in rows) / len(rows)
     raise ValueError(name)
 

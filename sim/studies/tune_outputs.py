@@ -237,10 +237,9 @@ def run_tune(setup, where: str, scenario_path: Path, out_dir: Path, *, n_trials:
              workers: int | None, cluster, seed: int | None, storage: str | None, on_done=None) -> TuneOutcome:
     """Search (`setup` from `tune.search_setup`), re-check the best with the full Monte Carlo, write
     the files. `out_dir` is prepared."""
-    from .tune import RECHECK_BEST
+    from .tune import RECHECK_BEST, run_battery
     from .tune_study import open_study, run_study, study_spec
     from .verdict_report import write_check_outputs
-    from .verdicts import run_check
 
     sc, objectives, params, raw = setup.scenario, setup.objectives, setup.params, setup.raw
     base_seed = sc.trial.seed if seed is None else seed
@@ -254,11 +253,15 @@ def run_tune(setup, where: str, scenario_path: Path, out_dir: Path, *, n_trials:
     order = ranked(evals, objectives)
     outcome.front = pareto_front(order, objectives) if len(objectives) > 1 else order[:1]
     for cand in order[:RECHECK_BEST]:
-        check = run_check(scenario_with(raw, params, cand.params), where, trials=mc_trials, workers=workers,
-                          cluster=cluster)
+        check = run_battery(scenario_with(raw, params, cand.params), where, trials=mc_trials, workers=workers,
+                            cluster=cluster)
         if check.verdict["passed"]:
             outcome.winner, outcome.verdict = cand, check.verdict
-            outcome.written += write_check_outputs(check, out_dir)
+            if sc.is_planar:
+                outcome.written += write_check_outputs(check, out_dir)
+            else:
+                from .battery3d import write_battery3d
+                outcome.written += write_battery3d(check, out_dir)
             outcome.written += write_patch_files(out_dir, scenario_path, best_patch(raw, params, cand.params),
                                                  objectives=objectives)
             break
