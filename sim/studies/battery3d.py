@@ -31,50 +31,17 @@ from ..model.tolerances import perturbed_raw, scenario_tolerances, trial_seed, w
 from ..run.metrics import PUSH_RECOVER_S, SETTLE_BAND_RAD
 from ..run.metrics3d import trial_metrics3d
 from ..run.trial import run_trial
-from .thermal import winding_check
-from .verdicts import PUSH_AT_S, PUSH_REL_TOL, SETTLED_RATE_RAD_S, EarlyStop, _Stop, with_trial
+from . import judge3d
+from .verdicts import PUSH_AT_S, SETTLED_RATE_RAD_S, EarlyStop, _Stop, largest_survived, with_trial
 
 HOLD_S = 3.0            # the upright hold with sensor noise (shorter than check's 5 s: a 3D trial costs more)
 PUSH_MAX_EVALS = 16     # per direction (check's 24 for one; a ball mount has four)
 NOT_JUDGED = ("wheel_burst_safety_factor", "wheel_runaway_time_s", "voltage_headroom", "current_headroom",
               "power criteria")
-WHEEL_KEYS = ("peak_speed_rad_s", "speed_margin", "peak_current_a", "rms_current_a")
-
-
-def wheel_columns(n_wheels: int) -> list[str]:
-    """The per-wheel columns of a judged row, wheel by wheel."""
-    return [f"wheel{i}_{k}" for i in range(1, n_wheels + 1) for k in WHEEL_KEYS]
-
-
 def judge_trial3d(scenario, *, seed: int) -> dict:
-    """Run a 3D scenario's own trial and judge it against its requirements. A flat row, no traces.
-
-    Reasons a row fails, as for a planar row: the outcome (not balanced), a push lost, slow to settle,
-    the worst wheel's speed margin. `winding_temperature_c` (the hottest wheel's steady temperature
-    at its RMS current) is recorded, and judged by the battery's criterion, as on the planar path."""
-    result = run_trial(scenario, seed=seed, stop_early=True)
-    m = trial_metrics3d(result)
-    req = scenario.requirements
-    reasons = []
-    if m["outcome"] not in ("balanced", "completed"):
-        reasons.append(f"{m['outcome']} ({m['cause']})" if m.get("cause") else m["outcome"])
-    if not all(p["survived"] for p in m["pushes"]):
-        reasons.append("push lost")
-    if m["outcome"] == "balanced" and (m["settle_time_s"] is None or m["settle_time_s"] > req.settle_time):
-        reasons.append("slow to settle")
-    if m["wheel_speed_margin"] is None or m["wheel_speed_margin"] < req.wheel_speed_margin:
-        reasons.append("wheel speed margin")
-    temps = [winding_check(scenario.wheel_motor(i), w["rms_current_a"])["steady_winding_temperature_c"]
-             for i, w in enumerate(m["wheels"])]
-    row = {"outcome": m["outcome"], "message": m["message"], "caught_at_s": m["caught_at_s"],
-           "settle_time_s": m["settle_time_s"], "peak_wheel_speed_rad_s": m["peak_wheel_speed_rad_s"],
-           "wheel_speed_margin": m["wheel_speed_margin"], "peak_current_a": m["peak_current_a"],
-           "rms_current_a": m["rms_current_a"], "winding_temperature_c": max(temps),
-           "pushes_survived": sum(p["survived"] for p in m["pushes"]), "pushes": len(m["pushes"]),
-           "peak_tilt_rad": m["peak_tilt_rad"], "wheel_count": m["wheel_count"], "mount": m["mount"]}
-    for i, w in enumerate(m["wheels"], start=1):
-        row.update({f"wheel{i}_{k}": w[k] for k in WHEEL_KEYS})
-    return row | {"passed": not reasons, "fail_reasons": ";".join(reasons)}
+    """The scenario's own trial judged against its requirements, with the per-wheel columns
+    (`sim.studies.judge3d`, which `check`'s Monte Carlo uses too)."""
+    return judge3d.judge_trial3d(scenario, seed=seed, per_wheel=True)
 
 
 # ----------------------------------------------------------------------------- early stopping
@@ -150,22 +117,11 @@ def push_survived3d(scenario, direction, impulse_n_m_s: float, *, seed: int) -> 
 
 def max_push3d(scenario, direction, *, seed: int, start_n_m_s: float) -> dict:
     """The largest push survived along `direction` (a horizontal unit 3-vector, world frame), N m s:
-    doubling from `start_n_m_s` until one is lost, then bisection to PUSH_REL_TOL."""
-    lo, hi, evals, size = 0.0, None, 0, start_n_m_s
-    while hi is None and evals < PUSH_MAX_EVALS:
-        evals += 1
-        if push_survived3d(scenario, direction, size, seed=seed):
-            lo, size = size, size * 2.0
-        else:
-            hi = size
-    while hi is not None and hi - lo > PUSH_REL_TOL * hi and evals < PUSH_MAX_EVALS:
-        evals += 1
-        mid = 0.5 * (lo + hi)
-        if push_survived3d(scenario, direction, mid, seed=seed):
-            lo = mid
-        else:
-            hi = mid
-    return {"max_survived_n_m_s": lo, "first_lost_n_m_s": hi, "evaluations": evals, "direction": list(direction)}
+    `sim.studies.verdicts.largest_survived` (doubling from `start_n_m_s`, then bisection)."""
+    found = largest_survived(lambda x: push_survived3d(scenario, direction, x, seed=seed), start_n_m_s=start_n_m_s,
+                             max_evals=PUSH_MAX_EVALS)
+    return {"max_survived_n_m_s": found["max_survived_n_m_s"], "first_lost_n_m_s": found["smallest_lost_n_m_s"],
+            "evaluations": len(found["evals"]), "direction": list(direction)}
 
 
 # ----------------------------------------------------------------------------- the battery

@@ -26,11 +26,12 @@ import numpy as np
 
 from ..model.device3d import Device3D
 from ..model.scenario import Push, validate_scenario
-from ..run.metrics import PUSH_RECOVER_S, SETTLE_BAND_RAD, push_outcomes
+from ..run.metrics import PUSH_RECOVER_S, push_outcomes
 from ..run.metrics3d import trial_metrics3d
 from ..run.trial3d import run_trial3d
+from .battery3d import EarlyStop3D
 from .runaway import fit_drift, runaway_time_s, settling
-from .verdicts import (HOLD_S, PUSH_AT_S, RUNAWAY_HORIZON_FACTOR, SETTLED_RATE_RAD_S, EarlyStop, _Stop, bias_ends,
+from .verdicts import (HOLD_S, PUSH_AT_S, RUNAWAY_HORIZON_FACTOR, _Stop, bias_ends,
                        largest_survived, with_trial)
 
 HOLD_TILT_RAD = math.radians(1.0)   # the hold's start tilt from upright (our choice: inside any release angle,
@@ -75,24 +76,7 @@ def push_scenario3d(sc, impulse: tuple[float, float, float]):
 
 # ----------------------------------------------------------------------------- early stopping
 
-class EarlyStop3D(EarlyStop):
-    """An `on_step` hook ending a 3D run once clearly caught or clearly lost (control ticks only).
-
-    As the planar `EarlyStop`, on the tilt: caught after `not_before_s` with the tilt within the
-    settle band (1 degree) and the horizontal body rate (about the heading frame's x and y: a ball's
-    turning about the vertical is free) below SETTLED_RATE_RAD_S for SETTLED_FOR_S; lost with the
-    tilt beyond the strategy's release angle.
-    """
-
-    read = None
-
-    def __call__(self, k: int, engine) -> None:
-        if k % self.every:
-            return
-        if self.read is None:
-            self.read = engine.io()[0]   # its own closures: the runner's state is not touched
-        tilt, (wx, wy, _) = self.read()[3:5]
-        self.judge(k, tilt, tilt <= SETTLE_BAND_RAD and math.hypot(wx, wy) <= SETTLED_RATE_RAD_S)
+# `EarlyStop3D` (sim.studies.battery3d): the planar early stop's rules on the tilt and the horizontal rates
 
 
 def push_survived3d(sc, impulse: tuple[float, float, float], *, seed: int) -> bool:

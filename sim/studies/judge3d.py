@@ -20,8 +20,19 @@ def wheel_temperatures_c(result) -> list[float]:
         for i in range(result.device.n_wheels)]
 
 
-def judge_trial3d(scenario, *, seed: int) -> dict:
-    """Run a 3D scenario's own trial and judge it against its requirements. A flat row, no traces."""
+WHEEL_KEYS = ("peak_speed_rad_s", "speed_margin", "peak_current_a", "rms_current_a")
+
+
+def wheel_columns(n_wheels: int) -> list[str]:
+    """The per-wheel columns of a judged row with `per_wheel`, wheel by wheel."""
+    return [f"wheel{i}_{k}" for i in range(1, n_wheels + 1) for k in WHEEL_KEYS]
+
+
+def judge_trial3d(scenario, *, seed: int, per_wheel: bool = False) -> dict:
+    """Run a 3D scenario's own trial and judge it against its requirements. A flat row, no traces.
+
+    `per_wheel`: add the peak tilt, the mount, the wheel count and each wheel's figures
+    (`wheel_columns`; sweeps and tuning show them)."""
     result = run_trial(scenario, seed=seed, stop_early=True)
     m = trial_metrics3d(result)
     req = scenario.requirements
@@ -36,12 +47,16 @@ def judge_trial3d(scenario, *, seed: int) -> dict:
     margins = [w["speed_margin"] for w in m["wheels"]]
     if min(margins) < req.wheel_speed_margin:
         reasons.append("wheel speed margin")
-    return {
+    row = {
         "outcome": m["outcome"], "message": m["message"], "caught_at_s": m["caught_at_s"],
         "settle_time_s": m["settle_time_s"], "peak_wheel_speed_rad_s": m["peak_wheel_speed_rad_s"],
         "wheel_speed_margin": m["wheel_speed_margin"], "worst_wheel": margins.index(min(margins)) + 1,
         "peak_current_a": m["peak_current_a"], "rms_current_a": m["rms_current_a"],
         "winding_temperature_c": max(wheel_temperatures_c(result)),
         "pushes_survived": sum(p["survived"] for p in m["pushes"]), "pushes": len(m["pushes"]),
-        "passed": not reasons, "fail_reasons": ";".join(reasons),
     }
+    if per_wheel:
+        row.update({"peak_tilt_rad": m["peak_tilt_rad"], "wheel_count": m["wheel_count"], "mount": m["mount"]})
+        for i, w in enumerate(m["wheels"], start=1):
+            row.update({f"wheel{i}_{k}": w[k] for k in WHEEL_KEYS})
+    return row | {"passed": not reasons, "fail_reasons": ";".join(reasons)}

@@ -363,8 +363,8 @@ def write_results_csv(path: Path, varies: list[Vary], journal_path: Path) -> Non
                 at += len(line)
     if power:
         columns += list(POWER_ROW_KEYS)
-    if wheels:      # a 3D device's points: the peak tilt and each wheel's figures (`battery3d.wheel_columns`)
-        from .battery3d import wheel_columns
+    if wheels:      # a 3D device's points: the peak tilt and each wheel's figures (`judge3d.wheel_columns`)
+        from .judge3d import wheel_columns
         columns += ["peak_tilt_rad", "wheel_count"] + wheel_columns(wheels)
     with atomic_path(path) as tmp, open(tmp, "w", newline="", encoding="utf-8") as out:
         writer = csv.DictWriter(out, fieldnames=columns, extrasaction="ignore")
