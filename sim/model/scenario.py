@@ -381,6 +381,9 @@ class Drive(Strict):
     this or a `battery`; with a battery it is set to the pack's open-circuit voltage at the start."""
     brake_torque: Q("torque", gt=0, le=MAX_TORQUE) | None = None
     """A mechanical brake on the wheel (for brake-to-jump strategies), N m."""
+    brake_engage_time: Q("time", ge=0, le=10) | None = None
+    """The brake's engagement time, s: its torque ramps from 0 to brake_torque over it (`sim.physics.brake`);
+    absent: full torque on the step it is engaged, as before."""
     pwm: Pwm | None = None
     """Firmware strategies read `resolution_bits`; with `frequency` the drive models the PWM."""
     mode: Literal["voltage", "current"] = "voltage"
@@ -447,6 +450,8 @@ class WheelSpec(Wheel):
     axis: Direction = (1.0, 0.0, 0.0)
     motor: Motor | None = None
     brake_torque: Q("torque", gt=0, le=MAX_TORQUE) | None = None
+    brake_engage_time: Q("time", ge=0, le=10) | None = None
+    """This wheel's brake engagement time, else `drive.brake_engage_time`, s."""
 
     @field_validator("axis")
     @classmethod
@@ -599,6 +604,18 @@ class Scenario(Strict):
         return raw
 
     @model_validator(mode="after")
+    def _brake_times_need_brakes(self):
+        drive_brake = self.drive.brake_torque is not None
+        if self.drive.brake_engage_time is not None and not (
+                drive_brake or any(getattr(w, "brake_torque", None) is not None for w in self.wheel_list)):
+            raise ValueError("@drive.brake_engage_time: needs a brake (drive.brake_torque, or a wheel's brake_torque)")
+        for i, w in enumerate(self.wheels or []):
+            if w.brake_engage_time is not None and w.brake_torque is None and not drive_brake:
+                raise ValueError(f"@wheels[{i}].brake_engage_time: this wheel has no brake (its brake_torque or "
+                                 "drive.brake_torque)")
+        return self
+
+    @model_validator(mode="after")
     def _device_keys_fit(self):
         if self.motor is None and (self.wheels is None or any(w.motor is None for w in self.wheels)):
             raise ValueError("@motor: expected a motor (shared), or a motor for every wheel in wheels")
@@ -648,6 +665,11 @@ class Scenario(Strict):
                 and not any(p.placed_off_axis for p in self.body.parts)
                 and self.trial.start.tilt is None and not isinstance(self.trial.start.wheel_speed, list)
                 and not any(isinstance(p.impulse, tuple) for p in self.trial.pushes))
+
+    def brake_engage_times(self) -> list[float | None]:
+        """Each wheel's brake engagement time (its own, else `drive.brake_engage_time`), s; None: instant."""
+        own = [getattr(w, "brake_engage_time", None) for w in self.wheel_list]
+        return [t if t is not None else self.drive.brake_engage_time for t in own]
 
     @property
     def wheel_list(self) -> list:

@@ -27,6 +27,7 @@ from ..core.errors import StrategyError
 from ..core.frames import matmul, rotation_about_x_y
 from ..model.device3d import Device3D
 from ..physics.engine3d import Engine3D
+from ..physics.brake import BrakeRamp
 from ..physics.motor import MotorDrive
 from ..physics.sensors import SensorSuite
 from ..strategies.base import Reading
@@ -122,6 +123,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     wheel_limit = [ABSURD_WHEEL_FACTOR * w.no_load_speed_rad_s + 100.0 for w in device.wheels]
     bw = [w.viscous_n_m_s for w in device.wheels]
     volts, mode, phase, name, brake_on, open_circuit = (0.0,) * nw, 0, None, None, False, False
+    ramp = _brake_ramp(scenario, device, engine, dt)   # None without a brake engagement time
     catch_k = fell_k = None
     ticks = saturated = 0
     at_supply = supply * (1.0 - 1e-9)
@@ -190,7 +192,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                     phase = strategy.phase
                     name = str(phase)
                 if strategy.brake != brake_on:
-                    brake_on = _set_brake(engine, device, bool(strategy.brake))
+                    brake_on = _set_brake(engine, device, bool(strategy.brake), ramp)
                 open_circuit = bool(strategy.open_circuit)
                 clock.leave()
             except BaseException as exc:  # noqa: B036 - the strategy's failure is its outcome
@@ -228,6 +230,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 cur, torque = update(v, s)
                 c_col[k], t_col[k] = cur, torque
                 net.append(torque - b * s)
+        if ramp is not None and ramp.active:
+            ramp.step()
         if k == next_push:   # a push's torque on its step
             advance(push_torque, net)
             next_push, push_torque = pushes.pop() if pushes else (-1, None)
@@ -267,9 +271,21 @@ def _hold_tick_values(trace: Trace3D, cs: int) -> None:
         col[: trace.n] = col[rows]
 
 
-def _set_brake(engine: Engine3D, device: Device3D, on: bool) -> bool:
+def _set_brake(engine: Engine3D, device: Device3D, on: bool, ramp=None) -> bool:
     if on and all(w.brake_torque_n_m is None for w in device.wheels):
         raise StrategyError("the strategy engaged a brake, but no wheel has a brake_torque")
+    if ramp is not None:    # an engagement time: the caps rise step by step from the next step
+        ramp.engage() if on else ramp.release()
+        return on
     engine.set_dry_friction([w.coulomb_n_m + ((w.brake_torque_n_m or 0.0) if on else 0.0) for w in device.wheels])
     return on
 
+
+
+def _brake_ramp(scenario, device: Device3D, engine: Engine3D, dt: float):
+    """The brakes' engagement ramp (`sim.physics.brake`), or None when no wheel has an engagement time."""
+    times = scenario.brake_engage_times()
+    if all(t is None for t in times):
+        return None
+    return BrakeRamp(brake_n_m=[w.brake_torque_n_m for w in device.wheels], engage_s=times,
+                     coulomb_n_m=[w.coulomb_n_m for w in device.wheels], step_s=dt, apply=engine.set_dry_friction)
