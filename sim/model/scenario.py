@@ -651,6 +651,10 @@ class Scenario(Strict):
             raise ValueError("@drive: the power chain (battery, drive.mode current, PWM frequency, reversal delay, "
                              "trips, bus capacitance, motor.curve, motor.thermal.coupled) takes one-wheel hinge "
                              "devices only in this release (this is a 3D device)")
+        mounts = getattr(self.strategy.cls, "mounts_3d", None) if self.strategy is not None else None
+        if mounts is not None and self.body.mount not in mounts:
+            raise ValueError(f"@strategy.kind: {self.strategy.kind} on a 3D device needs body.mount "
+                             f"{' or '.join(mounts)} (found {self.body.mount})")
         if self.strategy is not None and getattr(self.strategy.cls, "planar_only", False):
             raise ValueError(f"@strategy.kind: {self.strategy.kind} works on one wheel on a hinge only; this device "
                              f"has {len(self.wheel_list)} wheel(s) on a {self.body.mount} mount")

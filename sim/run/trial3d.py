@@ -115,6 +115,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     reading = Reading()
     release = getattr(getattr(strategy, "params", None), "release_angle", math.pi)
     wants_balance = strategy is not None and strategy.goal == "balance"
+    again = bool(getattr(strategy, "swings_up", False))   # a law that can get the body up again after a fall
     supply = float(scenario.drive.supply)
     motors = [MotorDrive(_WheelMotor(device, i), step_s=dt) for i in wheels]
     updates = [m.update for m in motors]
@@ -213,13 +214,13 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 if v >= at_supply or v <= -at_supply:
                     saturated += 1
                     break
-            if wants_balance:   # no 3D law swings up: once fallen, the body stays fallen
+            if wants_balance:   # once fallen, the body stays fallen, unless the law gets it up again (a jump)
                 if tilt <= release and strategy.balancing:
-                    if catch_k is None and fell_k is None:
-                        catch_k = k
+                    if catch_k is None and (fell_k is None or again):
+                        catch_k, fell_k = k, None
                 elif catch_k is not None:
                     fell_k, catch_k = k, None
-                    outcome = "fell" if stop_early else None   # with stop_early this step still runs
+                    outcome = "fell" if stop_early and not again else None   # with stop_early this step still runs
         if open_circuit:
             for i in wheels:
                 motors[i].current = i_c[i][k] = tq_c[i][k] = 0.0
