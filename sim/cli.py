@@ -157,7 +157,7 @@ def validate(scenario: Path = typer.Argument(..., help="Scenario YAML file."),
     else:
         from .model.device3d import Device3D
         from .model.device_figures3d import figures3d_text
-        lines = figures3d_text(Device3D.from_scenario(sc), sc.strategy)
+        lines = figures3d_text(Device3D.from_scenario(sc), sc.strategy, rest_tilt_rad=sc.trial.start.angle)
     typer.echo(f"{scenario}: valid.")
     for line in lines:
         typer.echo(f"  {line}")

@@ -127,3 +127,21 @@ def test_the_planar_jump_only_gained_metric_keys():
     m["jump_count"] = m.pop("jump_attempts")
     digest = hashlib.sha256(json.dumps(m, sort_keys=True).encode()).hexdigest()
     assert digest == "e16dbaf0cc6d62a0261a1318e436913945e5a65595ebb426cc165f3133ea5b0f"
+
+
+def test_validate_prints_the_jump_figures(tmp_path, capsys):
+    from conftest import scenario_dict, write_scenario
+    from sim.cli import main
+    raw = scenario_dict(body=CUBE, motor=MOTOR, drive={"supply": 24.0, "brake_torque": 20.0},
+                        strategy={"kind": "jump"}, trial={"start": {"angle": FACE}})
+    raw.pop("wheel")
+    raw["wheels"] = WHEEL
+    path = write_scenario(tmp_path / "cube.yaml", raw)
+    need = face_to_edge(Device3D.from_scenario(_cube({}, 0.1)), rest_tilt_rad=FACE).needed_wheel_speed_rad_s
+    try:
+        code = main(["validate", str(path)])
+    except SystemExit as exc:
+        code = exc.code
+    out = capsys.readouterr().out
+    assert code in (0, None)
+    assert f"jump face to edge from 45 deg: needs {need:.4g} rad/s" in out

@@ -62,8 +62,11 @@ class BrakeJump(Strategy):
 
     def __new__(cls, **kw):
         if cls is BrakeJump and hasattr(kw.get("device"), "linear_spec"):
+            # a 3D device: the face-to-edge law. Not a subclass (so Python does not run __init__ again)
             from .jump3d import JumpUp3D
-            cls = JumpUp3D
+            law = object.__new__(JumpUp3D)
+            law.__init__(**kw)
+            return law
         return super().__new__(cls)
 
     def __init__(self, **kw) -> None:

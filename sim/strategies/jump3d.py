@@ -41,7 +41,6 @@ import numpy as np
 
 from ..core.errors import StrategyError
 from .base import Reading, Strategy
-from .jump import BrakeJump
 from .jump_figures import face_to_edge, jump_margin, wheel_reach
 
 CATCH_ANGLE = math.radians(20)   # hand over to the LQR inside this tilt from balance (our choice: at 10 deg
@@ -55,9 +54,9 @@ RATIO_CLAMP = (0.1, 10.0)        # a measured energy ratio outside this is taken
 DEFAULT_ATTEMPTS = 5
 
 
-class JumpUp3D(BrakeJump):
+class JumpUp3D(Strategy):
     """Face-to-edge brake-to-jump with retries, then the multi-wheel LQR (see the module docstring).
-    A `BrakeJump` by its parameters only: none of its planar law is used."""
+    Built by `sim.strategies.jump.BrakeJump` for a 3D device, with `BrakeJump.Params`."""
 
     kind = "jump"
     goal = "balance"
@@ -68,7 +67,8 @@ class JumpUp3D(BrakeJump):
         from .lqr import LqrBalance, MultiWheelLqr     # the balance law's module imports this one's registry
         self._lqr_cls, self._lqr_params = MultiWheelLqr, LqrBalance.Params()
         spec = device.linear_spec()
-        if spec.mount != "hinge":
+        # a floor device balancing on an edge designs as a hinge (its `design_mount`, or its spec's mount)
+        if (getattr(device, "design_mount", None) or spec.mount) != "hinge":
             raise StrategyError("jump on a 3D device goes from a face up to an edge: it needs a hinge at the edge "
                                 "or a floor device balancing on an edge (the edge-to-corner jump has no law yet)")
         if all(w.brake_torque_n_m is None for w in device.wheels):
