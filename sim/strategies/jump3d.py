@@ -22,7 +22,10 @@ The law, per attempt:
    that got up, the potential plus kinetic energy at the handover over the rise) and the next
    attempt's speed factor is scaled by sqrt(E_needed / E_reached): kinetic energy goes with the
    square of the wheel speed (the correction used in the jump-up work of Gajamohan, Merz, Thommen &
-   D'Andrea, IROS 2012 [from memory]). At most `max_attempts` attempts (default 5 here).
+   D'Andrea, IROS 2012 [from memory]). A short jump is judged once the brake has locked the wheels
+   (a slipping brake still lifts the body); the ratio is taken within [0.25, 4], so one correction
+   changes the speed by at most a factor 2. At most `max_attempts` attempts (default 5 here); a body
+   that rolled onto a face away from its balance edge (tilt beyond 90 deg) is not tried again.
 
 `extra_metrics`: `needed_wheel_speed_rad_s` (lossless, from the first attempt's rest tilt),
 `reached_wheel_speed_rad_s` (the largest participating wheel's measured speed at the last brake),
@@ -50,7 +53,10 @@ SPEED_LOOP_S = 0.05              # time constant of the wheel-speed correction, 
 SETTLE_S = 0.3                   # brake anyway this long after the references reached their targets
 REST_RATE = 0.05                 # rad/s: the body is at rest below this tilt rate ...
 REST_S = 0.3                     # ... held this long (our choices)
-RATIO_CLAMP = (0.1, 10.0)        # a measured energy ratio outside this is taken at the bound
+RATIO_CLAMP = (0.25, 4.0)        # a measured energy ratio outside this is taken at the bound: one
+                                 # correction changes the speed by at most a factor 2 (our choice)
+LOCKED = 0.02                    # a wheel below 2% of its speed at the brake counts as locked to the body
+RISE_BAND = math.radians(1)      # the body has left its face once it is this far up (our choice)
 DEFAULT_ATTEMPTS = 5
 
 
@@ -139,7 +145,7 @@ class JumpUp3D(Strategy):
         if self.phase == "spin up":
             return self._spin(w, reading.t_s)
         if self.phase == "brake":
-            return self._watch_rise(reading, tilt, rate)
+            return self._watch_rise(reading, tilt, rate, w)
         if self.phase in ("fallen", "fell back"):
             return self._wait_for_rest(reading.t_s, tilt, rate, w)
         return [0.0] * len(self.units)      # gave up
@@ -167,13 +173,14 @@ class JumpUp3D(Strategy):
         m["braked_at_s"] = float(t_s)
         return [0.0] * len(self.units)
 
-    def _watch_rise(self, reading: Reading, tilt: float, rate: float):
+    def _watch_rise(self, reading: Reading, tilt: float, rate: float, w: np.ndarray):
         if abs(tilt) <= CATCH_ANGLE:
             return self._hand_over(reading, ratio=self._energy_ratio(tilt, rate))
-        if rate * self.sense > 0.0:
-            self.risen = True
-            self.peak = min(self.peak, abs(tilt))
-        elif self.risen:        # turned back short of the catch region: a short jump
+        self.peak = min(self.peak, abs(tilt))
+        self.risen = self.risen or abs(tilt) < self.theta0 - RISE_BAND
+        # judged only with the wheels locked: a brake still slipping is still lifting the body
+        locked = np.all(np.abs(w[self.used]) <= LOCKED * self.extra_metrics["reached_wheel_speed_rad_s"])
+        if self.risen and locked and rate * self.sense <= 0.0:   # turned back short of the catch region
             self._judge(self._energy_ratio(self.peak, 0.0))
             self.phase, self._rest_since = "fell back", None
         return [0.0] * len(self.units)
@@ -198,6 +205,8 @@ class JumpUp3D(Strategy):
             if t_s - self._rest_since >= REST_S:
                 if self.extra_metrics["jump_attempts"] >= self.max_attempts:
                     self.phase = "gave up"
+                elif abs(tilt) >= 0.5 * math.pi:     # rolled onto a face away from the balance edge
+                    self.phase = "gave up: the balance edge is off the floor"
                 else:
                     self.brake, self.open_circuit = False, False
                     self._plan(tilt, w)
