@@ -35,8 +35,8 @@ MOTOR = {"speed_constant": "200 rpm/V", "resistance": 1.2, "inductance": 3e-4, "
          "rotor_inertia": 2e-5, "mass": 0.09}
 
 
-def _cube(strategy: dict, duration: float, **extra):
-    return make_scenario3d(WHEEL, body=CUBE, motor=MOTOR, drive={"supply": 24.0, "brake_torque": 20.0,
+def _cube(strategy: dict, duration: float, brake: float = 20.0, **extra):
+    return make_scenario3d(WHEEL, body=CUBE, motor=MOTOR, drive={"supply": 24.0, "brake_torque": brake,
                                                                   "brake_engage_time": 0.002},
                            sensors={"rate": 500.0, "rate_gyro": {"noise": 0.0}}, strategy={"kind": "jump", **strategy},
                            trial={"duration": duration, "start": {"angle": FACE}}, **extra)
@@ -55,8 +55,8 @@ def _face_stop():
     return hook
 
 
-def _run(strategy: dict, duration: float):
-    res = run_trial(_cube(strategy, duration), on_step=_face_stop())
+def _run(strategy: dict, duration: float, brake: float = 20.0):
+    res = run_trial(_cube(strategy, duration, brake), on_step=_face_stop())
     return res, res.strategy.extra_metrics
 
 
@@ -145,3 +145,14 @@ def test_validate_prints_the_jump_figures(tmp_path, capsys):
     out = capsys.readouterr().out
     assert code in (0, None)
     assert f"jump face to edge from 45 deg: needs {need:.4g} rad/s" in out
+
+
+def test_a_jump_that_never_leaves_the_face_doubles_the_speed():
+    # a 1 N m brake cannot lift the body off its face against gravity's m g d sin(45 deg) = 1.25 N m (statics):
+    # the wheel stops with the body still down, the energy ratio is taken at its lower bound 0.25, and the
+    # next aim is twice the first
+    res, m = _run({"margin": 1.1, "max_attempts": 2}, 5.0, brake=1.0)
+    assert np.max(res.trace.tilt[: res.trace.n]) <= FACE + 1e-9 and np.min(res.trace.tilt[: res.trace.n]) > FACE - 0.01
+    assert m["jump_attempts"] == 2
+    assert m["jump_energy_ratios"][0] == 0.25
+    assert_allclose(m["jump_target_wheel_speed_rad_s"], 2.2 * m["needed_wheel_speed_rad_s"], rtol=1e-9)

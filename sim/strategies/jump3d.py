@@ -56,7 +56,8 @@ REST_S = 0.3                     # ... held this long (our choices)
 RATIO_CLAMP = (0.25, 4.0)        # a measured energy ratio outside this is taken at the bound: one
                                  # correction changes the speed by at most a factor 2 (our choice)
 LOCKED = 0.02                    # a wheel below 2% of its speed at the brake counts as locked to the body
-RISE_BAND = math.radians(1)      # the body has left its face once it is this far up (our choice)
+HELD_S = 1.0                     # held this long by the LQR, a jump was a success: a later fall
+                                 # (a push) does not correct the next jump's speed (our choice)
 DEFAULT_ATTEMPTS = 5
 
 
@@ -118,7 +119,7 @@ class JumpUp3D(Strategy):
         # spinning is not slowed down first
         self.w_ref = np.minimum(np.maximum(w * np.sign(self.target), 0.0), np.abs(self.target))
         self.ref_done_s = None
-        self.risen, self.peak = False, self.theta0
+        self.peak = self.theta0
         self.phase = "spin up"
 
     def _energy_ratio(self, tilt: float, rate: float) -> float:
@@ -141,6 +142,8 @@ class JumpUp3D(Strategy):
                 self.balancing, self.lqr, self.phase = False, None, "fallen"
                 self._rest_since = None
             else:
+                if reading.t_s - self._handover_s > HELD_S:
+                    self._ratio_at_handover = None
                 return self.lqr.decide(reading)
         if self.phase == "spin up":
             return self._spin(w, reading.t_s)
@@ -177,17 +180,17 @@ class JumpUp3D(Strategy):
         if abs(tilt) <= CATCH_ANGLE:
             return self._hand_over(reading, ratio=self._energy_ratio(tilt, rate))
         self.peak = min(self.peak, abs(tilt))
-        self.risen = self.risen or abs(tilt) < self.theta0 - RISE_BAND
-        # judged only with the wheels locked: a brake still slipping is still lifting the body
+        # judged only with the wheels locked: a brake still slipping is still lifting the body. A body
+        # that never left its face is judged too (its ratio is then the lower bound: the speed doubles)
         locked = np.all(np.abs(w[self.used]) <= LOCKED * self.extra_metrics["reached_wheel_speed_rad_s"])
-        if self.risen and locked and rate * self.sense <= 0.0:   # turned back short of the catch region
+        if locked and rate * self.sense <= 0.0:   # turned back (or never rose) short of the catch region
             self._judge(self._energy_ratio(self.peak, 0.0))
             self.phase, self._rest_since = "fell back", None
         return [0.0] * len(self.units)
 
     def _hand_over(self, reading: Reading, *, ratio):
         self.brake, self.open_circuit, self.balancing, self.phase = False, False, True, "balance"
-        self._ratio_at_handover = ratio
+        self._ratio_at_handover, self._handover_s = ratio, reading.t_s
         self.lqr = self._lqr_cls(device=self.device, params=self._lqr_params, rng=self.rng)
         return self.lqr.decide(reading)
 
