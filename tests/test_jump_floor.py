@@ -47,3 +47,11 @@ def test_on_the_floor_ten_percent_over_gets_up_and_ten_under_falls_back(margin, 
 def test_on_the_floor_a_short_jump_is_corrected():
     res, m = _floor({"margin": 0.8, "max_attempts": 3}, 3.2)
     assert res.outcome == "balanced" and m["jump_attempts"] == 2
+
+
+def test_a_jump_to_a_corner_is_refused_at_load():
+    from sim.core.errors import ScenarioError
+    with pytest.raises(ScenarioError, match=r"strategy\.kind: jump goes from a face up to an edge"):
+        make_scenario3d(WHEEL, body={**CUBE, "mount": "floor", "balance_on": "corner"}, motor=MOTOR,
+                        floor={"friction": 0.8, "restitution": 0.1}, drive={"supply": 24.0, "brake_torque": 20.0},
+                        strategy={"kind": "jump"}, trial={"start": {"resting_on": "face"}})
