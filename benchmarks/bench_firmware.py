@@ -1,9 +1,11 @@
 """Speed of a firmware-strategy trial against the Python `lqr` trial of the same scenario.
 
-    python benchmarks/bench_firmware.py [--seconds 20] [--rounds 3]
+    python benchmarks/bench_firmware.py [--seconds 20] [--rounds 3] [--example desk|cube]
 
-The bundled example (scenarios/firmware/desk_firmware.yaml, its duration set by --seconds) runs
-with its compiled firmware and, in the same rounds, with `strategy: {kind: lqr}`; the two alternate
+A bundled example (desk: scenarios/firmware/desk_firmware.yaml, one wheel on a hinge, Q16 firmware;
+cube: scenarios/firmware/cube_firmware.yaml, three wheels on a ball mount, float32 firmware; its
+duration set by --seconds) runs with its compiled firmware and, in the same rounds, with
+`strategy: {kind: lqr}` (the cube: the multi-wheel design); the two alternate
 within each round (the order swapped every round), so that other load on the machine hits both.
 Two real-time factors (simulated s per wall s) for each:
 - end to end: `run_trial` as a caller sees it (for the firmware: the fork of the isolation child,
@@ -32,7 +34,9 @@ sys.path.insert(0, str(HERE.parent))
 from sim.model.scenario_yaml import load_scenario
 from sim.run.trial import run_trial  # noqa: E402
 
-EXAMPLE = HERE.parent / "scenarios" / "firmware" / "desk_firmware.yaml"
+EXAMPLES = {"desk": (HERE.parent / "scenarios" / "firmware" / "desk_firmware.yaml",
+                     "strategy={kind: lqr, release_angle: 30 deg}"),
+            "cube": (HERE.parent / "scenarios" / "firmware" / "cube_firmware.yaml", "strategy={kind: lqr}")}
 
 
 def measure(scenario, isolate=None) -> tuple[float, float, str]:
@@ -48,17 +52,19 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--seconds", type=float, default=20.0, help="simulated seconds per trial")
     ap.add_argument("--rounds", type=int, default=3)
+    ap.add_argument("--example", choices=sorted(EXAMPLES), default="desk")
     args = ap.parse_args()
+    example, twin = EXAMPLES[args.example]
     common = [f"trial.duration={args.seconds} s"]
-    scenarios = {"firmware": load_scenario(EXAMPLE, overrides=common),
-                 "lqr": load_scenario(EXAMPLE, overrides=common + ["strategy={kind: lqr, release_angle: 30 deg}"])}
+    scenarios = {"firmware": load_scenario(example, overrides=common),
+                 "lqr": load_scenario(example, overrides=common + [twin])}
     scenarios["lqr isolated"] = scenarios["lqr"]
     best = {name: [0.0, 0.0] for name in scenarios}
     ratios = []
     # warm-up, not counted: the first imports, the first isolation child
     for sc in (scenarios["firmware"], scenarios["lqr"]):
         run_trial(sc, isolate=True)
-    print(f"{args.seconds:g} s trials of {EXAMPLE.name}; real-time factors (simulated s / wall s)")
+    print(f"{args.seconds:g} s trials of {example.name}; real-time factors (simulated s / wall s)")
     print(f"{'round':>5} {'fw e2e':>9} {'lqr e2e':>9} {'ratio':>6} {'fw loop':>9} {'lqr loop':>9} {'ratio':>6}"
           f" {'lqr-iso e2e':>12} {'lqr-iso loop':>13}")
     for r in range(args.rounds):

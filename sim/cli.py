@@ -88,7 +88,9 @@ def _options(allow_outside: bool = typer.Option(
 VideoOpt = typer.Option(None, "--video", help="Also write a clip of the trial: .mp4 or .gif (by suffix).")
 FpsOpt = typer.Option(30, "--fps", help="Clip frames per second.")
 SizeOpt = typer.Option("960x540", "--size", help="Clip size WIDTHxHEIGHT in pixels (even numbers).")
-CameraOpt = typer.Option("axis", "--camera", help="Clip camera: axis (along the pivot) or oblique.")
+CameraOpt = typer.Option(None, "--camera", help="Clip camera: axis (along the pivot) or oblique "
+                                                 "(default: axis for one-wheel hinge devices, oblique for 3D ones).",
+                         show_default=False)
 
 
 @app.command()
@@ -97,14 +99,15 @@ def run(scenario: Optional[Path] = ScenarioArg,
         set_: Optional[List[str]] = SetOpt, seed: Optional[int] = SeedOpt,
         force: bool = typer.Option(False, "--force", help="Write into a non-empty folder not made by wheelbench "
                                                           "(and replace an existing --video file)."),
-        video: Optional[Path] = VideoOpt, fps: int = FpsOpt, size: str = SizeOpt, camera: str = CameraOpt):
+        video: Optional[Path] = VideoOpt, fps: int = FpsOpt, size: str = SizeOpt,
+        camera: Optional[str] = CameraOpt):
     """Simulate one trial; write metrics.json, trace.csv and summary.png (and a clip with --video)."""
     from .core.options import check_clip_frames
     from .core.outputs import check_out_path
     from .run.runfiles import run_to_folder
     from .media.video import clip_options, write_clip
     check_out_path(out)
-    sc = _load(scenario, set_, command="run --video" if video else None)
+    sc = _load(scenario, set_)
     clip = clip_options(video, fps=fps, size=size, camera=camera, force=force) if video else None
     if clip:
         check_clip_frames(sc.trial.duration, clip["fps"], option=f"--video {video}")
@@ -120,28 +123,45 @@ def compare(first: Optional[Path] = typer.Argument(None, help="First scenario (d
                                                    show_default=False),
             second: Optional[Path] = typer.Argument(None, help="Second scenario (default: the first again).",
                                                     show_default=False),
-            video: Path = typer.Option(..., "--video", help="The clip: .mp4 or .gif (by suffix)."),
+            video: Optional[Path] = typer.Option(None, "--video", help="The side-by-side clip: .mp4 or .gif (by suffix)."),
+            out: Optional[Path] = typer.Option(None, "--out", help="Folder for the metrics table (compare.md, "
+                                               "compare.json) and the overlaid plots (compare.png)."),
             set_: Optional[List[str]] = typer.Option(None, "--set", help="Override for both sides: key.path=value."),
             set_a: Optional[List[str]] = typer.Option(None, "--set-a", help="Override for the first side only."),
             set_b: Optional[List[str]] = typer.Option(None, "--set-b", help="Override for the second side only, "
                                                       "e.g. --set-b strategy.kind=pid to compare two strategies."),
             label: Optional[List[str]] = typer.Option(None, "--label", help="Label of a side (give it twice)."),
-            seed: Optional[int] = SeedOpt, fps: int = FpsOpt, size: str = SizeOpt, camera: str = CameraOpt,
-            force: bool = typer.Option(False, "--force", help="Replace an existing --video file.")):
-    """Run two trials (two scenarios, or one with different --set-b) and write them side by side in one clip."""
+            seed: Optional[int] = SeedOpt, fps: int = FpsOpt, size: str = SizeOpt,
+            camera: Optional[str] = CameraOpt,
+            force: bool = typer.Option(False, "--force", help="Replace an existing --video file; write into a "
+                                                              "non-empty --out folder not made by wheelbench.")):
+    """Run two trials (two scenarios, or one with different --set-b), one-wheel or 3D; print their metrics side
+    by side, and write them with overlaid plots (--out) and side by side in one clip (--video)."""
+    from .core.errors import InputError
     from .core.options import check_clip_frames, check_labels
+    from .core.outputs import check_out_path
     from .media.video import clip_options
-    from .run.runfiles import compare_to_clip
+    from .run.comparison import compare_outputs, table_lines
     check_labels(label)
-    scenarios = [_load(first, [*(set_ or ()), *(set_a or ())], command="compare"),
-                 _load(second if second is not None else first, [*(set_ or ()), *(set_b or ())], command="compare")]
-    clip = clip_options(video, fps=fps, size=size, camera=camera, force=force)
-    check_clip_frames(max(s.trial.duration for s in scenarios), clip["fps"], option=f"--video {video}")
-    results, info = compare_to_clip(scenarios, label, seed=seed, **clip)
+    if video is None and out is None:
+        raise InputError("--video, --out: give one or both (a clip, a folder for the table and plots)")
+    if out is not None:
+        check_out_path(out)
+    scenarios = [_load(first, [*(set_ or ()), *(set_a or ())]),
+                 _load(second if second is not None else first, [*(set_ or ()), *(set_b or ())])]
+    clip = clip_options(video, fps=fps, size=size, camera=camera, force=force) if video is not None else None
+    if clip:
+        check_clip_frames(max(s.trial.duration for s in scenarios), clip["fps"], option=f"--video {video}")
+    results, labels, rows, info = compare_outputs(scenarios, label, seed=seed, out=out, force=force, clip=clip)
     for tag, r in zip("AB", results):
         typer.echo(f"{tag}: {r.scenario.name} | {r.scenario.strategy.kind}: {r.outcome}"
                    + (f" ({r.message})" if r.message else ""))
-    typer.echo(f"wrote {info.path} ({info.frames} frames, {info.duration_s:.2f} s at {info.fps} fps)")
+    for line in table_lines(rows, labels):
+        typer.echo(line)
+    if out is not None:
+        typer.echo(f"wrote {out}/compare.md, compare.json, compare.png")
+    if info is not None:
+        typer.echo(f"wrote {info.path} ({info.frames} frames, {info.duration_s:.2f} s at {info.fps} fps)")
     typer.echo(SAFETY)
 
 

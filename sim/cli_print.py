@@ -54,7 +54,7 @@ def print_tune(outcome, out_dir: Path) -> None:
                              + (f": {p.does}" if p.does else "")))
     if len(outcome.objectives) > 1:
         console.print(escape(f"Pareto front: {len(outcome.front)} designs (tune.csv has every evaluation)"))
-    console.print(escape(f"wrote {out_dir}/" + ", ".join(outcome.written)))
+    console.print(escape(f"wrote {out_dir}/" + ", ".join(outcome.written)), soft_wrap=True)   # paths stay whole
     console.print(f"[dim]{escape(SAFETY)}[/dim]")
 
 
@@ -98,7 +98,7 @@ def print_run(sc, m: dict, out: Path) -> None:
     for k, v in rows:
         table.add_row(k, Text(v))
     console.print(table)
-    console.print(Text(f"wrote {out}/metrics.json, trace.csv, summary.png"))
+    console.print(Text(f"wrote {out}/metrics.json, trace.csv, summary.png"), soft_wrap=True)   # paths stay whole
 
 
 def _power_rows(m: dict) -> list[tuple[str, str]]:

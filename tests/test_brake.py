@@ -70,6 +70,19 @@ def test_without_the_key_the_brake_is_unchanged():
 RING = {"shape": "ring", "outer_radius": 0.05, "inner_radius": 0.01, "thickness": 0.006, "mass": 0.12}
 
 
+def _wheel_1_ramped(sc):
+    """Run `sc` and check wheel 1 (on the hinge axis x) against the ramped brake's kinematics, its speed
+    relative to the body falling at T (1/I_w + 1/J_x); return the result."""
+    res = run_trial(sc)
+    dev, tr = res.device, res.trace
+    inv = 1.0 / dev.wheels[0].spin_inertia_kg_m2 + 1.0 / dev.inertia_about_pivot_kg_m2(with_spin=False)[0, 0]
+    t = np.arange(tr.n) * tr.step_s
+    expect = _expected(t, w0=W0, torque=T_B, engage=T_E, inertia=1.0 / inv)
+    moving = expect > 1.0
+    assert_allclose(tr.w1_speed[: tr.n][moving], expect[moving], rtol=0, atol=1e-4 * W0)
+    return res
+
+
 def test_a_3d_wheel_brake_ramps_per_wheel():
     # Gravity off, a hinge body: the wheel's speed relative to the body falls at T (1/I_w + 1/J_x)
     # (two bodies and one internal torque: I_w phi_dd = -T, J theta_dd = +T for a wheel on the hinge axis).
@@ -78,13 +91,9 @@ def test_a_3d_wheel_brake_ramps_per_wheel():
               {"at": [0.0, 0.0, 0.05], "axis": [0, 1, 0], "parts": [RING]}]
     sc = make_scenario3d(wheels, world={"gravity": 0.0}, drive={"supply": 12.0, "brake_torque": T_B},
                          strategy={"plugin": LAW}, trial={"duration": 0.3, "start": {"wheel_speed": [W0, 50.0]}})
-    res = run_trial(sc)
+    res = _wheel_1_ramped(sc)
     dev, tr = res.device, res.trace
-    inv = 1.0 / dev.wheels[0].spin_inertia_kg_m2 + 1.0 / dev.inertia_about_pivot_kg_m2(with_spin=False)[0, 0]
     t = np.arange(tr.n) * tr.step_s
-    expect = _expected(t, w0=W0, torque=T_B, engage=T_E, inertia=1.0 / inv)
-    moving = expect > 1.0
-    assert_allclose(tr.w1_speed[: tr.n][moving], expect[moving], rtol=0, atol=1e-4 * W0)
     # wheel 2 (axis across the hinge: the bearing holds the body) is braked at once, at T / I_w
     w2 = _expected(t, w0=50.0, torque=T_B, engage=0.0, inertia=dev.wheels[1].spin_inertia_kg_m2)
     m2 = w2 > 1.0
@@ -102,3 +111,16 @@ def test_bad_engagement_times_name_the_key(drive, wheels, key):
             make_scenario(drive=drive)
         else:
             make_scenario3d(wheels, drive=drive)
+
+
+def test_per_wheel_flags_ramp_only_the_engaged_wheel():
+    # the strategy's brake as one flag per wheel: wheel 1 braked through its ramp, wheel 2 left coasting
+    # (frictionless bearings: it keeps its speed, the hinge body being held about y by the bearing)
+    wheels = [{"at": [0.0, 0.0, 0.1], "axis": [1, 0, 0], "parts": [RING]},
+              {"at": [0.0, 0.0, 0.05], "axis": [0, 1, 0], "parts": [RING]}]
+    sc = make_scenario3d(wheels, world={"gravity": 0.0}, drive={"supply": 12.0, "brake_torque": T_B,
+                                                               "brake_engage_time": T_E},
+                         strategy={"plugin": LAW, "flags": [True, False]},
+                         trial={"duration": 0.2, "start": {"wheel_speed": [W0, 50.0]}})
+    tr = _wheel_1_ramped(sc).trace
+    assert_allclose(tr.w2_speed[: tr.n], 50.0, rtol=1e-9)

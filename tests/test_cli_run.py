@@ -302,3 +302,12 @@ def test_summary_plot_drawn_beside_the_csv_matches_one_drawn_here(tmp_path, monk
     runfiles.run_to_folder(sc, tmp_path / "fallback")
     assert (tmp_path / "fallback" / "summary.png").read_bytes() == (tmp_path / "here" / "summary.png").read_bytes()
     assert not [p for p in (tmp_path / "fallback").iterdir() if p.name.startswith(".summary")]
+
+
+def test_the_written_paths_stay_whole_however_long(tmp_path, capsys):
+    # a user copies the path from the last line: the console must not fold it (seen: a long pytest tmp
+    # path came out as ".../met\nrics.json" on an 80-column pipe)
+    out = tmp_path / ("a-long-folder-name-" * 6) / "out"
+    code, stdout, _ = run_cli(capsys, "run", write_scenario(tmp_path / "s.yaml", noisy_scenario()), "--out", out)
+    assert code == 0
+    assert f"wrote {out}/metrics.json, trace.csv, summary.png" in stdout.splitlines()

@@ -177,32 +177,31 @@ class Dashboard:
     """
 
     def __init__(self, width: int, height: int, *, label: str | None = None):
-        from PIL import Image, ImageDraw
-
         self.width, self.height = width, height
         self.lay = lay = PanelLayout.for_size(width, height)
         self.top = lay.top
-        u = lay.unit
+        d = self._start_panel(lay.unit, label)
+        self._paint_static(d)
+
+    def _start_panel(self, u: float, label: str | None):
+        """Fonts sized by the unit `u` (px), the label, the chip cache and the blank panel with its
+        rule along the top; returns a drawing context on the panel."""
+        from PIL import Image, ImageDraw
+
         self.f_big = _font(int(0.24 * u), mono=True, bold=True)
         self.f_mid = _font(int(0.13 * u), mono=True)
         self.f_small = _font(int(0.11 * u))
         self.f_tag = _font(int(0.12 * u), bold=True)
         self.label = label
         self._chips = {}
-        self.panel = Image.new("RGB", (width, height - lay.top), PANEL[:3])
+        self.panel = Image.new("RGB", (self.width, self.height - self.top), PANEL[:3])
         d = ImageDraw.Draw(self.panel)
-        d.rectangle([0, 0, width, max(1, int(u) // 40)], fill=RULE)
-        self._paint_static(d)
+        d.rectangle([0, 0, self.width, max(1, int(u) // 40)], fill=RULE)
+        return d
 
     def _paint_static(self, d) -> None:
         lay, top = self.lay, self.top
-        cx, cy, r = lay.dial_c[0], lay.dial_c[1] - top, lay.dial_r
-        d.arc([cx - r, cy - r, cx + r, cy + r], 180, 360, fill=TRACK, width=max(2, r // 6))
-        for f in (-1.0, -0.5, 0.0, 0.5, 1.0):  # ticks at 0, +-50 %, +-100 % of the no-load speed
-            a = math.radians(90 - 90 * f / DIAL_SPAN)
-            r0, r1 = r * 1.04, r * (1.18 if abs(f) in (0.0, 1.0) else 1.1)
-            d.line([cx + r0 * math.cos(a), cy - r0 * math.sin(a), cx + r1 * math.cos(a), cy - r1 * math.sin(a)],
-                   fill=WARN if abs(f) == 1.0 else DIM, width=max(1, r // 20))
+        dial_track(d, lay.dial_c[0], lay.dial_c[1] - top, lay.dial_r)
         d.text((lay.dial_text[0], lay.dial_text[1] - top), "wheel speed", font=self.f_small, fill=DIM, anchor="lt")
         for (x0, x1, y), name in zip(lay.bars, ("voltage", "current")):
             y -= top
@@ -309,16 +308,34 @@ class Dashboard:
         return chip
 
     def _push(self, img, d, r: Readout, arrow) -> None:
-        fade = 1.0 - r.push_age_s / PUSH_SHOWN_S
-        if arrow is not None:
-            (x0, y0), (x1, y1) = arrow
-            width = max(2, int(0.04 * self.lay.unit * (0.5 + fade)))
-            d.line([x0, y0, x1, y1], fill=PUSH, width=width)
-            ang = math.atan2(y1 - y0, x1 - x0)
-            s = 3.5 * width
-            d.polygon([(x1, y1), (x1 - s * math.cos(ang - 0.45), y1 - s * math.sin(ang - 0.45)),
-                       (x1 - s * math.cos(ang + 0.45), y1 - s * math.sin(ang + 0.45))], fill=PUSH)
+        push_arrow(d, arrow, unit=self.lay.unit, age_s=r.push_age_s)
         text = f"push {r.push_n_m_s * 1000:+.1f} mN m s"
         # bottom left, above the panel: clear of the device's upper half and of the limit notes (right)
         self._tag(img, (int(0.03 * self.width), self.top - int(0.06 * self.lay.unit)), text, fill=PUSH,
                   ink=(16, 24, 34), up=True)
+
+
+def push_arrow(d, arrow, *, unit: float, age_s: float) -> None:
+    """A push's arrow, ((x0, y0), (x1, y1)) pixel tail and head (None: none), thinning as the push
+    ages (`age_s` of PUSH_SHOWN_S); `unit` is the panel's size unit, px."""
+    if arrow is None:
+        return
+    fade = 1.0 - age_s / PUSH_SHOWN_S
+    (x0, y0), (x1, y1) = arrow
+    width = max(2, int(0.04 * unit * (0.5 + fade)))
+    d.line([x0, y0, x1, y1], fill=PUSH, width=width)
+    ang = math.atan2(y1 - y0, x1 - x0)
+    s = 3.5 * width
+    d.polygon([(x1, y1), (x1 - s * math.cos(ang - 0.45), y1 - s * math.sin(ang - 0.45)),
+               (x1 - s * math.cos(ang + 0.45), y1 - s * math.sin(ang + 0.45))], fill=PUSH)
+
+
+def dial_track(d, cx: float, cy: float, r: int) -> None:
+    """A speed dial's half-circle track and ticks at 0, +-50 % and +-100 % of the limit (red), centre
+    (cx, cy) px, radius r px; the needle reads DIAL_SPAN of the limit at either end."""
+    d.arc([cx - r, cy - r, cx + r, cy + r], 180, 360, fill=TRACK, width=max(2, r // 6))
+    for f in (-1.0, -0.5, 0.0, 0.5, 1.0):
+        a = math.radians(90 - 90 * f / DIAL_SPAN)
+        r0, r1 = r * 1.04, r * (1.18 if abs(f) in (0.0, 1.0) else 1.1)
+        d.line([cx + r0 * math.cos(a), cy - r0 * math.sin(a), cx + r1 * math.cos(a), cy - r1 * math.sin(a)],
+               fill=WARN if abs(f) == 1.0 else DIM, width=max(1, r // 20))

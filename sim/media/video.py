@@ -144,6 +144,22 @@ class TrialPainter:
         self.scene.close()
 
 
+def make_painter(result, *, width: int, height: int, camera: str | None, label: str | None, fps: int,
+                 render_scale: float | None = None):
+    """The painter of one trial: `TrialPainter` for a planar device, `clip3d.TrialPainter3D` for a 3D
+    one (`result.is_3d`). `camera` None picks each kind's own default (axis for planar, oblique for 3D)."""
+    if getattr(result, "is_3d", False):
+        from .clip3d import TrialPainter3D
+        return TrialPainter3D(result, width=width, height=height, camera=camera, label=label, fps=fps)
+    return TrialPainter(result, width=width, height=height, camera=camera or "axis", label=label,
+                        render_scale=render_scale, fps=fps)
+
+
+def _check_camera(camera: str | None) -> None:
+    if camera is not None and camera not in CAMERAS:
+        raise InputError(f"--camera {camera}: expected one of {', '.join(CAMERAS)}")
+
+
 class _Sink:
     """Frames to a file as they are painted: MP4 streams to ffmpeg, GIF to the file frame by
     frame (`_GifStream`), so memory stays flat however long the clip.
@@ -152,11 +168,12 @@ class _Sink:
     'veryfast' (measured with benchmarks/render_speed.py), for larger but still small files.
     """
 
-    def __init__(self, path: Path, fps: int):
+    def __init__(self, path: Path, fps: int, *, colours=()):
         self.path, self.fps = path, fps
         self.gif = path.suffix.lower() == ".gif"
         if self.gif:
-            self._writer = _GifStream(path, delay_ms=max(20, round(1000 / fps / 10) * 10))  # whole hundredths
+            self._writer = _GifStream(path, delay_ms=max(20, round(1000 / fps / 10) * 10),  # whole hundredths
+                                      colours=colours)
         else:
             import imageio.v2 as iio
             self._writer = iio.get_writer(str(path), format="FFMPEG", mode="I", fps=fps, codec="libx264",
@@ -179,16 +196,17 @@ class _GifStream:
     No dithering: the scene's colours are flat, and undithered frames compress far better.
     """
 
-    def __init__(self, path: Path, *, delay_ms: int):
+    def __init__(self, path: Path, *, delay_ms: int, colours=()):
         self.fh = open(path, "wb")
         self.delay_ms = delay_ms
+        self.colours = tuple(colours)
         self._palette = None
         self._previous: np.ndarray | None = None
 
     def append_data(self, frame: np.ndarray) -> None:
         from PIL import GifImagePlugin, Image
         if self._palette is None:
-            self._palette = _gif_palette(frame)
+            self._palette = _gif_palette(frame, self.colours)
         image = Image.fromarray(frame).quantize(palette=self._palette, dither=Image.Dither.NONE)
         index = np.asarray(image)
         info = {"duration": self.delay_ms, "disposal": 1}   # 1: keep the frame; the next draws over it
@@ -218,8 +236,8 @@ def _changed_box(before: np.ndarray, after: np.ndarray) -> tuple[int, int, int, 
     return (int(cols[0]), int(rows[0]), int(cols[-1]) + 1, int(rows[-1]) + 1)
 
 
-def _gif_palette(first: np.ndarray):
-    """A 255-colour palette from the first frame plus swatches of the panel's colours.
+def _gif_palette(first: np.ndarray, extra=()):
+    """A 255-colour palette from the first frame plus swatches of the panel's colours and `extra` ones.
 
     The swatches keep colours that appear later (a push, a limit note) in the palette.
     """
@@ -228,7 +246,7 @@ def _gif_palette(first: np.ndarray):
     from . import overlay
 
     colours = [overlay.WARN, overlay.PUSH, overlay.VOLT, overlay.CURR, overlay.WHEEL, overlay.TEXT, overlay.DIM,
-               overlay.TRACK, overlay.RULE[:3], (255, 246, 240), (16, 24, 34)]
+               overlay.TRACK, overlay.RULE[:3], (255, 246, 240), (16, 24, 34), *extra]
     block = 24
     swatch = np.zeros((block, block * len(colours), 3), np.uint8)
     for i, c in enumerate(colours):
@@ -247,7 +265,7 @@ def _write(path: Path, painters, fps: int, duration_s: float, progress: bool) ->
     wall0 = time.perf_counter()
     with atomic_path(path) as tmp, progress_bar(enabled=progress) as bar:
         task = bar.add_task(f"rendering {path.name}", total=n)
-        sink = _Sink(tmp, fps)
+        sink = _Sink(tmp, fps, colours=[c for p in painters for c in getattr(p, "palette_colours", ())])
         try:
             for i in range(n):
                 frames = [p.paint(i / fps)[0] for p in painters]
@@ -266,17 +284,17 @@ def _side_by_side(frames) -> np.ndarray:
 
 
 def write_clip(result, path: str | Path, *, fps: int = DEFAULT_FPS, size: tuple[int, int] = DEFAULT_SIZE,
-               camera: str = "axis", label: str | None = None, progress: bool = True,
+               camera: str | None = None, label: str | None = None, progress: bool = True,
                render_scale: float | None = None) -> ClipInfo:
-    """Write a clip of one finished trial (a TrialResult) to `path` (.mp4 or .gif), atomically.
+    """Write a clip of one finished trial (a TrialResult, planar or 3D) to `path` (.mp4 or .gif), atomically.
 
-    `label` defaults to the scenario's name and strategy. Returns a ClipInfo.
+    `label` defaults to the scenario's name and strategy; `camera` None: axis for a planar device,
+    oblique for a 3D one. Returns a ClipInfo.
     """
-    if camera not in CAMERAS:
-        raise InputError(f"--camera {camera}: expected one of {', '.join(CAMERAS)}")
+    _check_camera(camera)
     width, height = size
     label = label if label is not None else f"{result.scenario.name} | {result.scenario.strategy.kind}"
-    painter = TrialPainter(result, width=width, height=height, camera=camera, label=label, render_scale=render_scale,
+    painter = make_painter(result, width=width, height=height, camera=camera, label=label, render_scale=render_scale,
                            fps=check_fps(fps))
     try:
         return _write(Path(path), [painter], check_fps(fps), clip_duration_s(result), progress)
@@ -285,7 +303,7 @@ def write_clip(result, path: str | Path, *, fps: int = DEFAULT_FPS, size: tuple[
 
 
 def write_side_by_side(results, labels, path: str | Path, *, fps: int = DEFAULT_FPS,
-                       size: tuple[int, int] = DEFAULT_SIZE, camera: str = "axis", progress: bool = True,
+                       size: tuple[int, int] = DEFAULT_SIZE, camera: str | None = None, progress: bool = True,
                        render_scale: float | None = None) -> ClipInfo:
     """Write two finished trials side by side, each half labelled, to `path` (.mp4 or .gif).
 
@@ -294,14 +312,13 @@ def write_side_by_side(results, labels, path: str | Path, *, fps: int = DEFAULT_
     """
     if len(results) != 2 or len(labels) != 2:
         raise ValueError("a side-by-side clip takes two trials and two labels")
-    if camera not in CAMERAS:
-        raise InputError(f"--camera {camera}: expected one of {', '.join(CAMERAS)}")
+    _check_camera(camera)
     width, height = size
     halves = (width // 2, width - width // 2)
     painters = []
     try:
         for res, lab, w in zip(results, labels, halves):
-            painters.append(TrialPainter(res, width=w, height=height, camera=camera, label=lab, fps=check_fps(fps),
+            painters.append(make_painter(res, width=w, height=height, camera=camera, label=lab, fps=check_fps(fps),
                                          render_scale=render_scale))
         duration = max(clip_duration_s(r) for r in results)
         return _write(Path(path), painters, check_fps(fps), duration, progress)
@@ -310,13 +327,12 @@ def write_side_by_side(results, labels, path: str | Path, *, fps: int = DEFAULT_
             p.close()
 
 
-def clip_options(video: str | Path, *, fps: int = DEFAULT_FPS, size: str = "960x540", camera: str = "axis",
+def clip_options(video: str | Path, *, fps: int = DEFAULT_FPS, size: str = "960x540", camera: str | None = None,
                  force: bool = False) -> dict:
     """Check the command line's clip options before anything is simulated.
 
     Returns keyword arguments for `write_clip` / `write_side_by_side`; raises InputError naming
     the option at fault.
     """
-    if camera not in CAMERAS:
-        raise InputError(f"--camera {camera}: expected one of {', '.join(CAMERAS)}")
+    _check_camera(camera)
     return dict(path=check_target(video, force=force), fps=check_fps(fps), size=parse_size(size), camera=camera)

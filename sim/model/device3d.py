@@ -15,6 +15,7 @@ from dataclasses import dataclass, fields
 import numpy as np
 
 from ..core.frames import smallest_rotation_to_z
+from .floor import FloorSpec, floor_spec
 from .linear3d import LinearSpec, WheelUnit  # the linearisation's fields; one wheel with its motor, drive and bearing
 from .massprops3d import body_mass_properties, wheel_axis, wheel_centre, wheel_inertias, wheel_tensor
 
@@ -26,6 +27,11 @@ class Device3D(LinearSpec):
 
     supply_v: float
     locked: bool = False               # never, for a 3D device (kept so shared code can ask)
+    floor: FloorSpec | None = None
+    """A body on the floor (`body.mount: floor`): its contact figures; `mount` is then the mount the law
+    designs for, a hinge at the balance edge or a ball at the balance corner (`sim.model.floor`)."""
+    angle_counts_per_rev: int = 0      # the attitude encoders' counts per rev (sensors.angle), 0 when none is set
+    wheel_counts_per_rev: int = 0      # each wheel encoder's counts per rev (sensors.wheel), 0 when none is set
 
     @classmethod
     def from_scenario(cls, sc) -> "Device3D":
@@ -42,10 +48,13 @@ class Device3D(LinearSpec):
                 current_limit_a=motor.current_limit if motor.current_limit is not None else math.inf,
                 supply_v=sc.drive.supply, brake_torque_n_m=brake if brake is not None else sc.drive.brake_torque,
                 coulomb_n_m=w.bearing_friction.coulomb, viscous_n_m_s=w.bearing_friction.viscous))
-        return cls(mount=sc.body.mount, gravity_m_s2=sc.world.gravity, body_mass_kg=body.mass_kg,
+        return cls(mount=sc.design_mount, floor=floor_spec(sc) if sc.body.mount == "floor" else None,
+                   gravity_m_s2=sc.world.gravity, body_mass_kg=body.mass_kg,
                    body_com_m=body.com_m, body_inertia_com_kg_m2=body.inertia_com_kg_m2, wheels=tuple(units),
                    pivot_coulomb_n_m=sc.body.pivot_friction.coulomb, pivot_viscous_n_m_s=sc.body.pivot_friction.viscous,
-                   control_rate_hz=sc.sensors.rate, delay_s=sc.sensors.delay, supply_v=sc.drive.supply)
+                   control_rate_hz=sc.sensors.rate, delay_s=sc.sensors.delay, supply_v=sc.drive.supply,
+                   angle_counts_per_rev=(sc.sensors.angle.counts_per_rev if sc.sensors.angle is not None else None) or 0,
+                   wheel_counts_per_rev=sc.sensors.wheel.counts_per_rev or 0)
 
     def linear_spec(self) -> LinearSpec:
         """The multi-input linearisation's input: the device itself (a `LinearSpec`)."""

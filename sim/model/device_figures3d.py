@@ -70,7 +70,9 @@ def figures3d_text(device, spec, *, rest_tilt_rad: float = 0.0) -> list[str]:
     j = device.inertia_about_pivot_kg_m2(with_spin=True)
     j = np.where(np.abs(j) < 1e-12 * np.abs(j).max(), 0.0, j)     # rounding left by the rotations
     lines = [
-        f"{device.mount} mount, {device.n_wheels} wheel{'s' if device.n_wheels > 1 else ''}; mass "
+        (f"{device.mount} mount" if device.floor is None else
+         f"floor mount, balancing on its {device.floor.balance_on} (the pivot is that contact; the law designs as on a {device.mount})")
+        + f", {device.n_wheels} wheel{'s' if device.n_wheels > 1 else ''}; mass "
         f"{device.mass_kg * 1000:.1f} g, centre of mass {d * 1000:.1f} mm from the pivot at "
         f"[{', '.join(f'{v * 1000:.1f}' for v in com)}] mm (body frame), m g d {device.gravity_torque_coeff_n_m * 1000:.2f} mN m",
         f"upright: the body turned {lean:.2f} deg from its own z axis (centre of mass straight above the pivot)",

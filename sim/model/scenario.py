@@ -33,6 +33,7 @@ from pydantic import (BaseModel, BeforeValidator, ConfigDict, Field, ValidationE
 from ..core.errors import ScenarioError
 from ..core.units import Q, parse_quantity
 from ..core.validation_messages import describe_problems, describe_validation_error, step_suggestion
+from .floor import FloorSection, check_floor, design_mount
 from .sensing import EncoderLimits, EstimatorField, ImuSpec, Timing, check_sensing
 from ..strategies.base import StrategySpec
 
@@ -232,9 +233,13 @@ class Part(Strict):
 
 class Body(Strict):
     parts: Annotated[list[Part], Field(min_length=1, max_length=200)]
-    mount: Literal["hinge", "ball"] = "hinge"
+    mount: Literal["hinge", "ball", "floor"] = "hinge"
     """hinge: a revolute joint about the body's x axis at the origin; ball: a spherical joint there
-    (the body can tip in any direction and turn about the vertical)."""
+    (the body can tip in any direction and turn about the vertical); floor: the body rests on a floor
+    plane by its parts' geometry (`sim.model.floor`)."""
+    balance_on: Literal["edge", "corner"] | None = None
+    """Floor mount: the body balances on the edge along its x axis through the origin (default) or on
+    the corner at the origin (`sim.model.floor`)."""
     pivot_friction: Friction = Friction()
     locked: bool = False
     """True clamps the body at its start angle (a bench test of the wheel drive)."""
@@ -513,6 +518,10 @@ class Start(Strict):
     """Relative wheel speed, rad/s: one for every wheel, or a list with one per wheel (`wheels:`)."""
     tilt: Annotated[list[Q("angle", ge=-math.pi / 2, le=math.pi / 2)], Field(min_length=2, max_length=2)] | None = None
     """Ball mount: the start attitude as [about x, about y] from upright (R = Ry(about_y) Rx(about_x)), rad."""
+    resting_on: Literal["face", "edge", "corner"] | None = None
+    """Floor mount: start lying on a face, on the balance edge or on the corner, at rest (`sim.model.floor`)."""
+    side: Literal[1, -1] | None = None
+    """Floor mount, resting_on face: the sign of the turn about the edge that lays the body down (default +1)."""
 
 
 class Push(Strict):
@@ -580,6 +589,8 @@ class Scenario(Strict):
     strategy: Annotated[StrategySpec, BeforeValidator(_strategy_from_raw)]
     trial: Trial = Trial()
     requirements: Requirements = Requirements()
+    floor: FloorSection | None = None
+    """Friction and restitution of the floor a `body.mount: floor` body stands on (`sim.model.floor`)."""
     timing: Timing | None = None
     """Compute time, jitter and the overrun rule of the control loop (`sim.physics.timing`)."""
     tolerances: dict[str, float | str] | None = None
@@ -619,11 +630,12 @@ class Scenario(Strict):
     def _device_keys_fit(self):
         if self.motor is None and (self.wheels is None or any(w.motor is None for w in self.wheels)):
             raise ValueError("@motor: expected a motor (shared), or a motor for every wheel in wheels")
+        check_floor(self)   # before the planar return: a floor key on a planar device is refused, not ignored
         if self.is_planar:
             return self
         if self.body.locked:
             raise ValueError("@body.locked: a locked body is a one-wheel hinge bench (wheel:, hinge mount) only")
-        ball = self.body.mount == "ball"
+        ball = self.design_mount == "ball"
         if ball and self.body.pivot_friction.coulomb:
             raise ValueError("@body.pivot_friction.coulomb: a ball mount takes viscous pivot friction only")
         if self.trial.start.tilt is not None and not ball:
@@ -677,6 +689,12 @@ class Scenario(Strict):
         """Each wheel's brake engagement time (its own, else `drive.brake_engage_time`), s; None: instant."""
         own = [getattr(w, "brake_engage_time", None) for w in self.wheel_list]
         return [t if t is not None else self.drive.brake_engage_time for t in own]
+
+    @property
+    def design_mount(self) -> str:
+        """The mount the balance law designs for: the body's mount, or for a floor mount a hinge at the
+        balance edge or a ball at the balance corner (`sim.model.floor.design_mount`)."""
+        return self.body.mount if self.body.mount != "floor" else design_mount(self.body.balance_on)
 
     @property
     def wheel_list(self) -> list:

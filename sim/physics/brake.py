@@ -15,6 +15,7 @@ is about engagement; a releasing brake's own time is not modelled).
 
 from __future__ import annotations
 
+import math
 from collections.abc import Callable, Sequence
 
 
@@ -33,11 +34,12 @@ def ramp_mean(j: int, step_s: float, engage_s: float) -> float:
 
 
 class BrakeRamp:
-    """Raises each wheel's friction cap step by step after the brake is engaged.
+    """Raises each engaged wheel's friction cap step by step after its brake is engaged.
 
     `apply(caps)` sets the wheels' Coulomb caps (N m, one per wheel) in the engine. The runner calls
-    `engage()` / `release()` when the strategy's brake flag changes, and `step()` before every
-    physics step while `active` is True.
+    `set(flags)` (one truth value per wheel) when the strategy's brake changes, and `step()` before
+    every physics step while `active` is True. A wheel engaged anew starts its ramp from 0 on the next
+    step; a wheel released drops to its bearing's friction at once; one already engaged keeps its ramp.
     """
 
     def __init__(self, *, brake_n_m: Sequence[float | None], engage_s: Sequence[float | None],
@@ -48,20 +50,29 @@ class BrakeRamp:
         self.step_s = step_s
         self.apply = apply
         self.active = False
-        self._j = 0
-        self._last = max(int(round(e / step_s)) + 1 for e in self.engage_s)   # steps until every ramp is full
+        self._j: list[int | None] = [None] * len(self.brake)     # steps since each wheel's brake engaged
+        # the step from which each wheel's ramp is full
+        self._full = [math.ceil(e / step_s - 1e-9) for e in self.engage_s]
 
-    def engage(self) -> None:
-        """The brake is on from the next physics step, ramping (the first step's cap is applied by `step`)."""
-        self.active, self._j = True, 0
-
-    def release(self) -> None:
-        self.active = False
-        self.apply(list(self.coulomb))
+    def set(self, flags: Sequence[bool]) -> None:
+        """Engage (True) or release (False) each wheel's brake."""
+        for i, on in enumerate(flags):
+            if not on:
+                self._j[i] = None
+            elif self._j[i] is None:
+                self._j[i] = 0
+        self.active = self._ramping()
+        if not self.active:         # nothing ramps: the caps change now (released, or still full)
+            self.apply(self._caps())
 
     def step(self) -> None:
-        j = self._j
-        self.apply([c + b * ramp_mean(j, self.step_s, e) for c, b, e in zip(self.coulomb, self.brake, self.engage_s)])
-        self._j = j + 1
-        if self._j > self._last:
-            self.active = False      # full on every wheel: the cap stays where the last step left it
+        self.apply(self._caps())
+        self._j = [None if j is None else j + 1 for j in self._j]
+        self.active = self._ramping()
+
+    def _caps(self) -> list[float]:
+        return [c + (0.0 if j is None else b * ramp_mean(j, self.step_s, e))
+                for c, b, e, j in zip(self.coulomb, self.brake, self.engage_s, self._j)]
+
+    def _ramping(self) -> bool:
+        return any(j is not None and j <= full for j, full in zip(self._j, self._full))

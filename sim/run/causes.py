@@ -74,6 +74,7 @@ CAUSES = {
     "battery_cutoff": "the battery sagged below its cut-off and the drive switched off",
     "driver_tripped": "the driver's over-current protection tripped and stopped driving",
     "bus_over_voltage": "regeneration raised the bus above its limit and the drive switched off",
+    "contact_slipped": "a body on the floor: its balancing contact slid farther than floor.slip_limit",
 }
 """Every cause code, with what it means (the README's table says the same)."""
 

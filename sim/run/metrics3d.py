@@ -40,7 +40,7 @@ def trial_metrics3d(result) -> dict:
     return {
         "outcome": result.outcome, "message": result.message, "cause": result.cause,
         "cause_detail": result.cause_detail, "strategy": sc.strategy.kind, "seed": None,
-        "mount": dev.mount, "wheel_count": dev.n_wheels,
+        "mount": dev.mount if dev.floor is None else "floor", "wheel_count": dev.n_wheels,
         "caught_at_s": caught, "fell_at_s": result.fell_at_s,
         "settle_time_s": settle_time(tilt, dt, held_from, sc.trial.pushes), "settle_band_rad": SETTLE_BAND_RAD,
         "simulated_s": result.ended_at_s, "totals_until_s": end * dt,
@@ -62,6 +62,7 @@ def trial_metrics3d(result) -> dict:
         "push_recovery_window_s": PUSH_RECOVER_S,
         "real_time_factor": result.ended_at_s / result.wall_s if result.wall_s > 0 else None,
         "physics_step_s": dt, "control_rate_hz": dev.control_rate_hz,
+        **(result.floor or {}),   # a body on the floor: slip_m, lift_off_s, rest_face, ... (sim.run.floor_contact)
         **{k: v for k, v in (getattr(result.strategy, "extra_metrics", None) or {}).items()},
     }
 

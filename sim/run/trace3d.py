@@ -14,11 +14,14 @@ import numpy as np
 from .trace import Trace, csv_field
 
 
-def column_names(*, ball: bool, n_wheels: int) -> tuple[tuple[str, str], ...]:
-    """(attribute, CSV name) of every numeric column, in CSV order."""
+def column_names(*, ball: bool, n_wheels: int, floor: bool = False) -> tuple[tuple[str, str], ...]:
+    """(attribute, CSV name) of every numeric column, in CSV order. A body on the floor adds the
+    balancing contact's world position, whether the body touches the floor (1/0) and |F_t| / F_n of
+    its floor contacts (`sim.run.floor_contact`), after the others; a floor body balancing on an edge
+    (designed as on a hinge) also records its whole attitude (`tilt_y_rad`, `heading_rad`): it is free."""
     axes = ("x", "y", "z") if ball else ("x",)
     cols = [("t", "t_s"), ("tilt", "tilt_rad"), ("tilt_x", "tilt_x_rad")]
-    if ball:
+    if ball or floor:
         cols += [("tilt_y", "tilt_y_rad"), ("heading", "heading_rad")]
     cols += [(f"rate_{a}", f"rate_{a}_rad_s") for a in axes]
     for i in range(1, n_wheels + 1):
@@ -28,17 +31,22 @@ def column_names(*, ball: bool, n_wheels: int) -> tuple[tuple[str, str], ...]:
     cols += [("m_tilt_x", "measured_tilt_x_rad")] + ([("m_tilt_y", "measured_tilt_y_rad")] if ball else [])
     cols += [(f"m_rate_{a}", f"measured_rate_{a}_rad_s") for a in axes]
     cols += [(f"m_w{i}", f"measured_wheel{i}_speed_rad_s") for i in range(1, n_wheels + 1)]
+    if floor:
+        cols += [("contact_x", "contact_x_m"), ("contact_y", "contact_y_m"), ("contact_z", "contact_z_m"),
+                 ("in_contact", "in_contact"),
+                 ("friction_ratio", "friction_ratio")]
     return tuple(cols)
 
 
 class Trace3D(Trace):
     """Preallocated columns (`column_names`) for `capacity` rows; `n` rows are filled."""
 
-    def __init__(self, capacity: int, *, step_s: float, ball: bool, n_wheels: int):
+    def __init__(self, capacity: int, *, step_s: float, ball: bool, n_wheels: int, floor: bool = False,
+                 shared: bool = False):
         self.ball, self.n_wheels = ball, n_wheels
-        self.csv_names = column_names(ball=ball, n_wheels=n_wheels)
+        self.csv_names = column_names(ball=ball, n_wheels=n_wheels, floor=floor)
         self.FLOAT_COLUMNS = tuple(attr for attr, _ in self.csv_names)
-        super().__init__(capacity, step_s=step_s)
+        super().__init__(capacity, step_s=step_s, shared=shared)   # shared: an isolated trial (`Trace`)
 
     def columns(self) -> dict[str, np.ndarray]:
         return {name: getattr(self, attr)[: self.n] for attr, name in self.csv_names}

@@ -12,13 +12,12 @@ from __future__ import annotations
 
 import math
 import time
-from dataclasses import replace
 
 import numpy as np
 
 from ..core import isolation
 from ..core.angles import wrap_angle
-from ..core.budget import AFTER_S, StrategyClock
+from ..core.budget import StrategyClock
 from ..core.errors import StrategyError
 from ..model.device import Device
 from ..physics.engine import EngineModel
@@ -37,100 +36,18 @@ from .trial_common import describe as _describe
 from .trial_common import describe_unread as _describe_unread
 from .trial_common import final_outcome as _final_outcome
 from .trial_common import with_strategy
+from .trial_isolated import PublishedTrace as _PublishedTrace
+from .trial_isolated import WatchedClock as _WatchedClock
+from .trial_isolated import lost_child_message, run_watched
 
-OUTCOMES = ("balanced", "fell", "not_caught", "diverged", "strategy_failed", "completed")
+OUTCOMES = ("balanced", "fell", "not_caught", "diverged", "strategy_failed", "completed", "slipped")
 ABSURD_RATE_RAD_S = 1e4          # a body spinning at 1,600 rev/s is a numerical blow-up
 ABSURD_WHEEL_FACTOR = 20.0       # wheel beyond 20x its no-load speed: likewise
 ABSURD_ANGLE_RAD = 1e6           # ~160,000 turns: the unwrapped angle has run away
-_now = time.perf_counter
-# the heartbeat's slots, as module globals: a class attribute looked up through an instance costs
-# more, twice per control tick
-_STEP, _DEADLINE, _SATURATED = isolation.Heartbeat.STEP, isolation.Heartbeat.DEADLINE, isolation.Heartbeat.SATURATED
 STRATEGY_BUDGET_S = 60.0
 """Default wall-clock budget, s, for all strategy work in one trial (building it and every
 control tick together). The built-in laws use well under 1 s for a minute of simulated time;
 a plug-in past the budget ends the trial with outcome `strategy_failed`."""
-
-
-class _WatchedClock(StrategyClock):
-    """A StrategyClock that also keeps the watchdog's heartbeat: isolated trials only (see
-    `sim.core.isolation`), so that the in-process loop pays nothing for it.
-
-    Called twice per control tick, so kept light: the base's enter/leave inlined, the heartbeat's
-    slots written directly, and the strategy's saturated-tick count read from its instance
-    dictionary (a missing attribute looked up with getattr raises and catches an AttributeError
-    every tick)."""
-
-    def __init__(self, budget_s: float, beat: isolation.Heartbeat):
-        super().__init__(budget_s)          # sets `strategy` to None through the property below
-        self.beat = beat
-        self._slots = beat.slots
-        # deadline = entry + what is left of the budget + the grace
-        self._slack = self.budget_s + isolation.GRACE_S
-
-    @property
-    def strategy(self):
-        return self._strategy
-
-    @strategy.setter
-    def strategy(self, strategy) -> None:
-        self._strategy = strategy
-        plain = (strategy is not None and hasattr(strategy, "__dict__")
-                 and not hasattr(type(strategy), "saturated_ticks"))
-        # None: read it with getattr (a class attribute, a property, slots); else this dict
-        self._state = vars(strategy) if plain else ({} if strategy is None else None)
-
-    def _saturated(self) -> int:
-        state = self._state
-        return state.get("saturated_ticks", 0) if state is not None else getattr(self._strategy, "saturated_ticks", 0)
-
-    def enter(self, k: int = -1) -> None:
-        t = self.t_in = _now()
-        slots = self._slots
-        slots[_STEP] = k              # before the deadline: the parent reads the deadline first
-        # what is left of the budget is never below 0 here: leave() ends the trial when it is used
-        # up, and after() keeps AFTER_S of it (no max(): a builtin call costs more than the rest)
-        slots[_DEADLINE] = t + (self._slack - self.used_s)
-
-    def leave(self) -> None:
-        slots = self._slots
-        slots[_DEADLINE] = 0.0
-        state = self._state
-        slots[_SATURATED] = (state.get("saturated_ticks", 0) if state is not None
-                             else getattr(self._strategy, "saturated_ticks", 0))
-        self.used_s += _now() - self.t_in
-        self.t_in = None
-        if self.used_s > self.budget_s:
-            self._expire()
-
-    def abandon(self) -> None:
-        self.beat.left(self._saturated())
-        super().abandon()
-
-    def after(self, work, fallback):
-        # the watchdog covers these calls too (strategy code stuck in C while being pickled, say)
-        left = self.budget_s - min(self.used_s, self.budget_s - AFTER_S)
-        self.beat.entered(int(self.beat.slots[isolation.Heartbeat.STEP]), time.perf_counter() + left + isolation.GRACE_S)
-        try:
-            return super().after(work, fallback)
-        finally:
-            self.beat.left(int(self.beat.slots[isolation.Heartbeat.SATURATED]))
-
-
-class _PublishedTrace(Trace):
-    """A shared trace whose phase names also go to the heartbeat as they appear (isolated trials):
-    the parent cannot ask a child it had to kill for them."""
-
-    def __init__(self, capacity: int, *, step_s: float, beat: isolation.Heartbeat, extra: tuple[str, ...] = ()):
-        super().__init__(capacity, step_s=step_s, shared=True, extra=extra)
-        self.beat = beat
-
-    def phase_code(self, phase: str) -> int:
-        known = len(self.phases)
-        code = super().phase_code(phase)
-        if len(self.phases) != known:
-            self.beat.publish_phases(self.phases)
-        return code
 
 
 def run_trial(scenario, *, seed: int | None = None, stop_early: bool | None = None,
@@ -157,7 +74,7 @@ def run_trial(scenario, *, seed: int | None = None, stop_early: bool | None = No
             raise ValueError("rendering a 3D device is not supported yet")
         from .trial3d import run_trial3d
         return run_trial3d(scenario, seed=seed, stop_early=stop_early, strategy_budget_s=strategy_budget_s,
-                           on_step=on_step)
+                           on_step=on_step, isolate=isolate)
     device = Device.from_scenario(scenario)
     seed = scenario.trial.seed if seed is None else seed
     stop_early = scenario.trial.stop_early if stop_early is None else stop_early
@@ -212,20 +129,11 @@ def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step)
         return _simulate(scenario, device, trace, StrategyClock(budget), seed=seed, stop_early=stop_early,
                          visual=None, on_step=on_step)
     clock = _WatchedClock(budget, beat)
-
-    def work():
-        result = _simulate(scenario, device, trace, clock, seed=seed, stop_early=stop_early, visual=None,
-                           on_step=on_step)
-        # pickling the strategy's attributes may run its code as well
-        strategy = clock.after(lambda: isolation.pack_strategy(result.strategy), None)
-        return replace(result, trace=None, device=None, scenario=None, strategy=strategy), trace.n, trace.phases
-
-    sent, lost = isolation.run_in_child(work, beat=beat, mirror=on_step)
-    if lost is not None:
-        return _lost_child_result(scenario, device, trace, budget, lost)
-    result, trace.n, trace.phases = sent
-    return replace(result, trace=trace, device=device, scenario=scenario,
-                   strategy=isolation.unpack_strategy(result.strategy, device=device))
+    return run_watched(
+        lambda: _simulate(scenario, device, trace, clock, seed=seed, stop_early=stop_early, visual=None,
+                          on_step=on_step),
+        trace=trace, clock=clock, scenario=scenario, device=device, on_step=on_step,
+        lost_result=lambda lost: _lost_child_result(scenario, device, trace, budget, lost))
 
 
 def _lost_child_result(scenario, device, trace, budget: float, lost: isolation.LostChild) -> TrialResult:
@@ -233,10 +141,7 @@ def _lost_child_result(scenario, device, trace, budget: float, lost: isolation.L
     in-process failure: row k holds the state at the failure, the tick's measurements and held mode."""
     dt, cs = scenario.world.step, scenario.control_steps
     building, k = lost.step < 0, max(lost.step, 0)
-    cause = (f"strategy code did not return within its {budget:g} s budget (stuck in compiled code?)"
-             if lost.stuck else f"the strategy's process died ({lost.how})")
-    message = (f"building the strategy failed: {cause}" if building
-               else f"{cause} at control tick {k // cs} (t = {k * dt:.4f} s)")
+    message = lost_child_message(lost, budget_s=budget, step_s=dt, control_steps=cs)
     if not building:  # the call never returned: the phase is the one held from the tick before
         trace.mode[k] = trace.mode[k - cs] if k >= cs else 0
     trace.phases = list(lost.phases)
@@ -472,7 +377,7 @@ def _set_brake(engine, device, on: bool, ramp=None) -> bool:
     if on and device.brake_torque_n_m is None:
         raise StrategyError("the strategy engaged a brake, but the scenario has no drive.brake_torque")
     if ramp is not None:    # an engagement time: the cap rises step by step from the next step
-        ramp.engage() if on else ramp.release()
+        ramp.set([on])
         return on
     wheel = device.wheel_coulomb_n_m + (device.brake_torque_n_m if on else 0.0)
     engine.set_dry_friction(pivot_n_m=device.pivot_coulomb_n_m, wheel_n_m=wheel)

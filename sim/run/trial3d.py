@@ -8,10 +8,15 @@ absurd, end the trial with an outcome, never an exception.
 
 Outcomes use `tilt_rad` (the angle between the pivot-to-centre-of-mass line and the vertical; on a
 hinge, the body angle from upright about x) against the strategy's release angle: `balanced`,
-`fell`, `not_caught`, `diverged`, `strategy_failed`, `completed` (bench strategies).
+`fell`, `not_caught`, `diverged`, `strategy_failed`, `completed` (bench strategies), and on the floor
+`slipped` (the balancing contact slid more than `floor.slip_limit` from where it was when balancing
+began, before any fall; `sim.run.floor_contact`).
 
-Not yet here (planar runner only): plug-in trials in a forked child (a 3D plug-in runs in this
-process under its time budget, which cannot stop one stuck in compiled code), and rendering hooks.
+A plug-in's trial (or compiled firmware's) runs in a forked child as on the planar runner
+(`sim.core.isolation`, `sim.run.trial_isolated`): its rows land in a shared trace, and strategy code
+stuck in compiled code or crashing ends as `strategy_failed` with the tick and the signal.
+
+Not yet here (planar runner only): rendering hooks.
 """
 
 from __future__ import annotations
@@ -22,17 +27,23 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..core import isolation
 from ..core.budget import StrategyClock
 from ..core.errors import StrategyError
 from ..core.frames import matmul, rotation_about_x_y
 from ..model.device3d import Device3D
+from ..model.floor import start_attitude
 from ..physics.engine3d import Engine3D
 from ..physics.brake import BrakeRamp
+from ..physics.engine_floor import FloorEngine
 from ..physics.motor import MotorDrive
 from ..physics.sensors import SensorSuite
+from ..strategies import plugins_in
 from ..strategies.base import Reading
+from .floor_contact import FloorWatch, floor_cause
 from .trace3d import Trace3D
 from .trial_common import TrialResult, close_trace, describe, describe_unread, final_outcome, with_strategy
+from .trial_isolated import PublishedTrace3D, WatchedClock, lost_child_message, run_watched
 
 ABSURD_RATE_RAD_S = 1e4          # as the planar runner
 ABSURD_WHEEL_FACTOR = 20.0
@@ -44,6 +55,7 @@ class TrialResult3D(TrialResult):
     """What a 3D trial produced (fields as `sim.run.trial_common.TrialResult`; `is_3d` marks it)."""
 
     is_3d: bool = True
+    floor: dict | None = None   # a body on the floor: `sim.run.floor_contact.FloorWatch.summary`
 
 
 class _WheelMotor:
@@ -60,19 +72,40 @@ class _WheelMotor:
 
 
 def run_trial3d(scenario, *, seed: int | None = None, stop_early: bool | None = None,
-                strategy_budget_s: float | None = None, on_step=None) -> TrialResult3D:
-    """Simulate one trial of a 3D scenario (`Scenario.is_planar` false), in this process.
+                strategy_budget_s: float | None = None, on_step=None, isolate: bool | None = None) -> TrialResult3D:
+    """Simulate one trial of a 3D scenario (`Scenario.is_planar` false).
 
-    `on_step`: optional callable(k, engine) after every engine step (checks and rendering hooks)."""
+    `on_step`: optional callable(k, engine) after every engine step (checks and rendering hooks).
+    `isolate`: run the trial in a forked child watched by this process, as `sim.run.trial.run_trial`
+    does; None (default): exactly when the strategy, or one nested in it, is a plug-in or compiled
+    firmware and the platform can fork. The numbers are the same either way."""
     device = Device3D.from_scenario(scenario)
     seed = scenario.trial.seed if seed is None else seed
     stop_early = scenario.trial.stop_early if stop_early is None else stop_early
-    clock = StrategyClock(STRATEGY_BUDGET_S if strategy_budget_s is None else strategy_budget_s)
+    budget = STRATEGY_BUDGET_S if strategy_budget_s is None else strategy_budget_s
+    if isolate is None:
+        isolate = isolation.AVAILABLE and bool(plugins_in(scenario.strategy))
+    if isolate and not isolation.AVAILABLE:
+        raise ValueError("isolate=True needs os.fork")
+    if not isolate:
+        return _simulate(scenario, device, _trace(scenario, device), StrategyClock(budget),
+                         seed=seed, stop_early=stop_early, on_step=on_step)
+    return _run_isolated(scenario, device, budget, seed=seed, stop_early=stop_early, on_step=on_step)
+
+
+def _trace(scenario, device: Device3D, **shared) -> Trace3D:
+    """The trial's trace; with `beat=` a shared one that publishes its phases (isolated trials)."""
+    kind = PublishedTrace3D if shared else Trace3D
+    return kind(scenario.n_steps, step_s=scenario.world.step, ball=device.mount == "ball",
+                n_wheels=device.n_wheels, floor=device.floor is not None, **shared)
+
+
+def _simulate(scenario, device, trace, clock, *, seed, stop_early, on_step) -> TrialResult3D:
+    """The trial in this process, its rows into `trace`, its strategy timed by `clock`."""
     dt, n = scenario.world.step, scenario.n_steps
     rng = np.random.default_rng(seed)
     ball = device.mount == "ball"
-    trace = Trace3D(n, step_s=dt, ball=ball, n_wheels=device.n_wheels)
-    engine = Engine3D(device, step_s=dt)
+    engine = Engine3D(device, step_s=dt) if device.floor is None else FloorEngine(device, step_s=dt)
     try:
         _reset(engine, scenario, device)
         n_suites = max(3 if ball else 1, device.n_wheels)
@@ -84,11 +117,52 @@ def run_trial3d(scenario, *, seed: int | None = None, stop_early: bool | None = 
         engine.close()
 
 
+def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step) -> TrialResult3D:
+    """The trial in a forked child (`sim.core.isolation`): its rows land in a shared trace, the rest of
+    its result comes back pickled. A child stuck in strategy code or dead ends as strategy_failed."""
+    from .parallel import _warm_imports
+    _warm_imports()      # the heavy modules, inherited by the child instead of imported there
+    beat = isolation.Heartbeat()
+    try:
+        trace = _trace(scenario, device, beat=beat)
+    except OSError:     # no room for a shared trace, in the temporary folder or in memory: run here
+        return _simulate(scenario, device, _trace(scenario, device), StrategyClock(budget),
+                         seed=seed, stop_early=stop_early, on_step=on_step)
+    clock = WatchedClock(budget, beat)
+    return run_watched(
+        lambda: _simulate(scenario, device, trace, clock, seed=seed, stop_early=stop_early, on_step=on_step),
+        trace=trace, clock=clock, scenario=scenario, device=device, on_step=on_step,
+        lost_result=lambda lost: _lost_child_result(scenario, device, trace, budget, lost))
+
+
+def _lost_child_result(scenario, device, trace, budget: float, lost: isolation.LostChild) -> TrialResult3D:
+    """strategy_failed at the step of the lost child's last strategy call, with the conventions of the
+    in-process failure: row k holds the state at the failure, the tick's measurements and held mode.
+    The saturated ticks are counted again from the shared trace's commands (the child's count is lost)."""
+    cs = scenario.control_steps
+    building, k = lost.step < 0, max(lost.step, 0)
+    message = lost_child_message(lost, budget_s=budget, step_s=scenario.world.step, control_steps=cs)
+    if not building:  # the call never returned: the phase is the one held from the tick before
+        trace.mode[k] = trace.mode[k - cs] if k >= cs else 0
+    trace.phases = list(lost.phases)
+    strategy = isolation.record_from_spec(scenario.strategy, device=device, saturated_ticks=lost.saturated)
+    ticks = 0 if building else k // cs + 1
+    rows = np.arange(0, k, cs)
+    volts = np.array([getattr(trace, f"w{i}_voltage")[rows] for i in range(1, device.n_wheels + 1)])
+    at_supply = float(scenario.drive.supply) * (1.0 - 1e-9)
+    saturated = int(np.any(np.abs(volts) >= at_supply, axis=0).sum()) if rows.size else 0
+    return _result(scenario, device, trace, strategy, "strategy_failed", message, k, None, None, False,
+                   ticks, saturated, lost.wall_s)
+
+
 def _reset(engine: Engine3D, scenario, device: Device3D) -> None:
     start = scenario.trial.start
     speeds = start.wheel_speed if isinstance(start.wheel_speed, list) else [start.wheel_speed] * device.n_wheels
     r0 = device.upright()
-    if device.mount == "ball":
+    if device.floor is not None:
+        attitude, rate = start_attitude(scenario, device)
+        engine.reset(attitude=attitude, rate_world=rate, wheel_speeds_rad_s=speeds)
+    elif device.mount == "ball":
         tx, ty = start.tilt if start.tilt is not None else (0.0, 0.0)
         engine.reset(attitude=matmul(rotation_about_x_y(tx, ty), r0), wheel_speeds_rad_s=speeds)
     else:
@@ -146,7 +220,10 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     suite_reads = [(s.read, sense_angle[j] if j < len(sense_angle) else zeros,
                     sense_rate[j] if j < len(sense_rate) else zeros, wa_c[j] if j < nw else zeros,
                     ws_c[j] if j < nw else zeros) for j, s in enumerate(suites)]
-    read, advance = engine.io()
+    io = engine.io()
+    read, advance = io[0], io[1]
+    watch = FloorWatch(io[2], trace, device.floor, stop_early) if len(io) > 2 else None
+    see = watch.stepper() if watch is not None else None
     command = strategy.command_vector if strategy is not None else None
     lim = ABSURD_RATE_RAD_S
     k = 0
@@ -157,6 +234,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
         tilt_c[k], tx_c[k], rx_c[k] = tilt, tx, wx
         if ball:
             ty_c[k], hd_c[k], ry_c[k], rz_c[k] = ty, hd, wy, wz
+        elif ty_c is not None:   # a floor body on its edge: free in 3D, its whole attitude recorded
+            ty_c[k], hd_c[k] = ty, hd
         bad = not (-lim < wx < lim and -lim < wy < lim and -lim < wz < lim and tilt == tilt)
         for s, a, s_col, a_col, w_lim in zip(wspd, wang, ws_c, wa_c, wheel_limit):
             s_col[k], a_col[k] = s, a
@@ -165,6 +244,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
         if bad:
             outcome, message = "diverged", f"the state became non-finite or absurd at t = {k * dt:.4f} s"
             break
+        if see is not None and see(k, catch_k is not None) and outcome is None:
+            outcome = "slipped"   # with stop_early; this step still runs, as a fall's does
         if k % cs == 0:
             t = k * dt
             meas = [r(k, a, w, wa, ws) for r, a, w, wa, ws in suite_reads]
@@ -193,7 +274,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                     phase = strategy.phase
                     name = str(phase)
                 if strategy.brake != brake_on:
-                    brake_on = _set_brake(engine, device, bool(strategy.brake), ramp)
+                    brake_on = _set_brake(engine, device, strategy.brake, ramp)
                 open_circuit = bool(strategy.open_circuit)
                 clock.leave()
             except BaseException as exc:  # noqa: B036 - the strategy's failure is its outcome
@@ -208,12 +289,13 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
             if name is not None:
                 mode, name = trace.phase_code(name), None
             trace.mode[k] = mode
-            for i in wheels:
+            at_limit = False
+            for i in wheels:     # every wheel's command recorded; the tick counts once if any is at the supply
                 v = volts[i]
                 v_c[i][k] = 0.0 if open_circuit else v
                 if v >= at_supply or v <= -at_supply:
-                    saturated += 1
-                    break
+                    at_limit = True
+            saturated += at_limit
             if wants_balance:   # once fallen, the body stays fallen, unless the law gets it up again (a jump)
                 if tilt <= release and strategy.balancing:
                     if catch_k is None and (fell_k is None or again):
@@ -241,13 +323,21 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
         if on_step is not None:
             on_step(k, engine)
         k += 1
-    return _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, wants_balance,
-                   ticks, saturated, time.perf_counter() - wall0)
+    wall = time.perf_counter() - wall0
+    if watch is not None:
+        outcome = watch.outcome(outcome, fell_k)
+    result = _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, wants_balance,
+                     ticks, saturated, wall)
+    if watch is not None:
+        result.floor = watch.summary(engine, dt)
+        result.cause, result.cause_detail = floor_cause(result) or (result.cause, result.cause_detail)
+    return result
 
 def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, wants_balance,
             ticks, saturated, wall) -> TrialResult3D:
     """Close the trace, zero the voltages after a failure's row, judge the outcome and its cause."""
-    ended = close_trace(trace, outcome=outcome, k=k, n=scenario.n_steps, dt=scenario.world.step, fell_k=fell_k)
+    ended = close_trace(trace, outcome=outcome, k=k, n=scenario.n_steps, dt=scenario.world.step,
+                        fell_k=fell_k if outcome != "slipped" else None)
     _hold_tick_values(trace, scenario.control_steps)
     if outcome in ("diverged", "strategy_failed") and k < scenario.n_steps:
         for i in range(1, device.n_wheels + 1):
@@ -272,15 +362,25 @@ def _hold_tick_values(trace: Trace3D, cs: int) -> None:
         col[: trace.n] = col[rows]
 
 
-def _set_brake(engine: Engine3D, device: Device3D, on: bool, ramp=None) -> bool:
-    if on and all(w.brake_torque_n_m is None for w in device.wheels):
-        raise StrategyError("the strategy engaged a brake, but no wheel has a brake_torque")
-    if ramp is not None:    # an engagement time: the caps rise step by step from the next step
-        ramp.engage() if on else ramp.release()
+def _set_brake(engine: Engine3D, device: Device3D, on, ramp=None):
+    """Engage or release the brakes: `on` a truth value for every wheel with a brake_torque, or a
+    sequence of one flag per wheel (a wheel flagged needs its brake_torque). Returns `on` as given."""
+    if isinstance(on, (tuple, list)):
+        flags = [bool(f) for f in on]
+        if len(flags) != device.n_wheels:
+            raise StrategyError(f"the strategy's brake gave {len(flags)} flags for {device.n_wheels} wheels")
+        if any(f and w.brake_torque_n_m is None for f, w in zip(flags, device.wheels)):
+            raise StrategyError("the strategy engaged a wheel's brake, but that wheel has no brake_torque")
+    else:
+        flags = [bool(on)] * device.n_wheels
+        if on and all(w.brake_torque_n_m is None for w in device.wheels):
+            raise StrategyError("the strategy engaged a brake, but no wheel has a brake_torque")
+    if ramp is not None:    # an engagement time: the caps of newly engaged wheels rise step by step
+        ramp.set(flags)
         return on
-    engine.set_dry_friction([w.coulomb_n_m + ((w.brake_torque_n_m or 0.0) if on else 0.0) for w in device.wheels])
+    engine.set_dry_friction([w.coulomb_n_m + ((w.brake_torque_n_m or 0.0) if f else 0.0)
+                             for f, w in zip(flags, device.wheels)])
     return on
-
 
 
 def _brake_ramp(scenario, device: Device3D, engine: Engine3D, dt: float):

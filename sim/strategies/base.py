@@ -89,6 +89,8 @@ class Strategy:
        `self.brake = True` to clamp the wheel to the body with the brake, and False to release
        it. `self.open_circuit = True` floats the winding: no current flows whatever the voltage
        (a driver switched off, as opposed to one holding 0 V, which brakes by back-EMF).
+       On a 3D device `brake = True` engages every wheel's brake; a tuple of one flag per wheel
+       engages only the wheels flagged (each needs its brake_torque).
     6a. Current mode. With `drive.mode: current` (a torque-mode driver) the runner reads the
        command as amps in the winding, not volts, and clamps it to the current limit (or the stall
        current at the starting supply). Only a class with `commands_current = True` may run there;

@@ -198,6 +198,6 @@ def print_verdict(v: dict, out: Path) -> None:
     for name, r in failed_runs(v):
         console.print(f"{name} run: {r['outcome']}, cause {r.get('cause') or '-'}: {r.get('cause_detail') or '-'}",
                       markup=False, highlight=False)
-    console.print(Text(f"wrote {out}/verdict.json, report.md, monte_carlo.csv and plots"))
+    console.print(Text(f"wrote {out}/verdict.json, report.md, monte_carlo.csv and plots"), soft_wrap=True)   # paths stay whole
     for s in SAFETY_NOTES:
         console.print(f"[dim]Safety: {s}[/dim]")

@@ -387,6 +387,19 @@ def _at_most(name, value, limit, note=""):
     return _criterion(name, value, limit, ok, note if value is not None else (note or "could not be found"))
 
 
+HOLD_DERIVED = ("hold_max_angle_rad", "voltage_headroom", "current_headroom")
+UNEXERCISED_NOTE = ("NOT EXERCISED: the hold starts exactly upright at rest and the sensors add no noise or "
+                    "bias, so nothing moved; this value says nothing about a real build's sensors (give the "
+                    "scenario's `sensors` noise and bias figures)")
+
+
+def hold_unexercised(volts, hold_metrics: dict) -> bool:
+    """True when the upright hold never moved: no voltage was ever commanded and the angle stayed at 0
+    (ideal sensors and an exact upright start). Its headroom and angle then measure nothing."""
+    return (hold_metrics["outcome"] == "balanced" and not np.any(volts)
+            and not hold_metrics["max_angle_after_catch_rad"])
+
+
 def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_signals, runs_current,
                   holds: list[dict] | None = None, sensing: tuple[list, dict] | None = None,
                   power_criteria: list[dict] | None = None) -> dict:
@@ -411,6 +424,10 @@ def build_verdict(sc, device, metrics: dict, pushes: dict, mc: dict, *, hold_sig
             + ([runaway_criterion(sc, device, holds)] if holds else [])
             + _static_criteria(sc, device, hold_signals, thermal, burst, mc) + sensing_crit + (power_criteria or []))
     steady = sensing_summary.get("estimator_steady_error_rad")
+    if hold_unexercised(hold_signals[0], metrics["hold"]):
+        for c in crit:
+            if c["name"] in HOLD_DERIVED:
+                c["note"] += "; " + UNEXERCISED_NOTE
     for c in crit:
         if c["name"] == "wheel_runaway_time_s" and steady is not None:
             c["note"] += f"; the estimator's steady error in the upright hold is {math.degrees(steady):+.2f} deg (an angle bias)"
@@ -447,7 +464,7 @@ def _run_criteria(sc, metrics: dict, push_value: float, worse: str) -> list[dict
     hold, nominal = metrics["hold"], metrics["nominal"]
     crit.append(_criterion("hold_max_angle_rad", hold["max_angle_after_catch_rad"],
                            getattr(sc.strategy.params, "release_angle", math.pi), hold["outcome"] == "balanced",
-                           f"{HOLD_S:g} s upright with sensor noise: {outcome_with_cause(hold)}"))
+                           f"{HOLD_S:g} s upright with the scenario's sensors: {outcome_with_cause(hold)}"))
     crit.append(_at_most("settle_time_s", nominal["settle_time_s"], req.settle_time,
                          f"the scenario's own trial: {outcome_with_cause(nominal)}"))
     crit.append(_at_least("max_push_survived_n_m_s", push_value, req.min_push, f"worse direction: {worse}"))

@@ -10,6 +10,7 @@ class BrakeAt(Strategy):
 
     class Params(StrategyParams):
         at_s: float = 0.0
+        flags: list[bool] | None = None     # per-wheel brake flags instead of one for all
 
     def __init__(self, **kw) -> None:
         super().__init__(**kw)
@@ -19,5 +20,6 @@ class BrakeAt(Strategy):
 
     def decide(self, reading: Reading):
         if reading.t_s >= self.params.at_s and not self.brake:
-            self.brake, self.phase = True, "brake"
+            self.brake = list(self.params.flags) if self.params.flags is not None else True
+            self.phase = "brake"
         return [0.0] * self.n if self.n > 1 else 0.0

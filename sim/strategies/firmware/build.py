@@ -39,17 +39,19 @@ from pathlib import Path
 
 HEADER = Path(__file__).with_name("wheelbench.h")
 CACHE_ENV = "WHEELBENCH_FIRMWARE_CACHE"
-BUILD_RECIPE = "5"   # bump when the generated wrapper below changes: old builds are then not reused
+BUILD_RECIPE = "6"   # bump when the generated wrapper below changes: old builds are then not reused
 ERROR_LINES = 2
 
-# The wrapper cffi compiles around the firmware: one call per tick with the three readings (cheaper
+# The wrapper cffi compiles around the firmware: one call per tick with the readings (cheaper
 # from Python than filling the struct field by field). It keeps the tick's time and turns the
-# readings into cumulative counts (the angle from 0 at upright, unwrapped across +-pi; the wheel
+# readings into cumulative counts (the angle from 0 at upright, unwrapped across +-pi; each wheel
 # from 0, adding each tick's speed times the period), zeroes the output, calls wb_step, flushes
 # stdout (a trial that crashes keeps the printf output of every tick before), and returns volts
-# (from the duty when pwm_max > 0). The per-wheel arrays (wheelbench.h) are filled for the one
-# wheel: entry 0 mirrors the one-wheel fields; wheel 1's command is the array's entry when the
-# firmware set it (non-zero), else the one-wheel field, and its brake is either one's.
+# (from the duty when pwm_max > 0). One-wheel devices call wbx_tick (three readings, one volt
+# back); 3D devices call wbx_tick_wheels (the attitude readings and every wheel's speed in one
+# array, each wheel's volts out, the brakes as a bit mask). Entry 0 of the arrays mirrors the
+# one-wheel fields; wheel 1's command is the array's entry when the firmware set it (non-zero),
+# else the one-wheel field, and its brake is either one's.
 _WRAPPER = """
 #include <math.h>
 #include <stdio.h>
@@ -61,9 +63,12 @@ static double wbx_period_s, wbx_angle_res, wbx_wheel_res;
 static uint64_t wbx_tick_n;
 static int32_t wbx_angle_prev;
 static void wbx_init(wb_config_t *cfg, double period_s) {
+    int i;
     memset(&wbx_in, 0, sizeof wbx_in);
-    cfg->n_wheels = 1;
-    cfg->wheels_counts_per_rev[0] = cfg->wheel_counts_per_rev;
+    if (cfg->n_wheels < 1 || cfg->n_wheels > WB_MAX_WHEELS)
+        cfg->n_wheels = 1;
+    for (i = 0; i < cfg->n_wheels; i++)
+        cfg->wheels_counts_per_rev[i] = cfg->wheel_counts_per_rev;
     wbx_cfg = *cfg;
     wbx_period_s = period_s;
     wbx_angle_res = cfg->angle_counts_per_rev ? 6.283185307179586 / cfg->angle_counts_per_rev : 0.0;
@@ -87,11 +92,7 @@ static void wbx_imu(double gx, double gy, double gz, double ax, double ay, doubl
         wbx_in.accel_raw[i] = wbx_raw(a[i], wbx_cfg.accel_m_s2_per_lsb);
     }
 }
-static double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_rad_s, wb_output_t *out) {
-    wbx_in.t_us = (uint32_t)(uint64_t)llround((double)wbx_tick_n * wbx_period_s * 1e6);
-    wbx_in.angle_rad = (float)angle_rad;
-    wbx_in.rate_rad_s = (float)rate_rad_s;
-    wbx_in.wheel_speed_rad_s = (float)wheel_speed_rad_s;
+static void wbx_angle_counts(double angle_rad) {
     if (wbx_angle_res > 0.0) {
         int32_t c = (int32_t)lround(angle_rad / wbx_angle_res);
         if (wbx_tick_n == 0) {
@@ -103,6 +104,15 @@ static double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_r
         }
         wbx_angle_prev = c;
     }
+}
+static double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_rad_s, wb_output_t *out) {
+    wbx_in.t_us = (uint32_t)(uint64_t)llround((double)wbx_tick_n * wbx_period_s * 1e6);
+    wbx_in.angle_rad = (float)angle_rad;
+    wbx_in.rate_rad_s = (float)rate_rad_s;
+    wbx_in.wheel_speed_rad_s = (float)wheel_speed_rad_s;
+    wbx_in.tilt_rad[0] = wbx_in.angle_rad;
+    wbx_in.rates_rad_s[0] = wbx_in.rate_rad_s;
+    wbx_angle_counts(angle_rad);
     if (wbx_wheel_res > 0.0)
         wbx_in.wheel_counts += (int32_t)lround(wheel_speed_rad_s * wbx_period_s / wbx_wheel_res);
     wbx_in.wheels_speed_rad_s[0] = wbx_in.wheel_speed_rad_s;
@@ -119,11 +129,49 @@ static double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_r
     }
     return out->wheels_volts[0] != 0.0f ? (double)out->wheels_volts[0] : (double)out->volts;
 }
+/* x: tilt about x, tilt about y, rates about x, y, z, then each wheel's speed (a hinge: zeros where
+   the device has no such axis). volts: each wheel's command out. Returns the brakes, bit i = wheel i + 1. */
+static int wbx_tick_wheels(const double *x, wb_output_t *out, double *volts) {
+    int i, n = wbx_cfg.n_wheels, brakes = 0;
+    wbx_in.t_us = (uint32_t)(uint64_t)llround((double)wbx_tick_n * wbx_period_s * 1e6);
+    for (i = 0; i < 2; i++)
+        wbx_in.tilt_rad[i] = (float)x[i];
+    for (i = 0; i < 3; i++)
+        wbx_in.rates_rad_s[i] = (float)x[2 + i];
+    wbx_in.angle_rad = wbx_in.tilt_rad[0];
+    wbx_in.rate_rad_s = wbx_in.rates_rad_s[0];
+    wbx_angle_counts(x[0]);
+    for (i = 0; i < n; i++) {
+        double speed = x[5 + i];
+        int32_t c = wbx_wheel_res > 0.0 ? (int32_t)lround(speed * wbx_period_s / wbx_wheel_res) : 0;
+        wbx_in.wheels_speed_rad_s[i] = (float)speed;
+        wbx_in.wheels_counts[i] += c;
+    }
+    wbx_in.wheel_speed_rad_s = wbx_in.wheels_speed_rad_s[0];
+    wbx_in.wheel_counts = wbx_in.wheels_counts[0];
+    wbx_tick_n++;
+    memset(out, 0, sizeof *out);
+    wb_step(&wbx_in, out);
+    fflush(stdout);
+    for (i = 0; i < n; i++) {
+        int use_one = i == 0;   /* wheel 1: the one-wheel field when its array entry was left at 0 */
+        if (wbx_cfg.pwm_max > 0) {
+            int32_t duty = (use_one && out->wheels_duty[0] == 0) ? out->duty : out->wheels_duty[i];
+            volts[i] = (double)duty / wbx_cfg.pwm_max * wbx_cfg.supply_v;
+        } else {
+            volts[i] = (use_one && out->wheels_volts[0] == 0.0f) ? (double)out->volts : (double)out->wheels_volts[i];
+        }
+        if (out->wheels_brake[i] || (use_one && out->brake))
+            brakes |= 1 << i;
+    }
+    return brakes;
+}
 """
 _WRAPPER_CDEF = """
 void wbx_init(wb_config_t *cfg, double period_s);
 double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_rad_s, wb_output_t *out);
 void wbx_imu(double gx, double gy, double gz, double ax, double ay, double az);
+int wbx_tick_wheels(const double *x, wb_output_t *out, double *volts);
 """
 
 _STUB_MAIN = """

@@ -117,10 +117,13 @@ class FirmwareStrategy(Strategy):
     The compiled wrapper (`sim.strategies.firmware.build`) fills wb_input_t: the tick's time, the readings, and
     the readings in whole encoder counts (the angle from 0 at upright, unwrapped across +-pi; the
     wheel from 0 at the first tick, adding each tick's speed reading times the period).
+
+    On a 3D device (`sim.model.device3d.Device3D`: one to three wheels, a hinge or ball mount) the
+    wrapper also fills the attitude (tilt_rad, rates_rad_s) and every wheel's entries, and `decide`
+    returns one voltage per wheel; `brake` is then False or a tuple of one flag per wheel.
     """
 
     kind = "firmware"
-    planar_only = True   # the C contract carries one wheel: refused for 3D devices at load
     goal = "balance"
     isolated: ClassVar[bool] = True   # trials run in the isolation child (see sim.strategies.plugins_in)
     Params = FirmwareParams
@@ -131,23 +134,39 @@ class FirmwareStrategy(Strategy):
         module = load_fresh(self.params.build)
         ffi, lib = module.ffi, module.lib
         d = self.device
-        self.pwm_max = d.pwm_max              # > 0 with drive.pwm: the firmware writes a duty
+        # > 0 with drive.pwm: the firmware writes a duty (a 3D device has no PWM model, nor an IMU yet)
+        self.pwm_max = getattr(d, "pwm_max", 0)
+        gyro_lsb, accel_lsb = getattr(d, "imu_gyro_lsb_rad_s", 0.0), getattr(d, "imu_accel_lsb_m_s2", 0.0)
         period_s = 1.0 / d.control_rate_hz
+        wheels = getattr(d, "n_wheels", None)   # a 3D device: the per-wheel form (None: the one-wheel device)
         cfg = ffi.new("wb_config_t *", {"period_us": round(period_s * 1e6), "supply_v": d.supply_v,
                                         "angle_counts_per_rev": d.angle_counts_per_rev,
                                         "wheel_counts_per_rev": d.wheel_counts_per_rev, "pwm_max": self.pwm_max,
-                                        "gyro_rad_s_per_lsb": d.imu_gyro_lsb_rad_s,
-                                        "accel_m_s2_per_lsb": d.imu_accel_lsb_m_s2})
+                                        "gyro_rad_s_per_lsb": gyro_lsb, "accel_m_s2_per_lsb": accel_lsb,
+                                        "n_wheels": wheels or 1,
+                                        "mount": lib.WB_MOUNT_BALL if getattr(d, "mount", "hinge") == "ball"
+                                        else lib.WB_MOUNT_HINGE})
         # a duty is a share of the bus as it is: the runner scales the volts it stands for (duty /
         # pwm_max * the nominal supply) by the bus over the nominal supply (a battery's sag)
         self.commands_duty = self.pwm_max > 0
-        self._imu = lib.wbx_imu if d.imu_gyro_lsb_rad_s > 0 else None
+        self._imu = lib.wbx_imu if gyro_lsb > 0 else None
         self._out = ffi.new("wb_output_t *")
         self._tick, self._module = lib.wbx_tick, module   # the module keeps the loaded copy alive
         self.loaded_from = module.__file__    # the build's file, or a temporary copy of it (build.load_fresh)
         self._phases = [f"fw {i}" for i in range(256)]
         lib.wbx_init(cfg, period_s)
         self.phase = self._phases[0]
+        if wheels is not None:
+            self._set_up_wheels(ffi, lib, wheels)
+
+    def _set_up_wheels(self, ffi, lib, n: int) -> None:
+        """The per-wheel call (`wbx_tick_wheels`) and its buffers: the readings in, the volts out."""
+        self._x, self._v, self._n = ffi.new("double[]", 5 + n), ffi.new("double[]", n), n
+        self._pads = None       # (zeros after the angles, zeros after the rates): set at the first tick
+        self._tick_wheels, self._unpack = lib.wbx_tick_wheels, ffi.unpack
+        # the brakes' bit mask -> what `brake` says: False, or one flag per wheel
+        self._brakes = [False] + [tuple(bool(m >> i & 1) for i in range(n)) for m in range(1, 1 << n)]
+        self.decide = self._decide_wheels
 
     def _redirect_printf(self) -> None:
         """In the isolation child only, send file descriptor 1 (C's stdout) to the log or nowhere, and
@@ -169,3 +188,15 @@ class FirmwareStrategy(Strategy):
         self.phase = self._phases[out.phase]
         self.brake = out.brake != 0
         return volts
+
+    def _decide_wheels(self, reading: Reading) -> list[float]:
+        """A 3D device's tick: tilt (2), rates (3), then the wheels' speeds in one array; volts per wheel."""
+        angles, rates = reading.angles_rad, reading.rates_rad_s
+        pads = self._pads
+        if pads is None:
+            pads = self._pads = ((0.0,) * (2 - len(angles)), (0.0,) * (3 - len(rates)))
+        self._x[0:5 + self._n] = angles + pads[0] + rates + pads[1] + reading.wheel_speeds_rad_s
+        brakes = self._tick_wheels(self._x, self._out, self._v)
+        self.phase = self._phases[self._out.phase]
+        self.brake = self._brakes[brakes]
+        return self._unpack(self._v, self._n)

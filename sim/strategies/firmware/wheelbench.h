@@ -43,14 +43,30 @@
  *
  * Several wheels. Each struct ends with per-wheel arrays of WB_MAX_WHEELS entries, appended
  * after the one-wheel fields (which keep their names and places, so one-wheel code compiles and
- * works unchanged). Entry 0 is wheel 1, the wheel the one-wheel fields describe; entries from
- * n_wheels on are 0. Wheelbench simulates one wheel today, so n_wheels is 1:
- *   - wb_config_t: n_wheels, and wheels_counts_per_rev[0] == wheel_counts_per_rev;
- *   - wb_input_t: wheels_speed_rad_s[0] == wheel_speed_rad_s, wheels_counts[0] == wheel_counts;
- *   - wb_output_t: wheel 1 is driven by wheels_volts[0] (wheels_duty[0] with a PWM resolution)
- *     when the firmware set it to anything but 0, else by volts (duty); it is braked when brake
- *     or wheels_brake[0] is 1. Firmware may thus write either form; one that writes both should
- *     write the same value to both.
+ * works unchanged). Entry i is wheel i + 1 in the scenario's order (`wheels:`; `wheel:` is wheel
+ * 1), the wheel the one-wheel fields describe being entry 0; entries from n_wheels on are 0.
+ *   - wb_config_t: n_wheels (1 to WB_MAX_WHEELS), wheels_counts_per_rev[i] (every wheel's
+ *     encoder: sensors.wheel.counts_per_rev, so [0] == wheel_counts_per_rev), and mount;
+ *   - wb_input_t: wheels_speed_rad_s[i] and wheels_counts[i] for every wheel, each as the
+ *     one-wheel fields are for wheel 1 ([0] == wheel_speed_rad_s, [0] == wheel_counts);
+ *   - wb_output_t: wheel i + 1 is driven by wheels_volts[i] (wheels_duty[i] with a PWM
+ *     resolution) and braked when wheels_brake[i] is 1 (its wheel needs a brake_torque). For
+ *     wheel 1 alone the one-wheel fields still count: it is driven by volts (duty) when the
+ *     firmware left wheels_volts[0] (wheels_duty[0]) at 0, and braked when brake is 1. Firmware may
+ *     thus write either form for wheel 1; one that writes both should write the same value.
+ *
+ * Attitude in 3D (a ball mount, or a hinge device with its wheels on any axes), appended last:
+ *   - wb_config_t.mount: WB_MOUNT_HINGE or WB_MOUNT_BALL (body.mount);
+ *   - wb_input_t.tilt_rad[2]: the measured tilt from upright about world x and about world y
+ *     (right-hand rule; on a hinge, [0] is the body angle about the hinge and [1] is 0);
+ *   - wb_input_t.rates_rad_s[3]: the measured body angular velocity about x, y, z of the heading
+ *     frame (the world frame turned about the vertical by the heading: x and y are the tilts'
+ *     rates at any heading, z the heading's rate); on a hinge, [0] is the rate about the hinge
+ *     and [1], [2] are 0.
+ * These are the readings the Python strategies see (Reading.angles_rad, Reading.rates_rad_s;
+ * sensor noise, bias, delay and quantisation per axis). The one-wheel fields mirror the first
+ * entries: angle_rad == tilt_rad[0], rate_rad_s == rates_rad_s[0], and angle_counts counts
+ * tilt_rad[0]. Attitude and rates are given on one-wheel hinge devices too.
  */
 #ifndef WHEELBENCH_H
 #define WHEELBENCH_H
@@ -59,6 +75,8 @@
 
 /* WB_CDEF_BEGIN (Wheelbench reads the declarations from here to WB_CDEF_END) */
 #define WB_MAX_WHEELS 3     /* length of the per-wheel arrays (entry 0: wheel 1) */
+#define WB_MOUNT_HINGE 0    /* wb_config_t.mount: a hinge about the body's x axis */
+#define WB_MOUNT_BALL 1     /* wb_config_t.mount: a ball joint (tips in any direction, turns about the vertical) */
 
 typedef struct {            /* given once */
     uint32_t period_us;     /* control period */
@@ -66,10 +84,12 @@ typedef struct {            /* given once */
     int32_t angle_counts_per_rev, wheel_counts_per_rev;   /* 0 when that sensor is ideal */
     int32_t pwm_max;        /* full-scale duty when the drive has a PWM resolution, else 0 */
     /* several wheels: appended after the one-wheel fields */
-    int32_t n_wheels;       /* wheels on the device, 1..WB_MAX_WHEELS (1 today) */
+    int32_t n_wheels;       /* wheels on the device, 1..WB_MAX_WHEELS */
     int32_t wheels_counts_per_rev[WB_MAX_WHEELS];     /* [0] == wheel_counts_per_rev */
     /* the IMU's raw words: appended after the wheels */
     float gyro_rad_s_per_lsb, accel_m_s2_per_lsb;     /* one LSB of gyro_raw / accel_raw; 0 without an IMU */
+    /* 3D devices: appended after the IMU's LSBs */
+    int32_t mount;          /* WB_MOUNT_HINGE or WB_MOUNT_BALL */
 } wb_config_t;
 
 typedef struct {            /* given every tick: what the firmware would read */
@@ -80,6 +100,9 @@ typedef struct {            /* given every tick: what the firmware would read */
     /* several wheels: appended after the one-wheel fields */
     float wheels_speed_rad_s[WB_MAX_WHEELS];          /* [0] == wheel_speed_rad_s */
     int32_t wheels_counts[WB_MAX_WHEELS];             /* [0] == wheel_counts */
+    /* 3D devices: appended after the per-wheel fields */
+    float tilt_rad[2];      /* tilt from upright about world x, y; [0] == angle_rad (a hinge: [1] == 0) */
+    float rates_rad_s[3];   /* body rate about heading-frame x, y, z; [0] == rate_rad_s (a hinge: [1], [2] == 0) */
 } wb_input_t;
 
 typedef struct {            /* filled by the firmware every tick */

@@ -1,0 +1,106 @@
+"""A body on the floor during a trial: its contact per step, the `slipped` outcome, where it came to rest.
+
+Per physics step `FloorWatch.see` records the balancing contact's world x, y (the body frame's origin),
+whether the body touches the floor and |F_t| / F_n over its floor contacts (the friction the motion
+asked of the floor) in the trace's floor columns. From the first step at which the law balances, the
+contact's horizontal travel is measured from where it was then; past `floor.slip_limit` the trial is
+`slipped` (the slip came before any fall; a slip after the fall is part of the fall).
+
+After the trial, `summary` gives the metrics' floor keys: `slip_m` (the largest travel while balancing,
+up to the fall), `lift_off_s` (time without floor contact over the trial), `rest_face` (the face nearest
+to facing the floor at the end, `sim.model.floor.face_down`, when it lies on it: within REST_COS of
+straight down and the body still; else None), `peak_friction_ratio` (the largest |F_t| / F_n while
+balancing, up to the fall) against `floor_friction`.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..model.floor import face_down
+
+REST_COS = math.cos(math.radians(5.0))   # a face within 5 deg of straight down lies on the floor (our choice)
+REST_RATE_RAD_S = 0.05                   # ... and the body turns slower than this (our choice)
+
+
+class FloorWatch:
+    """The runner's floor bookkeeping (see the module docstring). `contact` is the engine's closure."""
+
+    def __init__(self, contact, trace, floor, stop_early: bool):
+        self.contact, self.trace, self.floor, self.stop_early = contact, trace, floor, stop_early
+        self.cols = (memoryview(trace.contact_x), memoryview(trace.contact_y), memoryview(trace.contact_z),
+                     memoryview(trace.in_contact), memoryview(trace.friction_ratio))
+        self.limit2 = floor.slip_limit_m ** 2
+        self.origin = None        # the contact's (x, y) when balancing began
+        self.slipped_k = None
+        self.balance_k = None
+        self.fell_k = None
+
+    def stepper(self):
+        """see(k, balancing) -> bool: record step k; True when the trial should end now as `slipped`
+        (with stop_early). A closure with its lookups bound once: it runs every physics step."""
+        contact, stop_early, limit2 = self.contact, self.stop_early, self.limit2
+        cx, cy, cz, ct, cr = self.cols
+
+        def see(k, balancing):
+            x, y, z, touching, ratio = contact()
+            cx[k], cy[k], cz[k], ct[k], cr[k] = x, y, z, touching, ratio
+            if not balancing or self.slipped_k is not None:
+                return False
+            if self.origin is None:
+                self.origin, self.balance_k = (x, y), k
+                return False
+            dx, dy = x - self.origin[0], y - self.origin[1]
+            if dx * dx + dy * dy > limit2:
+                self.slipped_k = k
+                return stop_early
+            return False
+        return see
+
+    def outcome(self, outcome, fell_k):
+        """The trial's outcome with a slip before any fall counted: `slipped`."""
+        self.fell_k = fell_k
+        slipped_first = self.slipped_k is not None and (fell_k is None or self.slipped_k <= fell_k)
+        if slipped_first and outcome in (None, "fell", "slipped"):
+            return "slipped"
+        return outcome
+
+    def summary(self, engine, dt: float) -> dict:
+        tr = self.trace
+        n = tr.n
+        stop = n
+        fell = self.fell_k
+        x, y, touch, ratio = tr.contact_x[:n], tr.contact_y[:n], tr.in_contact[:n], tr.friction_ratio[:n]
+        slip = 0.0
+        peak_ratio = None
+        if self.balance_k is not None and self.balance_k < stop:
+            b = self.balance_k
+            end = stop if fell is None else min(stop, fell)
+            slip = float(np.max(np.hypot(x[b:end] - x[b], y[b:end] - y[b]))) if end > b else 0.0
+            peak_ratio = float(np.max(ratio[b + 1:end])) if end > b + 1 else None
+        face, cos_down = face_down(engine.attitude())
+        rates = engine.pb.getBaseVelocity(engine.body_id, physicsClientId=engine.client)[1]
+        still = math.sqrt(sum(w * w for w in rates)) < REST_RATE_RAD_S
+        return {"slip_m": slip, "slip_limit_m": self.floor.slip_limit_m,
+                "slipped_at_s": self.slipped_k * dt if self.slipped_k is not None else None,
+                "lift_off_s": float(np.count_nonzero(touch[1:] == 0.0)) * dt,   # row 0: no step taken yet
+                "rest_face": face if cos_down >= REST_COS and still else None,
+                "peak_friction_ratio": peak_ratio, "floor_friction": self.floor.friction,
+                "floor_restitution": self.floor.restitution, "balance_on": self.floor.balance_on}
+
+
+def floor_cause(result):
+    """(cause, sentence) for a floor trial the contact explains (`slipped`); a fall's own cause with the
+    face it came to rest on; else None."""
+    if result.outcome == "fell" and result.cause_detail and result.floor["rest_face"]:
+        return result.cause, f"{result.cause_detail}; it came to rest on its {result.floor['rest_face']}"
+    if result.outcome != "slipped":
+        return None
+    f = result.floor
+    ratio = f["peak_friction_ratio"]
+    asked = f", the motion asking up to {ratio:.2f} of the normal force in friction" if ratio is not None else ""
+    return "contact_slipped", (f"the balancing contact slid {f['slip_m'] * 1e3:.1f} mm (limit "
+                               f"{f['slip_limit_m'] * 1e3:g} mm) by t = {f['slipped_at_s']:.3f} s on a floor of "
+                               f"friction {f['floor_friction']:g}{asked}")
