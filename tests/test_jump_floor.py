@@ -55,3 +55,19 @@ def test_a_jump_to_a_corner_is_refused_at_load():
         make_scenario3d(WHEEL, body={**CUBE, "mount": "floor", "balance_on": "corner"}, motor=MOTOR,
                         floor={"friction": 0.8, "restitution": 0.1}, drive={"supply": 24.0, "brake_torque": 20.0},
                         strategy={"kind": "jump"}, trial={"start": {"resting_on": "face"}})
+
+
+def test_validate_gives_the_jump_from_the_face_the_floor_body_rests_on(tmp_path, capsys):
+    from conftest import scenario_dict, write_scenario
+    from sim.cli import main
+    raw = scenario_dict(body={**CUBE, "mount": "floor", "balance_on": "edge"}, motor=MOTOR,
+                        floor={"friction": 0.8, "restitution": 0.1}, drive={"supply": 24.0, "brake_torque": 20.0},
+                        strategy={"kind": "jump"}, trial={"start": {"resting_on": "face"}})
+    raw.pop("wheel")
+    raw["wheels"] = WHEEL
+    try:
+        code = main(["validate", str(write_scenario(tmp_path / "cube.yaml", raw))])
+    except SystemExit as exc:
+        code = exc.code
+    # the cube's face lies 45 deg from its edge (centre of mass on the face diagonal; hand geometry)
+    assert code in (0, None) and "jump face to edge from 45 deg: needs 120.9 rad/s" in capsys.readouterr().out

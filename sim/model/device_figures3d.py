@@ -98,6 +98,17 @@ def figures3d_text(device, spec, *, rest_tilt_rad: float = 0.0) -> list[str]:
     return lines
 
 
+def jump_rest_tilt(sc, device) -> float:
+    """The tilt about the balance edge the scenario starts from, rad: `trial.start.angle` on a hinge; on
+    the floor, balancing on an edge and resting on a face, the turn that lays it on that face (0 otherwise)."""
+    start = sc.trial.start
+    if device.floor is None or getattr(start, "resting_on", None) != "face" or device.floor.balance_on != "edge":
+        return start.angle
+    from .floor import face_angle
+    side = start.side or 1
+    return side * face_angle(device.floor.shapes, device.upright(), side)
+
+
 def jump_lines(device, *, rest_tilt_rad: float) -> list[str]:
     """The brake-to-jump figures (`sim.strategies.jump_figures`) of a device with a brake: face to edge
     from `rest_tilt_rad` on a hinge, edge to corner with three wheels; lossless, so a lower bound."""
