@@ -180,8 +180,9 @@ def validate(scenario: Path = typer.Argument(..., help="Scenario YAML file."),
         lines = figures_text(Device.from_scenario(sc), sc.strategy) + power_text(sc)
     else:
         from .model.device3d import Device3D
-        from .model.device_figures3d import figures3d_text
-        lines = figures3d_text(Device3D.from_scenario(sc), sc.strategy)
+        from .model.device_figures3d import figures3d_text, jump_rest_tilt
+        device = Device3D.from_scenario(sc)
+        lines = figures3d_text(device, sc.strategy, rest_tilt_rad=jump_rest_tilt(sc, device))
     typer.echo(f"{scenario}: valid.")
     for line in lines:
         typer.echo(f"  {line}")

@@ -183,6 +183,19 @@ def test_jump_needed_speed_is_the_published_formula():
         assert_allclose(law.needed_speed(phi0), expect, rtol=1e-12)
 
 
+def test_jump_attempts_can_be_capped():
+    # a jump aimed at 0.6x the need falls short; uncapped, the law tries again (10% faster) once the body
+    # has swung back to the bottom, with max_attempts: 1 it stops after the first
+    def run(**cap):
+        sc = make_scenario(strategy={"kind": "jump", "margin": 0.6, **cap}, drive={"supply": 24.0, "brake_torque": 50.0},
+                           wheel={"parts": [{"name": "disk", "shape": "disk", "radius": 0.08, "thickness": 0.005, "mass": 0.3}]},
+                           trial={"duration": 4.0, "start": {"angle": "180 deg"}})
+        return run_trial(sc)
+    capped, free = run(max_attempts=1), run()
+    assert capped.strategy.extra_metrics["jump_attempts"] == 1 and capped.trace.phases[-1] == "gave up"
+    assert free.strategy.extra_metrics["jump_attempts"] == 2
+
+
 def test_jump_without_a_brake_is_a_strategy_failure():
     res = run_trial(make_scenario(strategy={"kind": "jump"}))
     assert res.outcome == "strategy_failed" and "brake_torque" in res.message

@@ -18,6 +18,8 @@ import math
 
 import numpy as np
 
+from ..strategies.jump_figures import edge_to_corner, face_to_edge, jump_margin, wheel_reach
+
 HOLD_DIRECTIONS = 72     # horizontal directions tried for a ball mount (every 5 degrees)
 
 
@@ -76,8 +78,9 @@ def _hold_torque(axes: np.ndarray, stalls: np.ndarray, phi: float) -> float:
     return float(res.x[-1]) if res.success else 0.0
 
 
-def figures3d_text(device, spec) -> list[str]:
-    """Lines for the terminal."""
+def figures3d_text(device, spec, *, rest_tilt_rad: float = 0.0) -> list[str]:
+    """Lines for the terminal. `rest_tilt_rad`: the start tilt about the hinge (a body lying on a face:
+    the jump's figures are given from there)."""
     com = device.com_m
     d = float(np.linalg.norm(com))
     r0 = np.array(device.upright())
@@ -104,9 +107,47 @@ def figures3d_text(device, spec) -> list[str]:
     where = "" if phi is None else f", worst about the axis {math.degrees(phi):.0f} deg from x in the horizontal plane"
     lines.append(f"largest tilt the wheels can hold: {math.degrees(tilt):.3g} deg (static balance of stall torques"
                  f" against m g d sin(tilt){where})")
+    lines += jump_lines(device, rest_tilt_rad=rest_tilt_rad)
     lines.append(f"strategy {spec.kind}:")
     for name, value in spec.params.model_dump().items():
         source = "scenario" if name in spec.params.model_fields_set else "default"
         shown = f"{value:.6g}" if isinstance(value, float) else str(value)
         lines.append(f"  {name} = {shown} ({source})")
+    return lines
+
+
+def jump_rest_tilt(sc, device) -> float:
+    """The tilt about the balance edge the scenario starts from, rad: `trial.start.angle` on a hinge; on
+    the floor, balancing on an edge and resting on a face, the turn that lays it on that face (0 otherwise)."""
+    start = sc.trial.start
+    if device.floor is None or getattr(start, "resting_on", None) != "face" or device.floor.balance_on != "edge":
+        return start.angle
+    from .floor import face_angle
+    side = start.side or 1
+    return side * face_angle(device.floor.shapes, device.upright(), side)
+
+
+def jump_lines(device, *, rest_tilt_rad: float) -> list[str]:
+    """The brake-to-jump figures (`sim.strategies.jump_figures`) of a device with a brake: face to edge
+    from `rest_tilt_rad` on a hinge, edge to corner with three wheels; lossless, so a lower bound."""
+    if all(w.brake_torque_n_m is None for w in device.wheels):
+        return []
+    reach = [wheel_reach(w) for w in device.wheels]
+    jumps = []
+    if device.mount == "hinge" and abs(rest_tilt_rad) > 1e-9:
+        jumps.append((f"face to edge from {math.degrees(rest_tilt_rad):.3g} deg",
+                      lambda: face_to_edge(device, rest_tilt_rad=rest_tilt_rad)))
+    if device.n_wheels == 3:
+        jumps.append(("edge to corner", lambda: edge_to_corner(device)))
+    lines = []
+    for name, figures in jumps:
+        try:
+            fig = figures()
+        except ValueError as exc:     # no wheel along the turning axis, or no rise
+            lines.append(f"jump {name}: {exc}")
+            continue
+        lines.append(f"jump {name}: needs {fig.needed_wheel_speed_rad_s:.4g} rad/s before the brake (lossless, "
+                     f"the centre of mass rising {fig.rise_m * 1000:.3g} mm); jump margin "
+                     f"{jump_margin(fig.wheel_speeds_rad_s, reach):.3g} (reachable / needed - 1; below 0: out of reach "
+                     "at this supply)")
     return lines

@@ -386,6 +386,9 @@ class Drive(Strict):
     this or a `battery`; with a battery it is set to the pack's open-circuit voltage at the start."""
     brake_torque: Q("torque", gt=0, le=MAX_TORQUE) | None = None
     """A mechanical brake on the wheel (for brake-to-jump strategies), N m."""
+    brake_engage_time: Q("time", ge=0, le=10) | None = None
+    """The brake's engagement time, s: its torque ramps from 0 to brake_torque over it (`sim.physics.brake`);
+    absent: full torque on the step it is engaged, as before."""
     pwm: Pwm | None = None
     """Firmware strategies read `resolution_bits`; with `frequency` the drive models the PWM."""
     mode: Literal["voltage", "current"] = "voltage"
@@ -452,6 +455,8 @@ class WheelSpec(Wheel):
     axis: Direction = (1.0, 0.0, 0.0)
     motor: Motor | None = None
     brake_torque: Q("torque", gt=0, le=MAX_TORQUE) | None = None
+    brake_engage_time: Q("time", ge=0, le=10) | None = None
+    """This wheel's brake engagement time, else `drive.brake_engage_time`, s."""
 
     @field_validator("axis")
     @classmethod
@@ -612,6 +617,18 @@ class Scenario(Strict):
         return raw
 
     @model_validator(mode="after")
+    def _brake_times_need_brakes(self):
+        drive_brake = self.drive.brake_torque is not None
+        if self.drive.brake_engage_time is not None and not (
+                drive_brake or any(getattr(w, "brake_torque", None) is not None for w in self.wheel_list)):
+            raise ValueError("@drive.brake_engage_time: needs a brake (drive.brake_torque, or a wheel's brake_torque)")
+        for i, w in enumerate(self.wheels or []):
+            if w.brake_engage_time is not None and w.brake_torque is None and not drive_brake:
+                raise ValueError(f"@wheels[{i}].brake_engage_time: this wheel has no brake (its brake_torque or "
+                                 "drive.brake_torque)")
+        return self
+
+    @model_validator(mode="after")
     def _device_keys_fit(self):
         if self.motor is None and (self.wheels is None or any(w.motor is None for w in self.wheels)):
             raise ValueError("@motor: expected a motor (shared), or a motor for every wheel in wheels")
@@ -649,6 +666,13 @@ class Scenario(Strict):
             raise ValueError("@drive: the power chain (battery, drive.mode current, PWM frequency, reversal delay, "
                              "trips, bus capacitance, motor.curve, motor.thermal.coupled) takes one-wheel hinge "
                              "devices only in this release (this is a 3D device)")
+        mounts = getattr(self.strategy.cls, "mounts_3d", None) if self.strategy is not None else None
+        if mounts is not None and self.body.mount not in mounts:
+            raise ValueError(f"@strategy.kind: {self.strategy.kind} on a 3D device needs body.mount "
+                             f"{' or '.join(mounts)} (found {self.body.mount})")
+        if mounts is not None and getattr(self.body, "balance_on", None) == "corner":
+            raise ValueError(f"@strategy.kind: {self.strategy.kind} goes from a face up to an edge: it needs "
+                             "body.balance_on: edge (the edge-to-corner jump has no law yet)")
         if self.strategy is not None and getattr(self.strategy.cls, "planar_only", False):
             raise ValueError(f"@strategy.kind: {self.strategy.kind} works on one wheel on a hinge only; this device "
                              f"has {len(self.wheel_list)} wheel(s) on a {self.body.mount} mount")
@@ -664,6 +688,11 @@ class Scenario(Strict):
                 and self.trial.start.tilt is None and self.trial.start.tilt_rate is None
                 and not isinstance(self.trial.start.wheel_speed, list)
                 and not any(isinstance(p.impulse, tuple) for p in self.trial.pushes))
+
+    def brake_engage_times(self) -> list[float | None]:
+        """Each wheel's brake engagement time (its own, else `drive.brake_engage_time`), s; None: instant."""
+        own = [getattr(w, "brake_engage_time", None) for w in self.wheel_list]
+        return [t if t is not None else self.drive.brake_engage_time for t in own]
 
     @property
     def design_mount(self) -> str:

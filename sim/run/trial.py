@@ -22,6 +22,7 @@ from ..core.errors import StrategyError
 from ..model.device import Device
 from ..physics.engine import EngineModel
 from ..physics.drive import PowerChain
+from ..physics.brake import BrakeRamp
 from ..physics.motor import MotorDrive
 from ..physics.imu_sensing import TIMING_STREAM, make_sensors, sensing_columns, stream
 from ..physics.timing import TickSchedule
@@ -176,6 +177,7 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
     wheel_limit = ABSURD_WHEEL_FACTOR * device.no_load_speed_rad_s + 100.0
     bp, bw = device.pivot_viscous_n_m_s, device.wheel_viscous_n_m_s
     brake_on, open_circuit, volts, mode, phase, name = False, False, 0.0, 0, None, None
+    ramp = _brake_ramp(scenario, device, engine, dt)   # None without drive.brake_engage_time
     meas = (0.0, 0.0, 0.0)
     catch_k = fell_k = None
     fall_final = False
@@ -234,7 +236,7 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
                     phase = strategy.phase
                     name = str(phase)   # the strategy's own __str__: timed with it
                 if strategy.brake != brake_on:
-                    brake_on = _set_brake(engine, device, bool(strategy.brake))
+                    brake_on = _set_brake(engine, device, bool(strategy.brake), ramp)
                 open_circuit = bool(strategy.open_circuit)
                 leave()
             except BaseException as exc:  # noqa: B036 - the strategy's failure is its outcome
@@ -286,6 +288,8 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
         if k == next_push:
             pivot_torque += push_torque
             next_push, push_torque = pushes.pop() if pushes else (-1, 0.0)
+        if ramp is not None and ramp.active:
+            ramp.step()
         advance(pivot_torque, torque - bw * phd)
         t_cur[k], t_torq[k] = cur, torque
         if timed:
@@ -369,9 +373,22 @@ def _drive_limit(volts, supply_v: float) -> float:
     return math.copysign(supply_v, v)
 
 
-def _set_brake(engine, device, on: bool) -> bool:
+def _set_brake(engine, device, on: bool, ramp=None) -> bool:
     if on and device.brake_torque_n_m is None:
         raise StrategyError("the strategy engaged a brake, but the scenario has no drive.brake_torque")
+    if ramp is not None:    # an engagement time: the cap rises step by step from the next step
+        ramp.set([on])
+        return on
     wheel = device.wheel_coulomb_n_m + (device.brake_torque_n_m if on else 0.0)
     engine.set_dry_friction(pivot_n_m=device.pivot_coulomb_n_m, wheel_n_m=wheel)
     return on
+
+
+def _brake_ramp(scenario, device, engine, dt: float):
+    """The brake's engagement ramp (`sim.physics.brake`), or None when the scenario sets no engagement time."""
+    engage = scenario.drive.brake_engage_time
+    if engage is None:
+        return None
+    pivot = device.pivot_coulomb_n_m
+    return BrakeRamp(brake_n_m=[device.brake_torque_n_m], engage_s=[engage], coulomb_n_m=[device.wheel_coulomb_n_m],
+                     step_s=dt, apply=lambda caps: engine.set_dry_friction(pivot_n_m=pivot, wheel_n_m=caps[0]))

@@ -34,6 +34,7 @@ from ..core.frames import matmul, rotation_about_x_y
 from ..model.device3d import Device3D
 from ..model.floor import start_attitude
 from ..physics.engine3d import Engine3D
+from ..physics.brake import BrakeRamp
 from ..physics.engine_floor import FloorEngine
 from ..physics.motor import MotorDrive
 from ..physics.sensors import SensorSuite
@@ -197,6 +198,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     reading = Reading()
     release = getattr(getattr(strategy, "params", None), "release_angle", math.pi)
     wants_balance = strategy is not None and strategy.goal == "balance"
+    again = bool(getattr(strategy, "swings_up", False))   # a law that can get the body up again after a fall
     supply = float(scenario.drive.supply)
     motors = [MotorDrive(_WheelMotor(device, i), step_s=dt) for i in wheels]
     updates = [m.update for m in motors]
@@ -205,6 +207,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     wheel_limit = [ABSURD_WHEEL_FACTOR * w.no_load_speed_rad_s + 100.0 for w in device.wheels]
     bw = [w.viscous_n_m_s for w in device.wheels]
     volts, mode, phase, name, brake_on, open_circuit = (0.0,) * nw, 0, None, None, False, False
+    ramp = _brake_ramp(scenario, device, engine, dt)   # None without a brake engagement time
     catch_k = fell_k = None
     ticks = saturated = 0
     at_supply = supply * (1.0 - 1e-9)
@@ -280,7 +283,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                     phase = strategy.phase
                     name = str(phase)
                 if strategy.brake != brake_on:
-                    brake_on = _set_brake(engine, device, strategy.brake)
+                    brake_on = _set_brake(engine, device, strategy.brake, ramp)
                 open_circuit = bool(strategy.open_circuit)
                 clock.leave()
             except BaseException as exc:  # noqa: B036 - the strategy's failure is its outcome
@@ -302,13 +305,13 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 if v >= at_supply or v <= -at_supply:
                     at_limit = True
             saturated += at_limit
-            if wants_balance:   # no 3D law swings up: once fallen, the body stays fallen
+            if wants_balance:   # once fallen, the body stays fallen, unless the law gets it up again (a jump)
                 if tilt <= release and strategy.balancing:
-                    if catch_k is None and fell_k is None:
-                        catch_k = k
+                    if catch_k is None and (fell_k is None or again):
+                        catch_k, fell_k = k, None
                 elif catch_k is not None:
                     fell_k, catch_k = k, None
-                    outcome = "fell" if stop_early else None   # with stop_early this step still runs
+                    outcome = "fell" if stop_early and not again else None   # with stop_early this step still runs
         if open_circuit:
             for i in wheels:
                 motors[i].current = i_c[i][k] = tq_c[i][k] = 0.0
@@ -319,6 +322,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 cur, torque = update(v, s)
                 c_col[k], t_col[k] = cur, torque
                 net.append(torque - b * s)
+        if ramp is not None and ramp.active:
+            ramp.step()
         if k == next_push:   # a push's torque on its step
             advance(push_torque, net)
             next_push, push_torque = pushes.pop() if pushes else (-1, None)
@@ -366,7 +371,7 @@ def _hold_tick_values(trace: Trace3D, cs: int) -> None:
         col[: trace.n] = col[rows]
 
 
-def _set_brake(engine: Engine3D, device: Device3D, on):
+def _set_brake(engine: Engine3D, device: Device3D, on, ramp=None):
     """Engage or release the brakes: `on` a truth value for every wheel with a brake_torque, or a
     sequence of one flag per wheel (a wheel flagged needs its brake_torque). Returns `on` as given."""
     if isinstance(on, (tuple, list)):
@@ -379,6 +384,18 @@ def _set_brake(engine: Engine3D, device: Device3D, on):
         flags = [bool(on)] * device.n_wheels
         if on and all(w.brake_torque_n_m is None for w in device.wheels):
             raise StrategyError("the strategy engaged a brake, but no wheel has a brake_torque")
+    if ramp is not None:    # an engagement time: the caps of newly engaged wheels rise step by step
+        ramp.set(flags)
+        return on
     engine.set_dry_friction([w.coulomb_n_m + ((w.brake_torque_n_m or 0.0) if f else 0.0)
                              for f, w in zip(flags, device.wheels)])
     return on
+
+
+def _brake_ramp(scenario, device: Device3D, engine: Engine3D, dt: float):
+    """The brakes' engagement ramp (`sim.physics.brake`), or None when no wheel has an engagement time."""
+    times = scenario.brake_engage_times()
+    if all(t is None for t in times):
+        return None
+    return BrakeRamp(brake_n_m=[w.brake_torque_n_m for w in device.wheels], engage_s=times,
+                     coulomb_n_m=[w.coulomb_n_m for w in device.wheels], step_s=dt, apply=engine.set_dry_friction)

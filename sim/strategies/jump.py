@@ -20,6 +20,7 @@ from typing import Annotated, Literal
 from pydantic import Field
 
 from .base import Reading, Strategy, StrategyParams
+from .jump_figures import jump_margin, reachable_wheel_speed
 from .swingup import volts_for_torque
 
 SPEED_CAP = 0.95           # never aim above 95% of the no-load speed: the approach is exponential
@@ -36,14 +37,20 @@ class BrakeJump(Strategy):
     Parameters: `margin` (factor on the needed speed, default 1.1, for friction losses during the
     rise), `ramp_torque` (N m of wheel torque while spinning up; default 15% of mbar g, capped at
     the stall torque), `direction` (+1 or -1: the sign of the wheel speed, which is also the sign
-    of the body rate the brake produces). Reports `needed_wheel_speed_rad_s` (from the first
-    reading's angle), `reached_wheel_speed_rad_s` (measured when the brake was last engaged) and
-    `jump_count` in `extra_metrics`. A jump that falls short is tried again, 10% faster, once the
-    body has swung back to the bottom.
+    of the body rate the brake produces), `max_attempts` (None: no cap; on a 3D device, default 5).
+    Reports `needed_wheel_speed_rad_s` (from the first reading's angle), `reached_wheel_speed_rad_s`
+    (measured when the brake was last engaged), `jump_attempts` and `jump_margin` (how far over the
+    needed speed the motor can go at this supply, `sim.strategies.jump_figures.jump_margin`) in
+    `extra_metrics`. A jump that falls short is tried again, 10% faster, once the body has swung back
+    to the bottom.
+
+    On a 3D device (one with `linear_spec()`: a hinge at an edge, a floor device) the law is
+    `sim.strategies.jump3d.JumpUp3D`: face to edge, then the multi-wheel LQR, retries corrected by
+    the energy reached.
     """
 
     kind = "jump"
-    planar_only = True   # one wheel on a hinge: refused for 3D devices at load
+    mounts_3d = ("hinge", "floor")   # 3D devices: JumpUp3D, from a face up to an edge (checked at load)
     goal = None
     swings_up = True
 
@@ -51,6 +58,16 @@ class BrakeJump(Strategy):
         margin: Annotated[float, Field(ge=0.5, le=3.0)] = 1.1
         ramp_torque: Annotated[float, Field(gt=0, allow_inf_nan=False)] | None = None
         direction: Literal[-1, 1] = 1
+        max_attempts: Annotated[int, Field(ge=1, le=100, strict=True)] | None = None
+
+    def __new__(cls, **kw):
+        if cls is BrakeJump and hasattr(kw.get("device"), "linear_spec"):
+            # a 3D device: the face-to-edge law. Not a subclass (so Python does not run __init__ again)
+            from .jump3d import JumpUp3D
+            law = object.__new__(JumpUp3D)
+            law.__init__(**kw)
+            return law
+        return super().__new__(cls)
 
     def __init__(self, **kw) -> None:
         super().__init__(**kw)
@@ -67,7 +84,8 @@ class BrakeJump(Strategy):
         self.period = 1.0 / d.control_rate_hz
         self.risen = False
         self.extra_metrics = {"needed_wheel_speed_rad_s": None, "reached_wheel_speed_rad_s": None,
-                              "jump_target_wheel_speed_rad_s": None, "braked_at_s": None, "jump_count": 0}
+                              "jump_target_wheel_speed_rad_s": None, "braked_at_s": None, "jump_attempts": 0,
+                              "jump_margin": None}
         self.phase = "spin up"
 
     def needed_speed(self, angle_rad: float) -> float:
@@ -78,16 +96,21 @@ class BrakeJump(Strategy):
     def decide(self, reading: Reading) -> float:
         w = reading.wheel_speed_rad_s
         if self.target is None:
+            d = self.device
             needed = self.needed_speed(reading.angle_rad)
             self.target = min(self.params.margin * needed, SPEED_CAP * self.device.no_load_speed_rad_s)
             self.extra_metrics["needed_wheel_speed_rad_s"] = needed
+            self.extra_metrics["jump_margin"] = jump_margin(needed, reachable_wheel_speed(
+                k_t_n_m_a=d.k_t_n_m_a, k_e_v_s_rad=d.k_e_v_s_rad, resistance_ohm=d.resistance_ohm,
+                current_limit_a=d.current_limit_a, supply_v=d.supply_v, coulomb_n_m=d.wheel_coulomb_n_m,
+                viscous_n_m_s=d.wheel_viscous_n_m_s))
             self.extra_metrics["jump_target_wheel_speed_rad_s"] = self.target
         if self.brake:
             self._watch_fall_back(reading.angle_rad)
             return 0.0
         if self.phase == "hold" and reading.rate_rad_s * self.sign >= 0.0:
             self.brake, self.open_circuit, self.phase = True, True, "brake"
-            self.extra_metrics["jump_count"] += 1
+            self.extra_metrics["jump_attempts"] += 1
             self.extra_metrics["reached_wheel_speed_rad_s"] = abs(float(w))
             self.extra_metrics["braked_at_s"] = float(reading.t_s)
             return 0.0
@@ -99,6 +122,10 @@ class BrakeJump(Strategy):
         if abs(angle_rad) < math.pi - BOTTOM_BAND:
             self.risen = True
         elif self.risen:
+            cap = self.params.max_attempts
+            if cap is not None and self.extra_metrics["jump_attempts"] >= cap:
+                self.risen, self.phase = False, "gave up"   # the brake stays on: the body hangs still
+                return
             self.brake, self.open_circuit, self.risen, self.phase = False, False, False, "spin up"
             self.w_ref, self.ref_done_s = 0.0, None
             self.target = min(self.target * RETRY_GAIN, SPEED_CAP * self.device.no_load_speed_rad_s)
