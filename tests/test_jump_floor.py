@@ -1,21 +1,16 @@
 """`kind: jump` on the floor (`body.mount: floor`, the floating body on a plane): from lying on a face
-up to the balance edge. Skipped until the floor mount is in the schema (it comes from its own branch);
-the device is our own invention, the needed speed is the momentum-and-energy figure checked against
+up to the balance edge. The device is our own invention, the needed speed is the momentum-and-energy figure checked against
 Gajamohan, Merz, Thommen & D'Andrea (IROS 2012) in tests/test_jump_figures.py."""
 
 from __future__ import annotations
 
 import math
-import typing
+from pathlib import Path
 
 import pytest
 
 from conftest import make_scenario3d
-from sim.model.scenario import Body
 from test_jump3d import CUBE, MOTOR, WHEEL
-
-pytestmark = pytest.mark.skipif("floor" not in typing.get_args(Body.model_fields["mount"].annotation),
-                                reason="body.mount: floor is not in this schema yet")
 
 
 def _floor(strategy: dict, duration: float):
@@ -71,3 +66,15 @@ def test_validate_gives_the_jump_from_the_face_the_floor_body_rests_on(tmp_path,
         code = exc.code
     # the cube's face lies 45 deg from its edge (centre of mass on the face diagonal; hand geometry)
     assert code in (0, None) and "jump face to edge from 45 deg: needs 120.9 rad/s" in capsys.readouterr().out
+
+
+def test_the_bundled_floor_jump_demo_gets_up_on_its_first_try():
+    # scenarios/floor_jump.yaml: its comment says the cube jumps from its face and balances
+    from sim.model.scenario_yaml import load_scenario
+    from sim.run.metrics3d import trial_metrics3d
+    from sim.run.trial import run_trial
+    sc = load_scenario(Path(__file__).resolve().parents[1] / "scenarios" / "floor_jump.yaml")
+    m = trial_metrics3d(run_trial(sc))
+    assert m["outcome"] == "balanced" and m["jump_attempts"] == 1
+    assert m["reached_wheel_speed_rad_s"] > m["needed_wheel_speed_rad_s"] and m["jump_margin"] > 0
+    assert m["slip_m"] < 1e-3 and m["lift_off_s"] == 0.0
