@@ -85,6 +85,16 @@ def print_run(sc, m: dict, out: Path) -> None:
         for i, w in enumerate(m["wheels"], start=1):
             rows.insert(at + i, (f"wheel {i}", f"peak {_fmt(w['peak_speed_rad_s'], 'rad/s')} of "
                                               f"{w['speed_limit_rad_s']:.1f} rad/s, peak {_fmt(w['peak_current_a'], 'A')}"))
+    if m.get("floor_friction") is not None:   # a body on the floor: how its contact held
+        rows.append(("contact slip", f"{m['slip_m'] * 1e3:.3g} mm while balancing (limit {m['slip_limit_m'] * 1e3:g} mm)"
+                     + ("" if m.get("slipped_at_s") is None else f", past it at {m['slipped_at_s']:.3f} s")))
+        ratio = m.get("peak_friction_ratio")
+        rows.append(("friction used", "-" if ratio is None else
+                     f"peak |F_t|/F_n {ratio:.3g} of friction {m['floor_friction']:g}"
+                     + (" (the contact slid)" if ratio >= 0.99 * m["floor_friction"] else "")))
+        rows.append(("off the floor", _fmt(m["lift_off_s"], "s")))
+        if m.get("rest_face"):
+            rows.append(("came to rest on", str(m["rest_face"])))
     if m.get("estimator") is not None:    # only with sensors.estimator / timing: today's table otherwise
         deg = 180.0 / math.pi
         rows.append((f"estimator ({m['estimator']}) error", "-" if m["estimator_angle_rms_error_rad"] is None else

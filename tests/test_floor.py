@@ -268,3 +268,14 @@ def test_corner_cube_on_the_floor_balances_on_its_corner():
         eng.reset(attitude=start_attitude(rest, device)[0])
         assert abs(eng.origin_m()[2]) < 1e-9
         assert eng.io()[0]()[3] < 1e-9
+
+
+def test_run_prints_how_the_contact_held(tmp_path, capsys):
+    # a user of a floor device sees the slip, the friction used and the time off the floor in the table
+    from sim.cli import main
+    demo = Path(__file__).resolve().parents[1] / "scenarios" / "floor_cube.yaml"
+    code = main(["run", str(demo), "--out", str(tmp_path / "o"), "--set", "trial.duration=0.5", "--set", "trial.pushes=[]"])
+    out = capsys.readouterr().out
+    assert code == 0
+    for row in ("contact slip", "mm while balancing (limit 5 mm)", "friction used", "off the floor"):
+        assert row in out, row
