@@ -271,3 +271,22 @@ def test_sweep_over_the_tilted_demos_axis_shows_what_the_tilt_costs(tmp_path):
     assert straight["outcome"] == tilted["outcome"] == "balanced"
     assert float(tilted["peak_wheel_speed_rad_s"]) > 1.03 * float(straight["peak_wheel_speed_rad_s"])
     assert float(tilted["wheel1_peak_speed_rad_s"]) == float(tilted["peak_wheel_speed_rad_s"])
+
+
+def test_a_default_tilt_map_spans_one_and_a_half_times_the_widest_statics_limit():
+    # Two equal wheels on x and y: about the horizontal axis at phi the wheels give, with nothing
+    # about the axis across it, S / max(|cos phi|, |sin phi|), widest at 45 deg: sqrt(2) S (statics,
+    # by hand). At rest no start tilt past asin(sqrt(2) S / m g d) can be caught, so the default map
+    # spans 1.5 times it (when that is inside the law's release angle) and its cells go where the edge is.
+    from sim.model.device3d import Device3D
+    from sim.model.device_figures3d import stall_torque_n_m
+    from sim.model.scenario import validate_scenario
+    from sim.studies.catchmap3d import catch_map3d
+    raw = yaml.safe_load(Path(POLE).read_text())
+    raw.setdefault("drive", {})["supply"] = "3 V"          # a weak drive: the statics limit well inside 30 deg
+    dev = Device3D.from_scenario(validate_scenario(raw, where=POLE))
+    s = stall_torque_n_m(dev.wheels[0])
+    widest = math.asin(math.sqrt(2.0) * s / dev.gravity_torque_coeff_n_m)
+    result = catch_map3d(raw, POLE, grid=1)
+    assert 1.5 * widest < 0.95 * math.radians(30)
+    assert result["angle_max_rad"] == pytest.approx(1.5 * widest, rel=1e-6)

@@ -14,7 +14,9 @@ Three kinds of map (`MAP_KINDS`), each a square grid run cell by cell like today
 - `angle` (a hinge, one to three wheels on any axes): the start angle about the hinge against the
   start rate, as today's map.
 
-Default ranges: tilt (or angle) +-95% of the law's release angle; rate +-p times that tilt, p the
+Default ranges: tilt (or angle) +-95% of the law's release angle, and a map of two tilts no wider than
+1.5 times the widest tilt the wheels can hold by statics (at rest no start beyond it can be caught,
+so the grid's cells go where the edge is); rate +-p times that tilt, p the
 fastest unstable pole of the upright linear model (the rate along the unstable mode, as today).
 Outputs: catch_map.csv (a row per cell), catch_map.json (axes, ranges, counts, the largest tilt
 the wheels can hold by statics) and catch_map.png.
@@ -128,6 +130,18 @@ def _start_tilt(kind: str, x: float, y: float) -> float:
     return abs(x)
 
 
+STATICS_SPAN = 1.5   # a default tilt map reaches 1.5 times the widest tilt the wheels can hold (our choice)
+
+
+def _widest_holdable(device) -> float:
+    """The largest tilt (rad) the wheels can hold by statics over 24 horizontal directions (a ball), or
+    about the hinge."""
+    from ..model.device_figures3d import holdable_tilt, holdable_tilt_about
+    if device.mount != "ball":
+        return holdable_tilt(device)[0]
+    return max(holdable_tilt_about(device, k * math.pi / 12) for k in range(24))
+
+
 def catch_map3d(raw: dict, where: str, *, grid: int = 21, angle_max: float | None = None,
                 rate_max: float | None = None, axes: str | None = None, direction_rad: float | None = None,
                 window_s: float = CATCH_WINDOW_S, workers: int | None = None, cluster=None, on_progress=None) -> dict:
@@ -148,6 +162,8 @@ def catch_map3d(raw: dict, where: str, *, grid: int = 21, angle_max: float | Non
     a_max = a_max if angle_max is None else angle_max
     if kind == "tilt":
         a_max = min(a_max, math.pi / 2)      # trial.start.tilt's own bound
+        if angle_max is None:                # at rest, no start tilt beyond the statics limit can be caught
+            a_max = min(a_max, STATICS_SPAN * _widest_holdable(Device3D.from_scenario(bsc)))
     r_max = (unstable_pole_rad_s(bsc) or 1.0) * a_max if rate_max is None else rate_max
     phi = direction_rad or 0.0
     xs = np.linspace(-a_max, a_max, grid) if grid > 1 else np.array([0.0])
