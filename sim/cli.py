@@ -517,6 +517,10 @@ def _jump_map(raw, where, *, grid, opts, others, out, workers, cluster, force) -
     typer.echo(f"{up} of {len(result['rows'])} jumps got up (one attempt each; speed factor {factors[0]:g} to "
                f"{factors[1]:g} of the needed speed, brake engagement {times[0] * 1e3:g} to {times[1] * 1e3:g} ms); "
                f"wrote {out_dir}/catch_map.csv, catch_map.json, catch_map.png")
+    from .studies.jumpmap import HELD_S, undecided
+    if undecided(result):
+        typer.echo(f"{undecided(result)} cells undecided: the trial ended less than {HELD_S:g} s after the brake; "
+                   "give a longer trial.duration")
     typer.echo(SAFETY)
 
 

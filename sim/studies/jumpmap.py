@@ -7,7 +7,8 @@ on a face up to the balance edge) maps the jump instead of start states. A squar
 - y: the brake's engagement time (`drive.brake_engage_time`: the time its torque takes to reach full,
   `sim.physics.brake`), s, default 0 to 100 ms.
 Each cell is one jump attempt (`max_attempts: 1`) from the scenario's own start, run for the
-scenario's `trial.duration`, judged got up when the trial ends `balanced`. How far it rose:
+scenario's `trial.duration`, judged got up when the trial ends `balanced` at least `HELD_S` after
+the brake (`undecided` when it ended sooner: a jump with too much speed may still be going over). How far it rose:
 `smallest_tilt_rad`, the smallest |tilt| about the balance edge reached (0 is balanced; the start
 lies at the face's rest tilt), `farthest_past_balance_rad`, how far it tipped beyond balance on
 the far side (a jump with too much speed goes over the edge and falls onto the other face), and `rise_fraction`, the centre of mass's rise at that point over the
@@ -34,9 +35,12 @@ from ..run.parallel import run_tasks
 SPEED_FACTOR_RANGE = (0.7, 1.5)   # default x range, factors of the needed speed (our choice)
 BRAKE_TIME_RANGE_S = (0.0, 0.1)   # default y range, s (our choice)
 SPEED_FACTOR_BOUNDS = (0.5, 3.0)  # the jump law's own bounds on `margin`
+HELD_S = 1.0                      # a jump counts as got up once balanced this long after the brake (our
+                                  # choice, the jump law's own `HELD_S`); a shorter rest of the trial is
+                                  # `undecided`
 BRAKE_TIME_BOUND_S = 10.0         # the scenario's own bound on `drive.brake_engage_time`
 COLUMNS = ("speed_factor", "brake_engage_time_s", "got_up", "outcome", "smallest_tilt_rad", "rise_fraction",
-           "farthest_past_balance_rad",
+           "farthest_past_balance_rad", "braked_at_s",
            "needed_wheel_speed_rad_s", "reached_wheel_speed_rad_s", "jump_attempts")
 AXIS_LABELS = ("pre-brake wheel speed / needed speed (the jump's margin) [-]", "brake engagement time [ms]")
 
@@ -95,7 +99,12 @@ def jump_cell(payload: dict) -> dict:
     tilt = np.abs(signed)
     m = res.strategy.extra_metrics if res.strategy is not None else {}
     smallest = float(np.min(tilt)) if tilt.size else None
-    return row | {"got_up": res.outcome == "balanced", "outcome": res.outcome, "smallest_tilt_rad": smallest,
+    braked = m.get("braked_at_s")
+    outcome = res.outcome
+    if outcome == "balanced" and (braked is None or res.ended_at_s - braked < HELD_S):
+        outcome = "undecided"     # the trial ended before the jump had been held long enough to judge it
+    return row | {"got_up": outcome == "balanced", "outcome": outcome, "smallest_tilt_rad": smallest,
+                  "braked_at_s": braked,
                   "rise_fraction": None if smallest is None else rise_fraction(smallest, float(tilt[0])),
                   "farthest_past_balance_rad": None if smallest is None else
                   max(0.0, float(-np.min(signed * math.copysign(1.0, signed[0])))),
@@ -139,6 +148,11 @@ def least_factor_getting_up(result: dict) -> list:
     return out
 
 
+def undecided(result: dict) -> int:
+    """How many cells ended too soon after their brake to be judged (a longer `trial.duration` decides them)."""
+    return sum(r["outcome"] == "undecided" for r in result["rows"])
+
+
 def write_jump_map(result: dict, out_dir: Path) -> None:
     """catch_map.csv (one row per cell), catch_map.json (the map's set-up and counts), catch_map.png."""
     from .catchmap import write_cell_rows
@@ -148,6 +162,7 @@ def write_jump_map(result: dict, out_dir: Path) -> None:
     summary |= {"axes": [{"column": c, "label": lab} for c, lab in zip(COLUMNS[:2], AXIS_LABELS)],
                 "grid": len(result["x"]), "cells": len(result["rows"]),
                 "got_up_cells": sum(bool(r["got_up"]) for r in result["rows"]),
+                "undecided_cells": undecided(result),
                 "least_speed_factor_getting_up": [{"brake_engage_time_s": float(y), "speed_factor": f}
                                                   for y, f in zip(result["y"], least_factor_getting_up(result))]}
     write_text(out_dir / "catch_map.json", json.dumps(clean_json(summary), indent=2) + "\n")
@@ -181,7 +196,7 @@ def jump_figure(result: dict):
     ax.set_xlabel(AXIS_LABELS[0])
     ax.set_ylabel(AXIS_LABELS[1])
     ax.set_title(f"{result['name']}: jump map, one attempt per cell\n(up: got up and balanced; over: went over the "
-                 "edge; short: fell back; dashed: the lossless need)", color=INK, fontsize=9, parse_math=False)
+                 "edge; short: fell back; ?: ended too soon; dashed: the lossless need)", color=INK, fontsize=9, parse_math=False)
     return fig
 
 
@@ -192,4 +207,6 @@ def _mark(row: dict) -> str:
     """A cell's word on the figure: up, over (went past balance and fell) or short."""
     if row["got_up"]:
         return "up"
+    if row["outcome"] in ("undecided", "invalid"):
+        return "?"
     return "over" if (row.get("farthest_past_balance_rad") or 0.0) > OVER_RAD else "short"
