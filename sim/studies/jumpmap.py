@@ -67,6 +67,19 @@ def check_jump_options(*, grid: int, speed_factor: tuple[float, float], brake_ti
         raise InputError(f"--brake-time-min: {brake_time_s[0]:.6g} s is above --brake-time-max {brake_time_s[1]:.6g} s")
 
 
+def check_jump_map(raw: dict, where: str, *, grid: int, speed_factor: tuple[float, float],
+                   brake_time_s: tuple[float, float]):
+    """Everything a jump map checks before it runs (options, the device, a cell's scenario); the scenario."""
+    from ..model.scenario import validate_scenario
+    check_jump_options(grid=grid, speed_factor=speed_factor, brake_time_s=brake_time_s)
+    sc = validate_scenario(raw, where=where)
+    if not is_jump_map(sc):
+        raise InputError(f"{where}: strategy.kind: a jump map needs a 3D device whose strategy is jump, "
+                         f"found {sc.strategy.kind!r}")
+    validate_scenario(cell_raw(raw, speed_factor=speed_factor[0], brake_time_s=brake_time_s[1]), where=where)
+    return sc
+
+
 def cell_raw(raw: dict, *, speed_factor: float, brake_time_s: float) -> dict:
     """A copy of the scenario mapping set up for one cell: one attempt at this factor, this engagement time."""
     out = copy.deepcopy(raw)
@@ -117,13 +130,7 @@ def jump_map(raw: dict, where: str, *, grid: int = 9, speed_factor: tuple[float,
              brake_time_s: tuple[float, float] = BRAKE_TIME_RANGE_S, workers: int | None = None, cluster=None,
              on_progress=None) -> dict:
     """Run the map. Returns the grid values (`x` factors, `y` s), the rows (x-major) and the scenario's name."""
-    from ..model.scenario import validate_scenario
-    check_jump_options(grid=grid, speed_factor=speed_factor, brake_time_s=brake_time_s)
-    sc = validate_scenario(raw, where=where)
-    if not is_jump_map(sc):
-        raise InputError(f"{where}: strategy.kind: a jump map needs a 3D device whose strategy is jump, "
-                         f"found {sc.strategy.kind!r}")
-    validate_scenario(cell_raw(raw, speed_factor=speed_factor[0], brake_time_s=brake_time_s[1]), where=where)
+    sc = check_jump_map(raw, where, grid=grid, speed_factor=speed_factor, brake_time_s=brake_time_s)
     xs = np.round(np.linspace(*speed_factor, grid), 12) if grid > 1 else np.array([speed_factor[1]])
     ys = np.round(np.linspace(*brake_time_s, grid), 12) if grid > 1 else np.array([brake_time_s[0]])
     tasks = ((i, {"raw": raw, "where": where, "x": float(xs[i // grid]), "y": float(ys[i % grid]),
