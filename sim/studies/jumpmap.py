@@ -202,8 +202,8 @@ def jump_figure(result: dict):
     ax.axvline(1.0, color=INK, lw=0.8, ls="--")
     ax.set_xlabel(AXIS_LABELS[0])
     ax.set_ylabel(AXIS_LABELS[1])
-    ax.set_title(f"{result['name']}: jump map, one attempt per cell\n(up: got up and balanced; over: went over the "
-                 "edge; short: fell back; ?: ended too soon; dashed: the lossless need)", color=INK, fontsize=9, parse_math=False)
+    ax.set_title(f"{result['name']}: jump map, one attempt per cell\nup: got up and balanced; over: went over the "
+                 "edge; short: fell back;\n?: ended too soon; dashed: the lossless need", color=INK, fontsize=9, parse_math=False)
     return fig
 
 
