@@ -430,8 +430,18 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
                                                      "mount's default: two start tilts) or tilt,rate."),
                   direction: Optional[str] = typer.Option(None, "--direction", help="Ball mount: map tilt against "
                                                           "rate about the horizontal axis this far from world x, "
-                                                          "e.g. '30 deg'.")):
-    """Map which start states (angle, body rate) the balance law catches; catch_map.csv and .png."""
+                                                          "e.g. '30 deg'."),
+                  speed_factor_min: Optional[float] = typer.Option(None, "--speed-factor-min", help="Jump devices: "
+                                                                   "smallest pre-brake wheel speed, as a factor of "
+                                                                   "the needed speed (default 0.7)."),
+                  speed_factor_max: Optional[float] = typer.Option(None, "--speed-factor-max", help="Jump devices: "
+                                                                   "largest factor (default 1.5)."),
+                  brake_time_min: Optional[str] = typer.Option(None, "--brake-time-min", help="Jump devices: "
+                                                               "shortest brake engagement time (default '0 ms')."),
+                  brake_time_max: Optional[str] = typer.Option(None, "--brake-time-max", help="Jump devices: "
+                                                               "longest brake engagement time (default '100 ms').")):
+    """Map which start states (angle, body rate) the balance law catches; catch_map.csv and .png.
+    On a 3D device whose strategy is jump: which pre-brake wheel speeds and brake times get it up."""
     from .studies.catchmap import catch_map, write_catch_map
     from .core.errors import InputError
     from .core.outputs import check_out_path, prepare_out_dir
@@ -440,6 +450,17 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
     raw, where = _load_raw(scenario, set_, workers, cluster, command="catch-map")
     from .model.scenario_yaml import validate_loaded
     sc = validate_loaded(raw, where=where)
+    jump_opts = {"--speed-factor-min": speed_factor_min, "--speed-factor-max": speed_factor_max,
+                 "--brake-time-min": brake_time_min, "--brake-time-max": brake_time_max}
+    from .studies.jumpmap import is_jump_map
+    if is_jump_map(sc):
+        _jump_map(raw, where, grid=grid, opts=jump_opts, others={"--angle-max": angle_max, "--rate-max": rate_max,
+                  "--axes": axes, "--direction": direction}, out=out, workers=workers, cluster=cluster, force=force)
+        return
+    given = [k for k, v in jump_opts.items() if v is not None]
+    if given:
+        raise InputError(f"{given[0]}: {sc.source} is not a 3D device whose strategy is jump; the option is for "
+                         "jump maps")
     if sc.is_planar and (axes is not None or direction is not None):
         raise InputError(f"{'--axes' if axes is not None else '--direction'}: {sc.source} describes a one-wheel "
                          "hinge device; its map is angle against rate (the option is for 3D devices)")
@@ -465,6 +486,41 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
     typer.echo(f"{caught} of {len(result['rows'])} start states caught by {result['strategy']} "
                f"(angle +-{result['angle_max_rad']:.3f} rad, rate +-{result['rate_max_rad_s']:.3f} rad/s); "
                f"wrote {out_dir}/catch_map.csv, catch_map.png")
+    typer.echo(SAFETY)
+
+
+def _jump_map(raw, where, *, grid, opts, others, out, workers, cluster, force) -> None:
+    from .core.errors import InputError
+    from .core.outputs import prepare_out_dir
+    from .core.units import parse_quantity
+    from .studies.jumpmap import BRAKE_TIME_RANGE_S, SPEED_FACTOR_RANGE, check_jump_map, jump_map, write_jump_map
+    given = [k for k, v in others.items() if v is not None]
+    if given:
+        raise InputError(f"{given[0]}: a jump device's map is pre-brake wheel speed against brake engagement time; "
+                         "give --speed-factor-min/-max and --brake-time-min/-max")
+    factors = [SPEED_FACTOR_RANGE[i] if opts[k] is None else opts[k]
+               for i, k in enumerate(("--speed-factor-min", "--speed-factor-max"))]
+    times = []
+    for i, k in enumerate(("--brake-time-min", "--brake-time-max")):
+        try:
+            times.append(BRAKE_TIME_RANGE_S[i] if opts[k] is None else parse_quantity(opts[k], "time"))
+        except ValueError as exc:
+            raise InputError(f"{k}: {exc}") from None
+    check_jump_map(raw, where, grid=grid, speed_factor=tuple(factors), brake_time_s=tuple(times))
+    out_dir = prepare_out_dir(out, force=force)
+    bar, update = progress("jump map")
+    with bar:
+        result = jump_map(raw, where, grid=grid, speed_factor=tuple(factors), brake_time_s=tuple(times),
+                          workers=workers, cluster=cluster, on_progress=update)
+    write_jump_map(result, out_dir)
+    up = sum(bool(r["got_up"]) for r in result["rows"])
+    typer.echo(f"{up} of {len(result['rows'])} jumps got up (one attempt each; speed factor {factors[0]:g} to "
+               f"{factors[1]:g} of the needed speed, brake engagement {times[0] * 1e3:g} to {times[1] * 1e3:g} ms); "
+               f"wrote {out_dir}/catch_map.csv, catch_map.json, catch_map.png")
+    from .studies.jumpmap import HELD_S, undecided
+    if undecided(result):
+        typer.echo(f"{undecided(result)} cells undecided: the trial ended less than {HELD_S:g} s after the brake; "
+                   "give a longer trial.duration")
     typer.echo(SAFETY)
 
 

@@ -140,13 +140,18 @@ def catch_map(raw: dict, where: str, *, grid: int = 21, angle_max: float | None 
 
 def write_catch_map(result: dict, out_dir: Path) -> None:
     """catch_map.csv (one row per cell) and catch_map.png."""
-    with atomic_path(out_dir / "catch_map.csv") as tmp, open(tmp, "w", newline="", encoding="utf-8") as fh:
-        writer = csv.DictWriter(fh, fieldnames=list(COLUMNS), extrasaction="ignore")
-        writer.writeheader()
-        for row in result["rows"]:
-            writer.writerow({k: ("" if row.get(k) is None else row.get(k)) for k in COLUMNS})
+    write_cell_rows(out_dir / "catch_map.csv", result["rows"], COLUMNS)
     from ..media.plots import save_figure
     save_figure(catch_figure(result), out_dir / "catch_map.png")
+
+
+def write_cell_rows(path: Path, rows: list[dict], columns) -> None:
+    """A map's rows as CSV, one per cell, `columns` in order (an absent or None value is empty)."""
+    with atomic_path(path) as tmp, open(tmp, "w", newline="", encoding="utf-8") as fh:
+        writer = csv.DictWriter(fh, fieldnames=list(columns), extrasaction="ignore")
+        writer.writeheader()
+        for row in rows:
+            writer.writerow({k: ("" if row.get(k) is None else row.get(k)) for k in columns})
 
 
 def catch_figure(result: dict):

@@ -24,7 +24,6 @@ the wheels can hold by statics) and catch_map.png.
 
 from __future__ import annotations
 
-import csv
 import json
 import math
 from pathlib import Path
@@ -33,10 +32,11 @@ import numpy as np
 
 from ..core.errors import InputError, ScenarioError
 from ..core.options import default_workers
-from ..core.outputs import atomic_path, clean_json, write_text
+from ..core.outputs import clean_json, write_text
 from ..model.tolerances import trial_seed
 from ..run.parallel import run_tasks
-from .catchmap import CATCH_WINDOW_S, CELLS_PER_ROUND_TRIP, EDGE_FRACTION, _base_scenario, balance_only_raw
+from .catchmap import (CATCH_WINDOW_S, CELLS_PER_ROUND_TRIP, EDGE_FRACTION, _base_scenario, balance_only_raw,
+                       write_cell_rows)
 
 MAP_KINDS = ("tilt", "direction", "angle")
 CELL_COLUMNS = ("caught", "outcome", "ended_at_s", "tilt_rad", "peak_wheel_speed_rad_s", "wheel_speed_margin")
@@ -200,11 +200,7 @@ def write_catch_map3d(result: dict, out_dir: Path) -> None:
     """catch_map.csv (one row per cell), catch_map.json (the map's set-up and counts), catch_map.png."""
     (xcol, _, _), (ycol, _, _) = AXES[result["kind"]]
     columns = [xcol, ycol, *CELL_COLUMNS]
-    with atomic_path(out_dir / "catch_map.csv") as tmp, open(tmp, "w", newline="", encoding="utf-8") as fh:
-        writer = csv.DictWriter(fh, fieldnames=columns, extrasaction="ignore")
-        writer.writeheader()
-        for row in result["rows"]:
-            writer.writerow({k: ("" if row.get(k) is None else row.get(k)) for k in columns})
+    write_cell_rows(out_dir / "catch_map.csv", result["rows"], columns)
     caught = sum(bool(r["caught"]) for r in result["rows"])
     summary = {k: result[k] for k in ("kind", "name", "strategy", "mount", "wheel_count", "direction_rad",
                                       "angle_max_rad", "rate_max_rad_s", "holdable_tilt_rad",

@@ -1,0 +1,103 @@
+"""`catch-map` on a jump device: pre-brake wheel speed (a factor of the needed speed) against the brake's
+engagement time, one jump attempt per cell, on the bundled floor cube (scenarios/floor_jump.yaml, our
+own invention). The needed speed itself is checked against Gajamohan, Merz, Thommen & D'Andrea (IROS
+2012) in tests/test_jump_figures.py; here the map's shape is checked against the physics of the brake."""
+
+from __future__ import annotations
+
+import csv
+import json
+import math
+from pathlib import Path
+
+import pytest
+
+from sim.cli import main
+
+DEMO = str(Path(__file__).resolve().parents[1] / "scenarios" / "floor_jump.yaml")
+# 3x3: speed factors 0.7, 1.1, 1.5; brake engagement 0, 50, 100 ms. 2.5 s trials: the brake comes at
+# about 1.3 s at the highest factor, leaving the 1 s hold a cell needs to be judged got up.
+ARGS = ["--grid", "3", "--speed-factor-min", "0.7", "--speed-factor-max", "1.5", "--brake-time-min", "0 ms",
+        "--brake-time-max", "100 ms", "--set", "trial.duration=2.5s", "--workers", "1"]
+
+
+@pytest.fixture(scope="module")
+def jump_map(tmp_path_factory):
+    out = tmp_path_factory.mktemp("jump") / "map"
+    assert main(["catch-map", DEMO, *ARGS, "--out", str(out)]) == 0
+    with open(out / "catch_map.csv", newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    cells = {(round(float(r["speed_factor"]), 6), round(float(r["brake_engage_time_s"]) * 1e3)): r for r in rows}
+    return out, cells
+
+
+def test_the_map_has_one_attempt_per_cell_and_its_files(jump_map):
+    out, cells = jump_map
+    assert sorted(cells) == [(f, t) for f in (0.7, 1.1, 1.5) for t in (0, 50, 100)]
+    assert all(r["jump_attempts"] == "1" for r in cells.values())
+    summary = json.loads((out / "catch_map.json").read_text())
+    assert summary["kind"] == "jump" and summary["cells"] == 9
+    assert summary["got_up_cells"] == sum(r["got_up"] == "True" for r in cells.values())
+    assert "[ms]" in summary["axes"][1]["label"] and summary["undecided_cells"] == 0
+    assert (out / "catch_map.png").stat().st_size > 10_000
+
+
+def test_well_below_the_need_nothing_gets_up_and_the_rise_is_bounded_by_the_momentum_handed_over(jump_map):
+    _, cells = jump_map
+    for t in (0, 50, 100):
+        r = cells[(0.7, t)]
+        assert r["got_up"] == "False"
+        # Lossless bound: the brake hands the wheel's momentum to the body (conservation of angular
+        # momentum through an inelastic lock), so the body's kinetic energy, hence the rise of its
+        # centre of mass, scales with the square of the wheel speed: at 0.7 of the need the rise is at
+        # most 0.7^2 = 0.49 of the rise to balance (Gajamohan, Merz, Thommen & D'Andrea, IROS 2012,
+        # momentum then energy [from memory]); tolerance 0.02 for the cube's rest tilt noise.
+        assert float(r["rise_fraction"]) <= 0.7 ** 2 + 0.02
+    # A slipping friction brake turns relative-motion energy into heat the longer it takes to lock
+    # (energy dissipated in clutch engagement: Shigley's Mechanical Engineering Design, clutches and
+    # brakes [from memory]): the rise falls as the engagement time grows.
+    rises = [float(cells[(0.7, t)]["rise_fraction"]) for t in (0, 50, 100)]
+    assert rises[0] > rises[1] > rises[2] > 0.0
+
+
+def test_ten_percent_over_with_a_fast_brake_gets_up_and_a_slower_brake_needs_more_speed(jump_map):
+    _, cells = jump_map
+    assert cells[(1.1, 0)]["got_up"] == "True" and cells[(1.1, 0)]["outcome"] == "balanced"
+    # the smallest factor that gets up, per engagement time: never falls as the brake gets slower
+    # (the slip loss above only grows); None (nothing on the grid) counts as beyond the grid
+    least = []
+    for t in (0, 50, 100):
+        ups = [f for f in (0.7, 1.1, 1.5) if cells[(f, t)]["got_up"] == "True"]
+        least.append(min(ups) if ups else math.inf)
+    assert least == sorted(least) and least[0] < least[-1]
+
+
+def test_far_over_the_need_the_cube_goes_over_its_edge(jump_map):
+    _, cells = jump_map
+    # 1.5x the lossless need hands the body 1.5^2 = 2.25 times the energy the rise needs (same
+    # relation as above) and an instant brake loses little of it: the body passes balance and tips on
+    r = cells[(1.5, 0)]
+    assert r["got_up"] == "False" and float(r["farthest_past_balance_rad"]) > math.radians(30)
+
+
+@pytest.mark.parametrize("extra,key", [
+    (["--speed-factor-min", "0.2"], "--speed-factor-min"),
+    (["--speed-factor-min", "1.4", "--speed-factor-max", "1.2"], "--speed-factor-min"),
+    (["--brake-time-max", "5 kg"], "--brake-time-max"),
+    (["--brake-time-max", "20 s"], "--brake-time-max"),
+    (["--angle-max", "10 deg"], "--angle-max"),
+])
+def test_bad_options_are_one_line_and_exit_2(tmp_path, capsys, extra, key):
+    out = tmp_path / "map"
+    assert main(["catch-map", DEMO, "--grid", "3", "--out", str(out), *extra]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and err.count(key) >= 1 and "Traceback" not in err
+    assert not out.exists()
+
+
+def test_the_jump_options_on_a_device_without_a_jump_are_refused(tmp_path, capsys):
+    from test_verdicts import fast_raw, write_scenario
+    scen = write_scenario(tmp_path / "s.yaml", fast_raw())
+    assert main(["catch-map", scen, "--brake-time-max", "50 ms", "--out", str(tmp_path / "m")]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "--brake-time-max" in err and not (tmp_path / "m").exists()
