@@ -5,8 +5,10 @@ law designs for (a hinge at the balance edge, a ball at the balance corner). Its
 slip as lost (outcome `slipped`, cause `contact_slipped`); added here, over the nominal trial and the
 hold (while balancing, up to any fall):
 - `contact_slip_m`: the largest horizontal travel of the balancing contact, at most `floor.slip_limit`;
-- `peak_friction_ratio`: the largest |F_t| / F_n the motion asked of the floor, at most `floor.friction`
-  (Coulomb's law: a contact holds while |F_t| <= mu F_n; a ratio at mu means the contact is sliding).
+- `peak_friction_ratio`: the largest |F_t| / F_n the motion asked of the floor in the hold (no pushes),
+  after CONTACT_SETTLE_S, below `floor.friction` (Coulomb's law: a contact holds while |F_t| < mu F_n; at mu it slides). Runs with
+  pushes are left to `contact_slip_m`: the floor engine applies a push as a horizontal force at the
+  centre of mass over one step, which no friction holds (the note gives their ratios).
 
 A `jump` law: its own criteria instead of the balance battery:
 - `jump_up_time_s`: the scenario's own trial (from its face) ends balanced, caught within
@@ -30,6 +32,8 @@ A `jump` law: its own criteria instead of the balance battery:
 from __future__ import annotations
 
 import math
+
+import numpy as np
 from pathlib import Path
 
 from ..core.safety import SAFETY_NOTES
@@ -44,6 +48,9 @@ from .verdicts3d import _smallest, run_check3d, wheel_figures
 
 JUMP_MARGIN_MIN = 0.2          # jump_margin at least this (our choice, see the module docstring)
 JUMP_ATTEMPTS_LIMIT = 3        # a jump-up within three attempts (our choice)
+CONTACT_SETTLE_S = 0.01       # the first steps of a trial, while pybullet resolves the body's placement on the
+                               # floor, ask a friction ratio near the coefficient: left out (our choice; seen at
+                               # 2-3 ms in the floor cube's hold, 0.1 after)
 RECOVER_PUSH_AT_S = 1.0        # the fall-and-recover push, after the law has settled on the edge
 RECOVER_PUSH_SHARES = (0.25, 0.5, 1.0)   # of the face-to-balance momentum, tried in turn (our choice)
 RECOVER_EXTRA_S = 2.5          # after the push: falling, coming to rest, the hold after the catch (our choice)
@@ -59,7 +66,7 @@ def run_check_floor(raw: dict, where: str, *, trials: int, workers=None, cluster
                           on_done=on_done)
     metrics = {name: trial_metrics3d(r) for name, r in outcome.runs.items()}
     v = outcome.verdict
-    v["criteria"] += floor_criteria(sc, metrics)
+    v["criteria"] += floor_criteria(sc, metrics, hold_ratio=held_friction_ratio(outcome.runs["hold"]))
     v["passed"] = all(c["passed"] for c in v["criteria"])
     v["floor"] = {name: _floor_keys(m) for name, m in metrics.items()}
     return outcome
@@ -71,12 +78,21 @@ def _floor_keys(m: dict) -> dict:
     return {k: m.get(k) for k in keys}
 
 
-def floor_criteria(sc, metrics: dict) -> list[dict]:
-    """`contact_slip_m` and `peak_friction_ratio`, the worst over the runs (name -> trial metrics)."""
+def held_friction_ratio(result) -> float | None:
+    """The largest |F_t| / F_n over a trial's trace after CONTACT_SETTLE_S, up to a fall (None: no steps)."""
+    tr = result.trace
+    k0 = int(round(CONTACT_SETTLE_S / tr.step_s))
+    end = tr.n if result.fell_at_s is None else min(tr.n, int(round(result.fell_at_s / tr.step_s)))
+    return float(np.max(tr.friction_ratio[k0:end])) if end > k0 else None
+
+
+def floor_criteria(sc, metrics: dict, *, hold_ratio: float | None) -> list[dict]:
+    """`contact_slip_m` (the worst over the runs: name -> trial metrics) and `peak_friction_ratio` (the
+    hold's, `held_friction_ratio`)."""
     slip_run = max(metrics, key=lambda n: metrics[n]["slip_m"])
     slipped = [n for n, m in metrics.items() if m["outcome"] == "slipped"]
-    ratios = {n: m["peak_friction_ratio"] for n, m in metrics.items() if m["peak_friction_ratio"] is not None}
-    ratio_run = max(ratios, key=ratios.get) if ratios else None
+    others = ", ".join(f"{n} {m['peak_friction_ratio']:.3g}" for n, m in metrics.items()
+                       if n != "hold" and m["peak_friction_ratio"] is not None)
     slip = metrics[slip_run]["slip_m"]
     mu = sc.floor.friction
     lifted = ", ".join(f"{n} {m['lift_off_s']:.3g} s" for n, m in metrics.items())
@@ -84,10 +100,11 @@ def floor_criteria(sc, metrics: dict) -> list[dict]:
         _criterion("contact_slip_m", slip, sc.floor.slip_limit, slip <= sc.floor.slip_limit and not slipped,
                    f"largest travel of the balancing contact while balancing, in the {slip_run} run"
                    + (f"; slipped in: {', '.join(slipped)}" if slipped else "") + f"; off the floor: {lifted}"),
-        _at_most("peak_friction_ratio", ratios.get(ratio_run), mu,
-                 f"largest |F_t|/F_n asked of the floor while balancing, in the {ratio_run} run, against the "
-                 f"friction coefficient {mu:g} (Coulomb: the contact slides at the coefficient)"
-                 if ratio_run else "no balancing contact recorded"),
+        _criterion("peak_friction_ratio", hold_ratio, mu, hold_ratio is not None and hold_ratio < mu,
+                   f"largest |F_t|/F_n asked of the floor in the hold (no pushes; after its first "
+                   f"{CONTACT_SETTLE_S * 1e3:g} ms), below the "
+                   f"friction coefficient {mu:g} (Coulomb: at the coefficient the contact slides)"
+                   + (f"; with pushes (their impact slides the edge, judged by contact_slip_m): {others}" if others else "")),
     ]
 
 
@@ -224,14 +241,11 @@ def write_check_outputs_floor(outcome: CheckOutcome, out_dir) -> list[str]:
 def jump_report_markdown(v: dict, images: list[str]) -> str:
     """report.md of a jump law's check on the floor."""
     from .verdict_report import format_value, run_causes_markdown
+    from .verdict_report3d import criteria_table
     lines = [f"# Check: {v['name']}", "",
              f"Scenario `{v['scenario']}`, strategy `jump`, on the floor ({v['mount']} at the balance edge), "
              f"{v['wheel_count']} wheel{'s' if v['wheel_count'] > 1 else ''}.", "",
-             f"**Verdict: {'PASS' if v['passed'] else 'FAIL'}**", "",
-             "| criterion | value | limit | result | note |", "|---|---|---|---|---|"]
-    for c in v["criteria"]:
-        lines.append(f"| {c['name']} | {format_value(c['name'], c['value'])} | {format_value(c['name'], c['limit'])} "
-                     f"| {'pass' if c['passed'] else 'FAIL'} | {c['note']} |")
+             f"**Verdict: {'PASS' if v['passed'] else 'FAIL'}**", ""] + criteria_table(v)
     lines += ["", "## Runs", "", "| run | outcome | caught at | jumps | needed / reached wheel speed | slip | rest face |",
               "|---|---|---|---|---|---|---|"]
     for name, r in v["runs"].items():
