@@ -175,7 +175,7 @@ def jump_criteria(sc, metrics: dict, push_n_m_s: float) -> list[dict]:
     rec_attempts = rec.get("jump_attempts") or 0
     tipped = rec_attempts >= 1
     if tipped:
-        how = f"tipped onto a face, got up in {rec_attempts} attempt(s): {outcome_with_cause(rec)}"
+        how = f"tipped onto a face, {rec_attempts} jump(s) after: {outcome_with_cause(rec)}"
     else:
         how = f"the push did not tip it onto a face, so no recovery was tested: {outcome_with_cause(rec)}"
     return [
