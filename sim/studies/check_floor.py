@@ -52,7 +52,8 @@ CONTACT_SETTLE_S = 0.01       # the first steps of a trial, while pybullet resol
                                # floor, ask a friction ratio near the coefficient: left out (our choice; seen at
                                # 2-3 ms in the floor cube's hold, 0.1 after)
 RECOVER_PUSH_AT_S = 1.0        # the fall-and-recover push, after the law has settled on the edge
-RECOVER_PUSH_SHARES = (0.25, 0.5, 1.0)   # of the face-to-balance momentum, tried in turn (our choice)
+RECOVER_PUSH_SHARES = (0.25, 0.35, 0.5, 0.7, 1.0)   # of the face-to-balance momentum, tried in turn: the
+                                                    # smallest that tips slides the edge least (our choice)
 RECOVER_EXTRA_S = 2.5          # after the push: falling, coming to rest, the hold after the catch (our choice)
 
 
@@ -246,7 +247,7 @@ def jump_report_markdown(v: dict, images: list[str]) -> str:
              f"Scenario `{v['scenario']}`, strategy `jump`, on the floor ({v['mount']} at the balance edge), "
              f"{v['wheel_count']} wheel{'s' if v['wheel_count'] > 1 else ''}.", "",
              f"**Verdict: {'PASS' if v['passed'] else 'FAIL'}**", ""] + criteria_table(v)
-    lines += ["", "## Runs", "", "| run | outcome | caught at | jumps | needed / reached wheel speed | slip | rest face |",
+    lines += ["", "## The jumps", "", "| run | outcome | caught at | jumps | needed / reached wheel speed | slip | rest face |",
               "|---|---|---|---|---|---|---|"]
     for name, r in v["runs"].items():
         lines.append(f"| {name} | {r['outcome']} | {format_value('_s', r['caught_at_s'])} | {r['jump_attempts']} | "
