@@ -129,12 +129,3 @@ def test_a_bad_key_in_a_3d_check_is_one_line_and_writes_nothing(tmp_path, capsys
     err = capsys.readouterr().err.strip()
     assert code == 2 and len(err.splitlines()) == 1 and "min_pus" in err, err
     assert not (tmp_path / "out").exists()
-
-
-def test_check_refuses_a_floor_mount_in_one_line(tmp_path, capsys):
-    from pathlib import Path
-    floor = Path(__file__).resolve().parents[1] / "scenarios" / "floor_cube.yaml"
-    code = main(["check", str(floor), "--out", str(tmp_path / "out")])
-    err = capsys.readouterr().err.strip()
-    assert code == 2 and len(err.splitlines()) == 1 and "body.mount: floor" in err, err
-    assert not (tmp_path / "out").exists()

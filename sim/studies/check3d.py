@@ -56,7 +56,7 @@ def tilt_axes(device) -> tuple[str, ...]:
 
 
 def _at_rest(sc, *, tilt_rad: float = 0.0) -> dict:
-    if sc.body.mount == "ball":
+    if sc.design_mount == "ball":   # a floor device on a corner designs (and starts) as a ball
         each = tilt_rad / math.sqrt(2.0)
         return {"tilt": [each, each], "angle": 0.0, "rate": 0.0, "wheel_speed": 0.0}
     return {"angle": tilt_rad, "rate": 0.0, "wheel_speed": 0.0}
@@ -69,7 +69,7 @@ def hold_scenario3d(sc):
 
 def push_scenario3d(sc, impulse: tuple[float, float, float]):
     """Upright at rest, one push of this world angular impulse (N m s) after PUSH_AT_S."""
-    value = impulse[0] if sc.body.mount != "ball" else tuple(float(v) for v in impulse)
+    value = impulse[0] if sc.design_mount != "ball" else tuple(float(v) for v in impulse)
     return with_trial(sc, duration=PUSH_AT_S + PUSH_RECOVER_S, pushes=[Push(at=PUSH_AT_S, impulse=value)],
                       start=_at_rest(sc))
 

@@ -51,15 +51,20 @@ def push_figure3d(pushes: dict):
     return fig
 
 
+def criteria_table(v: dict) -> list[str]:
+    """report.md's criteria table, a row per criterion."""
+    lines = ["| criterion | value | limit | result | note |", "|---|---|---|---|---|"]
+    for c in v["criteria"]:
+        lines.append(f"| {c['name']} | {format_value(c['name'], c['value'])} | {format_value(c['name'], c['limit'])} "
+                     f"| {'pass' if c['passed'] else 'FAIL'} | {c['note']} |")
+    return lines
+
+
 def report_markdown3d(v: dict, images: list[str]) -> str:
     lines = [f"# Check: {v['name']}", "",
              f"Scenario `{v['scenario']}`, strategy `{v['strategy']}`, {v['mount']} mount, "
              f"{v['wheel_count']} wheel{'s' if v['wheel_count'] > 1 else ''}.", "",
-             f"**Verdict: {'PASS' if v['passed'] else 'FAIL'}**", "",
-             "| criterion | value | limit | result | note |", "|---|---|---|---|---|"]
-    for c in v["criteria"]:
-        lines.append(f"| {c['name']} | {format_value(c['name'], c['value'])} | {format_value(c['name'], c['limit'])} "
-                     f"| {'pass' if c['passed'] else 'FAIL'} | {c['note']} |")
+             f"**Verdict: {'PASS' if v['passed'] else 'FAIL'}**", ""] + criteria_table(v)
     lines += _wheels_markdown(v) + _pushes_markdown(v) + _holds_markdown(v) + _axis_cost_markdown(v)
     lines += _monte_carlo_markdown(v["monte_carlo"])[1:]
     lines += run_causes_markdown(v)
