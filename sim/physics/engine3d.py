@@ -37,7 +37,29 @@ from .engine import MAX_JOINT_SPEED, import_pybullet
 BODY = 0
 
 
-class Engine3D:
+class OneClient:
+    """What the 3D engines share: one pybullet client (`pb`, `client`) holding one body (`body_id`) whose
+    wheels are the joints `wheel_joints`; closed once, also as a context manager."""
+
+    def wheel_speeds(self) -> tuple[float, ...]:
+        """Each wheel's speed relative to the body, rad/s (for checks)."""
+        return tuple(s[1] for s in self.pb.getJointStates(self.body_id, list(self.wheel_joints),
+                                                          physicsClientId=self.client))
+
+    def close(self) -> None:
+        """Disconnect the client (once; a 3D body is not kept for reuse)."""
+        client, self.client = self.client, None
+        if client is not None and self.pb.isConnected(physicsClientId=client):
+            self.pb.disconnect(physicsClientId=client)
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc) -> None:
+        self.close()
+
+
+class Engine3D(OneClient):
     """One pybullet client holding one 3D device. Not thread-safe; one per trial."""
 
     def __init__(self, device: Device3D, *, step_s: float):
@@ -247,11 +269,6 @@ class Engine3D:
         p = self.principal_axes
         return matmul(matmul(p, quat_to_matrix(q)), transpose(p))
 
-    def wheel_speeds(self) -> tuple[float, ...]:
-        """Each wheel's speed relative to the body, rad/s (for checks)."""
-        return tuple(s[1] for s in self.pb.getJointStates(self.body_id, list(self.wheel_joints),
-                                                          physicsClientId=self.client))
-
     def body_rate_world(self) -> tuple[float, float, float]:
         """The body's angular velocity in the world frame, rad/s (for checks)."""
         pb = self.pb
@@ -270,18 +287,6 @@ class Engine3D:
                                 physicsClientId=self.client)
             out.append((s[0], s[5], s[6], s[7]))
         return out
-
-    def close(self) -> None:
-        """Disconnect the client (once; a 3D body is not kept for reuse)."""
-        client, self.client = self.client, None
-        if client is not None and self.pb.isConnected(physicsClientId=client):
-            self.pb.disconnect(physicsClientId=client)
-
-    def __enter__(self) -> "Engine3D":
-        return self
-
-    def __exit__(self, *exc) -> None:
-        self.close()
 
 
 def _ball_hold(pb, body: int, cid: int, cap_n_m: float) -> None:

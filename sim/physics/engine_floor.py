@@ -40,12 +40,12 @@ from ..model.device3d import Device3D
 from ..model.floor import lowest_z
 from ..model.massprops3d import wheel_tensor
 from .engine import MAX_JOINT_SPEED, import_pybullet
-from .engine3d import principal
+from .engine3d import OneClient, principal
 
 BASE = -1
 
 
-class FloorEngine:
+class FloorEngine(OneClient):
     """One pybullet client holding one body on the floor. Not thread-safe; one per trial."""
 
     ball = False   # no joint at the contact (the runner asks engines this)
@@ -236,21 +236,6 @@ class FloorEngine:
     def com_m(self) -> tuple[float, float, float]:
         """The body's centre of mass (without the wheels) in the world, m (for checks)."""
         return tuple(self.pb.getBasePositionAndOrientation(self.body_id, physicsClientId=self.client)[0])
-
-    def wheel_speeds(self) -> tuple[float, ...]:
-        return tuple(s[1] for s in self.pb.getJointStates(self.body_id, list(self.wheel_joints),
-                                                          physicsClientId=self.client))
-
-    def close(self) -> None:
-        client, self.client = self.client, None
-        if client is not None and self.pb.isConnected(physicsClientId=client):
-            self.pb.disconnect(physicsClientId=client)
-
-    def __enter__(self) -> "FloorEngine":
-        return self
-
-    def __exit__(self, *exc) -> None:
-        self.close()
 
 
 def _rows(m) -> tuple[tuple[float, float, float], ...]:
