@@ -279,3 +279,13 @@ def test_run_prints_how_the_contact_held(tmp_path, capsys):
     assert code == 0
     for row in ("contact slip", "mm while balancing (limit 5 mm)", "friction used", "off the floor"):
         assert row in out, row
+
+
+def test_gains_names_the_floor_mount_and_the_mount_it_designs_for(capsys):
+    import json as _json
+
+    from sim.cli import main
+    demo = Path(__file__).resolve().parents[1] / "scenarios" / "floor_cube.yaml"
+    assert main(["gains", str(demo)]) == 0
+    report = _json.loads(capsys.readouterr().out)
+    assert report["mount"] == "floor" and report["design_mount"] == "hinge"

@@ -60,7 +60,9 @@ def multi_gains_report(spec: LinearSpec, *, source: str, weights=None, effort=No
     return {
         "law": "lqr",
         "scenario": source,
-        "mount": spec.mount,
+        "mount": "floor" if getattr(spec, "floor", None) is not None else spec.mount,
+        # a body on the floor is designed as on a hinge at its balance edge or a ball at its corner
+        **({"design_mount": spec.mount} if getattr(spec, "floor", None) is not None else {}),
         "state": [{"name": s, "unit": u} for s, u in zip(states, units)],
         "input": [{"name": name, "unit": "V", "limit_v": w.supply_v} for name, w in zip(inputs, spec.wheels)],
         "sign_convention": SIGN_CONVENTION,
@@ -122,7 +124,7 @@ def to_text(report: dict) -> str:
     """The gain matrix for a person: one row per wheel, one column per state, with units."""
     K = report["discrete"]
     width = max(12, *(len(c) for c in K["columns"]))
-    lines = [f"balance law: lqr, {len(K['rows'])} wheels, {report['mount']} mount, at {report['rate_hz']:g} Hz "
+    lines = [f"balance law: lqr, {len(K['rows'])} wheels, {_mount_text(report)}, at {report['rate_hz']:g} Hz "
              f"({report['scenario']})", f"sign convention: {report['sign_convention']}",
              "discrete gains K (volts = -K x):",
              " " * 16 + "".join(f"{c:>{width + 1}s}" for c in K["columns"]),
@@ -155,7 +157,7 @@ def to_c_header(report: dict) -> str:
     d = report["delay"]
     lines = [
         *c_opening(report, [
-            f" * {report['mount']} mount, {m} wheels. " + report["sign_convention"] + ".",
+            f" * {_mount_text(report)}, {m} wheels. " + report["sign_convention"] + ".",
             " * State x (index: name [unit]): " + ", ".join(f"{i}: {s['name']} [{s['unit']}]"
                                                              for i, s in enumerate(report["state"])) + ".",
             f" * Discrete closed-loop poles (z): {poles}.",
@@ -216,3 +218,11 @@ def to_c_header(report: dict) -> str:
         lines.append("    (void)s;")
     lines += ["}", "", "#endif /* WHEELBENCH_GAINS_H */"]
     return "\n".join(lines) + "\n"
+
+
+def _mount_text(report: dict) -> str:
+    """"ball mount", or "floor mount (designed as on a hinge at its balance edge)"."""
+    if "design_mount" not in report:
+        return f"{report['mount']} mount"
+    at = "a hinge at its balance edge" if report["design_mount"] == "hinge" else "a ball at its balance corner"
+    return f"floor mount (designed as on {at})"
