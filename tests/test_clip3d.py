@@ -189,3 +189,20 @@ def test_a_cube_that_fell_on_the_floor_is_drawn_lying_on_it():
     verts = painter.scene.body.verts @ r_wb.T + origin
     assert math.degrees(float(result.trace.tilt[result.trace.n - 1])) > 35     # it did fall
     assert abs(float(verts[:, 2].min())) < 2e-3
+
+
+def test_a_floor_clip_marks_the_balancing_contact_on_the_floor():
+    # the ring sits where the trace puts the contact (the body frame's origin), in the touching colour
+    from sim.media.clip3d import CONTACT_RGB, TrialPainter3D
+    from sim.run.trial3d import run_trial3d
+    sc = load_scenario(ROOT / "scenarios" / "floor_cube.yaml", overrides=("trial.duration=0.2", "trial.pushes=[]"))
+    result = run_trial3d(sc)
+    painter = TrialPainter3D(result, width=480, height=320, supersample=1)
+    k = result.trace.n - 1
+    _, _, origin = painter.pose_at(k)
+    scene = painter.scene.draw_image(*painter.pose_at(k)[:2], origin=origin)
+    painter._mark_contact(scene, origin, touching=True)
+    (x, y), _ = (v[0] for v in painter.scene.camera.project([[origin[0], origin[1], 0.0]]))
+    img = np.asarray(scene).astype(int)
+    near = img[int(y) - 8:int(y) + 9, int(x) - 8:int(x) + 9].reshape(-1, 3)
+    assert np.min(np.abs(near - np.array(CONTACT_RGB)).max(axis=1)) <= 2   # the ring passes within 8 px

@@ -14,6 +14,9 @@ import numpy as np
 from .panel3d import Panel3D, readout3d
 from .scene3d import Scene3D, WHEEL_TINTS
 
+CONTACT_RGB = (40, 170, 90)    # the balancing contact on the floor, touching (our colours)
+LIFTED_RGB = (220, 60, 50)     # ... and off the floor
+
 MARK_SHARP_RAD, MARK_GONE_RAD = 1.0, 2.5
 """A wheel turning less than this between frames keeps its spin mark sharp; past the second it is
 washed into the wheel (one mark a turn: past about a quarter turn a frame its motion reads wrongly)."""
@@ -69,11 +72,24 @@ class TrialPainter3D:
         r_wb, angles, origin = self.pose_at(k)
         fades = [mark_fade(float(getattr(tr, f"w{i}_speed")[k]) / self.fps) for i in range(1, self.n_wheels + 1)]
         scene = self.scene.draw_image(r_wb, angles, mark_fade=fades, origin=origin)
+        if origin is not None:      # a body on the floor: its balancing contact, marked on the floor
+            self._mark_contact(scene, origin, touching=float(tr.in_contact[k]) > 0.5)
         frame = Image.new("RGB", self._full, (16, 24, 34))
         frame.paste(scene, (0, 0))
         r = readout3d(self.result, t_s)
         arrow = self.scene.push_arrow(r_wb, r.push_n_m_s, origin) if r.push_n_m_s is not None else None
         return self.panel.draw(frame, r, push_arrow=arrow)
+
+    def _mark_contact(self, image, origin, *, touching: bool) -> None:
+        """A ring on the floor under the balancing contact (the body frame's origin): CONTACT_RGB while
+        the body touches the floor, LIFTED_RGB while it is off it."""
+        from PIL import ImageDraw
+        (x, y), depth = (v[0] for v in self.scene.camera.project([[origin[0], origin[1], 0.0]]))
+        if not depth > 0:
+            return
+        r = max(3.0, 0.012 * self.scene.camera.focal_px * self.scene.layout.reach_m / depth)
+        ImageDraw.Draw(image).ellipse([x - r, y - r, x + r, y + r], outline=CONTACT_RGB if touching else LIFTED_RGB,
+                                      width=max(2, int(r / 3)))
 
     def close(self) -> None:   # nothing held outside Python objects (no engine client)
         pass
