@@ -156,7 +156,7 @@ class Engine3D(OneClient):
         pb, cid, body, dev = self.pb, self.client, self.body_id, self.device
         states, torques, step = pb.getJointStates, pb.setJointMotorControlArray, pb.stepSimulation
         mode, wheels, bp = pb.TORQUE_CONTROL, self.wheel_joints, dev.pivot_viscous_n_m_s
-        atan2, asin, acos, fabs, pi, cos, sin = math.atan2, math.asin, math.acos, math.fabs, math.pi, math.cos, math.sin
+        atan2, fabs, pi, cos, sin = math.atan2, math.fabs, math.pi, math.cos, math.sin
         n = len(wheels)
         unused = (0.0,) * n
         r0 = dev.upright()
@@ -186,6 +186,7 @@ class Engine3D(OneClient):
         state = [(0.0, 0.0, 0.0, 1.0), (0.0, 0.0, 0.0)]    # the last read: body quaternion, principal-axes rate
         skip_pivot = bp == 0.0
         friction = self.ball_friction
+        relative = relative_attitude
 
         def read():
             (qx, qy, qz, w), wp = multi(body, BODY, cid)[:2]
@@ -200,23 +201,13 @@ class Engine3D(OneClient):
             bz = p20 * wp[0] + p21 * wp[1] + p22 * wp[2]
             tx_, ty_, tz_ = 2.0 * (y * bz - z * by), 2.0 * (z * bx - x * bz), 2.0 * (x * by - y * bx)
             rate = (bx + w * tx_ + y * tz_ - z * ty_, by + w * ty_ + z * tx_ - x * tz_, bz + w * tz_ + x * ty_ - y * tx_)
-            # attitude relative to upright: q_rel = q_wb conj(q0), then R = Rz(heading) Ry(tilt_y) Rx(tilt_x)
-            rx = w * cx + x * cw + y * cz - z * cy
-            ry = w * cy - x * cz + y * cw + z * cx
-            rz = w * cz + x * cy - y * cx + z * cw
-            rw = w * cw - x * cx - y * cy - z * cz
-            r22 = 1.0 - 2.0 * (rx * rx + ry * ry)
-            r20 = 2.0 * (rx * rz - ry * rw)
-            s20 = -r20 if -1.0 < -r20 < 1.0 else (1.0 if r20 <= -1.0 else -1.0)
-            tilt = acos(r22) if -1.0 < r22 < 1.0 else (0.0 if r22 >= 1.0 else pi)
+            tilt_x, tilt_y, heading, tilt = relative(x, y, z, w, cx, cy, cz, cw)
             ws = states(body, wheels, cid)
-            heading = atan2(2.0 * (rx * ry + rz * rw), 1.0 - 2.0 * (ry * ry + rz * rz))
             # the rate in the heading frame (the world turned about the vertical by the heading): the
             # tilts' own rates at any heading, so a law designed at heading 0 holds at every heading
             ch, sh = cos(heading), sin(heading)
             rate = (ch * rate[0] + sh * rate[1], ch * rate[1] - sh * rate[0], rate[2])
-            return (atan2(2.0 * (ry * rz + rx * rw), r22), asin(s20), heading, tilt, rate,
-                    [s[0] for s in ws], [s[1] for s in ws])
+            return (tilt_x, tilt_y, heading, tilt, rate, [s[0] for s in ws], [s[1] for s in ws])
 
         if friction is not None:
             return read, self._advance_with_friction(state, bp, friction)
@@ -295,6 +286,24 @@ def _ball_hold(pb, body: int, cid: int, cap_n_m: float) -> None:
     pb.setJointMotorControlMultiDof(body, BODY, pb.POSITION_CONTROL, targetPosition=[0, 0, 0, 1],
                                     targetVelocity=[0, 0, 0], positionGain=0, velocityGain=1,
                                     force=[cap_n_m] * 3, physicsClientId=cid)
+
+
+def relative_attitude(x: float, y: float, z: float, w: float, cx: float, cy: float, cz: float, cw: float,
+                      atan2=math.atan2, asin=math.asin, acos=math.acos, pi=math.pi) -> tuple[float, float, float, float]:
+    """(tilt_x, tilt_y, heading, tilt_rad) of the body quaternion q = (x, y, z, w) relative to upright:
+    q_rel = q conj(q0) with conj(q0) = (cx, cy, cz, cw), decomposed as R = Rz(heading) Ry(tilt_y) Rx(tilt_x)
+    (`sim.core.frames`); tilt_rad is the angle of the body's upright axis from the vertical. Plain floats:
+    both 3D engines call it every physics step."""
+    rx = w * cx + x * cw + y * cz - z * cy
+    ry = w * cy - x * cz + y * cw + z * cx
+    rz = w * cz + x * cy - y * cx + z * cw
+    rw = w * cw - x * cx - y * cy - z * cz
+    r22 = 1.0 - 2.0 * (rx * rx + ry * ry)
+    r20 = 2.0 * (rx * rz - ry * rw)
+    s20 = -r20 if -1.0 < -r20 < 1.0 else (1.0 if r20 <= -1.0 else -1.0)
+    tilt = acos(r22) if -1.0 < r22 < 1.0 else (0.0 if r22 >= 1.0 else pi)
+    heading = atan2(2.0 * (rx * ry + rz * rw), 1.0 - 2.0 * (ry * ry + rz * rz))
+    return atan2(2.0 * (ry * rz + rx * rw), r22), asin(s20), heading, tilt
 
 
 def principal(inertia: np.ndarray) -> tuple[list[float], list[float]]:

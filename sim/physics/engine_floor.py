@@ -40,7 +40,7 @@ from ..model.device3d import Device3D
 from ..model.floor import lowest_z
 from ..model.massprops3d import wheel_tensor
 from .engine import MAX_JOINT_SPEED, import_pybullet
-from .engine3d import OneClient, principal
+from .engine3d import OneClient, principal, relative_attitude
 
 BASE = -1
 
@@ -154,30 +154,23 @@ class FloorEngine(OneClient):
                                              pb.applyExternalTorque)
         force = pb.applyExternalForce
         mode, world_frame, wheels = pb.TORQUE_CONTROL, pb.WORLD_FRAME, self.wheel_joints
-        atan2, asin, acos, pi, cos, sin, sqrt = math.atan2, math.asin, math.acos, math.pi, math.cos, math.sin, math.sqrt
+        cos, sin, sqrt = math.cos, math.sin, math.sqrt
         unused = (0.0,) * len(wheels)
         # q_rel = q_wF conj(q0 q_P): the attitude relative to upright from the base's quaternion
         cx, cy, cz, cw = matrix_to_quat(matmul(self.device.upright(), self.principal_axes_rows()))
         cx, cy, cz = -cx, -cy, -cz
         ox, oy, oz = self.com_in_base
         pose = [(0.0, 0.0, 0.0), (0.0, 0.0, 0.0, 1.0)]
+        relative = relative_attitude
 
         def read():
             pos, (x, y, z, w) = base_pose(body, cid)
             pose[0], pose[1] = pos, (x, y, z, w)
             rate = base_vel(body, cid)[1]
-            rx = w * cx + x * cw + y * cz - z * cy
-            ry = w * cy - x * cz + y * cw + z * cx
-            rz = w * cz + x * cy - y * cx + z * cw
-            rw = w * cw - x * cx - y * cy - z * cz
-            r22 = 1.0 - 2.0 * (rx * rx + ry * ry)
-            r20 = 2.0 * (rx * rz - ry * rw)
-            s20 = -r20 if -1.0 < -r20 < 1.0 else (1.0 if r20 <= -1.0 else -1.0)
-            tilt = acos(r22) if -1.0 < r22 < 1.0 else (0.0 if r22 >= 1.0 else pi)
-            heading = atan2(2.0 * (rx * ry + rz * rw), 1.0 - 2.0 * (ry * ry + rz * rz))
+            tilt_x, tilt_y, heading, tilt = relative(x, y, z, w, cx, cy, cz, cw)
             ch, sh = cos(heading), sin(heading)
             ws = states(body, wheels, cid)
-            return (atan2(2.0 * (ry * rz + rx * rw), r22), asin(s20), heading, tilt,
+            return (tilt_x, tilt_y, heading, tilt,
                     (ch * rate[0] + sh * rate[1], ch * rate[1] - sh * rate[0], rate[2]),
                     [s[0] for s in ws], [s[1] for s in ws])
 
