@@ -86,17 +86,10 @@ else:
 
 def instructions(t1: float = 0.5, t2: float = 1.5) -> None:
     """Instructions per step of (a) and (b), counted over two durations so that set-up cancels out."""
-    import subprocess
-    import tempfile
-
     sys.path.insert(0, str(HERE))
-    from instructions import HELPER_C, count
+    from instructions import count, counting_folder
 
-    with tempfile.TemporaryDirectory() as tmp:
-        tmp = Path(tmp)
-        (tmp / "helper.c").write_text(HELPER_C)
-        lib = tmp / "libhelper.so"
-        subprocess.run(["cc", "-shared", "-fPIC", "-O2", "-o", str(lib), str(tmp / "helper.c")], check=True)
+    with counting_folder() as (tmp, lib):
         per_step = {which: (count(which, t2, lib, tmp, driver=DRIVER) - count(which, t1, lib, tmp, driver=DRIVER))
                     / ((t2 - t1) * 1000.0) for which in ("bare", "trial")}
     a, b = per_step["bare"], per_step["trial"]
