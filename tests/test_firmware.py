@@ -361,6 +361,9 @@ def test_run_writes_the_firmwares_printf_to_firmware_log(tmp_path):
     assert main(["run", str(path), "--out", str(out)]) == 0
     # 3 deg with 4096 counts per rev, floored by the encoder: 34 counts (common practice, no source)
     assert (out / "firmware.log").read_text() == f"first tick at 0 us, angle counts {math.floor(3 / 360 * 4096)}\n"
+    # a second run into the same folder: the log holds that run's output, as trace.csv does (not both runs')
+    assert main(["run", str(path), "--out", str(out)]) == 0
+    assert (out / "firmware.log").read_text() == f"first tick at 0 us, angle counts {math.floor(3 / 360 * 4096)}\n"
 
 
 def test_second_build_reuses_the_cache_and_a_changed_define_rebuilds(tmp_path, monkeypatch):

@@ -235,6 +235,20 @@ def test_a_flipped_wheel_falls(wheel):
     assert result.fell_at_s < 3.0
 
 
+def test_the_example_holds_its_wheels_at_0_v_on_a_loop_rate_its_gains_were_not_made_for(tmp_path):
+    # gains made for a 2 ms period (cube_gains.h) are wrong at 2.5 ms: the example says so in its log and
+    # leaves the wheels at 0 V rather than run a law that was never designed for this loop (a firmware
+    # differing from its model by a scale is what firmware-in-the-loop exists to catch)
+    sc = load_scenario(CUBE, overrides=["sensors.rate=400 Hz", "world.step=0.5 ms", "trial.duration=0.3 s",
+                                        "trial.pushes=[]"])
+    log = tmp_path / "firmware.log"
+    with firmware_log_to(log):
+        result = run_trial(sc)
+    assert "2500 us period: not the device of cube_gains.h" in log.read_text()
+    for i in (1, 2, 3):
+        assert not np.any(result.trace.wheel(i, "voltage"))
+
+
 # ----------------------------------------------------------------------------- crashes are outcomes
 
 CRASHING = """

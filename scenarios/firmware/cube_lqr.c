@@ -34,7 +34,9 @@ static wb_balance_state_t law;
 static int device_fits;
 
 void wb_init(const wb_config_t *cfg) {
-    device_fits = cfg->mount == WB_MOUNT_BALL && cfg->n_wheels == WB_N_WHEELS;
+    /* the gains hold for one device at one loop rate: a ball mount, this many wheels, this period */
+    device_fits = cfg->mount == WB_MOUNT_BALL && cfg->n_wheels == WB_N_WHEELS
+                  && cfg->period_us == (uint32_t)(WB_PERIOD_S * 1e6f + 0.5f);
     wb_balance_reset(&law);
     printf("cube_lqr: %s mount, %ld wheels, %lu us period%s\n", cfg->mount == WB_MOUNT_BALL ? "ball" : "hinge",
            (long)cfg->n_wheels, (unsigned long)cfg->period_us, device_fits ? "" : ": not the device of cube_gains.h");

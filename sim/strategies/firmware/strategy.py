@@ -44,8 +44,12 @@ def firmware_log_to(path: Path | str | None):
 
 def firmware_log_for(spec, path: Path | str):
     """`firmware_log_to(path)` when `spec` (or a strategy nested in it) is compiled firmware, else a
-    context that does nothing (no empty log beside other strategies' runs)."""
-    return firmware_log_to(path) if _uses_firmware(spec) else contextlib.nullcontext()
+    context that does nothing (no empty log beside other strategies' runs). The log starts empty: it
+    holds this run's output, as the trace beside it holds this run's rows."""
+    if not _uses_firmware(spec):
+        return contextlib.nullcontext()
+    Path(path).write_text("")
+    return firmware_log_to(path)
 
 
 def _uses_firmware(spec) -> bool:
