@@ -4,10 +4,11 @@ Per physics step `FloorWatch.see` records the balancing contact's world x, y (th
 whether the body touches the floor and |F_t| / F_n over its floor contacts (the friction the motion
 asked of the floor) in the trace's floor columns. From the first step at which the law balances, the
 contact's horizontal travel is measured from where it was then; past `floor.slip_limit` the trial is
-`slipped` (the slip came before any fall; a slip after the fall is part of the fall).
+`slipped` (the slip came before any fall; a slip after the fall is part of the fall). A law that gets the
+body up again after a fall (a jump) is measured afresh from where its new balance began.
 
 After the trial, `summary` gives the metrics' floor keys: `slip_m` (the largest travel while balancing,
-up to the fall), `lift_off_s` (time without floor contact over the trial), `rest_face` (the face nearest
+the last balance, up to its fall), `lift_off_s` (time without floor contact over the trial), `rest_face` (the face nearest
 to facing the floor at the end, `sim.model.floor.face_down`, when it lies on it: within REST_COS of
 straight down and the body still; else None), `peak_friction_ratio` (the largest |F_t| / F_n while
 balancing, up to the fall) against `floor_friction`.
@@ -47,7 +48,10 @@ class FloorWatch:
         def see(k, balancing):
             x, y, z, touching, ratio = contact()
             cx[k], cy[k], cz[k], ct[k], cr[k] = x, y, z, touching, ratio
-            if not balancing or self.slipped_k is not None:
+            if self.slipped_k is not None:
+                return False
+            if not balancing:   # a fall ends this balance: a law that gets up again is measured afresh
+                self.origin = None
                 return False
             if self.origin is None:
                 self.origin, self.balance_k = (x, y), k
