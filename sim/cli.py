@@ -343,7 +343,8 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
     from .core.options import check_trials
     from .core.outputs import check_out_path, prepare_out_dir
     from .media.plots import save_figure
-    from .studies.sweep import parse_vary, run_sweep
+    from .model.overrides import bare_number_note
+    from .studies.sweep import check_varies, parse_vary, run_sweep
     from .studies.sweep_figure import check_color, sweep_figure
     check_color(color)
     check_trials(trials, minimum=0)
@@ -353,6 +354,11 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
     from .studies.sweep_figure import check_color_fits
     check_color_fits(color, validate_loaded(raw, where=where))
     varies = [parse_vary(v) for v in vary]
+    check_varies(raw, where, varies)    # bad input is one line, before any note
+    for v in varies:
+        note = bare_number_note(raw, list(v.path), list(v.values), option="--vary", text=f"{v.key}=...")
+        if note:
+            typer.echo(note, err=True)
     out_dir = prepare_out_dir(out, force=force, wait=wait)
     bar, update = progress("sweep")
     with bar:

@@ -47,6 +47,26 @@ def test_bad_vary_value_is_refused_before_running(tmp_path, capsys):
     assert not (out / "results.csv").exists()
 
 
+def test_bare_numbers_over_a_value_with_a_unit_get_a_note(tmp_path, capsys):
+    # a bare number is SI (rad/s per volt for a speed constant): over a file's "... rpm/V" a user who meant
+    # rpm/V gets a motor ten times too fast, and every point of the sweep fell. 1 rpm/V = 2 pi / 60 rad/s/V
+    # (definition of the revolution and the minute)
+    from sim.model.overrides import bare_number_note
+    raw = {"motor": {"speed_constant": "400 rpm/V", "resistance": "1.2 ohm"}, "drive": {"supply": 12}}
+    note = bare_number_note(raw, ["motor", "speed_constant"], [300], option="--vary", text="motor.speed_constant=300")
+    assert note.startswith("note: --vary motor.speed_constant=300") and f"300 = {300 * 60 / (2 * np.pi):.4g} rpm/V" in note
+    assert bare_number_note(raw, ["motor", "resistance"], [1.5], option="--set", text="x") is None   # SI already
+    assert bare_number_note(raw, ["drive", "supply"], [24], option="--set", text="x") is None        # no unit in the file
+    assert bare_number_note(raw, ["motor", "speed_constant"], ["300 rpm/V"], option="--set", text="x") is None
+    raw_file = fast_raw()
+    raw_file["wheel"]["parts"][0]["thickness"] = "5 mm"
+    scen = write_scenario(tmp_path / "s.yaml", raw_file)
+    assert main(["sweep", scen, "--vary", "wheel.parts[0].thickness=0.004,0.006", "--out", str(tmp_path / "o"),
+                 "--workers", "1"]) in (0, 1)
+    err = capsys.readouterr().err
+    assert "note: --vary wheel.parts[0].thickness=...: a bare number is in SI units (0.004 = 4 mm" in err
+
+
 @pytest.fixture(scope="module")
 def reference(tmp_path_factory):
     """An uninterrupted one-worker sweep (the reference table for the other tests)."""

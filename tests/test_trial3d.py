@@ -277,3 +277,27 @@ def test_a_pole_with_no_wheel_about_the_vertical_holds_while_its_heading_turns()
     heading = result.trace.heading[: result.trace.n]
     assert np.max(np.abs(heading)) > math.radians(30), "the constructed pole must turn its heading"
     assert result.outcome == "balanced", result.cause_detail
+
+
+def test_a_run_that_blows_up_after_the_fall_stays_a_fall_with_its_cause():
+    # After a fall a ball-mounted body tumbles with its wheels spinning, and the engine's explicit
+    # gyroscopic terms can blow up seconds later. The fall came first and has a cause: it stays the outcome
+    # (before, the run read "diverged" and the cause of the fall was lost). The blow-up is forced here:
+    # once the body is past its release angle, its rate is set absurd
+    from sim.model.scenario_yaml import load_scenario
+    from sim.physics.engine3d import BODY
+    from sim.run.trial import run_trial
+    sc = load_scenario(SCENARIOS / "cube_corner.yaml", overrides=("trial.start.tilt=[25 deg, 0 deg]",
+                                                                "trial.pushes=[]", "trial.duration=2 s"))
+    seen = {}
+
+    def blow_up(k, engine):
+        read = seen.setdefault("read", engine.io()[0])
+        if read()[3] > math.radians(60) and "k" not in seen:     # well past the release angle (30 deg)
+            seen["k"] = k
+            engine.pb.resetJointStateMultiDof(engine.body_id, BODY, targetValue=[0, 0, 0, 1],
+                                              targetVelocity=[1e6, 0, 0], physicsClientId=engine.client)
+    res = run_trial(sc, stop_early=False, on_step=blow_up)
+    assert "k" in seen and res.fell_at_s is not None and res.fell_at_s < seen["k"] * sc.world.step
+    assert res.outcome == "fell" and "non-finite or absurd" in res.message and res.cause not in (None, "diverged")
+    assert res.trace.n == seen["k"] + 1 and res.ended_at_s == pytest.approx(res.fell_at_s)

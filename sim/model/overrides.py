@@ -96,8 +96,43 @@ def apply_overrides(raw: dict, overrides, *, where: str, notes: list[str] | None
             notes.append(note)
         elif note:
             print(note, file=sys.stderr)
+        bare = bare_number_note(out, path, [value], option="--set", text=text)
+        if bare and notes is not None:
+            notes.append(bare)
+        elif bare:
+            print(bare, file=sys.stderr)
         set_path(out, path, value, where=f"{where} (--set {text})")
     return out
+
+
+_NUMBER_THEN_UNIT = re.compile(r"^\s*[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?\s*(?P<unit>[A-Za-z%°µΩ].*)$")
+
+
+def bare_number_note(raw: dict, path: list, values: list, *, option: str, text: str) -> str | None:
+    """A one-line note when bare numbers replace a value the file gives with a unit.
+
+    A bare number is read in SI units (`sim.core.units`): `--set motor.speed_constant=300` over a file's
+    `400 rpm/V` means 300 rad/s per volt, 2865 rpm/V, not 300 rpm/V. Said, not refused: SI is what the
+    number means. None when any value carries its own unit, the file's value has none, or the path is
+    not in the file."""
+    if not values or not all(isinstance(v, (int, float)) and not isinstance(v, bool) for v in values):
+        return None
+    node = _node_at(raw, path)
+    m = _NUMBER_THEN_UNIT.match(node) if isinstance(node, str) else None
+    if m is None:
+        return None
+    unit = m.group("unit").strip()
+    try:
+        from ..core.units import registry
+        one, two = (float(registry().Quantity(x, unit).to_base_units().magnitude) for x in (1.0, 2.0))
+    except Exception:  # pint raises many kinds for a unit it cannot read; the validator words those
+        return None
+    if not two == 2.0 * one or one == 0.0 or abs(one - 1.0) < 1e-12:   # an offset unit (degC), or SI itself
+        return None
+    per_si = 1.0 / one
+    shown = ", ".join(f"{v:g} = {v * per_si:.4g} {unit}" for v in values[:3]) + (", ..." if len(values) > 3 else "")
+    return (f"note: {option} {text}: a bare number is in SI units ({shown}); the file gives "
+            f"{node.strip()!r}: write the unit (e.g. {values[0]:g} {unit}) to mean {unit}")
 
 
 STRATEGY_NAMES = ("kind", "plugin")
@@ -110,14 +145,7 @@ def _drop_other_kind(raw: dict, path: list, value: Any, text: str) -> str | None
     `plugin` (nested ones too, e.g. strategy.balance)."""
     if len(path) < 2 or path[-1] not in STRATEGY_NAMES:
         return None
-    parent: Any = raw
-    for key in path[:-1]:
-        if isinstance(key, int):
-            parent = parent[key] if isinstance(parent, list) and key < len(parent) else None
-        else:
-            parent = parent.get(key) if isinstance(parent, dict) else None
-        if parent is None:
-            return None
+    parent = _node_at(raw, path[:-1])
     if not isinstance(parent, dict):
         return None
     old = next(((k, parent[k]) for k in STRATEGY_NAMES if k in parent), None)
@@ -129,6 +157,19 @@ def _drop_other_kind(raw: dict, path: list, value: Any, text: str) -> str | None
         return None
     return (f"note: --set {text}: the {old[1]!s} parameters {', '.join(dropped)} were dropped "
             f"(they belong to the old {old[0]}); give the new kind's parameters with more --set")
+
+
+def _node_at(raw: Any, path: list) -> Any:
+    """The value at `path` inside `raw`, or None where the path leaves the mapping."""
+    node = raw
+    for key in path:
+        if isinstance(key, int):
+            node = node[key] if isinstance(node, list) and key < len(node) else None
+        else:
+            node = node.get(key) if isinstance(node, dict) else None
+        if node is None:
+            return None
+    return node
 
 
 def deep_merge(base: dict, extra: dict) -> dict:

@@ -251,7 +251,12 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
             if not -w_lim < s < w_lim:
                 bad = True
         if bad:
-            outcome, message = "diverged", f"the state became non-finite or absurd at t = {k * dt:.4f} s"
+            if fell_k is not None and catch_k is None:   # after a fall: the fall stays the outcome, its cause found
+                outcome, message = "fell", (f"after the fall the simulated motion became non-finite or absurd at "
+                                            f"t = {k * dt:.4f} s (a body tumbling with its wheels spinning); "
+                                            "the trace ends there")
+            else:
+                outcome, message = "diverged", f"the state became non-finite or absurd at t = {k * dt:.4f} s"
             break
         if see is not None and see(k, catch_k is not None) and outcome is None:
             outcome = "slipped"   # with stop_early; this step still runs, as a fall's does
