@@ -70,15 +70,15 @@ def _with_resistance(figures, r: float):
 class SharedBus:
     """The supply side of one or several bridges: the pack or bench supply with its bus capacitance,
     the bus's extremes and its protections (low-voltage cut-off, over-voltage). Inputs per physics
-    step: each bridge's mean bus current, A (`take`); out: `supply.volts`, the bus, V, for the next
+    step: each bridge's mean bus current, A (`take`, once per bridge per step); out: `supply.volts`, the bus, V, for the next
     step; `dead` once a protection has switched every bridge off for the rest of the trial.
 
-    With `n_bridges` above one the bus steps when the last bridge has taken its share: it draws the
+    With `n_bridges` above one (or `shared`) the bus steps when the last bridge has taken its share: it draws the
     sum of their bus currents (the bus node's current balance) and, with `record(n)` called, writes
     the bus voltage at each step's start, the total bus current and each bridge's applied voltage
     into arrays of n rows (`columns`)."""
 
-    def __init__(self, scenario, *, step_s: float, n_bridges: int = 1):
+    def __init__(self, scenario, *, step_s: float, n_bridges: int = 1, shared: bool = False):
         drive, bat = scenario.drive, scenario.battery
         if bat is not None:
             r = bat.internal_resistance if bat.internal_resistance is not None else bat.cell_resistance * bat.cells
@@ -98,7 +98,7 @@ class SharedBus:
         self.bus_current_a = 0.0
         self._n, self._sum, self._taken = n_bridges, 0.0, 0
         self._cols = None
-        self.take = self._take_one if n_bridges == 1 else self._take_many
+        self.take = self._take_many if shared or n_bridges > 1 else self._take_one
 
     def record(self, n: int) -> None:
         """Keep the bus voltage, the bus current and each bridge's applied voltage for `n` steps."""
@@ -400,3 +400,38 @@ class PowerChain:
         if self.coupled:
             out["peak_winding_temperature_c"] = self.peak_temp_c
         return out
+
+
+def shared_chains(scenario, figures, *, step_s: float, record_steps: int = 0) -> tuple[SharedBus, list[PowerChain]]:
+    """One bus for a device's wheels and one chain per wheel on it (wheel i with `figures[i]`, its
+    motor's figures, and `scenario.wheel_motor(i)`, its motor section). With `record_steps` the bus
+    keeps its columns (`SharedBus.record`) for that many steps."""
+    bus = SharedBus(scenario, step_s=step_s, n_bridges=len(figures), shared=True)
+    chains = [PowerChain(scenario, f, step_s=step_s, motor=scenario.wheel_motor(i), bus=bus)
+              for i, f in enumerate(figures)]
+    if record_steps:
+        bus.record(record_steps)
+    bus.track()       # a pack already below its cut-off at the start: every bridge off from t = 0
+    return bus, chains
+
+
+def shared_summary(bus: SharedBus, chains: list[PowerChain]) -> dict:
+    """What the bus and its chains saw: `PowerChain.summary`'s keys over the whole device (trips and
+    reversals summed, the largest dead-band and held fractions), each event naming its wheel (from 1;
+    None for the bus's own cut-off or over-voltage), and `wheels`: each chain's own figures."""
+    per = [c.summary() for c in chains]
+    out = bus.summary()
+    out["driver_trips"] = sum(p["driver_trips"] for p in per)
+    dead = [p["pwm_dead_band_fraction"] for p in per if p["pwm_dead_band_fraction"] is not None]
+    out["pwm_dead_band_fraction"] = max(dead) if dead else None
+    events = [(t, code, i) for i, c in enumerate(chains, start=1) for t, code in c.bridge_events]
+    events += [(t, code, None) for t, code in bus.events]
+    events.sort(key=lambda e: e[0])    # stable: on a tie the trips first, in wheel order
+    out["power_events"] = [{"at_s": t, "cause": code, "wheel": i} for t, code, i in events]
+    turns = [p["reversals"] for p in per if p["reversals"] is not None]
+    out["reversals"] = sum(turns) if turns else None
+    held = [p["reversal_held_fraction"] for p in per if p["reversal_held_fraction"] is not None]
+    out["reversal_held_fraction"] = max(held) if held else None
+    keys = ("driver_trips", "pwm_dead_band_fraction", "reversals", "reversal_held_fraction", "peak_winding_temperature_c")
+    out["wheels"] = [{k: p[k] for k in keys if k in p} for p in per]
+    return out

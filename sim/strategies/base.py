@@ -35,7 +35,7 @@ class Reading:
     """
 
     __slots__ = ("t_s", "angle_rad", "rate_rad_s", "wheel_speed_rad_s", "angles_rad", "rates_rad_s",
-                 "wheel_speeds_rad_s", "imu_gyro_rad_s", "imu_accel_m_s2")
+                 "wheel_speeds_rad_s", "imu_gyro_rad_s", "imu_accel_m_s2", "supply_v")
 
     def __init__(self) -> None:
         self.t_s = 0.0
@@ -49,6 +49,10 @@ class Reading:
         # (the errors of sensors.imu applied), rad/s and m/s^2; empty without one
         self.imu_gyro_rad_s: tuple[float, ...] = ()
         self.imu_accel_m_s2: tuple[float, ...] = ()
+        # the supply as it stands at the tick, V: the scenario's drive.supply on an ideal source, the
+        # shared bus's voltage through a 3D device's power chain (a sagging pack gives less); inf when
+        # the runner sets none
+        self.supply_v = math.inf
 
 
 class Strategy:

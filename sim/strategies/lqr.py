@@ -90,7 +90,8 @@ class MultiWheelLqr(LqrBalance):
     tilt_y, rate_x, rate_y, (rate_z when a wheel acts about the vertical), wheel speeds...], read
     from the reading's vector form (`angles_rad`, `rates_rad_s`, `wheel_speeds_rad_s`). With a
     sensor delay the gains act on the present state predicted from the delayed reading and the
-    commands applied since (each clamped to its wheel's supply, as the drive does), folded into
+    commands applied since (each clamped to its wheel's supply, and to the bus the reading reports
+    when a pack has sagged below it, as the bridges do), folded into
     gains on the reading and on the held commands once at construction.
     `decide` returns a list of volts in wheel order.
     """
@@ -109,6 +110,7 @@ class MultiWheelLqr(LqrBalance):
         self._n_angles, self._n_rates, self._n_wheels = kinds.count(0), kinds.count(1), kinds.count(2)
         self.supplies_v = np.array([w.supply_v for w in self.spec.wheels], dtype=float)
         self._neg_supplies_v = -self.supplies_v
+        self._lowest_supply_v = float(np.min(self.supplies_v))
         # one matrix on one buffer [measured state, held commands oldest first], so that a tick is a
         # few numpy calls whatever the delay (the same law as K times the predicted state)
         self._G = np.hstack([G_x, *G_u])
@@ -143,4 +145,7 @@ class MultiWheelLqr(LqrBalance):
             newest = held[-m:]
             np.minimum(v, self.supplies_v, out=newest)
             np.maximum(newest, self._neg_supplies_v, out=newest)
+            bus = reading.supply_v
+            if bus < self._lowest_supply_v:     # a sagging pack: the bridges give at most the bus
+                np.clip(newest, -bus, bus, out=newest)
         return v.tolist()
