@@ -402,13 +402,14 @@ class PowerChain:
         return out
 
 
-def shared_chains(scenario, figures, *, step_s: float, record_steps: int = 0) -> tuple[SharedBus, list[PowerChain]]:
+def shared_chains(scenario, figures, *, step_s: float, record_steps: int = 0,
+                  motors=None) -> tuple[SharedBus, list[PowerChain]]:
     """One bus for a device's wheels and one chain per wheel on it (wheel i with `figures[i]`, its
-    motor's figures, and `scenario.wheel_motor(i)`, its motor section). With `record_steps` the bus
-    keeps its columns (`SharedBus.record`) for that many steps."""
+    motor's figures, and `motors[i]`, its motor section; default `scenario.wheel_motor(i)`). With
+    `record_steps` the bus keeps its columns (`SharedBus.record`) for that many steps."""
     bus = SharedBus(scenario, step_s=step_s, n_bridges=len(figures), shared=True)
-    chains = [PowerChain(scenario, f, step_s=step_s, motor=scenario.wheel_motor(i), bus=bus)
-              for i, f in enumerate(figures)]
+    motors = motors or [scenario.wheel_motor(i) for i in range(len(figures))]
+    chains = [PowerChain(scenario, f, step_s=step_s, motor=m, bus=bus) for f, m in zip(figures, motors)]
     if record_steps:
         bus.record(record_steps)
     bus.track()       # a pack already below its cut-off at the start: every bridge off from t = 0
