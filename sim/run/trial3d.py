@@ -2,7 +2,10 @@
 
 The loop, per physics step: read the body's attitude and rate and the wheels' states -> (on
 control ticks) the sensors, one suite per axis -> the strategy's volts, one per wheel -> each
-wheel's drive and motor -> friction and pushes -> engine step. As on the planar runner, a strategy
+wheel's drive and motor -> friction and pushes -> engine step. Each wheel's drive is one
+`update(volts, wheel_speed) -> (current, torque)` per step: its motor on the ideal source, or, with any
+power key, its chain on the bus every wheel shares (`sim.physics.drive.shared_chains`, built in
+`_simulate`); the bus steps once the last wheel has, and its columns go into the trace at the end. As on the planar runner, a strategy
 that raises, returns nonsense or runs past its time budget, and a state that turns non-finite or
 absurd, end the trial with an outcome, never an exception.
 
