@@ -59,15 +59,13 @@ helper.count_start(); trial_rtf(sc); helper.count_stop()
 """
 
 
-def instructions(t1: float = 0.5, t2: float = 1.5) -> None:
-    """Instructions per step of both, counted over two durations so that set-up cancels out."""
+def instructions() -> None:
+    """Instructions per step of both (`instructions.per_step`)."""
     sys.path.insert(0, str(HERE))
-    from instructions import count, counting_folder
+    from instructions import per_step
 
-    with counting_folder() as (tmp, lib):
-        per_step = {which: (count(which, t2, lib, tmp, driver=DRIVER) - count(which, t1, lib, tmp, driver=DRIVER))
-                    / ((t2 - t1) * 1000.0) for which in ("ideal", "pack")}
-    a, b = per_step["ideal"], per_step["pack"]
+    counts = per_step(("ideal", "pack"), DRIVER)
+    a, b = counts["ideal"], counts["pack"]
     print(f"ideal source             {a:10,.0f} instructions per step")
     print(f"shared pack, 3 bridges   {b:10,.0f} instructions per step   ideal/pack = {a / b:.2f} (by instructions)")
 
