@@ -74,7 +74,9 @@ class Strategy:
        wheel speed and time), never the true state or the engine.
     3. Limits. The runner's drive clamps the voltage to +-supply, the supply the scenario
        states (`drive.supply`): `self.supply_v` is a copy for the law to read, and changing it,
-       the device or `command` itself never gets more than the supply applied. A tick whose
+       the device or `command` itself never gets more than the supply applied. Through the power
+       chain a bridge applies at most the bus as it stands, which `reading.supply_v` reports each
+       tick (a sagging pack gives less than `self.supply_v`). A tick whose
        voltage reaches the supply counts in `voltage_saturated_fraction`. A non-finite voltage
        ends the trial with outcome `strategy_failed`, as does anything `decide` or `__init__`
        raises: any exception, `sys.exit`, KeyboardInterrupt or another BaseException (a real
