@@ -62,6 +62,14 @@ def count(which: str, seconds: float, lib: Path, tmp: Path, extra: list[str] = (
     return int(found[0])
 
 
+def per_step(names, driver: str, *, t1: float = 0.5, t2: float = 1.5, step_s: float = 1e-3) -> dict[str, float]:
+    """Instructions per physics step of each of `names` (the driver's `which`), counted over two
+    trial durations (s) so that set-up cancels out."""
+    with counting_folder() as (tmp, lib):
+        return {which: (count(which, t2, lib, tmp, driver=driver) - count(which, t1, lib, tmp, driver=driver))
+                / ((t2 - t1) / step_s) for which in names}
+
+
 def seconds_option(doc: str) -> tuple[float, float, list[str]]:
     """The two trial durations, s, from --seconds T1 T2, and the --set overrides (the script's
     docstring as its help)."""

@@ -52,8 +52,13 @@ def test_vector_keys_parse_with_units():
     (lambda raw: raw.update(wheels=[{"at": 0.2, "parts": [{"shape": "point", "mass": 0.1}]}], wheel=None),
      "wheels[0].parts: the wheel's spin inertia is 0"),
     (lambda raw: raw.update(body=BALL, timing={"jitter": 0.0001}), "timing: the IMU, estimator"),
-    (lambda raw: raw.update(body=BALL, battery={"chemistry": "lipo", "cells": 3, "capacity": "1 A*h", "internal_resistance": 0.05}, drive={"supply": None}),
-     "the power chain"),
+    # the power chain runs on 3D devices, in voltage mode only (no law for several wheels commands current)
+    (lambda raw: raw.update(body=BALL, drive={"supply": 12.0, "mode": "current", "current_bandwidth": 2000.0}),
+     "drive.mode: current mode takes one-wheel hinge devices only"),
+    (lambda raw: raw.update(wheels=[{"at": 0.2, "parts": [DISK], "motor": {
+        "speed_constant": "300 rpm/V", "resistance": 2.0, "thermal": {"coupled": True},
+        "curve": {"voltage": 12.0, "points": [{"speed": 0.0, "torque": 0.1}, {"speed": 100.0, "torque": 0.0}]}}}],
+        wheel=None, body=BALL), "wheels[0].motor.thermal.coupled"),
     (lambda raw: raw.update(body=BALL, sensors={"wheel": {"max_speed": 100.0}}), "sensors.wheel.max_speed"),
 ])
 def test_bad_3d_keys_are_refused_in_one_line_naming_the_key(change, key):

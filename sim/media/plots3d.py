@@ -49,6 +49,12 @@ def summary_figure3d(result):
                 axes[4].axhline(s, color=LIMIT, ls="--", lw=0.7)
     for s in (dev.supply_v, -dev.supply_v):
         axes[3].axhline(s, color=LIMIT, ls="--", lw=0.7)
+    if getattr(tr, "has_power_columns", False):   # the shared bus as it sagged and rose (power chain)
+        bus = tr.view("supply_voltage")
+        for sign in (1.0, -1.0):
+            axes[3].plot(*_thin(t, sign * bus), color=MUTED, lw=0.8)
+        axes[3].text(t[0] if len(t) else 0, float(bus[0]) if len(bus) else 0.0, " bus", color=MUTED, fontsize=7,
+                     va="top")
     axes[4].set_xlabel("time [s]")
     _event_markers(axes, result)
     for a in axes:

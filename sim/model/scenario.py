@@ -662,10 +662,14 @@ class Scenario(Strict):
             if used:
                 raise ValueError(f"@{key}: the IMU, estimator, encoder bus limits and timing models take one-wheel "
                                  "hinge devices only in this release (this is a 3D device)")
-        if self.power_model:
-            raise ValueError("@drive: the power chain (battery, drive.mode current, PWM frequency, reversal delay, "
-                             "trips, bus capacitance, motor.curve, motor.thermal.coupled) takes one-wheel hinge "
-                             "devices only in this release (this is a 3D device)")
+        if self.drive.mode == "current":
+            raise ValueError("@drive.mode: current mode takes one-wheel hinge devices only in this release (no law "
+                             "for several wheels commands current); a 3D device's bridges run in voltage mode")
+        for i, w in enumerate(self.wheels or []):
+            m = w.motor
+            if m is not None and m.curve is not None and m.thermal.coupled:
+                raise ValueError(f"@wheels[{i}].motor.thermal.coupled: the winding's resistance does not enter a "
+                                 "motor.curve; give one or the other")
         mounts = getattr(self.strategy.cls, "mounts_3d", None) if self.strategy is not None else None
         if mounts is not None and self.body.mount not in mounts:
             raise ValueError(f"@strategy.kind: {self.strategy.kind} on a 3D device needs body.mount "

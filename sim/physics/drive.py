@@ -33,6 +33,14 @@ Coupled thermal: the winding's temperature follows C dT/dt = i^2 R - (T - T_amb)
 resistance R = R_20 (1 + alpha (T - 20 degC)), alpha = 0.00393 /K for copper [pub: CRC Handbook of
 Chemistry and Physics, resistivity of copper; from memory]; the motor's step coefficients are
 re-solved whenever R has moved 0.5 % since they were last solved.
+
+Several wheels on one pack (a 3D device): one `SharedBus` (the supply, its capacitance, the
+low-voltage cut-off and the over-voltage protection) and one `PowerChain` per wheel (its bridge and
+motor) on it, each with the same per-step call. Every bridge works from the bus as it stood at the
+step's start; the bus takes the sum of the bridges' bus currents once the last of them has stepped
+(Kirchhoff's current law at the bus node: the bus current is the sum of the branch currents). A
+cut-off or an over-voltage switches every bridge off; a trip only its own. One wheel owns its bus
+alone (`PowerChain(..., bus=None)`), which is today's chain step for step.
 """
 
 from __future__ import annotations
@@ -47,20 +55,31 @@ COPPER_ALPHA_PER_K = 0.00393
 RESOLVE_SHARE = 0.005   # re-solve the motor step when R has moved this share
 
 
-class PowerChain:
-    """The supply, the bridge and the motor of one wheel (see the module docstring)."""
+def _with_resistance(figures, r: float):
+    """The motor's figures with the winding resistance `r` (ohm): a frozen dataclass replaced, other
+    figure objects (a 3D wheel's) copied."""
+    import copy
+    from dataclasses import is_dataclass, replace
+    if is_dataclass(figures):
+        return replace(figures, resistance_ohm=r)
+    out = copy.copy(figures)
+    out.resistance_ohm = r
+    return out
 
-    def __init__(self, scenario, device: Device, *, step_s: float):
-        drive, motor, bat = scenario.drive, scenario.motor, scenario.battery
-        # None: a voltage command is turned into a duty by the bus as it is (a law that knows its
-        # bus); a voltage, V: by this fixed voltage instead (a law that writes a PWM duty, stated as
-        # volts at the nominal supply: duty = command / duty_base_v, whatever the bus does)
-        self.duty_base_v: float | None = None
-        self.device = device
-        self.dt = step_s
-        self.t = 0.0
-        self.motor = MotorDrive(device, step_s=step_s)
-        self.current_mode = drive.mode == "current"
+
+class SharedBus:
+    """The supply side of one or several bridges: the pack or bench supply with its bus capacitance,
+    the bus's extremes and its protections (low-voltage cut-off, over-voltage). Inputs per physics
+    step: each bridge's mean bus current, A (`take`, once per bridge per step); out: `supply.volts`, the bus, V, for the next
+    step; `dead` once a protection has switched every bridge off for the rest of the trial.
+
+    With `n_bridges` above one (or `shared`) the bus steps when the last bridge has taken its share: it draws the
+    sum of their bus currents (the bus node's current balance) and, with `record(n)` called, writes
+    the bus voltage at each step's start, the total bus current and each bridge's applied voltage
+    into arrays of n rows (`columns`)."""
+
+    def __init__(self, scenario, *, step_s: float, n_bridges: int = 1, shared: bool = False):
+        drive, bat = scenario.drive, scenario.battery
         if bat is not None:
             r = bat.internal_resistance if bat.internal_resistance is not None else bat.cell_resistance * bat.cells
             self.supply = Battery(chemistry=bat.chemistry, cells=bat.cells, capacity_c=bat.capacity,
@@ -70,6 +89,109 @@ class PowerChain:
             self.supply = BenchSupply(volts=drive.supply, capacitance_f=drive.bus_capacitance)
             self.cutoff_v = -math.inf
         self.max_bus_v = drive.max_bus_voltage if drive.max_bus_voltage is not None else math.inf
+        self.dt = step_s
+        self.bridges: list[PowerChain] = []
+        self.dead = False
+        self.events: list[tuple[float, str]] = []
+        self.min_bus_v = self.peak_bus_v = self.supply.volts
+        self.steps = 0
+        self.bus_current_a = 0.0
+        self._n, self._sum, self._taken = n_bridges, 0.0, 0
+        self._cols = None
+        self.take = self._take_many if shared or n_bridges > 1 else self._take_one
+
+    def record(self, n: int) -> None:
+        """Keep the bus voltage, the bus current and each bridge's applied voltage for `n` steps."""
+        import numpy as np
+        self.columns = {"supply_voltage_v": np.zeros(n), "bus_current_a": np.zeros(n),
+                        "applied_v": [np.zeros(n) for _ in range(self._n)]}
+        self._cols = (memoryview(self.columns["supply_voltage_v"]), memoryview(self.columns["bus_current_a"]),
+                      [memoryview(c) for c in self.columns["applied_v"]])
+
+    def _take_one(self, bus_current_a: float, settle: bool = False) -> None:
+        """The bus's step with one bridge on it: draw, then check a new extreme against the limits
+        (`settle`: check whatever the voltage, as after a step with the bridge off)."""
+        supply = self.supply
+        supply.draw(bus_current_a, self.dt)
+        self.steps += 1
+        if settle:
+            self.track()
+            return
+        v = supply.volts
+        if v < self.min_bus_v:       # a new extreme: maybe past a limit
+            self.min_bus_v = v
+            if v < self.cutoff_v:
+                self.track()
+        elif v > self.peak_bus_v:
+            self.peak_bus_v = v
+            if v > self.max_bus_v:
+                self.track()
+
+    def _take_many(self, bus_current_a: float, settle: bool = False) -> None:
+        self._sum += bus_current_a
+        self._taken += 1
+        if self._taken < self._n:
+            return
+        total, self._sum, self._taken = self._sum, 0.0, 0
+        supply = self.supply
+        if self._cols is not None:
+            k = self.steps
+            v_col, i_col, applied = self._cols
+            v_col[k], i_col[k] = supply.volts, total
+            for col, bridge in zip(applied, self.bridges):
+                col[k] = bridge.applied_v
+        self.bus_current_a = total
+        supply.draw(total, self.dt)
+        self.steps += 1
+        self.track()
+
+    def track(self) -> None:
+        """The bus's extremes, and its protections: below the cut-off or above the over-voltage limit
+        every bridge switches off for good (nothing new is recorded once every bridge is off for good)."""
+        v = self.supply.volts
+        if v < self.min_bus_v:
+            self.min_bus_v = v
+        if v > self.peak_bus_v:
+            self.peak_bus_v = v
+        if self.dead or not (v < self.cutoff_v or v > self.max_bus_v):
+            return
+        if all(b.off_until == math.inf for b in self.bridges):
+            return
+        self.events.append((self.steps * self.dt, "battery_cutoff" if v < self.cutoff_v else "bus_over_voltage"))
+        self.dead = True
+
+    def summary(self) -> dict:
+        """The bus's figures (SI; keys carry units), as `PowerChain.summary` starts."""
+        s = self.supply
+        return {
+            "min_supply_voltage_v": self.min_bus_v,
+            "peak_supply_voltage_v": self.peak_bus_v,
+            "charge_used_mah": s.charge_used_c / 3.6,
+            "battery_state_of_charge_end": s.soc if isinstance(s, Battery) else None,
+        }
+
+
+class PowerChain:
+    """The supply, the bridge and the motor of one wheel (see the module docstring)."""
+
+    def __init__(self, scenario, device: Device, *, step_s: float, motor=None, bus: "SharedBus | None" = None):
+        """`device`: the motor's figures (a `Device`, or one wheel's figures with the same names);
+        `motor`: that wheel's `motor` section (default the scenario's); `bus`: a bus shared with other
+        wheels' chains (default: a bus of its own, the one-wheel chain)."""
+        drive = scenario.drive
+        motor = scenario.motor if motor is None else motor
+        # None: a voltage command is turned into a duty by the bus as it is (a law that knows its
+        # bus); a voltage, V: by this fixed voltage instead (a law that writes a PWM duty, stated as
+        # volts at the nominal supply: duty = command / duty_base_v, whatever the bus does)
+        self.duty_base_v: float | None = None
+        self.device = device
+        self.dt = step_s
+        self.motor = MotorDrive(device, step_s=step_s)
+        self.current_mode = drive.mode == "current"
+        self.owns_bus = bus is None
+        self.bus = bus = SharedBus(scenario, step_s=step_s) if bus is None else bus
+        bus.bridges.append(self)
+        self.supply = bus.supply
         self.pwm = None
         self.dead_loss = 0.0
         if drive.pwm is not None and drive.pwm.frequency is not None:
@@ -99,7 +221,6 @@ class PowerChain:
         self.over_since = None
         self.off_until = -1.0        # bridge off until this time, s (inf: for good)
         self.trips = 0
-        self.events: list[tuple[float, str]] = []
         th = motor.thermal
         self.coupled = th.coupled
         self.r20 = device.resistance_ohm
@@ -109,12 +230,13 @@ class PowerChain:
         self.peak_temp_c = th.ambient
         self.i_loop = 0.0            # the current loop's state, A
         self.bus_v = self.supply.volts
-        self.min_bus_v = self.peak_bus_v = self.supply.volts
         self.bus_current_a = 0.0
         self.applied_v = 0.0
         self.steps = 0
         self.k_t = device.k_t_n_m_a
-        self._track_bus()             # a pack already below its cut-off at the start: off from t = 0
+        self.bridge_events: list[tuple[float, str]] = []
+        if self.owns_bus:
+            bus.track()               # a pack already below its cut-off at the start: off from t = 0
 
     @property
     def command_limit(self) -> float:
@@ -130,9 +252,9 @@ class PowerChain:
         dt = self.dt
         t = self.steps * dt          # by multiplication: no drift of a sum over millions of steps
         self.steps += 1
-        supply = self.supply
-        bus = self.bus_v = supply.volts
-        if t < self.off_until - 1e-9 * dt:
+        shared = self.bus
+        bus = self.bus_v = self.supply.volts
+        if shared.dead or t < self.off_until - 1e-9 * dt:
             return self._off(dt)
         if self.reversal_s and command != 0.0 and self.direction != (1.0 if command > 0.0 else -1.0):
             command = self._reversal(command, t)    # a turn to make (or under way)
@@ -145,20 +267,11 @@ class PowerChain:
         self.applied_v = v
         i_bus = v * i / bus if bus > 0.0 else 0.0     # d i, d = v / V_bus
         self.bus_current_a = i_bus
-        supply.draw(i_bus, dt)
         if -self.trip_a <= i <= self.trip_a:
             self.over_since = None
         else:
             self._over(t)
-        v = supply.volts
-        if v < self.min_bus_v:       # a new extreme: maybe past a limit
-            self.min_bus_v = v
-            if v < self.cutoff_v:
-                self._track_bus()
-        elif v > self.peak_bus_v:
-            self.peak_bus_v = v
-            if v > self.max_bus_v:
-                self._track_bus()
+        shared.take(i_bus)
         if self.coupled:
             self._heat(i, dt)
         return i, self.k_t * i
@@ -229,8 +342,7 @@ class PowerChain:
     def _off(self, dt: float) -> tuple[float, float]:
         self.motor.current = self.i_loop = 0.0
         self.applied_v = self.bus_current_a = 0.0
-        self.supply.draw(0.0, dt)
-        self._track_bus()
+        self.bus.take(0.0, settle=True)
         if self.coupled:
             self._heat(0.0, dt)
         return 0.0, 0.0
@@ -242,23 +354,9 @@ class PowerChain:
             self.over_since = t
         if now - self.over_since >= self.trip_s - 1e-9 * self.dt:
             self.trips += 1
-            self.events.append((now, "driver_tripped"))
+            self.bridge_events.append((now, "driver_tripped"))
             self.off_until = now + self.recovery_s if self.recovery_s is not None else math.inf
             self.over_since = None
-
-    def _track_bus(self) -> None:
-        v = self.supply.volts
-        self.t = self.steps * self.dt
-        if v < self.min_bus_v:
-            self.min_bus_v = v
-        if v > self.peak_bus_v:
-            self.peak_bus_v = v
-        if v < self.cutoff_v and self.off_until != math.inf:
-            self.events.append((self.t, "battery_cutoff"))
-            self.off_until = math.inf
-        elif v > self.max_bus_v and self.off_until != math.inf:
-            self.events.append((self.t, "bus_over_voltage"))
-            self.off_until = math.inf
 
     def _heat(self, i: float, dt: float) -> None:
         m = self.motor
@@ -274,20 +372,21 @@ class PowerChain:
             self._resolve(r)
 
     def _resolve(self, r: float) -> None:
-        from dataclasses import replace
         current = self.motor.current
-        self.motor = MotorDrive(replace(self.device, resistance_ohm=r), step_s=self.dt)
+        self.motor = MotorDrive(_with_resistance(self.device, r), step_s=self.dt)
         self.motor.current = current
         self.r_solved = r
 
+    @property
+    def events(self) -> list[tuple[float, str]]:
+        """The protections that fired, (time s, code), in time order: this bridge's trips and its bus's
+        cut-off or over-voltage (on a tie, the trip first: it is checked first within a step)."""
+        return sorted(self.bridge_events + self.bus.events, key=lambda e: e[0])
+
     def summary(self) -> dict:
         """What the chain saw, for metrics and causes (SI; keys carry units)."""
-        s = self.supply
         out = {
-            "min_supply_voltage_v": self.min_bus_v,
-            "peak_supply_voltage_v": self.peak_bus_v,
-            "charge_used_mah": s.charge_used_c / 3.6,
-            "battery_state_of_charge_end": s.soc if isinstance(s, Battery) else None,
+            **self.bus.summary(),
             "driver_trips": self.trips,
             "pwm_dead_band_fraction": (self.pwm.dead_band_hits / self.steps if self.pwm is not None and self.steps
                                        else (0.0 if self.pwm is not None else None)),
@@ -301,3 +400,39 @@ class PowerChain:
         if self.coupled:
             out["peak_winding_temperature_c"] = self.peak_temp_c
         return out
+
+
+def shared_chains(scenario, figures, *, step_s: float, record_steps: int = 0,
+                  motors=None) -> tuple[SharedBus, list[PowerChain]]:
+    """One bus for a device's wheels and one chain per wheel on it (wheel i with `figures[i]`, its
+    motor's figures, and `motors[i]`, its motor section; default `scenario.wheel_motor(i)`). With
+    `record_steps` the bus keeps its columns (`SharedBus.record`) for that many steps."""
+    bus = SharedBus(scenario, step_s=step_s, n_bridges=len(figures), shared=True)
+    motors = motors or [scenario.wheel_motor(i) for i in range(len(figures))]
+    chains = [PowerChain(scenario, f, step_s=step_s, motor=m, bus=bus) for f, m in zip(figures, motors)]
+    if record_steps:
+        bus.record(record_steps)
+    bus.track()       # a pack already below its cut-off at the start: every bridge off from t = 0
+    return bus, chains
+
+
+def shared_summary(bus: SharedBus, chains: list[PowerChain]) -> dict:
+    """What the bus and its chains saw: `PowerChain.summary`'s keys over the whole device (trips and
+    reversals summed, the largest dead-band and held fractions), each event naming its wheel (from 1;
+    None for the bus's own cut-off or over-voltage), and `wheels`: each chain's own figures."""
+    per = [c.summary() for c in chains]
+    out = bus.summary()
+    out["driver_trips"] = sum(p["driver_trips"] for p in per)
+    dead = [p["pwm_dead_band_fraction"] for p in per if p["pwm_dead_band_fraction"] is not None]
+    out["pwm_dead_band_fraction"] = max(dead) if dead else None
+    events = [(t, code, i) for i, c in enumerate(chains, start=1) for t, code in c.bridge_events]
+    events += [(t, code, None) for t, code in bus.events]
+    events.sort(key=lambda e: e[0])    # stable: on a tie the trips first, in wheel order
+    out["power_events"] = [{"at_s": t, "cause": code, "wheel": i} for t, code, i in events]
+    turns = [p["reversals"] for p in per if p["reversals"] is not None]
+    out["reversals"] = sum(turns) if turns else None
+    held = [p["reversal_held_fraction"] for p in per if p["reversal_held_fraction"] is not None]
+    out["reversal_held_fraction"] = max(held) if held else None
+    keys = ("driver_trips", "pwm_dead_band_fraction", "reversals", "reversal_held_fraction", "peak_winding_temperature_c")
+    out["wheels"] = [{k: p[k] for k in keys if k in p} for p in per]
+    return out

@@ -108,8 +108,10 @@ def find_cause(result) -> tuple[str | None, str | None]:
 
 # ----------------------------------------------------------------------------- power
 
-def _power_event(result) -> tuple[str, str] | None:
-    """The first protection event of the power chain before the fall (any time when not caught)."""
+def _power_event(result, who=None) -> tuple[str, str] | None:
+    """The first protection event of the power chain before the fall (any time when not caught).
+    `who(event) -> str`: words naming the wheel an event concerns, put after its first clause (a 3D
+    device's; none on one wheel)."""
     summary = getattr(result, "power", None)
     if not summary or not summary["power_events"]:
         return None
@@ -119,18 +121,19 @@ def _power_event(result) -> tuple[str, str] | None:
         return None
     first, sc = events[0], result.scenario
     t, code = first["at_s"], first["cause"]
+    named = who(first) if who is not None else ""
     fell = (f"the body fell at {result.fell_at_s:.2f} s" if result.fell_at_s is not None
             else "the body was not caught")
     if code == "battery_cutoff":
         cut = sc.battery.cells * sc.battery.cutoff_per_cell
         return code, (f"the bus sagged to {summary['min_supply_voltage_v']:.2f} V, below the pack's {cut:.2f} V "
-                      f"cut-off, at {t:.3f} s and the drive switched off; {fell}")
+                      f"cut-off, at {t:.3f} s{named} and the drive switched off; {fell}")
     if code == "driver_tripped":
         trip = sc.drive.trip
-        return code, (f"the driver tripped at {t:.3f} s (|i| above {trip.current:.3g} A for {trip.time:g} s; "
+        return code, (f"the driver{named} tripped at {t:.3f} s (|i| above {trip.current:.3g} A for {trip.time:g} s; "
                       f"{summary['driver_trips']} trip(s) in the trial) and stopped driving; {fell}")
     return code, (f"regeneration raised the bus to {summary['peak_supply_voltage_v']:.2f} V, above its "
-                  f"{sc.drive.max_bus_voltage:.3g} V limit, at {t:.3f} s and the drive switched off; {fell}")
+                  f"{sc.drive.max_bus_voltage:.3g} V limit, at {t:.3f} s{named} and the drive switched off; {fell}")
 
 
 # ----------------------------------------------------------------------------- fell

@@ -8,6 +8,11 @@ WHEEL_NEAR_LIMIT in the LOOKBACK_S before the fall, `current_at_limit` / `voltag
 wheel's current or voltage sat at its limit for SUSTAINED_S of that stretch, else `gains_too_weak`;
 not caught is `start_outside_release` when the start tilt was beyond the release angle, else
 `catch_missed`.
+
+Through the power chain, first of all (as on one wheel): the first protection event before the fall,
+`driver_tripped` naming the wheel whose driver tripped, `battery_cutoff` and `bus_over_voltage` (the
+shared bus's, which switch every bridge off) naming the wheel that drew the most from the bus, or
+pushed the most back into it, on the step before.
 """
 
 from __future__ import annotations
@@ -16,7 +21,7 @@ import math
 
 import numpy as np
 
-from .causes import CURRENT_AT_LIMIT, LOOKBACK_S, SUSTAINED_S, WHEEL_NEAR_LIMIT
+from .causes import CURRENT_AT_LIMIT, LOOKBACK_S, SUSTAINED_S, WHEEL_NEAR_LIMIT, _power_event
 from .metrics import PUSH_RECOVER_S
 
 
@@ -29,6 +34,9 @@ def find_cause3d(result) -> tuple[str | None, str | None]:
     tr = result.trace
     if tr.n == 0:
         return "catch_missed", "the trial recorded no steps"
+    power = _power_event(result, who=lambda event: _wheel_words(result, event))
+    if power is not None:
+        return power
     release = getattr(getattr(result.strategy, "params", None), "release_angle", math.pi)
     if result.outcome != "fell" or result.fell_at_s is None:
         tilt0 = float(tr.tilt[0])
@@ -76,3 +84,22 @@ def _fell(result) -> tuple[str, str]:
 
 def _size(impulse) -> float:
     return math.sqrt(sum(x * x for x in impulse)) if isinstance(impulse, tuple) else abs(impulse)
+
+
+def _wheel_words(result, event: dict) -> str:
+    """' (wheel N)' for a trip; for a bus event, the wheel whose bus current (its applied voltage times
+    its current over the bus) was the largest drawn (cut-off) or pushed back (over-voltage) on the
+    step before it."""
+    if event.get("wheel") is not None:
+        return f" (wheel {event['wheel']})"
+    tr = result.trace
+    k = min(max(int(round(event["at_s"] / tr.step_s)) - 1, 0), tr.n - 1)
+    bus = float(tr.bus_volts[k])
+    if bus <= 0.0:
+        return ""
+    amps = [float(tr.wheel(i, "voltage")[k] * tr.wheel(i, "current")[k]) / bus for i in range(1, tr.n_wheels + 1)]
+    if event["cause"] == "battery_cutoff":
+        j = int(np.argmax(amps))
+        return f" (wheel {j + 1} drew the most from the bus then, {amps[j]:.2f} A of {float(tr.bus_amps[k]):.2f} A)"
+    j = int(np.argmin(amps))
+    return f" (wheel {j + 1} pushed the most back into the bus then, {-amps[j]:.2f} A)"

@@ -132,6 +132,10 @@ def sensing_metrics(result, angle: np.ndarray, end: int) -> dict:
     return out
 
 
+POWER_ROW_KEYS = ("min_supply_voltage_v", "peak_supply_voltage_v", "charge_used_mah", "driver_trips")
+"""The power chain's figures a judged row carries when the chain ran (sweep's results.csv adds them)."""
+
+
 def power_metrics(result) -> dict:
     """The power chain's keys: the bus voltage's extremes (V; the peak shows regeneration), the charge
     used (mAh, net of regeneration), the pack's state of charge at the end (null on a bench supply),

@@ -4,7 +4,8 @@
 speed at the supply), speed_margin, peak_current_a, rms_current_a and peak_voltage_v; the scalar
 keys of the planar metrics hold the worst wheel (highest peak speed share, current and voltage).
 Angles: `peak_tilt_rad` (the largest `tilt_rad`, see `sim.core.frames`). Totals cover the trial up
-to the fall, as on the planar path (`totals_until_s`).
+to the fall, as on the planar path (`totals_until_s`). Through the power chain the one-wheel power keys
+follow (`_power`), over the shared bus.
 """
 
 from __future__ import annotations
@@ -13,7 +14,8 @@ import math
 
 import numpy as np
 
-from .metrics import PUSH_RECOVER_S, SATURATION_REL_TOL, SETTLE_BAND_RAD, push_outcomes, settle_time
+from .metrics import (PUSH_RECOVER_S, SATURATION_REL_TOL, SETTLE_BAND_RAD, power_metrics, push_outcomes, settle_time,
+                      supply_ceiling)
 
 
 def trial_metrics3d(result) -> dict:
@@ -53,7 +55,7 @@ def trial_metrics3d(result) -> dict:
         "current_limit_a": min(limits) if limits else None,
         "peak_voltage_v": max(w["peak_voltage_v"] for w in wheels),
         "supply_v": sc.drive.supply,
-        "voltage_saturated_fraction": _saturated(tr, dev, end, sc.control_steps) / ticks if ticks else 0.0,
+        "voltage_saturated_fraction": _saturated(tr, dev, end, sc.control_steps, sc) / ticks if ticks else 0.0,
         "energy_from_supply_j": energy, "regenerated_energy_j": regen,
         "peak_tilt_rad": float(np.max(tilt[:end])) if end else None,
         "max_angle_after_catch_rad": float(np.max(tilt[int(round(held_from / dt)):])) if held_from is not None and tr.n else None,
@@ -62,14 +64,34 @@ def trial_metrics3d(result) -> dict:
         "push_recovery_window_s": PUSH_RECOVER_S,
         "real_time_factor": result.ended_at_s / result.wall_s if result.wall_s > 0 else None,
         "physics_step_s": dt, "control_rate_hz": dev.control_rate_hz,
+        **(_power(result, wheels) if result.power is not None else {}),
         **(result.floor or {}),   # a body on the floor: slip_m, lift_off_s, rest_face, ... (sim.run.floor_contact)
         **{k: v for k, v in (getattr(result.strategy, "extra_metrics", None) or {}).items()},
     }
 
 
-def _saturated(trace, device, end: int, control_steps: int) -> int:
-    """Control ticks in rows [0, end) at which some wheel's voltage reached the supply."""
+def _saturated(trace, device, end: int, control_steps: int, scenario=None) -> int:
+    """Control ticks in rows [0, end) at which some wheel's voltage reached the supply (through the power
+    chain: the bus at that row less the dead-time loss, `sim.run.metrics.supply_ceiling`)."""
     hit = np.zeros(len(range(0, end, control_steps)), dtype=bool)
+    if getattr(trace, "has_power_columns", False):
+        ref = supply_ceiling(trace, scenario)[:end:control_steps]
+        for i in range(1, device.n_wheels + 1):
+            hit |= (np.abs(trace.wheel(i, "voltage")[:end:control_steps]) >= ref * (1.0 - SATURATION_REL_TOL)) & (ref > 0.0)
+        return int(np.count_nonzero(hit))
     for i, w in enumerate(device.wheels, start=1):
         hit |= np.abs(trace.wheel(i, "voltage")[:end:control_steps]) >= w.supply_v * (1.0 - SATURATION_REL_TOL)
     return int(np.count_nonzero(hit))
+
+
+def _power(result, wheels: list[dict]) -> dict:
+    """Through the power chain: the one-wheel power keys over the shared bus (`sim.run.metrics.power_metrics`;
+    each event names its wheel, null for the bus's own), each wheel's own figures added to its entry in
+    `wheels` (trips, dead-band share, reversals, peak winding temperature when coupled), and the wheel
+    speed margin at the sagged bus per wheel (`sag_speed_margin`: 1 - peak |w| k_e / V_min)."""
+    out = power_metrics(result)
+    v_min = out["min_supply_voltage_v"]
+    for entry, own, unit in zip(wheels, result.power["wheels"], result.device.wheels):
+        entry.update(own)
+        entry["sag_speed_margin"] = (1.0 - entry["peak_speed_rad_s"] * unit.k_e_v_s_rad / v_min) if v_min > 0 else None
+    return out

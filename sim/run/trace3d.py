@@ -11,14 +11,18 @@ from __future__ import annotations
 
 import numpy as np
 
-from .trace import Trace, csv_field
+from .trace import POWER_CSV_COLUMNS, Trace, csv_field
 
 
-def column_names(*, ball: bool, n_wheels: int, floor: bool = False) -> tuple[tuple[str, str], ...]:
+def column_names(*, ball: bool, n_wheels: int, floor: bool = False, power: bool = False) -> tuple[tuple[str, str], ...]:
     """(attribute, CSV name) of every numeric column, in CSV order. A body on the floor adds the
     balancing contact's world position, whether the body touches the floor (1/0) and |F_t| / F_n of
     its floor contacts (`sim.run.floor_contact`), after the others; a floor body balancing on an edge
-    (designed as on a hinge) also records its whole attitude (`tilt_y_rad`, `heading_rad`): it is free."""
+    (designed as on a hinge) also records its whole attitude (`tilt_y_rad`, `heading_rad`): it is free.
+    A trial through the power chain (`power`) adds the shared bus last, named as on one wheel
+    (`sim.run.trace.POWER_CSV_COLUMNS`): its voltage at each step's start and the step's mean bus
+    current, the sum over the wheels (written every step, not held); each wheel's voltage column then
+    holds the mean voltage its bridge applied, as the one-wheel trace's does."""
     axes = ("x", "y", "z") if ball else ("x",)
     cols = [("t", "t_s"), ("tilt", "tilt_rad"), ("tilt_x", "tilt_x_rad")]
     if ball or floor:
@@ -35,6 +39,8 @@ def column_names(*, ball: bool, n_wheels: int, floor: bool = False) -> tuple[tup
         cols += [("contact_x", "contact_x_m"), ("contact_y", "contact_y_m"), ("contact_z", "contact_z_m"),
                  ("in_contact", "in_contact"),
                  ("friction_ratio", "friction_ratio")]
+    if power:
+        cols += [("bus_volts", POWER_CSV_COLUMNS[0]), ("bus_amps", POWER_CSV_COLUMNS[1])]
     return tuple(cols)
 
 
@@ -42,14 +48,29 @@ class Trace3D(Trace):
     """Preallocated columns (`column_names`) for `capacity` rows; `n` rows are filled."""
 
     def __init__(self, capacity: int, *, step_s: float, ball: bool, n_wheels: int, floor: bool = False,
-                 shared: bool = False):
+                 shared: bool = False, power: bool = False):
         self.ball, self.n_wheels = ball, n_wheels
-        self.csv_names = column_names(ball=ball, n_wheels=n_wheels, floor=floor)
+        self.csv_names = column_names(ball=ball, n_wheels=n_wheels, floor=floor, power=power)
         self.FLOAT_COLUMNS = tuple(attr for attr, _ in self.csv_names)
         super().__init__(capacity, step_s=step_s, shared=shared)   # shared: an isolated trial (`Trace`)
 
     def columns(self) -> dict[str, np.ndarray]:
         return {name: getattr(self, attr)[: self.n] for attr, name in self.csv_names}
+
+    @property
+    def has_power_columns(self) -> bool:
+        """True for a trial through the power chain (the bus columns are recorded)."""
+        return "bus_volts" in self.FLOAT_COLUMNS
+
+    @property
+    def supply_voltage(self) -> np.ndarray:
+        """The bus voltage column (all rows), V; power-chain traces only."""
+        return self.bus_volts
+
+    @property
+    def bus_current(self) -> np.ndarray:
+        """The bus current column (all rows, the sum over the wheels), A; power-chain traces only."""
+        return self.bus_amps
 
     def wheel(self, i: int, quantity: str) -> np.ndarray:
         """Wheel i's (from 1) filled column of `quantity` (speed, angle, voltage, current, torque)."""

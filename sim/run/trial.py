@@ -189,6 +189,7 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
     t_volt, t_cur, t_torq, t_mode = (memoryview(c) for c in (trace.voltage, trace.current, trace.torque, trace.mode))
     t_ma, t_mr, t_mw = (memoryview(c) for c in (trace.meas_angle, trace.meas_rate, trace.meas_wheel))
     read, advance = engine.io()
+    reading.supply_v = float(scenario.drive.supply)    # the bus as it stands, per tick through a chain
     command = strategy.command if strategy is not None else None
     if command is not None and hasattr(sensors, "wrap"):
         command = sensors.wrap(command)     # an estimator runs first, in the strategy's time window
@@ -224,6 +225,8 @@ def _loop(scenario, device, engine, sensors, trace, strategy, failure, stop_earl
             reading.t_s, reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = t, meas[0], meas[1], meas[2]
             # the vector form too, so a law written for it reads a one-wheel hinge device as well
             reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = (meas[0],), (meas[1],), (meas[2],)
+            if chain is not None:
+                reading.supply_v = chain.supply.volts
             ticks += 1
             t_ma[k], t_mr[k], t_mw[k] = meas  # before the call: an isolated child may never come back
             try:

@@ -2,7 +2,10 @@
 
 The loop, per physics step: read the body's attitude and rate and the wheels' states -> (on
 control ticks) the sensors, one suite per axis -> the strategy's volts, one per wheel -> each
-wheel's drive and motor -> friction and pushes -> engine step. As on the planar runner, a strategy
+wheel's drive and motor -> friction and pushes -> engine step. Each wheel's drive is one
+`update(volts, wheel_speed) -> (current, torque)` per step: its motor on the ideal source, or, with any
+power key, its chain on the bus every wheel shares (`sim.physics.drive.shared_chains`, built in
+`_simulate`); the bus steps once the last wheel has, and its columns go into the trace at the end. As on the planar runner, a strategy
 that raises, returns nonsense or runs past its time budget, and a state that turns non-finite or
 absurd, end the trial with an outcome, never an exception.
 
@@ -36,6 +39,7 @@ from ..model.floor import start_attitude
 from ..physics.engine3d import Engine3D
 from ..physics.brake import BrakeRamp
 from ..physics.engine_floor import FloorEngine
+from ..physics.drive import shared_chains, shared_summary
 from ..physics.motor import MotorDrive
 from ..physics.sensors import SensorSuite
 from ..strategies import plugins_in
@@ -101,7 +105,7 @@ def _trace(scenario, device: Device3D, **shared) -> Trace3D:
     """The trial's trace; with `beat=` a shared one that publishes its phases (isolated trials)."""
     kind = PublishedTrace3D if shared else Trace3D
     return kind(scenario.n_steps, step_s=scenario.world.step, ball=device.mount == "ball",
-                n_wheels=device.n_wheels, floor=device.floor is not None, **shared)
+                n_wheels=device.n_wheels, floor=device.floor is not None, power=scenario.power_model, **shared)
 
 
 def _simulate(scenario, device, trace, clock, *, seed, stop_early, on_step, angle_bias_rad=None) -> TrialResult3D:
@@ -118,9 +122,23 @@ def _simulate(scenario, device, trace, clock, *, seed, stop_early, on_step, angl
         for suite, bias in zip(suites, angle_bias_rad or ()):
             suite.angle_bias = float(bias)
         return with_strategy(scenario, device, rng, clock, lambda strategy, failure: _loop(
-            scenario, device, engine, suites, trace, strategy, failure, stop_early, clock, on_step))
+            scenario, device, engine, suites, trace, strategy, failure, stop_early, clock, on_step,
+            power=_power_chains(scenario, device, strategy, dt, n)))
     finally:
         engine.close()
+
+
+def _power_chains(scenario, device: Device3D, strategy, dt: float, n: int):
+    """(bus, one chain per wheel) through the power chain (`sim.physics.drive.shared_chains`: one pack
+    or bench supply shared by every wheel's bridge), or None without a power key (today's ideal source)."""
+    if not scenario.power_model:
+        return None
+    bus, chains = shared_chains(scenario, [_WheelMotor(device, i) for i in range(device.n_wheels)],
+                                step_s=dt, record_steps=n)
+    if strategy is not None and getattr(strategy, "commands_duty", False):
+        for chain in chains:    # a law writing PWM duties answers in volts at the nominal supply (as on one wheel)
+            chain.duty_base_v = device.supply_v
+    return bus, chains
 
 
 def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step, angle_bias_rad=None) -> TrialResult3D:
@@ -190,7 +208,8 @@ def _push_schedule(scenario, dt: float) -> list[tuple[int, tuple[float, float, f
     return sorted(((k, tuple(float(x) for x in v)) for k, v in torques.items()), reverse=True)
 
 
-def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early, clock, on_step) -> TrialResult3D:
+def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early, clock, on_step,
+          power=None) -> TrialResult3D:
     dt, n, cs = scenario.world.step, scenario.n_steps, scenario.control_steps
     outcome, message = ("strategy_failed", failure) if failure else (None, None)
     ball, nw = device.mount == "ball", device.n_wheels
@@ -200,8 +219,12 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     wants_balance = strategy is not None and strategy.goal == "balance"
     again = bool(getattr(strategy, "swings_up", False))   # a law that can get the body up again after a fall
     supply = float(scenario.drive.supply)
-    motors = [MotorDrive(_WheelMotor(device, i), step_s=dt) for i in wheels]
+    # each wheel's per-step call: its motor on the ideal source, or its chain on the shared bus (`power`)
+    motors = power[1] if power else [MotorDrive(_WheelMotor(device, i), step_s=dt) for i in wheels]
     updates = [m.update for m in motors]
+    floats = [m.float_winding for m in motors] if power else [_open_winding(m) for m in motors]
+    bus_supply = power[0].supply if power else None
+    reading.supply_v = supply
     pushes = _push_schedule(scenario, dt)
     next_push, push_torque = pushes.pop() if pushes else (-1, None)
     wheel_limit = [ABSURD_WHEEL_FACTOR * w.no_load_speed_rad_s + 100.0 for w in device.wheels]
@@ -272,6 +295,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
             speeds = tuple([m[2] for m in meas[:nw]])
             reading.t_s, reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = t, angles, rates, speeds
             reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = angles[0], rates[0], speeds[0]
+            if bus_supply is not None:
+                reading.supply_v = bus_supply.volts
             for j in range(n_angles):
                 m_angle[j][k] = angles[j]
             for j in range(n_rates):
@@ -319,7 +344,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                     outcome = "fell" if stop_early and not again else None   # with stop_early this step still runs
         if open_circuit:
             for i in wheels:
-                motors[i].current = i_c[i][k] = tq_c[i][k] = 0.0
+                i_c[i][k], tq_c[i][k] = floats[i]()
             net = [-b * s for b, s in zip(bw, wspd)]
         else:
             net = []
@@ -341,18 +366,21 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     if watch is not None:
         outcome = watch.outcome(outcome, fell_k)
     result = _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, wants_balance,
-                     ticks, saturated, wall)
+                     ticks, saturated, wall, power=power)
     if watch is not None:
         result.floor = watch.summary(engine, dt)
         result.cause, result.cause_detail = floor_cause(result) or (result.cause, result.cause_detail)
     return result
 
 def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, wants_balance,
-            ticks, saturated, wall) -> TrialResult3D:
-    """Close the trace, zero the voltages after a failure's row, judge the outcome and its cause."""
+            ticks, saturated, wall, power=None) -> TrialResult3D:
+    """Close the trace, zero the voltages after a failure's row, judge the outcome and its cause.
+    `power`: (bus, chains) of a trial through the power chain: its columns go into the trace."""
     ended = close_trace(trace, outcome=outcome, k=k, n=scenario.n_steps, dt=scenario.world.step,
                         fell_k=fell_k if outcome != "slipped" else None)
     _hold_tick_values(trace, scenario.control_steps)
+    if power:
+        _power_columns(trace, power[0])
     if outcome in ("diverged", "strategy_failed") and k < scenario.n_steps:
         for i in range(1, device.n_wheels + 1):
             getattr(trace, f"w{i}_voltage")[k] = 0.0
@@ -362,10 +390,29 @@ def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fel
         outcome=outcome, message=message, trace=trace, device=device, scenario=scenario,
         caught_at_s=catch_k * dt if (catch_k and outcome == "balanced") else None,
         fell_at_s=fell_k * dt if fell_k is not None else None, ended_at_s=ended,
-        control_ticks=ticks, saturated_ticks=saturated, wall_s=wall, strategy=strategy)
+        control_ticks=ticks, saturated_ticks=saturated, wall_s=wall, strategy=strategy,
+        power=shared_summary(*power) if power else None)
     from .causes3d import find_cause3d
     result.cause, result.cause_detail = find_cause3d(result)
     return result
+
+
+def _power_columns(trace: Trace3D, bus) -> None:
+    """The bus's columns into the trace, and each wheel's applied voltage in place of its command (a
+    bridge's mean voltage over the step, as the one-wheel trace records through the power chain)."""
+    n = trace.n
+    cols = bus.columns
+    trace.bus_volts[:n], trace.bus_amps[:n] = cols["supply_voltage_v"][:n], cols["bus_current_a"][:n]
+    for i, applied in enumerate(cols["applied_v"], start=1):
+        getattr(trace, f"w{i}_voltage")[:n] = applied[:n]
+
+
+def _open_winding(motor: MotorDrive):
+    """A strategy's `open_circuit` for a motor on the ideal source: no current, no torque."""
+    def step() -> tuple[float, float]:
+        motor.current = 0.0
+        return 0.0, 0.0
+    return step
 
 
 def _hold_tick_values(trace: Trace3D, cs: int) -> None:

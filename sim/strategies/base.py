@@ -35,7 +35,7 @@ class Reading:
     """
 
     __slots__ = ("t_s", "angle_rad", "rate_rad_s", "wheel_speed_rad_s", "angles_rad", "rates_rad_s",
-                 "wheel_speeds_rad_s", "imu_gyro_rad_s", "imu_accel_m_s2")
+                 "wheel_speeds_rad_s", "imu_gyro_rad_s", "imu_accel_m_s2", "supply_v")
 
     def __init__(self) -> None:
         self.t_s = 0.0
@@ -49,6 +49,10 @@ class Reading:
         # (the errors of sensors.imu applied), rad/s and m/s^2; empty without one
         self.imu_gyro_rad_s: tuple[float, ...] = ()
         self.imu_accel_m_s2: tuple[float, ...] = ()
+        # the supply as it stands at the tick, V: the scenario's drive.supply on an ideal source, the
+        # shared bus's voltage through a 3D device's power chain (a sagging pack gives less); inf when
+        # the runner sets none
+        self.supply_v = math.inf
 
 
 class Strategy:
@@ -70,7 +74,9 @@ class Strategy:
        wheel speed and time), never the true state or the engine.
     3. Limits. The runner's drive clamps the voltage to +-supply, the supply the scenario
        states (`drive.supply`): `self.supply_v` is a copy for the law to read, and changing it,
-       the device or `command` itself never gets more than the supply applied. A tick whose
+       the device or `command` itself never gets more than the supply applied. Through the power
+       chain a bridge applies at most the bus as it stands, which `reading.supply_v` reports each
+       tick (a sagging pack gives less than `self.supply_v`). A tick whose
        voltage reaches the supply counts in `voltage_saturated_fraction`. A non-finite voltage
        ends the trial with outcome `strategy_failed`, as does anything `decide` or `__init__`
        raises: any exception, `sys.exit`, KeyboardInterrupt or another BaseException (a real

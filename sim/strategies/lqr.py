@@ -90,7 +90,8 @@ class MultiWheelLqr(LqrBalance):
     tilt_y, rate_x, rate_y, (rate_z when a wheel acts about the vertical), wheel speeds...], read
     from the reading's vector form (`angles_rad`, `rates_rad_s`, `wheel_speeds_rad_s`). With a
     sensor delay the gains act on the present state predicted from the delayed reading and the
-    commands applied since (each clamped to its wheel's supply, as the drive does), folded into
+    commands applied since (each clamped to its wheel's supply, and to the bus the reading reports
+    when a pack has sagged below it, as the bridges do), folded into
     gains on the reading and on the held commands once at construction.
     `decide` returns a list of volts in wheel order.
     """
@@ -109,6 +110,7 @@ class MultiWheelLqr(LqrBalance):
         self._n_angles, self._n_rates, self._n_wheels = kinds.count(0), kinds.count(1), kinds.count(2)
         self.supplies_v = np.array([w.supply_v for w in self.spec.wheels], dtype=float)
         self._supplies = self.supplies_v.tolist()
+        self._lowest_supply_v = min(self._supplies)
         # one matrix on one buffer [measured state, held commands oldest first], so that a tick is a
         # few numpy calls whatever the delay (the same law as K times the predicted state)
         self._G = np.hstack([G_x, *G_u])
@@ -143,5 +145,8 @@ class MultiWheelLqr(LqrBalance):
         v = [-x for x in self._G.dot(z).tolist()]
         if held:            # a delay: drop the oldest held commands, append this tick's as the drive applies them
             del held[:self._n_u]
-            held += [s if x > s else (-s if x < -s else x) for x, s in zip(v, self._supplies)]
+            caps, bus = self._supplies, reading.supply_v
+            if bus < self._lowest_supply_v:     # a sagging pack: the bridges give at most the bus
+                caps = [c if c < bus else bus for c in caps]
+            held += [s if x > s else (-s if x < -s else x) for x, s in zip(v, caps)]
         return v

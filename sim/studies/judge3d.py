@@ -7,6 +7,7 @@ motor at its own RMS current. A row also names that wheel (`worst_wheel`, 1-base
 
 from __future__ import annotations
 
+from ..run.metrics import POWER_ROW_KEYS
 from ..run.metrics3d import trial_metrics3d
 from ..run.trial import run_trial
 from .thermal import trial_rms_current_a, winding_check
@@ -55,6 +56,8 @@ def judge_trial3d(scenario, *, seed: int, per_wheel: bool = False) -> dict:
         "winding_temperature_c": max(wheel_temperatures_c(result)),
         "pushes_survived": sum(p["survived"] for p in m["pushes"]), "pushes": len(m["pushes"]),
     }
+    if "min_supply_voltage_v" in m:     # the power chain ran: the planar row's power figures, over the bus
+        row = {k: m[k] for k in POWER_ROW_KEYS} | row
     if per_wheel:
         row.update({"peak_tilt_rad": m["peak_tilt_rad"], "wheel_count": m["wheel_count"], "mount": m["mount"]})
         for i, w in enumerate(m["wheels"], start=1):

@@ -13,7 +13,7 @@ import numpy as np
 
 from ..model.scenario import validate_scenario
 from ..model.tolerances import perturbed_raw, scenario_tolerances, trial_seed, wilson_interval
-from ..run.metrics import trial_metrics
+from ..run.metrics import POWER_ROW_KEYS, trial_metrics
 from ..run.parallel import run_tasks
 from ..run.trial import run_trial
 from .thermal import trial_rms_current_a, winding_check
@@ -23,8 +23,6 @@ def outcome_with_cause(m: dict) -> str:
     """A run's outcome for a criterion's note, with its cause when it failed: "fell (bias_drift)"."""
     return f"{m['outcome']} ({m['cause']})" if m.get("cause") else m["outcome"]
 
-POWER_ROW_KEYS = ("min_supply_voltage_v", "peak_supply_voltage_v", "charge_used_mah", "driver_trips")
-"""The power chain's figures a judged row carries when the chain ran (sweep's results.csv adds them)."""
 
 
 def judge_trial(scenario, *, seed: int) -> dict:

@@ -5,14 +5,15 @@
   open-circuit voltage is the cut-off (the sag under load brings the cut-off sooner: a best case).
   Limit: `requirements.run_time`.
 - `sag_wheel_speed_margin`: the wheel-speed margin at the sagged bus, 1 - peak |w| / (V_min / k_e),
-  the lowest over the nominal and hold runs. Limit: `requirements.wheel_speed_margin`.
+  the lowest over the nominal and hold runs (on a 3D device over every wheel, each with its own k_e,
+  at the shared bus's low). Limit: `requirements.wheel_speed_margin`.
 - `peak_bus_voltage_v`: the bus's peak in a braking trial (body locked upright, the wheel starting
   at the fastest speed the wheel-speed margin allows, braked at the greatest regenerated power: a
   voltage-mode drive holds half the start's back-EMF, since the power v (v - k_e w) / R returned is
   largest at v = k_e w / 2; a current-mode drive commands the full reverse current). Limit:
   `drive.max_bus_voltage`, else a pack's highest charge voltage (LiPo and Li-ion 4.20 V per cell,
   references.md safety; NiMH 1.5 V per cell, common practice, no source); a bench supply with
-  neither is not judged.
+  neither is not judged. A 3D device brakes every wheel at once into the shared bus (`braking_raw3d`).
 - `driver_trips`: over-current trips over the nominal, hold and braking runs; limit 0.
 """
 
@@ -47,10 +48,35 @@ def braking_raw(raw: dict, sc) -> dict:
     return out
 
 
+def braking_raw3d(raw: dict, sc) -> dict:
+    """The raw scenario of a 3D device's braking trial: every wheel at the fastest speed the wheel-speed
+    margin allows (its own no-load speed times 1 - margin), all braked at once into the shared bus at
+    half their back-EMF (the same volts for every wheel: (1 - margin) supply / 2), the body upright at
+    rest. A 3D body cannot be locked: it is free and tips under the wheels' reaction, which the bus
+    peak, reached within the wheels' first time constants, hardly feels."""
+    from ..model.device3d import Device3D
+    dev = Device3D.from_scenario(sc)
+    share = 1.0 - sc.requirements.wheel_speed_margin
+    out = copy.deepcopy(raw)
+    out.pop("tolerances", None)
+    start = {"wheel_speed": [share * w.no_load_speed_rad_s for w in dev.wheels]}
+    if sc.body.mount == "floor":      # resting as the scenario starts it
+        start = {**((raw.get("trial") or {}).get("start") or {}), **start}
+    else:
+        start |= {"tilt": [0.0, 0.0]} if sc.design_mount == "ball" else {"angle": 0.0, "rate": 0.0}
+    out["trial"] = {"duration": BRAKING_S, "start": start, "seed": sc.trial.seed}
+    out["strategy"] = {"kind": "fixed_voltage", "volts": 0.5 * share * sc.drive.supply}
+    return out
+
+
 def braking_trial(raw: dict, sc, where: str):
-    """(TrialResult, metrics) of the braking trial."""
-    result = run_trial(validate_scenario(braking_raw(raw, sc), where=where))
-    return result, trial_metrics(result)
+    """(TrialResult, metrics) of the braking trial (a 3D device's: `braking_raw3d`)."""
+    if sc.is_planar:
+        result = run_trial(validate_scenario(braking_raw(raw, sc), where=where))
+        return result, trial_metrics(result)
+    from ..run.metrics3d import trial_metrics3d
+    result = run_trial(validate_scenario(braking_raw3d(raw, sc), where=where))
+    return result, trial_metrics3d(result)
 
 
 def bus_voltage_limit(sc) -> tuple[float | None, str]:
@@ -101,20 +127,25 @@ def power_criteria(sc, metrics: dict, braking: dict, criterion) -> list[dict]:
     margins = []
     for name in ("nominal", "hold"):
         m = metrics[name]
-        if m["peak_wheel_speed_rad_s"] is not None and m["min_supply_voltage_v"] > 0:
+        if "wheels" in m:       # a 3D device: each wheel's margin at the shared bus's low (`metrics3d`)
+            margins += [(w["sag_speed_margin"], f"{name} run, wheel {i}", m["min_supply_voltage_v"])
+                        for i, w in enumerate(m["wheels"], start=1) if w.get("sag_speed_margin") is not None]
+        elif m["peak_wheel_speed_rad_s"] is not None and m["min_supply_voltage_v"] > 0:
             limit_w = m["min_supply_voltage_v"] / sc.motor.k_e
-            margins.append((1.0 - m["peak_wheel_speed_rad_s"] / limit_w, name, m["min_supply_voltage_v"]))
+            margins.append((1.0 - m["peak_wheel_speed_rad_s"] / limit_w, f"{name} run", m["min_supply_voltage_v"]))
     if margins:
         value, name, v_min = min(margins)
         out.append(criterion("sag_wheel_speed_margin", value, req.wheel_speed_margin, value >= req.wheel_speed_margin,
-                             f"{name} run: no-load speed at the sagged {v_min:.2f} V bus"))
+                             f"{name}: no-load speed at the sagged {v_min:.2f} V bus"))
     else:
         out.append(criterion("sag_wheel_speed_margin", None, req.wheel_speed_margin, False, "could not be found"))
     limit, basis = bus_voltage_limit(sc)
     peak = braking["peak_supply_voltage_v"]
     if limit is not None:
+        setup = ("body locked, wheel braked from its margin speed" if "wheels" not in braking else
+                 "every wheel braked at once from its margin speed into the shared bus, the body free")
         out.append(criterion("peak_bus_voltage_v", peak, limit, peak <= limit and braking["cause"] != "bus_over_voltage",
-                             f"braking trial (body locked, wheel braked from its margin speed); limit: {basis}"))
+                             f"braking trial ({setup}); limit: {basis}"))
     trips = sum(int(m.get("driver_trips") or 0) for m in (*metrics.values(), braking))
     out.append(criterion("driver_trips", trips, 0, trips == 0, "over the nominal, hold and braking runs"))
     return out

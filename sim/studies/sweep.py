@@ -342,11 +342,11 @@ def write_results_csv(path: Path, varies: list[Vary], journal_path: Path) -> Non
 
     Streamed from the journal (rows are in finishing order there): one pass finds each point's
     line, a second writes them in point order, so memory is one offset per point, not one row.
-    When any point ran through the power chain, its figures (`monte_carlo.POWER_ROW_KEYS`) follow the
+    When any point ran through the power chain, its figures (`sim.run.metrics.POWER_ROW_KEYS`) follow the
     metric columns (blank for points without it); a sweep without one has exactly the columns it had.
     Points of a 3D device add `peak_tilt_rad`, `wheel_count` and each wheel's figures last.
     """
-    from .monte_carlo import POWER_ROW_KEYS
+    from ..run.metrics import POWER_ROW_KEYS
     columns = [v.key for v in varies] + list(METRIC_COLUMNS)
     offsets = np.full(int(np.prod([len(v.values) for v in varies])), -1, dtype=np.int64)
     power, wheels = False, 0

@@ -14,7 +14,10 @@ Criteria (each a value against a `requirements` limit; a value that could not be
 - `wheel_burst_safety_factor`: each wheel's parts at its own runaway speed (its no-load speed at
   full supply), the weakest judged;
 - `monte_carlo_pass_fraction`;
-- `step_halving_change`: the scenario's own trial again at half the physics step (`sim.studies.step_check`).
+- `step_halving_change`: the scenario's own trial again at half the physics step (`sim.studies.step_check`);
+- through the power chain (a battery or a drive model), the one-wheel power criteria over the shared bus
+  (`sim.studies.power_checks`): run time on a charge, the sag margin of the worst wheel, the bus's peak in
+  a braking trial with every wheel braked at once, and the drivers' trips.
 """
 
 from __future__ import annotations
@@ -65,18 +68,26 @@ def run_check3d(raw: dict, where: str, *, trials: int, workers=None, cluster=Non
     twin = check3d.axis_twin(raw, where, sc, device, seed=sc.trial.seed, on_stage=stage)
     stage(f"the scenario's own trial at half the step ({sc.world.step / 2 * 1e3:g} ms)")
     conv = step_convergence(sc, coarse=runs["nominal"])
-    verdict = build_verdict3d(sc, device, runs, metrics, pushes, mc, holds, twin, conv)
-    return CheckOutcome(verdict=verdict, runs=runs, pushes=pushes, mc_rows=mc["rows"] if mc else [])
+    power, braking_run = None, {}
+    if sc.power_model:
+        from .power_checks import braking_trial, power_criteria
+        stage("braking trial, every wheel at once")
+        braking_run["braking"], braking = braking_trial(raw, sc, where)
+        power = power_criteria(sc, metrics, braking, _criterion)
+    verdict = build_verdict3d(sc, device, runs, metrics, pushes, mc, holds, twin, conv, power_criteria=power)
+    return CheckOutcome(verdict=verdict, runs=runs | braking_run, pushes=pushes, mc_rows=mc["rows"] if mc else [])
 
 
 def build_verdict3d(sc, device, runs: dict, metrics: dict, pushes: dict, mc: dict | None, holds: list[dict],
-                    twin: dict | None, conv: dict | None = None) -> dict:
+                    twin: dict | None, conv: dict | None = None, *, power_criteria: list[dict] | None = None) -> dict:
     """Criteria and the verdict dictionary written to verdict.json (SI, units in the keys); `conv`: the
-    step-halving figures (`sim.studies.step_check`), judged as `step_halving_change` (None: left out)."""
+    step-halving figures (`sim.studies.step_check`), judged as `step_halving_change` (None: left out);
+    `power_criteria`: `sim.studies.power_checks.power_criteria`'s, appended (None: none)."""
     worst_dir = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
     wheels = wheel_figures(sc, device, runs, metrics)
     crit = (_run_criteria(sc, metrics, pushes, worst_dir, wheels) + [runaway_criterion3d(sc, holds)]
-            + _static_criteria(sc, device, runs["hold"], wheels, mc) + ([step_criterion(conv)] if conv else []))
+            + _static_criteria(sc, device, runs["hold"], wheels, mc) + ([step_criterion(conv)] if conv else [])
+            + (power_criteria or []))
     return {
         "passed": all(c["passed"] for c in crit),
         "scenario": sc.source, "name": sc.name, "strategy": sc.strategy.kind,
