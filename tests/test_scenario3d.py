@@ -51,10 +51,13 @@ def test_vector_keys_parse_with_units():
                             trial={"start": {"wheel_speed": [1.0, 2.0]}}), "trial.start.wheel_speed"),
     (lambda raw: raw.update(wheels=[{"at": 0.2, "parts": [{"shape": "point", "mass": 0.1}]}], wheel=None),
      "wheels[0].parts: the wheel's spin inertia is 0"),
-    (lambda raw: raw.update(body=BALL, timing={"jitter": 0.0001}), "timing: the IMU, estimator"),
+    (lambda raw: raw.update(body=BALL, sensors={"imu": {"at": [0, 0, 0.1]}, "estimator": {"kind": "kalman"}}),
+     "sensors.estimator.kind: kalman gives one tilt"),
+    (lambda raw: raw.update(body=BALL, sensors={"imu": {"gyro": {"nois_density": 0.01}}}), "sensors.imu.gyro"),
+    (lambda raw: raw.update(body=BALL, timing={"jitter": 1.0}), "timing.jitter"),
     (lambda raw: raw.update(body=BALL, battery={"chemistry": "lipo", "cells": 3, "capacity": "1 A*h", "internal_resistance": 0.05}, drive={"supply": None}),
      "the power chain"),
-    (lambda raw: raw.update(body=BALL, sensors={"wheel": {"max_speed": 100.0}}), "sensors.wheel.max_speed"),
+    (lambda raw: raw.update(body=BALL, sensors={"wheel": {"max_speed": -100.0}}), "sensors.wheel.max_speed"),
 ])
 def test_bad_3d_keys_are_refused_in_one_line_naming_the_key(change, key):
     raw = scenario_dict()

@@ -1,0 +1,186 @@
+"""An IMU and its estimator on 3D devices (sim.physics.imu_sensing3d, the estimators' vector form).
+
+Sources: an accelerometer measures specific force, its acceleration minus gravity, so a body at rest
+reads f = R^T (a - g) = -R^T g in its own axes (Groves, Principles of GNSS, Inertial, and Multisensor
+Integrated Navigation Systems, 2nd ed., 2013, ch. 2; from memory); rotation matrices from Euler
+angles by scipy.spatial.transform.Rotation (an independent implementation of R = Rz Ry Rx); the
+complementary filter is the first-order low-pass 1/(tau s + 1) on the accelerometer's tilt plus
+tau/(tau s + 1) on the gyro rate (common practice, no source; references.md, Sensing), here
+discretised by the backward difference s = (1 - 1/z)/dt, compared with scipy.signal.cont2discrete
+and dlsim; its steady tilt error under a gyro bias b is tau b (the same transfer function at s = 0).
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+import scipy.signal
+from numpy.testing import assert_allclose
+from scipy.spatial.transform import Rotation
+
+from sim.model.device3d import Device3D
+from sim.model.scenario_yaml import load_scenario
+from sim.physics.imu_sensing3d import body_motion, upright_turn
+from sim.run.metrics3d import trial_metrics3d
+from sim.run.trial import run_trial
+from sim.strategies.estimators import accel_tilts, resolve_estimator
+
+ROOT = Path(__file__).resolve().parent.parent
+CUBE_IMU = ROOT / "scenarios" / "cube_imu.yaml"
+G = 9.81
+IDEAL_IMU = ("sensors.imu.gyro={}", "sensors.imu.accel={}")   # no noise, bias, range or resolution
+
+
+def _complementary(tau: float, dt: float):
+    return resolve_estimator({"kind": "complementary", "time_constant": tau}, base_dir=Path.cwd()).build(
+        period_s=dt, gravity_m_s2=G)
+
+
+def _at_rest(tilt_x: float, tilt_y: float) -> tuple:
+    """The upright-frame specific force of a body at rest at these tilts: A^T (0, 0, g), A = Ry Rx."""
+    a = Rotation.from_euler("ZYX", [0.0, tilt_y, tilt_x]).as_matrix()
+    return tuple(a.T @ np.array([0.0, 0.0, G]))
+
+
+@pytest.mark.parametrize("tx, ty, hd", [(0.1, -0.05, 0.0), (-0.3, 0.2, 1.2), (0.02, 0.4, -2.5)])
+def test_a_still_tilted_body_reads_minus_r_transpose_g(tx, ty, hd):
+    # the IMU's truth from a 3D trace row, against R = Rz(heading) Ry(tilt_y) Rx(tilt_x) U from scipy
+    sc = load_scenario(CUBE_IMU)
+    device = Device3D.from_scenario(sc)
+    u = np.array(upright_turn(device))
+    r_wb, w_body = body_motion(tx, ty, hd, (0.0, 0.0, 0.0), tuple(map(tuple, u)))
+    expected_r = Rotation.from_euler("ZYX", [hd, ty, tx]).as_matrix() @ u
+    assert_allclose(np.array(r_wb), expected_r, atol=1e-12)
+    from sim.physics.imu import ImuModel
+    imu = ImuModel(sc.sensors.imu.model_copy(update={"gyro": type(sc.sensors.imu.gyro)(),
+                                                      "accel": type(sc.sensors.imu.accel)()}),
+                   rate_hz=1000.0, gravity_m_s2=G, rng=np.random.default_rng(0))
+    gyro, accel = imu.sample(0.0, r_wb, w_body, (0.0, 0.0, 0.0))
+    # specific force at rest: -R^T g with g = (0, 0, -9.81) (Groves, ch. 2)
+    assert_allclose(accel, expected_r.T @ np.array([0.0, 0.0, G]), atol=1e-12)
+    assert_allclose(gyro, (0.0, 0.0, 0.0), atol=1e-15)
+
+
+def test_the_body_rate_for_the_gyro_is_the_engines_own():
+    # the rate turned from the trace's heading frame into the body frame, against pybullet's state read
+    # through the engine's own attitude and world-rate calls at the same step
+    sc = load_scenario(CUBE_IMU, overrides=(*IDEAL_IMU, "sensors.delay=0", "sensors.imu.rate=500 Hz",
+                                            "trial.duration=1 s", "trial.pushes=[]"))
+    seen = {}
+
+    def record(k, engine):
+        r = np.array(engine.attitude())
+        seen[k + 1] = r.T @ np.array(engine.body_rate_world())
+    res = run_trial(sc, on_step=record)
+    tr = res.trace
+    rows = [k for k in range(2, 500, 2) if k in seen]
+    gyro = np.array([[tr.imu_gyro_x_rad_s[k], tr.imu_gyro_y_rad_s[k], tr.imu_gyro_z_rad_s[k]] for k in rows])
+    truth = np.array([seen[k] for k in rows])
+    assert np.max(np.abs(truth)) > 0.01      # the body did move
+    assert_allclose(gyro, truth, atol=1e-9)
+
+
+def test_the_start_rows_accelerometer_is_gravity_in_body_axes():
+    # end to end: the cube starts at rest, tilted; row 0's accelerometer is -R^T g (Groves, ch. 2)
+    sc = load_scenario(CUBE_IMU, overrides=(*IDEAL_IMU, "trial.duration=0.01 s", "trial.pushes=[]"))
+    res = run_trial(sc)
+    tr = res.trace
+    tx, ty = float(tr.tilt_x[0]), float(tr.tilt_y[0])
+    assert_allclose((tx, ty), np.radians([2.0, -1.0]), atol=1e-9)
+    r = Rotation.from_euler("ZYX", [float(tr.heading[0]), ty, tx]).as_matrix() @ np.array(res.device.upright())
+    accel = (tr.imu_accel_x_m_s2[0], tr.imu_accel_y_m_s2[0], tr.imu_accel_z_m_s2[0])
+    assert_allclose(accel, r.T @ np.array([0.0, 0.0, G]), atol=1e-9)
+
+
+def test_accel_tilts_inverts_the_specific_force_at_rest():
+    for tx, ty in [(0.3, -0.2), (-1.0, 0.5), (2.5, 0.1)]:
+        assert_allclose(accel_tilts(_at_rest(tx, ty)), (tx, ty), atol=1e-12)
+
+
+def test_the_two_axis_filter_converges_to_a_constant_tilt():
+    tau, dt = 0.3, 2e-3
+    est = _complementary(tau, dt)
+    est.update_tilts(0.0, (0.0, 0.0, 0.0), _at_rest(0.0, 0.0))     # starts level
+    truth = (0.12, -0.07)
+    for i in range(1, int(12 * tau / dt)):
+        tilts, rates = est.update_tilts(i * dt, (0.0, 0.0, 0.0), _at_rest(*truth))
+    # a first-order approach: after 12 tau the start's error is e^-12 of itself
+    assert_allclose(tilts, truth, atol=1e-5 * 0.12)
+    assert_allclose(rates, (0.0, 0.0, 0.0), atol=1e-15)
+
+
+def test_the_two_axis_filters_steady_error_under_a_gyro_bias_is_tau_times_the_bias():
+    # the gyro path's transfer tau/(tau s + 1) at s = 0: a rate bias b leaves a tilt error tau b
+    tau, dt, b = 0.5, 2e-3, (0.002, -0.003, 0.0)
+    est = _complementary(tau, dt)
+    for i in range(int(15 * tau / dt)):
+        tilts, _ = est.update_tilts(i * dt, b, _at_rest(0.0, 0.0))
+    assert_allclose(tilts, (tau * b[0], tau * b[1]), rtol=1e-3)
+
+
+@pytest.mark.parametrize("path", ["accel", "gyro"])
+@pytest.mark.parametrize("axis", [0, 1])
+def test_the_two_axis_filter_is_the_textbook_first_order_form(path, axis):
+    # each tilt axis: accelerometer tilt through 1/(tau s + 1), gyro rate through tau/(tau s + 1),
+    # backward-difference discretised (scipy.signal.cont2discrete), step responses compared by dlsim;
+    # with one axis driven the other stays at 0, where the filter's frame turns are exact
+    tau, dt, n, step = 0.25, 2e-3, 600, 0.05
+    numd, dend, _ = scipy.signal.cont2discrete(([1.0] if path == "accel" else [tau], [tau, 1.0]), dt,
+                                               method="backward_diff")
+    _, expect = scipy.signal.dlsim((np.ravel(numd), np.ravel(dend), dt), np.full(n, step))
+    est = _complementary(tau, dt)
+    est.update_tilts(0.0, (0.0, 0.0, 0.0), _at_rest(0.0, 0.0))    # the filter's state starts at 0
+    drive = [0.0, 0.0, 0.0]
+    drive[axis] = step
+    out = []
+    for i in range(1, n + 1):
+        if path == "accel":
+            tilts, _ = est.update_tilts(i * dt, (0.0, 0.0, 0.0), _at_rest(drive[0], drive[1]))
+        else:
+            tilts, _ = est.update_tilts(i * dt, tuple(drive), _at_rest(0.0, 0.0))
+        out.append(tilts[axis])
+        assert tilts[1 - axis] == pytest.approx(0.0, abs=1e-15)
+    assert_allclose(out, np.ravel(expect), rtol=1e-9, atol=1e-12)
+
+
+def test_kalman_runs_on_a_3d_hinge_through_the_one_axis_form():
+    # a one-axis estimator keeps working on a 3D hinge: the base's update_tilts wraps its update
+    raw_est = resolve_estimator({"kind": "kalman"}, base_dir=Path.cwd())
+    est = raw_est.build(period_s=2e-3, gravity_m_s2=G)
+    tilts, rates = est.update_tilts(0.0, (0.01, 0.0, 0.0), _at_rest(0.1, 0.0))
+    assert len(tilts) == 1 and len(rates) == 1
+    assert_allclose(tilts[0], 0.1, atol=1e-12)
+
+
+def test_the_imu_cube_balances_and_its_misaligned_twin_reads_the_mounting_error():
+    good = run_trial(load_scenario(CUBE_IMU))
+    bad = run_trial(load_scenario(ROOT / "scenarios" / "cube_imu_misaligned.yaml"))
+    mg, mb = trial_metrics3d(good), trial_metrics3d(bad)
+    assert good.outcome == bad.outcome == "balanced"
+    assert mg["estimator"] == "complementary" and mg["estimator_angle_rms_error_rad"] < math.radians(0.5)
+    # 0.5 deg about the body's x edge: the estimate's steady error is of that size
+    assert math.radians(0.3) < math.hypot(*mb["estimator_tilt_mean_error_rad"]) < math.radians(0.7)
+    assert math.hypot(*mg["estimator_tilt_mean_error_rad"]) < math.radians(0.25)
+    # and the wheels settle where they hold the lean the filter misreads
+    end = [abs(float(bad.trace.wheel(i, "speed")[bad.trace.n - 1])) for i in (1, 2, 3)]
+    end_good = [abs(float(good.trace.wheel(i, "speed")[good.trace.n - 1])) for i in (1, 2, 3)]
+    assert max(end) > 2 * max(end_good)
+
+
+def test_a_filter_trusting_its_accelerometer_misreads_the_swing_and_the_cause_says_so():
+    res = run_trial(load_scenario(CUBE_IMU, overrides=("sensors.estimator.time_constant=5 ms",)))
+    assert res.outcome == "fell" and res.cause == "estimator_misread", res.cause_detail
+    assert "deg RMS" in res.cause_detail
+
+
+def test_an_imu_without_an_estimator_is_recorded_and_leaves_the_encoders_in_charge():
+    base = load_scenario(ROOT / "scenarios" / "cube_corner.yaml", overrides=("trial.duration=0.5 s", "trial.pushes=[]"))
+    with_imu = load_scenario(ROOT / "scenarios" / "cube_corner.yaml",
+                             overrides=("trial.duration=0.5 s", "trial.pushes=[]", "sensors.imu={at: [0.1, 0.1, 0.15]}"))
+    a, b = run_trial(base), run_trial(with_imu)
+    for name in a.trace.FLOAT_COLUMNS:
+        assert np.array_equal(getattr(a.trace, name)[: a.trace.n], getattr(b.trace, name)[: b.trace.n]), name
+    assert np.any(b.trace.imu_accel_z_m_s2[: b.trace.n] != 0.0)
