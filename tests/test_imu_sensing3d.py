@@ -146,13 +146,75 @@ def test_the_two_axis_filter_is_the_textbook_first_order_form(path, axis):
     assert_allclose(out, np.ravel(expect), rtol=1e-9, atol=1e-12)
 
 
-def test_kalman_runs_on_a_3d_hinge_through_the_one_axis_form():
-    # a one-axis estimator keeps working on a 3D hinge: the base's update_tilts wraps its update
-    raw_est = resolve_estimator({"kind": "kalman"}, base_dir=Path.cwd())
-    est = raw_est.build(period_s=2e-3, gravity_m_s2=G)
+def test_a_one_axis_estimator_runs_on_a_3d_hinge_and_is_refused_on_a_ball():
+    # the base's update_tilts wraps update: one tilt, about x; a ball needs two (checked at load)
+    from sim.core.errors import ScenarioError
+    from sim.model.scenario import validate_scenario
+    from sim.model.scenario_yaml import load_raw
+    from sim.strategies.estimators import Estimator, EstimatorParams, EstimatorSpec
+
+    class OneAxis(Estimator):
+        class Params(EstimatorParams):
+            pass
+
+        def update(self, t_s, gyro_rad_s, accel_m_s2):
+            return math.atan2(accel_m_s2[1], accel_m_s2[2]), gyro_rad_s[0]
+
+    est = OneAxis(params=OneAxis.Params(), period_s=2e-3, gravity_m_s2=G)
     tilts, rates = est.update_tilts(0.0, (0.01, 0.0, 0.0), _at_rest(0.1, 0.0))
     assert len(tilts) == 1 and len(rates) == 1
     assert_allclose(tilts[0], 0.1, atol=1e-12)
+    raw, where = load_raw(CUBE_IMU)
+    raw["sensors"]["estimator"] = EstimatorSpec(kind="one_axis", cls=OneAxis, params=OneAxis.Params())
+    with pytest.raises(ScenarioError) as info:
+        validate_scenario(raw, where=where)
+    msg = str(info.value)
+    assert "\n" not in msg and "sensors.estimator.kind: one_axis gives one tilt" in msg, msg
+
+
+def _kalman(dt: float, **raw):
+    return resolve_estimator({"kind": "kalman", **raw}, base_dir=Path.cwd()).build(period_s=dt, gravity_m_s2=G)
+
+
+def test_the_two_axis_kalman_finds_the_tilt_and_the_gyro_bias():
+    # unlike the complementary filter (steady error tau b), the bias state takes the gyro's bias out
+    dt, bias, truth = 2e-3, (0.01, -0.02, 0.0), (0.1, -0.05)
+    est = _kalman(dt, measurement_noise=math.radians(3.0), process_noise={"rate": 0.005, "bias": 0.001})
+    for i in range(10_000):
+        tilts, rates = est.update_tilts(i * dt, bias, _at_rest(*truth))
+    assert_allclose(tilts, truth, atol=1e-4)
+    assert_allclose([est.axes[0].bias, est.axes[1].bias], bias[:2], rtol=0.02)
+    assert_allclose(rates[:2], (0.0, 0.0), atol=5e-4)
+
+
+def test_each_axis_of_the_two_axis_kalman_reaches_the_riccati_gain():
+    # per axis: the tilt-and-bias model's steady gain, K = P C^T (C P C^T + R)^-1 with P from
+    # scipy.linalg.solve_discrete_are (Simon, Optimal State Estimation, 2006)
+    import scipy.linalg
+    dt, r = 2e-3, 0.03
+    est = _kalman(dt, measurement_noise=r, process_noise={"rate": 0.02, "bias": 0.01})
+    rng = np.random.default_rng(2)
+    for i in range(40_000):
+        est.update_tilts(i * dt, tuple(0.01 * rng.standard_normal(3)), _at_rest(*(0.01 * rng.standard_normal(2))))
+    a, c = np.array([[1.0, -dt], [0.0, 1.0]]), np.array([[1.0, 0.0]])
+    for axis in est.axes:
+        q = np.array([[axis.q11, axis.q12], [axis.q12, axis.q22]])
+        p = scipy.linalg.solve_discrete_are(a.T, c.T, q, np.array([[r * r]]))
+        p_pred = p      # the DARE's P is the predicted covariance
+        gain = p_pred @ c.T / (c @ p_pred @ c.T + r * r)
+        assert_allclose(axis.gain, gain.ravel(), rtol=1e-6)
+
+
+def test_kalman_balances_the_imu_cube_with_a_small_start_variance():
+    # the default start variance (the measurement's) gives the first ticks a gain near 1/2: on the
+    # cube the board, 0.24 m out, reads the wheels' first kick as tilt and the cube falls; a small
+    # `initial_angle` keeps the gain small from the start
+    est = "{kind: kalman, measurement_noise: 10 deg, process_noise: {rate: 0.005, bias: 0.0005}"
+    good = run_trial(load_scenario(CUBE_IMU, overrides=(f"sensors.estimator={est}, initial_angle: 0.5 deg}}",)))
+    bad = run_trial(load_scenario(CUBE_IMU, overrides=(f"sensors.estimator={est}}}",)))
+    assert good.outcome == "balanced"
+    assert trial_metrics3d(good)["estimator_angle_rms_error_rad"] < math.radians(0.5)
+    assert bad.outcome == "fell" and bad.cause == "estimator_misread"
 
 
 def test_the_imu_cube_balances_and_its_misaligned_twin_reads_the_mounting_error():
@@ -184,3 +246,72 @@ def test_an_imu_without_an_estimator_is_recorded_and_leaves_the_encoders_in_char
     for name in a.trace.FLOAT_COLUMNS:
         assert np.array_equal(getattr(a.trace, name)[: a.trace.n], getattr(b.trace, name)[: b.trace.n]), name
     assert np.any(b.trace.imu_accel_z_m_s2[: b.trace.n] != 0.0)
+
+
+# ----------------------------------------------------------------------------- the commands, end to end
+
+def test_run_on_the_imu_cube_writes_the_imu_and_estimate_columns(tmp_path):
+    from sim.cli import main
+    out = tmp_path / "out"
+    assert main(["run", str(CUBE_IMU), "--out", str(out), "--set", "trial.duration=1 s",
+                 "--set", "trial.pushes=[]"]) == 0
+    header = (out / "trace.csv").read_text().splitlines()[0].split(",")
+    for name in ("imu_gyro_x_rad_s", "imu_accel_z_m_s2", "estimated_tilt_x_rad", "estimated_tilt_y_rad",
+                 "estimated_rate_z_rad_s", "measured_tilt_y_rad"):
+        assert name in header, name
+    import json
+    metrics = json.loads((out / "metrics.json").read_text())
+    assert metrics["outcome"] == "balanced" and metrics["estimator"] == "complementary"
+    assert metrics["estimator_angle_rms_error_rad"] < math.radians(1.0)
+
+
+@pytest.mark.parametrize("setting, key", [
+    ("sensors.imu.gyro.bias_drift=0.1", "sensors.imu.gyro"),
+    ("sensors.estimator={kind: complementary}", "sensors.estimator.time_constant"),
+    ("timing.jitter=5 ms", "timing.jitter"),
+])
+def test_bad_sensing_keys_on_a_3d_device_are_one_line_and_exit_2(tmp_path, capsys, setting, key):
+    from sim.cli import main
+    out = tmp_path / "out"
+    code = main(["run", str(CUBE_IMU), "--out", str(out), "--set", setting])
+    err = capsys.readouterr().err.strip()
+    assert code == 2
+    assert len(err.splitlines()) == 1 and key in err, err
+    assert not out.exists()
+
+
+def test_timing_on_a_3d_device_applies_each_command_after_its_compute_time():
+    # 1 kHz physics, 500 Hz ticks on even steps, compute time 1 ms: each tick's command reaches the
+    # drives one step later, so the voltage changes only on odd steps (jitter 0: sim.physics.timing)
+    base = ("trial.duration=0.4 s", "trial.pushes=[]")
+    res = run_trial(load_scenario(ROOT / "scenarios" / "cube_corner.yaml",
+                                  overrides=(*base, "timing={compute_time: 1 ms}")))
+    v = res.trace.wheel(1, "voltage")
+    changed = np.flatnonzero(np.diff(v) != 0.0) + 1
+    assert changed.size > 50 and np.all(changed % 2 == 1)
+    assert res.loop_overruns == 0 and trial_metrics3d(res)["loop_overruns"] == 0
+    # 3 ms of compute on a 2 ms period: every other tick is skipped (rule skip)
+    slow = run_trial(load_scenario(ROOT / "scenarios" / "cube_corner.yaml",
+                                   overrides=(*base, "timing={compute_time: 3 ms}")))
+    assert slow.loop_overruns == 100   # ticks due at 2, 6, ..., 398 ms are skipped: one per 4 ms
+    # a timing section that moves nothing gives the untimed trial's numbers exactly
+    plain = run_trial(load_scenario(ROOT / "scenarios" / "cube_corner.yaml", overrides=base))
+    zero = run_trial(load_scenario(ROOT / "scenarios" / "cube_corner.yaml",
+                                   overrides=(*base, "timing={compute_time: 0 s}")))
+    for name in plain.trace.FLOAT_COLUMNS:
+        assert np.array_equal(getattr(plain.trace, name)[: plain.trace.n], getattr(zero.trace, name)[: zero.trace.n]), name
+
+
+@pytest.mark.slow
+def test_check_on_the_imu_cube_reports_the_estimators_errors(tmp_path):
+    from sim.cli import main
+    out = tmp_path / "check"
+    code = main(["check", str(CUBE_IMU), "--out", str(out), "--trials", "1", "--workers", "1",
+                 "--set", "requirements.hold_time=10 s"])
+    assert code in (0, 1)
+    import json
+    sensing = json.loads((out / "verdict.json").read_text())["sensing"]
+    assert sensing["estimator"] == "complementary"
+    assert abs(sensing["estimator_steady_error_rad"]) < math.radians(0.5)
+    assert sensing["push_tilt_error_rad"] is not None and sensing["push_tilt_error_rad"] > 0.0
+    assert "## Sensing" in (out / "report.md").read_text()

@@ -173,9 +173,16 @@ class Kalman(Estimator):
     Q = [[q_w^2 dt + q_b^2 dt^3/3, -q_b^2 dt^2/2], [-q_b^2 dt^2/2, q_b^2 dt]] (Van Loan's integral for
     this model); measurement noise R = measurement_noise^2. The covariance is propagated every tick,
     so the gain converges to the steady gain of the discrete Riccati equation (Simon, Optimal
-    State Estimation, 2006). The rate is w_m - b."""
+    State Estimation, 2006). The rate is w_m - b.
+
+    The vector form (3D) is two such filters, one per tilt axis, each fed that tilt's own rate from
+    the gyro turned to the heading frame by the present estimate (as `Complementary`'s) and the
+    accelerometer's tilt about it (`accel_tilts`). Near upright the upright and heading frames
+    nearly agree, so each filter's bias is the gyro's bias about that axis; the z rate is the
+    gyro's, uncorrected (no reference for its bias)."""
 
     kind = "kalman"
+    tilt_axes = 2
 
     class Params(EstimatorParams):
         process_noise: KalmanNoise = KalmanNoise()
@@ -183,6 +190,10 @@ class Kalman(Estimator):
         """Standard deviation of the accelerometer's tilt, rad (vibration and swing included)."""
         initial_bias: Q("angular_speed", ge=0, le=100.0) = 0.05
         """Standard deviation of the gyro bias before the first tick, rad/s."""
+        initial_angle: Q("angle", gt=0, le=math.pi) | None = None
+        """Standard deviation of the angle after the first tick, rad; default: `measurement_noise`
+        (the first accelerometer tilt's). A smaller figure keeps the first ticks' gain small: an IMU
+        far from the pivot reads the body's own kick as tilt, and a gain near 1/2 passes it on."""
 
     def __init__(self, **kw) -> None:
         super().__init__(**kw)
@@ -192,8 +203,11 @@ class Kalman(Estimator):
         self.r = p.measurement_noise ** 2
         self.angle: float | None = None
         self.bias = 0.0
-        self.p11, self.p12, self.p22 = self.r, 0.0, p.initial_bias ** 2
+        self.p11 = self.r if p.initial_angle is None else p.initial_angle ** 2
+        self.p12, self.p22 = 0.0, p.initial_bias ** 2
         self.gain = (0.0, 0.0)
+        self.axes: tuple | None = None                  # the vector form's per-axis filters
+        self.tilts: tuple[float, float] | None = None
 
     def update(self, t_s, gyro_rad_s, accel_m_s2):
         w, dt = gyro_rad_s[0], self.period_s
@@ -215,6 +229,20 @@ class Kalman(Estimator):
         self.p11, self.p12, self.p22 = (1.0 - k1) * p11, (1.0 - k1) * p12, p22 - k2 * p12
         self.gain = (k1, k2)
         return self.angle, w - self.bias
+
+    def update_tilts(self, t_s, gyro_rad_s, accel_m_s2):
+        ax, ay = accel_tilts(accel_m_s2)
+        if self.axes is None:     # one filter per tilt axis, with this one's parameters
+            self.axes = tuple(type(self)(params=self.params, period_s=self.period_s, gravity_m_s2=self.gravity_m_s2)
+                              for _ in range(2))
+            self.tilts = (ax, ay)
+        tx, ty = self.tilts
+        w = heading_rates(tx, ty, gyro_rad_s)
+        # each axis's filter reads its tilt as the accelerometer's atan2 of (sin, cos)
+        tx, rx = self.axes[0].update(t_s, (w[0] / math.cos(ty), 0.0, 0.0), (0.0, math.sin(ax), math.cos(ax)))
+        ty, ry = self.axes[1].update(t_s, (w[1], 0.0, 0.0), (0.0, math.sin(ay), math.cos(ay)))
+        self.tilts = (tx, ty)
+        return self.tilts, (rx * math.cos(ty), ry, heading_rates(tx, ty, gyro_rad_s)[2])
 
 
 ESTIMATORS: dict[str, str] = {
