@@ -23,7 +23,7 @@ from scipy.spatial.transform import Rotation
 
 from sim.model.device3d import Device3D
 from sim.model.scenario_yaml import load_scenario
-from sim.physics.imu_sensing3d import body_motion, upright_turn
+from sim.physics.imu_sensing3d import body_vectors, upright_turn
 from sim.run.metrics3d import trial_metrics3d
 from sim.run.trial import run_trial
 from sim.strategies.estimators import accel_tilts, resolve_estimator
@@ -51,17 +51,16 @@ def test_a_still_tilted_body_reads_minus_r_transpose_g(tx, ty, hd):
     sc = load_scenario(CUBE_IMU)
     device = Device3D.from_scenario(sc)
     u = np.array(upright_turn(device))
-    r_wb, w_body = body_motion(tx, ty, hd, (0.0, 0.0, 0.0), tuple(map(tuple, u)))
-    expected_r = Rotation.from_euler("ZYX", [hd, ty, tx]).as_matrix() @ u
-    assert_allclose(np.array(r_wb), expected_r, atol=1e-12)
-    from sim.physics.imu import ImuModel
-    imu = ImuModel(sc.sensors.imu.model_copy(update={"gyro": type(sc.sensors.imu.gyro)(),
-                                                      "accel": type(sc.sensors.imu.accel)()}),
-                   rate_hz=1000.0, gravity_m_s2=G, rng=np.random.default_rng(0))
-    gyro, accel = imu.sample(0.0, r_wb, w_body, (0.0, 0.0, 0.0))
+    r = Rotation.from_euler("ZYX", [hd, ty, tx]).as_matrix() @ u
+    world = (0.3, -1.1, 2.0)
+    w_heading = (0.2, -0.4, 0.7)
+    up, w_body, turned = body_vectors(tx, ty, hd, w_heading, tuple(map(tuple, u)), world)
     # specific force at rest: -R^T g with g = (0, 0, -9.81) (Groves, ch. 2)
-    assert_allclose(accel, expected_r.T @ np.array([0.0, 0.0, G]), atol=1e-12)
-    assert_allclose(gyro, (0.0, 0.0, 0.0), atol=1e-15)
+    assert_allclose(G * np.array(up), r.T @ np.array([0.0, 0.0, G]), atol=1e-12)
+    assert_allclose(turned, r.T @ np.array(world), atol=1e-12)
+    # the trace's rate is in the heading frame (the world turned by the heading about z)
+    w_world = Rotation.from_euler("z", hd).as_matrix() @ np.array(w_heading)
+    assert_allclose(w_body, r.T @ w_world, atol=1e-12)
 
 
 def test_the_body_rate_for_the_gyro_is_the_engines_own():

@@ -10,7 +10,7 @@ the runner a command function that, at each control tick and inside the strategy
    tilts and rates in the reading (and in the measured columns and `estimated_*` columns);
 3. calls the law.
 
-The body's motion for the IMU (`body_motion`), from a row of the 3D trace: the attitude relative to
+The body's motion for the IMU (`body_vectors`), from a row of the 3D trace: the attitude relative to
 upright R = Rz(heading) Ry(tilt_y) Rx(tilt_x) (`sim.core.frames`), so R_wb = R U with U the upright
 attitude (the device's `upright()`; on a hinge joint, the turn about x by the upright angle, which
 is what the hinge engine measures tilt_x from); the trace's rates are in the heading frame, so the
@@ -27,8 +27,8 @@ import math
 
 from ..core.errors import StrategyError
 from ..core.exception_text import describe_exception
-from ..core.frames import matmul, rotation_about_x_y, transpose
-from .imu import ImuModel, axis_mapping, mat_vec, rotation_x, rotation_z
+from ..core.frames import matmul, transpose
+from .imu import ImuModel, axis_mapping, cross, mat_vec, rotation_x
 from .imu_sensing import IMU_COLUMNS, IMU_STREAM, stream
 
 
@@ -54,12 +54,27 @@ def upright_turn(device) -> tuple:
     return r0
 
 
-def body_motion(tilt_x: float, tilt_y: float, heading: float, rate_heading, upright) -> tuple:
-    """(R_wb, body rate in the body frame rad/s) from a 3D trace row: tilts and heading rad, the rate
-    in the heading frame (rad/s), the upright attitude U (see the module docstring)."""
-    a = rotation_about_x_y(tilt_x, tilt_y)
-    r_wb = matmul(rotation_z(heading), matmul(a, upright))
-    return r_wb, mat_vec(transpose(upright), mat_vec(transpose(a), rate_heading))
+def body_vectors(tilt_x: float, tilt_y: float, heading: float, rate_heading, upright, world=None):
+    """From a 3D trace row (tilts and heading rad, the rate in the heading frame rad/s) and the
+    upright attitude U (see the module docstring): (the world's up in the body frame, R_wb^T e_z; the
+    body rate in the body frame, rad/s; R_wb^T `world` for a world-frame vector, or None without one).
+    Written out: it runs twice per IMU sample."""
+    ca, sa, cb, sb = math.cos(tilt_x), math.sin(tilt_x), math.cos(tilt_y), math.sin(tilt_y)
+    (u00, u01, u02), (u10, u11, u12), (u20, u21, u22) = upright
+    # A = Ry(tilt_y) Rx(tilt_x), rows a0, a1, a2; v = A^T w_h; w_b = U^T v
+    a0, a1, a2 = (cb, sb * sa, sb * ca), (0.0, ca, -sa), (-sb, cb * sa, cb * ca)
+    w0, w1, w2 = rate_heading
+    v = (a0[0] * w0 + a2[0] * w2, a0[1] * w0 + a1[1] * w1 + a2[1] * w2, a0[2] * w0 + a1[2] * w1 + a2[2] * w2)
+    w_body = (u00 * v[0] + u10 * v[1] + u20 * v[2], u01 * v[0] + u11 * v[1] + u21 * v[2],
+              u02 * v[0] + u12 * v[1] + u22 * v[2])
+    # R_wb = Rz(heading) A U has A U's last row (Rz keeps z): R_wb^T e_z = U^T a2
+    up = (u00 * a2[0] + u10 * a2[1] + u20 * a2[2], u01 * a2[0] + u11 * a2[1] + u21 * a2[2],
+          u02 * a2[0] + u12 * a2[1] + u22 * a2[2])
+    if world is None:
+        return up, w_body, None
+    ch, sh = math.cos(heading), math.sin(heading)
+    h = (ch * world[0] + sh * world[1], ch * world[1] - sh * world[0], world[2])     # Rz^T world
+    return up, w_body, body_vectors(tilt_x, tilt_y, 0.0, h, upright)[1]
 
 
 class ImuSensing3D:
@@ -82,43 +97,53 @@ class ImuSensing3D:
         self.tilt_bias = tuple(tilt_bias_rad or ()) + (0.0,) * (2 - len(tilt_bias_rad or ()))
         self.estimator = None
         col = lambda name: getattr(trace, name, None)    # noqa: E731 - absent columns are None
-        self.state = (col("tilt_x"), col("tilt_y"), col("heading"), col("rate_x"), col("rate_y"), col("rate_z"))
-        self.contact = (col("contact_x"), col("contact_y"), col("contact_z")) if device.floor is not None else None
+        # the true state's columns through memoryviews: Python floats out, cheaper than numpy's items
+        view = lambda name: None if col(name) is None else memoryview(col(name))    # noqa: E731
+        self.state = tuple(view(a) for a in ("tilt_x", "tilt_y", "heading", "rate_x", "rate_y", "rate_z"))
+        self.contact = tuple(view(a) for a in ("contact_x", "contact_y", "contact_z")) if device.floor is not None else None
         self.raw = tuple(memoryview(col(name)) for name in IMU_COLUMNS)
         self.est_tilt = [memoryview(col(f"estimated_tilt_{a}_rad")) for a in "xy"[:n_tilts]] if self.spec else []
         self.est_rate = [memoryview(col(f"estimated_rate_{a}_rad_s")) for a in "xyz"[:n_rates]] if self.spec else []
         self.meas_tilt = [memoryview(col(f"m_tilt_{a}")) for a in "xy"[:n_tilts]]
         self.meas_rate = [memoryview(col(f"m_rate_{a}")) for a in "xyz"[:n_rates]]
-        self._row = -1
+        self._sample_row = -1
         self.gyro = self.accel = (0.0, 0.0, 0.0)
 
-    def _body(self, j: int):
+    def _row(self, j: int, world=None):
+        """`body_vectors` of trace row j."""
         tx, ty, hd, rx, ry, rz = self.state
-        return body_motion(float(tx[j]), float(ty[j]) if ty is not None else 0.0,
-                           float(hd[j]) if hd is not None else 0.0,
-                           (float(rx[j]), float(ry[j]) if ry is not None else 0.0,
-                            float(rz[j]) if rz is not None else 0.0), self.upright)
+        return body_vectors(tx[j], ty[j] if ty is not None else 0.0, hd[j] if hd is not None else 0.0,
+                            (rx[j], ry[j] if ry is not None else 0.0, rz[j] if rz is not None else 0.0),
+                            self.upright, world)
 
-    def _origin_accel(self, j: int) -> tuple[float, float, float]:
-        if self.contact is None or j < 2:
+    def _origin_accel(self, j: int) -> tuple[float, float, float] | None:
+        """The body origin's acceleration, world frame, m/s^2 (None on a fixed pivot)."""
+        if self.contact is None:
+            return None
+        if j < 2:
             return (0.0, 0.0, 0.0)
         s = self.inv_dt * self.inv_dt
-        return tuple(float(c[j] - 2.0 * c[j - 1] + c[j - 2]) * s for c in self.contact)
+        return tuple((c[j] - 2.0 * c[j - 1] + c[j - 2]) * s for c in self.contact)
 
     def sample(self, k: int):
         """The IMU sample the tick at step k sees, (gyro rad/s, accel m/s^2) in the IMU's axes; raw
-        columns written at row k."""
+        columns written at row k. Specific force: g R^T e_z + R^T a0 + alpha x r + w x (w x r)."""
         j = max(k - self.delay_steps, 0)
         j -= j % self.imu_steps
-        if j != self._row:
-            self._row = j
-            r_wb, w = self._body(j)
+        if j != self._sample_row:
+            self._sample_row = j
+            up, w, a0 = self._row(j, self._origin_accel(j))
             if j > 0:
-                w0 = self._body(j - 1)[1]
-                alpha = tuple((a - b) * self.inv_dt for a, b in zip(w, w0))
+                w0 = self._row(j - 1)[1]
+                alpha = ((w[0] - w0[0]) * self.inv_dt, (w[1] - w0[1]) * self.inv_dt, (w[2] - w0[2]) * self.inv_dt)
             else:
                 alpha = (0.0, 0.0, 0.0)
-            self.gyro, self.accel = self.imu.sample(j * self.dt, r_wb, w, alpha, self._origin_accel(j))
+            r, g = self.imu.at, self.gravity
+            t, c = cross(alpha, r), cross(w, cross(w, r))
+            f = (g * up[0] + t[0] + c[0], g * up[1] + t[1] + c[1], g * up[2] + t[2] + c[2])
+            if a0 is not None:
+                f = (f[0] + a0[0], f[1] + a0[1], f[2] + a0[2])
+            self.gyro, self.accel = self.imu.sample_body(j * self.dt, w, f)
         c = self.raw
         c[0][k], c[1][k], c[2][k] = self.gyro
         c[3][k], c[4][k], c[5][k] = self.accel
