@@ -314,3 +314,22 @@ def test_check_on_the_imu_cube_reports_the_estimators_errors(tmp_path):
     assert abs(sensing["estimator_steady_error_rad"]) < math.radians(0.5)
     assert sensing["push_tilt_error_rad"] is not None and sensing["push_tilt_error_rad"] > 0.0
     assert "## Sensing" in (out / "report.md").read_text()
+
+
+def test_encoder_bus_limits_apply_per_wheel_on_a_3d_device():
+    # wheel 1 starts past the encoder's tracking limit: its counts stop (speed from counts reads 0,
+    # sim.physics.sensors) until it slows below the limit; check's criterion reports the time
+    from sim.studies.sensing_checks import sensing_checks3d
+    sc = load_scenario(ROOT / "scenarios" / "cube_corner.yaml", overrides=(
+        "trial.duration=0.5 s", "trial.pushes=[]", "trial.start.wheel_speed=[300, 0, 0]",
+        "sensors.wheel.max_speed=250 rad/s", "sensors.wheel.update_rate=250 Hz"))
+    res = run_trial(sc)
+    tr = res.trace
+    ticks = np.arange(0, tr.n, sc.control_steps)[4:]
+    past = ticks[np.abs(tr.w1_speed[ticks - 2]) > 260.0]       # the value read is 2 ms old (sensors.delay)
+    assert past.size > 10
+    assert np.all(tr.m_w1[past] == 0.0)
+    criteria, summary = sensing_checks3d(sc, {"nominal": res}, {}, push_scenario=None)
+    (c,) = criteria
+    assert c["name"] == "encoder_over_speed_s" and not c["passed"] and c["value"] > 0.0
+    assert "wheel (w1_speed)" in c["note"] and summary == {}
