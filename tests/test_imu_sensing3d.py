@@ -333,3 +333,23 @@ def test_encoder_bus_limits_apply_per_wheel_on_a_3d_device():
     (c,) = criteria
     assert c["name"] == "encoder_over_speed_s" and not c["passed"] and c["value"] > 0.0
     assert "wheel (w1_speed)" in c["note"] and summary == {}
+
+
+def test_a_one_axis_plugin_estimator_runs_isolated_on_a_3d_hinge(monkeypatch):
+    # a plug-in's trial runs in a forked child with a shared trace: the IMU's columns come back;
+    # one that raises ends the trial as strategy_failed with its message
+    from sim.strategies import ALLOW_OUTSIDE_ENV
+    monkeypatch.setenv(ALLOW_OUTSIDE_ENV, "1")
+    plugin = str(ROOT / "tests" / "plugins" / "estimator_plugins.py")
+    base = ("trial.duration=0.6 s", "trial.pushes=[]", "sensors.imu={at: [0, 0, 0.05]}")
+    ok = run_trial(load_scenario(ROOT / "scenarios" / "tilted_axis.yaml", overrides=(
+        *base, f"sensors.estimator={{plugin: '{plugin}:TrueTiltOnly'}}")))
+    assert ok.outcome == "balanced", ok.message
+    tr = ok.trace
+    # at rest on the first tick the accelerometer's tilt, turned to upright about the hinge, is the
+    # true tilt (an ideal IMU); later it also reads the body's kick (the plug-in does not filter)
+    assert_allclose(tr.estimated_tilt_x_rad[0], tr.tilt_x[0], atol=1e-12)
+    assert np.max(np.abs(tr.estimated_tilt_x_rad[: tr.n] - tr.tilt_x[: tr.n])) > math.radians(1.0)
+    broken = run_trial(load_scenario(ROOT / "scenarios" / "tilted_axis.yaml", overrides=(
+        *base, f"sensors.estimator={{plugin: '{plugin}:BreaksAfter', after_s: 0.2}}")))
+    assert broken.outcome == "strategy_failed" and "IMU bus lost" in broken.message
