@@ -99,7 +99,7 @@ def print_run(sc, m: dict, out: Path) -> None:
         deg = 180.0 / math.pi
         rows.append((f"estimator ({m['estimator']}) error", "-" if m["estimator_angle_rms_error_rad"] is None else
                      f"{m['estimator_angle_rms_error_rad'] * deg:.3g} deg rms, {m['estimator_angle_peak_error_rad'] * deg:.3g} "
-                     f"deg peak, {m['estimator_angle_mean_error_rad'] * deg:+.3g} deg mean"))
+                     f"deg peak, {_mean_error_text(m, deg)} mean"))
     if m.get("loop_overruns") is not None:
         rows.append(("loop overruns", str(m["loop_overruns"])))
     for p in m.get("pushes", []):
@@ -132,6 +132,13 @@ def dim(text: str):
     """`text` dimmed, printed literally (no markup)."""
     from rich.text import Text
     return Text(text, style="dim")
+
+
+def _mean_error_text(m: dict, deg: float) -> str:
+    """The estimator's mean error: one angle (one wheel), or per tilt axis (a 3D device)."""
+    if "estimator_angle_mean_error_rad" in m:
+        return f"{m['estimator_angle_mean_error_rad'] * deg:+.3g} deg"
+    return ", ".join(f"{v * deg:+.3g} deg about {a}" for a, v in zip("xy", m["estimator_tilt_mean_error_rad"]))
 
 
 def _impulse_text(impulse) -> str:

@@ -51,7 +51,11 @@ def test_vector_keys_parse_with_units():
                             trial={"start": {"wheel_speed": [1.0, 2.0]}}), "trial.start.wheel_speed"),
     (lambda raw: raw.update(wheels=[{"at": 0.2, "parts": [{"shape": "point", "mass": 0.1}]}], wheel=None),
      "wheels[0].parts: the wheel's spin inertia is 0"),
-    (lambda raw: raw.update(body=BALL, timing={"jitter": 0.0001}), "timing: the IMU, estimator"),
+    (lambda raw: raw.update(body=BALL, sensors={"imu": {"at": [0, 0, 0.1]}, "estimator": {"kind": "kalmann"}}),
+     "sensors.estimator.kind: unknown estimator"),
+    (lambda raw: raw.update(body=BALL, sensors={"imu": {"gyro": {"nois_density": 0.01}}}), "sensors.imu.gyro"),
+    (lambda raw: raw.update(body=BALL, timing={"jitter": 1.0}), "timing.jitter"),
+    (lambda raw: raw.update(body=BALL, sensors={"wheel": {"max_speed": -100.0}}), "sensors.wheel.max_speed"),
     # the power chain runs on 3D devices, in voltage mode only (no law for several wheels commands current)
     (lambda raw: raw.update(body=BALL, drive={"supply": 12.0, "mode": "current", "current_bandwidth": 2000.0}),
      "drive.mode: current mode takes one-wheel hinge devices only"),
@@ -59,7 +63,6 @@ def test_vector_keys_parse_with_units():
         "speed_constant": "300 rpm/V", "resistance": 2.0, "thermal": {"coupled": True},
         "curve": {"voltage": 12.0, "points": [{"speed": 0.0, "torque": 0.1}, {"speed": 100.0, "torque": 0.0}]}}}],
         wheel=None, body=BALL), "wheels[0].motor.thermal.coupled"),
-    (lambda raw: raw.update(body=BALL, sensors={"wheel": {"max_speed": 100.0}}), "sensors.wheel.max_speed"),
 ])
 def test_bad_3d_keys_are_refused_in_one_line_naming_the_key(change, key):
     raw = scenario_dict()

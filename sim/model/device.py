@@ -69,11 +69,11 @@ class Device:
             supply_v=sc.drive.supply, brake_torque_n_m=sc.drive.brake_torque,
             pivot_coulomb_n_m=sc.body.pivot_friction.coulomb, pivot_viscous_n_m_s=sc.body.pivot_friction.viscous,
             wheel_coulomb_n_m=w.bearing_friction.coulomb, wheel_viscous_n_m_s=w.bearing_friction.viscous,
-            control_rate_hz=sc.sensors.rate, delay_s=_loop_delay_s(sc), locked=sc.body.locked,
+            control_rate_hz=sc.sensors.rate, delay_s=loop_delay_s(sc), locked=sc.body.locked,
             angle_counts_per_rev=(sc.sensors.angle.counts_per_rev if sc.sensors.angle is not None else None) or 0,
             wheel_counts_per_rev=sc.sensors.wheel.counts_per_rev or 0,
             pwm_max=2**sc.drive.pwm.resolution_bits - 1 if sc.drive.pwm is not None else 0,
-            **_imu_lsb(sc.sensors.imu),
+            **imu_lsb_fields(sc.sensors.imu),
             drive_mode=sc.drive.mode,
         )
 
@@ -153,7 +153,7 @@ class Device:
         return A, B
 
 
-def _loop_delay_s(sc) -> float:
+def loop_delay_s(sc) -> float:
     """From a sample to its command acting, s: the sensors' delay plus, with a `timing` section, the
     controller's compute time as the runner applies it, in whole physics steps (what a law's delay
     predictor has to bridge)."""
@@ -162,7 +162,7 @@ def _loop_delay_s(sc) -> float:
     return sc.sensors.delay + sc.timing.compute_steps(sc.world.step) * sc.world.step
 
 
-def _imu_lsb(imu) -> dict:
+def imu_lsb_fields(imu) -> dict:
     """The IMU's raw LSBs as Device fields (none without an IMU)."""
     if imu is None:
         return {}

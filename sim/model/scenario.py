@@ -649,19 +649,11 @@ class Scenario(Strict):
         if isinstance(speeds, list) and len(speeds) != len(self.wheel_list):
             raise ValueError(f"@trial.start.wheel_speed: expected one speed or {len(self.wheel_list)} (one per wheel), "
                              f"found {len(speeds)}")
-        # the sensing and timing models are written for the one-wheel path; say so rather than ignore them
-        sens = self.sensors
-        for key, used in (("sensors.imu", sens.imu is not None), ("sensors.estimator", sens.estimator is not None),
-                          ("timing", self.timing is not None), ("sensors.angle", sens.angle is None),
-                          ("sensors.angle.max_speed", sens.angle is not None and (
-                              sens.angle.max_speed is not None or sens.angle.update_rate is not None
-                              or sens.angle.latency)),
-                          ("sensors.wheel.max_speed", getattr(sens.wheel, "max_speed", None) is not None
-                           or getattr(sens.wheel, "update_rate", None) is not None
-                           or bool(getattr(sens.wheel, "latency", 0.0)))):
-            if used:
-                raise ValueError(f"@{key}: the IMU, estimator, encoder bus limits and timing models take one-wheel "
-                                 "hinge devices only in this release (this is a 3D device)")
+        # an estimator gives the law its tilts: a ball (or a floor corner) reads two
+        est = self.sensors.estimator
+        if est is not None and ball and getattr(est.cls, "tilt_axes", 1) < 2:
+            raise ValueError(f"@sensors.estimator.kind: {est.kind} gives one tilt (about x); a device on a ball or "
+                             "a floor corner needs two (tilt_axes = 2, e.g. kind: complementary)")
         if self.drive.mode == "current":
             raise ValueError("@drive.mode: current mode takes one-wheel hinge devices only in this release (no law "
                              "for several wheels commands current); a 3D device's bridges run in voltage mode")

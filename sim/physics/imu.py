@@ -179,6 +179,11 @@ class ImuModel:
         f_body = (0.0, g * math.sin(angle_rad) - a * rz - w2 * ry, g * math.cos(angle_rad) + a * ry - w2 * rz)
         return self._read(t_s, (w, 0.0, 0.0), f_body)
 
+    def sample_body(self, t_s: float, w_body, f_body):
+        """`sample` from the body-frame rate (rad/s) and specific force (m/s^2) at the IMU's point,
+        for a caller that has them already (the 3D runner, `sim.physics.imu_sensing3d`)."""
+        return self._read(t_s, w_body, f_body)
+
     def _read(self, t_s: float, w_body, f_body):
         if self._i < len(self._chunk):     # _draws() inline: this runs on every sample
             n = self._chunk[self._i]

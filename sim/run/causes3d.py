@@ -4,7 +4,10 @@ The planar rules, cut to what a 3D trace shows plainly, in this order (threshold
 `sim.run.causes`): `strategy_failed` and `diverged` carry the runner's message; a fall is
 `push_too_large` when it came inside a push's recovery window with every wheel below
 WHEEL_NEAR_LIMIT of its no-load speed at the push, `wheel_at_speed_limit` when a wheel (named) reached
-WHEEL_NEAR_LIMIT in the LOOKBACK_S before the fall, `current_at_limit` / `voltage_at_supply` when a
+WHEEL_NEAR_LIMIT in the LOOKBACK_S before the fall, `estimator_misread` when an estimator (an IMU) made
+the law's tilts and their error was ESTIMATOR_MISREAD_RAD RMS or more (x and y together) over the
+stretch the body was held (up to LOOKBACK_S before the fall, or the whole held stretch when that is
+shorter), `current_at_limit` / `voltage_at_supply` when a
 wheel's current or voltage sat at its limit for SUSTAINED_S of that stretch, else `gains_too_weak`;
 not caught is `start_outside_release` when the start tilt was beyond the release angle, else
 `catch_missed`.
@@ -21,8 +24,9 @@ import math
 
 import numpy as np
 
-from .causes import CURRENT_AT_LIMIT, LOOKBACK_S, SUSTAINED_S, WHEEL_NEAR_LIMIT, _power_event
+from .causes import CURRENT_AT_LIMIT, ESTIMATOR_MISREAD_RAD, LOOKBACK_S, SUSTAINED_S, WHEEL_NEAR_LIMIT, _power_event
 from .metrics import PUSH_RECOVER_S
+from .metrics3d import tilt_errors
 
 
 def find_cause3d(result) -> tuple[str | None, str | None]:
@@ -66,6 +70,12 @@ def _fell(result) -> tuple[str, str]:
         return "wheel_at_speed_limit", (f"wheel {worst + 1} reached {shares[worst]:.0%} of its no-load speed "
                                         f"({dev.wheels[worst].no_load_speed_rad_s:.1f} rad/s) in the "
                                         f"{LOOKBACK_S:g} s before the fall at {t_fall:.3f} s")
+    misread = _misread(result, start, end)
+    if misread is not None and misread[0] >= ESTIMATOR_MISREAD_RAD:
+        return "estimator_misread", (
+            f"the body fell at {t_fall:.3f} s after the estimator's tilt was off the true tilt by "
+            f"{math.degrees(misread[0]):.2f} deg RMS ({math.degrees(misread[1]):.2f} deg at most) while it was held: "
+            "the law balanced a wrong tilt (the IMU's place, its mounting or the filter's trust in the accelerometer)")
     sustained = max(1, int(round(SUSTAINED_S / dt)))
     for i, w in enumerate(dev.wheels):
         if math.isfinite(w.current_limit_a):
@@ -80,6 +90,25 @@ def _fell(result) -> tuple[str, str]:
                                          f"{np.count_nonzero(at_supply) * dt:.3f} s before the fall at {t_fall:.3f} s")
     return "gains_too_weak", (f"the body fell at {t_fall:.3f} s with no wheel, current or voltage at its limit "
                               f"(fastest wheel {worst + 1} at {shares[worst]:.0%} of its no-load speed)")
+
+
+def _misread(result, look_from: int, end: int) -> tuple[float, float] | None:
+    """(RMS, peak) of the estimator's tilt error's size, rad, over the held stretch before row
+    `look_from` (the whole held stretch when that leaves none); None without an estimator."""
+    tr = result.trace
+    release = getattr(getattr(result.strategy, "params", None), "release_angle", math.pi)
+    tilt = tr.tilt[:end]
+    inside = np.flatnonzero(tilt <= release)
+    if inside.size == 0:
+        return None
+    before = np.flatnonzero(tilt[: inside[-1]] > release)
+    held_from = int(before[-1]) + 1 if before.size else 0
+    stop = look_from if look_from > held_from else end
+    err = tilt_errors(tr, held_from, stop)
+    if err is None or err.shape[0] == 0:
+        return None
+    size = np.sqrt(np.sum(err ** 2, axis=1))
+    return float(np.sqrt(np.mean(size ** 2))), float(np.max(size))
 
 
 def _size(impulse) -> float:

@@ -6,6 +6,10 @@ keys of the planar metrics hold the worst wheel (highest peak speed share, curre
 Angles: `peak_tilt_rad` (the largest `tilt_rad`, see `sim.core.frames`). Totals cover the trial up
 to the fall, as on the planar path (`totals_until_s`). Through the power chain the one-wheel power keys
 follow (`_power`), over the shared bus.
+With an estimator (an IMU): its tilt error
+against the true tilts up to that row, `estimator_angle_rms_error_rad` and `..._peak_...` of the
+error's size (x and y together on a ball), `estimator_tilt_mean_error_rad` per tilt axis (a steady
+error acts as an angle bias); with a `timing` section, `loop_overruns`. Without them, no new keys.
 """
 
 from __future__ import annotations
@@ -14,6 +18,7 @@ import math
 
 import numpy as np
 
+from ..core.angles import wrap_angles
 from .metrics import (PUSH_RECOVER_S, SATURATION_REL_TOL, SETTLE_BAND_RAD, power_metrics, push_outcomes, settle_time,
                       supply_ceiling)
 
@@ -67,7 +72,33 @@ def trial_metrics3d(result) -> dict:
         **(_power(result, wheels) if result.power is not None else {}),
         **(result.floor or {}),   # a body on the floor: slip_m, lift_off_s, rest_face, ... (sim.run.floor_contact)
         **{k: v for k, v in (getattr(result.strategy, "extra_metrics", None) or {}).items()},
+        **sensing_metrics3d(result, end),
     }
+
+
+def tilt_errors(trace, start: int, stop: int) -> np.ndarray | None:
+    """The estimator's tilt errors (estimate minus truth, wrapped), rad, rows [start, stop), one
+    column per tilt axis; None without an estimator."""
+    axes = [a for a in ("x", "y") if hasattr(trace, f"estimated_tilt_{a}_rad")]
+    if not axes:
+        return None
+    return np.stack([wrap_angles(getattr(trace, f"estimated_tilt_{a}_rad")[start:stop]
+                                 - getattr(trace, f"tilt_{a}")[start:stop]) for a in axes], axis=1)
+
+
+def sensing_metrics3d(result, end: int) -> dict:
+    """The estimator's and the loop timing's keys (see the module docstring); {} without them."""
+    out = {}
+    err = tilt_errors(result.trace, 0, end)
+    if err is not None:
+        size = np.sqrt(np.sum(err ** 2, axis=1))
+        out |= {"estimator": result.scenario.sensors.estimator.kind,
+                "estimator_angle_rms_error_rad": float(np.sqrt(np.mean(size ** 2))) if size.size else None,
+                "estimator_angle_peak_error_rad": float(np.max(size)) if size.size else None,
+                "estimator_tilt_mean_error_rad": [float(v) for v in err.mean(axis=0)] if size.size else None}
+    if result.loop_overruns is not None:
+        out["loop_overruns"] = result.loop_overruns
+    return out
 
 
 def _saturated(trace, device, end: int, control_steps: int, scenario=None) -> int:

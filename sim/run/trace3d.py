@@ -14,16 +14,19 @@ import numpy as np
 from .trace import POWER_CSV_COLUMNS, Trace, csv_field
 
 
-def column_names(*, ball: bool, n_wheels: int, floor: bool = False, power: bool = False) -> tuple[tuple[str, str], ...]:
+def column_names(*, ball: bool, n_wheels: int, floor: bool = False, power: bool = False,
+                 extra: tuple[str, ...] = ()) -> tuple[tuple[str, str], ...]:
     """(attribute, CSV name) of every numeric column, in CSV order. A body on the floor adds the
     balancing contact's world position, whether the body touches the floor (1/0) and |F_t| / F_n of
     its floor contacts (`sim.run.floor_contact`), after the others; a floor body balancing on an edge
-    (designed as on a hinge) also records its whole attitude (`tilt_y_rad`, `heading_rad`): it is free.
-    A trial through the power chain (`power`) adds the shared bus last, named as on one wheel
+    (designed as on a hinge) also records its whole attitude (`tilt_y_rad`, `heading_rad`): it is free,
+    and with an IMU its whole rate (the IMU needs it).
+    A trial through the power chain (`power`) adds the shared bus, named as on one wheel
     (`sim.run.trace.POWER_CSV_COLUMNS`): its voltage at each step's start and the step's mean bus
     current, the sum over the wheels (written every step, not held); each wheel's voltage column then
-    holds the mean voltage its bridge applied, as the one-wheel trace's does."""
-    axes = ("x", "y", "z") if ball else ("x",)
+    holds the mean voltage its bridge applied, as the one-wheel trace's does. `extra`: the sensing columns
+    (`sim.physics.imu_sensing3d.sensing_columns3d`), last, their attribute their CSV name."""
+    axes = ("x", "y", "z") if ball or (floor and extra) else ("x",)
     cols = [("t", "t_s"), ("tilt", "tilt_rad"), ("tilt_x", "tilt_x_rad")]
     if ball or floor:
         cols += [("tilt_y", "tilt_y_rad"), ("heading", "heading_rad")]
@@ -41,16 +44,16 @@ def column_names(*, ball: bool, n_wheels: int, floor: bool = False, power: bool 
                  ("friction_ratio", "friction_ratio")]
     if power:
         cols += [("bus_volts", POWER_CSV_COLUMNS[0]), ("bus_amps", POWER_CSV_COLUMNS[1])]
-    return tuple(cols)
+    return tuple(cols) + tuple((name, name) for name in extra)
 
 
 class Trace3D(Trace):
     """Preallocated columns (`column_names`) for `capacity` rows; `n` rows are filled."""
 
     def __init__(self, capacity: int, *, step_s: float, ball: bool, n_wheels: int, floor: bool = False,
-                 shared: bool = False, power: bool = False):
+                 shared: bool = False, power: bool = False, extra: tuple[str, ...] = ()):
         self.ball, self.n_wheels = ball, n_wheels
-        self.csv_names = column_names(ball=ball, n_wheels=n_wheels, floor=floor, power=power)
+        self.csv_names = column_names(ball=ball, n_wheels=n_wheels, floor=floor, power=power, extra=extra)
         self.FLOAT_COLUMNS = tuple(attr for attr, _ in self.csv_names)
         super().__init__(capacity, step_s=step_s, shared=shared)   # shared: an isolated trial (`Trace`)
 

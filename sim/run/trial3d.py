@@ -91,7 +91,9 @@ def run_trial3d(scenario, *, seed: int | None = None, stop_early: bool | None = 
     stop_early = scenario.trial.stop_early if stop_early is None else stop_early
     budget = STRATEGY_BUDGET_S if strategy_budget_s is None else strategy_budget_s
     if isolate is None:
-        isolate = isolation.AVAILABLE and bool(plugins_in(scenario.strategy))
+        estimator = scenario.sensors.estimator
+        isolate = isolation.AVAILABLE and (bool(plugins_in(scenario.strategy))
+                                           or (estimator is not None and estimator.is_plugin))
     if isolate and not isolation.AVAILABLE:
         raise ValueError("isolate=True needs os.fork")
     if not isolate:
@@ -104,8 +106,16 @@ def run_trial3d(scenario, *, seed: int | None = None, stop_early: bool | None = 
 def _trace(scenario, device: Device3D, **shared) -> Trace3D:
     """The trial's trace; with `beat=` a shared one that publishes its phases (isolated trials)."""
     kind = PublishedTrace3D if shared else Trace3D
+    extra = () if scenario.sensors.imu is None else _sensing().sensing_columns3d(scenario, two_tilts=device.mount == "ball")
     return kind(scenario.n_steps, step_s=scenario.world.step, ball=device.mount == "ball",
-                n_wheels=device.n_wheels, floor=device.floor is not None, power=scenario.power_model, **shared)
+                n_wheels=device.n_wheels, floor=device.floor is not None, power=scenario.power_model, extra=extra,
+                **shared)
+
+
+def _sensing():
+    """The IMU's module, imported when a scenario has one (a trial without it never loads it)."""
+    from ..physics import imu_sensing3d
+    return imu_sensing3d
 
 
 def _simulate(scenario, device, trace, clock, *, seed, stop_early, on_step, angle_bias_rad=None) -> TrialResult3D:
@@ -117,12 +127,27 @@ def _simulate(scenario, device, trace, clock, *, seed, stop_early, on_step, angl
     try:
         _reset(engine, scenario, device)
         n_suites = max(3 if ball else 1, device.n_wheels)
-        suites = [SensorSuite(scenario.sensors, step_s=dt, n_ticks=n // scenario.control_steps + 1, rng=rng)
+        sensors = scenario.sensors
+        if sensors.angle is None:   # an IMU-only device: the suites still draw their noise (the estimate replaces it)
+            from ..model.scenario import AngleSensor
+            sensors = sensors.model_copy(update={"angle": AngleSensor()})
+        suites = [SensorSuite(sensors, step_s=dt, n_ticks=n // scenario.control_steps + 1, rng=rng)
                   for _ in range(n_suites)]
-        for suite, bias in zip(suites, angle_bias_rad or ()):
-            suite.angle_bias = float(bias)
+        imu = schedule = None
+        if sensors.imu is not None:   # the IMU and the estimator (`sim.physics.imu_sensing3d`)
+            imu = _sensing().ImuSensing3D(scenario, device, trace, step_s=dt, seed=seed, n_tilts=2 if ball else 1,
+                                          n_rates=3 if ball else 1,
+                                          tilt_bias_rad=angle_bias_rad if sensors.estimator is not None else None)
+        if sensors.imu is None or sensors.estimator is None:
+            for suite, bias in zip(suites, angle_bias_rad or ()):
+                suite.angle_bias = float(bias)
+        if scenario.timing is not None:
+            from ..physics.imu_sensing import TIMING_STREAM, stream
+            from ..physics.timing import TickSchedule
+            schedule = TickSchedule(scenario.timing, control_steps=scenario.control_steps, step_s=dt,
+                                    rng=stream(seed, TIMING_STREAM), end_step=n)
         return with_strategy(scenario, device, rng, clock, lambda strategy, failure: _loop(
-            scenario, device, engine, suites, trace, strategy, failure, stop_early, clock, on_step,
+            scenario, device, engine, suites, trace, strategy, failure, stop_early, clock, on_step, imu, schedule,
             power=_power_chains(scenario, device, strategy, dt, n)))
     finally:
         engine.close()
@@ -209,7 +234,7 @@ def _push_schedule(scenario, dt: float) -> list[tuple[int, tuple[float, float, f
 
 
 def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early, clock, on_step,
-          power=None) -> TrialResult3D:
+          imu=None, schedule=None, power=None) -> TrialResult3D:
     dt, n, cs = scenario.world.step, scenario.n_steps, scenario.control_steps
     outcome, message = ("strategy_failed", failure) if failure else (None, None)
     ball, nw = device.mount == "ball", device.n_wheels
@@ -257,6 +282,12 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     watch = FloorWatch(io[2], trace, device.floor, stop_early) if len(io) > 2 else None
     see = watch.stepper() if watch is not None else None
     command = strategy.command_vector if strategy is not None else None
+    if imu is not None and command is not None:
+        command = imu.wrap(command)     # the IMU and its estimator first, in the strategy's time window
+    # ticks every cs steps from 0, each command applied on its tick's step; or, with `timing`, where
+    # `schedule` (sim.physics.timing) places them, a command reaching the drives at change_k
+    timed = schedule is not None
+    tick_k, change_k, pending, tick_rows = (schedule.first(), -1, None, []) if timed else (0, -1, None, None)
     lim = ABSURD_RATE_RAD_S
     k = 0
     wall0 = time.perf_counter()
@@ -268,6 +299,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
             ty_c[k], hd_c[k], ry_c[k], rz_c[k] = ty, hd, wy, wz
         elif ty_c is not None:   # a floor body on its edge: free in 3D, its whole attitude recorded
             ty_c[k], hd_c[k] = ty, hd
+            if ry_c is not None:     # and with an IMU its whole rate
+                ry_c[k], rz_c[k] = wy, wz
         bad = not (-lim < wx < lim and -lim < wy < lim and -lim < wz < lim and tilt == tilt)
         for s, a, s_col, a_col, w_lim in zip(wspd, wang, ws_c, wa_c, wheel_limit):
             s_col[k], a_col[k] = s, a
@@ -283,7 +316,9 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
             break
         if see is not None and see(k, catch_k is not None) and outcome is None:
             outcome = "slipped"   # with stop_early; this step still runs, as a fall's does
-        if k % cs == 0:
+        if k == change_k:
+            volts, change_k = pending, -1
+        if k == tick_k:
             t = k * dt
             meas = [r(k, a, w, wa, ws) for r, a, w, wa, ws in suite_reads]
             m0 = meas[0]
@@ -306,6 +341,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
             ticks += 1
             try:
                 clock.enter(k)
+                held = volts
                 volts = command(reading, nw)
                 if not all(-supply <= v <= supply for v in volts):   # the drive's limit, whatever the law did
                     volts = tuple(v if -supply <= v <= supply else math.copysign(supply, v) for v in volts)
@@ -335,6 +371,13 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 if v >= at_supply or v <= -at_supply:
                     at_limit = True
             saturated += at_limit
+            if timed:
+                tick_rows.append(k)
+                apply_k, tick_k = schedule.after(k)
+                if apply_k != k:     # computing: the drives keep the command in force until apply_k
+                    pending, volts, change_k = volts, held, apply_k
+            else:
+                tick_k += cs
             if wants_balance:   # once fallen, the body stays fallen, unless the law gets it up again (a jump)
                 if tilt <= release and strategy.balancing:
                     if catch_k is None and (fell_k is None or again):
@@ -352,6 +395,9 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 cur, torque = update(v, s)
                 c_col[k], t_col[k] = cur, torque
                 net.append(torque - b * s)
+        if timed:   # the voltage in force on every step (a command reaches the drives after its tick)
+            for i in wheels:
+                v_c[i][k] = 0.0 if open_circuit else volts[i]
         if ramp is not None and ramp.active:
             ramp.step()
         if k == next_push:   # a push's torque on its step
@@ -366,19 +412,21 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     if watch is not None:
         outcome = watch.outcome(outcome, fell_k)
     result = _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, wants_balance,
-                     ticks, saturated, wall, power=power)
+                     ticks, saturated, wall, tick_rows=tick_rows, power=power)
+    if timed:
+        result.loop_overruns = schedule.overruns
     if watch is not None:
         result.floor = watch.summary(engine, dt)
         result.cause, result.cause_detail = floor_cause(result) or (result.cause, result.cause_detail)
     return result
 
 def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fell_k, wants_balance,
-            ticks, saturated, wall, power=None) -> TrialResult3D:
+            ticks, saturated, wall, tick_rows=None, power=None) -> TrialResult3D:
     """Close the trace, zero the voltages after a failure's row, judge the outcome and its cause.
     `power`: (bus, chains) of a trial through the power chain: its columns go into the trace."""
     ended = close_trace(trace, outcome=outcome, k=k, n=scenario.n_steps, dt=scenario.world.step,
                         fell_k=fell_k if outcome != "slipped" else None)
-    _hold_tick_values(trace, scenario.control_steps)
+    _hold_tick_values(trace, scenario.control_steps, tick_rows)
     if power:
         _power_columns(trace, power[0])
     if outcome in ("diverged", "strategy_failed") and k < scenario.n_steps:
@@ -415,10 +463,18 @@ def _open_winding(motor: MotorDrive):
     return step
 
 
-def _hold_tick_values(trace: Trace3D, cs: int) -> None:
-    """Copy each control tick's held values (voltages, mode, measurements) down to the rows until the next tick."""
-    rows = (np.arange(trace.n) // cs) * cs
-    held = [a for a in trace.FLOAT_COLUMNS if a.startswith("m_") or a.endswith("_voltage")]
+def _hold_tick_values(trace: Trace3D, cs: int, tick_rows: list[int] | None = None) -> None:
+    """Copy each control tick's held values (voltages, mode, measurements, IMU samples and estimates)
+    down to the rows until the next tick. With `tick_rows` (a timed loop: ticks where the schedule put
+    them) the voltages are left as written, every row (`sim.run.trial._hold_tick_values`'s rule)."""
+    if tick_rows is None:
+        rows = (np.arange(trace.n) // cs) * cs
+        held = [a for a in trace.FLOAT_COLUMNS if a.startswith(("m_", "imu_", "estimated_")) or a.endswith("_voltage")]
+    else:
+        ticks = np.asarray(tick_rows or [0], dtype=np.int64)
+        rows = ticks[np.maximum(np.searchsorted(ticks, np.arange(trace.n), side="right") - 1, 0)]
+        rows = np.where(np.arange(trace.n) < ticks[0], 0, rows)
+        held = [a for a in trace.FLOAT_COLUMNS if a.startswith(("m_", "imu_", "estimated_"))]
     for col in [getattr(trace, a) for a in held] + [trace.mode]:
         col[: trace.n] = col[rows]
 

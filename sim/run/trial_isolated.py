@@ -114,8 +114,9 @@ class PublishedTrace3D(_PhasesPublished, Trace3D):
     """The 3D trace (per axis, per wheel), shared with the child, publishing its phase names."""
 
     def __init__(self, capacity: int, *, step_s: float, beat: isolation.Heartbeat, ball: bool, n_wheels: int,
-                 floor: bool = False, power: bool = False):
-        super().__init__(capacity, step_s=step_s, ball=ball, n_wheels=n_wheels, floor=floor, shared=True, power=power)
+                 floor: bool = False, power: bool = False, extra: tuple[str, ...] = ()):
+        super().__init__(capacity, step_s=step_s, ball=ball, n_wheels=n_wheels, floor=floor, shared=True,
+                         power=power, extra=extra)
         self.beat = beat
 
 

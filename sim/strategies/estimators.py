@@ -18,6 +18,17 @@ and follows their rules. The contract (numbered like the strategy's):
    `{plugin: "file.py:Class", ...params}` or `"package.module:Class"`, loaded by the strategy
    registry's rules (a file must lie in the scenario's folder unless the user allows others; its
    import is tried in a forked child first). Entry points are not searched for estimators.
+5. The vector form (3D devices). ``update_tilts(t_s, gyro_rad_s, accel_m_s2) -> (tilts_rad,
+   rates_rad_s)`` is called instead of `update` on a 3D device, once per tick, with the readings
+   turned into the upright frame: the body frame turned by the device's upright attitude, so that
+   at upright (heading 0) it is the world frame (`sim.core.frames`; on a hinge device, turned about
+   x only). It returns the tilts about world x and y (R = Rz(heading) Ry(tilt_y) Rx(tilt_x)
+   relative to upright, rad) and the body's rates in the heading frame (the world frame turned
+   about the vertical by the heading; rad/s), as many as it knows: the runner takes one tilt and
+   one rate on a hinge, two tilts and three rates elsewhere. `tilt_axes` says how many tilts it
+   gives: the base's `update_tilts` wraps `update` (one tilt: the angle about x, and the x rate),
+   so every one-axis estimator, plug-ins included, runs on a 3D hinge unchanged; a ball or floor
+   corner device needs `tilt_axes = 2` (checked at load).
 
 Tilt from the accelerometer on the hinge: with specific force f = (f_x, f_y, f_z) in the body
 frame, a body at rest at angle theta reads f_y = g sin(theta), f_z = g cos(theta), so
@@ -47,6 +58,8 @@ class Estimator:
     """Base class of every estimator (see the module docstring for the contract)."""
 
     kind: ClassVar[str] = "custom"
+    tilt_axes: ClassVar[int] = 1
+    """Tilts `update_tilts` gives: 1 (about x: hinge devices) or 2 (about x and y: any 3D device)."""
 
     class Params(EstimatorParams):
         model_config = ConfigDict(extra="allow", frozen=True)
@@ -59,10 +72,31 @@ class Estimator:
     def update(self, t_s: float, gyro_rad_s: tuple, accel_m_s2: tuple) -> tuple[float, float]:  # pragma: no cover
         raise NotImplementedError
 
+    def update_tilts(self, t_s: float, gyro_rad_s: tuple, accel_m_s2: tuple) -> tuple[tuple, tuple]:
+        """The vector form (contract item 5); here the one-axis `update`, about x."""
+        angle, rate = self.update(t_s, gyro_rad_s, accel_m_s2)
+        return (angle,), (rate,)
+
 
 def accel_tilt(accel_m_s2) -> float:
     """The body angle about the pivot axis that a specific force at rest implies, rad."""
     return math.atan2(accel_m_s2[1], accel_m_s2[2])
+
+
+def accel_tilts(accel_m_s2) -> tuple[float, float]:
+    """(tilt_x, tilt_y) rad that a specific force at rest implies, the force in the upright frame.
+    At rest f = A^T (0, 0, g) with A = Ry(tilt_y) Rx(tilt_x), i.e.
+    f = g (-sin tilt_y, sin tilt_x cos tilt_y, cos tilt_x cos tilt_y) (rigid-body kinematics)."""
+    fx, fy, fz = accel_m_s2[0], accel_m_s2[1], accel_m_s2[2]
+    return math.atan2(fy, fz), math.atan2(-fx, math.hypot(fy, fz))
+
+
+def heading_rates(tilt_x: float, tilt_y: float, w) -> tuple[float, float, float]:
+    """Rates in the upright frame (the body's, turned by its upright attitude) turned to the heading
+    frame: A w with A = Ry(tilt_y) Rx(tilt_x), rad/s."""
+    cx, sx, cy, sy = math.cos(tilt_x), math.sin(tilt_x), math.cos(tilt_y), math.sin(tilt_y)
+    v1, v2 = cx * w[1] - sx * w[2], sx * w[1] + cx * w[2]
+    return cy * w[0] + sy * v2, v1, -sy * w[0] + cy * v2
 
 
 TWO_PI = 2.0 * math.pi
@@ -76,9 +110,16 @@ class Complementary(Estimator):
     """theta <- a (theta + w dt) + (1 - a) theta_acc with a = tau / (tau + dt): the gyro's integral
     above the crossover frequency 1/(2 pi tau), the accelerometer's tilt below it (common practice,
     no source; references.md, Sensing). The blend is taken on the wrapped difference, so a body
-    passing +-pi is followed. The rate is the gyro's x reading."""
+    passing +-pi is followed. The rate is the gyro's x reading.
+
+    The vector form (3D) runs the same blend on each tilt axis: the gyro, turned to the heading
+    frame by the present estimate (`heading_rates`), integrated as the tilts' own rates
+    (d tilt_x/dt = w_x / cos tilt_y, d tilt_y/dt = w_y: R = Rz Ry Rx's angle rates), and the
+    accelerometer's tilts (`accel_tilts`) below the crossover. Its rates are the gyro's in the
+    heading frame at the new estimate. No heading is estimated (an IMU has no reference for it)."""
 
     kind = "complementary"
+    tilt_axes = 2
 
     class Params(EstimatorParams):
         time_constant: Q("time", gt=0, le=1e4)
@@ -89,6 +130,7 @@ class Complementary(Estimator):
         tau = self.params.time_constant
         self.a = tau / (tau + self.period_s)
         self.angle: float | None = None
+        self.tilts: tuple[float, float] | None = None     # the vector form's state
 
     def update(self, t_s, gyro_rad_s, accel_m_s2):
         w = gyro_rad_s[0]
@@ -99,6 +141,20 @@ class Complementary(Estimator):
             predicted = self.angle + w * self.period_s
             self.angle = _wrap(predicted + (1.0 - self.a) * _wrap(tilt - predicted))
         return self.angle, w
+
+    def update_tilts(self, t_s, gyro_rad_s, accel_m_s2):
+        ax, ay = accel_tilts(accel_m_s2)
+        if self.tilts is None:
+            tx, ty = ax, ay
+        else:
+            tx, ty = self.tilts
+            w = heading_rates(tx, ty, gyro_rad_s)
+            dt, b = self.period_s, 1.0 - self.a
+            px = tx + w[0] / math.cos(ty) * dt
+            py = ty + w[1] * dt
+            tx, ty = _wrap(px + b * _wrap(ax - px)), py + b * (ay - py)
+        self.tilts = (tx, ty)
+        return self.tilts, heading_rates(tx, ty, gyro_rad_s)
 
 
 class KalmanNoise(EstimatorParams):
@@ -117,9 +173,16 @@ class Kalman(Estimator):
     Q = [[q_w^2 dt + q_b^2 dt^3/3, -q_b^2 dt^2/2], [-q_b^2 dt^2/2, q_b^2 dt]] (Van Loan's integral for
     this model); measurement noise R = measurement_noise^2. The covariance is propagated every tick,
     so the gain converges to the steady gain of the discrete Riccati equation (Simon, Optimal
-    State Estimation, 2006). The rate is w_m - b."""
+    State Estimation, 2006). The rate is w_m - b.
+
+    The vector form (3D) is two such filters, one per tilt axis, each fed that tilt's own rate from
+    the gyro turned to the heading frame by the present estimate (as `Complementary`'s) and the
+    accelerometer's tilt about it (`accel_tilts`). Near upright the upright and heading frames
+    nearly agree, so each filter's bias is the gyro's bias about that axis; the z rate is the
+    gyro's, uncorrected (no reference for its bias)."""
 
     kind = "kalman"
+    tilt_axes = 2
 
     class Params(EstimatorParams):
         process_noise: KalmanNoise = KalmanNoise()
@@ -127,6 +190,10 @@ class Kalman(Estimator):
         """Standard deviation of the accelerometer's tilt, rad (vibration and swing included)."""
         initial_bias: Q("angular_speed", ge=0, le=100.0) = 0.05
         """Standard deviation of the gyro bias before the first tick, rad/s."""
+        initial_angle: Q("angle", gt=0, le=math.pi) | None = None
+        """Standard deviation of the angle after the first tick, rad; default: `measurement_noise`
+        (the first accelerometer tilt's). A smaller figure keeps the first ticks' gain small: an IMU
+        far from the pivot reads the body's own kick as tilt, and a gain near 1/2 passes it on."""
 
     def __init__(self, **kw) -> None:
         super().__init__(**kw)
@@ -136,8 +203,11 @@ class Kalman(Estimator):
         self.r = p.measurement_noise ** 2
         self.angle: float | None = None
         self.bias = 0.0
-        self.p11, self.p12, self.p22 = self.r, 0.0, p.initial_bias ** 2
+        self.p11 = self.r if p.initial_angle is None else p.initial_angle ** 2
+        self.p12, self.p22 = 0.0, p.initial_bias ** 2
         self.gain = (0.0, 0.0)
+        self.axes: tuple | None = None                  # the vector form's per-axis filters
+        self.tilts: tuple[float, float] | None = None
 
     def update(self, t_s, gyro_rad_s, accel_m_s2):
         w, dt = gyro_rad_s[0], self.period_s
@@ -159,6 +229,20 @@ class Kalman(Estimator):
         self.p11, self.p12, self.p22 = (1.0 - k1) * p11, (1.0 - k1) * p12, p22 - k2 * p12
         self.gain = (k1, k2)
         return self.angle, w - self.bias
+
+    def update_tilts(self, t_s, gyro_rad_s, accel_m_s2):
+        ax, ay = accel_tilts(accel_m_s2)
+        if self.axes is None:     # one filter per tilt axis, with this one's parameters
+            self.axes = tuple(type(self)(params=self.params, period_s=self.period_s, gravity_m_s2=self.gravity_m_s2)
+                              for _ in range(2))
+            self.tilts = (ax, ay)
+        tx, ty = self.tilts
+        w = heading_rates(tx, ty, gyro_rad_s)
+        # each axis's filter reads its tilt as the accelerometer's atan2 of (sin, cos)
+        tx, rx = self.axes[0].update(t_s, (w[0] / math.cos(ty), 0.0, 0.0), (0.0, math.sin(ax), math.cos(ax)))
+        ty, ry = self.axes[1].update(t_s, (w[1], 0.0, 0.0), (0.0, math.sin(ay), math.cos(ay)))
+        self.tilts = (tx, ty)
+        return self.tilts, (rx * math.cos(ty), ry, heading_rates(tx, ty, gyro_rad_s)[2])
 
 
 ESTIMATORS: dict[str, str] = {

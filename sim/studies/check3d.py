@@ -11,7 +11,10 @@ The planar battery (`sim.studies.verdicts`) judges one angle and one wheel; here
 4. Monte Carlo over the tolerances (`sim.studies.monte_carlo`, judged by `sim.studies.judge3d`);
 5. long holds (`requirements.hold_time`) with the angle sensor's bias at each end of its tolerance
    band, one tilt axis at a time (x, and y on a ball): each wheel's drift fitted and extrapolated to
-   its own no-load speed (`sim.studies.runaway`);
+   its own no-load speed (`sim.studies.runaway`); with an estimator the band is the IMU's
+   misalignment's (`sim.studies.verdicts.bias_ends`), its offset from the scenario's own added to the
+   estimated tilt about that axis (to first order what a board turned about that axis reads);
+7. with an estimator, its steady and push errors (`sim.studies.sensing_checks.sensing_checks3d`);
 6. on a hinge with a wheel off the hinge axis, the same design with every wheel axis along the hinge
    (`axis_twin`), for what the tilt costs.
 Criteria and files: `sim.studies.verdicts3d`, `sim.studies.verdict_report3d`.
@@ -31,7 +34,7 @@ from ..run.metrics3d import trial_metrics3d
 from ..run.trial3d import run_trial3d
 from .battery3d import EarlyStop3D
 from .runaway import fit_drift, runaway_time_s, settling
-from .verdicts import (HOLD_S, PUSH_AT_S, RUNAWAY_HORIZON_FACTOR, _Stop, bias_ends,
+from .verdicts import (HOLD_S, PUSH_AT_S, RUNAWAY_HORIZON_FACTOR, _angle_bias, _Stop, bias_ends,
                        largest_survived, with_trial)
 
 HOLD_TILT_RAD = math.radians(1.0)   # the hold's start tilt from upright (our choice: inside any release angle,
@@ -110,8 +113,12 @@ def runaway_hold3d(sc, device, *, axis: int, bias_rad: float, seed: int) -> dict
     """
     req = sc.requirements
     hold = with_trial(sc, duration=req.hold_time, start=_at_rest(sc), pushes=[])
-    biases = [sc.sensors.angle.bias] * len(tilt_axes(device))
-    biases[axis] = bias_rad
+    if sc.sensors.estimator is None:
+        biases = [sc.sensors.angle.bias] * len(tilt_axes(device))
+        biases[axis] = bias_rad
+    else:   # the IMU keeps its own misalignment; the band's offset from it is added to the estimated tilt
+        biases = [0.0] * len(tilt_axes(device))
+        biases[axis] = bias_rad - _angle_bias(sc)
     result = run_trial3d(hold, seed=seed, stop_early=True, angle_bias_rad=tuple(biases))
     tr = result.trace
     t = np.arange(tr.n) * tr.step_s

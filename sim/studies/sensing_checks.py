@@ -10,6 +10,11 @@
 - With an encoder `max_speed`: criterion `encoder_over_speed_s`, the longest time any of the
   battery's runs spent with a channel past its tracking limit (limit 0: the sensor must never
   lose track while the device holds itself).
+
+On a 3D device (`sensing_checks3d`) the same figures from the 3D battery: the steady error per tilt
+axis (x, and y on a ball) and its size, the hold's RMS error size, and the peak error size after the
+largest push survived about the worst direction; the over-speed criterion reads every wheel (and
+the tilt rates for the attitude channel).
 """
 
 from __future__ import annotations
@@ -20,6 +25,7 @@ import numpy as np
 
 from ..core.angles import wrap_angles
 from ..run.metrics import PUSH_RECOVER_S, totals_end_row
+from ..run.metrics3d import tilt_errors
 from ..run.trial import run_trial
 
 
@@ -62,10 +68,53 @@ def sensing_checks(sc, runs: dict, pushes: dict, *, push_scenario) -> tuple[list
     return criteria, summary
 
 
-def _over_speed(sc, runs: dict) -> tuple[float, str] | None:
-    """(longest time past a tracking limit over the runs, s; a note), or None when no encoder has one."""
-    channels = [(name, getattr(getattr(sc.sensors, name), "max_speed", None), column)
-                for name, column in (("angle", "rate"), ("wheel", "wheel_speed")) if getattr(sc.sensors, name) is not None]
+def sensing_checks3d(sc, runs: dict, pushes: dict, *, push_scenario) -> tuple[list[dict], dict]:
+    """(criteria, summary) for a 3D `check` (see the module docstring). `runs`: name -> TrialResult3D;
+    `pushes`: direction label -> `max_push3d` result; `push_scenario(label, impulse)`: the push test's
+    scenario about that direction."""
+    from ..run.trial3d import run_trial3d
+    criteria, summary = [], {}
+    if sc.sensors.estimator is not None:
+        hold = runs["hold"]
+        err = tilt_errors(hold.trace, 0, totals_end_row(hold))
+        tail = err[2 * err.shape[0] // 3:] if err is not None and err.shape[0] >= 3 else np.zeros((0, 1))
+        steady = tail.mean(axis=0) if tail.size else None
+        summary["estimator"] = sc.sensors.estimator.kind
+        summary["estimator_steady_error_by_axis_rad"] = None if steady is None else dict(zip("xy", map(float, steady)))
+        # one axis: the signed error; two: the size of the mean error (its direction is in by_axis)
+        summary["estimator_steady_error_rad"] = (None if steady is None else float(steady[0]) if steady.size == 1
+                                                 else float(np.hypot(*steady)))
+        summary["estimator_hold_rms_error_rad"] = (float(np.sqrt(np.mean(np.sum(err ** 2, axis=1))))
+                                                   if err is not None and err.size else None)
+        worse = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
+        impulse = pushes[worse]["max_survived_n_m_s"]
+        summary["push_tilt_error_rad"] = None
+        summary["push_tilt_error_impulse_n_m_s"] = impulse
+        summary["push_tilt_error_direction"] = worse
+        if impulse:
+            res = run_trial3d(push_scenario(worse, impulse))
+            push = res.scenario.trial.pushes[0]
+            k0 = int(round(push.at / res.trace.step_s))
+            k1 = min(int(round((push.at + PUSH_RECOVER_S) / res.trace.step_s)), totals_end_row(res))
+            seg = tilt_errors(res.trace, k0, k1) if k1 > k0 else None
+            summary["push_tilt_error_rad"] = float(np.max(np.sqrt(np.sum(seg ** 2, axis=1)))) if seg is not None and seg.size else None
+    wheels = [f"w{i}_speed" for i in range(1, len(sc.wheel_list) + 1)]
+    rates = ["rate_x", "rate_y"] if sc.design_mount == "ball" else ["rate_x"]
+    over = _over_speed(sc, runs, columns={"angle": rates, "wheel": wheels})
+    if over is not None:
+        seconds, note = over
+        criteria.append({"name": "encoder_over_speed_s", "value": seconds, "limit": 0.0, "passed": seconds == 0.0,
+                         "note": note})
+    return criteria, summary
+
+
+def _over_speed(sc, runs: dict, *, columns: dict | None = None) -> tuple[float, str] | None:
+    """(longest time past a tracking limit over the runs, s; a note), or None when no encoder has one.
+    `columns`: channel -> the trace columns it reads (default: one wheel's `rate` and `wheel_speed`)."""
+    named = columns is not None     # several columns per channel: the note names the column
+    columns = columns or {"angle": ["rate"], "wheel": ["wheel_speed"]}
+    channels = [(f"{name} ({column})" if named else name, getattr(getattr(sc.sensors, name), "max_speed", None), column)
+                for name in ("angle", "wheel") if getattr(sc.sensors, name) is not None for column in columns[name]]
     channels = [c for c in channels if c[1] is not None]
     if not channels:
         return None

@@ -14,6 +14,7 @@ from ..media.plots import ACCENT, INK, MUTED
 from ..media.plots3d import summary_figure3d
 from .verdict_report import (FAIL_COLOUR, PASS_COLOUR, format_value, monte_carlo_markdown, run_causes_markdown,
                              write_check_outputs)
+from .sensing_checks import sensing_markdown
 from .verdicts import CheckOutcome
 
 
@@ -67,6 +68,7 @@ def report_markdown3d(v: dict, images: list[str]) -> str:
              f"**Verdict: {'PASS' if v['passed'] else 'FAIL'}**", ""] + criteria_table(v)
     lines += _wheels_markdown(v) + _pushes_markdown(v) + _holds_markdown(v) + _axis_cost_markdown(v)
     lines += _monte_carlo_markdown(v["monte_carlo"])[1:]
+    lines += sensing_markdown(v.get("sensing") or {})
     lines += run_causes_markdown(v)
     lines += ["## Plots", ""] + [f"![{Path(img).stem}]({img})" for img in images] + [""]
     lines += ["## Safety", ""] + [f"- {s}" for s in SAFETY_NOTES] + [""]

@@ -37,6 +37,7 @@ from ..run.trial3d import run_trial3d
 from . import check3d
 from .judge3d import wheel_temperatures_c
 from .monte_carlo import monte_carlo, outcome_with_cause
+from .sensing_checks import sensing_checks3d
 from .step_check import STEP_REL_TOL, step_convergence, step_note
 from .stress import optimistic_summary, wheel_burst_check
 from .thermal import temperature_history_c
@@ -74,20 +75,29 @@ def run_check3d(raw: dict, where: str, *, trials: int, workers=None, cluster=Non
         stage("braking trial, every wheel at once")
         braking_run["braking"], braking = braking_trial(raw, sc, where)
         power = power_criteria(sc, metrics, braking, _criterion)
-    verdict = build_verdict3d(sc, device, runs, metrics, pushes, mc, holds, twin, conv, power_criteria=power)
+    if sc.sensors.estimator is not None:
+        stage("the estimator's tilt error after the largest push")
+    directions = check3d.push_directions(device)
+    sensing = sensing_checks3d(sc, runs, pushes, push_scenario=lambda label, impulse: check3d.push_scenario3d(
+        sc, tuple(impulse * d for d in directions[label])))
+    verdict = build_verdict3d(sc, device, runs, metrics, pushes, mc, holds, twin, conv, sensing,
+                              power_criteria=power)
     return CheckOutcome(verdict=verdict, runs=runs | braking_run, pushes=pushes, mc_rows=mc["rows"] if mc else [])
 
 
 def build_verdict3d(sc, device, runs: dict, metrics: dict, pushes: dict, mc: dict | None, holds: list[dict],
-                    twin: dict | None, conv: dict | None = None, *, power_criteria: list[dict] | None = None) -> dict:
+                    twin: dict | None, conv: dict | None = None, sensing: tuple[list, dict] | None = None, *,
+                    power_criteria: list[dict] | None = None) -> dict:
     """Criteria and the verdict dictionary written to verdict.json (SI, units in the keys); `conv`: the
     step-halving figures (`sim.studies.step_check`), judged as `step_halving_change` (None: left out);
+    `sensing`: (criteria, summary) of `sim.studies.sensing_checks.sensing_checks3d` (None or empty: nothing);
     `power_criteria`: `sim.studies.power_checks.power_criteria`'s, appended (None: none)."""
     worst_dir = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
     wheels = wheel_figures(sc, device, runs, metrics)
+    sensing_crit, sensing_summary = sensing or ([], {})
     crit = (_run_criteria(sc, metrics, pushes, worst_dir, wheels) + [runaway_criterion3d(sc, holds)]
             + _static_criteria(sc, device, runs["hold"], wheels, mc) + ([step_criterion(conv)] if conv else [])
-            + (power_criteria or []))
+            + sensing_crit + (power_criteria or []))
     return {
         "passed": all(c["passed"] for c in crit),
         "scenario": sc.source, "name": sc.name, "strategy": sc.strategy.kind,
@@ -107,6 +117,7 @@ def build_verdict3d(sc, device, runs: dict, metrics: dict, pushes: dict, mc: dic
         "runaway_holds": [{"axis": h["axis"], "wheel": h["wheel"], **s} for h, s in zip(holds, runaway_summary(holds))],
         **({"axis_cost": axis_cost(device, pushes, metrics["nominal"], twin)} if twin is not None else {}),
         **({"step_convergence": conv} if conv else {}),
+        **({"sensing": sensing_summary} if sensing_summary else {}),
         "requirements": sc.requirements.model_dump(),
         "safety": list(SAFETY_NOTES),
     }
