@@ -31,6 +31,7 @@ from ..run.metrics3d import trial_metrics3d
 from ..run.trial3d import run_trial3d
 from .battery3d import EarlyStop3D
 from .runaway import fit_drift, runaway_time_s, settling
+from .runaway3d import predict_bias_response3d
 from .verdicts import (HOLD_S, PUSH_AT_S, RUNAWAY_HORIZON_FACTOR, _Stop, bias_ends,
                        largest_survived, with_trial)
 
@@ -106,7 +107,9 @@ def runaway_hold3d(sc, device, *, axis: int, bias_rad: float, seed: int) -> dict
     The other axis keeps the scenario's own bias. Each wheel's speed is fitted (`fit_drift`) and
     extrapolated to its own no-load speed; the hold reports the wheel that gets there first (or, with
     none drifting, the one with the largest drift against its limit). Keys as
-    `sim.studies.verdicts.runaway_hold`'s, plus `axis` ("x"/"y"), `wheel` (1-based) and `limit_rad_s`.
+    `sim.studies.verdicts.runaway_hold`'s (`prediction`: that wheel's, from the linear model), plus
+    `axis` ("x"/"y"), `wheel` (1-based), `limit_rad_s`, `wheels` (every wheel's entry) and
+    `prediction3d` (`sim.studies.runaway3d.BiasPrediction3D` or None: every wheel's prediction).
     """
     req = sc.requirements
     hold = with_trial(sc, duration=req.hold_time, start=_at_rest(sc), pushes=[])
@@ -137,8 +140,11 @@ def runaway_hold3d(sc, device, *, axis: int, bias_rad: float, seed: int) -> dict
         worst = max(per_wheel, key=lambda e: e["peak_wheel_speed_rad_s"] / e["limit_rad_s"])
     else:
         worst = max(per_wheel, key=lambda e: 0.0 if e["drift"] is None else abs(e["drift"].slope_rad_s2) / e["limit_rad_s"])
+    predicted = predict_bias_response3d(sc, device, angle_bias_rad=biases, hold_s=req.hold_time,
+                                        horizon_s=RUNAWAY_HORIZON_FACTOR * req.run_time)
     return {"axis": tilt_axes(device)[axis], "bias_rad": bias_rad, "outcome": result.outcome,
-            "fell_at_s": result.fell_at_s, "prediction": None, **worst}
+            "fell_at_s": result.fell_at_s, "wheels": per_wheel, "prediction3d": predicted,
+            "prediction": None if predicted is None else predicted.for_wheel(worst["wheel"]), **worst}
 
 
 def runaway_holds3d(sc, device, *, seed: int) -> list[dict]:

@@ -93,7 +93,8 @@ def build_verdict3d(sc, device, runs: dict, metrics: dict, pushes: dict, mc: dic
                                           "peak_tilt_rad", "peak_wheel_speed_rad_s", "wheel_speed_margin",
                                           "peak_current_a", "rms_current_a")}
                  for name, m in metrics.items()},
-        "runaway_holds": [{"axis": h["axis"], "wheel": h["wheel"], **s} for h, s in zip(holds, runaway_summary(holds))],
+        "runaway_holds": [{"axis": h["axis"], "wheel": h["wheel"], **s, "wheels": hold_wheels(h)}
+                          for h, s in zip(holds, runaway_summary(holds))],
         **({"axis_cost": axis_cost(device, pushes, metrics["nominal"], twin)} if twin is not None else {}),
         **({"step_convergence": conv} if conv else {}),
         "requirements": sc.requirements.model_dump(),
@@ -186,8 +187,29 @@ def runaway_criterion3d(sc, holds: list[dict]) -> dict:
     axes = sorted({h["axis"] for h in holds})
     note = (f"{req.hold_time:g} s holds at angle bias {', '.join(f'{b:+.2f}' for b in biases)} deg about "
             f"{' and '.join(axes)} in turn; worst: about {worst['axis']}, wheel {worst['wheel']}: "
-            + runaway_note(worst, worst["limit_rad_s"], unpredicted="no linear prediction on a 3D device yet"))
+            + runaway_note(worst, worst["limit_rad_s"], unpredicted="no linear prediction for this law (the built-in "
+                           "lqr has one)"))
     return _criterion("wheel_runaway_time_s", value, req.run_time, passed, note + ("; cause bias_drift" if drifted else ""))
+
+
+def hold_wheels(hold: dict) -> list[dict]:
+    """Every wheel of one bias hold, simulated beside predicted (SI, units in the keys): the fitted drift
+    and mean speed over the hold's last third, and the linear loop's steady speed, drift over the same
+    window and time at its no-load speed (`sim.studies.runaway3d`; None where there is none)."""
+    predicted = hold.get("prediction3d")
+    out = []
+    for i, e in enumerate(hold.get("wheels") or []):
+        d = e["drift"]
+        p = predicted.wheels[i] if predicted is not None else None
+        out.append({"wheel": e["wheel"], "limit_rad_s": e["limit_rad_s"],
+                    "drift_rad_s2": None if d is None else d.slope_rad_s2,
+                    "drift_se_rad_s2": None if d is None else d.slope_se_rad_s2,
+                    "mean_wheel_speed_rad_s": None if d is None else d.mean_rad_s,
+                    "runaway_time_s": e["runaway_time_s"],
+                    "predicted_steady_speed_rad_s": None if p is None else p.steady_speed_rad_s,
+                    "predicted_drift_rad_s2": None if p is None else p.drift_rad_s2,
+                    "predicted_limit_time_s": None if p is None else p.limit_time_s})
+    return out
 
 
 def _static_criteria(sc, device, hold_run, wheels: list[dict], mc: dict | None) -> list[dict]:
