@@ -2,7 +2,7 @@
 
 Checked against independent computations of the same steady state (the continuous-time equilibrium
 solved with numpy, python-control's DC gain of the discrete closed loop) and against the simulated
-bias holds of `check` (sim/studies/check3d.py) on the demo devices.
+bias holds of `check` (sim/studies/criteria3d.py) on the demo devices.
 """
 
 from __future__ import annotations
@@ -16,7 +16,7 @@ from numpy.testing import assert_allclose
 
 from sim.model.device3d import Device3D
 from sim.model.scenario_yaml import load_scenario
-from sim.studies import check3d
+from sim.studies import criteria3d
 from sim.studies.runaway3d import measurement_offsets, predict_bias_response3d
 
 SCENARIOS = Path(__file__).parent.parent / "scenarios"
@@ -91,7 +91,7 @@ def test_prediction_agrees_with_the_simulated_hold(name, axis, hold_s):
     sc = load_scenario(SCENARIOS / name, overrides=(f"requirements.hold_time={hold_s}",))
     dev = Device3D.from_scenario(sc)
     bias = 0.5 * np.pi / 180.0
-    hold = check3d.runaway_hold3d(sc, dev, axis=axis, bias_rad=bias, seed=sc.trial.seed)
+    hold = criteria3d.runaway_hold3d(sc, dev, axis=axis, bias_rad=bias, seed=sc.trial.seed)
     assert hold["outcome"] == "balanced"
     p = hold["prediction3d"]
     predicted = np.array([w.steady_speed_rad_s for w in p.wheels])
