@@ -66,7 +66,8 @@ class BiasPrediction3D:
 
     `offsets`: the measured-state offset d by state name (rad, rad/s); `steady_tilt_rad`: the true
     angles at the steady state (state order); `slowest_time_constant_s`: -T / ln|z| of the loop's
-    slowest pole; `wheels`: one `WheelPrediction` each; `basis`: how it was found, in words.
+    slowest pole; `wheels`: one `WheelPrediction` each; `basis`: how it was found, in words;
+    `horizon_s`: how far the time at the limit was looked for.
     """
 
     offsets: dict
@@ -74,14 +75,17 @@ class BiasPrediction3D:
     slowest_time_constant_s: float
     wheels: tuple[WheelPrediction, ...]
     basis: str
+    horizon_s: float
 
     def for_wheel(self, wheel: int):
         """The one-wheel form (`sim.studies.runaway.BiasResponse`) for wheel `wheel` (from 1), which
         the hold notes and summaries print: its steady offset and its drift over the hold's window."""
         from .runaway import BiasResponse
         w = self.wheels[wheel - 1]
-        return BiasResponse("offset", self.basis, wheel_speed_rad_s=w.steady_speed_rad_s, angle_rad=self.steady_tilt_rad[0],
-                            wheel_accel_rad_s2=w.drift_rad_s2)
+        at_limit = (f"never reaching its no-load speed within {self.horizon_s:.0f} s" if w.limit_time_s is None
+                    else f"reaching its no-load speed at {w.limit_time_s:.0f} s")
+        return BiasResponse("offset", f"{self.basis}; {at_limit}", wheel_speed_rad_s=w.steady_speed_rad_s,
+                            angle_rad=self.steady_tilt_rad[0], wheel_accel_rad_s2=w.drift_rad_s2)
 
 
 def measurement_offsets(sc, device, *, angle_bias_rad) -> np.ndarray:
@@ -135,7 +139,7 @@ def predict_bias_response3d(sc, device, *, angle_bias_rad, hold_s: float, horizo
     return BiasPrediction3D(
         offsets={n: float(v) for n, v in zip(design.state_names, d) if v},
         steady_tilt_rad=angles, slowest_time_constant_s=-T / math.log(slowest) if slowest > 0 else 0.0,
-        wheels=wheels, basis="final value of the discrete multi-wheel LQR loop on the linear model"
+        wheels=wheels, horizon_s=horizon_s, basis="final value of the discrete multi-wheel LQR loop on the linear model"
                              + (", bearing Coulomb torque as a voltage offset" if np.any(friction) else ""))
 
 
