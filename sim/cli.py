@@ -203,6 +203,8 @@ def fit(log: Path = typer.Argument(..., help="CSV bench log with units in the he
         scenario: Optional[Path] = typer.Option(None, "--scenario", help="Scenario giving m g d, inertias, friction."),
         wheel: Optional[int] = typer.Option(None, "--wheel", help="spin-up, coast-down: the wheel the log was "
                                             "taken on, from 1 in the scenario's order (needed for several wheels)."),
+        axis: Optional[str] = typer.Option(None, "--axis", help="free-swing on a ball mount: x or y, the world axis "
+                                           "(body upright) it swings about."),
         out: Path = typer.Option(Path("runs/fit"), "--out", help="Output folder."),
         force: bool = typer.Option(False, "--force", help="Write into a non-empty folder not made by wheelbench.")):
     """Fit model parameters to a bench log; write fit.json, fit.png, patch.yaml."""
@@ -216,12 +218,15 @@ def fit(log: Path = typer.Argument(..., help="CSV bench log with units in the he
         raise InputError(f"--test: unknown test {test!r}; known: {', '.join(TESTS)}")
     if wheel is not None and test == "free-swing":
         raise InputError(f"--wheel {wheel}: free-swing fits the body's swing, not a wheel; leave --wheel out")
+    if axis is not None and axis not in ("x", "y"):
+        raise InputError(f"--axis {axis!r}: expected x or y")
     check_out_path(out)
     sc = _load(scenario, None) if scenario is not None else None
     if sc is not None and test != "free-swing":
         wheel = pick_wheel(sc, wheel, test=test) + 1 if not sc.is_planar or wheel is not None else None
-    aliases = wheel_aliases(wheel, hinge_angle=test == "free-swing")
-    result = fit_log(read_log(log, aliases=aliases), test, scenario=sc, wheel=wheel)
+    # a 3D trace's tilt_x is the angle of a swing about x (hinge, or a ball's --axis x)
+    aliases = wheel_aliases(wheel, hinge_angle=test == "free-swing" and axis != "y")
+    result = fit_log(read_log(log, aliases=aliases), test, scenario=sc, wheel=wheel, axis=axis)
     written, notes = write_fit_outputs(result, out, log_path=str(log),
                                        scenario_path=str(scenario) if scenario else None, force=force)
     for key, (value, sigma) in result.values.items():

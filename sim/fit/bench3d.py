@@ -13,7 +13,16 @@ axes, a hinge or a ball mount; `sim.model.device3d`):
   centre of mass's distance from the hinge line, and the inertia about the hinge with the wheels'
   spin inertia left out (a free bearing keeps each wheel's spin momentum about its own axis, so
   only its transverse inertia swings with the body; ../shared/references.md, free swing).
-- free-swing on a ball mount is refused (`BALL_SWING`): see there why.
+- free-swing on a ball mount about a named horizontal axis n (world x or y with the body upright,
+  `--axis`; the body hangs after half a turn about it): the upright linear model's mass matrix
+  (`sim.model.linear3d`) turned upside down, with the wheels' spin left out and the turn about the
+  vertical free (a ball has no stiffness there), leaves for the two horizontal axes {n, m} the
+  effective inertia J_hh - J_hv J_vv^-1 J_vh (the heading's momentum eliminated, as for any cyclic
+  coordinate; Goldstein, Classical Mechanics, ch. 8, Routh's procedure, from memory). A swing about
+  n is one pendulum exactly when n is a principal axis of that 2x2 tensor; otherwise it wanders
+  into m, and the fit is refused (`BALL_COUPLED`). m g d is the full centre-of-mass distance.
+  The patch takes the pivot friction, and `body.inertia_correction` (which acts about body x) only
+  when n is body x.
 """
 
 from __future__ import annotations
@@ -24,11 +33,11 @@ import numpy as np
 
 from ..core.errors import InputError
 
-BALL_SWING = ("free-swing on a ball mount is not fitted: hanging from a ball the body swings in two coupled "
-              "directions (a 2D pendulum whose modes lie along the principal axes of its inertia about the pivot, "
-              "not along a horizontal axis one names), and the scenario's body.inertia_correction acts about body "
-              "x only, so a fitted inertia about another axis has no key to patch; swing the body on a hinge rig "
-              "(a hinge scenario of the same parts) instead")
+BALL_AXIS = ("a free swing on a ball mount needs --axis x or y: the world axis, with the body upright, that it "
+             "swings about hanging")
+BALL_COUPLED = 0.02
+"""Largest |J_nm| / min(J_nn, J_mm) of the effective horizontal inertia for a swing about n to count as
+one pendulum (our choice: a 2% product of inertia shifts the mode's axis by about 1 degree or less)."""
 
 
 @dataclass(frozen=True)
@@ -142,19 +151,54 @@ def wheel_bench(sc, i: int):
     return bench, SimpleNamespace(wheel=sc.wheel_list[i], body=sc.body, source=sc.source)
 
 
-def swing_bench(sc) -> SwingBench:
-    """The hinge device's swing figures (InputError naming the mount for a ball or floor mount)."""
+def swing_bench(sc, axis: str | None = None) -> SwingBench:
+    """The swing figures: a hinge's about its hinge, a ball's about world `axis` ("x" or "y", upright);
+    InputError (one line) for a floor mount, a ball without an axis or with one the swing would leave."""
     from ..model.device3d import Device3D
 
-    if sc.body.mount != "hinge":
-        raise InputError(f"{sc.source}: body.mount {sc.body.mount}: " + (
-            BALL_SWING if sc.body.mount == "ball" else
-            "a body on the floor does not swing about a fixed pivot; fit free-swing on a hinge rig"))
+    if sc.body.mount == "floor":
+        raise InputError(f"{sc.source}: body.mount floor: a body on the floor does not swing about a fixed pivot; "
+                         "fit free-swing on a hinge or ball rig")
+    if (axis is not None) != (sc.body.mount == "ball"):
+        raise InputError(f"--axis: {sc.source}: " + (BALL_AXIS if axis is None else
+                         "a hinge swings about its hinge; leave --axis out"))
     device = Device3D.from_scenario(sc)
-    com = device.com_m
-    d = float(np.hypot(com[1], com[2]))     # the hinge line is body x: only the y-z offset swings
     spin = sum(w.spin_inertia_kg_m2 * w.axis[0] ** 2 for w in device.wheels)
-    return SwingBench(mbar_kg_m=device.mass_kg * d, gravity_m_s2=device.gravity_m_s2,
-                      J_kg_m2=float(device.inertia_about_pivot_kg_m2(with_spin=False)[0, 0]), I_w_kg_m2=spin,
-                      wheel_coulomb_n_m=sum(w.coulomb_n_m for w in device.wheels),
-                      wheel_viscous_n_m_s=sum(w.viscous_n_m_s for w in device.wheels))
+    friction = dict(wheel_coulomb_n_m=sum(w.coulomb_n_m for w in device.wheels),
+                    wheel_viscous_n_m_s=sum(w.viscous_n_m_s for w in device.wheels))
+    com = device.com_m
+    J = device.inertia_about_pivot_kg_m2(with_spin=False)
+    if sc.body.mount == "hinge":
+        d = float(np.hypot(com[1], com[2]))     # the hinge line is body x: only the y-z offset swings
+        return SwingBench(mbar_kg_m=device.mass_kg * d, gravity_m_s2=device.gravity_m_s2, J_kg_m2=float(J[0, 0]),
+                          I_w_kg_m2=spin, **friction)
+    j_eff, n = ball_swing_inertia(device, axis)
+    spin = sum(w.spin_inertia_kg_m2 * float(np.dot(w.axis, n)) ** 2 for w in device.wheels)
+    return SwingBench(mbar_kg_m=device.mass_kg * float(np.linalg.norm(com)), gravity_m_s2=device.gravity_m_s2,
+                      J_kg_m2=j_eff, I_w_kg_m2=spin, **friction)
+
+
+def ball_swing_inertia(device, axis: str) -> tuple[float, np.ndarray]:
+    """(J_eff about n, n in the body frame) for a ball device swinging about world `axis` (module
+    docstring); InputError when the swing about n is not one pendulum."""
+    R0 = np.array(device.upright())
+    n = R0.T @ np.eye(3)[{"x": 0, "y": 1}[axis]]          # the body axis that is world x (y) upright
+    v = np.asarray(device.com_m) / float(np.linalg.norm(device.com_m))
+    m = np.cross(v, n)
+    basis = np.column_stack([n, m, v])
+    J = basis.T @ device.inertia_about_pivot_kg_m2(with_spin=False) @ basis
+    eff = J[:2, :2] - np.outer(J[:2, 2], J[2, :2]) / J[2, 2]
+    coupling = abs(eff[0, 1]) / min(eff[0, 0], eff[1, 1])
+    if coupling > BALL_COUPLED:
+        raise InputError(f"--axis {axis}: hanging from its ball, this body does not swing about world {axis} alone: "
+                         f"its effective inertia couples it with the horizontal axis across it ({100 * coupling:.1f}% "
+                         f"of the smaller inertia, more than {100 * BALL_COUPLED:g}%), so the swing wanders and one "
+                         "angle cannot be fitted; swing it about a principal axis, or on a hinge rig")
+    return float(eff[0, 0]), n
+
+
+def body_x_swing(device, axis: str) -> bool:
+    """True when a ball device's swing axis (world `axis` upright) is body x, about which
+    `body.inertia_correction` acts."""
+    n = np.array(device.upright()).T @ np.eye(3)[{"x": 0, "y": 1}[axis]]
+    return bool(abs(n[0]) > 1.0 - 1e-9)
