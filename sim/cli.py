@@ -34,27 +34,12 @@ SeedOpt = typer.Option(None, "--seed", callback=_check_seed,
                        help="Seed for all randomness (default: the scenario's trial.seed).")
 
 
-def _load(scenario: Optional[Path], overrides: Optional[List[str]], *, command: Optional[str] = None):
-    """The validated scenario; `command`: the command's name when it takes one-wheel hinge devices only."""
+def _load(scenario: Optional[Path], overrides: Optional[List[str]]):
+    """The validated scenario (every command takes one-wheel and 3D devices alike)."""
     from .model.scenario_yaml import load_scenario
     sc = load_scenario(scenario, overrides=tuple(overrides or ()))
-    if command is not None:
-        _refuse_3d(sc, command)
     _announce_plugins(sc)
     return sc
-
-
-TAKES_3D = {"check", "sweep", "tune", "catch-map"}   # commands (besides run, compare and gains) that take 3D devices
-
-
-def _refuse_3d(sc, command: str) -> None:
-    """One line (exit 2) for a command that does not take 3D devices yet, instead of a crash or a wrong answer."""
-    if not sc.is_planar and command not in TAKES_3D:
-        from .core.errors import InputError
-        raise InputError(f"{sc.source}: `wheelbench {command}` takes one-wheel hinge devices only in this release; "
-                         "this scenario describes a 3D device (wheels:, a ball mount, parts placed in 3D, a start "
-                         "tilt or vector pushes): `run`, `compare`, `gains`, `check`, `sweep`, `tune` and `catch-map` "
-                         "take it")
 
 
 _ANNOUNCED: set[str] = set()   # plug-in files this command has named on stderr (reset by main)
@@ -216,19 +201,32 @@ def gains(scenario: Optional[Path] = ScenarioArg,
 def fit(log: Path = typer.Argument(..., help="CSV bench log with units in the header (t_s, angle_rad, ...)."),
         test: str = typer.Option(..., "--test", help="free-swing, spin-up or coast-down."),
         scenario: Optional[Path] = typer.Option(None, "--scenario", help="Scenario giving m g d, inertias, friction."),
+        wheel: Optional[int] = typer.Option(None, "--wheel", help="spin-up, coast-down: the wheel the log was "
+                                            "taken on, from 1 in the scenario's order (needed for several wheels)."),
+        axis: Optional[str] = typer.Option(None, "--axis", help="free-swing on a ball mount: x or y, the world axis "
+                                           "(body upright) it swings about."),
         out: Path = typer.Option(Path("runs/fit"), "--out", help="Output folder."),
         force: bool = typer.Option(False, "--force", help="Write into a non-empty folder not made by wheelbench.")):
     """Fit model parameters to a bench log; write fit.json, fit.png, patch.yaml."""
     from .core.errors import InputError
+    from .fit.bench3d import pick_wheel
     from .fit.fit_files import write_fit_outputs
     from .fit.bench_tests import TESTS, fit_log
-    from .fit.logs import read_log
+    from .fit.logs import read_log, wheel_aliases
     from .core.outputs import check_out_path
     if test not in TESTS:
         raise InputError(f"--test: unknown test {test!r}; known: {', '.join(TESTS)}")
+    if wheel is not None and test == "free-swing":
+        raise InputError(f"--wheel {wheel}: free-swing fits the body's swing, not a wheel; leave --wheel out")
+    if axis is not None and axis not in ("x", "y"):
+        raise InputError(f"--axis {axis!r}: expected x or y")
     check_out_path(out)
-    sc = _load(scenario, None, command="fit") if scenario is not None else None
-    result = fit_log(read_log(log), test, scenario=sc)
+    sc = _load(scenario, None) if scenario is not None else None
+    if sc is not None and test != "free-swing":
+        wheel = pick_wheel(sc, wheel, test=test) + 1 if not sc.is_planar or wheel is not None else None
+    # a 3D trace's tilt_x is the angle of a swing about x (hinge, or a ball's --axis x)
+    aliases = wheel_aliases(wheel, hinge_angle=test == "free-swing" and axis != "y")
+    result = fit_log(read_log(log, aliases=aliases), test, scenario=sc, wheel=wheel, axis=axis)
     written, notes = write_fit_outputs(result, out, log_path=str(log),
                                        scenario_path=str(scenario) if scenario else None, force=force)
     for key, (value, sigma) in result.values.items():
@@ -270,7 +268,7 @@ ForceOpt = typer.Option(False, "--force", help="Write into a non-empty folder no
 
 
 def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers: Optional[int] = None,
-              cluster: Optional[str] = None, *, command: str):
+              cluster: Optional[str] = None):
     """The raw scenario mapping (re-validated per trial by check, sweep and catch-map), options checked first."""
     from .core.errors import InputError
     from .core.options import check_cluster, check_workers
@@ -282,7 +280,6 @@ def _load_raw(scenario: Optional[Path], overrides: Optional[List[str]], workers:
     raw, where = load_raw(scenario, tuple(overrides or ()))
     from .model.scenario_yaml import validate_loaded
     sc = validate_loaded(raw, where=where)  # bad input fails here, before an --out folder is made
-    _refuse_3d(sc, command)
     _announce_plugins(sc)
     return raw, where
 
@@ -303,7 +300,7 @@ def check(scenario: Optional[Path] = ScenarioArg,
     from .studies.verdicts import DEFAULT_TRIALS, run_check
     check_trials(trials)
     check_out_path(out)
-    raw, where = _load_raw(scenario, set_, workers, cluster, command="check")  # validated there
+    raw, where = _load_raw(scenario, set_, workers, cluster)  # validated there
     sc = validate_loaded(raw, where=where)
     if not sc.is_planar:   # a 3D device: its own battery and files
         from .studies.verdict_report3d import write_check_outputs3d as write_check_outputs  # noqa: F811
@@ -349,7 +346,7 @@ def sweep(scenario: Optional[Path] = ScenarioArg,
     check_color(color)
     check_trials(trials, minimum=0)
     check_out_path(out)
-    raw, where = _load_raw(scenario, set_, workers, cluster, command="sweep")
+    raw, where = _load_raw(scenario, set_, workers, cluster)
     from .model.scenario_yaml import validate_loaded
     from .studies.sweep_figure import check_color_fits
     check_color_fits(color, validate_loaded(raw, where=where))
@@ -403,7 +400,7 @@ def tune(scenario: Optional[Path] = ScenarioArg,
     if not 1 <= mc <= MAX_TRIALS:
         raise InputError(f"--mc-trials {mc}: expected a whole number from 1 to {MAX_TRIALS:,}")
     check_out_path(out)
-    raw, where = _load_raw(scenario, None, workers, cluster, command="tune")
+    raw, where = _load_raw(scenario, None, workers, cluster)
     setup = search_setup(raw, where, param_texts=param or [], only=only, objective=objective)   # before --out
     out_dir = prepare_out_dir(out, force=force)
     bar, _ = progress("tune")
@@ -452,7 +449,7 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
     from .core.outputs import check_out_path, prepare_out_dir
     from .core.units import parse_quantity
     check_out_path(out)
-    raw, where = _load_raw(scenario, set_, workers, cluster, command="catch-map")
+    raw, where = _load_raw(scenario, set_, workers, cluster)
     from .model.scenario_yaml import validate_loaded
     sc = validate_loaded(raw, where=where)
     jump_opts = {"--speed-factor-min": speed_factor_min, "--speed-factor-max": speed_factor_max,

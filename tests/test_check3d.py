@@ -71,6 +71,13 @@ def test_check_passes_a_strong_three_wheel_ball_device(tmp_path, monkeypatch):
     assert all(w["burst"]["runaway_speed_rad_s"] == pytest.approx(12.0 * 40.0) for w in v["wheels"])
     report = (tmp_path / "out" / "report.md").read_text()
     assert "## Each wheel" in report and "## Bias holds" in report
+    # every hold carries the linear loop's prediction beside the simulated wheels (sim/studies/runaway3d.py;
+    # its numbers are checked in tests/test_runaway3d.py)
+    assert all(len(h["wheels"]) == 3 and all(w["predicted_steady_speed_rad_s"] is not None for w in h["wheels"])
+               for h in v["runaway_holds"])
+    assert "### Linear prediction beside the holds" in report
+    assert "the law predicts a steady wheel offset" in next(c["note"] for c in v["criteria"]
+                                                            if c["name"] == "wheel_runaway_time_s")
     assert all(note in report for note in SAFETY_NOTES)
     for name in ("nominal.png", "hold.png", "pushes.png", "monte_carlo.csv"):
         assert (tmp_path / "out" / name).stat().st_size > 100

@@ -44,6 +44,7 @@ def test_sweep_over_a_wheel_key_and_a_push_component_reports_each_wheel(tmp_path
     out = tmp_path / "sw"
     argv = ["sweep", POLE, "--vary", "wheels[1].parts[0].outer_radius=40 mm,60 mm",
             "--vary", "trial.pushes[0].impulse[1]=10 mN*m*s,20 mN*m*s", "--set", "trial.start.tilt=[0.5 deg, 0]",
+            "--set", "requirements.hold_time=2 s",     # short bias holds for the runaway column: a quick test
             "--out", str(out), "--workers", "1"]
     assert main(argv) == 0
     rows = _rows(out / "results.csv")
@@ -221,6 +222,7 @@ def test_tune_searches_the_multi_wheel_lqr_and_resumes(tmp_path, capsys):
     short = tmp_path / "tilted.yaml"
     raw = yaml.safe_load(Path(TILTED).read_text())
     raw["trial"] |= {"duration": "2 s", "pushes": [{"at": "1 s", "impulse": "8 mN*m*s"}]}
+    raw["requirements"] = {"hold_time": "20 s"}    # shorter bias holds for the runaway criterion (the loop settles in ~10 s)
     short.write_text(yaml.safe_dump(raw))
     argv = ["tune", str(short), "--trials", "2", "--mc-trials", "1", "--workers", "1", "--out", str(out)]
     assert main(argv) == 0
@@ -265,7 +267,8 @@ def test_sweep_over_the_tilted_demos_axis_shows_what_the_tilt_costs(tmp_path):
     # takes the rest), so the tilted wheel must work harder and spin faster for the same trial
     # (the demo's comment: 50.6 against 46.7 rad/s).
     out = tmp_path / "axis"
-    assert main(["sweep", TILTED, "--vary", "wheels[0].axis[1]=0,0.3420201", "--out", str(out), "--workers", "1"]) == 0
+    assert main(["sweep", TILTED, "--vary", "wheels[0].axis[1]=0,0.3420201", "--set", "requirements.hold_time=2 s",
+                 "--out", str(out), "--workers", "1"]) == 0
     straight, tilted = _rows(out / "results.csv")
     assert straight["wheel_count"] == tilted["wheel_count"] == "1"
     assert straight["outcome"] == tilted["outcome"] == "balanced"

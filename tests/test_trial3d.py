@@ -195,8 +195,8 @@ def test_run_writes_per_axis_and_per_wheel_files(tmp_path):
     assert (tmp_path / "out" / "summary.png").stat().st_size > 10_000
 
 
-def test_fit_refuses_a_3d_device(tmp_path, capsys):
-    # every other command takes 3D devices; fitting a bench log to a 3D model is not built
+def test_fit_refuses_a_free_swing_on_a_ball_mount_without_its_axis(tmp_path, capsys):
+    # fit takes 3D devices (tests/test_fit3d.py); a free swing hanging from a ball needs the axis it swings about
     raw = scenario_dict(body=OFF_AXIS_BODY, motor=MOTOR, strategy={"kind": "coast"},
                         trial={"duration": 0.2, "start": {"tilt": [0.1, 0.0]}})
     raw.pop("wheel")
@@ -207,7 +207,7 @@ def test_fit_refuses_a_3d_device(tmp_path, capsys):
     code = main(["fit", str(log), "--test", "free-swing", "--scenario", str(path), "--out", str(tmp_path / "o")])
     err = capsys.readouterr().err.strip()
     assert code == 2
-    assert len(err.splitlines()) == 1 and "takes one-wheel hinge devices only" in err, err
+    assert len(err.splitlines()) == 1 and "needs --axis x or y" in err, err
     assert not (tmp_path / "o").exists()
 
 

@@ -92,7 +92,7 @@ def write_fit_outputs(result: FitResult, out: str | Path, *, log_path: str, scen
         written.append(out_dir / "scenario_fitted.yaml")
         head = f"# {scenario_path} with the fit from {log_path} merged in (wheelbench fit --test {result.test}).\n"
         write_text(written[3], head + edit.text)
-    return written, notes
+    return written, ([result.target_note] if result.target_note else []) + notes
 
 
 def fit_figure(result: FitResult):

@@ -36,6 +36,8 @@ class FitResult:
     patch : nested mapping of scenario keys the fit determines, SI values, ready to merge.
     notes : assumptions and warnings in plain sentences.
     plot : what to draw: {"t_s", "data", "model", "label", "title"}; arrays of equal length.
+    target_note : where the patch's motor values went on a device with several wheels (also in
+        `notes`; the terminal shows it), or None.
     """
 
     test: str
@@ -44,6 +46,7 @@ class FitResult:
     patch: dict = field(default_factory=dict)
     notes: list[str] = field(default_factory=list)
     plot: dict = field(default_factory=dict)
+    target_note: str | None = None
 
     def put(self, key: str, value: float, sigma: float | None) -> None:
         self.values[key] = (float(value), None if sigma is None else float(abs(sigma)))

@@ -5,6 +5,9 @@ as in our traces: ``t_s, angle_rad, wheel_speed_rad_s, voltage_v, current_a``. O
 accepted when the name says so (``t_ms``, ``angle_deg``, ``wheel_speed_rpm``, ``current_ma``);
 ``angle [deg]`` and ``wheel_speed (rad/s)`` are read the same way. Columns we do not know (a
 trace's ``mode``, ``measured_*``) are ignored. Lines starting with ``#`` are comments.
+A 3D device's trace numbers its wheels (``wheel2_speed_rad_s``, ``wheel2_voltage_v``,
+``wheel2_current_a``) and names the hinge angle ``tilt_x_rad``: `read_log`'s `aliases` read such
+columns as the quantities a fit takes (`wheel_aliases`).
 
 Sample times may be uneven but must increase. Angles may be logged wrapped (to +-180 degrees)
 or unwrapped: they are unwrapped here, which assumes the body turns less than half a turn
@@ -81,19 +84,31 @@ def normalise_header(name: str) -> str:
     return re.sub(r"_+", "_", text).strip("_")
 
 
-def classify_column(name: str) -> tuple[str, float] | None:
+def wheel_aliases(wheel: int | None = None, *, hinge_angle: bool = False) -> dict[str, str]:
+    """Column stems read as a fit's quantities: wheel `wheel`'s numbered columns (from 1, as a 3D
+    trace numbers them) as wheel_speed, voltage and current, and with `hinge_angle` a 3D hinge
+    trace's ``tilt_x`` (the angle about the hinge from upright) as angle."""
+    out = {} if wheel is None else {f"wheel{wheel}_speed": "wheel_speed", f"wheel{wheel}_voltage": "voltage",
+                                    f"wheel{wheel}_current": "current"}
+    return out | ({"tilt_x": "angle"} if hinge_angle else {})
+
+
+def classify_column(name: str, aliases: dict[str, str] | None = None) -> tuple[str, float] | None:
     """(quantity, factor to SI) for a header name we know, or None for a column we ignore.
 
-    Raises InputError (without a file name; the caller adds it) for a known quantity with no or an
-    unknown unit, such as ``angle`` or ``angle_grad``.
+    `aliases`: other column stems (``wheel2_speed``) -> the quantity they give (``wheel_speed``),
+    read with that quantity's units. Raises ValueError (without a file name; the caller adds it)
+    for a known quantity with no or an unknown unit, such as ``angle`` or ``angle_grad``.
     """
     norm = normalise_header(name)
-    for quantity, units in QUANTITIES.items():
-        if norm == quantity:
+    stems = [(q, q) for q in QUANTITIES] + list((aliases or {}).items())
+    for stem, quantity in stems:
+        units = QUANTITIES[quantity]
+        if norm == stem:
             raise ValueError(f"column {name!r} has no unit; name it " +
-                             " or ".join(f"{quantity}_{u}" for u in units))
-        if norm.startswith(quantity + "_"):
-            unit = norm[len(quantity) + 1:]
+                             " or ".join(f"{stem}_{u}" for u in units))
+        if norm.startswith(stem + "_"):
+            unit = norm[len(stem) + 1:]
             if unit in units:
                 return quantity, units[unit]
             if "_" not in unit:  # 'angle_grad' is a unit we do not know; 'current_limit_a' is another column
@@ -102,8 +117,10 @@ def classify_column(name: str) -> tuple[str, float] | None:
     return None
 
 
-def read_log(path: str | Path) -> BenchLog:
+def read_log(path: str | Path, *, aliases: dict[str, str] | None = None) -> BenchLog:
     """Read a CSV bench log into SI arrays, a row at a time (memory: 8 bytes per value kept).
+
+    `aliases`: other column stems read as quantities (`wheel_aliases`: a 3D trace's wheel columns).
 
     Raises InputError naming the file (and the column and line where it applies) when the file
     cannot be read, is not well-formed CSV (a quote left open, a field over the CSV reader's
@@ -122,7 +139,7 @@ def read_log(path: str | Path) -> BenchLog:
             header = next(reader, None)
             if header is None:
                 raise InputError(f"{where}: the log is empty")
-            mapping = _columns(header, where)
+            mapping = _columns(header, where, aliases)
             values = {q: array("d") for q in mapping}
             for i, row in enumerate(reader, start=1):
                 for q, (index, _, name) in mapping.items():
@@ -160,12 +177,12 @@ class _DataLines:
                 yield line
 
 
-def _columns(header: list[str], where: str) -> dict[str, tuple[int, float, str]]:
+def _columns(header: list[str], where: str, aliases: dict[str, str] | None = None) -> dict[str, tuple[int, float, str]]:
     """quantity -> (column index, factor to SI, header name), for the columns we know."""
     mapping: dict[str, tuple[int, float, str]] = {}
     for index, name in enumerate(header):
         try:
-            kind = classify_column(name)
+            kind = classify_column(name, aliases)
         except ValueError as exc:
             raise InputError(f"{where}: {exc}") from None
         if kind is None:

@@ -4,6 +4,9 @@
 into a scenario file with ruamel.yaml's round-trip mode, so the comments and the order of keys
 survive. It also does what a merge by hand gets wrong:
 
+- list items: a patch key `wheels[1]` merges its mapping into item 1 (from 0) of the scenario's
+  `wheels` list, so a fit of one wheel changes that wheel's keys only (a list given whole under
+  a plain key still replaces the list);
 - replaced keys: a scenario gives a motor's `speed_constant` (Kv) or its `back_emf_constant`
   (k_e), never both; a patch that sets one removes the other, in the same place in the file, and
   moves its `tolerances` entry to the new key (a relative band carries over unchanged, since
@@ -31,7 +34,8 @@ from pathlib import Path
 
 from ..core.errors import InputError, ScenarioError
 
-# key path -> the key path it replaces (a scenario gives exactly one of each pair)
+# the last two keys of a path -> the two it replaces (a scenario gives exactly one of each pair), for
+# the shared motor and a wheel's own (`wheels[1].motor`) alike
 REPLACED_KEYS = {
     ("motor", "back_emf_constant"): ("motor", "speed_constant"),
     ("motor", "speed_constant"): ("motor", "back_emf_constant"),
@@ -106,7 +110,7 @@ def apply_patches(scenario_path: str | Path, patches: list[dict], *, dest: str |
     for patch, name in zip(patches, names):
         if not isinstance(patch, dict):
             raise InputError(f"{name}: expected a mapping of scenario keys, found {type(patch).__name__}")
-        _merge(doc, doc, plain_value(patch), (), notes)
+        _merge(doc, doc, plain_value(patch), (), notes, name=name)
     dest = Path(dest)
     _rewrite_plugin_paths(doc, src.parent.resolve(), dest.parent.resolve(), notes)
     buf = io.StringIO()
@@ -117,23 +121,46 @@ def apply_patches(scenario_path: str | Path, patches: list[dict], *, dest: str |
     return EditResult(text=text, notes=notes)
 
 
-def _merge(root, node, patch: dict, path: tuple, notes: list[str]) -> None:
+_ITEM_KEY = re.compile(r"([A-Za-z_]\w*)\[(\d{1,6})\]")
+
+
+def _merge(root, node, patch: dict, path: tuple, notes: list[str], *, name: str = "the patch") -> None:
     """Merge `patch` into the round-trip mapping `node` of document `root` (in place), keeping
-    comments and order."""
+    comments and order. `name`: the patch, for messages."""
     from ruamel.yaml.comments import CommentedMap
 
     for key, value in patch.items():
         here = path + (key,)
-        if isinstance(value, dict) and isinstance(node.get(key), dict):
-            _merge(root, node[key], value, here, notes)
+        item = _ITEM_KEY.fullmatch(key) if isinstance(key, str) else None
+        if item is not None:
+            _merge(root, _list_item(node, item, value, here, name), value, here, notes, name=name)
             continue
-        replaced = REPLACED_KEYS.get(here)
+        if isinstance(value, dict) and isinstance(node.get(key), dict):
+            _merge(root, node[key], value, here, notes, name=name)
+            continue
+        replaced = REPLACED_KEYS.get(here[-2:])
         if replaced is not None and replaced[-1] in node and key not in node:
+            old = here[:-2] + replaced
             _take_place(node, replaced[-1], key, value)
-            notes.append(f"{'.'.join(here)} replaces {'.'.join(replaced)} (a scenario gives one of the two)")
-            _move_tolerance(root, replaced, here, notes)
+            notes.append(f"{'.'.join(here)} replaces {'.'.join(old)} (a scenario gives one of the two)")
+            _move_tolerance(root, old, here, notes)
             continue
         node[key] = CommentedMap(value) if isinstance(value, dict) else value
+
+
+def _list_item(node, item, value, here: tuple, name: str):
+    """The mapping a `key[i]` patch key addresses; InputError (one line) when there is none."""
+    key, index = item.group(1), int(item.group(2))
+    seq = node.get(key) if hasattr(node, "get") else None
+    shown = ".".join(here)
+    if not isinstance(seq, list):
+        raise InputError(f"{name}: key {shown}: the scenario has no list {'.'.join(here[:-1] + (key,))}")
+    if index >= len(seq):
+        raise InputError(f"{name}: key {shown}: {key} has {len(seq)} item{'s' if len(seq) != 1 else ''} "
+                         f"(numbered from 0)")
+    if not isinstance(value, dict) or not isinstance(seq[index], dict):
+        raise InputError(f"{name}: key {shown}: expected a mapping of keys to merge into that item")
+    return seq[index]
 
 
 def _move_tolerance(root, old: tuple, new: tuple, notes: list[str]) -> None:

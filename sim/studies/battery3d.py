@@ -9,14 +9,15 @@ What these studies need of a design with one to three wheels on a hinge or ball 
   and the tilt rates small for a while) or clearly lost (tilt past the release angle).
 - `max_push3d`: the largest push survived along one horizontal world direction (bisection).
 - `run_battery3d`: the nominal trial, an upright hold, the largest push in each direction (hinge:
-  +-x; ball: +-x and +-y of the world) and, with `trials`, Monte Carlo over the tolerances; the
-  criteria in `check`'s names where they mean the same.
+  +-x; ball: +-x and +-y of the world), the bias holds and, with `trials`, Monte Carlo over the
+  tolerances; the criteria in `check`'s names where they mean the same.
 
-Left out here and named in the verdict's `not_judged`: the wheel burst check, the long holds for
-wheel runaway, the headroom criteria and the power criteria (they are `check`'s, and it learns
-3D devices on its own). Tilt is `tilt_rad` of `sim.core.frames` (the angle between the
-pivot-to-centre-of-mass line and the vertical); impulses are angular impulses about the pivot in
-the world frame, N m s.
+Burst, runaway and headroom are judged as `check` judges them, by the same functions
+(`sim.studies.criteria3d`): each wheel's burst check, the bias holds per tilt axis, and the headroom
+over the battery's hold. Left out and named in the verdict's `not_judged`: `check`'s step-halving
+trial (power criteria do not arise: a 3D device takes no power-chain keys). Tilt is `tilt_rad` of
+`sim.core.frames` (the angle between the pivot-to-centre-of-mass line and the vertical); impulses
+are angular impulses about the pivot in the world frame, N m s.
 """
 
 from __future__ import annotations
@@ -26,18 +27,22 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..model.device3d import Device3D
 from ..model.scenario import Push, validate_scenario
 from ..model.tolerances import perturbed_raw, scenario_tolerances, trial_seed, wilson_interval
 from ..run.metrics import PUSH_RECOVER_S, SETTLE_BAND_RAD
 from ..run.metrics3d import trial_metrics3d
 from ..run.trial import run_trial
 from . import judge3d
+from .stress import optimistic_summary
+from .criteria3d import burst_criterion, headroom_criteria, runaway_criterion3d, runaway_holds3d, wheel_bursts
 from .verdicts import PUSH_AT_S, SETTLED_RATE_RAD_S, EarlyStop, _Stop, largest_survived, with_trial
 
 HOLD_S = 3.0            # the upright hold with sensor noise (shorter than check's 5 s: a 3D trial costs more)
 PUSH_MAX_EVALS = 16     # per direction (check's 24 for one; a ball mount has four)
-NOT_JUDGED = ("wheel_burst_safety_factor", "wheel_runaway_time_s", "voltage_headroom", "current_headroom",
-              "power criteria")
+NOT_JUDGED = ("step_halving_change",)   # check's; a 3D device has no power criteria (no power-chain keys)
+
+
 def judge_trial3d(scenario, *, seed: int) -> dict:
     """The scenario's own trial judged against its requirements, with the per-wheel columns
     (`sim.studies.judge3d`, which `check`'s Monte Carlo uses too)."""
@@ -162,8 +167,11 @@ def run_battery3d(raw: dict, where: str, *, trials: int = 0) -> Battery3D:
     sc = validate_scenario(raw, where=where)
     req = sc.requirements
     release = getattr(sc.strategy.params, "release_angle", math.pi)
+    device = Device3D.from_scenario(sc)
     nominal = judge_trial3d(sc, seed=sc.trial.seed)
-    hold = judge_trial3d(with_trial(sc, duration=HOLD_S, start=upright_start(sc), pushes=[]), seed=sc.trial.seed)
+    hold_run = run_trial(with_trial(sc, duration=HOLD_S, start=upright_start(sc), pushes=[]), seed=sc.trial.seed,
+                         stop_early=True)
+    hold = judge3d.judge_result3d(hold_run, per_wheel=True)
     start = max(req.min_push, 1e-3)
     pushes = {name: max_push3d(sc, d, seed=sc.trial.seed, start_n_m_s=start) for name, d in push_directions(sc).items()}
     worse = min(pushes, key=lambda d: pushes[d]["max_survived_n_m_s"])
@@ -182,8 +190,11 @@ def run_battery3d(raw: dict, where: str, *, trials: int = 0) -> Battery3D:
                    f"worse direction: {worse} (world frame)"),
         _criterion("wheel_speed_margin", margin, req.wheel_speed_margin,
                    margin is not None and margin >= req.wheel_speed_margin, "worst wheel over the battery's runs"),
+        runaway_criterion3d(sc, runaway_holds3d(sc, device, seed=sc.trial.seed)),
+        *headroom_criteria(sc, device, hold_run.trace),
         _criterion("winding_temperature_c", temp, limit_c, temp <= limit_c,
                    "steady temperature at the hottest wheel's RMS current"),
+        burst_criterion(sc, wheel_bursts(sc, device)),
     ]
     mc = None
     if trials > 0:
@@ -223,12 +234,21 @@ def write_battery3d(outcome: Battery3D, out_dir) -> list[str]:
 
 
 def sweep_row3d(scenario, raw: dict, where: str, *, seed: int, trials: int) -> dict:
-    """A sweep point of a 3D device: its judged trial and, with `trials`, Monte Carlo around it.
-    The burst and runaway columns stay blank (`burst_note` says why): `check`'s, not judged here."""
+    """A sweep point of a 3D device: its judged trial, the burst check and the bias holds (as a planar
+    point's, by `check`'s functions, `sim.studies.criteria3d`) and, with `trials`, Monte Carlo around it."""
+    device = Device3D.from_scenario(scenario)
     row = judge_trial3d(scenario, seed=seed)
-    row |= {"wheel_burst_safety_factor": None, "wheel_runaway_time_s": None,
-            "burst_note": "burst and runaway not judged for 3D devices by sweep"}
+    bursts = wheel_bursts(scenario, device)
+    burst = burst_criterion(scenario, bursts)
+    runaway = runaway_criterion3d(scenario, runaway_holds3d(scenario, device, seed=seed))
+    row |= {"wheel_burst_safety_factor": burst["value"], "wheel_runaway_time_s": runaway["value"],
+            "burst_note": "; ".join(f"wheel {i}: {optimistic_summary(b)}" for i, b in enumerate(bursts, start=1)
+                                    if optimistic_summary(b))}
     reasons = [r for r in row["fail_reasons"].split(";") if r]
+    if not burst["passed"]:
+        reasons.append("burst safety factor")
+    if not runaway["passed"]:
+        reasons.append("wheel runaway")
     if trials:
         mc = monte_carlo3d(raw, where, scenario.model_copy(update={"trial": scenario.trial.model_copy(
             update={"seed": seed})}), trials=trials)

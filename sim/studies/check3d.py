@@ -11,9 +11,10 @@ The planar battery (`sim.studies.verdicts`) judges one angle and one wheel; here
 4. Monte Carlo over the tolerances (`sim.studies.monte_carlo`, judged by `sim.studies.judge3d`);
 5. long holds (`requirements.hold_time`) with the angle sensor's bias at each end of its tolerance
    band, one tilt axis at a time (x, and y on a ball): each wheel's drift fitted and extrapolated to
-   its own no-load speed (`sim.studies.runaway`); with an estimator the band is the IMU's
-   misalignment's (`sim.studies.verdicts.bias_ends`), its offset from the scenario's own added to the
-   estimated tilt about that axis (to first order what a board turned about that axis reads);
+   its own no-load speed, the linear model's prediction beside it (`sim.studies.criteria3d`, which
+   the 3D judge of sweep and tune shares); with an estimator the band is the IMU's misalignment's
+   (`sim.studies.verdicts.bias_ends`), its offset from the scenario's own added to the estimated tilt
+   about that axis (to first order what a board turned about that axis reads);
 7. with an estimator, its steady and push errors (`sim.studies.sensing_checks.sensing_checks3d`);
 6. on a hinge with a wheel off the hinge axis, the same design with every wheel axis along the hinge
    (`axis_twin`), for what the tilt costs.
@@ -25,17 +26,14 @@ from __future__ import annotations
 import copy
 import math
 
-import numpy as np
-
 from ..model.device3d import Device3D
 from ..model.scenario import Push, validate_scenario
 from ..run.metrics import PUSH_RECOVER_S, push_outcomes
 from ..run.metrics3d import trial_metrics3d
 from ..run.trial3d import run_trial3d
 from .battery3d import EarlyStop3D
-from .runaway import fit_drift, runaway_time_s, settling
-from .verdicts import (HOLD_S, PUSH_AT_S, RUNAWAY_HORIZON_FACTOR, _angle_bias, _Stop, bias_ends,
-                       largest_survived, with_trial)
+from .criteria3d import at_rest as _at_rest
+from .verdicts import HOLD_S, PUSH_AT_S, _Stop, largest_survived, with_trial
 
 HOLD_TILT_RAD = math.radians(1.0)   # the hold's start tilt from upright (our choice: inside any release angle,
                                     # outside the 1 degree settle band's centre, so the law has work to do)
@@ -51,18 +49,6 @@ def push_directions(device) -> dict[str, tuple[float, float, float]]:
         return {"+x": (1.0, 0.0, 0.0), "-x": (-1.0, 0.0, 0.0)}
     return {label: (math.cos(math.radians(deg)), math.sin(math.radians(deg)), 0.0)
             for label, deg in BALL_DIRECTIONS.items()}
-
-
-def tilt_axes(device) -> tuple[str, ...]:
-    """The tilt axes the law reads an angle about: x (and y on a ball)."""
-    return ("x", "y") if device.mount == "ball" else ("x",)
-
-
-def _at_rest(sc, *, tilt_rad: float = 0.0) -> dict:
-    if sc.design_mount == "ball":   # a floor device on a corner designs (and starts) as a ball
-        each = tilt_rad / math.sqrt(2.0)
-        return {"tilt": [each, each], "angle": 0.0, "rate": 0.0, "wheel_speed": 0.0}
-    return {"angle": tilt_rad, "rate": 0.0, "wheel_speed": 0.0}
 
 
 def hold_scenario3d(sc):
@@ -99,59 +85,6 @@ def max_push3d(sc, direction: tuple[float, float, float], *, seed: int) -> dict:
     return largest_survived(lambda x: push_survived3d(sc, tuple(x * d for d in direction), seed=seed),
                             start_n_m_s=max(sc.requirements.min_push, 1e-3),
                             floor_n_m_s=PUSH_FLOOR_SHARE * sc.requirements.min_push)
-
-
-# ----------------------------------------------------------------------------- bias holds
-
-def runaway_hold3d(sc, device, *, axis: int, bias_rad: float, seed: int) -> dict:
-    """Hold upright at rest for `requirements.hold_time` with the angle bias set about one tilt axis.
-
-    The other axis keeps the scenario's own bias. Each wheel's speed is fitted (`fit_drift`) and
-    extrapolated to its own no-load speed; the hold reports the wheel that gets there first (or, with
-    none drifting, the one with the largest drift against its limit). Keys as
-    `sim.studies.verdicts.runaway_hold`'s, plus `axis` ("x"/"y"), `wheel` (1-based) and `limit_rad_s`.
-    """
-    req = sc.requirements
-    hold = with_trial(sc, duration=req.hold_time, start=_at_rest(sc), pushes=[])
-    if sc.sensors.estimator is None:
-        biases = [sc.sensors.angle.bias] * len(tilt_axes(device))
-        biases[axis] = bias_rad
-    else:   # the IMU keeps its own misalignment; the band's offset from it is added to the estimated tilt
-        biases = [0.0] * len(tilt_axes(device))
-        biases[axis] = bias_rad - _angle_bias(sc)
-    result = run_trial3d(hold, seed=seed, stop_early=True, angle_bias_rad=tuple(biases))
-    tr = result.trace
-    t = np.arange(tr.n) * tr.step_s
-    per_wheel = []
-    for i, w in enumerate(device.wheels):
-        speed = tr.wheel(i + 1, "speed")[: tr.n].copy()
-        entry = {"wheel": i + 1, "limit_rad_s": w.no_load_speed_rad_s, "drift": None, "runaway_time_s": None,
-                 "settling": False, "peak_wheel_speed_rad_s": float(np.max(np.abs(speed))) if speed.size else 0.0}
-        if result.outcome == "balanced" and speed.size >= 60:
-            drift = fit_drift(t, speed)
-            k = 2 * speed.size // 3
-            entry["drift"], entry["settling"] = drift, settling(fit_drift(t[:k], speed[:k], fraction=0.5), drift)
-            entry["runaway_time_s"] = None if entry["settling"] else runaway_time_s(
-                drift, limit_rad_s=w.no_load_speed_rad_s, horizon_s=RUNAWAY_HORIZON_FACTOR * req.run_time)
-        elif speed.size >= 90:
-            k = 2 * speed.size // 3
-            entry["drift"] = fit_drift(t[:k], speed[:k], fraction=0.5)
-        per_wheel.append(entry)
-    timed = [e for e in per_wheel if e["runaway_time_s"] is not None]
-    if timed:
-        worst = min(timed, key=lambda e: e["runaway_time_s"])
-    elif result.outcome != "balanced":
-        worst = max(per_wheel, key=lambda e: e["peak_wheel_speed_rad_s"] / e["limit_rad_s"])
-    else:
-        worst = max(per_wheel, key=lambda e: 0.0 if e["drift"] is None else abs(e["drift"].slope_rad_s2) / e["limit_rad_s"])
-    return {"axis": tilt_axes(device)[axis], "bias_rad": bias_rad, "outcome": result.outcome,
-            "fell_at_s": result.fell_at_s, "prediction": None, **worst}
-
-
-def runaway_holds3d(sc, device, *, seed: int) -> list[dict]:
-    """The bias holds: each tilt axis at each end of the angle bias's band (`bias_ends`)."""
-    return [runaway_hold3d(sc, device, axis=j, bias_rad=b, seed=seed)
-            for j in range(len(tilt_axes(device))) for b in bias_ends(sc)]
 
 
 # ----------------------------------------------------------------------------- a tilted wheel's cost

@@ -34,7 +34,12 @@ def judge_trial3d(scenario, *, seed: int, per_wheel: bool = False) -> dict:
 
     `per_wheel`: add the peak tilt, the mount, the wheel count and each wheel's figures
     (`wheel_columns`; sweeps and tuning show them)."""
-    result = run_trial(scenario, seed=seed, stop_early=True)
+    return judge_result3d(run_trial(scenario, seed=seed, stop_early=True), per_wheel=per_wheel)
+
+
+def judge_result3d(result, *, per_wheel: bool = False) -> dict:
+    """A 3D trial already run (`sim.run.trial3d.TrialResult3D`) judged as `judge_trial3d` does."""
+    scenario = result.scenario
     m = trial_metrics3d(result)
     req = scenario.requirements
     reasons = []

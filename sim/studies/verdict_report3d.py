@@ -110,8 +110,31 @@ def _holds_markdown(v: dict) -> list[str]:
         drift = "-" if h["drift_rad_s2"] is None else f"{h['drift_rad_s2']:.3g} +- {h['drift_se_rad_s2']:.2g} rad/s^2"
         when = "none" if h["runaway_time_s"] is None else f"{h['runaway_time_s']:.1f} s"
         lines.append(f"| {h['axis']} | {math.degrees(h['bias_rad']):+.2f} deg | {h['outcome']} | {h['wheel']} | {drift} | {when} |")
-    return lines + ["", "Each hold biases the angle sensor about one tilt axis (the other keeps the scenario's "
-                    "bias); the wheel shown is the first to reach its no-load speed, or the one drifting most.", ""]
+    lines += ["", "Each hold biases the angle sensor about one tilt axis (the other keeps the scenario's "
+              "bias); the wheel shown is the first to reach its no-load speed, or the one drifting most.", ""]
+    return lines + _predictions_markdown(v)
+
+
+def _predictions_markdown(v: dict) -> list[str]:
+    """Every wheel of every hold, simulated beside the linear model's prediction."""
+    rows = [(h, w) for h in v["runaway_holds"] for w in h.get("wheels") or [] if w["predicted_steady_speed_rad_s"] is not None]
+    if not rows:
+        return []
+    def num(x, fmt, unit=""):
+        return "-" if x is None else f"{x:{fmt}}{unit}"
+    lines = ["### Linear prediction beside the holds", "",
+             "| about | bias | wheel | mean speed (sim) | steady speed (linear) | drift (sim) | drift (linear) "
+             "| at its limit (linear) |", "|---|---|---|---|---|---|---|---|"]
+    for h, w in rows:
+        lines.append(f"| {h['axis']} | {math.degrees(h['bias_rad']):+.2f} deg | {w['wheel']} "
+                     f"| {num(w['mean_wheel_speed_rad_s'], '.1f', ' rad/s')} | {w['predicted_steady_speed_rad_s']:.1f} rad/s "
+                     f"| {num(w['drift_rad_s2'], '.3g', ' rad/s^2')} | {w['predicted_drift_rad_s2']:.3g} rad/s^2 "
+                     f"| {num(w['predicted_limit_time_s'], '.0f', ' s') if w['predicted_limit_time_s'] is not None else 'never'} |")
+    return lines + ["", "Linear: the discrete multi-wheel LQR loop on the upright linear model under the hold's "
+                    "angle biases, the rate gyro's bias and the angle encoder's mean quantisation error, bearing "
+                    "Coulomb torque as a voltage offset; drift over the hold's last third as the simulated hold's "
+                    "is fitted; 'never': not within 10x requirements.run_time. Gyroscopic terms and the drive's "
+                    "limits are not in it.", ""]
 
 
 def _axis_cost_markdown(v: dict) -> list[str]:

@@ -317,7 +317,10 @@ def runaway_note(hold: dict, limit_rad_s: float, *, unpredicted: str = "no linea
         return text + f"; the law predicts a wheel speed growing without bound ({p.basis})"
     if p.kind == "ramp":
         return text + f"; the law predicts an unbounded wheel acceleration of {p.wheel_accel_rad_s2:.3g} rad/s^2 ({p.basis})"
-    return text + f"; the law predicts a steady wheel offset of {p.wheel_speed_rad_s:.1f} rad/s ({p.basis})"
+    text += f"; the law predicts a steady wheel offset of {p.wheel_speed_rad_s:.1f} rad/s ({p.basis})"
+    if p.wheel_accel_rad_s2 is not None:    # a 3D hold's prediction: the linear loop over the same window too
+        text += f", drifting {p.wheel_accel_rad_s2:.3g} rad/s^2 over the hold's last third"
+    return text
 
 
 def runaway_summary(holds: list[dict]) -> list[dict]:

@@ -23,7 +23,6 @@ Criteria (each a value against a `requirements` limit; a value that could not be
 from __future__ import annotations
 
 import math
-from types import SimpleNamespace
 
 import numpy as np
 
@@ -35,14 +34,14 @@ from ..model.tolerances import interval_note
 from ..run.metrics3d import trial_metrics3d
 from ..run.trial3d import run_trial3d
 from . import check3d
+from .criteria3d import (burst_criterion, headroom_criteria, hold_wheels, runaway_criterion3d, runaway_holds3d,
+                         wheel_bursts)
 from .judge3d import wheel_temperatures_c
 from .monte_carlo import monte_carlo, outcome_with_cause
 from .sensing_checks import sensing_checks3d
 from .step_check import STEP_REL_TOL, step_convergence, step_note
-from .stress import optimistic_summary, wheel_burst_check
 from .thermal import temperature_history_c
-from .verdicts import (HOLD_S, RUNAWAY_NEAR_LIMIT, CheckOutcome, _at_least, _at_most, _criterion, _failure_counts,
-                       _headroom, runaway_note, runaway_summary, worst_hold)
+from .verdicts import HOLD_S, CheckOutcome, _at_least, _at_most, _criterion, _failure_counts, runaway_summary
 
 
 def run_check3d(raw: dict, where: str, *, trials: int, workers=None, cluster=None, on_stage=None,
@@ -65,7 +64,7 @@ def run_check3d(raw: dict, where: str, *, trials: int, workers=None, cluster=Non
         stage(f"Monte Carlo, {trials} trials")
         mc = monte_carlo(raw, where, sc, trials=trials, workers=workers, cluster=cluster, on_done=on_done)
     stage(f"{sc.requirements.hold_time:g} s holds for wheel drift, about each tilt axis")
-    holds = check3d.runaway_holds3d(sc, device, seed=sc.trial.seed)
+    holds = runaway_holds3d(sc, device, seed=sc.trial.seed)
     twin = check3d.axis_twin(raw, where, sc, device, seed=sc.trial.seed, on_stage=stage)
     stage(f"the scenario's own trial at half the step ({sc.world.step / 2 * 1e3:g} ms)")
     conv = step_convergence(sc, coarse=runs["nominal"])
@@ -114,7 +113,8 @@ def build_verdict3d(sc, device, runs: dict, metrics: dict, pushes: dict, mc: dic
                                           "peak_tilt_rad", "peak_wheel_speed_rad_s", "wheel_speed_margin",
                                           "peak_current_a", "rms_current_a")}
                  for name, m in metrics.items()},
-        "runaway_holds": [{"axis": h["axis"], "wheel": h["wheel"], **s} for h, s in zip(holds, runaway_summary(holds))],
+        "runaway_holds": [{"axis": h["axis"], "wheel": h["wheel"], **s, "wheels": hold_wheels(h)}
+                          for h, s in zip(holds, runaway_summary(holds))],
         **({"axis_cost": axis_cost(device, pushes, metrics["nominal"], twin)} if twin is not None else {}),
         **({"step_convergence": conv} if conv else {}),
         **({"sensing": sensing_summary} if sensing_summary else {}),
@@ -140,11 +140,9 @@ def wheel_figures(sc, device, runs: dict, metrics: dict) -> list[dict]:
     """Per wheel: speed margin (lowest run named), burst check at its runaway speed, winding temperature."""
     out = []
     temps = wheel_temperatures_c(runs["nominal"])
-    for i, w in enumerate(device.wheels):
+    for i, (w, burst) in enumerate(zip(device.wheels, wheel_bursts(sc, device))):
         margins = {name: m["wheels"][i]["speed_margin"] for name, m in metrics.items()}
         low = min(margins, key=margins.get)
-        burst = wheel_burst_check(SimpleNamespace(wheel=sc.wheel_list[i]),
-                                  SimpleNamespace(no_load_speed_rad_s=w.no_load_speed_rad_s))
         motor = sc.wheel_motor(i)
         out.append({"wheel": i + 1, "axis": list(w.axis), "speed_limit_rad_s": w.no_load_speed_rad_s,
                     "speed_margin": margins[low], "speed_margin_run": low,
@@ -195,74 +193,18 @@ def _axis(axis) -> str:
     return "[" + ", ".join(f"{v:.3g}" for v in axis) + "]"
 
 
-def runaway_criterion3d(sc, holds: list[dict]) -> dict:
-    """`wheel_runaway_time_s`: the shortest time to a wheel's speed limit over the per-axis holds.
-
-    A fall during a hold gives 0; no drift in any hold gives None (passes). The note names the worst
-    hold's axis, bias and wheel; a failure with a wheel near its limit carries cause `bias_drift`.
-    """
-    req = sc.requirements
-    worst, value, passed, fallen = worst_hold(holds, run_time_s=req.run_time)
-    drifted = not passed and (not fallen or worst["peak_wheel_speed_rad_s"] >= RUNAWAY_NEAR_LIMIT * worst["limit_rad_s"])
-    biases = sorted({round(math.degrees(h["bias_rad"]), 4) for h in holds})
-    axes = sorted({h["axis"] for h in holds})
-    note = (f"{req.hold_time:g} s holds at angle bias {', '.join(f'{b:+.2f}' for b in biases)} deg about "
-            f"{' and '.join(axes)} in turn; worst: about {worst['axis']}, wheel {worst['wheel']}: "
-            + runaway_note(worst, worst["limit_rad_s"], unpredicted="no linear prediction on a 3D device yet"))
-    return _criterion("wheel_runaway_time_s", value, req.run_time, passed, note + ("; cause bias_drift" if drifted else ""))
-
-
 def _static_criteria(sc, device, hold_run, wheels: list[dict], mc: dict | None) -> list[dict]:
     """Headroom (worst wheel in the hold), winding temperature, burst and Monte Carlo criteria."""
-    req, tr = sc.requirements, hold_run.trace
-    volt, amp = [], []
-    for i, w in enumerate(device.wheels):
-        limited = math.isfinite(w.current_limit_a)
-        volt.append(_headroom(tr.wheel(i + 1, "voltage").copy(), w.supply_v))
-        amp.append(_headroom(tr.wheel(i + 1, "current").copy(), w.current_limit_a if limited else w.supply_v / w.resistance_ohm))
+    req = sc.requirements
     hot = max(wheels, key=lambda w: w["winding_temperature_c"] - w["max_winding_temperature_c"])
-    bursts = [(w["wheel"], w["burst"]) for w in wheels]
-    known = [(i, b) for i, b in bursts if b["safety_factor"] is not None]
-    weak_i, weak = min(known, key=lambda ib: ib[1]["safety_factor"]) if known else (None, None)
-    unknown = [f"wheel {i}: {', '.join(b['unknown_parts']).replace('wheel.parts[', f'wheels[{i - 1}].parts[')}"
-               if sc.wheels is not None else f"wheel {i}: {', '.join(b['unknown_parts'])}" for i, b in bursts if b["unknown_parts"]]
-    note = "each wheel's parts at its own runaway speed (no-load speed at full supply)"
-    # the stress check names a part as `wheel.parts[k]`; with a `wheels:` list the key is wheels[i].parts[k]
-    listed = sc.wheels is not None
-
-    def key(i: int, text: str) -> str:
-        return text.replace("wheel.parts[", f"wheels[{i - 1}].parts[") if listed else text
-    if weak is not None:
-        part = min((p for p in weak["parts"] if p["safety_factor"] is not None), key=lambda p: p["safety_factor"])
-        note = f"weakest: wheel {weak_i}, {key(weak_i, part['part'])} at {weak['runaway_speed_rad_s']:.0f} rad/s; " + note
-    if unknown:
-        note = f"strength unknown for {'; '.join(unknown)}: cannot confirm; " + note
-    notes = [f"wheel {i}: {key(i, optimistic_summary(b))}" for i, b in bursts if optimistic_summary(b)]
-    if notes:
-        note += "; " + "; ".join(notes)
-    factor = weak["safety_factor"] if weak is not None else None
-    return [
-        _at_least("voltage_headroom", _worst_of(volt), req.voltage_headroom,
-                  f"holding: 1 - p99(|V|)/supply, worst wheel {_worst_index(volt)}"),
-        _at_least("current_headroom", _worst_of(amp), req.current_headroom,
-                  f"holding: 1 - p99(|i|)/current limit (or stall current), worst wheel {_worst_index(amp)}"),
+    return headroom_criteria(sc, device, hold_run.trace) + [
         _at_most("winding_temperature_c", hot["winding_temperature_c"], hot["max_winding_temperature_c"],
                  f"hottest: wheel {hot['wheel']}'s motor at {hot['rms_current_a']:.3g} A RMS, steady state over the "
                  "scenario's own trial; " + ", ".join(f"wheel {w['wheel']} {w['winding_temperature_c']:.1f} degC" for w in wheels)),
-        _criterion("wheel_burst_safety_factor", factor, req.burst_safety_factor,
-                   factor is not None and not unknown and factor >= req.burst_safety_factor, note),
+        burst_criterion(sc, [w["burst"] for w in wheels]),
     ] + ([] if mc is None else [
         _at_least("monte_carlo_pass_fraction", mc["pass_fraction"], req.pass_fraction,
                   f"{mc['trials']} trials over the tolerances; " + interval_note(mc["passed_trials"], mc["trials"], req.pass_fraction))])
-
-
-def _worst_of(values):
-    return None if any(v is None for v in values) else min(values)
-
-
-def _worst_index(values) -> str:
-    known = [(v, i) for i, v in enumerate(values) if v is not None]
-    return str(min(known)[1] + 1) if known else "-"
 
 
 def axis_cost(device, pushes: dict, nominal: dict, twin: dict) -> dict:
