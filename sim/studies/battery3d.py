@@ -15,7 +15,7 @@ What these studies need of a design with one to three wheels on a hinge or ball 
 Burst, runaway and headroom are judged as `check` judges them, by the same functions
 (`sim.studies.criteria3d`): each wheel's burst check, the bias holds per tilt axis, and the headroom
 over the battery's hold. Left out and named in the verdict's `not_judged`: `check`'s step-halving
-trial (power criteria do not arise: a 3D device takes no power-chain keys). Tilt is `tilt_rad` of
+trial, and with power-chain keys `check`'s braking trial and power criteria (`check` judges them). Tilt is `tilt_rad` of
 `sim.core.frames` (the angle between the pivot-to-centre-of-mass line and the vertical); impulses
 are angular impulses about the pivot in the world frame, N m s.
 """
@@ -40,7 +40,8 @@ from .verdicts import PUSH_AT_S, SETTLED_RATE_RAD_S, EarlyStop, _Stop, largest_s
 
 HOLD_S = 3.0            # the upright hold with sensor noise (shorter than check's 5 s: a 3D trial costs more)
 PUSH_MAX_EVALS = 16     # per direction (check's 24 for one; a ball mount has four)
-NOT_JUDGED = ("step_halving_change",)   # check's; a 3D device has no power criteria (no power-chain keys)
+NOT_JUDGED = ("step_halving_change",)   # check's
+NOT_JUDGED_POWER = ("power criteria",)  # check's braking trial and power criteria, for a device with power-chain keys
 
 
 def judge_trial3d(scenario, *, seed: int) -> dict:
@@ -205,7 +206,7 @@ def run_battery3d(raw: dict, where: str, *, trials: int = 0) -> Battery3D:
         "passed": all(c["passed"] for c in crit), "scenario": sc.source, "name": sc.name,
         "strategy": sc.strategy.kind, "mount": sc.body.mount, "wheel_count": len(sc.wheel_list),
         "criteria": crit, "max_push_survived_n_m_s": push, "max_push_direction": worse, "pushes": pushes,
-        "runs": runs, "not_judged": list(NOT_JUDGED),
+        "runs": runs, "not_judged": list(NOT_JUDGED) + (list(NOT_JUDGED_POWER) if sc.power_model else []),
         "monte_carlo": None if mc is None else {k: v for k, v in mc.items() if k != "rows"},
         "requirements": req.model_dump(),
     }
