@@ -4,10 +4,12 @@ Per physics step `FloorWatch.see` records the balancing contact's world x, y (th
 whether the body touches the floor and |F_t| / F_n over its floor contacts (the friction the motion
 asked of the floor) in the trace's floor columns. From the first step at which the law balances, the
 contact's horizontal travel is measured from where it was then; past `floor.slip_limit` the trial is
-`slipped` (the slip came before any fall; a slip after the fall is part of the fall).
+`slipped` (the slip came before any fall; a slip after the fall is part of the fall). A law that gets
+the body up again after a fall (a jump) starts a new episode at its next catch: the travel is then
+measured from where the contact was at that catch (the fall's own slide is not a slip while balancing).
 
 After the trial, `summary` gives the metrics' floor keys: `slip_m` (the largest travel while balancing,
-up to the fall), `lift_off_s` (time without floor contact over the trial), `rest_face` (the face nearest
+up to the fall, over every episode), `lift_off_s` (time without floor contact over the trial), `rest_face` (the face nearest
 to facing the floor at the end, `sim.model.floor.face_down`, when it lies on it: within REST_COS of
 straight down and the body still; else None), `peak_friction_ratio` (the largest |F_t| / F_n while
 balancing, up to the fall) against `floor_friction`.
@@ -33,9 +35,11 @@ class FloorWatch:
         self.cols = (memoryview(trace.contact_x), memoryview(trace.contact_y), memoryview(trace.contact_z),
                      memoryview(trace.in_contact), memoryview(trace.friction_ratio))
         self.limit2 = floor.slip_limit_m ** 2
-        self.origin = None        # the contact's (x, y) when balancing began
+        self.origin = None        # the contact's (x, y) when balancing (this episode) began
         self.slipped_k = None
         self.balance_k = None
+        self.break_k = None       # the step at which this episode's balancing stopped, if it did
+        self.episodes = []        # earlier episodes (first step, step balancing stopped) of a law that gets up again
         self.fell_k = None
 
     def stepper(self):
@@ -47,10 +51,16 @@ class FloorWatch:
         def see(k, balancing):
             x, y, z, touching, ratio = contact()
             cx[k], cy[k], cz[k], ct[k], cr[k] = x, y, z, touching, ratio
-            if not balancing or self.slipped_k is not None:
+            if not balancing:
+                if self.origin is not None and self.break_k is None:
+                    self.break_k = k          # balancing stopped (a fall): a later catch starts a new episode
                 return False
-            if self.origin is None:
-                self.origin, self.balance_k = (x, y), k
+            if self.slipped_k is not None:
+                return False
+            if self.origin is None or self.break_k is not None:
+                if self.break_k is not None:
+                    self.episodes.append((self.balance_k, self.break_k))
+                self.origin, self.balance_k, self.break_k = (x, y), k, None
                 return False
             dx, dy = x - self.origin[0], y - self.origin[1]
             if dx * dx + dy * dy > limit2:
@@ -80,6 +90,10 @@ class FloorWatch:
             end = stop if fell is None else min(stop, fell)
             slip = float(np.max(np.hypot(x[b:end] - x[b], y[b:end] - y[b]))) if end > b else 0.0
             peak_ratio = float(np.max(ratio[b + 1:end])) if end > b + 1 else None
+        for b, end in self.episodes:      # each earlier episode from its own start (none for most trials)
+            slip = max(slip, float(np.max(np.hypot(x[b:end] - x[b], y[b:end] - y[b]))) if end > b else 0.0)
+            if end > b + 1:
+                peak_ratio = max(peak_ratio or 0.0, float(np.max(ratio[b + 1:end])))
         face, cos_down = face_down(engine.attitude())
         rates = engine.pb.getBaseVelocity(engine.body_id, physicsClientId=engine.client)[1]
         still = math.sqrt(sum(w * w for w in rates)) < REST_RATE_RAD_S

@@ -103,7 +103,7 @@ class JumpToCorner(JumpLaw):
         self.lqr = None
         self.balancing = False
         self._still_since = self._rest_since = self._handover_s = self._ratio_at_handover = None
-        self.phase = "edge"
+        self.phase, self._first = "edge", True
 
     # -- what the reading says about the edge and the corner -------------------------------------------
     def _body_frame(self, reading: Reading):
@@ -121,6 +121,10 @@ class JumpToCorner(JumpLaw):
         e.angle_rad, e.rate_rad_s, e.wheel_speed_rad_s = tilt, float(omega[0]), reading.wheel_speed_rad_s
         return e
 
+    def _corner_tilt(self, up) -> float:
+        """The angle of the corner-to-centre-of-mass line from the vertical, rad."""
+        return math.acos(max(-1.0, min(1.0, float(up @ self.com) / self.norm_c)))
+
     def _energy_ratio(self, h: float, rate_n: float) -> float:
         needed = self.mg * (self.norm_c - self.d)
         reached = self.mg * (h - self.d) + 0.5 * self.fig.inertia_kg_m2 * rate_n * rate_n
@@ -130,6 +134,10 @@ class JumpToCorner(JumpLaw):
     def decide(self, reading: Reading):
         up, omega = self._body_frame(reading)
         w = np.asarray(reading.wheel_speeds_rad_s, dtype=float)
+        if self._first:      # already on the corner (its tilt about the edge reads 0 there too): balance
+            self._first = False
+            if self._corner_tilt(up) <= CATCH_ANGLE:
+                return self._hand_over(reading, ratio=None)
         if self.phase.startswith("corner balance"):
             return self._balance(reading, up, omega, w)
         if self.phase == "edge" or self.phase.startswith("face"):
@@ -219,7 +227,7 @@ class JumpToCorner(JumpLaw):
     def _watch_rise(self, reading, up, omega, w):
         h = float(up @ self.com)
         rate_n = float(omega @ self.n_axis)
-        if math.acos(min(1.0, h / self.norm_c)) <= CATCH_ANGLE:
+        if self._corner_tilt(up) <= CATCH_ANGLE:
             return self._hand_over(reading, ratio=self._energy_ratio(h, rate_n))
         self.peak_h = max(self.peak_h, h)
         locked = np.all(np.abs(w[self.used]) <= LOCKED * self.reached)
@@ -235,8 +243,7 @@ class JumpToCorner(JumpLaw):
         return self.lqr.decide(reading)
 
     def _balance(self, reading, up, omega, w):
-        tilt = math.acos(max(-1.0, min(1.0, float(up @ self.com) / self.norm_c)))
-        if tilt <= self.params.release_angle:
+        if self._corner_tilt(up) <= self.params.release_angle:
             if self._ratio_at_handover is not None and reading.t_s - self._handover_s > HELD_S:
                 self._ratio_at_handover = None
             return self.lqr.decide(reading)
