@@ -12,7 +12,11 @@ After the trial, `summary` gives the metrics' floor keys: `slip_m` (the largest 
 up to the fall, over every episode), `lift_off_s` (time without floor contact over the trial), `rest_face` (the face nearest
 to facing the floor at the end, `sim.model.floor.face_down`, when it lies on it: within REST_COS of
 straight down and the body still; else None), `peak_friction_ratio` (the largest |F_t| / F_n while
-balancing, up to the fall) against `floor_friction`.
+balancing, up to the fall) against `floor_friction`; `lifted` (the balancing contact left the floor for
+longer than LIFT_LIMIT_S at a stretch while balancing), `lifted_at_s` (when that stretch began),
+`longest_lift_off_s` (the longest stretch while balancing) and `lift_limit_s`. A fall after a lift-off has the
+cause `contact_lifted` (the fall's own cause follows in its sentence); a balanced trial that lifted stays
+`balanced`, its `lifted` saying so.
 """
 
 from __future__ import annotations
@@ -25,6 +29,10 @@ from ..model.floor import face_down
 
 REST_COS = math.cos(math.radians(5.0))   # a face within 5 deg of straight down lies on the floor (our choice)
 REST_RATE_RAD_S = 0.05                   # ... and the body turns slower than this (our choice)
+LIFT_LIMIT_S = 0.005
+"""A balancing contact off the floor longer than this, while balancing, is a lift-off (`lifted`): 5 ms, two
+and a half control ticks at 500 Hz, longer than the step or two a contact flickers while it settles or
+takes an impact (our choice)."""
 
 
 class FloorWatch:
@@ -85,15 +93,18 @@ class FloorWatch:
         x, y, touch, ratio = tr.contact_x[:n], tr.contact_y[:n], tr.in_contact[:n], tr.friction_ratio[:n]
         slip = 0.0
         peak_ratio = None
+        episodes = list(self.episodes)    # earlier episodes from their own starts (none for most trials)
         if self.balance_k is not None and self.balance_k < stop:
             b = self.balance_k
             end = stop if fell is None else min(stop, fell)
             slip = float(np.max(np.hypot(x[b:end] - x[b], y[b:end] - y[b]))) if end > b else 0.0
             peak_ratio = float(np.max(ratio[b + 1:end])) if end > b + 1 else None
-        for b, end in self.episodes:      # each earlier episode from its own start (none for most trials)
+            episodes.append((b, end))
+        for b, end in self.episodes:
             slip = max(slip, float(np.max(np.hypot(x[b:end] - x[b], y[b:end] - y[b]))) if end > b else 0.0)
             if end > b + 1:
                 peak_ratio = max(peak_ratio or 0.0, float(np.max(ratio[b + 1:end])))
+        longest, lifted_k = off_floor(touch, episodes, limit_steps=LIFT_LIMIT_S / dt)
         face, cos_down = face_down(engine.attitude())
         rates = engine.pb.getBaseVelocity(engine.body_id, physicsClientId=engine.client)[1]
         still = math.sqrt(sum(w * w for w in rates)) < REST_RATE_RAD_S
@@ -102,12 +113,37 @@ class FloorWatch:
                 "lift_off_s": float(np.count_nonzero(touch[1:] == 0.0)) * dt,   # row 0: no step taken yet
                 "rest_face": face if cos_down >= REST_COS and still else None,
                 "peak_friction_ratio": peak_ratio, "floor_friction": self.floor.friction,
-                "floor_restitution": self.floor.restitution, "balance_on": self.floor.balance_on}
+                "floor_restitution": self.floor.restitution, "balance_on": self.floor.balance_on,
+                "lifted": lifted_k is not None, "lifted_at_s": lifted_k * dt if lifted_k is not None else None,
+                "longest_lift_off_s": longest * dt, "lift_limit_s": LIFT_LIMIT_S}
+
+
+def off_floor(touch, episodes, *, limit_steps: float) -> tuple[int, int | None]:
+    """(the longest run of steps without floor contact inside the balancing episodes [b, end), the first
+    step of the first such run longer than `limit_steps`, or None). Row 0 holds no step: left out."""
+    longest, first = 0, None
+    for b, end in episodes:
+        off = np.concatenate(([0], (touch[max(b, 1):end] == 0.0).astype(np.int8), [0]))
+        edges = np.flatnonzero(np.diff(off))
+        starts, lengths = edges[0::2], edges[1::2] - edges[0::2]
+        if lengths.size:
+            longest = max(longest, int(lengths.max()))
+            long_runs = starts[lengths > limit_steps]
+            if long_runs.size and first is None:
+                first = int(long_runs[0]) + max(b, 1)
+    return longest, first
 
 
 def floor_cause(result):
-    """(cause, sentence) for a floor trial the contact explains (`slipped`); a fall's own cause with the
-    face it came to rest on; else None."""
+    """(cause, sentence) for a floor trial the contact explains (`slipped`; a fall after a lift-off,
+    `contact_lifted`); a fall's own cause with the face it came to rest on; else None."""
+    f = result.floor
+    if result.outcome == "fell" and f["lifted"] and result.fell_at_s is not None and f["lifted_at_s"] <= result.fell_at_s:
+        own = f"; then {result.cause_detail}" if result.cause_detail else ""
+        rest = f"; it came to rest on its {f['rest_face']}" if f["rest_face"] else ""
+        return "contact_lifted", (f"the balancing contact left the floor at t = {f['lifted_at_s']:.3f} s while "
+                                  f"balancing (longest off the floor {f['longest_lift_off_s'] * 1e3:.1f} ms, limit "
+                                  f"{f['lift_limit_s'] * 1e3:g} ms){own}{rest}")
     if result.outcome == "fell" and result.cause_detail and result.floor["rest_face"]:
         return result.cause, f"{result.cause_detail}; it came to rest on its {result.floor['rest_face']}"
     if result.outcome != "slipped":

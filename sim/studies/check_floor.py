@@ -84,8 +84,8 @@ def run_check_floor(raw: dict, where: str, *, trials: int, workers=None, cluster
 
 
 def _floor_keys(m: dict) -> dict:
-    keys = ("slip_m", "slip_limit_m", "slipped_at_s", "lift_off_s", "rest_face", "peak_friction_ratio",
-            "floor_friction", "balance_on")
+    keys = ("slip_m", "slip_limit_m", "slipped_at_s", "lift_off_s", "lifted", "lifted_at_s", "longest_lift_off_s",
+            "rest_face", "peak_friction_ratio", "floor_friction", "balance_on")
     return {k: m.get(k) for k in keys}
 
 
