@@ -135,3 +135,12 @@ def test_a_corner_device_without_a_wheel_to_hold_the_edge_fails_as_an_outcome():
     raw["trial"]["duration"] = 0.1
     res = run_trial(validate_scenario(raw, where=where))
     assert res.outcome == "strategy_failed" and "hold the edge" in res.message
+
+
+def test_a_wheel_along_the_edge_that_reads_a_rounding_sized_share_still_holds_the_edge():
+    # with the battery 35 mm up, n = c x u comes out with an x part of about 1e-16 (exactly 0 in exact
+    # arithmetic: u has no x part), so the x wheel reads a need of about 3e-14 rad/s; it must still be the
+    # wheel that holds the edge, not a corner wheel (seen on a cube of our own before the threshold)
+    res, m = _demo("body.parts[1].at=[75 mm, 75 mm, 35 mm]", "trial.start.resting_on=edge", "trial.duration=3 s")
+    assert abs(edge_to_corner(res.device).wheel_speeds_rad_s[0]) > 0.0       # the rounding is there
+    assert res.outcome == "balanced" and m["jump_attempts"] == 1

@@ -70,7 +70,9 @@ class JumpToCorner(JumpLaw):
         self.fig = fig = edge_to_corner(device)
         self.n_axis = np.array(fig.axis)
         need = np.array(fig.wheel_speeds_rad_s)
-        self.used = need != 0.0
+        # a wheel at right angles to n in exact arithmetic can read a rounding-sized share: not a corner wheel
+        self.used = np.abs(need) > 1e-9 * fig.needed_wheel_speed_rad_s
+        need = np.where(self.used, need, 0.0)
         along_edge = np.array([abs(w.axis[0]) > 1e-9 for w in self.units])
         self.hold = along_edge & ~self.used
         if not self.hold.any():
