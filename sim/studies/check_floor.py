@@ -185,7 +185,8 @@ def run_jump_check(sc, *, raw: dict | None = None, where: str | None = None, tri
         "runs": {name: {k: m.get(k) for k in (
             "outcome", "message", "cause", "cause_detail", "caught_at_s", "settle_time_s", "peak_tilt_rad",
             "peak_wheel_speed_rad_s", "wheel_speed_margin", "needed_wheel_speed_rad_s",
-            "reached_wheel_speed_rad_s", "jump_attempts", "jump_margin", "rest_face", "slip_m", "lift_off_s")}
+            "reached_wheel_speed_rad_s", "jump_attempts", "jump_margin", "rest_face", "slip_m", "lift_off_s",
+            "face_jump_attempts", "face_needed_wheel_speed_rad_s", "face_reached_wheel_speed_rad_s")}
             for name, m in metrics.items()},
         "floor": {name: _floor_keys(m) for name, m in metrics.items()},
         "jump_margin_min": JUMP_MARGIN_MIN, "jump_attempts_limit": JUMP_ATTEMPTS_LIMIT,
@@ -315,6 +316,11 @@ def jump_report_markdown(v: dict, images: list[str]) -> str:
         lines.append(f"| {name} | {r['outcome']} | {format_value('_s', r['caught_at_s'])} | {r['jump_attempts']} | "
                      f"{_num(r['needed_wheel_speed_rad_s'])} / {_num(r['reached_wheel_speed_rad_s'])} rad/s | "
                      f"{_num(None if r['slip_m'] is None else r['slip_m'] * 1e3)} mm | {r['rest_face'] or '-'} |")
+    if v.get("balance_on") == "corner":
+        lines += ["", "The jumps above are the edge-to-corner ones; from a face first onto the edge:", "",
+                  "| run | jumps face to edge | needed / reached wheel speed |", "|---|---|---|"]
+        lines += [f"| {name} | {r['face_jump_attempts'] or 0} | {_num(r['face_needed_wheel_speed_rad_s'])} / "
+                  f"{_num(r['face_reached_wheel_speed_rad_s'])} rad/s |" for name, r in v["runs"].items()]
     lines += ["", f"Limits of our choosing: jump_margin at least {JUMP_MARGIN_MIN:g}, at most "
               f"{JUMP_ATTEMPTS_LIMIT} jumps. No push bisection or bias holds for a jump law here.", ""]
     if v["monte_carlo"] is not None:
