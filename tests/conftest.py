@@ -7,7 +7,32 @@ are invented for tests (not a real device).
 
 from __future__ import annotations
 
-import copy
+import os
+import platform
+import sys
+
+
+def _pin_blas_kernels() -> None:
+    """Pick OpenBLAS's AVX2 (Haswell) kernels on x86-64 machines that have AVX2, before numpy loads.
+
+    numpy's OpenBLAS chooses its kernels by the CPU it finds (DYNAMIC_ARCH): an AVX-512 machine sums a
+    small matrix product in another order than an AVX2 one, so its results differ in the last bit, and a
+    closed-loop trial carries that into every later row. The pin tests (tests/pins) compare traces bit for
+    bit, so the suite asks for one kernel family everywhere it can run it. A user's numbers are not
+    touched: this is set for the tests only, and a value already set in the environment is kept."""
+    if "numpy" in sys.modules or platform.machine().lower() not in ("x86_64", "amd64"):
+        return
+    try:
+        flags = open("/proc/cpuinfo", encoding="ascii", errors="replace").read()
+    except OSError:
+        return
+    if " avx2" in flags and " fma" in flags:
+        os.environ.setdefault("OPENBLAS_CORETYPE", "Haswell")
+
+
+_pin_blas_kernels()
+
+import copy  # noqa: E402
 from pathlib import Path
 
 import pytest

@@ -126,3 +126,16 @@ def test_an_lqr_floor_device_on_a_slippery_floor_fails_the_slip_criterion(tmp_pa
     ratio = crit["peak_friction_ratio"]
     assert ratio["limit"] == pytest.approx(friction) and ratio["passed"] == (ratio["value"] < friction)
     assert code == (0 if v["passed"] else 1) and (not slips or not v["passed"])
+
+
+def test_a_jump_cube_on_a_slippery_floor_with_a_noisy_gyro_recovers_from_a_fall(tmp_path):
+    # Before: the fall was started by a push, which the floor engine applies as a horizontal force at the
+    # centre of mass over one step; on a floor of friction 0.5 it slid the cube or knocked it past its face,
+    # and with 0.03 rad/s of gyro noise the law never saw it at rest to jump again: the criterion failed
+    # with the recovery never tested. Now the cube starts on its edge turning about it (an ideal kick)
+    code, v = _check(tmp_path, "floor_jump.yaml", "floor.friction=0.5", "sensors.rate_gyro.noise=0.03 rad/s")
+    crit = _crit(v)
+    assert crit["fall_recovered_attempts"]["passed"], crit["fall_recovered_attempts"]
+    rec = v["runs"]["recover"]
+    assert rec["outcome"] == "balanced" and rec["jump_attempts"] >= 1
+    assert v["recover_kick_n_m_s"] > 0 and v["recover_tries"][-1]["jump_attempts"] >= 1

@@ -336,3 +336,31 @@ def test_a_fall_after_a_lift_off_is_blamed_on_the_lift_off():
     # a lift-off after the fall (the fall's bounce) is not the cause
     late = SimpleNamespace(**{**vars(fell), "fell_at_s": 0.9})
     assert floor_cause(late)[0] == "tilt_runaway"
+
+
+def test_a_balance_regained_after_a_fall_is_measured_afresh():
+    # FloorWatch, fed by hand: balancing at x = 0, 1 mm of creep, a fall that carries the contact 40 mm
+    # away, then balance again there. The slip of the second balance is its own, not the fall's
+    from types import SimpleNamespace
+
+    from sim.run.floor_contact import FloorWatch
+    n = 8
+    trace = SimpleNamespace(**{c: np.zeros(n) for c in ("contact_x", "contact_y", "contact_z", "in_contact",
+                                                      "friction_ratio")})
+    floor = SimpleNamespace(slip_limit_m=0.005)
+    path = iter([(0.0, True), (0.001, True), (0.02, False), (0.04, False), (0.04, True), (0.041, True),
+                 (0.042, True), (0.0425, True)])
+    state = {}
+
+    def contact():
+        return state["x"], 0.0, 0.0, 1.0, 0.1
+
+    watch = FloorWatch(contact, trace, floor, stop_early=True)
+    see = watch.stepper()
+    for k, (x, balancing) in enumerate(path):
+        state["x"] = x
+        assert see(k, balancing) is False, k
+    assert watch.slipped_k is None and watch.balance_k == 4
+    # past the limit in the new balance it is a slip again
+    state["x"] = 0.0460
+    assert see(n - 1, True) is True and watch.slipped_k == n - 1

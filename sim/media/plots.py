@@ -115,7 +115,7 @@ def _upright_lines(ax) -> None:
 
 def _event_markers(axes, result) -> None:
     """Vertical markers on every panel: pushes, the catch and a fall, labelled on the top panel."""
-    events = [(p.at, f"push {_impulse_mn_m_s(p.impulse):g} mN m s", ACCENT) for p in result.scenario.trial.pushes
+    events = [(p.at, f"push {_impulse_mn_m_s(p.impulse)} mN m s", ACCENT) for p in result.scenario.trial.pushes
               if p.at <= result.ended_at_s]
     if result.caught_at_s is not None:
         events.append((result.caught_at_s, "caught", "#2b7a3d"))
@@ -128,11 +128,12 @@ def _event_markers(axes, result) -> None:
                          textcoords="offset points", fontsize=7, color=colour, rotation=90, va="bottom")
 
 
-def _impulse_mn_m_s(impulse) -> float:
-    """A push's size in mN m s: the number, or the length of a 3-vector."""
+def _impulse_mn_m_s(impulse) -> str:
+    """A push as written, in mN m s to four significant figures: the number, or the 3-vector's components
+    (world frame)."""
     if isinstance(impulse, tuple):
-        return float(np.sqrt(sum(x * x for x in impulse))) * 1000
-    return impulse * 1000
+        return "[" + ", ".join(f"{x * 1000:.4g}" for x in impulse) + "]"
+    return f"{impulse * 1000:.4g}"
 
 
 def _shade_phases(axes, tr) -> None:

@@ -52,6 +52,9 @@ SPEED_LOOP_S = 0.05              # time constant of the wheel-speed correction, 
 SETTLE_S = 0.3                   # brake anyway this long after the references reached their targets
 REST_RATE = 0.05                 # rad/s: the body is at rest below this tilt rate ...
 REST_S = 0.3                     # ... held this long (our choices)
+REST_FILTER_S = 0.05             # s: the tilt rate judged for rest through a first-order low-pass of this time
+                                 # constant: a MEMS gyro's noise at 1 kHz (0.03 rad/s) crosses REST_RATE
+                                 # every few ticks, so the raw rate never stayed under it for REST_S (our choice)
 RATIO_CLAMP = (0.25, 4.0)        # a measured energy ratio outside this is taken at the bound: one
                                  # correction changes the speed by at most a factor 2 (our choice)
 LOCKED = 0.02                    # a wheel below 2% of its speed at the brake counts as locked to the body
@@ -160,7 +163,7 @@ class JumpUp3D(JumpLaw):
         if self.phase == "balance":
             if abs(tilt) > self.params.release_angle:     # it got up but the LQR lost it: a miss
                 self.balancing, self.lqr, self.phase = False, None, "fallen"
-                self._rest_since = None
+                self._rest_since = self._rate_f = None
             else:
                 if reading.t_s - self._handover_s > HELD_S:
                     self._ratio_at_handover = None
@@ -202,7 +205,7 @@ class JumpUp3D(JumpLaw):
         locked = np.all(np.abs(w[self.used]) <= LOCKED * self.extra_metrics["reached_wheel_speed_rad_s"])
         if locked and rate * self.sense <= 0.0:   # turned back (or never rose) short of the catch region
             self._judge(self._energy_ratio(self.peak, 0.0))
-            self.phase, self._rest_since = "fell back", None
+            self.phase, self._rest_since, self._rate_f = "fell back", None, None
         return [0.0] * len(self.units)
 
     def _hand_over(self, reading: Reading, *, ratio):
@@ -220,7 +223,9 @@ class JumpUp3D(JumpLaw):
         if self.phase == "fallen" and getattr(self, "_ratio_at_handover", None) is not None:
             self._judge(self._ratio_at_handover)     # it got up: the handover's energy says by how much
             self._ratio_at_handover = None
-        if abs(rate) < REST_RATE and abs(tilt) > CATCH_ANGLE:
+        held = getattr(self, "_rate_f", None)
+        self._rate_f = rate if held is None else held + (rate - held) * self.period / (REST_FILTER_S + self.period)
+        if abs(self._rate_f) < REST_RATE and abs(tilt) > CATCH_ANGLE:
             self._rest_since = t_s if self._rest_since is None else self._rest_since
             if t_s - self._rest_since >= REST_S:
                 if self.extra_metrics["jump_attempts"] >= self.max_attempts:

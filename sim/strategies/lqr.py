@@ -108,39 +108,40 @@ class MultiWheelLqr(LqrBalance):
         kinds = [state_kind(name) for name in self.design.state_names]
         self._n_angles, self._n_rates, self._n_wheels = kinds.count(0), kinds.count(1), kinds.count(2)
         self.supplies_v = np.array([w.supply_v for w in self.spec.wheels], dtype=float)
-        self._neg_supplies_v = -self.supplies_v
+        self._supplies = self.supplies_v.tolist()
         # one matrix on one buffer [measured state, held commands oldest first], so that a tick is a
         # few numpy calls whatever the delay (the same law as K times the predicted state)
         self._G = np.hstack([G_x, *G_u])
         self._z = np.zeros(self._G.shape[1])
         self._n_x, self._n_u = G_x.shape[1], len(self.supplies_v)
+        self._held = [0.0] * (self._G.shape[1] - self._n_x)   # V, oldest tick first, plain floats
         self.phase = "balance"
 
     def held_commands(self) -> np.ndarray:
         """The commands the delay predictor holds, oldest first, as applied (clamped), V (rows: ticks)."""
-        return self._z[self._n_x:].reshape(-1, self._n_u).copy()
+        return np.array(self._held, dtype=float).reshape(-1, self._n_u)
 
-    def state_from(self, reading: Reading) -> np.ndarray:
-        """The measured state vector in the design's order (a view of a buffer reused every tick)."""
+    def _measured(self, reading: Reading) -> list:
+        """The measured state in the design's order, a list of floats (checked against the design's sizes)."""
         na, nr, nw = self._n_angles, self._n_rates, self._n_wheels
         angles, rates, wheels = reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s
         if len(angles) < na or len(rates) < nr or len(wheels) != nw:
             raise StrategyError(f"the reading has {len(angles)} angles, {len(rates)} rates and {len(wheels)} wheel "
                                 f"speeds; this device's law needs {na}, {nr} and {nw}")
+        return [*angles[:na], *rates[:nr], *wheels]
+
+    def state_from(self, reading: Reading) -> np.ndarray:
+        """The measured state vector in the design's order (a view of a buffer reused every tick)."""
         x = self._z[:self._n_x]
-        x[:] = (*angles[:na], *rates[:nr], *wheels)       # one assignment: cheaper than three
+        x[:] = self._measured(reading)
         return x
 
     def decide(self, reading: Reading) -> list[float]:
-        self.state_from(reading)
+        held = self._held
         z = self._z
-        v = self._G.dot(z)
-        np.negative(v, out=v)
-        if z.shape[0] > self._n_x:            # a delay: shift the held commands, append this one clamped
-            m = self._n_u
-            held = z[self._n_x:]
-            held[:-m] = held[m:].copy()
-            newest = held[-m:]
-            np.minimum(v, self.supplies_v, out=newest)
-            np.maximum(newest, self._neg_supplies_v, out=newest)
-        return v.tolist()
+        z[:] = self._measured(reading) + held     # one assignment: [measured state, held commands]
+        v = [-x for x in self._G.dot(z).tolist()]
+        if held:            # a delay: drop the oldest held commands, append this tick's as the drive applies them
+            del held[:self._n_u]
+            held += [s if x > s else (-s if x < -s else x) for x, s in zip(v, self._supplies)]
+        return v
