@@ -441,9 +441,12 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
                   brake_time_min: Optional[str] = typer.Option(None, "--brake-time-min", help="Jump devices: "
                                                                "shortest brake engagement time (default '0 ms')."),
                   brake_time_max: Optional[str] = typer.Option(None, "--brake-time-max", help="Jump devices: "
-                                                               "longest brake engagement time (default '100 ms').")):
+                                                               "longest brake engagement time (default '100 ms')."),
+                  jump: bool = typer.Option(False, "--jump", help="Map the jump (pre-brake wheel speed against "
+                                            "brake engagement time): the default for a jump strategy; on one "
+                                            "wheel also for swing_and_catch with a jump swing-up.")):
     """Map which start states (angle, body rate) the balance law catches; catch_map.csv and .png.
-    On a 3D device whose strategy is jump: which pre-brake wheel speeds and brake times get it up."""
+    With a jump strategy (or --jump on one wheel): which pre-brake wheel speeds and brake times get it up."""
     from .studies.catchmap import catch_map, write_catch_map
     from .core.errors import InputError
     from .core.outputs import check_out_path, prepare_out_dir
@@ -455,14 +458,14 @@ def catch_map_cmd(scenario: Optional[Path] = ScenarioArg,
     jump_opts = {"--speed-factor-min": speed_factor_min, "--speed-factor-max": speed_factor_max,
                  "--brake-time-min": brake_time_min, "--brake-time-max": brake_time_max}
     from .studies.jumpmap import is_jump_map
-    if is_jump_map(sc):
+    if is_jump_map(sc, jump=jump):
         _jump_map(raw, where, grid=grid, opts=jump_opts, others={"--angle-max": angle_max, "--rate-max": rate_max,
                   "--axes": axes, "--direction": direction}, out=out, workers=workers, cluster=cluster, force=force)
         return
-    given = [k for k, v in jump_opts.items() if v is not None]
+    given = [k for k, v in jump_opts.items() if v is not None] + (["--jump"] if jump else [])
     if given:
-        raise InputError(f"{given[0]}: {sc.source} is not a 3D device whose strategy is jump; the option is for "
-                         "jump maps")
+        raise InputError(f"{given[0]}: {sc.source} has no jump to map (strategy jump, or on one wheel "
+                         "swing_and_catch with swing_up kind jump); the option is for jump maps")
     if sc.is_planar and (axes is not None or direction is not None):
         raise InputError(f"{'--axes' if axes is not None else '--direction'}: {sc.source} describes a one-wheel "
                          "hinge device; its map is angle against rate (the option is for 3D devices)")

@@ -92,7 +92,10 @@ def print_run(sc, m: dict, out: Path) -> None:
         rows.append(("friction used", "-" if ratio is None else
                      f"peak |F_t|/F_n {ratio:.3g} of friction {m['floor_friction']:g}"
                      + (" (the contact slid)" if ratio >= 0.99 * m["floor_friction"] else "")))
-        rows.append(("off the floor", _fmt(m["lift_off_s"], "s")))
+        lifted = m.get("lifted_at_s")
+        rows.append(("off the floor", _fmt(m["lift_off_s"], "s") + (
+            f" (lifted while balancing at {lifted:.3f} s, {m['longest_lift_off_s'] * 1e3:.0f} ms at a stretch)"
+            if lifted is not None else "")))
         if m.get("rest_face"):
             rows.append(("came to rest on", str(m["rest_face"])))
     if m.get("estimator") is not None:    # only with sensors.estimator / timing: today's table otherwise

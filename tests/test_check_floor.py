@@ -67,6 +67,38 @@ def test_a_jump_device_that_reaches_passes_the_jump_criteria(tmp_path):
     need = _needed_wheel_speed_rad_s(device, math.radians(45.0))
     assert v["runs"]["nominal"]["needed_wheel_speed_rad_s"] == pytest.approx(need, rel=0.03)
     assert (tmp_path / "out" / "report.md").read_text().count("jump_margin") >= 1
+    # Monte Carlo of the jump-up over the default tolerances: one trial here, its row in monte_carlo.csv
+    assert v["monte_carlo"]["trials"] == 1 and crit["monte_carlo_pass_fraction"]["passed"]
+    rows = (tmp_path / "out" / "monte_carlo.csv").read_text().splitlines()
+    assert len(rows) == 2 and rows[1].split(",")[-3] == "True"
+
+
+def _wilson(k: int, n: int) -> tuple[float, float]:
+    """Wilson score interval, written out here from Wilson, JASA 22 (1927) 209-212 (shared/references.md), at
+    95%: z the standard normal's 97.5% quantile (1.95996..., from the standard library)."""
+    from statistics import NormalDist
+    z = NormalDist().inv_cdf(0.975)
+    p = k / n
+    centre, half = p + z * z / (2 * n), z * math.sqrt(p * (1 - p) / n + z * z / (4 * n * n))
+    return (centre - half) / (1 + z * z / n), (centre + half) / (1 + z * z / n)
+
+
+def test_the_corner_jump_demo_passes_check_and_recovers_from_a_push_off_its_corner(tmp_path):
+    args = ["check", str(SCENARIOS / "floor_corner_jump.yaml"), "--out", str(tmp_path / "out"), "--trials", "2",
+            "--workers", "1"]
+    code = main(args)
+    v = json.loads((tmp_path / "out" / "verdict.json").read_text())
+    crit = _crit(v)
+    assert code == 0 and v["passed"], [c for c in v["criteria"] if not c["passed"]]
+    assert v["balance_on"] == "corner" and v["runs"]["nominal"]["jump_attempts"] == 1
+    rec = v["runs"]["recover"]
+    assert rec["outcome"] == "balanced" and rec["jump_attempts"] >= 1   # it fell off its corner and jumped again
+    assert "off its corner" in crit["fall_recovered_attempts"]["note"]
+    mc = v["monte_carlo"]
+    assert mc["trials"] == 2 and crit["monte_carlo_pass_fraction"]["value"] == mc["passed_trials"] / 2
+    np.testing.assert_allclose([mc["pass_fraction_low"], mc["pass_fraction_high"]], _wilson(mc["passed_trials"], 2),
+                               rtol=1e-12)   # hand formula: only rounding
+    assert "## Monte Carlo" in (tmp_path / "out" / "report.md").read_text()
 
 
 def test_too_weak_a_motor_fails_on_jump_margin(tmp_path):

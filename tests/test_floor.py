@@ -291,6 +291,53 @@ def test_gains_names_the_floor_mount_and_the_mount_it_designs_for(capsys):
     assert report["mount"] == "floor" and report["design_mount"] == "hinge"
 
 
+def test_off_floor_finds_the_stretches_inside_the_balancing_episodes():
+    # hand-made contact column: row 0 holds no step; off the floor at rows 3-4 (2 steps) and 8-12 (5 steps)
+    from sim.run.floor_contact import off_floor
+    touch = np.ones(16)
+    touch[[0, 3, 4, 8, 9, 10, 11, 12]] = 0.0
+    assert off_floor(touch, [(0, 16)], limit_steps=4) == (5, 8)
+    assert off_floor(touch, [(0, 16)], limit_steps=5) == (5, None)
+    assert off_floor(touch, [(0, 10)], limit_steps=1) == (2, 3)       # the episode ends at row 10
+    assert off_floor(touch, [(5, 8), (13, 16)], limit_steps=0) == (0, None)
+
+
+def test_a_cube_thrown_up_while_balancing_says_it_lifted_off():
+    # the floor cube balancing on its edge, given 0.5 m/s upwards at t = 1 s: it flies clear of the floor for
+    # at most 2 v / g = 102 ms (a projectile's time of flight, any mechanics text; the edge leaves the floor
+    # a little later and lands a little sooner than the centre of mass's flight), and the result says so
+    from sim.run.trial import run_trial
+    sc = load_scenario(ROOT / "scenarios" / "floor_cube.yaml", overrides=["trial.pushes=[]", "trial.duration=2 s"])
+
+    def throw(k, eng):
+        if k == 1000:
+            lin, ang = eng.pb.getBaseVelocity(eng.body_id, physicsClientId=eng.client)
+            eng.pb.resetBaseVelocity(eng.body_id, [lin[0], lin[1], 0.5], ang, physicsClientId=eng.client)
+    res = run_trial(sc, on_step=throw)
+    f = res.floor
+    assert f["lifted"] and 1.0 < f["lifted_at_s"] < 1.02 and f["lift_limit_s"] == 0.005
+    assert 0.07 < f["longest_lift_off_s"] <= 2 * 0.5 / 9.81 and f["longest_lift_off_s"] <= f["lift_off_s"]
+    if res.outcome == "fell":
+        assert res.cause == "contact_lifted"
+    still = run_trial(sc).floor
+    assert not still["lifted"] and still["lifted_at_s"] is None and still["longest_lift_off_s"] == 0.0
+
+
+def test_a_fall_after_a_lift_off_is_blamed_on_the_lift_off():
+    from types import SimpleNamespace
+
+    from sim.run.floor_contact import floor_cause
+    floor = {"lifted": True, "lifted_at_s": 1.008, "longest_lift_off_s": 0.09, "lift_limit_s": 0.005,
+             "rest_face": "-y face"}
+    fell = SimpleNamespace(outcome="fell", fell_at_s=1.3, cause="tilt_runaway", cause_detail="the tilt ran away", floor=floor)
+    cause, text = floor_cause(fell)
+    assert cause == "contact_lifted" and "t = 1.008 s" in text and "90.0 ms" in text
+    assert "then the tilt ran away" in text and text.endswith("-y face")
+    # a lift-off after the fall (the fall's bounce) is not the cause
+    late = SimpleNamespace(**{**vars(fell), "fell_at_s": 0.9})
+    assert floor_cause(late)[0] == "tilt_runaway"
+
+
 def test_a_balance_regained_after_a_fall_is_measured_afresh():
     # FloorWatch, fed by hand: balancing at x = 0, 1 mm of creep, a fall that carries the contact 40 mm
     # away, then balance again there. The slip of the second balance is its own, not the fall's

@@ -101,3 +101,38 @@ def test_the_jump_options_on_a_device_without_a_jump_are_refused(tmp_path, capsy
     assert main(["catch-map", scen, "--brake-time-max", "50 ms", "--out", str(tmp_path / "m")]) == 2
     err = capsys.readouterr().err.strip()
     assert len(err.splitlines()) == 1 and "--brake-time-max" in err and not (tmp_path / "m").exists()
+    assert main(["catch-map", scen, "--jump", "--out", str(tmp_path / "m")]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and "--jump" in err and not (tmp_path / "m").exists()
+
+
+PENDULUM = Path(__file__).resolve().parents[1] / "scenarios" / "jump_pendulum.yaml"
+
+
+def test_a_one_wheel_jump_pendulum_gets_its_jump_map_with_jump(tmp_path):
+    # scenarios/jump_pendulum.yaml: swing_and_catch whose swing-up is a brake-to-jump. Without --jump its map
+    # stays today's (start angle against rate); with --jump it is the jump map, one jump per cell.
+    from sim.model.scenario_yaml import load_scenario
+    from sim.studies.jumpmap import is_jump_map
+    sc = load_scenario(PENDULUM)
+    assert not is_jump_map(sc) and is_jump_map(sc, jump=True)
+    out = tmp_path / "map"
+    assert main(["catch-map", str(PENDULUM), "--jump", "--grid", "2", "--speed-factor-min", "0.95",
+                 "--speed-factor-max", "1.05", "--brake-time-min", "0 ms", "--brake-time-max", "50 ms",
+                 "--workers", "1", "--out", str(out)]) == 0
+    with open(out / "catch_map.csv", newline="") as fh:
+        cells = {(float(r["speed_factor"]), round(float(r["brake_engage_time_s"]) * 1e3)): r for r in csv.DictReader(fh)}
+    assert sorted(cells) == [(0.95, 0), (0.95, 50), (1.05, 0), (1.05, 50)]
+    assert all(r["jump_attempts"] == "1" for r in cells.values())
+    for t in (0, 50):
+        short, up = cells[(0.95, t)], cells[(1.05, t)]
+        # below the lossless need it falls short: the body's kinetic energy after the brake goes with the
+        # square of the wheel speed (momentum, then energy: Gajamohan, Merz, Thommen & D'Andrea, IROS 2012),
+        # so the rise reaches at most 0.95^2 of what upright needs (losses take a little more)
+        assert short["got_up"] == "False" and 0.8 < float(short["rise_fraction"]) <= 0.95 ** 2
+        assert up["got_up"] == "True" and float(up["farthest_past_balance_rad"]) < math.radians(10)
+        need = float(up["needed_wheel_speed_rad_s"])
+        assert float(up["reached_wheel_speed_rad_s"]) == pytest.approx(1.05 * need, rel=0.02)
+    summary = json.loads((out / "catch_map.json").read_text())
+    assert summary["kind"] == "jump" and summary["mount"] == "hinge" and summary["got_up_cells"] == 2
+    assert (out / "catch_map.png").exists()

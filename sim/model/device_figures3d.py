@@ -118,13 +118,15 @@ def figures3d_text(device, spec, *, rest_tilt_rad: float = 0.0) -> list[str]:
 
 def jump_rest_tilt(sc, device) -> float:
     """The tilt about the balance edge the scenario starts from, rad: `trial.start.angle` on a hinge; on
-    the floor, balancing on an edge and resting on a face, the turn that lays it on that face (0 otherwise)."""
+    the floor, resting on a face, the turn about the balance edge (for a corner, the edge along body x
+    through it) that lays it on that face (0 otherwise)."""
     start = sc.trial.start
-    if device.floor is None or getattr(start, "resting_on", None) != "face" or device.floor.balance_on != "edge":
+    if device.floor is None or getattr(start, "resting_on", None) != "face":
         return start.angle
-    from .floor import face_angle
+    from .floor import edge_upright, face_angle
     side = start.side or 1
-    return side * face_angle(device.floor.shapes, device.upright(), side)
+    edge = device.upright() if device.floor.balance_on == "edge" else edge_upright(device.com_m)
+    return side * face_angle(device.floor.shapes, edge, side)
 
 
 def jump_lines(device, *, rest_tilt_rad: float) -> list[str]:
@@ -134,7 +136,7 @@ def jump_lines(device, *, rest_tilt_rad: float) -> list[str]:
         return []
     reach = [wheel_reach(w) for w in device.wheels]
     jumps = []
-    if device.mount == "hinge" and abs(rest_tilt_rad) > 1e-9:
+    if (device.mount == "hinge" or device.floor is not None) and abs(rest_tilt_rad) > 1e-9:
         jumps.append((f"face to edge from {math.degrees(rest_tilt_rad):.3g} deg",
                       lambda: face_to_edge(device, rest_tilt_rad=rest_tilt_rad)))
     if device.n_wheels == 3:

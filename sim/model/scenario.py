@@ -666,9 +666,6 @@ class Scenario(Strict):
         if mounts is not None and self.body.mount not in mounts:
             raise ValueError(f"@strategy.kind: {self.strategy.kind} on a 3D device needs body.mount "
                              f"{' or '.join(mounts)} (found {self.body.mount})")
-        if mounts is not None and getattr(self.body, "balance_on", None) == "corner":
-            raise ValueError(f"@strategy.kind: {self.strategy.kind} goes from a face up to an edge: it needs "
-                             "body.balance_on: edge (the edge-to-corner jump has no law yet)")
         if self.strategy is not None and getattr(self.strategy.cls, "planar_only", False):
             raise ValueError(f"@strategy.kind: {self.strategy.kind} works on one wheel on a hinge only; this device "
                              f"has {len(self.wheel_list)} wheel(s) on a {self.body.mount} mount")

@@ -61,10 +61,14 @@ class BrakeJump(Strategy):
         max_attempts: Annotated[int, Field(ge=1, le=100, strict=True)] | None = None
 
     def __new__(cls, **kw):
-        if cls is BrakeJump and hasattr(kw.get("device"), "linear_spec"):
-            # a 3D device: the face-to-edge law. Not a subclass (so Python does not run __init__ again)
+        device = kw.get("device")
+        if cls is BrakeJump and hasattr(device, "linear_spec"):
+            # a 3D device: the face-to-edge law, or on a floor device balancing on a corner the
+            # edge-to-corner one. Not a subclass (so Python does not run __init__ again)
             from .jump3d import JumpUp3D
-            law = object.__new__(JumpUp3D)
+            from .jump_corner import JumpToCorner
+            corner = getattr(device, "floor", None) is not None and device.mount == "ball"
+            law = object.__new__(JumpToCorner if corner else JumpUp3D)
             law.__init__(**kw)
             return law
         return super().__new__(cls)

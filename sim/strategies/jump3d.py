@@ -32,8 +32,7 @@ The law, per attempt:
 `jump_attempts`, `jump_margin` (`jump_figures.jump_margin`: how far over the needed speed the motors
 can go at this supply), `jump_target_wheel_speed_rad_s` (the last attempt's aim), `jump_energy_ratios`
 (E_reached / E_needed per attempt that was judged), `braked_at_s` (the last brake).
-The edge-to-corner jump of three-wheel devices has its figures (`jump_figures.edge_to_corner`) but no
-law yet.
+The edge-to-corner jump of floor devices balancing on a corner is `sim.strategies.jump_corner`.
 """
 
 from __future__ import annotations
@@ -64,29 +63,50 @@ HELD_S = 1.0                     # held this long by the LQR, a jump was a succe
 DEFAULT_ATTEMPTS = 5
 
 
-class JumpUp3D(Strategy):
-    """Face-to-edge brake-to-jump with retries, then the multi-wheel LQR (see the module docstring).
-    Built by `sim.strategies.jump.BrakeJump` for a 3D device, with `BrakeJump.Params`."""
+def speed_loop_volts(units, inertia, ramp, target, w_ref, w) -> list[float]:
+    """Volts that spin each wheel along its speed reference: `w_ref` (>= 0) in the sense of `target` (rad/s,
+    signed, relative to the body), fed forward at `ramp` N m while the reference still rises, corrected
+    with the time constant SPEED_LOOP_S, the torque kept within 2 `ramp`; volts from the motor's line
+    (R tau / k_t + k_e w). Arrays over the wheels; a wheel with target 0 is held still."""
+    sign = np.sign(target)
+    feed = np.where(w_ref < np.abs(target), ramp, 0.0)
+    tau = sign * feed + inertia * (sign * w_ref - w) / SPEED_LOOP_S
+    tau = np.clip(tau, -2.0 * ramp, 2.0 * ramp)
+    return [u.resistance_ohm * t / u.k_t_n_m_a + u.k_e_v_s_rad * s for u, t, s in zip(units, tau, w)]
+
+
+class JumpLaw(Strategy):
+    """What the 3D jump laws share: their kind, goal and the figures of their wheels."""
 
     kind = "jump"
     goal = "balance"
     swings_up = True
 
-    def __init__(self, *, device, params, rng) -> None:
+    def _set_up(self, device, params, rng) -> None:
+        """The base's set-up, the balance law to hand over to, the brake check, and per wheel: its reachable
+        speed (rad/s), spin inertia (kg m^2) and stall torque (N m)."""
         Strategy.__init__(self, device=device, params=params, rng=rng)
         from .lqr import LqrBalance, MultiWheelLqr     # the balance law's module imports this one's registry
         self._lqr_cls, self._lqr_params = MultiWheelLqr, LqrBalance.Params()
-        spec = device.linear_spec()
-        # a floor device balancing on an edge designs as a hinge (its `design_mount`, or its spec's mount)
-        if (getattr(device, "design_mount", None) or spec.mount) != "hinge":
-            raise StrategyError("jump on a 3D device goes from a face up to an edge: it needs a hinge at the edge "
-                                "or a floor device balancing on an edge (the edge-to-corner jump has no law yet)")
         if all(w.brake_torque_n_m is None for w in device.wheels):
             raise StrategyError("jump needs a wheel brake: set drive.brake_torque (or a wheel's brake_torque)")
         self.units = device.wheels
         self.reach = np.array([wheel_reach(w) for w in self.units])
         self.inertia = np.array([w.spin_inertia_kg_m2 for w in self.units])
         self.stall = np.array([w.k_t_n_m_a * min(w.supply_v / w.resistance_ohm, w.current_limit_a) for w in self.units])
+
+
+class JumpUp3D(JumpLaw):
+    """Face-to-edge brake-to-jump with retries, then the multi-wheel LQR (see the module docstring).
+    Built by `sim.strategies.jump.BrakeJump` for a 3D device, with `BrakeJump.Params`."""
+
+    def __init__(self, *, device, params, rng) -> None:
+        spec = device.linear_spec()
+        # a floor device balancing on an edge designs as a hinge (its `design_mount`, or its spec's mount)
+        if (getattr(device, "design_mount", None) or spec.mount) != "hinge":
+            raise StrategyError("jump on a 3D device goes from a face up to an edge: it needs a hinge at the edge "
+                                "or a floor device balancing on an edge (on a corner: `jump_corner.JumpToCorner`)")
+        self._set_up(device, params, rng)
         com = np.asarray(device.com_m, dtype=float)
         self.mgd = device.mass_kg * device.gravity_m_s2 * math.hypot(com[1], com[2])
         self.max_attempts = params.max_attempts if params.max_attempts is not None else DEFAULT_ATTEMPTS
@@ -166,10 +186,7 @@ class JumpUp3D(Strategy):
         reached = np.all(~self.used | (np.abs(w) >= 0.99 * goal) & (w * sign > 0))
         if self.ref_done_s is not None and (reached or t_s - self.ref_done_s > SETTLE_S):
             return self._engage(w, t_s)
-        feed = np.where(self.w_ref < goal, self.ramp, 0.0)
-        tau = sign * feed + self.inertia * (sign * self.w_ref - w) / SPEED_LOOP_S
-        tau = np.clip(tau, -2.0 * self.ramp, 2.0 * self.ramp)
-        return [w_.resistance_ohm * t / w_.k_t_n_m_a + w_.k_e_v_s_rad * s for w_, t, s in zip(self.units, tau, w)]
+        return speed_loop_volts(self.units, self.inertia, self.ramp, self.target, self.w_ref, w)
 
     def _engage(self, w: np.ndarray, t_s: float):
         self.brake, self.open_circuit, self.phase = True, True, "brake"

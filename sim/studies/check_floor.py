@@ -25,7 +25,16 @@ A `jump` law: its own criteria instead of the balance battery:
   edge instead of tipping the body (on a floor of friction 0.5 a push slid a 10 cm cube 46 mm without
   tipping it, and a smaller one ended the run `slipped`: a failure of the test, not of the design). A
   kick that never tips it fails the criterion (nothing was tested);
-- `wheel_speed_margin`, `winding_temperature_c`, `wheel_burst_safety_factor` over these two runs.
+- `wheel_speed_margin`, `winding_temperature_c`, `wheel_burst_safety_factor` over these two runs;
+- `monte_carlo_pass_fraction` (with `--trials` above 0): the jump-up from the scenario's own start over its
+  tolerances (`sim.studies.monte_carlo`, `sim.model.tolerances`), each trial judged by `judge_jump_trial`
+  (balanced within `swing_up_time`, at most JUMP_ATTEMPTS_LIMIT jumps, every wheel's speed margin), at
+  least `requirements.pass_fraction`, with the Wilson interval.
+On a corner device (`balance_on: corner`, `sim.strategies.jump_corner`) the jump figures are the
+edge-to-corner jump's, and the fall and recovery starts balanced on the corner at rest, pushed at
+RECOVER_CORNER_PUSH_AT_S about the corner jump's axis, in the sense that lays the body back on its edge,
+by the shares of the momentum that carries it from the edge to the corner (a floor start cannot turn
+about the corner yet, so a push; at 0.25 of that momentum the demo's corner slid 0.9 mm).
 """
 
 from __future__ import annotations
@@ -37,12 +46,13 @@ from pathlib import Path
 
 from ..core.safety import SAFETY_NOTES
 from ..model.device3d import Device3D
-from ..model.scenario import validate_scenario
+from ..model.scenario import Push, validate_scenario
 from ..run.metrics3d import trial_metrics3d
 from ..run.trial3d import run_trial3d
-from ..strategies.jump_figures import face_to_edge
-from .monte_carlo import outcome_with_cause
-from .verdicts import CheckOutcome, _at_least, _at_most, _criterion, with_trial
+from ..model.tolerances import interval_note
+from ..strategies.jump_figures import edge_to_corner, face_to_edge
+from .monte_carlo import monte_carlo, outcome_with_cause
+from .verdicts import CheckOutcome, _at_least, _at_most, _criterion, _failure_counts, with_trial
 from .verdicts3d import _smallest, run_check3d, wheel_figures
 
 JUMP_MARGIN_MIN = 0.2          # jump_margin at least this (our choice, see the module docstring)
@@ -52,6 +62,7 @@ CONTACT_SETTLE_S = 0.01       # the first steps of a trial, while pybullet resol
                                # 2-3 ms in the floor cube's hold, 0.1 after)
 RECOVER_KICK_SHARES = (0.25, 0.35, 0.5, 0.7, 1.0, 1.4, 2.0)   # of the face-to-balance momentum, tried in
 # turn until one tips the body onto a face (our choice)
+RECOVER_CORNER_PUSH_AT_S = 1.0  # a corner device's fall-and-recover push, after the law has settled on the corner
 RECOVER_EXTRA_S = 2.5          # after the push: falling, coming to rest, the hold after the catch (our choice)
 
 
@@ -60,7 +71,8 @@ def run_check_floor(raw: dict, where: str, *, trials: int, workers=None, cluster
     """`check` on a floor device (see the module docstring)."""
     sc = validate_scenario(raw, where=where)
     if sc.strategy.kind == "jump":
-        return run_jump_check(sc, on_stage=on_stage)
+        return run_jump_check(sc, raw=raw, where=where, trials=trials, workers=workers, cluster=cluster,
+                              on_stage=on_stage, on_done=on_done)
     outcome = run_check3d(raw, where, trials=trials, workers=workers, cluster=cluster, on_stage=on_stage,
                           on_done=on_done)
     metrics = {name: trial_metrics3d(r) for name, r in outcome.runs.items()}
@@ -72,8 +84,8 @@ def run_check_floor(raw: dict, where: str, *, trials: int, workers=None, cluster
 
 
 def _floor_keys(m: dict) -> dict:
-    keys = ("slip_m", "slip_limit_m", "slipped_at_s", "lift_off_s", "rest_face", "peak_friction_ratio",
-            "floor_friction", "balance_on")
+    keys = ("slip_m", "slip_limit_m", "slipped_at_s", "lift_off_s", "lifted", "lifted_at_s", "longest_lift_off_s",
+            "rest_face", "peak_friction_ratio", "floor_friction", "balance_on")
     return {k: m.get(k) for k in keys}
 
 
@@ -110,22 +122,37 @@ def floor_criteria(sc, metrics: dict, *, hold_ratio: float | None) -> list[dict]
 # ----------------------------------------------------------------------------- the jump law
 
 def face_to_balance_momentum(device) -> tuple[float, float]:
-    """(the body's angular momentum about the edge that carries it from a face (45 deg) just to balance,
-    N m s; the body's inertia about the edge, kg m^2)."""
-    fig = face_to_edge(device, rest_tilt_rad=math.radians(45.0))
+    """(the body's angular momentum that carries it just to balance, N m s; the body's inertia about the axis it
+    turns about, kg m^2): about the edge from a face (45 deg) for an edge device, about the corner jump's axis
+    from the edge for a corner device."""
+    fig = edge_to_corner(device) if _on_corner(device) else face_to_edge(device, rest_tilt_rad=math.radians(45.0))
     return fig.inertia_kg_m2 * abs(fig.body_rate_rad_s), fig.inertia_kg_m2
 
 
-def recover_scenario(sc, nominal: dict, kick_n_m_s: float, inertia_kg_m2: float):
-    """Balanced on the edge, turning about it at kick / inertia rad/s (an ideal kick, the edge its pivot);
-    long enough for the fall, the rest and the jump-up as the nominal trial took it, then a hold."""
+def _on_corner(device) -> bool:
+    return device.floor is not None and device.floor.balance_on == "corner"
+
+
+def recover_scenario(sc, nominal: dict, kick_n_m_s: float, inertia_kg_m2: float, device=None):
+    """Balanced on the edge, turning about it at kick / inertia rad/s (an ideal kick, the edge its pivot); on a
+    corner (`device` given), balanced on it at rest and pushed by the kick at RECOVER_CORNER_PUSH_AT_S about
+    the corner jump's axis, back towards its edge. Long enough for the fall, the rest and the jump-up as the
+    nominal trial took it, then a hold."""
     jump_s = nominal["caught_at_s"] if nominal["caught_at_s"] is not None else sc.trial.duration
+    if device is not None and _on_corner(device):
+        n_world = np.array(device.upright()) @ np.array(edge_to_corner(device).axis)
+        impulse = tuple(float(v) for v in -kick_n_m_s * n_world)
+        return with_trial(sc, duration=RECOVER_CORNER_PUSH_AT_S + RECOVER_EXTRA_S + jump_s,
+                          start={"resting_on": "corner", "wheel_speed": 0.0},
+                          pushes=[Push(at=RECOVER_CORNER_PUSH_AT_S, impulse=impulse)])
     return with_trial(sc, duration=RECOVER_EXTRA_S + jump_s, pushes=[],
                       start={"angle": 0.0, "rate": kick_n_m_s / inertia_kg_m2, "wheel_speed": 0.0})
 
 
-def run_jump_check(sc, *, on_stage=None) -> CheckOutcome:
-    """The jump law's battery: its own trial from the face, then the fall and recovery (module docstring)."""
+def run_jump_check(sc, *, raw: dict | None = None, where: str | None = None, trials: int = 0, workers=None,
+                   cluster=None, on_stage=None, on_done=None) -> CheckOutcome:
+    """The jump law's battery: its own trial from the face, the fall and recovery, and with `trials` > 0 (and
+    the raw mapping) Monte Carlo of the jump-up over the tolerances (module docstring)."""
     stage = on_stage or (lambda text: None)
     device = Device3D.from_scenario(sc)
     runs = {}
@@ -137,14 +164,19 @@ def run_jump_check(sc, *, on_stage=None) -> CheckOutcome:
     for share in RECOVER_KICK_SHARES:
         push = share * momentum
         stage(f"fall and recover: a {push * 1e3:.3g} mN m s kick from balance")
-        runs["recover"] = run_trial3d(recover_scenario(sc, nominal, push, inertia))
+        runs["recover"] = run_trial3d(recover_scenario(sc, nominal, push, inertia, device))
         rec = trial_metrics3d(runs["recover"])
         tries.append({"kick_n_m_s": push, "outcome": rec["outcome"], "jump_attempts": rec.get("jump_attempts")})
         if (rec.get("jump_attempts") or 0) >= 1 or rec["outcome"] != "balanced":
             break
     metrics = {"nominal": nominal, "recover": rec}
+    mc = None
+    if trials > 0 and raw is not None:
+        stage(f"Monte Carlo of the jump-up, {trials} trials")
+        mc = monte_carlo(raw, where, sc, trials=trials, workers=workers, cluster=cluster, on_done=on_done,
+                         judge=judge_jump_trial)
     wheels = wheel_figures(sc, device, runs, metrics)
-    crit = jump_criteria(sc, metrics, push) + _wheel_criteria(sc, wheels)
+    crit = jump_criteria(sc, metrics, push, corner=_on_corner(device)) + _wheel_criteria(sc, wheels, mc)
     verdict = {
         "passed": all(c["passed"] for c in crit),
         "scenario": sc.source, "name": sc.name, "strategy": sc.strategy.kind,
@@ -155,28 +187,52 @@ def run_jump_check(sc, *, on_stage=None) -> CheckOutcome:
         "runs": {name: {k: m.get(k) for k in (
             "outcome", "message", "cause", "cause_detail", "caught_at_s", "settle_time_s", "peak_tilt_rad",
             "peak_wheel_speed_rad_s", "wheel_speed_margin", "needed_wheel_speed_rad_s",
-            "reached_wheel_speed_rad_s", "jump_attempts", "jump_margin", "rest_face", "slip_m", "lift_off_s")}
+            "reached_wheel_speed_rad_s", "jump_attempts", "jump_margin", "rest_face", "slip_m", "lift_off_s",
+            "face_jump_attempts", "face_needed_wheel_speed_rad_s", "face_reached_wheel_speed_rad_s")}
             for name, m in metrics.items()},
         "floor": {name: _floor_keys(m) for name, m in metrics.items()},
         "jump_margin_min": JUMP_MARGIN_MIN, "jump_attempts_limit": JUMP_ATTEMPTS_LIMIT,
-        "monte_carlo": None, "pushes": {},
+        "monte_carlo": (None if mc is None else
+                        {k: v for k, v in mc.items() if k != "rows"} | {"failures": _failure_counts(mc["rows"])}),
+        "pushes": {}, "balance_on": device.floor.balance_on,
         "requirements": sc.requirements.model_dump(),
         "safety": list(SAFETY_NOTES),
     }
-    return CheckOutcome(verdict=verdict, runs=runs)
+    return CheckOutcome(verdict=verdict, runs=runs, mc_rows=mc["rows"] if mc else [])
 
 
-def jump_criteria(sc, metrics: dict, push_n_m_s: float) -> list[dict]:
+def judge_jump_trial(scenario, *, seed: int) -> dict:
+    """One Monte Carlo trial of the jump-up, judged as the jump criteria judge the nominal one: balanced, caught
+    within `requirements.swing_up_time`, at most JUMP_ATTEMPTS_LIMIT jumps, every wheel's speed margin. A flat row."""
+    m = trial_metrics3d(run_trial3d(scenario, seed=seed))
+    req = scenario.requirements
+    reasons = []
+    if m["outcome"] != "balanced":
+        reasons.append(outcome_with_cause(m))
+    elif m["caught_at_s"] is None or m["caught_at_s"] > req.swing_up_time:
+        reasons.append("slow to get up")
+    if (m.get("jump_attempts") or 0) > JUMP_ATTEMPTS_LIMIT:
+        reasons.append("too many jumps")
+    if min(w["speed_margin"] for w in m["wheels"]) < req.wheel_speed_margin:
+        reasons.append("wheel speed margin")
+    keys = ("outcome", "message", "caught_at_s", "jump_attempts", "needed_wheel_speed_rad_s",
+            "reached_wheel_speed_rad_s", "jump_margin", "face_jump_attempts", "wheel_speed_margin", "slip_m",
+            "lift_off_s")
+    return {k: m.get(k) for k in keys} | {"passed": not reasons, "fail_reasons": ";".join(reasons)}
+
+
+def jump_criteria(sc, metrics: dict, push_n_m_s: float, *, corner: bool = False) -> list[dict]:
     """`jump_up_time_s`, `jump_attempts`, `jump_margin`, `fall_recovered_attempts` (module docstring)."""
     nominal, rec = metrics["nominal"], metrics["recover"]
     up = nominal["outcome"] == "balanced" and nominal["caught_at_s"] is not None
     attempts = nominal.get("jump_attempts")
     rec_attempts = rec.get("jump_attempts") or 0
     tipped = rec_attempts >= 1
+    where = "off its corner" if corner else "onto a face"
     if tipped:
-        how = f"tipped onto a face, {rec_attempts} jump(s) after: {outcome_with_cause(rec)}"
+        how = f"tipped {where}, {rec_attempts} jump(s) after: {outcome_with_cause(rec)}"
     else:
-        how = f"the kick did not tip it onto a face, so no recovery was tested: {outcome_with_cause(rec)}"
+        how = f"the kick did not tip it {where}, so no recovery was tested: {outcome_with_cause(rec)}"
     return [
         _criterion("jump_up_time_s", nominal["caught_at_s"], sc.requirements.swing_up_time,
                    up and nominal["caught_at_s"] <= sc.requirements.swing_up_time,
@@ -191,11 +247,13 @@ def jump_criteria(sc, metrics: dict, push_n_m_s: float) -> list[dict]:
                   f"(limit {JUMP_MARGIN_MIN:g}: our choice)"),
         _criterion("fall_recovered_attempts", rec_attempts, JUMP_ATTEMPTS_LIMIT,
                    tipped and rec["outcome"] == "balanced" and rec_attempts <= JUMP_ATTEMPTS_LIMIT,
-                   f"balanced on the edge, started turning about it with {push_n_m_s * 1e3:.3g} mN m s: {how}"),
+                   (f"balanced on the corner, pushed back towards its edge with {push_n_m_s * 1e3:.3g} mN m s at "
+                    f"{RECOVER_CORNER_PUSH_AT_S:g} s: {how}" if corner else
+                    f"balanced on the edge, started turning about it with {push_n_m_s * 1e3:.3g} mN m s: {how}")),
     ]
 
 
-def _wheel_criteria(sc, wheels: list[dict]) -> list[dict]:
+def _wheel_criteria(sc, wheels: list[dict], mc: dict | None = None) -> list[dict]:
     low = min(wheels, key=lambda w: w["speed_margin"])
     hot = max(wheels, key=lambda w: w["winding_temperature_c"] - w["max_winding_temperature_c"])
     factor = _smallest([w["burst"]["safety_factor"] for w in wheels])
@@ -210,7 +268,11 @@ def _wheel_criteria(sc, wheels: list[dict]) -> list[dict]:
                    factor is not None and not unknown and factor >= req.burst_safety_factor,
                    "each wheel's parts at its own runaway speed (no-load speed at full supply)"
                    + ("; strength unknown for some parts: cannot confirm" if unknown else "")),
-    ]
+    ] + ([] if mc is None else [
+        _at_least("monte_carlo_pass_fraction", mc["pass_fraction"], req.pass_fraction,
+                  f"{mc['trials']} jump-ups over the tolerances (balanced within swing_up_time, at most "
+                  f"{JUMP_ATTEMPTS_LIMIT} jumps, wheel speed margin); "
+                  + interval_note(mc["passed_trials"], mc["trials"], req.pass_fraction))])
 
 
 def _num(x) -> str:
@@ -221,7 +283,7 @@ def _num(x) -> str:
 
 def write_check_outputs_floor(outcome: CheckOutcome, out_dir) -> list[str]:
     """A balance law's files as any 3D check's (`verdict_report3d`); a jump law's: each run's plot,
-    report.md and verdict.json (last)."""
+    monte_carlo.csv (when it ran), report.md and verdict.json (last)."""
     from ..core.outputs import write_json, write_text
     from ..media.plots import save_figure
     from ..media.plots3d import summary_figure3d
@@ -232,6 +294,11 @@ def write_check_outputs_floor(outcome: CheckOutcome, out_dir) -> list[str]:
     for name, result in outcome.runs.items():
         save_figure(summary_figure3d(result), out_dir / f"{name}.png")
         written.append(f"{name}.png")
+    mc = outcome.verdict["monte_carlo"]
+    if mc is not None:
+        from .verdict_report import monte_carlo_csv
+        write_text(out_dir / "monte_carlo.csv", monte_carlo_csv(outcome.mc_rows, list(mc["tolerances"])))
+        written.append("monte_carlo.csv")
     write_text(out_dir / "report.md", jump_report_markdown(outcome.verdict, written))
     write_json(out_dir / "verdict.json", outcome.verdict)
     return written + ["report.md", "verdict.json"]
@@ -239,10 +306,11 @@ def write_check_outputs_floor(outcome: CheckOutcome, out_dir) -> list[str]:
 
 def jump_report_markdown(v: dict, images: list[str]) -> str:
     """report.md of a jump law's check on the floor."""
-    from .verdict_report import format_value, run_causes_markdown
+    from .verdict_report import format_value, monte_carlo_markdown, run_causes_markdown
     from .verdict_report3d import criteria_table
     lines = [f"# Check: {v['name']}", "",
-             f"Scenario `{v['scenario']}`, strategy `jump`, on the floor ({v['mount']} at the balance edge), "
+             f"Scenario `{v['scenario']}`, strategy `jump`, on the floor ({v['mount']} at the balance "
+             f"{v.get('balance_on', 'edge')}), "
              f"{v['wheel_count']} wheel{'s' if v['wheel_count'] > 1 else ''}.", "",
              f"**Verdict: {'PASS' if v['passed'] else 'FAIL'}**", ""] + criteria_table(v)
     lines += ["", "## The jumps", "", "| run | outcome | caught at | jumps | needed / reached wheel speed | slip | rest face |",
@@ -251,9 +319,16 @@ def jump_report_markdown(v: dict, images: list[str]) -> str:
         lines.append(f"| {name} | {r['outcome']} | {format_value('_s', r['caught_at_s'])} | {r['jump_attempts']} | "
                      f"{_num(r['needed_wheel_speed_rad_s'])} / {_num(r['reached_wheel_speed_rad_s'])} rad/s | "
                      f"{_num(None if r['slip_m'] is None else r['slip_m'] * 1e3)} mm | {r['rest_face'] or '-'} |")
+    if v.get("balance_on") == "corner":
+        lines += ["", "The jumps above are the edge-to-corner ones; from a face first onto the edge:", "",
+                  "| run | jumps face to edge | needed / reached wheel speed |", "|---|---|---|"]
+        lines += [f"| {name} | {r['face_jump_attempts'] or 0} | {_num(r['face_needed_wheel_speed_rad_s'])} / "
+                  f"{_num(r['face_reached_wheel_speed_rad_s'])} rad/s |" for name, r in v["runs"].items()]
     lines += ["", f"Limits of our choosing: jump_margin at least {JUMP_MARGIN_MIN:g}, at most "
-              f"{JUMP_ATTEMPTS_LIMIT} jumps. No Monte Carlo, push bisection or bias holds for a jump law here.", ""]
+              f"{JUMP_ATTEMPTS_LIMIT} jumps. No push bisection or bias holds for a jump law here.", ""]
+    if v["monte_carlo"] is not None:
+        lines += monte_carlo_markdown(v["monte_carlo"])[1:] + [""]
     lines += run_causes_markdown(v)
-    lines += ["## Plots", ""] + [f"![{Path(img).stem}]({img})" for img in images] + [""]
+    lines += ["## Plots", ""] + [f"![{Path(img).stem}]({img})" for img in images if img.endswith(".png")] + [""]
     lines += ["## Safety", ""] + [f"- {s}" for s in SAFETY_NOTES] + [""]
     return "\n".join(lines)

@@ -1,7 +1,9 @@
 """The jump map: which pre-brake wheel speeds and brake engagement times get a jump device up?
 
-`wheelbench catch-map` on a 3D device whose strategy is `jump` (`sim.strategies.jump3d`, from lying
-on a face up to the balance edge) maps the jump instead of start states. A square grid:
+`wheelbench catch-map` on a device whose strategy is `jump` (`sim.strategies.jump3d`, from lying on a face
+up to the balance edge; one wheel on a hinge, `sim.strategies.jump`), and with `--jump` on a one-wheel
+device whose `swing_and_catch` swings up by a `jump` (scenarios/jump_pendulum.yaml), maps the jump
+instead of start states. A square grid:
 - x: the pre-brake wheel speed as a factor of the lossless needed speed (the law's `margin`,
   `sim.strategies.jump_figures.face_to_edge`), dimensionless, default 0.7 to 1.5;
 - y: the brake's engagement time (`drive.brake_engage_time`: the time its torque takes to reach full,
@@ -14,7 +16,10 @@ lies at the face's rest tilt), `farthest_past_balance_rad`, how far it tipped be
 the far side (a jump with too much speed goes over the edge and falls onto the other face), and `rise_fraction`, the centre of mass's rise at that point over the
 rise balance needs, (cos theta_min - cos theta_0) / (1 - cos theta_0), 1 at balance: the potential
 energy reached over the energy needed, the ratio the law itself corrects a miss by. A wheel's own
-`brake_engage_time` is dropped so that the map's value applies to every brake.
+`brake_engage_time` is dropped so that the map's value applies to every brake. On one wheel the tilt is the
+angle from upright wrapped to (-pi, pi] (hanging: pi, the rest tilt), and a cell is its first jump only
+(`planar_jump_row`): a supervisor that loses the body swings it up again, which is not the cell's jump.
+The edge-to-corner jump (`balance_on: corner`) has no map yet.
 Outputs: catch_map.csv (a row per cell), catch_map.json (axes, ranges, counts) and catch_map.png.
 """
 
@@ -27,6 +32,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..core.angles import wrap_angles
 from ..core.errors import InputError, ScenarioError
 from ..core.outputs import clean_json, write_text
 from ..model.tolerances import trial_seed
@@ -45,9 +51,19 @@ COLUMNS = ("speed_factor", "brake_engage_time_s", "got_up", "outcome", "smallest
 AXIS_LABELS = ("pre-brake wheel speed / needed speed (the jump's margin) [-]", "brake engagement time [ms]")
 
 
-def is_jump_map(scenario) -> bool:
-    """True when catch-map maps the jump: a 3D device whose strategy is `jump`."""
-    return not scenario.is_planar and scenario.strategy.kind == "jump"
+def is_jump_map(scenario, *, jump: bool = False) -> bool:
+    """True when catch-map maps the jump: a 3D device whose strategy is `jump`, a one-wheel device whose
+    strategy is `jump`, or (asked with `jump`, catch-map's `--jump`) a one-wheel device whose
+    swing_and_catch swings up by a `jump`."""
+    if scenario.strategy.kind == "jump":
+        return True
+    return jump and scenario.is_planar and _nested_jump(scenario.strategy)
+
+
+def _nested_jump(spec) -> bool:
+    """A swing_and_catch spec whose swing-up is a brake-to-jump."""
+    swing = getattr(spec.params, "swing_up", None) if spec.kind == "swing_and_catch" else None
+    return swing is not None and swing.kind == "jump"
 
 
 def check_jump_options(*, grid: int, speed_factor: tuple[float, float], brake_time_s: tuple[float, float]) -> None:
@@ -73,9 +89,12 @@ def check_jump_map(raw: dict, where: str, *, grid: int, speed_factor: tuple[floa
     from ..model.scenario import validate_scenario
     check_jump_options(grid=grid, speed_factor=speed_factor, brake_time_s=brake_time_s)
     sc = validate_scenario(raw, where=where)
-    if not is_jump_map(sc):
-        raise InputError(f"{where}: strategy.kind: a jump map needs a 3D device whose strategy is jump, "
-                         f"found {sc.strategy.kind!r}")
+    if not is_jump_map(sc, jump=True):
+        raise InputError(f"{where}: strategy.kind: a jump map needs a strategy that jumps (jump, or on one wheel "
+                         f"swing_and_catch with swing_up kind jump), found {sc.strategy.kind!r}")
+    if sc.body.mount == "floor" and sc.body.balance_on == "corner":
+        raise InputError(f"{where}: body.balance_on: a jump map maps the jump from a face up to an edge; the "
+                         "edge-to-corner jump has no map yet")
     validate_scenario(cell_raw(raw, speed_factor=speed_factor[0], brake_time_s=brake_time_s[1]), where=where)
     return sc
 
@@ -83,7 +102,12 @@ def check_jump_map(raw: dict, where: str, *, grid: int, speed_factor: tuple[floa
 def cell_raw(raw: dict, *, speed_factor: float, brake_time_s: float) -> dict:
     """A copy of the scenario mapping set up for one cell: one attempt at this factor, this engagement time."""
     out = copy.deepcopy(raw)
-    out["strategy"] = {**(out.get("strategy") or {}), "margin": float(speed_factor), "max_attempts": 1}
+    strategy = out.get("strategy") or {}
+    if strategy.get("kind") == "swing_and_catch":    # one wheel: the jump is the supervisor's swing-up
+        out["strategy"] = {**strategy, "swing_up": {**strategy["swing_up"], "margin": float(speed_factor),
+                                                    "max_attempts": 1}}
+    else:
+        out["strategy"] = {**strategy, "margin": float(speed_factor), "max_attempts": 1}
     out["drive"] = {**(out.get("drive") or {}), "brake_engage_time": float(brake_time_s)}
     if isinstance(out.get("wheels"), list):
         out["wheels"] = [{k: v for k, v in w.items() if k != "brake_engage_time"} if isinstance(w, dict) else w
@@ -108,6 +132,8 @@ def jump_cell(payload: dict) -> dict:
     except (ScenarioError, ValueError) as exc:   # pydantic's ValidationError is a ValueError
         return row | {"got_up": False, "outcome": "invalid", "message": str(exc).splitlines()[0]}
     res = run_trial(sc, seed=payload["seed"])
+    if sc.is_planar:
+        return row | planar_jump_row(res)
     signed = np.asarray(res.trace.tilt_x[:res.trace.n], dtype=float)
     tilt = np.abs(signed)
     m = res.strategy.extra_metrics if res.strategy is not None else {}
@@ -124,6 +150,51 @@ def jump_cell(payload: dict) -> dict:
                   "needed_wheel_speed_rad_s": m.get("needed_wheel_speed_rad_s"),
                   "reached_wheel_speed_rad_s": m.get("reached_wheel_speed_rad_s"),
                   "jump_attempts": m.get("jump_attempts")}
+
+
+def planar_jump_row(res) -> dict:
+    """A one-wheel cell's row from its first jump: the rows up to a second brake, or up to where the body,
+    once inside the release angle after the brake, left it (a supervisor that lost the body swings it up
+    again: that is not this cell's jump). The angle is the unwrapped one from upright; tilt is its wrapped
+    magnitude, the start's (hanging: pi) the rest tilt."""
+    tr = res.trace
+    n = tr.n
+    mode = np.asarray(tr.mode[:n])
+    brake = tr.phases.index("brake") if "brake" in tr.phases else None
+    rows = np.flatnonzero(mode == brake) if brake is not None else np.array([], dtype=int)
+    first_brake = int(rows[0]) if rows.size else None
+    later = rows[1:][np.diff(rows) > 1] if rows.size > 1 else rows[:0]     # starts of later brake blocks
+    end = int(later[0]) if later.size else n
+    unwrapped = np.asarray(tr.angle[:end], dtype=float)
+    signed = wrap_angles(unwrapped)
+    tilt = np.abs(signed)
+    # the first jump also ends where the body, once inside the release angle after the brake, leaves it: a
+    # later catch (the supervisor swinging it round again) is not this jump's
+    release = getattr(getattr(res.strategy, "params", None), "release_angle", math.pi)
+    outside = tilt > release
+    start = first_brake if first_brake is not None else 0
+    inside = np.flatnonzero(~outside[start:])
+    left = np.flatnonzero(outside[start + inside[0]:]) if inside.size else inside
+    if left.size:
+        end = start + int(inside[0]) + int(left[0]) + 1
+        unwrapped, signed, tilt = unwrapped[:end], signed[:end], tilt[:end]
+    m = res.strategy.extra_metrics if res.strategy is not None else {}
+    braked = first_brake * tr.step_s if first_brake is not None else None
+    outcome = res.outcome if end == n else "fell"          # it fell, or a second jump began: this one did not hold
+    if outcome == "balanced" and (braked is None or res.ended_at_s - braked < HELD_S):
+        outcome = "undecided"
+    if not tilt.size:
+        return {"got_up": False, "outcome": outcome, "smallest_tilt_rad": None, "braked_at_s": braked}
+    i = int(np.argmin(tilt))
+    upright = unwrapped[i] - signed[i]                    # the upright (2 pi k) the jump made for
+    sense = math.copysign(1.0, upright - unwrapped[0])
+    return {"got_up": outcome == "balanced", "outcome": outcome, "smallest_tilt_rad": float(tilt[i]),
+            "braked_at_s": braked, "rise_fraction": rise_fraction(float(tilt[i]), float(tilt[0])),
+            "farthest_past_balance_rad": max(0.0, float(np.max(sense * (unwrapped[i:] - upright)))),
+            "needed_wheel_speed_rad_s": m.get("needed_wheel_speed_rad_s"),
+            # measured at the first brake's tick, as the law reads it (a second jump's would be in its metrics)
+            "reached_wheel_speed_rad_s": None if first_brake is None else abs(float(tr.meas_wheel[first_brake])),
+            "jump_attempts": 0 if first_brake is None else 1}
 
 
 def jump_map(raw: dict, where: str, *, grid: int = 9, speed_factor: tuple[float, float] = SPEED_FACTOR_RANGE,
@@ -202,8 +273,8 @@ def jump_figure(result: dict):
     ax.axvline(1.0, color=INK, lw=0.8, ls="--")
     ax.set_xlabel(AXIS_LABELS[0])
     ax.set_ylabel(AXIS_LABELS[1])
-    ax.set_title(f"{result['name']}: jump map, one attempt per cell\nup: got up and balanced; over: went over the "
-                 "edge; short: fell back;\n?: ended too soon; dashed: the lossless need", color=INK, fontsize=9, parse_math=False)
+    ax.set_title(f"{result['name']}: jump map, one attempt per cell\nup: got up and balanced; over: went past "
+                 "balance and fell; short: fell back;\n?: ended too soon; dashed: the lossless need", color=INK, fontsize=9, parse_math=False)
     return fig
 
 

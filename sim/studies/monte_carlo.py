@@ -60,7 +60,8 @@ def judge_trial(scenario, *, seed: int) -> dict:
 def monte_carlo_task(payload: dict) -> dict:
     """One Monte Carlo trial (module-level so worker processes can run it).
 
-    payload: raw, where, tolerances (list of Tolerance), base_seed, index. Perturbs the raw
+    payload: raw, where, tolerances (list of Tolerance), base_seed, index, and optionally judge (a
+    module-level `judge(scenario, *, seed) -> row` in place of `judge_trial`). Perturbs the raw
     mapping, validates it again and judges its trial. An invalid perturbed design fails the trial.
     """
     from ..core.errors import ScenarioError
@@ -72,17 +73,19 @@ def monte_carlo_task(payload: dict) -> dict:
     except ScenarioError as exc:
         return {"outcome": "invalid", "message": str(exc), "passed": False, "fail_reasons": "invalid", "drawn": drawn,
                 "seed": seed}
-    row = judge_trial(sc, seed=seed)
+    row = (payload.get("judge") or judge_trial)(sc, seed=seed)
     row["drawn"], row["seed"] = drawn, seed
     return row
 
 
 def monte_carlo(raw: dict, where: str, scenario, *, trials: int, workers: int | None = None, cluster=None,
-                on_done=None) -> dict:
-    """`trials` Monte Carlo trials over the scenario's tolerances; rows in trial order plus the pass fraction."""
+                on_done=None, judge=None) -> dict:
+    """`trials` Monte Carlo trials over the scenario's tolerances; rows in trial order plus the pass fraction.
+    `judge`: a module-level function judging one trial in place of `judge_trial` (the jump check's)."""
     tols = scenario_tolerances(scenario)
-    tasks = ((i, {"raw": raw, "where": where, "tolerances": tols, "base_seed": scenario.trial.seed, "index": i})
-             for i in range(trials))
+    extra = {"judge": judge} if judge is not None else {}
+    tasks = ((i, {"raw": raw, "where": where, "tolerances": tols, "base_seed": scenario.trial.seed, "index": i,
+                  **extra}) for i in range(trials))
     rows: list = [None] * trials
     for i, row in run_tasks(monte_carlo_task, tasks, workers=workers, cluster=cluster):
         rows[i] = row

@@ -207,7 +207,7 @@ def print_verdict(v: dict, out: Path) -> None:
     for name, r in failed_runs(v):
         console.print(f"{name} run: {r['outcome']}, cause {r.get('cause') or '-'}: {r.get('cause_detail') or '-'}",
                       markup=False, highlight=False)
-    mc = ", monte_carlo.csv" if v.get("monte_carlo") is not None else ""   # a floor jump check runs none
+    mc = ", monte_carlo.csv" if v.get("monte_carlo") is not None else ""   # a floor jump check with --trials 0 runs none
     console.print(Text(f"wrote {out}/verdict.json, report.md{mc} and plots"), soft_wrap=True)   # paths stay whole
     for s in SAFETY_NOTES:
         console.print(f"[dim]Safety: {s}[/dim]")
