@@ -10,6 +10,7 @@ import json
 import math
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 from sim.cli import main
@@ -136,3 +137,21 @@ def test_a_one_wheel_jump_pendulum_gets_its_jump_map_with_jump(tmp_path):
     summary = json.loads((out / "catch_map.json").read_text())
     assert summary["kind"] == "jump" and summary["mount"] == "hinge" and summary["got_up_cells"] == 2
     assert (out / "catch_map.png").exists()
+
+
+def test_a_cell_whose_contact_slid_is_marked_so_and_a_big_grid_gets_initials():
+    # a floor jump that rose fully but then slid past floor.slip_limit was marked "short: fell back",
+    # and at 21 cells a row the whole words ran into each other
+    from sim.studies.jumpmap import _mark, jump_figure
+    base = {"got_up": False, "rise_fraction": 1.0, "farthest_past_balance_rad": 0.05}
+    assert _mark(base | {"outcome": "slipped"}) == "slid"
+    assert _mark(base | {"outcome": "not_caught", "rise_fraction": 0.6, "farthest_past_balance_rad": 0.0}) == "short"
+    for n, words in ((5, {"up", "slid"}), (12, {"U", "SL"})):
+        rows = [base | ({"got_up": True, "outcome": "balanced"} if (i + j) % 2 else {"outcome": "slipped"})
+                for i in range(n) for j in range(n)]
+        fig = jump_figure({"name": "grid", "x": list(np.linspace(0.7, 1.5, n)), "y": list(np.linspace(0.0, 0.1, n)),
+                           "rows": rows})
+        shown = {t.get_text() for t in fig.axes[0].texts}
+        assert shown == words, (n, shown)
+        import matplotlib.pyplot as plt
+        plt.close(fig)

@@ -266,25 +266,38 @@ def jump_figure(result: dict):
     im = ax.imshow(rise.T, origin="lower", extent=[xs[0] - dx, xs[-1] + dx, ys_ms[0] - dy, ys_ms[-1] + dy],
                    aspect="auto", cmap="viridis", vmin=0.0, vmax=1.0)
     fig.colorbar(im, ax=ax, label="rise reached / rise to balance (centre of mass)")
+    # whole words fit up to about 11 cells a row; past that the words overlap, so initials
+    short_words = n > WORDS_UP_TO
     for i in range(n):
         for j in range(n):
-            ax.text(xs[i], ys_ms[j], marks[i][j], ha="center", va="center", fontsize=7,
-                    color=INK if marks[i][j] != "short" else "white")
+            word = marks[i][j]
+            ax.text(xs[i], ys_ms[j], INITIALS[word] if short_words else word, ha="center", va="center",
+                    fontsize=7, color=INK if word not in ("short", "slid") else "white")
     ax.axvline(1.0, color=INK, lw=0.8, ls="--")
     ax.set_xlabel(AXIS_LABELS[0])
     ax.set_ylabel(AXIS_LABELS[1])
-    ax.set_title(f"{result['name']}: jump map, one attempt per cell\nup: got up and balanced; over: went past "
-                 "balance and fell; short: fell back;\n?: ended too soon; dashed: the lossless need", color=INK, fontsize=9, parse_math=False)
+    key = {w: (f"{INITIALS[w]} ({w})" if short_words else w) for w in INITIALS}
+    ax.set_title(f"{result['name']}: jump map, one attempt per cell\n{key['up']}: got up and balanced; {key['over']}: "
+                 f"went past balance and fell; {key['short']}: fell back;\n{key['slid']}: rose, then the contact slid "
+                 f"past the floor's slip limit; ?: ended too soon; dashed: the lossless need", color=INK, fontsize=9,
+                 parse_math=False)
     return fig
+
+
+WORDS_UP_TO = 11      # cells a row with whole words on the figure; more get initials (our choice)
+INITIALS = {"up": "U", "over": "O", "short": "S", "slid": "SL", "?": "?"}
 
 
 OVER_RAD = math.radians(10)   # tipped this far past balance: it went over the edge (our choice)
 
 
 def _mark(row: dict) -> str:
-    """A cell's word on the figure: up, over (went past balance and fell) or short."""
+    """A cell's word on the figure: up, over (went past balance and fell), short, or slid (a floor body's
+    contact slid past `floor.slip_limit`: the outcome `slipped`, which the rise alone reads as up)."""
     if row["got_up"]:
         return "up"
     if row["outcome"] in ("undecided", "invalid"):
         return "?"
+    if row["outcome"] == "slipped":
+        return "slid"
     return "over" if (row.get("farthest_past_balance_rad") or 0.0) > OVER_RAD else "short"
