@@ -163,7 +163,8 @@ def run_jump_check(sc, *, raw: dict | None = None, where: str | None = None, tri
     tries = []
     for share in RECOVER_KICK_SHARES:
         push = share * momentum
-        stage(f"fall and recover: a {push * 1e3:.3g} mN m s kick from balance")
+        how = "push towards its edge" if device.floor.balance_on == "corner" else "kick"   # `recover_scenario`
+        stage(f"fall and recover: a {push * 1e3:.3g} mN m s {how} from balance")
         runs["recover"] = run_trial3d(recover_scenario(sc, nominal, push, inertia, device))
         rec = trial_metrics3d(runs["recover"])
         tries.append({"kick_n_m_s": push, "outcome": rec["outcome"], "jump_attempts": rec.get("jump_attempts")})
