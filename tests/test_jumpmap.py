@@ -23,14 +23,17 @@ ARGS = ["--grid", "3", "--speed-factor-min", "0.7", "--speed-factor-max", "1.5",
         "--brake-time-max", "100 ms", "--set", "trial.duration=2.5s", "--workers", "1"]
 
 
-@pytest.fixture(scope="module")
-def jump_map(tmp_path_factory):
-    out = tmp_path_factory.mktemp("jump") / "map"
-    assert main(["catch-map", DEMO, *ARGS, "--out", str(out)]) == 0
+def _mapped(out: Path, scenario: str, args: list) -> tuple:
+    """Run catch-map into `out`; (out, the CSV's rows keyed by (speed factor, brake time in ms))."""
+    assert main(["catch-map", scenario, *args, "--out", str(out)]) == 0
     with open(out / "catch_map.csv", newline="") as fh:
         rows = list(csv.DictReader(fh))
-    cells = {(round(float(r["speed_factor"]), 6), round(float(r["brake_engage_time_s"]) * 1e3)): r for r in rows}
-    return out, cells
+    return out, {(round(float(r["speed_factor"]), 6), round(float(r["brake_engage_time_s"]) * 1e3)): r for r in rows}
+
+
+@pytest.fixture(scope="module")
+def jump_map(tmp_path_factory):
+    return _mapped(tmp_path_factory.mktemp("jump") / "map", DEMO, ARGS)
 
 
 def test_the_map_has_one_attempt_per_cell_and_its_files(jump_map):
@@ -168,12 +171,7 @@ CORNER_ARGS = ["--grid", "3", "--speed-factor-min", "0.7", "--speed-factor-max",
 
 @pytest.fixture(scope="module")
 def corner_map(tmp_path_factory):
-    out = tmp_path_factory.mktemp("corner") / "map"
-    assert main(["catch-map", CORNER, *CORNER_ARGS, "--out", str(out)]) == 0
-    with open(out / "catch_map.csv", newline="") as fh:
-        rows = list(csv.DictReader(fh))
-    cells = {(round(float(r["speed_factor"]), 6), round(float(r["brake_engage_time_s"]) * 1e3)): r for r in rows}
-    return out, cells
+    return _mapped(tmp_path_factory.mktemp("corner") / "map", CORNER, CORNER_ARGS)
 
 
 def _corner_device():
