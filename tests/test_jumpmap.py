@@ -12,6 +12,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from numpy.testing import assert_allclose
 
 from sim.cli import main
 
@@ -22,14 +23,17 @@ ARGS = ["--grid", "3", "--speed-factor-min", "0.7", "--speed-factor-max", "1.5",
         "--brake-time-max", "100 ms", "--set", "trial.duration=2.5s", "--workers", "1"]
 
 
-@pytest.fixture(scope="module")
-def jump_map(tmp_path_factory):
-    out = tmp_path_factory.mktemp("jump") / "map"
-    assert main(["catch-map", DEMO, *ARGS, "--out", str(out)]) == 0
+def _mapped(out: Path, scenario: str, args: list) -> tuple:
+    """Run catch-map into `out`; (out, the CSV's rows keyed by (speed factor, brake time in ms))."""
+    assert main(["catch-map", scenario, *args, "--out", str(out)]) == 0
     with open(out / "catch_map.csv", newline="") as fh:
         rows = list(csv.DictReader(fh))
-    cells = {(round(float(r["speed_factor"]), 6), round(float(r["brake_engage_time_s"]) * 1e3)): r for r in rows}
-    return out, cells
+    return out, {(round(float(r["speed_factor"]), 6), round(float(r["brake_engage_time_s"]) * 1e3)): r for r in rows}
+
+
+@pytest.fixture(scope="module")
+def jump_map(tmp_path_factory):
+    return _mapped(tmp_path_factory.mktemp("jump") / "map", DEMO, ARGS)
 
 
 def test_the_map_has_one_attempt_per_cell_and_its_files(jump_map):
@@ -155,3 +159,130 @@ def test_a_cell_whose_contact_slid_is_marked_so_and_a_big_grid_gets_initials():
         assert shown == words, (n, shown)
         import matplotlib.pyplot as plt
         plt.close(fig)
+
+
+# -- the edge-to-corner jump (scenarios/floor_corner_jump.yaml, our own invention) ------------------------
+CORNER = str(Path(__file__).resolve().parents[1] / "scenarios" / "floor_corner_jump.yaml")
+# 3x3: corner speed factors 0.7, 0.9, 1.1; brake engagement 0, 50, 100 ms. 3.2 s trials: from the edge the
+# corner brake comes at about 1.9 s at 1.1, leaving the 1 s hold a cell needs to be judged got up.
+CORNER_ARGS = ["--grid", "3", "--speed-factor-min", "0.7", "--speed-factor-max", "1.1", "--brake-time-min", "0 ms",
+               "--brake-time-max", "100 ms", "--set", "trial.duration=3.2s", "--workers", "1"]
+
+
+@pytest.fixture(scope="module")
+def corner_map(tmp_path_factory):
+    return _mapped(tmp_path_factory.mktemp("corner") / "map", CORNER, CORNER_ARGS)
+
+
+def _corner_device():
+    from sim.model.device3d import Device3D
+    from sim.model.scenario_yaml import load_scenario
+    return Device3D.from_scenario(load_scenario(CORNER))
+
+
+def test_the_corner_map_is_one_corner_jump_per_cell_from_the_edge_and_writes_its_files(corner_map):
+    from sim.strategies.jump_figures import edge_to_corner
+    out, cells = corner_map
+    assert sorted(cells) == [(f, t) for f in (0.7, 0.9, 1.1) for t in (0, 50, 100)]
+    assert all(r["jump_attempts"] == "1" for r in cells.values())
+    summary = json.loads((out / "catch_map.json").read_text())
+    assert summary["kind"] == "jump" and summary["mount"] == "floor" and summary["cells"] == 9
+    assert summary["undecided_cells"] == 0
+    assert summary["got_up_cells"] == sum(r["got_up"] == "True" for r in cells.values())
+    assert (out / "catch_map.png").stat().st_size > 10_000
+    fig = edge_to_corner(_corner_device())
+    for (f, _), r in cells.items():
+        # the need is the edge-to-corner one (the scenario's comment: 248 rad/s), not the face-to-edge
+        # one (328 rad/s); the corner wheels are braked at the cell's factor of it (the law's target)
+        assert float(r["needed_wheel_speed_rad_s"]) == pytest.approx(fig.needed_wheel_speed_rad_s, rel=1e-9)
+        assert float(r["reached_wheel_speed_rad_s"]) == pytest.approx(f * fig.needed_wheel_speed_rad_s, rel=0.02)
+
+
+def test_the_corner_cells_start_on_the_edge_and_their_rise_is_the_centre_of_mass_rise(corner_map):
+    from sim.strategies.jump_figures import edge_to_corner
+    _, cells = corner_map
+    # Geometry (common practice, no source): turning about the corner, the centre of mass at |c| from it
+    # stands |c| cos(theta) above it, theta the tilt from the corner balance; resting on the edge
+    # (centre of mass above the edge, at d from it) theta_0 = atan(|c_x| / d), the rise angle of
+    # edge_to_corner. The rise fraction is then (h - d) / (|c| - d): the energy reached over the need.
+    c = np.asarray(_corner_device().com_m)
+    d, norm_c = math.hypot(c[1], c[2]), float(np.linalg.norm(c))
+    theta0 = edge_to_corner(_corner_device()).rise_angle_rad
+    assert theta0 == pytest.approx(math.atan2(abs(c[0]), d), rel=1e-12)
+    for r in cells.values():
+        h = norm_c * math.cos(float(r["smallest_tilt_rad"]))
+        # tolerance 1e-6: the start is set exactly on the edge; only the CSV's rounding is left
+        assert float(r["rise_fraction"]) == pytest.approx((h - d) / (norm_c - d), abs=1e-6)
+        assert float(r["smallest_tilt_rad"]) < theta0
+
+
+def test_the_corner_jump_falls_short_below_the_need_and_gets_up_just_over_it_with_a_fast_brake(corner_map):
+    from sim.studies.jumpmap import _mark
+    _, cells = corner_map
+    for f in (0.7, 0.9):
+        for t in (0, 50, 100):
+            r = cells[(f, t)]
+            assert r["got_up"] == "False" and float(r["rise_fraction"]) < 0.9, (f, t)
+            row = {"got_up": False, "outcome": r["outcome"],
+                   "farthest_past_balance_rad": float(r["farthest_past_balance_rad"])}
+            assert _mark(row) == "short", (f, t, r["outcome"])
+        # A slipping friction brake turns relative-motion energy into heat the longer it takes to lock
+        # (energy dissipated in clutch engagement: Shigley's Mechanical Engineering Design, clutches and
+        # brakes [from memory]): the rise falls as the engagement time grows.
+        rises = [float(cells[(f, t)]["rise_fraction"]) for t in (0, 50, 100)]
+        assert rises[0] > rises[1] > rises[2] > 0.0, (f, rises)
+    # 10% over the lossless need (the law's own default margin) with a fast brake: up, and held
+    r = cells[(1.1, 0)]
+    assert r["got_up"] == "True" and r["outcome"] == "balanced" and float(r["smallest_tilt_rad"]) < math.radians(2)
+    # more energy in the wheels rises higher (momentum, then energy: Gajamohan, Merz, Thommen & D'Andrea,
+    # IROS 2012): at each engagement time the rise grows with the factor
+    for t in (0, 50, 100):
+        rises = [min(float(cells[(f, t)]["rise_fraction"]), 1.0) for f in (0.7, 0.9, 1.1)]
+        assert rises[0] < rises[1] <= rises[2], (t, rises)
+
+
+def test_far_over_the_corner_need_the_cube_goes_over_its_corner():
+    # 1.5x the lossless need hands the body about 1.5^2 = 2.25 times the energy the rise needs (same relation
+    # as above): with a fast brake it passes the corner balance and falls on the far side
+    import yaml
+
+    from sim.studies.jumpmap import _mark, jump_cell
+    raw = yaml.safe_load(Path(CORNER).read_text())
+    raw["trial"]["duration"] = 3.5
+    r = jump_cell({"raw": raw, "where": CORNER, "x": 1.5, "y": 0.05, "seed": 2})
+    assert r["got_up"] is False and r["jump_attempts"] == 1
+    assert r["farthest_past_balance_rad"] > math.radians(30) and _mark(r) == "over"
+
+
+def test_a_corner_cell_replaces_the_scenario_start_with_the_edge():
+    from sim.studies.jumpmap import cell_raw
+    raw = {"body": {"mount": "floor", "balance_on": "corner"}, "strategy": {"kind": "jump", "margin": 1.1},
+           "trial": {"duration": 7, "start": {"resting_on": "face", "side": -1}}}
+    out = cell_raw(raw, speed_factor=0.8, brake_time_s=0.02)
+    assert out["trial"] == {"duration": 7, "start": {"resting_on": "edge"}}
+    assert out["strategy"] == {"kind": "jump", "margin": 0.8, "max_attempts": 1}
+    assert raw["trial"]["start"] == {"resting_on": "face", "side": -1}      # the caller's mapping is untouched
+    # an edge device's start is its own
+    edge = cell_raw({**raw, "body": {"mount": "floor"}}, speed_factor=0.8, brake_time_s=0.02)
+    assert edge["trial"]["start"] == {"resting_on": "face", "side": -1}
+
+
+def test_past_the_corner_is_the_tilt_vector_along_its_start_direction():
+    # vector projection onto a unit vector (common practice, no source): start (0.3, 0.4), |.| = 0.5
+    from sim.studies.jumpmap import corner_past
+    got = corner_past(np.array([0.3, 0.0, -0.06, 0.4]), np.array([0.4, 0.0, -0.08, -0.3]))
+    assert_allclose(got, [0.5, 0.0, -0.1, 0.0], atol=1e-15)
+    assert_allclose(corner_past(np.zeros(3), np.zeros(3)), np.zeros(3))
+
+
+@pytest.mark.parametrize("extra,key", [
+    (["--speed-factor-max", "4"], "--speed-factor-max"),
+    (["--brake-time-min", "-1 ms"], "--brake-time-min"),
+    (["--rate-max", "1 rad/s"], "--rate-max"),
+])
+def test_bad_options_on_the_corner_map_are_one_line_and_exit_2(tmp_path, capsys, extra, key):
+    out = tmp_path / "map"
+    assert main(["catch-map", CORNER, "--grid", "3", "--out", str(out), *extra]) == 2
+    err = capsys.readouterr().err.strip()
+    assert len(err.splitlines()) == 1 and key in err and "Traceback" not in err
+    assert not out.exists()

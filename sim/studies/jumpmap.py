@@ -5,7 +5,8 @@ up to the balance edge; one wheel on a hinge, `sim.strategies.jump`), and with `
 device whose `swing_and_catch` swings up by a `jump` (scenarios/jump_pendulum.yaml), maps the jump
 instead of start states. A square grid:
 - x: the pre-brake wheel speed as a factor of the lossless needed speed (the law's `margin`,
-  `sim.strategies.jump_figures.face_to_edge`), dimensionless, default 0.7 to 1.5;
+  `sim.strategies.jump_figures.face_to_edge`; on a corner device `edge_to_corner`, below), dimensionless,
+  default 0.7 to 1.5;
 - y: the brake's engagement time (`drive.brake_engage_time`: the time its torque takes to reach full,
   `sim.physics.brake`), s, default 0 to 100 ms.
 Each cell is one jump attempt (`max_attempts: 1`) from the scenario's own start, run for the
@@ -19,7 +20,16 @@ energy reached over the energy needed, the ratio the law itself corrects a miss 
 `brake_engage_time` is dropped so that the map's value applies to every brake. On one wheel the tilt is the
 angle from upright wrapped to (-pi, pi] (hanging: pi, the rest tilt), and a cell is its first jump only
 (`planar_jump_row`): a supervisor that loses the body swings it up again, which is not the cell's jump.
-The edge-to-corner jump (`balance_on: corner`) has no map yet.
+On a floor device balancing on a corner (`balance_on: corner`, `sim.strategies.jump_corner`) the map is
+of the edge-to-corner jump: each cell starts resting on the balance edge (`trial.start: {resting_on:
+edge}`), so no face-to-edge jump comes before it, and the law's `margin` and `max_attempts` (which the
+corner stage reads as its speed factor and its count of corner attempts) make it one corner jump at
+this factor of `sim.strategies.jump_figures.edge_to_corner`'s need. Its tilt is the trace's `tilt`,
+from balance on the corner (the start lies at the edge's rest tilt, atan(|c_x| / d)), so the rise
+fraction is the same ratio, (h - d) / (|c| - d) with h = |c| cos theta; how far past the corner is
+the (tilt_x, tilt_y) vector projected on its start direction, past zero on the far side. A jump that
+reached the catch region and was then lost counts the corner LQR's own lift in its smallest tilt (on the
+demo at 0.9 of the need: rise fraction 0.84 against the law's 0.78 at the handover).
 Outputs: catch_map.csv (a row per cell), catch_map.json (axes, ranges, counts) and catch_map.png.
 """
 
@@ -92,9 +102,6 @@ def check_jump_map(raw: dict, where: str, *, grid: int, speed_factor: tuple[floa
     if not is_jump_map(sc, jump=True):
         raise InputError(f"{where}: strategy.kind: a jump map needs a strategy that jumps (jump, or on one wheel "
                          f"swing_and_catch with swing_up kind jump), found {sc.strategy.kind!r}")
-    if sc.body.mount == "floor" and sc.body.balance_on == "corner":
-        raise InputError(f"{where}: body.balance_on: a jump map maps the jump from a face up to an edge; the "
-                         "edge-to-corner jump has no map yet")
     validate_scenario(cell_raw(raw, speed_factor=speed_factor[0], brake_time_s=brake_time_s[1]), where=where)
     return sc
 
@@ -109,10 +116,18 @@ def cell_raw(raw: dict, *, speed_factor: float, brake_time_s: float) -> dict:
     else:
         out["strategy"] = {**strategy, "margin": float(speed_factor), "max_attempts": 1}
     out["drive"] = {**(out.get("drive") or {}), "brake_engage_time": float(brake_time_s)}
+    if _on_corner(out):     # the edge-to-corner jump: every cell starts at rest on the balance edge
+        out["trial"] = {**(out.get("trial") or {}), "start": {"resting_on": "edge"}}
     if isinstance(out.get("wheels"), list):
         out["wheels"] = [{k: v for k, v in w.items() if k != "brake_engage_time"} if isinstance(w, dict) else w
                          for w in out["wheels"]]
     return out
+
+
+def _on_corner(raw: dict) -> bool:
+    """A floor device balancing on its corner (the scenario mapping, before validation)."""
+    body = raw.get("body") or {}
+    return isinstance(body, dict) and body.get("mount") == "floor" and body.get("balance_on") == "corner"
 
 
 def rise_fraction(smallest_tilt_rad: float, rest_tilt_rad: float) -> float:
@@ -134,22 +149,42 @@ def jump_cell(payload: dict) -> dict:
     res = run_trial(sc, seed=payload["seed"])
     if sc.is_planar:
         return row | planar_jump_row(res)
-    signed = np.asarray(res.trace.tilt_x[:res.trace.n], dtype=float)
-    tilt = np.abs(signed)
+    tr = res.trace
+    if sc.body.mount == "floor" and sc.body.balance_on == "corner":
+        tilt = np.asarray(tr.tilt[:tr.n], dtype=float)
+        return row | jump_row(res, tilt, corner_past(np.asarray(tr.tilt_x[:tr.n], dtype=float),
+                                                     np.asarray(tr.tilt_y[:tr.n], dtype=float)))
+    signed = np.asarray(tr.tilt_x[:tr.n], dtype=float)
+    return row | jump_row(res, np.abs(signed), signed * math.copysign(1.0, signed[0]) if signed.size else signed)
+
+
+def corner_past(tilt_x: np.ndarray, tilt_y: np.ndarray) -> np.ndarray:
+    """The (tilt_x, tilt_y) vector projected on its start direction, rad: positive on the start's side of
+    the corner balance, negative past it. A start exactly at balance has no direction: zeros."""
+    if not tilt_x.size:
+        return tilt_x
+    norm = math.hypot(float(tilt_x[0]), float(tilt_y[0]))
+    if norm == 0.0:
+        return np.zeros_like(tilt_x)
+    return (tilt_x * float(tilt_x[0]) + tilt_y * float(tilt_y[0])) / norm
+
+
+def jump_row(res, tilt: np.ndarray, towards: np.ndarray) -> dict:
+    """A 3D cell's row from its tilt from balance (rad, >= 0; the start at the rest tilt) and the signed
+    tilt along the start's side (rad, negative: past balance on the far side), with the law's metrics."""
     m = res.strategy.extra_metrics if res.strategy is not None else {}
     smallest = float(np.min(tilt)) if tilt.size else None
     braked = m.get("braked_at_s")
     outcome = res.outcome
     if outcome == "balanced" and (braked is None or res.ended_at_s - braked < HELD_S):
         outcome = "undecided"     # the trial ended before the jump had been held long enough to judge it
-    return row | {"got_up": outcome == "balanced", "outcome": outcome, "smallest_tilt_rad": smallest,
-                  "braked_at_s": braked,
-                  "rise_fraction": None if smallest is None else rise_fraction(smallest, float(tilt[0])),
-                  "farthest_past_balance_rad": None if smallest is None else
-                  max(0.0, float(-np.min(signed * math.copysign(1.0, signed[0])))),
-                  "needed_wheel_speed_rad_s": m.get("needed_wheel_speed_rad_s"),
-                  "reached_wheel_speed_rad_s": m.get("reached_wheel_speed_rad_s"),
-                  "jump_attempts": m.get("jump_attempts")}
+    return {"got_up": outcome == "balanced", "outcome": outcome, "smallest_tilt_rad": smallest,
+            "braked_at_s": braked,
+            "rise_fraction": None if smallest is None else rise_fraction(smallest, float(tilt[0])),
+            "farthest_past_balance_rad": None if smallest is None else max(0.0, float(-np.min(towards))),
+            "needed_wheel_speed_rad_s": m.get("needed_wheel_speed_rad_s"),
+            "reached_wheel_speed_rad_s": m.get("reached_wheel_speed_rad_s"),
+            "jump_attempts": m.get("jump_attempts")}
 
 
 def planar_jump_row(res) -> dict:
