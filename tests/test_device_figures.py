@@ -10,7 +10,7 @@ from sim.cli import main
 from sim.model.device import Device
 from sim.model.device_figures import device_figures
 from sim.model.scenario_yaml import load_scenario
-from tests.conftest import scenario_dict, write_scenario
+from conftest import scenario_dict, write_scenario
 
 
 def test_figures_follow_the_dc_motor_and_static_balance_formulas(tmp_path):

@@ -10,7 +10,7 @@ from sim.model.scenario import validate_scenario
 from sim.model.scenario_yaml import load_raw
 from sim.physics import engine as engine_mod
 from sim.run.trial import run_trial
-from tests.conftest import make_scenario
+from conftest import make_scenario
 
 
 def _demo(*overrides):

@@ -20,7 +20,7 @@ from sim.cli import main
 from sim.model.device import Device
 from sim.model.scenario_yaml import load_scenario
 from sim.strategies.lqr_design import design_lqr
-from tests.conftest import scenario_dict, write_scenario
+from conftest import scenario_dict, write_scenario
 
 pytestmark = pytest.mark.skipif(shutil.which("cc") is None and shutil.which("gcc") is None,
                                 reason="needs a C compiler (.ci/run installs one)")

@@ -16,7 +16,7 @@ from sim.cli import main
 from sim.model.device import Device
 from sim.model.scenario_yaml import load_scenario
 from sim.strategies.lqr_design import design_lqr
-from tests.conftest import scenario_dict, write_scenario
+from conftest import scenario_dict, write_scenario
 
 
 def _gains(capsys, *args):

@@ -17,8 +17,8 @@ from sim.core.errors import InputError
 from sim.strategies.lqr import LqrBalance
 from sim.strategies.lqr_design import design_lqr_spec
 from sim.studies.gains_multi import multi_gains_report, to_c_header, to_json, to_text
-from tests.test_linear3d import corner_cube
-from tests.test_lqr_multi import _params, _reading, _stub
+from test_linear3d import corner_cube
+from test_lqr_multi import _params, _reading, _stub
 
 
 def test_json_has_named_matrices_and_python_control_agrees():

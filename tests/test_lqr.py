@@ -12,7 +12,7 @@ from numpy.testing import assert_allclose
 
 from sim.model.device import Device
 from sim.strategies.lqr_design import DelayPredictor, bryson_weights, design_lqr
-from tests.conftest import make_scenario
+from conftest import make_scenario
 
 
 def _device():

@@ -22,7 +22,7 @@ from sim.strategies import resolve_spec
 from sim.strategies.base import Reading
 from sim.strategies.lqr import LqrBalance, MultiWheelLqr
 from sim.strategies.lqr_design import DelayPredictor, bryson_limits, design_lqr, design_lqr_spec, spec_weights
-from tests.test_linear3d import _hinge, corner_cube, wheel
+from test_linear3d import _hinge, corner_cube, wheel
 
 
 def two_wheel_hinge() -> LinearSpec:

@@ -6,7 +6,7 @@ import numpy as np
 
 from sim.media.plots import summary_figure
 from sim.run.trial import run_trial
-from tests.conftest import make_scenario
+from conftest import make_scenario
 
 
 def _lines(ax):

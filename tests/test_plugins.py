@@ -17,7 +17,7 @@ from sim.core.errors import ScenarioError
 from sim.model.scenario_yaml import load_scenario
 from sim.run.metrics import trial_metrics
 from sim.run.trial import run_trial
-from tests.conftest import scenario_dict, write_scenario
+from conftest import scenario_dict, write_scenario
 
 PLUGIN_FILE = Path(__file__).parent / "plugins" / "simple_laws.py"
 

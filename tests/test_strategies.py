@@ -16,7 +16,7 @@ from sim.model.scenario_yaml import load_scenario
 from sim.run.metrics import trial_metrics
 from sim.run.trial import run_trial
 from sim.strategies import BUILTIN, Reading, Strategy, builtin_class
-from tests.conftest import make_scenario
+from conftest import make_scenario
 
 BRAKE = {"supply": 12.0, "brake_torque": 50.0}   # invented test drive with a strong brake
 FIRMWARE = Path(__file__).resolve().parents[1] / "scenarios" / "firmware"

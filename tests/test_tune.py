@@ -15,7 +15,7 @@ import yaml
 from numpy.testing import assert_allclose
 
 from sim.cli import main
-from tests.conftest import scenario_dict, write_scenario
+from conftest import scenario_dict, write_scenario
 
 PLUGINS = Path(__file__).parent / "plugins"
 ALU_WHEEL = {"parts": [{"name": "disk", "shape": "disk", "radius": 0.05, "thickness": 0.005, "material": "aluminium"}]}
