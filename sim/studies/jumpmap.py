@@ -313,8 +313,8 @@ def jump_figure(result: dict):
     ax.set_ylabel(AXIS_LABELS[1])
     key = {w: (f"{INITIALS[w]} ({w})" if short_words else w) for w in INITIALS}
     ax.set_title(f"{result['name']}: jump map, one attempt per cell\n{key['up']}: got up and balanced; {key['over']}: "
-                 f"went past balance and fell; {key['short']}: fell back;\n{key['slid']}: rose, then the contact slid "
-                 f"past the floor's slip limit; ?: ended too soon; dashed: the lossless need", color=INK, fontsize=9,
+                 f"went past balance and fell\n{key['short']}: fell back; {key['slid']}: the contact slid past the "
+                 f"floor's slip limit\n?: ended too soon; dashed line: the lossless need", color=INK, fontsize=9,
                  parse_math=False)
     return fig
 
