@@ -498,7 +498,8 @@ def _jump_map(raw, where, *, grid, opts, others, out, workers, cluster, force) -
     from .core.errors import InputError
     from .core.outputs import prepare_out_dir
     from .core.units import parse_quantity
-    from .studies.jumpmap import BRAKE_TIME_RANGE_S, SPEED_FACTOR_RANGE, check_jump_map, jump_map, write_jump_map
+    from .studies.jumpmap import (BRAKE_TIME_RANGE_S, SPEED_FACTOR_RANGE, check_jump_map, jump_map, start_note,
+                                  write_jump_map)
     given = [k for k, v in others.items() if v is not None]
     if given:
         raise InputError(f"{given[0]}: a jump device's map is pre-brake wheel speed against brake engagement time; "
@@ -512,6 +513,9 @@ def _jump_map(raw, where, *, grid, opts, others, out, workers, cluster, force) -
         except ValueError as exc:
             raise InputError(f"{k}: {exc}") from None
     check_jump_map(raw, where, grid=grid, speed_factor=tuple(factors), brake_time_s=tuple(times))
+    note = start_note(raw)
+    if note:
+        typer.echo(note, err=True)
     out_dir = prepare_out_dir(out, force=force)
     bar, update = progress("jump map")
     with bar:

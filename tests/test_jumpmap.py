@@ -286,3 +286,14 @@ def test_bad_options_on_the_corner_map_are_one_line_and_exit_2(tmp_path, capsys,
     err = capsys.readouterr().err.strip()
     assert len(err.splitlines()) == 1 and key in err and "Traceback" not in err
     assert not out.exists()
+
+
+def test_a_corner_map_says_it_sets_the_scenarios_start_aside():
+    from sim.studies.jumpmap import start_note
+    corner = {"body": {"mount": "floor", "balance_on": "corner"}, "trial": {"start": {"resting_on": "face"}}}
+    assert start_note(corner) == ("note: trial.start {resting_on: face} is not used: the map's cells start at rest "
+                                  "on the balance edge (the edge-to-corner jump, one attempt each)")
+    assert start_note({**corner, "trial": {"start": {"resting_on": "edge"}}}) is None
+    assert start_note({**corner, "trial": {}}) is None
+    edge = {"body": {"mount": "floor", "balance_on": "edge"}, "trial": {"start": {"resting_on": "face"}}}
+    assert start_note(edge) is None        # an edge device's cells keep the scenario's start

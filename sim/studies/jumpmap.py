@@ -124,6 +124,17 @@ def cell_raw(raw: dict, *, speed_factor: float, brake_time_s: float) -> dict:
     return out
 
 
+def start_note(raw: dict) -> str | None:
+    """One note line when the map sets aside the scenario's own start: a corner device's cells all start at
+    rest on the balance edge (`cell_raw`), whatever `trial.start` says; None otherwise."""
+    start = (raw.get("trial") or {}).get("start") if isinstance(raw.get("trial"), dict) else None
+    if not _on_corner(raw) or not start or start == {"resting_on": "edge"}:
+        return None
+    shown = "{" + ", ".join(f"{k}: {v}" for k, v in start.items()) + "}" if isinstance(start, dict) else str(start)
+    return (f"note: trial.start {shown} is not used: the map's cells start at rest on the balance edge "
+            "(the edge-to-corner jump, one attempt each)")
+
+
 def _on_corner(raw: dict) -> bool:
     """A floor device balancing on its corner (the scenario mapping, before validation)."""
     body = raw.get("body") or {}
