@@ -35,7 +35,7 @@ from .trial_common import TrialResult, close_trace  # noqa: F401 - TrialResult's
 from .trial_common import describe as _describe
 from .trial_common import describe_unread as _describe_unread
 from .trial_common import final_outcome as _final_outcome
-from .trial_common import with_strategy
+from .trial_common import held_rows, with_strategy
 from .trial_isolated import PublishedTrace as _PublishedTrace
 from .trial_isolated import WatchedClock as _WatchedClock
 from .trial_isolated import lost_child_message, run_watched
@@ -345,12 +345,8 @@ def _hold_tick_values(trace: Trace, cs: int, tick_rows: list[int] | None = None)
     cols = [trace.mode, trace.meas_angle, trace.meas_rate, trace.meas_wheel,
             *(c for name, c in trace.extra.items() if name not in POWER_CSV_COLUMNS)]
     if tick_rows is None:
-        rows = (np.arange(trace.n) // cs) * cs
         cols.insert(0, trace.voltage)
-    else:
-        ticks = np.asarray(tick_rows + [0], dtype=np.int64)[:max(len(tick_rows), 1)]
-        rows = ticks[np.maximum(np.searchsorted(ticks, np.arange(trace.n), side="right") - 1, 0)]
-        rows = np.where(np.arange(trace.n) < ticks[0], 0, rows)
+    rows = held_rows(trace.n, cs, tick_rows)
     for col in cols:
         col[: trace.n] = col[rows]
 

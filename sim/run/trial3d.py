@@ -46,7 +46,8 @@ from ..strategies import plugins_in
 from ..strategies.base import Reading
 from .floor_contact import FloorWatch, floor_cause
 from .trace3d import Trace3D
-from .trial_common import TrialResult, close_trace, describe, describe_unread, final_outcome, with_strategy
+from .trial_common import (TrialResult, close_trace, describe, describe_unread, final_outcome, held_rows,
+                           with_strategy)
 from .trial_isolated import PublishedTrace3D, WatchedClock, lost_child_message, run_watched
 
 ABSURD_RATE_RAD_S = 1e4          # as the planar runner
@@ -467,14 +468,9 @@ def _hold_tick_values(trace: Trace3D, cs: int, tick_rows: list[int] | None = Non
     """Copy each control tick's held values (voltages, mode, measurements, IMU samples and estimates)
     down to the rows until the next tick. With `tick_rows` (a timed loop: ticks where the schedule put
     them) the voltages are left as written, every row (`sim.run.trial._hold_tick_values`'s rule)."""
-    if tick_rows is None:
-        rows = (np.arange(trace.n) // cs) * cs
-        held = [a for a in trace.FLOAT_COLUMNS if a.startswith(("m_", "imu_", "estimated_")) or a.endswith("_voltage")]
-    else:
-        ticks = np.asarray(tick_rows or [0], dtype=np.int64)
-        rows = ticks[np.maximum(np.searchsorted(ticks, np.arange(trace.n), side="right") - 1, 0)]
-        rows = np.where(np.arange(trace.n) < ticks[0], 0, rows)
-        held = [a for a in trace.FLOAT_COLUMNS if a.startswith(("m_", "imu_", "estimated_"))]
+    held = [a for a in trace.FLOAT_COLUMNS
+            if a.startswith(("m_", "imu_", "estimated_")) or (tick_rows is None and a.endswith("_voltage"))]
+    rows = held_rows(trace.n, cs, tick_rows)
     for col in [getattr(trace, a) for a in held] + [trace.mode]:
         col[: trace.n] = col[rows]
 

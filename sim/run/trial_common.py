@@ -53,6 +53,17 @@ def close_trace(trace, *, outcome, k: int, n: int, dt: float, fell_k) -> float:
     return ended
 
 
+def held_rows(n: int, cs: int, tick_rows: list[int] | None) -> np.ndarray:
+    """For each of a trace's `n` rows, the row of the control tick whose values it holds: every `cs`
+    steps from 0, or with `tick_rows` (a timed loop's ticks, in order) the latest tick at or before it
+    (rows before the first tick hold row 0)."""
+    if tick_rows is None:
+        return (np.arange(n) // cs) * cs
+    ticks = np.asarray(tick_rows or [0], dtype=np.int64)
+    rows = ticks[np.maximum(np.searchsorted(ticks, np.arange(n), side="right") - 1, 0)]
+    return np.where(np.arange(n) < ticks[0], 0, rows)
+
+
 def build_strategy(scenario, device, rng, clock):
     """(strategy, None), or (None, message) when building it fails: an outcome, like failing later."""
     try:
