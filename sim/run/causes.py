@@ -226,10 +226,16 @@ def _held_from(result, end: int) -> int:
     """The first row of the last stretch before row `end` with the body inside the release angle
     (the runner sees the fall at a control tick, so the last rows before it may be outside)."""
     release = getattr(getattr(result.strategy, "params", None), "release_angle", math.pi)
-    outside = np.abs(wrap_angles(result.trace.angle[:end].copy())) > release
+    start = held_start(np.abs(wrap_angles(result.trace.angle[:end].copy())) > release)
+    return end if start is None else start
+
+
+def held_start(outside: np.ndarray) -> int | None:
+    """The first row of the last stretch of rows not `outside` (the body inside the release angle),
+    None when there is none."""
     inside = np.flatnonzero(~outside)
     if inside.size == 0:
-        return end
+        return None
     before = np.flatnonzero(outside[: inside[-1]])
     return int(before[-1]) + 1 if before.size else 0
 

@@ -24,7 +24,8 @@ import math
 
 import numpy as np
 
-from .causes import CURRENT_AT_LIMIT, ESTIMATOR_MISREAD_RAD, LOOKBACK_S, SUSTAINED_S, WHEEL_NEAR_LIMIT, _power_event
+from .causes import (CURRENT_AT_LIMIT, ESTIMATOR_MISREAD_RAD, LOOKBACK_S, SUSTAINED_S, WHEEL_NEAR_LIMIT, _power_event,
+                     held_start)
 from .metrics import PUSH_RECOVER_S
 from .metrics3d import tilt_errors
 
@@ -97,12 +98,9 @@ def _misread(result, look_from: int, end: int) -> tuple[float, float] | None:
     `look_from` (the whole held stretch when that leaves none); None without an estimator."""
     tr = result.trace
     release = getattr(getattr(result.strategy, "params", None), "release_angle", math.pi)
-    tilt = tr.tilt[:end]
-    inside = np.flatnonzero(tilt <= release)
-    if inside.size == 0:
+    held_from = held_start(~(tr.tilt[:end] <= release))
+    if held_from is None:
         return None
-    before = np.flatnonzero(tilt[: inside[-1]] > release)
-    held_from = int(before[-1]) + 1 if before.size else 0
     stop = look_from if look_from > held_from else end
     err = tilt_errors(tr, held_from, stop)
     if err is None or err.shape[0] == 0:
