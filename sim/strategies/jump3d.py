@@ -75,6 +75,30 @@ def speed_loop_volts(units, inertia, ramp, target, w_ref, w) -> list[float]:
     return [u.resistance_ohm * t / u.k_t_n_m_a + u.k_e_v_s_rad * s for u, t, s in zip(units, tau, w)]
 
 
+class RestWatch:
+    """Whether a body has lain still for REST_S: its rate (rad/s, a number or a vector) low-passed with the
+    time constant REST_FILTER_S and under REST_RATE (a vector is filtered, not its norm, which noise
+    biases upwards). `reset()` when a wait for rest begins."""
+
+    def __init__(self, period_s: float):
+        self.period = period_s
+        self.reset()
+
+    def reset(self) -> None:
+        self.rate_f = self.since = None
+
+    def rested(self, t_s: float, rate, *, allowed: bool = True) -> bool:
+        """Update with this tick's rate; True once still (and `allowed`) since REST_S ago."""
+        held = self.rate_f
+        self.rate_f = rate if held is None else held + (rate - held) * self.period / (REST_FILTER_S + self.period)
+        size = abs(self.rate_f) if isinstance(self.rate_f, float) else float(np.linalg.norm(self.rate_f))
+        if allowed and size < REST_RATE:
+            self.since = t_s if self.since is None else self.since
+            return t_s - self.since >= REST_S
+        self.since = None
+        return False
+
+
 class JumpLaw(Strategy):
     """What the 3D jump laws share: their kind, goal and the figures of their wheels."""
 
@@ -112,6 +136,7 @@ class JumpUp3D(JumpLaw):
         self.max_attempts = params.max_attempts if params.max_attempts is not None else DEFAULT_ATTEMPTS
         self.factor = float(params.margin)          # the aim as a multiple of the lossless need
         self.period = 1.0 / device.control_rate_hz
+        self.rest = RestWatch(self.period)
         self.balancing = False
         self.lqr = None
         self.fig = None
@@ -163,7 +188,7 @@ class JumpUp3D(JumpLaw):
         if self.phase == "balance":
             if abs(tilt) > self.params.release_angle:     # it got up but the LQR lost it: a miss
                 self.balancing, self.lqr, self.phase = False, None, "fallen"
-                self._rest_since = self._rate_f = None
+                self.rest.reset()
             else:
                 if reading.t_s - self._handover_s > HELD_S:
                     self._ratio_at_handover = None
@@ -205,7 +230,8 @@ class JumpUp3D(JumpLaw):
         locked = np.all(np.abs(w[self.used]) <= LOCKED * self.extra_metrics["reached_wheel_speed_rad_s"])
         if locked and rate * self.sense <= 0.0:   # turned back (or never rose) short of the catch region
             self._judge(self._energy_ratio(self.peak, 0.0))
-            self.phase, self._rest_since, self._rate_f = "fell back", None, None
+            self.phase = "fell back"
+            self.rest.reset()
         return [0.0] * len(self.units)
 
     def _hand_over(self, reading: Reading, *, ratio):
@@ -223,19 +249,13 @@ class JumpUp3D(JumpLaw):
         if self.phase == "fallen" and getattr(self, "_ratio_at_handover", None) is not None:
             self._judge(self._ratio_at_handover)     # it got up: the handover's energy says by how much
             self._ratio_at_handover = None
-        held = getattr(self, "_rate_f", None)
-        self._rate_f = rate if held is None else held + (rate - held) * self.period / (REST_FILTER_S + self.period)
-        if abs(self._rate_f) < REST_RATE and abs(tilt) > CATCH_ANGLE:
-            self._rest_since = t_s if self._rest_since is None else self._rest_since
-            if t_s - self._rest_since >= REST_S:
-                if self.extra_metrics["jump_attempts"] >= self.max_attempts:
-                    self.phase = "gave up"
-                elif abs(tilt) >= 0.5 * math.pi:     # rolled onto a face away from the balance edge
-                    self.phase = "gave up: the balance edge is off the floor"
-                else:
-                    self.brake, self.open_circuit = False, False
-                    self._plan(tilt, w)
-                    return self._spin(w, t_s)
-        else:
-            self._rest_since = None
+        if self.rest.rested(t_s, rate, allowed=abs(tilt) > CATCH_ANGLE):
+            if self.extra_metrics["jump_attempts"] >= self.max_attempts:
+                self.phase = "gave up"
+            elif abs(tilt) >= 0.5 * math.pi:     # rolled onto a face away from the balance edge
+                self.phase = "gave up: the balance edge is off the floor"
+            else:
+                self.brake, self.open_circuit = False, False
+                self._plan(tilt, w)
+                return self._spin(w, t_s)
         return [0.0] * len(self.units)

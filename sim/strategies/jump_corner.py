@@ -49,8 +49,8 @@ import numpy as np
 from ..core.errors import StrategyError
 from ..core.frames import rotation_about_x_y
 from .base import Reading
-from .jump3d import (CATCH_ANGLE, HELD_S, LOCKED, RATIO_CLAMP, REST_FILTER_S, REST_RATE, REST_S, SETTLE_S,
-                     SPEED_CAP, JumpLaw, JumpUp3D, speed_loop_volts)
+from .jump3d import (CATCH_ANGLE, HELD_S, LOCKED, RATIO_CLAMP, SETTLE_S, SPEED_CAP, JumpLaw, JumpUp3D, RestWatch,
+                     speed_loop_volts)
 from .jump_figures import edge_to_corner, jump_margin
 
 EDGE_SETTLE_S = 0.5        # held on the edge this long, still, before the corner jump (our choice)
@@ -104,7 +104,8 @@ class JumpToCorner(JumpLaw):
         self.edge_law = None
         self.lqr = None
         self.balancing = False
-        self._still_since = self._rest_since = self._handover_s = self._ratio_at_handover = self._omega_f = None
+        self._still_since = self._handover_s = self._ratio_at_handover = None
+        self.rest = RestWatch(self.period)
         self.phase, self._first = "edge", True
 
     # -- what the reading says about the edge and the corner -------------------------------------------
@@ -263,7 +264,8 @@ class JumpToCorner(JumpLaw):
     def _missed(self, phase: str) -> None:
         self.brake, self.open_circuit, self.phase = False, True, phase
         self._close_edge_law()
-        self.edge_law, self._rest_since, self._still_since, self._omega_f = None, None, None, None
+        self.edge_law, self._still_since = None, None
+        self.rest.reset()
 
     def _wait_for_edge(self, reading, up, omega):
         """After a miss: back to stage 1 once on the edge or at rest next to it; give up if the edge is off the floor."""
@@ -272,20 +274,13 @@ class JumpToCorner(JumpLaw):
         if level and abs(tilt) <= CATCH_ANGLE:
             self.open_circuit, self.phase = False, "edge"
             return self._on_edge(reading, up, omega, np.asarray(reading.wheel_speeds_rad_s, dtype=float))
-        # the body rate judged for rest through the face-to-edge law's low-pass (a noisy gyro's raw rate never
-        # stays under REST_RATE); the vector is filtered, not its norm, which noise biases upwards
-        held = self._omega_f
-        self._omega_f = omega if held is None else held + (omega - held) * self.period / (REST_FILTER_S + self.period)
-        if float(np.linalg.norm(self._omega_f)) < REST_RATE:
-            self._rest_since = reading.t_s if self._rest_since is None else self._rest_since
-            if reading.t_s - self._rest_since >= REST_S:
-                if not level or abs(tilt) >= 0.5 * math.pi:
-                    self.phase = "gave up: the balance edge is off the floor"
-                elif self._metrics["jump_attempts"] >= self.max_attempts:
-                    self.phase = "gave up"
-                else:
-                    self.open_circuit, self.phase = False, "face"
-                    return self._on_edge(reading, up, omega, np.asarray(reading.wheel_speeds_rad_s, dtype=float))
-        else:
-            self._rest_since = None
+        # the body rate judged for rest as the face-to-edge law judges it (`jump3d.RestWatch`)
+        if self.rest.rested(reading.t_s, omega):
+            if not level or abs(tilt) >= 0.5 * math.pi:
+                self.phase = "gave up: the balance edge is off the floor"
+            elif self._metrics["jump_attempts"] >= self.max_attempts:
+                self.phase = "gave up"
+            else:
+                self.open_circuit, self.phase = False, "face"
+                return self._on_edge(reading, up, omega, np.asarray(reading.wheel_speeds_rad_s, dtype=float))
         return [0.0] * len(self.units)
