@@ -51,6 +51,7 @@ from ..run.metrics3d import trial_metrics3d
 from ..run.trial3d import run_trial3d
 from ..model.tolerances import interval_note
 from ..strategies.jump_figures import edge_to_corner, face_to_edge
+from .criteria3d import burst_criterion
 from .monte_carlo import monte_carlo, outcome_with_cause
 from .verdicts import CheckOutcome, _at_least, _at_most, _criterion, _failure_counts, with_trial
 from .verdicts3d import _smallest, run_check3d, wheel_figures
@@ -257,18 +258,13 @@ def jump_criteria(sc, metrics: dict, push_n_m_s: float, *, corner: bool = False)
 def _wheel_criteria(sc, wheels: list[dict], mc: dict | None = None) -> list[dict]:
     low = min(wheels, key=lambda w: w["speed_margin"])
     hot = max(wheels, key=lambda w: w["winding_temperature_c"] - w["max_winding_temperature_c"])
-    factor = _smallest([w["burst"]["safety_factor"] for w in wheels])
-    unknown = any(w["burst"]["unknown_parts"] for w in wheels)
     req = sc.requirements
     return [
         _at_least("wheel_speed_margin", low["speed_margin"], req.wheel_speed_margin,
                   f"worst wheel {low['wheel']} in the {low['speed_margin_run']} run"),
         _at_most("winding_temperature_c", hot["winding_temperature_c"], hot["max_winding_temperature_c"],
                  f"wheel {hot['wheel']}'s motor at {hot['rms_current_a']:.3g} A RMS over the jump-up trial, steady state"),
-        _criterion("wheel_burst_safety_factor", factor, req.burst_safety_factor,
-                   factor is not None and not unknown and factor >= req.burst_safety_factor,
-                   "each wheel's parts at its own runaway speed (no-load speed at full supply)"
-                   + ("; strength unknown for some parts: cannot confirm" if unknown else "")),
+        burst_criterion(sc, [w["burst"] for w in wheels]),
     ] + ([] if mc is None else [
         _at_least("monte_carlo_pass_fraction", mc["pass_fraction"], req.pass_fraction,
                   f"{mc['trials']} jump-ups over the tolerances (balanced within swing_up_time, at most "
