@@ -41,7 +41,7 @@ from ..physics.brake import BrakeRamp
 from ..physics.engine_floor import FloorEngine
 from ..physics.drive import shared_chains, shared_summary
 from ..physics.motor import MotorDrive
-from ..physics.sensors import SensorSuite
+from ..physics.sensors import SensorSuite, axes_reader
 from ..strategies import plugins_in
 from ..strategies.base import Reading
 from .floor_contact import FloorWatch, floor_cause
@@ -275,9 +275,9 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     # delay and quantisation per axis); suites past the axes or wheels read zeros for those
     sense_angle = [tx_c] + ([ty_c, hd_c] if ball else [])
     sense_rate = [rx_c] + ([ry_c, rz_c] if ball else [])
-    suite_reads = [(s.read, sense_angle[j] if j < len(sense_angle) else zeros,
-                    sense_rate[j] if j < len(sense_rate) else zeros, wa_c[j] if j < nw else zeros,
-                    ws_c[j] if j < nw else zeros) for j, s in enumerate(suites)]
+    read_axes = axes_reader(suites, [(sense_angle[j] if j < len(sense_angle) else zeros,
+                                      sense_rate[j] if j < len(sense_rate) else zeros, wa_c[j] if j < nw else zeros,
+                                      ws_c[j] if j < nw else zeros) for j in range(len(suites))])
     io = engine.io()
     read, advance = io[0], io[1]
     watch = FloorWatch(io[2], trace, device.floor, stop_early) if len(io) > 2 else None
@@ -321,7 +321,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
             volts, change_k = pending, -1
         if k == tick_k:
             t = k * dt
-            meas = [r(k, a, w, wa, ws) for r, a, w, wa, ws in suite_reads]
+            meas = read_axes(k)
             m0 = meas[0]
             if ball:
                 m1, m2 = meas[1], meas[2]
