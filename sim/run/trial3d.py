@@ -271,6 +271,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     m_rate = [col["m_rate_x"]] + ([col["m_rate_y"], col["m_rate_z"]] if ball else [])
     m_wheel = [col[f"m_w{i}"] for i in range(1, nw + 1)]
     zeros = memoryview(np.zeros(max(n, 1)))
+    mode_c = memoryview(trace.mode)       # an int16 column: a Python int in costs less than numpy's item store
     # each sensor suite reads one angle, one rate and one wheel (sensors.py applies its noise, bias,
     # delay and quantisation per axis); suites past the axes or wheels read zeros for those
     sense_angle = [tx_c] + ([ty_c, hd_c] if ball else [])
@@ -344,7 +345,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 clock.enter(k)
                 held = volts
                 volts = command(reading, nw)
-                if not all(-supply <= v <= supply for v in volts):   # the drive's limit, whatever the law did
+                if min(volts) < -supply or max(volts) > supply:   # the drive's limit, whatever the law did
                     volts = tuple(v if -supply <= v <= supply else math.copysign(supply, v) for v in volts)
                 if strategy.phase != phase:
                     phase = strategy.phase
@@ -364,7 +365,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 break
             if name is not None:
                 mode, name = trace.phase_code(name), None
-            trace.mode[k] = mode
+            mode_c[k] = mode
             at_limit = False
             for i in wheels:     # every wheel's command recorded; the tick counts once if any is at the supply
                 v = volts[i]
