@@ -1,7 +1,11 @@
 """A pybullet body reused from the previous trial in this process gives exactly the numbers a
-newly built one gives (the engine resets joints and friction instead of rebuilding the same device)."""
+newly built one gives (the engine resets joints and friction instead of rebuilding the same device);
+a client reused by a 3D engine (its body always built anew) gives exactly the numbers of a new client.
+No outside reference applies: these pin a speed path to the path it stands in for, bit for bit."""
 
 from __future__ import annotations
+
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -13,9 +17,12 @@ from sim.run.trial import run_trial
 from conftest import make_scenario
 
 
-def _demo(*overrides):
-    raw, where = load_raw(None, tuple(overrides))
+def _demo(*overrides, path=None):
+    raw, where = load_raw(path, tuple(overrides))
     return validate_scenario(raw, where=where)
+
+
+SCENARIOS = Path(__file__).resolve().parent.parent / "scenarios"
 
 
 def _columns(result):
@@ -36,6 +43,14 @@ CASES = {
                                      lambda: make_scenario(body={"locked": True}, strategy={"kind": "fixed_voltage", "volts": 6.0})),
     "the same device twice, other start": (lambda: make_scenario(strategy={"kind": "fixed_voltage", "volts": 12.0}),
                                            lambda: make_scenario(trial={"start": {"angle": 0.3, "rate": -1.0}})),
+    # 3D engines take the idle client and build their body anew in it
+    "ball cube after a floor cube": (lambda: _demo("trial.duration=0.4", "trial.pushes=[]", path=SCENARIOS / "floor_cube.yaml"),
+                                     lambda: _demo("trial.duration=0.6", "trial.pushes=[]", path=SCENARIOS / "cube_corner.yaml")),
+    "floor cube after a ball cube": (lambda: _demo("trial.duration=0.4", "trial.pushes=[]", path=SCENARIOS / "cube_corner.yaml"),
+                                     lambda: _demo("trial.duration=0.6", "trial.pushes=[]", path=SCENARIOS / "floor_cube.yaml")),
+    "one wheel after a 3D device": (lambda: _demo("trial.duration=0.4", "trial.pushes=[]", path=SCENARIOS / "tilted_axis.yaml"),
+                                    lambda: _demo("strategy={kind: lqr}", "trial.start.angle=4 deg")),
+    "3D device after one wheel": (lambda: _demo(), lambda: _demo("trial.duration=0.6", "trial.pushes=[]", path=SCENARIOS / "tilted_axis.yaml")),
 }
 
 
@@ -46,7 +61,9 @@ def test_reused_body_gives_the_numbers_of_a_new_one(case):
     expected = _columns(_fresh(second, seed=11))
     _fresh(first, seed=5)                       # leaves its client and body idle for the next trial
     assert engine_mod._IDLE_CLIENTS, "the warm-up trial did not hand its client back"
+    idle = engine_mod._IDLE_CLIENTS[0][0]
     reused = run_trial(second, seed=11)
+    assert engine_mod._IDLE_CLIENTS[0][0] == idle, "the trial did not run on the idle client"
     got = _columns(reused)
     for name, column in expected.items():
         assert np.array_equal(got[name], column), f"column {name} differs on a reused body"

@@ -33,7 +33,7 @@ class EngineModel:
         # reset (rebuilding costs ~4 ms, a fifth of a short catch-map cell); a body drawn for video
         # carries visual shapes and is always built anew
         self.body_key = None if visual is not None else _body_key(device, step_s, start_angle_rad if self.locked else None)
-        self.client, self.body_id = _take_client(pb, self.body_key)
+        self.client, self.body_id = take_client(pb, self.body_key)
         if self.body_id is None:
             self.body_id = self._build(visual)
         else:
@@ -147,7 +147,7 @@ class EngineModel:
         """Hand the client (and the body in it) back for the next trial in this process."""
         client, self.client = self.client, None
         if client is not None:
-            _give_back_client(self.pb, client, self.body_key, self.body_id)
+            give_back_client(self.pb, client, self.body_key, self.body_id)
 
     def __enter__(self):
         return self
@@ -170,7 +170,7 @@ def _body_key(device: Device, step_s: float, locked_angle_rad: float | None) -> 
             locked_angle_rad)
 
 
-def _take_client(pb, key: tuple | None) -> tuple[int, int | None]:
+def take_client(pb, key: tuple | None) -> tuple[int, int | None]:
     """(client id, body id to reuse or None)."""
     while _IDLE_CLIENTS:
         cid, held, body = _IDLE_CLIENTS.pop()
@@ -179,7 +179,7 @@ def _take_client(pb, key: tuple | None) -> tuple[int, int | None]:
     return pb.connect(pb.DIRECT), None
 
 
-def _give_back_client(pb, cid: int, key: tuple | None, body: int) -> None:
+def give_back_client(pb, cid: int, key: tuple | None, body: int) -> None:
     try:
         if not _IDLE_CLIENTS and pb.isConnected(physicsClientId=cid):
             _IDLE_CLIENTS.append((cid, key, body))

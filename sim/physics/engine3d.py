@@ -32,7 +32,7 @@ from ..core.frames import matmul, matrix_to_quat, quat_to_matrix, transpose
 from ..model.device3d import Device3D
 from ..model.massprops3d import wheel_tensor
 from .ball_friction import BallFriction
-from .engine import MAX_JOINT_SPEED, import_pybullet
+from .engine import MAX_JOINT_SPEED, give_back_client, take_client, import_pybullet
 
 BODY = 0
 
@@ -46,11 +46,18 @@ class OneClient:
         return tuple(s[1] for s in self.pb.getJointStates(self.body_id, list(self.wheel_joints),
                                                           physicsClientId=self.client))
 
+    def connect(self) -> int:
+        """A DIRECT client: the idle one this process keeps (`sim.physics.engine`; connecting costs
+        tens of ms, more than a short trial's stepping), or a new one. The 3D engines always build
+        their body anew in it (their `_build` starts with resetSimulation), so a reused client gives
+        exactly the numbers a new one gives (tests/test_engine_reuse.py)."""
+        return take_client(self.pb, None)[0]
+
     def close(self) -> None:
-        """Disconnect the client (once; a 3D body is not kept for reuse)."""
+        """Hand the client back for the next trial in this process (once; the body is not kept)."""
         client, self.client = self.client, None
-        if client is not None and self.pb.isConnected(physicsClientId=client):
-            self.pb.disconnect(physicsClientId=client)
+        if client is not None:
+            give_back_client(self.pb, client, None, -1)
 
     def __enter__(self):
         return self
@@ -65,7 +72,7 @@ class Engine3D(OneClient):
     def __init__(self, device: Device3D, *, step_s: float):
         pb = import_pybullet()
         self.pb, self.device, self.step_s = pb, device, step_s
-        self.client = pb.connect(pb.DIRECT)
+        self.client = self.connect()
         self.ball = device.mount == "ball"
         self.wheel_joints = tuple(range(1, device.n_wheels + 1))
         self.body_id = self._build()

@@ -55,7 +55,7 @@ class FloorEngine(OneClient):
             raise ValueError("FloorEngine needs a device on a floor mount")
         pb = import_pybullet()
         self.pb, self.device, self.step_s = pb, device, step_s
-        self.client = pb.connect(pb.DIRECT)
+        self.client = self.connect()
         self.wheel_joints = tuple(range(device.n_wheels))
         self.body_id, self.plane_id = self._build()
         self.set_dry_friction([w.coulomb_n_m for w in device.wheels])
