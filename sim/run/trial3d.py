@@ -278,7 +278,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     sense_rate = [rx_c] + ([ry_c, rz_c] if ball else [])
     read_axes = axes_reader(suites, [(sense_angle[j] if j < len(sense_angle) else zeros,
                                       sense_rate[j] if j < len(sense_rate) else zeros, wa_c[j] if j < nw else zeros,
-                                      ws_c[j] if j < nw else zeros) for j in range(len(suites))])
+                                      ws_c[j] if j < nw else zeros) for j in range(len(suites))],
+                            used=(n_angles, n_rates, nw))
     io = engine.io()
     read, advance = io[0], io[1]
     watch = FloorWatch(io[2], trace, device.floor, stop_early) if len(io) > 2 else None
