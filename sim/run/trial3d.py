@@ -65,7 +65,8 @@ class TrialResult3D(TrialResult):
 
 class _WheelMotor:
     """The figures `MotorDrive` reads, for one wheel: its motor against the inertia it turns
-    (the wheel in series with the body about its axis, `Device3D.inertia_seen_by_wheel_kg_m2`)."""
+    (the wheel in series with the body about its axis, or on a locked body the wheel alone:
+    `Device3D.inertia_seen_by_wheel_kg_m2`)."""
 
     locked = True   # MotorDrive then takes I_w_kg_m2 as the inertia seen, as given
 
