@@ -29,7 +29,7 @@ name: two-wheel bench
 body:
   parts:
     - {name: arm, shape: box, length: 220 mm, width: 20 mm, thickness: 6 mm, material: aluminium, at: 110 mm}
-  pivot_friction: {coulomb: 50 N*m, viscous: 0}     # the bench holds the body: a pivot that sticks
+  locked: true      # the bench clamps the body (body.locked): each wheel turns its own inertia
 wheels:
   - at: 200 mm
     axis: [1, 0, 0]
@@ -128,7 +128,8 @@ def test_coast_down_of_the_first_wheel_recovers_its_bearing(bench):
     assert res.target_note is None      # no motor values: nothing to say about which motor
 
 
-SWING = (SCENARIO.replace("coulomb: 50 N*m, viscous: 0", "coulomb: 0.3 mN*m, viscous: 1e-4 N*m*s/rad")
+SWING = (SCENARIO.replace("  locked: true      # the bench clamps the body (body.locked): each wheel turns its own inertia",
+                          "  pivot_friction: {coulomb: 0.3 mN*m, viscous: 1e-4 N*m*s/rad}")
          .replace("body:\n  parts:", "body:\n  inertia_correction: 2e-3 kg*m^2\n  parts:")
          .replace("{coulomb: 0.5 mN*m, viscous: 2e-6 N*m*s/rad}", "{coulomb: 0, viscous: 0}")
          .replace("{coulomb: 1.2 mN*m, viscous: 5e-6 N*m*s/rad}", "{coulomb: 0, viscous: 0}")

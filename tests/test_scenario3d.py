@@ -45,7 +45,11 @@ def test_vector_keys_parse_with_units():
     (lambda raw: raw["wheel"]["parts"][0].update(rotation=0.2), "wheel.parts[0].rotation"),
     (lambda raw: raw["trial"].update(start={"tilt": [0.1, 0.0]}), "trial.start.tilt"),
     (lambda raw: raw.update(body=BALL, strategy={"kind": "pid"}), "strategy.kind: pid works on one wheel"),
-    (lambda raw: raw.update(body={**BALL, "locked": True}), "body.locked"),
+    # a locked body (a bench clamp) is held at rest, on a hinge or a ball; a floor body is not clamped
+    (lambda raw: raw.update(body={**BALL, "mount": "floor", "locked": True}, floor={"friction": 0.8, "restitution": 0.1}),
+     "body.locked: a body on the floor"),
+    (lambda raw: raw.update(body={**BALL, "locked": True}, trial={"start": {"tilt_rate": [0.1, 0.0]}}),
+     "trial.start.tilt_rate: a locked body is held at rest"),
     (lambda raw: raw.update(body=BALL, trial={"start": {"angle": 0.1}}), "trial.start.angle"),
     (lambda raw: raw.update(wheels=[{"at": 0.2, "parts": [DISK]}], wheel=None,
                             trial={"start": {"wheel_speed": [1.0, 2.0]}}), "trial.start.wheel_speed"),

@@ -4,7 +4,8 @@ The fits (`sim.fit.fit_wheel`, `sim.fit.fit_swing`) read a few lumped figures of
 and write their patch under `motor`, `wheel` and `body`. On a 3D device (one to three wheels on any
 axes, a hinge or a ball mount; `sim.model.device3d`):
 
-- spin-up and coast-down are tests of one wheel with the body held: the figures are that wheel's
+- spin-up and coast-down are tests of one wheel with the body held (`body.locked: true` simulates that
+  bench exactly: the clamp takes the reaction): the figures are that wheel's
   (its spin inertia, bearing friction, its motor's resistance), and the patch addresses that wheel,
   `wheels[i]` (i from 0, as in the scenario's list) for its own keys, and its own motor
   `wheels[i].motor` or, when it has none, the shared `motor` (which then changes every wheel that

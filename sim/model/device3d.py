@@ -27,7 +27,8 @@ class Device3D(LinearSpec):
     properties, the wheels, pivot friction, loop rate and delay), plus what the runner needs besides."""
 
     supply_v: float
-    locked: bool = False               # never, for a 3D device (kept so shared code can ask)
+    locked: bool = False
+    """`body.locked`: the body clamped at its start attitude (a bench); the wheels then turn their own inertia."""
     floor: FloorSpec | None = None
     """A body on the floor (`body.mount: floor`): its contact figures; `mount` is then the mount the law
     designs for, a hinge at the balance edge or a ball at the balance corner (`sim.model.floor`)."""
@@ -56,6 +57,7 @@ class Device3D(LinearSpec):
                    body_com_m=body.com_m, body_inertia_com_kg_m2=body.inertia_com_kg_m2, wheels=tuple(units),
                    pivot_coulomb_n_m=sc.body.pivot_friction.coulomb, pivot_viscous_n_m_s=sc.body.pivot_friction.viscous,
                    control_rate_hz=sc.sensors.rate, delay_s=loop_delay_s(sc), supply_v=sc.drive.supply,
+                   locked=sc.body.locked,
                    angle_counts_per_rev=(sc.sensors.angle.counts_per_rev if sc.sensors.angle is not None else None) or 0,
                    wheel_counts_per_rev=sc.sensors.wheel.counts_per_rev or 0, **imu_lsb_fields(sc.sensors.imu))
 
@@ -108,8 +110,11 @@ class Device3D(LinearSpec):
         """The inertia wheel i's motor turns against: I_w in series with the body about the wheel's axis
         (1/I = 1/I_w + a^T J^-1 a for a ball, a_x^2/J_xx for a hinge), kg m^2. Used only for the motor's
         step-exact mean current (`sim.physics.motor`); J leaves the wheels' spin out and the body's turning
-        is taken as it starts from rest, so the figure is the short-term one."""
+        is taken as it starts from rest, so the figure is the short-term one. A locked body takes no part:
+        the wheel's spin inertia alone."""
         w = self.wheels[i]
+        if self.locked:
+            return w.spin_inertia_kg_m2
         a = np.array(w.axis)
         j = self.inertia_about_pivot_kg_m2(with_spin=False)
         try:

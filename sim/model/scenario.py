@@ -242,7 +242,8 @@ class Body(Strict):
     the corner at the origin (`sim.model.floor`)."""
     pivot_friction: Friction = Friction()
     locked: bool = False
-    """True clamps the body at its start angle (a bench test of the wheel drive)."""
+    """True clamps the body at its start angle, or a 3D body at its start attitude (a bench test of the
+    wheel drive; not on the floor)."""
     inertia_correction: Q("inertia", ge=-MAX_INERTIA, le=MAX_INERTIA) = 0.0
     """Signed, kg m^2: added to the body's inertia about the pivot (e.g. from `wheelbench fit`)."""
 
@@ -635,9 +636,15 @@ class Scenario(Strict):
         check_floor(self)   # before the planar return: a floor key on a planar device is refused, not ignored
         if self.is_planar:
             return self
-        if self.body.locked:
-            raise ValueError("@body.locked: a locked body is a one-wheel hinge bench (wheel:, hinge mount) only")
         ball = self.design_mount == "ball"
+        if self.body.locked:    # a bench clamp: the body held at its start attitude (`sim.physics.engine3d`)
+            if self.body.mount == "floor":
+                raise ValueError("@body.locked: a body on the floor is not clamped; lock it on its bench rig "
+                                 "(body.mount: hinge or ball)")
+            moving = any(self.trial.start.tilt_rate or ()) if ball else self.trial.start.rate
+            if moving:
+                raise ValueError(f"@trial.start.{'tilt_rate' if ball else 'rate'}: a locked body is held at rest "
+                                 "at its start attitude")
         if self.trial.start.tilt is not None and not ball:
             raise ValueError("@trial.start.tilt: a start tilt [about_x, about_y] needs body.mount: ball (a hinge takes start.angle)")
         if self.trial.start.tilt_rate is not None and not ball:

@@ -28,6 +28,7 @@ import math
 
 import numpy as np
 
+from ..core.angles import wrap_angle
 from ..core.frames import matmul, matrix_to_quat, quat_to_matrix, transpose
 from ..model.device3d import Device3D
 from ..model.massprops3d import wheel_tensor
@@ -69,9 +70,14 @@ class OneClient:
 class Engine3D(OneClient):
     """One pybullet client holding one 3D device. Not thread-safe; one per trial."""
 
-    def __init__(self, device: Device3D, *, step_s: float):
+    def __init__(self, device: Device3D, *, step_s: float, attitude=None):
+        """`attitude`: R_wb (row tuples) a locked body (`device.locked`) is held at; its body link is then
+        a fixed joint, so the clamp, not the body, takes the wheels' reaction."""
         pb = import_pybullet()
         self.pb, self.device, self.step_s = pb, device, step_s
+        if device.locked and attitude is None:
+            raise ValueError("a locked body needs the attitude it is held at")
+        self.held = tuple(tuple(float(v) for v in row) for row in attitude) if device.locked else None
         self.client = self.connect()
         self.ball = device.mount == "ball"
         self.wheel_joints = tuple(range(1, device.n_wheels + 1))
@@ -100,11 +106,12 @@ class Engine3D(OneClient):
             linkMasses=[dev.body_mass_kg] + [w.mass_kg for w in dev.wheels],
             linkCollisionShapeIndices=[-1] * (n + 1), linkVisualShapeIndices=[-1] * (n + 1),
             linkPositions=[[0, 0, 0]] + [list(w.at_m) for w in dev.wheels],
-            linkOrientations=[[0, 0, 0, 1]] * (n + 1),
+            linkOrientations=[list(matrix_to_quat(self.held)) if self.held else [0, 0, 0, 1]] + [[0, 0, 0, 1]] * n,
             linkInertialFramePositions=[list(dev.body_com_m)] + [[0, 0, 0]] * n,
             linkInertialFrameOrientations=quats,
             linkParentIndices=[0] + [1] * n,
-            linkJointTypes=[pb.JOINT_SPHERICAL if self.ball else pb.JOINT_REVOLUTE] + [pb.JOINT_REVOLUTE] * n,
+            linkJointTypes=[pb.JOINT_FIXED if self.held else pb.JOINT_SPHERICAL if self.ball else pb.JOINT_REVOLUTE]
+                           + [pb.JOINT_REVOLUTE] * n,
             linkJointAxis=[[1, 0, 0]] + [list(w.axis) for w in dev.wheels],
             physicsClientId=cid,
         )
@@ -114,7 +121,9 @@ class Engine3D(OneClient):
             pb.changeDynamics(body_id, link, linearDamping=0.0, angularDamping=0.0, jointDamping=0.0,
                               maxJointVelocity=MAX_JOINT_SPEED, physicsClientId=cid)
         self.ball_friction = None
-        if self.ball and dev.pivot_coulomb_n_m > 0:   # Coulomb friction: slide or hold (`ball_friction`)
+        if self.held:     # a fixed joint: no pivot motor, no pivot friction
+            pass
+        elif self.ball and dev.pivot_coulomb_n_m > 0:   # Coulomb friction: slide or hold (`ball_friction`)
             least = float(np.linalg.eigvalsh(dev.inertia_about_pivot_kg_m2(with_spin=False))[0])
             self.ball_friction = BallFriction(dev.pivot_coulomb_n_m, least_inertia_kg_m2=least, step_s=self.step_s)
             _ball_hold(pb, body_id, cid, dev.pivot_coulomb_n_m)
@@ -138,7 +147,9 @@ class Engine3D(OneClient):
         """Set the state: a ball's attitude R_wb (row tuples) and world rate, or a hinge's angle and
         rate; wheel speeds relative to the body (wheel angles 0)."""
         pb, cid, body = self.pb, self.client, self.body_id
-        if self.ball:
+        if self.held:
+            pass        # held where it was built
+        elif self.ball:
             p, pt = self.principal_axes, transpose(self.principal_axes)
             local = _mat_vec(pt, _mat_vec(transpose(attitude), rate_world))
             pb.resetJointStateMultiDof(body, BODY, targetValue=list(matrix_to_quat(matmul(matmul(pt, attitude), p))),
@@ -160,6 +171,8 @@ class Engine3D(OneClient):
         push); the pivot's viscous friction is applied here. Paid every physics step: plain floats,
         no numpy, no keyword parsing where pybullet takes positions.
         """
+        if self.held:
+            return self._held_io()
         pb, cid, body, dev = self.pb, self.client, self.body_id, self.device
         states, torques, step = pb.getJointStates, pb.setJointMotorControlArray, pb.stepSimulation
         mode, wheels, bp = pb.TORQUE_CONTROL, self.wheel_joints, dev.pivot_viscous_n_m_s
@@ -260,9 +273,36 @@ class Engine3D(OneClient):
             step(cid)
         return advance
 
+    def _held_io(self):
+        """`io` of a locked body: its attitude as held, no rate; the wheels' torques only (a push goes
+        into the clamp)."""
+        pb, cid, body, wheels = self.pb, self.client, self.body_id, self.wheel_joints
+        states, torques, step, mode = pb.getJointStates, pb.setJointMotorControlArray, pb.stepSimulation, pb.TORQUE_CONTROL
+        unused, still = (0.0,) * len(wheels), (0.0, 0.0, 0.0)
+        if self.ball:
+            x, y, z, w = matrix_to_quat(self.held)
+            cx, cy, cz, cw = matrix_to_quat(self.device.upright())
+            tilt_x, tilt_y, heading, tilt = relative_attitude(x, y, z, w, -cx, -cy, -cz, cw)
+        else:   # the angle about x from upright, as a hinge reads it
+            r0 = self.device.upright()
+            tilt_x = wrap_angle(math.atan2(self.held[2][1], self.held[2][2]) - math.atan2(r0[2][1], r0[2][2]))
+            tilt_y = heading = 0.0
+            tilt = math.fabs(tilt_x)
+
+        def read():
+            ws = states(body, wheels, cid)
+            return (tilt_x, tilt_y, heading, tilt, still, [s[0] for s in ws], [s[1] for s in ws])
+
+        def advance(push_world, wheel_torques):
+            torques(body, wheels, mode, unused, unused, wheel_torques, unused, unused, cid)
+            step(cid)
+        return read, advance
+
     def attitude(self) -> tuple[tuple[float, float, float], ...]:
         """R_wb, the body's attitude (body-frame vectors to world), row tuples (for checks)."""
         pb = self.pb
+        if self.held:
+            return self.held
         if not self.ball:
             th = pb.getJointState(self.body_id, BODY, physicsClientId=self.client)[0]
             c, s = math.cos(th), math.sin(th)
@@ -274,6 +314,8 @@ class Engine3D(OneClient):
     def body_rate_world(self) -> tuple[float, float, float]:
         """The body's angular velocity in the world frame, rad/s (for checks)."""
         pb = self.pb
+        if self.held:
+            return (0.0, 0.0, 0.0)
         if not self.ball:
             return (pb.getJointState(self.body_id, BODY, physicsClientId=self.client)[1], 0.0, 0.0)
         wp = pb.getJointStateMultiDof(self.body_id, BODY, physicsClientId=self.client)[1]

@@ -65,7 +65,8 @@ class TrialResult3D(TrialResult):
 
 class _WheelMotor:
     """The figures `MotorDrive` reads, for one wheel: its motor against the inertia it turns
-    (the wheel in series with the body about its axis, `Device3D.inertia_seen_by_wheel_kg_m2`)."""
+    (the wheel in series with the body about its axis, or on a locked body the wheel alone:
+    `Device3D.inertia_seen_by_wheel_kg_m2`)."""
 
     locked = True   # MotorDrive then takes I_w_kg_m2 as the inertia seen, as given
 
@@ -124,7 +125,10 @@ def _simulate(scenario, device, trace, clock, *, seed, stop_early, on_step, angl
     dt, n = scenario.world.step, scenario.n_steps
     rng = np.random.default_rng(seed)
     ball = device.mount == "ball"
-    engine = Engine3D(device, step_s=dt) if device.floor is None else FloorEngine(device, step_s=dt)
+    if device.floor is not None:
+        engine = FloorEngine(device, step_s=dt)
+    else:
+        engine = Engine3D(device, step_s=dt, attitude=_held_attitude(scenario, device) if device.locked else None)
     try:
         _reset(engine, scenario, device)
         n_suites = max(3 if ball else 1, device.n_wheels)
@@ -222,6 +226,14 @@ def _reset(engine: Engine3D, scenario, device: Device3D) -> None:
         a0 = math.atan2(r0[2][1], r0[2][2])
         engine.reset(attitude=None, hinge_angle_rad=start.angle + a0, hinge_rate_rad_s=start.rate,
                      wheel_speeds_rad_s=speeds)
+
+
+def _held_attitude(scenario, device: Device3D) -> tuple[tuple[float, float, float], ...]:
+    """R_wb a locked body (`body.locked`) is held at: its start attitude, as `_reset` would set it."""
+    start, r0 = scenario.trial.start, device.upright()
+    if device.mount == "ball":
+        return matmul(rotation_about_x_y(*(start.tilt if start.tilt is not None else (0.0, 0.0))), r0)
+    return rotation_about_x_y(start.angle + math.atan2(r0[2][1], r0[2][2]), 0.0)
 
 
 def _push_schedule(scenario, dt: float) -> list[tuple[int, tuple[float, float, float]]]:

@@ -13,7 +13,8 @@
   largest at v = k_e w / 2; a current-mode drive commands the full reverse current). Limit:
   `drive.max_bus_voltage`, else a pack's highest charge voltage (LiPo and Li-ion 4.20 V per cell,
   references.md safety; NiMH 1.5 V per cell, common practice, no source); a bench supply with
-  neither is not judged. A 3D device brakes every wheel at once into the shared bus (`braking_raw3d`).
+  neither is not judged. A 3D device brakes every wheel at once into the shared bus, its body locked
+  as well (a floor body excepted; `braking_raw3d`).
 - `driver_trips`: over-current trips over the nominal, hold and braking runs; limit 0.
 """
 
@@ -51,9 +52,10 @@ def braking_raw(raw: dict, sc) -> dict:
 def braking_raw3d(raw: dict, sc) -> dict:
     """The raw scenario of a 3D device's braking trial: every wheel at the fastest speed the wheel-speed
     margin allows (its own no-load speed times 1 - margin), all braked at once into the shared bus at
-    half their back-EMF (the same volts for every wheel: (1 - margin) supply / 2), the body upright at
-    rest. A 3D body cannot be locked: it is free and tips under the wheels' reaction, which the bus
-    peak, reached within the wheels' first time constants, hardly feels."""
+    half their back-EMF (the same volts for every wheel: (1 - margin) supply / 2), the body locked upright
+    (`body.locked`: the clamp takes the wheels' reaction, so each wheel's spin energy goes back to the bus
+    alone, as on a bench). A body on the floor is not clamped: it rests as the scenario starts it, free,
+    and takes up part of the wheels' momentum."""
     from ..model.device3d import Device3D
     dev = Device3D.from_scenario(sc)
     share = 1.0 - sc.requirements.wheel_speed_margin
@@ -64,6 +66,7 @@ def braking_raw3d(raw: dict, sc) -> dict:
         start = {**((raw.get("trial") or {}).get("start") or {}), **start}
     else:
         start |= {"tilt": [0.0, 0.0]} if sc.design_mount == "ball" else {"angle": 0.0, "rate": 0.0}
+        out.setdefault("body", {})["locked"] = True
     out["trial"] = {"duration": BRAKING_S, "start": start, "seed": sc.trial.seed}
     out["strategy"] = {"kind": "fixed_voltage", "volts": 0.5 * share * sc.drive.supply}
     return out
@@ -143,7 +146,8 @@ def power_criteria(sc, metrics: dict, braking: dict, criterion) -> list[dict]:
     peak = braking["peak_supply_voltage_v"]
     if limit is not None:
         setup = ("body locked, wheel braked from its margin speed" if "wheels" not in braking else
-                 "every wheel braked at once from its margin speed into the shared bus, the body free")
+                 "every wheel braked at once from its margin speed into the shared bus, the body "
+                 + ("free on the floor" if sc.body.mount == "floor" else "locked"))
         out.append(criterion("peak_bus_voltage_v", peak, limit, peak <= limit and braking["cause"] != "bus_over_voltage",
                              f"braking trial ({setup}); limit: {basis}"))
     trips = sum(int(m.get("driver_trips") or 0) for m in (*metrics.values(), braking))
