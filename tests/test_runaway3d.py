@@ -120,3 +120,20 @@ def test_a_wheel_at_its_limit_is_timed():
     w = p.wheels[0]
     assert abs(w.steady_speed_rad_s) > w.limit_rad_s
     assert w.limit_time_s is not None and 0.0 < w.limit_time_s < 600.0
+
+
+def test_a_rounding_sized_predicted_drift_reads_as_settled():
+    # The linear loop's predicted drift over a settled hold is rounding (1e-31 rad/s^2 was printed as
+    # "drifting -6.83e-31 rad/s^2"); below NO_DRIFT_RAD_S2 the note says the prediction settled, and a
+    # real drift is still printed. Our wording choice; no outside reference applies.
+    from sim.studies.runaway import BiasResponse, Drift
+    from sim.studies.verdicts import NO_DRIFT_RAD_S2, runaway_note
+    import dataclasses
+    drift = Drift(**{f.name: 0.1 for f in dataclasses.fields(Drift)})
+    hold = {"bias_rad": 0.01, "outcome": "balanced", "drift": drift, "runaway_time_s": None}
+    for accel, words in ((-6.83e-31, "settled over the hold's last third"), (0.5 * NO_DRIFT_RAD_S2, "settled"),
+                         (2e-3, "drifting 0.002 rad/s^2")):
+        hold["prediction"] = BiasResponse(kind="offset", basis="the linear loop", wheel_speed_rad_s=-29.7,
+                                          wheel_accel_rad_s2=accel)
+        note = runaway_note(hold, 500.0)
+        assert words in note and ("drifting" in note.split("predicts")[1]) == (accel >= NO_DRIFT_RAD_S2), note

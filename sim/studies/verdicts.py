@@ -196,6 +196,7 @@ def largest_survived(survived, *, start_n_m_s: float, rel_tol: float = PUSH_REL_
 # ----------------------------------------------------------------------------- slow wheel runaway
 
 RUNAWAY_HORIZON_FACTOR = 10.0   # a drift reaching the limit after 10x run_time counts as none (our choice)
+NO_DRIFT_RAD_S2 = 1e-9   # a predicted drift below this is the linear loop's rounding, not a drift (our choice)
 RUNAWAY_NEAR_LIMIT = 0.8       # a fall with the wheel past 80% of its no-load speed ran out of wheel (our choice)
 
 
@@ -319,7 +320,9 @@ def runaway_note(hold: dict, limit_rad_s: float, *, unpredicted: str = "no linea
         return text + f"; the law predicts an unbounded wheel acceleration of {p.wheel_accel_rad_s2:.3g} rad/s^2 ({p.basis})"
     text += f"; the law predicts a steady wheel offset of {p.wheel_speed_rad_s:.1f} rad/s ({p.basis})"
     if p.wheel_accel_rad_s2 is not None:    # a 3D hold's prediction: the linear loop over the same window too
-        text += f", drifting {p.wheel_accel_rad_s2:.3g} rad/s^2 over the hold's last third"
+        accel = p.wheel_accel_rad_s2
+        text += (f", drifting {accel:.3g} rad/s^2 over the hold's last third" if abs(accel) >= NO_DRIFT_RAD_S2 else
+                 f", settled over the hold's last third (drift under {NO_DRIFT_RAD_S2:g} rad/s^2)")
     return text
 
 
