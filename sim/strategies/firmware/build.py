@@ -39,7 +39,7 @@ from pathlib import Path
 
 HEADER = Path(__file__).with_name("wheelbench.h")
 CACHE_ENV = "WHEELBENCH_FIRMWARE_CACHE"
-BUILD_RECIPE = "6"   # bump when the generated wrapper below changes: old builds are then not reused
+BUILD_RECIPE = "7"   # bump when the generated wrapper below changes: old builds are then not reused
 ERROR_LINES = 2
 
 # The wrapper cffi compiles around the firmware: one call per tick with the readings (cheaper
@@ -47,9 +47,11 @@ ERROR_LINES = 2
 # readings into cumulative counts (the angle from 0 at upright, unwrapped across +-pi; each wheel
 # from 0, adding each tick's speed times the period), zeroes the output, calls wb_step, flushes
 # stdout (a trial that crashes keeps the printf output of every tick before), and returns volts
-# (from the duty when pwm_max > 0). One-wheel devices call wbx_tick (three readings, one volt
-# back); 3D devices call wbx_tick_wheels (the attitude readings and every wheel's speed in one
-# array, each wheel's volts out, the brakes as a bit mask). Entry 0 of the arrays mirrors the
+# (from the duty when pwm_max > 0: duty / pwm_max times the nominal supply in double precision, so
+# that the drive's duty, those volts over the same supply, is the firmware's duty to a rounding).
+# One-wheel devices call wbx_tick (three readings, one volt back); 3D devices call wbx_tick_wheels
+# (the attitude readings and every wheel's speed in one array, each wheel's volts out, the brakes as
+# a bit mask). Entry 0 of the arrays mirrors the
 # one-wheel fields; wheel 1's command is the array's entry when the firmware set it (non-zero),
 # else the one-wheel field, and its brake is either one's.
 _WRAPPER = """
@@ -59,10 +61,10 @@ _WRAPPER = """
 #include "wheelbench.h"
 static wb_input_t wbx_in;
 static wb_config_t wbx_cfg;
-static double wbx_period_s, wbx_angle_res, wbx_wheel_res;
+static double wbx_period_s, wbx_supply_v, wbx_angle_res, wbx_wheel_res;
 static uint64_t wbx_tick_n;
 static int32_t wbx_angle_prev;
-static void wbx_init(wb_config_t *cfg, double period_s) {
+static void wbx_init(wb_config_t *cfg, double period_s, double supply_v) {
     int i;
     memset(&wbx_in, 0, sizeof wbx_in);
     if (cfg->n_wheels < 1 || cfg->n_wheels > WB_MAX_WHEELS)
@@ -71,6 +73,7 @@ static void wbx_init(wb_config_t *cfg, double period_s) {
         cfg->wheels_counts_per_rev[i] = cfg->wheel_counts_per_rev;
     wbx_cfg = *cfg;
     wbx_period_s = period_s;
+    wbx_supply_v = supply_v;
     wbx_angle_res = cfg->angle_counts_per_rev ? 6.283185307179586 / cfg->angle_counts_per_rev : 0.0;
     wbx_wheel_res = cfg->wheel_counts_per_rev ? 6.283185307179586 / cfg->wheel_counts_per_rev : 0.0;
     wbx_tick_n = 0;
@@ -125,7 +128,7 @@ static double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_r
         out->brake = 1;
     if (wbx_cfg.pwm_max > 0) {
         int32_t duty = out->wheels_duty[0] != 0 ? out->wheels_duty[0] : out->duty;
-        return (double)duty / wbx_cfg.pwm_max * wbx_cfg.supply_v;
+        return (double)duty / wbx_cfg.pwm_max * wbx_supply_v;
     }
     return out->wheels_volts[0] != 0.0f ? (double)out->wheels_volts[0] : (double)out->volts;
 }
@@ -157,7 +160,7 @@ static int wbx_tick_wheels(const double *x, wb_output_t *out, double *volts) {
         int use_one = i == 0;   /* wheel 1: the one-wheel field when its array entry was left at 0 */
         if (wbx_cfg.pwm_max > 0) {
             int32_t duty = (use_one && out->wheels_duty[0] == 0) ? out->duty : out->wheels_duty[i];
-            volts[i] = (double)duty / wbx_cfg.pwm_max * wbx_cfg.supply_v;
+            volts[i] = (double)duty / wbx_cfg.pwm_max * wbx_supply_v;
         } else {
             volts[i] = (use_one && out->wheels_volts[0] == 0.0f) ? (double)out->volts : (double)out->wheels_volts[i];
         }
@@ -168,7 +171,7 @@ static int wbx_tick_wheels(const double *x, wb_output_t *out, double *volts) {
 }
 """
 _WRAPPER_CDEF = """
-void wbx_init(wb_config_t *cfg, double period_s);
+void wbx_init(wb_config_t *cfg, double period_s, double supply_v);
 double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_rad_s, wb_output_t *out);
 void wbx_imu(double gx, double gy, double gz, double ax, double ay, double az);
 int wbx_tick_wheels(const double *x, wb_output_t *out, double *volts);
