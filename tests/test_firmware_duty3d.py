@@ -367,3 +367,32 @@ def test_check_on_the_demo_passes(tmp_path, capsys):
     failed = [c["name"] for c in v["criteria"] if not c["passed"]]
     assert code == 0 and v["passed"], failed
     assert "Safety:" in capsys.readouterr().out
+
+
+DUTY_ONLY = """
+/* a duty of a 10-bit timer on every wheel, whatever the drive says */
+void wb_init(const wb_config_t *cfg) { (void)cfg; }
+void wb_step(const wb_input_t *in, wb_output_t *out) {
+    (void)in; out->duty = 300; out->wheels_duty[0] = 300; out->wheels_duty[1] = -200; out->wheels_duty[2] = 100;
+}
+"""
+
+
+@pytest.mark.parametrize("case", ["volts_on_a_pwm_drive", "duty_without_pwm_3d", "duty_without_pwm_one_wheel"])
+def test_a_firmware_writing_only_the_form_the_drive_ignores_ends_as_strategy_failed(tmp_path, case):
+    # without strategy.writes the load cannot know; the first tick that writes only the other form (a
+    # volt of 1.5 counts or more and no duty, or a duty and no volt) ends the trial with the fix named,
+    # rather than a trial whose wheels silently get 0 V
+    def no_pwm(raw):
+        raw["drive"].pop("pwm", None)
+        raw["trial"].update(duration="0.3 s", pushes=[])
+    if case == "volts_on_a_pwm_drive":
+        sc = load_scenario(CUBE_VOLTS, overrides=["drive.pwm={resolution_bits: 10}", "trial.duration=0.3 s",
+                                                  "trial.pushes=[]", "trial.start.tilt=[2 deg, 0 deg]"])
+        words = "wrote volts but no duty, and with drive.pwm (pwm_max 1023)"
+    else:
+        sc = load_scenario(probe(tmp_path, DUTY_ONLY, base=CUBE_VOLTS if case.endswith("3d") else DESK, edit=no_pwm))
+        words = "wrote a duty but no volts, and without drive.pwm (pwm_max 0)"
+    result = run_trial(sc)
+    assert result.outcome == "strategy_failed" and words in result.message, result.message
+    assert "t = 0.0000 s" in result.message                 # at the first tick that did it

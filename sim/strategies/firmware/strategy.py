@@ -22,6 +22,7 @@ from typing import Annotated, ClassVar, Literal
 
 from pydantic import Field, PrivateAttr, field_validator, model_validator
 
+from ...core.errors import StrategyError
 from ..base import Reading, Strategy, StrategyParams
 from .build import Build, build_firmware, load_fresh
 
@@ -161,6 +162,7 @@ class FirmwareStrategy(Strategy):
         self._imu = lib.wbx_imu if gyro_lsb > 0 else None
         self._out = ffi.new("wb_output_t *")
         self._tick, self._module = lib.wbx_tick, module   # the module keeps the loaded copy alive
+        self._form_seen = lib.wbx_form_seen
         self.loaded_from = module.__file__    # the build's file, or a temporary copy of it (build.load_fresh)
         self._phases = [f"fw {i}" for i in range(256)]
         lib.wbx_init(cfg, period_s, float(d.supply_v))
@@ -176,6 +178,14 @@ class FirmwareStrategy(Strategy):
         # the brakes' bit mask -> what `brake` says: False, or one flag per wheel
         self._brakes = [False] + [tuple(bool(m >> i & 1) for i in range(n)) for m in range(1, 1 << n)]
         self.decide = self._decide_wheels
+
+    def _other_form(self, form: int) -> str:
+        """What is wrong when the firmware wrote only the form of command the drive does not read."""
+        if form == 1:
+            return (f"the firmware wrote volts but no duty, and with drive.pwm (pwm_max {self.pwm_max}) the runner "
+                    "reads its duty: write duty (wheels_duty), or remove drive.pwm")
+        return ("the firmware wrote a duty but no volts, and without drive.pwm (pwm_max 0) the runner reads its "
+                "volts: set drive.pwm.resolution_bits, or write volts (wheels_volts)")
 
     def _redirect_printf(self) -> None:
         """In the isolation child only, send file descriptor 1 (C's stdout) to the log or nowhere, and
@@ -194,6 +204,8 @@ class FirmwareStrategy(Strategy):
         if self._imu is not None:
             self._imu(*reading.imu_gyro_rad_s, *reading.imu_accel_m_s2)
         volts = self._tick(reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s, out)
+        if volts == 0.0 and self._form_seen():
+            raise StrategyError(self._other_form(self._form_seen()))
         self.phase = self._phases[out.phase]
         self.brake = out.brake != 0
         return volts
@@ -208,6 +220,8 @@ class FirmwareStrategy(Strategy):
         if self._imu is not None:
             self._imu(*reading.imu_gyro_rad_s, *reading.imu_accel_m_s2)
         brakes = self._tick_wheels(self._x, self._out, self._v)
+        if brakes > 255:
+            raise StrategyError(self._other_form(brakes >> 8))
         self.phase = self._phases[self._out.phase]
         self.brake = self._brakes[brakes]
         return self._unpack(self._v, self._n)
