@@ -749,7 +749,7 @@ class Scenario(Strict):
         if self.drive.mode != "current" and getattr(self.strategy.cls, "needs_current_mode", False):
             raise ValueError(f"@strategy.kind: '{self.strategy.kind}' commands current: it needs drive.mode current")
         # firmware that writes one form only (strategy.writes): the drive must read that form
-        writes = getattr(self.strategy.params, "writes", None)
+        writes = getattr(self.strategy.params, "writes", None) if self.strategy.kind == "firmware" else None
         if writes == "duty" and self.drive.pwm is None:
             raise ValueError("@strategy.writes: duty needs drive.pwm.resolution_bits (without it pwm_max is 0 and "
                              "the runner reads the firmware's volts, not its duty)")
