@@ -396,3 +396,23 @@ def test_a_firmware_writing_only_the_form_the_drive_ignores_ends_as_strategy_fai
     result = run_trial(sc)
     assert result.outcome == "strategy_failed" and words in result.message, result.message
     assert "t = 0.0000 s" in result.message                 # at the first tick that did it
+
+
+HINGE_DUTY = """
+void wb_init(const wb_config_t *cfg) { (void)cfg; }
+void wb_step(const wb_input_t *in, wb_output_t *out) { (void)in; out->wheels_duty[0] = -700; }
+"""
+
+
+def test_a_3d_hinge_device_takes_its_wheels_duty_too(tmp_path):
+    # the tilted-axis pendulum (a 3D hinge device, one wheel off the hinge axis) on a bench supply with
+    # a 10-bit PWM model: its bridge applies duty / pwm_max of the supply (the PWM average model above)
+    base = EXAMPLE_DIR.parent / "tilted_axis.yaml"
+
+    def edit(raw):
+        raw["drive"]["pwm"] = {"resolution_bits": 10, "frequency": "20 kHz"}
+        raw["trial"].update(duration="0.2 s", pushes=[])
+    result = run_trial(load_scenario(probe(tmp_path, HINGE_DUTY, base=base, edit=edit)))
+    assert Device3D.from_scenario(result.scenario).pwm_max == PWM_MAX
+    s = float(result.scenario.drive.supply)
+    np.testing.assert_array_equal(result.trace.wheel(1, "voltage"), np.full(result.trace.n, -700 / PWM_MAX * s))
