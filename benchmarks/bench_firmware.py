@@ -1,10 +1,11 @@
 """Speed of a firmware-strategy trial against the Python `lqr` trial of the same scenario.
 
-    python benchmarks/bench_firmware.py [--seconds 20] [--rounds 3] [--example desk|cube]
+    python benchmarks/bench_firmware.py [--seconds 20] [--rounds 3] [--example desk|cube|pack]
 
 A bundled example (desk: scenarios/firmware/desk_firmware.yaml, one wheel on a hinge, Q16 firmware;
-cube: scenarios/firmware/cube_firmware.yaml, three wheels on a ball mount, float32 firmware; its
-duration set by --seconds) runs with its compiled firmware and, in the same rounds, with
+cube: scenarios/firmware/cube_firmware.yaml, three wheels on a ball mount, float32 firmware; pack:
+scenarios/firmware/cube_pack_firmware.yaml, the same on a 3S pack through 10-bit bridges, Q16 firmware
+writing duties; its duration set by --seconds) runs with its compiled firmware and, in the same rounds, with
 `strategy: {kind: lqr}` (the cube: the multi-wheel design); the two alternate
 within each round (the order swapped every round), so that other load on the machine hits both.
 Two real-time factors (simulated s per wall s) for each:
@@ -36,7 +37,8 @@ from sim.run.trial import run_trial  # noqa: E402
 
 EXAMPLES = {"desk": (HERE.parent / "scenarios" / "firmware" / "desk_firmware.yaml",
                      "strategy={kind: lqr, release_angle: 30 deg}"),
-            "cube": (HERE.parent / "scenarios" / "firmware" / "cube_firmware.yaml", "strategy={kind: lqr}")}
+            "cube": (HERE.parent / "scenarios" / "firmware" / "cube_firmware.yaml", "strategy={kind: lqr}"),
+            "pack": (HERE.parent / "scenarios" / "firmware" / "cube_pack_firmware.yaml", "strategy={kind: lqr}")}
 
 
 def measure(scenario, isolate=None) -> tuple[float, float, str]:

@@ -72,7 +72,7 @@ class Device:
             control_rate_hz=sc.sensors.rate, delay_s=loop_delay_s(sc), locked=sc.body.locked,
             angle_counts_per_rev=(sc.sensors.angle.counts_per_rev if sc.sensors.angle is not None else None) or 0,
             wheel_counts_per_rev=sc.sensors.wheel.counts_per_rev or 0,
-            pwm_max=2**sc.drive.pwm.resolution_bits - 1 if sc.drive.pwm is not None else 0,
+            pwm_max=drive_pwm_max(sc.drive),
             **imu_lsb_fields(sc.sensors.imu),
             drive_mode=sc.drive.mode,
         )
@@ -160,6 +160,12 @@ def loop_delay_s(sc) -> float:
     if sc.timing is None:
         return sc.sensors.delay
     return sc.sensors.delay + sc.timing.compute_steps(sc.world.step) * sc.world.step
+
+
+def drive_pwm_max(drive) -> int:
+    """The full-scale PWM duty a firmware writes (2^drive.pwm.resolution_bits - 1), 0 without drive.pwm.
+    One drive section serves every wheel's bridge, so a 3D device's wheels share it."""
+    return 2**drive.pwm.resolution_bits - 1 if drive.pwm is not None else 0
 
 
 def imu_lsb_fields(imu) -> dict:

@@ -16,7 +16,7 @@ import numpy as np
 
 from ..core.frames import smallest_rotation_to_z
 from .floor import FloorSpec, floor_spec
-from .device import imu_lsb_fields, loop_delay_s
+from .device import drive_pwm_max, imu_lsb_fields, loop_delay_s
 from .linear3d import LinearSpec, WheelUnit  # the linearisation's fields; one wheel with its motor, drive and bearing
 from .massprops3d import body_mass_properties, wheel_axis, wheel_centre, wheel_inertias, wheel_tensor
 
@@ -34,6 +34,7 @@ class Device3D(LinearSpec):
     designs for, a hinge at the balance edge or a ball at the balance corner (`sim.model.floor`)."""
     angle_counts_per_rev: int = 0      # the attitude encoders' counts per rev (sensors.angle), 0 when none is set
     wheel_counts_per_rev: int = 0      # each wheel encoder's counts per rev (sensors.wheel), 0 when none is set
+    pwm_max: int = 0                   # full-scale duty of every wheel's bridge (2^drive.pwm.resolution_bits - 1), 0 without drive.pwm
     imu_gyro_lsb_rad_s: float = 0.0    # one LSB of the IMU's raw gyro word (firmware's gyro_raw), 0 without an IMU
     imu_accel_lsb_m_s2: float = 0.0
 
@@ -59,7 +60,8 @@ class Device3D(LinearSpec):
                    control_rate_hz=sc.sensors.rate, delay_s=loop_delay_s(sc), supply_v=sc.drive.supply,
                    locked=sc.body.locked,
                    angle_counts_per_rev=(sc.sensors.angle.counts_per_rev if sc.sensors.angle is not None else None) or 0,
-                   wheel_counts_per_rev=sc.sensors.wheel.counts_per_rev or 0, **imu_lsb_fields(sc.sensors.imu))
+                   wheel_counts_per_rev=sc.sensors.wheel.counts_per_rev or 0, pwm_max=drive_pwm_max(sc.drive),
+                   **imu_lsb_fields(sc.sensors.imu))
 
     def linear_spec(self) -> LinearSpec:
         """The multi-input linearisation's input: the device itself (a `LinearSpec`)."""

@@ -755,6 +755,14 @@ class Scenario(Strict):
                              "current needs a law that commands current (lqr, fixed_current)")
         if self.drive.mode != "current" and getattr(self.strategy.cls, "needs_current_mode", False):
             raise ValueError(f"@strategy.kind: '{self.strategy.kind}' commands current: it needs drive.mode current")
+        # firmware that writes one form only (strategy.writes): the drive must read that form
+        writes = getattr(self.strategy.params, "writes", None) if self.strategy.kind == "firmware" else None
+        if writes == "duty" and self.drive.pwm is None:
+            raise ValueError("@strategy.writes: duty needs drive.pwm.resolution_bits (without it pwm_max is 0 and "
+                             "the runner reads the firmware's volts, not its duty)")
+        if writes == "volts" and self.drive.pwm is not None:
+            raise ValueError("@drive.pwm: the firmware writes volts (strategy.writes), but with drive.pwm it gets "
+                             "pwm_max > 0 and the runner reads its duty; remove drive.pwm or write a duty")
         return self
 
     @property

@@ -66,6 +66,7 @@ CAUSES = {
     "push_too_large": "the body fell inside a push's recovery window",
     "bias_drift": "the wheel drifted steadily with one sign before the fall",
     "estimator_misread": "the estimator's angle was off the true angle while the body was held",
+    "wheel_wrong_way": "a 3D device: a wheel's torque turned the body further over before the fall",
     "gains_too_weak": "the body fell with none of the limits reached",
     "strategy_failed": "the strategy raised, returned nonsense or ran past its time budget",
     "diverged": "the simulated state became non-finite or absurd",

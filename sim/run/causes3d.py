@@ -7,7 +7,8 @@ WHEEL_NEAR_LIMIT of its no-load speed at the push, `wheel_at_speed_limit` when a
 WHEEL_NEAR_LIMIT in the LOOKBACK_S before the fall, `estimator_misread` when an estimator (an IMU) made
 the law's tilts and their error was ESTIMATOR_MISREAD_RAD RMS or more (x and y together) over the
 stretch the body was held (up to LOOKBACK_S before the fall, or the whole held stretch when that is
-shorter), `current_at_limit` / `voltage_at_supply` when a
+shorter), `wheel_wrong_way` when a wheel (named, each one that did) turned the body further over
+through the LOOKBACK_S before the fall (`wrong_way_wheels`), `current_at_limit` / `voltage_at_supply` when a
 wheel's current or voltage sat at its limit for SUSTAINED_S of that stretch, else `gains_too_weak`;
 not caught is `start_outside_release` when the start tilt was beyond the release angle, else
 `catch_missed`.
@@ -77,6 +78,13 @@ def _fell(result) -> tuple[str, str]:
             f"the body fell at {t_fall:.3f} s after the estimator's tilt was off the true tilt by "
             f"{math.degrees(misread[0]):.2f} deg RMS ({math.degrees(misread[1]):.2f} deg at most) while it was held: "
             "the law balanced a wrong tilt (the IMU's place, its mounting or the filter's trust in the accelerometer)")
+    wrong = wrong_way_wheels(result, start, end) if dev.floor is None else []
+    if wrong:
+        words = ", ".join(f"wheel {i + 1} ({share:.0%} of its torque along gravity's pushed over, "
+                          f"{impulse * 1e3:.3g} mN m s)" for i, share, impulse in wrong)
+        return "wheel_wrong_way", (f"the body fell at {t_fall:.3f} s after {words} in the {LOOKBACK_S:g} s before: "
+                                   "each named wheel's torque turned the body further from upright (a command of the "
+                                   "wrong sign, a motor wired the wrong way round, or two wheels' outputs swapped)")
     sustained = max(1, int(round(SUSTAINED_S / dt)))
     for i, w in enumerate(dev.wheels):
         if math.isfinite(w.current_limit_a):
@@ -91,6 +99,47 @@ def _fell(result) -> tuple[str, str]:
                                          f"{np.count_nonzero(at_supply) * dt:.3f} s before the fall at {t_fall:.3f} s")
     return "gains_too_weak", (f"the body fell at {t_fall:.3f} s with no wheel, current or voltage at its limit "
                               f"(fastest wheel {worst + 1} at {shares[worst]:.0%} of its no-load speed)")
+
+
+WRONG_WAY_SHARE = 0.9     # share of a wheel's reaction impulse along gravity's torque that pushed over
+WRONG_WAY_WEIGHT = 0.25   # that wheel's share of all the wheels' impulse along gravity's torque
+
+
+def wrong_way_wheels(result, start: int, end: int) -> list[tuple[int, float, float]]:
+    """The wheels whose reaction torque on the body turned it further over through rows start..end-1:
+    (index, share, impulse N m s) for each wheel whose impulse along the gravity torque's direction was
+    that way for WRONG_WAY_SHARE of its magnitude and carried WRONG_WAY_WEIGHT of all the wheels' (a
+    balance law's wheels, even when beaten, push against gravity; our thresholds, no source).
+
+    Body frame: wheel i puts -tau_i a_i on the body (a_i its axis, tau_i its motor torque); gravity puts
+    r x (-m g up) about the pivot, up = R_wb^T e_z = U^T (-sin b, cos b sin a, cos b cos a) for tilts a
+    about x and b about y (`sim.core.frames`); on a hinge only the components about x count."""
+    tr, dev = result.trace, result.device
+    if end - start < 2:
+        return []
+    ball = dev.mount == "ball"
+    a = np.asarray(tr.tilt_x[start:end])
+    b = np.asarray(tr.tilt_y[start:end]) if ball else np.zeros_like(a)
+    up = np.stack([-np.sin(b), np.cos(b) * np.sin(a), np.cos(b) * np.cos(a)], axis=1) @ np.array(dev.upright())
+    g = np.cross(np.array(dev.com_m), -up)
+    if not ball:
+        g[:, 1:] = 0.0
+    size = np.linalg.norm(g, axis=1)
+    rows = size > 1e-12
+    if not np.any(rows):
+        return []
+    g = g[rows] / size[rows, None]
+    dt = tr.step_s
+    along = [-np.asarray(tr.wheel(i + 1, "torque")[start:end])[rows] * (g @ np.array(w.axis)) * dt
+             for i, w in enumerate(dev.wheels)]
+    total = sum(float(np.sum(np.abs(x))) for x in along)
+    out = []
+    for i, x in enumerate(along):
+        size_i = float(np.sum(np.abs(x)))
+        over = float(np.sum(x))
+        if total > 0.0 and size_i >= WRONG_WAY_WEIGHT * total and over >= WRONG_WAY_SHARE * size_i:
+            out.append((i, over / size_i, over))
+    return out
 
 
 def _misread(result, look_from: int, end: int) -> tuple[float, float] | None:

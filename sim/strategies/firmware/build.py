@@ -39,7 +39,7 @@ from pathlib import Path
 
 HEADER = Path(__file__).with_name("wheelbench.h")
 CACHE_ENV = "WHEELBENCH_FIRMWARE_CACHE"
-BUILD_RECIPE = "6"   # bump when the generated wrapper below changes: old builds are then not reused
+BUILD_RECIPE = "8"   # bump when the generated wrapper below changes: old builds are then not reused
 ERROR_LINES = 2
 
 # The wrapper cffi compiles around the firmware: one call per tick with the readings (cheaper
@@ -47,9 +47,11 @@ ERROR_LINES = 2
 # readings into cumulative counts (the angle from 0 at upright, unwrapped across +-pi; each wheel
 # from 0, adding each tick's speed times the period), zeroes the output, calls wb_step, flushes
 # stdout (a trial that crashes keeps the printf output of every tick before), and returns volts
-# (from the duty when pwm_max > 0). One-wheel devices call wbx_tick (three readings, one volt
-# back); 3D devices call wbx_tick_wheels (the attitude readings and every wheel's speed in one
-# array, each wheel's volts out, the brakes as a bit mask). Entry 0 of the arrays mirrors the
+# (from the duty when pwm_max > 0: duty / pwm_max times the nominal supply in double precision, so
+# that the drive's duty, those volts over the same supply, is the firmware's duty to a rounding).
+# One-wheel devices call wbx_tick (three readings, one volt back); 3D devices call wbx_tick_wheels
+# (the attitude readings and every wheel's speed in one array, each wheel's volts out, the brakes as
+# a bit mask). Entry 0 of the arrays mirrors the
 # one-wheel fields; wheel 1's command is the array's entry when the firmware set it (non-zero),
 # else the one-wheel field, and its brake is either one's.
 _WRAPPER = """
@@ -59,10 +61,33 @@ _WRAPPER = """
 #include "wheelbench.h"
 static wb_input_t wbx_in;
 static wb_config_t wbx_cfg;
-static double wbx_period_s, wbx_angle_res, wbx_wheel_res;
+static double wbx_period_s, wbx_supply_v, wbx_angle_res, wbx_wheel_res;
 static uint64_t wbx_tick_n;
 static int32_t wbx_angle_prev;
-static void wbx_init(wb_config_t *cfg, double period_s) {
+static int wbx_form;
+/* 1: the firmware wrote volts only where the drive reads its duty (pwm_max > 0: every duty 0, a volt
+   of 1.5 counts or more); 2: a duty only where it reads volts (pwm_max == 0: every volt 0, a duty
+   not 0); else 0. Over the one-wheel fields and the first n wheels' entries. */
+static int wbx_other_form(const wb_output_t *out, int n) {
+    int i, duty = out->duty != 0, volts = 0;
+    double count = wbx_cfg.pwm_max > 0 ? 1.5 * wbx_supply_v / wbx_cfg.pwm_max : 0.0;
+    for (i = 0; i < n; i++)
+        duty |= out->wheels_duty[i] != 0;
+    if (wbx_cfg.pwm_max > 0) {
+        if (duty)
+            return 0;
+        volts = fabs(out->volts) >= count;
+        for (i = 0; i < n; i++)
+            volts |= fabs(out->wheels_volts[i]) >= count;
+        return volts ? 1 : 0;
+    }
+    volts = out->volts != 0.0f;
+    for (i = 0; i < n; i++)
+        volts |= out->wheels_volts[i] != 0.0f;
+    return (duty && !volts) ? 2 : 0;
+}
+static int wbx_form_seen(void) { return wbx_form; }
+static void wbx_init(wb_config_t *cfg, double period_s, double supply_v) {
     int i;
     memset(&wbx_in, 0, sizeof wbx_in);
     if (cfg->n_wheels < 1 || cfg->n_wheels > WB_MAX_WHEELS)
@@ -71,6 +96,7 @@ static void wbx_init(wb_config_t *cfg, double period_s) {
         cfg->wheels_counts_per_rev[i] = cfg->wheel_counts_per_rev;
     wbx_cfg = *cfg;
     wbx_period_s = period_s;
+    wbx_supply_v = supply_v;
     wbx_angle_res = cfg->angle_counts_per_rev ? 6.283185307179586 / cfg->angle_counts_per_rev : 0.0;
     wbx_wheel_res = cfg->wheel_counts_per_rev ? 6.283185307179586 / cfg->wheel_counts_per_rev : 0.0;
     wbx_tick_n = 0;
@@ -84,7 +110,8 @@ static int16_t wbx_raw(double value, double lsb) {
     c = nearbyint(value / lsb);
     return (int16_t)(c > 32767.0 ? 32767.0 : (c < -32768.0 ? -32768.0 : c));
 }
-static void wbx_imu(double gx, double gy, double gz, double ax, double ay, double az) {
+static int wbx_form_seen(void);
+void wbx_imu(double gx, double gy, double gz, double ax, double ay, double az) {
     double g[3] = {gx, gy, gz}, a[3] = {ax, ay, az};
     int i;
     for (i = 0; i < 3; i++) {
@@ -123,14 +150,16 @@ static double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_r
     fflush(stdout);
     if (out->wheels_brake[0])
         out->brake = 1;
+    wbx_form = wbx_other_form(out, 1);
     if (wbx_cfg.pwm_max > 0) {
         int32_t duty = out->wheels_duty[0] != 0 ? out->wheels_duty[0] : out->duty;
-        return (double)duty / wbx_cfg.pwm_max * wbx_cfg.supply_v;
+        return (double)duty / wbx_cfg.pwm_max * wbx_supply_v;
     }
     return out->wheels_volts[0] != 0.0f ? (double)out->wheels_volts[0] : (double)out->volts;
 }
 /* x: tilt about x, tilt about y, rates about x, y, z, then each wheel's speed (a hinge: zeros where
-   the device has no such axis). volts: each wheel's command out. Returns the brakes, bit i = wheel i + 1. */
+   the device has no such axis). volts: each wheel's command out. Returns the brakes, bit i = wheel i + 1,
+   and wbx_other_form's answer times 256. */
 static int wbx_tick_wheels(const double *x, wb_output_t *out, double *volts) {
     int i, n = wbx_cfg.n_wheels, brakes = 0;
     wbx_in.t_us = (uint32_t)(uint64_t)llround((double)wbx_tick_n * wbx_period_s * 1e6);
@@ -157,19 +186,20 @@ static int wbx_tick_wheels(const double *x, wb_output_t *out, double *volts) {
         int use_one = i == 0;   /* wheel 1: the one-wheel field when its array entry was left at 0 */
         if (wbx_cfg.pwm_max > 0) {
             int32_t duty = (use_one && out->wheels_duty[0] == 0) ? out->duty : out->wheels_duty[i];
-            volts[i] = (double)duty / wbx_cfg.pwm_max * wbx_cfg.supply_v;
+            volts[i] = (double)duty / wbx_cfg.pwm_max * wbx_supply_v;
         } else {
             volts[i] = (use_one && out->wheels_volts[0] == 0.0f) ? (double)out->volts : (double)out->wheels_volts[i];
         }
         if (out->wheels_brake[i] || (use_one && out->brake))
             brakes |= 1 << i;
     }
-    return brakes;
+    return brakes | wbx_other_form(out, n) << 8;
 }
 """
 _WRAPPER_CDEF = """
-void wbx_init(wb_config_t *cfg, double period_s);
+void wbx_init(wb_config_t *cfg, double period_s, double supply_v);
 double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_rad_s, wb_output_t *out);
+int wbx_form_seen(void);
 void wbx_imu(double gx, double gy, double gz, double ax, double ay, double az);
 int wbx_tick_wheels(const double *x, wb_output_t *out, double *volts);
 """

@@ -18,10 +18,11 @@ import math
 import os
 import re
 from pathlib import Path
-from typing import Annotated, ClassVar
+from typing import Annotated, ClassVar, Literal
 
 from pydantic import Field, PrivateAttr, field_validator, model_validator
 
+from ...core.errors import StrategyError
 from ..base import Reading, Strategy, StrategyParams
 from .build import Build, build_firmware, load_fresh
 
@@ -71,6 +72,10 @@ class FirmwareParams(StrategyParams):
     """Preprocessor definitions, NAME: value (true/false become 1/0; a string goes in as written)."""
     cflags: Annotated[list[str], Field(max_length=100)] = []
     """Extra compiler flags (e.g. -O2)."""
+    writes: Literal["volts", "duty"] | None = None
+    """What the firmware writes, if it writes one form only: `duty` needs drive.pwm (else pwm_max is 0
+    and the runner reads volts), `volts` refuses drive.pwm (with it the runner reads the duty); checked
+    at load (`sim.model.scenario`). Absent: either, as pwm_max says."""
     _build: Build | None = PrivateAttr(default=None)
 
     @field_validator("sources", "include", mode="after")
@@ -123,8 +128,9 @@ class FirmwareStrategy(Strategy):
     wheel from 0 at the first tick, adding each tick's speed reading times the period).
 
     On a 3D device (`sim.model.device3d.Device3D`: one to three wheels, a hinge or ball mount) the
-    wrapper also fills the attitude (tilt_rad, rates_rad_s) and every wheel's entries, and `decide`
-    returns one voltage per wheel; `brake` is then False or a tuple of one flag per wheel.
+    wrapper also fills the attitude (tilt_rad, rates_rad_s), every wheel's entries and, with an IMU,
+    its raw words, and `decide` returns one voltage per wheel (with drive.pwm each wheel's duty as
+    volts at the nominal supply, as on one wheel); `brake` is then False or a tuple of one flag per wheel.
     """
 
     kind = "firmware"
@@ -138,9 +144,9 @@ class FirmwareStrategy(Strategy):
         module = load_fresh(self.params.build)
         ffi, lib = module.ffi, module.lib
         d = self.device
-        # > 0 with drive.pwm: the firmware writes a duty (a 3D device has no PWM model, nor an IMU yet)
-        self.pwm_max = getattr(d, "pwm_max", 0)
-        gyro_lsb, accel_lsb = getattr(d, "imu_gyro_lsb_rad_s", 0.0), getattr(d, "imu_accel_lsb_m_s2", 0.0)
+        # > 0 with drive.pwm: the firmware writes a duty (on a 3D device one per wheel, each wheel's bridge)
+        self.pwm_max = d.pwm_max
+        gyro_lsb, accel_lsb = d.imu_gyro_lsb_rad_s, d.imu_accel_lsb_m_s2
         period_s = 1.0 / d.control_rate_hz
         wheels = getattr(d, "n_wheels", None)   # a 3D device: the per-wheel form (None: the one-wheel device)
         cfg = ffi.new("wb_config_t *", {"period_us": round(period_s * 1e6), "supply_v": d.supply_v,
@@ -156,9 +162,10 @@ class FirmwareStrategy(Strategy):
         self._imu = lib.wbx_imu if gyro_lsb > 0 else None
         self._out = ffi.new("wb_output_t *")
         self._tick, self._module = lib.wbx_tick, module   # the module keeps the loaded copy alive
+        self._form_seen = lib.wbx_form_seen
         self.loaded_from = module.__file__    # the build's file, or a temporary copy of it (build.load_fresh)
         self._phases = [f"fw {i}" for i in range(256)]
-        lib.wbx_init(cfg, period_s)
+        lib.wbx_init(cfg, period_s, float(d.supply_v))
         self.phase = self._phases[0]
         if wheels is not None:
             self._set_up_wheels(ffi, lib, wheels)
@@ -171,6 +178,14 @@ class FirmwareStrategy(Strategy):
         # the brakes' bit mask -> what `brake` says: False, or one flag per wheel
         self._brakes = [False] + [tuple(bool(m >> i & 1) for i in range(n)) for m in range(1, 1 << n)]
         self.decide = self._decide_wheels
+
+    def _other_form(self, form: int) -> str:
+        """What is wrong when the firmware wrote only the form of command the drive does not read."""
+        if form == 1:
+            return (f"the firmware wrote volts but no duty, and with drive.pwm (pwm_max {self.pwm_max}) the runner "
+                    "reads its duty: write duty (wheels_duty), or remove drive.pwm")
+        return ("the firmware wrote a duty but no volts, and without drive.pwm (pwm_max 0) the runner reads its "
+                "volts: set drive.pwm.resolution_bits, or write volts (wheels_volts)")
 
     def _redirect_printf(self) -> None:
         """In the isolation child only, send file descriptor 1 (C's stdout) to the log or nowhere, and
@@ -189,6 +204,8 @@ class FirmwareStrategy(Strategy):
         if self._imu is not None:
             self._imu(*reading.imu_gyro_rad_s, *reading.imu_accel_m_s2)
         volts = self._tick(reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s, out)
+        if volts == 0.0 and self._form_seen():
+            raise StrategyError(self._other_form(self._form_seen()))
         self.phase = self._phases[out.phase]
         self.brake = out.brake != 0
         return volts
@@ -200,7 +217,11 @@ class FirmwareStrategy(Strategy):
         if pads is None:
             pads = self._pads = ((0.0,) * (2 - len(angles)), (0.0,) * (3 - len(rates)))
         self._x[0:5 + self._n] = angles + pads[0] + rates + pads[1] + reading.wheel_speeds_rad_s
+        if self._imu is not None:
+            self._imu(*reading.imu_gyro_rad_s, *reading.imu_accel_m_s2)
         brakes = self._tick_wheels(self._x, self._out, self._v)
+        if brakes > 255:
+            raise StrategyError(self._other_form(brakes >> 8))
         self.phase = self._phases[self._out.phase]
         self.brake = self._brakes[brakes]
         return self._unpack(self._v, self._n)

@@ -31,7 +31,11 @@
  * signed duty in [-pwm_max, pwm_max] when pwm_max > 0, that is when the scenario sets
  * drive.pwm.resolution_bits (pwm_max = 2^bits - 1). A duty acts on the bus as it is at the
  * tick: its mean voltage is duty / pwm_max times the bus voltage (the supply, or a battery's sagged
- * bus), through the drive's PWM model when the scenario has one (dead band, dead time). The drive
+ * bus), through the drive's PWM model when the scenario has one (dead band, dead time). A duty past
+ * +-pwm_max acts as full scale (as volts past the supply act as the supply). A firmware that writes
+ * only the form the drive does not read (volts of 1.5 duty counts or more and no duty when
+ * pwm_max > 0, a duty and no volts when pwm_max == 0) ends the trial as strategy_failed at that tick;
+ * `strategy.writes: duty` (or volts) in the scenario has the mismatch refused at load. The drive
  * clamps to +-supply. A non-finite volts ends the trial as strategy_failed. brake = 1
  * engages the wheel brake (the scenario needs drive.brake_torque). phase is the firmware's own
  * state number, shown as the trace's mode "fw <phase>".
@@ -50,7 +54,8 @@
  *   - wb_input_t: wheels_speed_rad_s[i] and wheels_counts[i] for every wheel, each as the
  *     one-wheel fields are for wheel 1 ([0] == wheel_speed_rad_s, [0] == wheel_counts);
  *   - wb_output_t: wheel i + 1 is driven by wheels_volts[i] (wheels_duty[i] with a PWM
- *     resolution) and braked when wheels_brake[i] is 1 (its wheel needs a brake_torque). For
+ *     resolution: drive.pwm serves every wheel's bridge, one pwm_max for all, each duty a share of
+ *     the bus all the wheels share) and braked when wheels_brake[i] is 1 (its wheel needs a brake_torque). For
  *     wheel 1 alone the one-wheel fields still count: it is driven by volts (duty) when the
  *     firmware left wheels_volts[0] (wheels_duty[0]) at 0, and braked when brake is 1. Firmware may
  *     thus write either form for wheel 1; one that writes both should write the same value.
@@ -64,7 +69,8 @@
  *     rates at any heading, z the heading's rate); on a hinge, [0] is the rate about the hinge
  *     and [1], [2] are 0.
  * These are the readings the Python strategies see (Reading.angles_rad, Reading.rates_rad_s;
- * sensor noise, bias, delay and quantisation per axis). The one-wheel fields mirror the first
+ * sensor noise, bias, delay and quantisation per axis). gyro_raw and accel_raw are filled on 3D
+ * devices as on one wheel (the IMU of sensors.imu, in its own axes). The one-wheel fields mirror the first
  * entries: angle_rad == tilt_rad[0], rate_rad_s == rates_rad_s[0], and angle_counts counts
  * tilt_rad[0]. Attitude and rates are given on one-wheel hinge devices too.
  */
