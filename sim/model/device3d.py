@@ -56,6 +56,7 @@ class Device3D(LinearSpec):
                    body_com_m=body.com_m, body_inertia_com_kg_m2=body.inertia_com_kg_m2, wheels=tuple(units),
                    pivot_coulomb_n_m=sc.body.pivot_friction.coulomb, pivot_viscous_n_m_s=sc.body.pivot_friction.viscous,
                    control_rate_hz=sc.sensors.rate, delay_s=loop_delay_s(sc), supply_v=sc.drive.supply,
+                   drive_mode=sc.drive.mode,
                    angle_counts_per_rev=(sc.sensors.angle.counts_per_rev if sc.sensors.angle is not None else None) or 0,
                    wheel_counts_per_rev=sc.sensors.wheel.counts_per_rev or 0, **imu_lsb_fields(sc.sensors.imu))
 
