@@ -192,18 +192,6 @@ def test_run_and_gains_on_the_demo(tmp_path, capsys):
     assert "wb_balance_amps" in header_c and "WB_CURRENT_LIMIT_A" in header_c and "WB_SUPPLY_V" not in header_c
 
 
-@pytest.mark.parametrize("setting, key", [
-    ("strategy={kind: fixed_voltage, volts: 1}", "drive.mode: strategy 'fixed_voltage' commands volts only"),
-    ("drive.current_bandwidth=", "drive.current_bandwidth"),
-])
-def test_bad_current_mode_input_on_a_3d_device_is_one_line_and_exit_2(tmp_path, capsys, setting, key):
-    out = tmp_path / "out"
-    code = main(["run", str(DEMO), "--set", setting, "--out", str(out)])
-    err = capsys.readouterr().err.strip()
-    assert code == 2 and len(err.splitlines()) == 1 and key in err and "Traceback" not in err, err
-    assert not out.exists()
-
-
 def test_check_in_current_mode_shows_the_power_criteria_and_brakes_with_amps(tmp_path, monkeypatch):
     from sim.studies import check3d
     from test_check3d import FOUR
