@@ -141,6 +141,17 @@ def test_a_current_step_rises_with_the_loops_time_constant_on_every_wheel():
                         rtol=1e-2)   # w is the speed at the step's start, the bridge's the step's mean
 
 
+def test_each_wheel_is_clamped_to_its_own_current_limit():
+    # wheel 2 has its own motor with a 3 A limit; 10 A asked of every wheel gives 6, 3 and 6 A once the
+    # loops have settled (the runner's clamp per wheel, as PowerChain.command_limit on one wheel)
+    raw = current_ball(strategy={"kind": "fixed_current", "amps": 10.0},
+                       trial={"duration": 0.03, "start": {"tilt": [0.0, 0.0]}})
+    raw["wheels"][1]["motor"] = {**raw["motor"], "current_limit": 3.0}
+    res = run_trial(validate_scenario(raw, where="<test>"))
+    last = [float(res.trace.wheel(i, "current")[res.trace.n - 1]) for i in range(1, 4)]
+    assert_allclose(last, [6.0, 3.0, 6.0], rtol=1e-6)
+
+
 def test_saturated_ticks_count_the_bus_running_out_not_the_current_limit():
     # at rest a 6 A command (the limit) needs 6 V of a 12 V bus: no saturation; with the wheels near
     # their no-load speed the loop runs out of bus voltage (R i + k_e w capped at V_bus): every tick
@@ -161,6 +172,19 @@ def test_lqr_in_current_mode_balances_the_ball_device():
     m = trial_metrics3d(res)
     assert m["outcome"] == "balanced" and m["final_tilt_rad"] < math.radians(0.5)
     assert m["peak_current_a"] <= 6.0 + 1e-9          # the runner's clamp: each wheel's current limit
+
+
+@pytest.mark.parametrize("demo", ["tilted_axis.yaml", "floor_cube.yaml"])
+def test_lqr_in_current_mode_balances_the_hinge_and_floor_demos(demo):
+    # the hinge with a tilted wheel axis and the floor cube on its corner (our demos)
+    from sim.model.scenario_yaml import load_scenario
+    sc = load_scenario(ROOT / "scenarios" / demo, overrides=("drive.mode=current", "drive.current_bandwidth=1kHz",
+                                                             "trial.duration=2", "trial.pushes=[]"))
+    res = run_trial(sc)
+    assert res.outcome == "balanced" and res.device.drive_mode == "current", res.message
+    limits = [w.command_limit("current") for w in res.device.wheels]
+    for i, lim in enumerate(limits, start=1):
+        assert np.max(np.abs(res.trace.wheel(i, "current"))) <= lim * (1 + 1e-9)
 
 
 # ----------------------------------------------------------------------------- CLI

@@ -258,6 +258,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     again = bool(getattr(strategy, "swings_up", False))   # a law that can get the body up again after a fall
     supply = float(scenario.drive.supply)
     limits = limits or (supply,) * nw     # each wheel's command clamp (amps in current mode)
+    cap = limits[0] if max(limits) == min(limits) else None   # one clamp for every wheel (the common case)
     # each wheel's per-step call: its motor on the ideal source, or its chain on the shared bus (`power`)
     motors = power[1] if power else [MotorDrive(_WheelMotor(device, i), step_s=dt) for i in wheels]
     updates = [m.update for m in motors]
@@ -357,7 +358,10 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 clock.enter(k)
                 held = volts
                 volts = command(reading, nw)
-                if not all(-c <= v <= c for v, c in zip(volts, limits)):   # the drive's limit, whatever the law did
+                if cap is not None:     # the drive's limit, whatever the law did
+                    if not all(-cap <= v <= cap for v in volts):
+                        volts = tuple(v if -cap <= v <= cap else math.copysign(cap, v) for v in volts)
+                elif not all(-c <= v <= c for v, c in zip(volts, limits)):
                     volts = tuple(v if -c <= v <= c else math.copysign(c, v) for v, c in zip(volts, limits))
                 if strategy.phase != phase:
                     phase = strategy.phase
