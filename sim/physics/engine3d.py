@@ -178,7 +178,7 @@ class Engine3D(OneClient):
                 step(cid)
             return read, advance
 
-        multi, multi_torque = pb.getJointStateMultiDof, pb.setJointMotorControlMultiDof
+        multi, multi_torque, joints = pb.getJointStatesMultiDof, pb.setJointMotorControlMultiDof, (BODY,) + wheels
         p = self.principal_axes
         (p00, p01, p02), (p10, p11, p12), (p20, p21, p22) = p
         cx, cy, cz, cw = matrix_to_quat(r0)
@@ -189,25 +189,29 @@ class Engine3D(OneClient):
         relative = relative_attitude
 
         def read():
-            (qx, qy, qz, w), wp = multi(body, BODY, cid)[:2]
+            ss = multi(body, joints, cid)     # the ball and every wheel in one request (one state copy)
+            ball = ss[0]
+            qx, qy, qz, w = ball[0]
+            wp = ball[1]
+            u0, u1, u2 = wp
             # pybullet's joint quaternion is in the principal axes P: q_wb = (P v, w) (det P = 1)
             x = p00 * qx + p01 * qy + p02 * qz
             y = p10 * qx + p11 * qy + p12 * qz
             z = p20 * qx + p21 * qy + p22 * qz
             state[0], state[1] = (x, y, z, w), wp
             # body rate: P wp in the body frame, turned to the world by q_wb (v + 2w u x v + 2 u x (u x v))
-            bx = p00 * wp[0] + p01 * wp[1] + p02 * wp[2]
-            by = p10 * wp[0] + p11 * wp[1] + p12 * wp[2]
-            bz = p20 * wp[0] + p21 * wp[1] + p22 * wp[2]
+            bx = p00 * u0 + p01 * u1 + p02 * u2
+            by = p10 * u0 + p11 * u1 + p12 * u2
+            bz = p20 * u0 + p21 * u1 + p22 * u2
             tx_, ty_, tz_ = 2.0 * (y * bz - z * by), 2.0 * (z * bx - x * bz), 2.0 * (x * by - y * bx)
-            rate = (bx + w * tx_ + y * tz_ - z * ty_, by + w * ty_ + z * tx_ - x * tz_, bz + w * tz_ + x * ty_ - y * tx_)
+            rx = bx + w * tx_ + y * tz_ - z * ty_
+            ry = by + w * ty_ + z * tx_ - x * tz_
             tilt_x, tilt_y, heading, tilt = relative(x, y, z, w, cx, cy, cz, cw)
-            ws = states(body, wheels, cid)
             # the rate in the heading frame (the world turned about the vertical by the heading): the
             # tilts' own rates at any heading, so a law designed at heading 0 holds at every heading
             ch, sh = cos(heading), sin(heading)
-            rate = (ch * rate[0] + sh * rate[1], ch * rate[1] - sh * rate[0], rate[2])
-            return (tilt_x, tilt_y, heading, tilt, rate, [s[0] for s in ws], [s[1] for s in ws])
+            rate = (ch * rx + sh * ry, ch * ry - sh * rx, bz + w * tz_ + x * ty_ - y * tx_)
+            return (tilt_x, tilt_y, heading, tilt, rate, [s[0][0] for s in ss[1:]], [s[1][0] for s in ss[1:]])
 
         if friction is not None:
             return read, self._advance_with_friction(state, bp, friction)

@@ -137,3 +137,76 @@ class _ChannelLimits:
         """The history row a read at row j sees (j already carries the suite's delay)."""
         j = max(j - self.latency_steps, 0)
         return (j // self.every) * self.every
+
+
+def axes_reader(suites: list[SensorSuite], columns: list[tuple]):
+    """One call per control tick for several suites built from the same sensors (the 3D runner's
+    one suite per axis): `read(k) -> [(angle, rate, wheel speed) per suite]`, the numbers each
+    suite's `read(k, *columns[i])` gives, in the same order, from the same noise streams.
+
+    `columns[i]`: suite i's (angle, rate, wheel angle, wheel speed) histories. With an encoder bus
+    (latency, update rate or tracking limit) each suite reads on its own; otherwise the reads are
+    done here in one pass (the per-suite calls and attribute lookups cost as much as the sums).
+    """
+    if any(s.limited for s in suites):
+        reads = [(s.read, *c) for s, c in zip(suites, columns)]
+        return lambda k: [r(k, a, w, wa, ws) for r, a, w, wa, ws in reads]
+    s0 = suites[0]
+    delay, period = s0.delay_steps, s0.period_s
+    angle_res, angle_noise, has_gyro = s0.angle_res, s0.angle_noise, s0.has_gyro
+    gyro_bias, gyro_noise, wheel_res, wheel_noise = s0.gyro_bias, s0.gyro_noise, s0.wheel_res, s0.wheel_noise
+    axes = [(s.angle_bias, *c) for s, c in zip(suites, columns)]
+    n_axes = len(axes)
+    prev_angle: list = [None] * n_axes
+    prev_counts = [0.0] * n_axes
+    floor, fmod, pi, two_pi = math.floor, math.fmod, math.pi, 2 * math.pi
+    noise = {"chunks": [], "base": 0, "end": 0, "tick": 0}
+
+    def rows(i: int) -> list:
+        """This tick's noise row of every suite (each suite's own stream, as its `read` draws it)."""
+        if i < noise["end"]:
+            b = noise["base"]
+            return [c[i - b] for c in noise["chunks"]]
+        out = []
+        for s in suites:
+            s.tick = i
+            out.append(s._noise_row())
+            s.tick = i + 1
+        s = suites[0]
+        noise["chunks"] = [t._chunk for t in suites]
+        noise["base"], noise["end"] = s._chunk_end - len(s._chunk), s._chunk_end
+        return out
+
+    def read(k: int) -> list:
+        j = k - delay
+        if j < 0:
+            j = 0
+        tick = noise["tick"]
+        noise["tick"] = tick + 1
+        out = []
+        for i, ((bias, angle, rate, wheel_angle, wheel_speed), n) in enumerate(zip(axes, rows(tick))):
+            theta = float(angle[j])
+            if angle_res:
+                theta = floor(theta / angle_res) * angle_res
+            a = fmod(theta + bias + angle_noise * n[0] + pi, two_pi)   # wrap_angle, inline
+            if a <= 0.0:
+                a += two_pi
+            theta_m = a - pi
+            if has_gyro:
+                rate_m = float(rate[j]) + gyro_bias + gyro_noise * n[1]
+            elif prev_angle[i] is None:
+                rate_m = 0.0
+            else:
+                rate_m = wrap_angle(theta_m - prev_angle[i]) / period
+            prev_angle[i] = theta_m
+            if wheel_res:
+                counts = floor(float(wheel_angle[j]) / wheel_res)
+                if tick == 0:
+                    prev_counts[i] = floor(wheel_angle[j] / wheel_res - wheel_speed[j] * period / wheel_res)
+                wheel_m = (counts - prev_counts[i]) * wheel_res / period
+                prev_counts[i] = counts
+            else:
+                wheel_m = float(wheel_speed[j])
+            out.append((theta_m, rate_m, wheel_m + wheel_noise * n[2]))
+        return out
+    return read

@@ -41,7 +41,7 @@ from ..physics.brake import BrakeRamp
 from ..physics.engine_floor import FloorEngine
 from ..physics.drive import shared_chains, shared_summary
 from ..physics.motor import MotorDrive
-from ..physics.sensors import SensorSuite
+from ..physics.sensors import SensorSuite, axes_reader
 from ..strategies import plugins_in
 from ..strategies.base import Reading
 from .floor_contact import FloorWatch, floor_cause
@@ -285,13 +285,14 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     m_rate = [col["m_rate_x"]] + ([col["m_rate_y"], col["m_rate_z"]] if ball else [])
     m_wheel = [col[f"m_w{i}"] for i in range(1, nw + 1)]
     zeros = memoryview(np.zeros(max(n, 1)))
+    mode_c = memoryview(trace.mode)       # an int16 column: a Python int in costs less than numpy's item store
     # each sensor suite reads one angle, one rate and one wheel (sensors.py applies its noise, bias,
     # delay and quantisation per axis); suites past the axes or wheels read zeros for those
     sense_angle = [tx_c] + ([ty_c, hd_c] if ball else [])
     sense_rate = [rx_c] + ([ry_c, rz_c] if ball else [])
-    suite_reads = [(s.read, sense_angle[j] if j < len(sense_angle) else zeros,
-                    sense_rate[j] if j < len(sense_rate) else zeros, wa_c[j] if j < nw else zeros,
-                    ws_c[j] if j < nw else zeros) for j, s in enumerate(suites)]
+    read_axes = axes_reader(suites, [(sense_angle[j] if j < len(sense_angle) else zeros,
+                                      sense_rate[j] if j < len(sense_rate) else zeros, wa_c[j] if j < nw else zeros,
+                                      ws_c[j] if j < nw else zeros) for j in range(len(suites))])
     io = engine.io()
     read, advance = io[0], io[1]
     watch = FloorWatch(io[2], trace, device.floor, stop_early) if len(io) > 2 else None
@@ -335,7 +336,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
             volts, change_k = pending, -1
         if k == tick_k:
             t = k * dt
-            meas = [r(k, a, w, wa, ws) for r, a, w, wa, ws in suite_reads]
+            meas = read_axes(k)
             m0 = meas[0]
             if ball:
                 m1, m2 = meas[1], meas[2]
@@ -358,11 +359,11 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 clock.enter(k)
                 held = volts
                 volts = command(reading, nw)
-                if cap is not None:     # the drive's limit, whatever the law did
-                    if not all(-cap <= v <= cap for v in volts):
-                        volts = tuple(v if -cap <= v <= cap else math.copysign(cap, v) for v in volts)
-                elif not all(-c <= v <= c for v, c in zip(volts, limits)):
-                    volts = tuple(v if -c <= v <= c else math.copysign(c, v) for v, c in zip(volts, limits))
+                if cap is None:     # wheels with different limits (current mode, a wheel's own motor)
+                    if not all(-c <= v <= c for v, c in zip(volts, limits)):
+                        volts = tuple(v if -c <= v <= c else math.copysign(c, v) for v, c in zip(volts, limits))
+                elif min(volts) < -cap or max(volts) > cap:   # the drive's limit, whatever the law did
+                    volts = tuple(v if -cap <= v <= cap else math.copysign(cap, v) for v in volts)
                 if strategy.phase != phase:
                     phase = strategy.phase
                     name = str(phase)
@@ -381,7 +382,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 break
             if name is not None:
                 mode, name = trace.phase_code(name), None
-            trace.mode[k] = mode
+            mode_c[k] = mode
             at_limit = False
             for i in wheels:     # every wheel's command recorded; the tick counts once if any is at the supply
                 v = volts[i]

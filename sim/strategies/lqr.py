@@ -120,6 +120,7 @@ class MultiWheelLqr(LqrBalance):
         # one matrix on one buffer [measured state, held commands oldest first], so that a tick is a
         # few numpy calls whatever the delay (the same law as K times the predicted state)
         self._G = np.hstack([G_x, *G_u])
+        self._minus_G = -self._G    # u = -G z as one product: negation is exact, so the same floats
         self._z = np.zeros(self._G.shape[1])
         self._n_x, self._n_u = G_x.shape[1], len(self.supplies_v)
         self._held = [0.0] * (self._G.shape[1] - self._n_x)   # V, oldest tick first, plain floats
@@ -148,7 +149,7 @@ class MultiWheelLqr(LqrBalance):
         held = self._held
         z = self._z
         z[:] = self._measured(reading) + held     # one assignment: [measured state, held commands]
-        v = [-x for x in self._G.dot(z).tolist()]
+        v = self._minus_G.dot(z).tolist()
         if held:            # a delay: drop the oldest held commands, append this tick's as the drive applies them
             del held[:self._n_u]
             caps, bus = self._supplies, reading.supply_v
