@@ -238,14 +238,17 @@ def test_check_on_a_3d_pack_shows_the_power_criteria(tmp_path, monkeypatch):
     assert code in (0, 1) and (tmp_path / "out" / "braking.png").stat().st_size > 100
 
 
-@pytest.mark.parametrize("setting, key", [
-    ("battery.cells=0", "battery.cells"),
-    ("drive.mode=current", "drive.mode"),
-    ("drive.trip.curent=3", "drive.trip.curent"),
+@pytest.mark.parametrize("settings, key", [
+    (("battery.cells=0",), "battery.cells"),
+    (("drive.mode=current",), "drive.current_bandwidth"),     # current mode without its loop's bandwidth
+    (("drive.trip.curent=3",), "drive.trip.curent"),
+    # current mode with a law that commands volts only (tests/test_current3d.py: current mode on 3D)
+    (("drive.mode=current", "drive.current_bandwidth=1kHz",
+      "strategy={kind: fixed_voltage, volts: 1}"), "drive.mode: strategy 'fixed_voltage' commands volts only"),
 ])
-def test_bad_power_keys_on_a_3d_device_are_one_line_and_exit_2(tmp_path, capsys, setting, key):
+def test_bad_power_keys_on_a_3d_device_are_one_line_and_exit_2(tmp_path, capsys, settings, key):
     out = tmp_path / "out"
-    code = main(["run", str(DEMO), "--set", setting, "--out", str(out)])
+    code = main(["run", str(DEMO), *[a for s in settings for a in ("--set", s)], "--out", str(out)])
     err = capsys.readouterr().err.strip()
     assert code == 2 and len(err.splitlines()) == 1 and key in err, err
     assert not out.exists()

@@ -44,7 +44,7 @@ def corner_cube(**kw) -> LinearSpec:
     return LinearSpec(**figures)
 
 
-def kane_reference(spec: LinearSpec) -> tuple[np.ndarray, np.ndarray]:
+def kane_reference(spec: LinearSpec, *, current: bool = False) -> tuple[np.ndarray, np.ndarray]:
     """(A, B) of a ball-mounted body with wheels, by Kane's method in sympy.physics.mechanics.
 
     Independent of linear3d: the attitude is Rz(heading) Ry(tilt_y) Rx(tilt_x) (sympy's body-fixed
@@ -52,8 +52,9 @@ def kane_reference(spec: LinearSpec) -> tuple[np.ndarray, np.ndarray]:
     rotation taking the centre of mass to +z), the equations are sympy's (Kane's method, with the
     body's angular velocity components as generalised speeds and each wheel's angle relative to
     the body), and the linearisation is the Jacobian of sympy's forcing vector at rest upright.
-    Loads: gravity on each centre of mass, the motor torque k_t (V - k_e w)/R and the bearing's
-    viscous torque between each wheel and the body, the pivot's viscous torque on the body.
+    Loads: gravity on each centre of mass, the motor torque k_t (V - k_e w)/R (with `current`, a
+    torque-mode drive: k_t i, the inputs being currents) and the bearing's viscous torque between
+    each wheel and the body, the pivot's viscous torque on the body.
     Returns the full model on [tilt_x, tilt_y, heading, wheel angles, rates, wheel speeds].
     """
     from sympy.physics import mechanics as me
@@ -94,7 +95,9 @@ def kane_reference(spec: LinearSpec) -> tuple[np.ndarray, np.ndarray]:
         centre.v2pt_theory(O, N, U)
         Iw = w.transverse_inertia_kg_m2 * unit + (w.spin_inertia_kg_m2 - w.transverse_inertia_kg_m2) * (axis | axis)
         bodies.append(me.RigidBody(f"wheel{i}", centre, W, w.mass_kg, (Iw, centre)))
-        torque = w.k_t_n_m_a * (V[i] - w.k_e_v_s_rad * u[3 + i]) / w.resistance_ohm - w.viscous_n_m_s * u[3 + i]
+        motor = (w.k_t_n_m_a * V[i] if current
+                 else w.k_t_n_m_a * (V[i] - w.k_e_v_s_rad * u[3 + i]) / w.resistance_ohm)
+        torque = motor - w.viscous_n_m_s * u[3 + i]
         loads += [(centre, -w.mass_kg * g * N.z), (W, torque * axis), (U, -torque * axis)]
     kd = [w_kinematic.dot(U.x) - u[0], w_kinematic.dot(U.y) - u[1], w_kinematic.dot(U.z) - u[2]]
     kd += [q[i].diff() - u[i] for i in range(3, 3 + n_w)]

@@ -60,9 +60,16 @@ def test_vector_keys_parse_with_units():
     (lambda raw: raw.update(body=BALL, sensors={"imu": {"gyro": {"nois_density": 0.01}}}), "sensors.imu.gyro"),
     (lambda raw: raw.update(body=BALL, timing={"jitter": 1.0}), "timing.jitter"),
     (lambda raw: raw.update(body=BALL, sensors={"wheel": {"max_speed": -100.0}}), "sensors.wheel.max_speed"),
-    # the power chain runs on 3D devices, in voltage mode only (no law for several wheels commands current)
-    (lambda raw: raw.update(body=BALL, drive={"supply": 12.0, "mode": "current", "current_bandwidth": 2000.0}),
-     "drive.mode: current mode takes one-wheel hinge devices only"),
+    # current mode on a 3D device: a law that commands amps, the loop's bandwidth, no datasheet curve
+    (lambda raw: raw.update(body=BALL, drive={"supply": 12.0, "mode": "current", "current_bandwidth": 2000.0},
+                            strategy={"kind": "fixed_voltage", "volts": 1.0}),
+     "drive.mode: strategy 'fixed_voltage' commands volts only"),
+    (lambda raw: raw.update(body=BALL, drive={"supply": 12.0, "mode": "current"}), "drive.current_bandwidth"),
+    (lambda raw: raw.update(wheels=[{"at": 0.2, "parts": [DISK], "motor": {
+        "speed_constant": "300 rpm/V", "resistance": 2.0,
+        "curve": {"voltage": 12.0, "points": [{"speed": 0.0, "torque": 0.1}, {"speed": 100.0, "torque": 0.0}]}}}],
+        wheel=None, body=BALL, drive={"supply": 12.0, "mode": "current", "current_bandwidth": 2000.0}),
+     "wheels[0].motor.curve: applies to drive.mode voltage"),
     (lambda raw: raw.update(wheels=[{"at": 0.2, "parts": [DISK], "motor": {
         "speed_constant": "300 rpm/V", "resistance": 2.0, "thermal": {"coupled": True},
         "curve": {"voltage": 12.0, "points": [{"speed": 0.0, "torque": 0.1}, {"speed": 100.0, "torque": 0.0}]}}}],

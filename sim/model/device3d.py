@@ -59,6 +59,7 @@ class Device3D(LinearSpec):
                    pivot_coulomb_n_m=sc.body.pivot_friction.coulomb, pivot_viscous_n_m_s=sc.body.pivot_friction.viscous,
                    control_rate_hz=sc.sensors.rate, delay_s=loop_delay_s(sc), supply_v=sc.drive.supply,
                    locked=sc.body.locked,
+                   drive_mode=sc.drive.mode,
                    angle_counts_per_rev=(sc.sensors.angle.counts_per_rev if sc.sensors.angle is not None else None) or 0,
                    wheel_counts_per_rev=sc.sensors.wheel.counts_per_rev or 0, pwm_max=drive_pwm_max(sc.drive),
                    **imu_lsb_fields(sc.sensors.imu))

@@ -22,7 +22,10 @@ Conventions (SI throughout):
   positive by the right-hand rule about `axis`. A positive motor torque accelerates the wheel
   positively; its reaction acts on the body.
 - Inputs: one winding voltage per wheel, V; the motor torque is k_t (V - k_e w) / R (inductance
-  neglected, as in `sim.model.device.Device.linear_model`).
+  neglected, as in `sim.model.device.Device.linear_model`). With `drive_mode` "current" (a
+  torque-mode driver) one winding current per wheel, A, and the torque k_t i: the driver's current
+  loop is taken as fast against the body and overcomes the back-EMF, so the back-EMF damping leaves
+  the plant (the one-wheel current-mode model, `Device.linear_model`, does the same).
 
 The linearisation is about rest upright with every wheel still, so gyroscopic terms (products of
 body rate and wheel speed) are second order and drop out. Viscous pivot friction (-b_p w, on every
@@ -49,11 +52,12 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, field, fields
 
 import numpy as np
 
 MOUNTS = ("hinge", "ball")
+DRIVE_MODES = ("voltage", "current")
 
 _VERTICAL_TOL = 1e-9   # a wheel axis "has a vertical component" above this (unit vector)
 
@@ -97,6 +101,14 @@ class WheelUnit:
         """Relative wheel speed where back-EMF equals the supply, supply / k_e, rad/s."""
         return self.supply_v / self.k_e_v_s_rad
 
+    def command_limit(self, drive_mode: str) -> float:
+        """The largest command the wheel's drive takes: the supply, V (voltage mode), or the current
+        limit, A (current mode; the stall current at the supply when that is lower, or without a
+        limit), as the one-wheel `Device.command_limit`."""
+        if drive_mode == "current":
+            return min(self.current_limit_a, self.supply_v / self.resistance_ohm)
+        return self.supply_v
+
 
 @dataclass(frozen=True)
 class LinearSpec:
@@ -106,7 +118,8 @@ class LinearSpec:
     `body_inertia_com_kg_m2`: the body's 3x3 inertia tensor about its centre of mass. The body
     includes the motor stators and excludes the wheels. `wheels`: one `WheelUnit` each.
     `pivot_viscous_n_m_s` acts on every axis the mount lets turn. `control_rate_hz` and `delay_s`
-    are the loop's (the discrete design and the delay predictor read them).
+    are the loop's (the discrete design and the delay predictor read them). `drive_mode`: "voltage"
+    (inputs in volts) or "current" (a torque-mode driver: inputs in amps).
     """
 
     mount: str
@@ -119,10 +132,13 @@ class LinearSpec:
     pivot_viscous_n_m_s: float
     control_rate_hz: float
     delay_s: float
+    drive_mode: str = field(default="voltage", kw_only=True)   # keyword-only: a subclass may add plain fields
 
     def __post_init__(self) -> None:
         if self.mount not in MOUNTS:
             raise ValueError(f"LinearSpec.mount must be one of {MOUNTS}, found {self.mount!r}")
+        if self.drive_mode not in DRIVE_MODES:
+            raise ValueError(f"LinearSpec.drive_mode must be one of {DRIVE_MODES}, found {self.drive_mode!r}")
         if not self.wheels:
             raise ValueError("LinearSpec.wheels must be a non-empty sequence of WheelUnit")
         # a wheel of another module with the same fields (e.g. the 3D device's) is taken field by field
@@ -164,6 +180,9 @@ def _fields_of(source, names, what) -> dict:
     get = source.get if isinstance(source, Mapping) else (lambda k, d=None: getattr(source, k, d))
     missing = object()
     values = {k: get(k, missing) for k in names}
+    for k in OPTIONAL_FIELDS:     # a field with a default may be left out (a device written before it)
+        if values.get(k, None) is missing:
+            del values[k]
     absent = [k for k, v in values.items() if v is missing]
     if absent:
         raise ValueError(f"the {what} has no {', '.join(absent)} (fields of sim.model.linear3d)")
@@ -175,7 +194,7 @@ class LinearModel:
     """x' = A x + B u about rest upright; `state_names` and `input_names` label rows and columns.
 
     State units follow the names: angles and tilts in rad, rates and wheel speeds in rad/s;
-    inputs in V. Arrays are read-only.
+    inputs in V (`wheelN_voltage`) or A (`wheelN_current`, a current-mode drive). Arrays are read-only.
     """
 
     A: np.ndarray
@@ -189,7 +208,7 @@ class LinearModel:
 
     @property
     def input_units(self) -> tuple[str, ...]:
-        return ("V",) * len(self.input_names)
+        return tuple("A" if n.endswith("_current") else "V" for n in self.input_names)
 
 
 def wheel_state_names(n: int) -> tuple[str, ...]:
@@ -259,8 +278,12 @@ def linearise(spec: LinearSpec) -> LinearModel:
     n_w = len(spec.wheels)
     axes = np.array([R0 @ np.asarray(w.axis) for w in spec.wheels])          # n_w x 3, upright frame
     I_s = np.array([w.spin_inertia_kg_m2 for w in spec.wheels])
-    c = np.array([w.k_t_n_m_a / w.resistance_ohm for w in spec.wheels])      # N m / V at standstill
-    d = c * np.array([w.k_e_v_s_rad for w in spec.wheels]) + np.array([w.viscous_n_m_s for w in spec.wheels])
+    bearing = np.array([w.viscous_n_m_s for w in spec.wheels])
+    if spec.drive_mode == "current":    # torque k_t i; the current loop overcomes the back-EMF
+        c, d = np.array([w.k_t_n_m_a for w in spec.wheels]), bearing
+    else:
+        c = np.array([w.k_t_n_m_a / w.resistance_ohm for w in spec.wheels])      # N m / V at standstill
+        d = c * np.array([w.k_e_v_s_rad for w in spec.wheels]) + bearing
     mass = spec.body_mass_kg + sum(w.mass_kg for w in spec.wheels)
     rho = float((R0 @ device_com_m(spec))[2])                                # height of the COM upright
     mgr = mass * spec.gravity_m_s2 * rho
@@ -302,7 +325,13 @@ def linearise(spec: LinearSpec) -> LinearModel:
     for a in (A, B):
         a.setflags(write=False)
     return LinearModel(A=A, B=B, state_names=body_angles + body_rates + wheel_state_names(n_w),
-                       input_names=tuple(f"wheel{i + 1}_voltage" for i in range(n_w)))
+                       input_names=input_names(n_w, spec.drive_mode))
+
+
+def input_names(n: int, drive_mode: str = "voltage") -> tuple[str, ...]:
+    """The inputs' names: `wheelN_voltage`, or `wheelN_current` for a current-mode drive."""
+    quantity = "current" if drive_mode == "current" else "voltage"
+    return tuple(f"wheel{i + 1}_{quantity}" for i in range(n))
 
 
 def spec_from_device(device) -> LinearSpec:
@@ -322,8 +351,10 @@ def spec_from_device(device) -> LinearSpec:
         mount="hinge", gravity_m_s2=device.gravity_m_s2, body_mass_kg=body.mass_kg,
         body_com_m=(0.0, 0.0, body.com_m), body_inertia_com_kg_m2=tuple(map(tuple, np.diag(body.inertia_com))),
         wheels=(unit,), pivot_coulomb_n_m=device.pivot_coulomb_n_m, pivot_viscous_n_m_s=device.pivot_viscous_n_m_s,
-        control_rate_hz=device.control_rate_hz, delay_s=device.delay_s)
+        control_rate_hz=device.control_rate_hz, delay_s=device.delay_s,
+        drive_mode=getattr(device, "drive_mode", "voltage"))
 
 
+OPTIONAL_FIELDS = ("drive_mode",)
 SPEC_FIELDS = tuple(f.name for f in fields(LinearSpec))
 WHEEL_FIELDS = tuple(f.name for f in fields(WheelUnit))

@@ -661,11 +661,11 @@ class Scenario(Strict):
         if est is not None and ball and getattr(est.cls, "tilt_axes", 1) < 2:
             raise ValueError(f"@sensors.estimator.kind: {est.kind} gives one tilt (about x); a device on a ball or "
                              "a floor corner needs two (tilt_axes = 2, e.g. kind: complementary)")
-        if self.drive.mode == "current":
-            raise ValueError("@drive.mode: current mode takes one-wheel hinge devices only in this release (no law "
-                             "for several wheels commands current); a 3D device's bridges run in voltage mode")
         for i, w in enumerate(self.wheels or []):
             m = w.motor
+            if m is not None and m.curve is not None and self.drive.mode == "current":
+                raise ValueError(f"@wheels[{i}].motor.curve: applies to drive.mode voltage (a current-mode driver "
+                                 "sets the current)")
             if m is not None and m.curve is not None and m.thermal.coupled:
                 raise ValueError(f"@wheels[{i}].motor.thermal.coupled: the winding's resistance does not enter a "
                                  "motor.curve; give one or the other")

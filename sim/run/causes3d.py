@@ -27,7 +27,7 @@ import numpy as np
 
 from .causes import (CURRENT_AT_LIMIT, ESTIMATOR_MISREAD_RAD, LOOKBACK_S, SUSTAINED_S, WHEEL_NEAR_LIMIT, _power_event,
                      held_start)
-from .metrics import PUSH_RECOVER_S
+from .metrics import PUSH_RECOVER_S, supply_ceiling
 from .metrics3d import tilt_errors
 
 
@@ -92,10 +92,14 @@ def _fell(result) -> tuple[str, str]:
             if int(np.count_nonzero(at_limit)) >= sustained:
                 return "current_at_limit", (f"wheel {i + 1}'s current sat at its {w.current_limit_a:g} A limit for "
                                             f"{np.count_nonzero(at_limit) * dt:.3f} s before the fall at {t_fall:.3f} s")
+    # current mode: the bridge's applied voltage against the bus it had (its current loop ran out of it)
+    bus = supply_ceiling(tr, result.scenario)[start:end] if result.scenario.drive.mode == "current" else None
     for i, w in enumerate(dev.wheels):
-        at_supply = np.abs(tr.wheel(i + 1, "voltage")[start:end]) >= w.supply_v * (1.0 - 1e-9)
+        ref = w.supply_v if bus is None else bus
+        at_supply = np.abs(tr.wheel(i + 1, "voltage")[start:end]) >= ref * (1.0 - 1e-9)
         if int(np.count_nonzero(at_supply)) >= sustained:
-            return "voltage_at_supply", (f"wheel {i + 1}'s voltage sat at the {w.supply_v:g} V supply for "
+            where = f"the {w.supply_v:g} V supply" if bus is None else "the bus (its current loop out of voltage)"
+            return "voltage_at_supply", (f"wheel {i + 1}'s voltage sat at {where} for "
                                          f"{np.count_nonzero(at_supply) * dt:.3f} s before the fall at {t_fall:.3f} s")
     return "gains_too_weak", (f"the body fell at {t_fall:.3f} s with no wheel, current or voltage at its limit "
                               f"(fastest wheel {worst + 1} at {shares[worst]:.0%} of its no-load speed)")

@@ -60,7 +60,7 @@ def trial_metrics3d(result) -> dict:
         "current_limit_a": min(limits) if limits else None,
         "peak_voltage_v": max(w["peak_voltage_v"] for w in wheels),
         "supply_v": sc.drive.supply,
-        "voltage_saturated_fraction": _saturated(tr, dev, end, sc.control_steps, sc) / ticks if ticks else 0.0,
+        "voltage_saturated_fraction": saturated_ticks3d(tr, dev, end, sc.control_steps, sc) / ticks if ticks else 0.0,
         "energy_from_supply_j": energy, "regenerated_energy_j": regen,
         "peak_tilt_rad": float(np.max(tilt[:end])) if end else None,
         "max_angle_after_catch_rad": float(np.max(tilt[int(round(held_from / dt)):])) if held_from is not None and tr.n else None,
@@ -101,9 +101,11 @@ def sensing_metrics3d(result, end: int) -> dict:
     return out
 
 
-def _saturated(trace, device, end: int, control_steps: int, scenario=None) -> int:
+def saturated_ticks3d(trace, device, end: int, control_steps: int, scenario=None) -> int:
     """Control ticks in rows [0, end) at which some wheel's voltage reached the supply (through the power
-    chain: the bus at that row less the dead-time loss, `sim.run.metrics.supply_ceiling`)."""
+    chain: the bus at that row less the dead-time loss, `sim.run.metrics.supply_ceiling`; in current
+    mode the voltage a bridge applied to drive the current asked, so a tick counts when a current
+    loop ran out of bus voltage, as on one wheel)."""
     hit = np.zeros(len(range(0, end, control_steps)), dtype=bool)
     if getattr(trace, "has_power_columns", False):
         ref = supply_ceiling(trace, scenario)[:end:control_steps]

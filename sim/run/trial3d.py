@@ -45,6 +45,7 @@ from ..physics.sensors import SensorSuite, axes_reader
 from ..strategies import plugins_in
 from ..strategies.base import Reading
 from .floor_contact import FloorWatch, floor_cause
+from .metrics3d import saturated_ticks3d
 from .trace3d import Trace3D
 from .trial_common import (TrialResult, close_trace, describe, describe_unread, final_outcome, held_rows,
                            with_strategy)
@@ -153,7 +154,7 @@ def _simulate(scenario, device, trace, clock, *, seed, stop_early, on_step, angl
                                     rng=stream(seed, TIMING_STREAM), end_step=n)
         return with_strategy(scenario, device, rng, clock, lambda strategy, failure: _loop(
             scenario, device, engine, suites, trace, strategy, failure, stop_early, clock, on_step, imu, schedule,
-            power=_power_chains(scenario, device, strategy, dt, n)))
+            power=_power_chains(scenario, device, strategy, dt, n), limits=_command_limits(scenario, device)))
     finally:
         engine.close()
 
@@ -169,6 +170,15 @@ def _power_chains(scenario, device: Device3D, strategy, dt: float, n: int):
         for chain in chains:    # a law writing PWM duties answers in volts at the nominal supply (as on one wheel)
             chain.duty_base_v = device.supply_v
     return bus, chains
+
+
+def _command_limits(scenario, device: Device3D) -> tuple[float, ...]:
+    """Each wheel's command clamp: the supply, V, or with `drive.mode: current` its drive's current
+    limit, A (the current limit, or the stall current at the supply when lower: `WheelUnit.command_limit`,
+    as the one-wheel runner clamps to `PowerChain.command_limit`)."""
+    if scenario.drive.mode == "current":
+        return tuple(w.command_limit("current") for w in device.wheels)
+    return (float(scenario.drive.supply),) * device.n_wheels
 
 
 def _run_isolated(scenario, device, budget: float, *, seed, stop_early, on_step, angle_bias_rad=None) -> TrialResult3D:
@@ -206,6 +216,8 @@ def _lost_child_result(scenario, device, trace, budget: float, lost: isolation.L
     volts = np.array([getattr(trace, f"w{i}_voltage")[rows] for i in range(1, device.n_wheels + 1)])
     at_supply = float(scenario.drive.supply) * (1.0 - 1e-9)
     saturated = int(np.any(np.abs(volts) >= at_supply, axis=0).sum()) if rows.size else 0
+    if scenario.drive.mode == "current":
+        saturated = 0    # the bridges' applied voltages, which current mode counts by, died with the child
     return _result(scenario, device, trace, strategy, "strategy_failed", message, k, None, None, False,
                    ticks, saturated, lost.wall_s)
 
@@ -247,7 +259,7 @@ def _push_schedule(scenario, dt: float) -> list[tuple[int, tuple[float, float, f
 
 
 def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early, clock, on_step,
-          imu=None, schedule=None, power=None) -> TrialResult3D:
+          imu=None, schedule=None, power=None, limits=None) -> TrialResult3D:
     dt, n, cs = scenario.world.step, scenario.n_steps, scenario.control_steps
     outcome, message = ("strategy_failed", failure) if failure else (None, None)
     ball, nw = device.mount == "ball", device.n_wheels
@@ -257,6 +269,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     wants_balance = strategy is not None and strategy.goal == "balance"
     again = bool(getattr(strategy, "swings_up", False))   # a law that can get the body up again after a fall
     supply = float(scenario.drive.supply)
+    limits = limits or (supply,) * nw     # each wheel's command clamp (amps in current mode)
+    cap = limits[0] if max(limits) == min(limits) else None   # one clamp for every wheel (the common case)
     # each wheel's per-step call: its motor on the ideal source, or its chain on the shared bus (`power`)
     motors = power[1] if power else [MotorDrive(_WheelMotor(device, i), step_s=dt) for i in wheels]
     updates = [m.update for m in motors]
@@ -358,8 +372,11 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 clock.enter(k)
                 held = volts
                 volts = command(reading, nw)
-                if min(volts) < -supply or max(volts) > supply:   # the drive's limit, whatever the law did
-                    volts = tuple(v if -supply <= v <= supply else math.copysign(supply, v) for v in volts)
+                if cap is None:     # wheels with different limits (current mode, a wheel's own motor)
+                    if not all(-c <= v <= c for v, c in zip(volts, limits)):
+                        volts = tuple(v if -c <= v <= c else math.copysign(c, v) for v, c in zip(volts, limits))
+                elif min(volts) < -cap or max(volts) > cap:   # the drive's limit, whatever the law did
+                    volts = tuple(v if -cap <= v <= cap else math.copysign(cap, v) for v in volts)
                 if strategy.phase != phase:
                     phase = strategy.phase
                     name = str(phase)
@@ -444,6 +461,8 @@ def _result(scenario, device, trace, strategy, outcome, message, k, catch_k, fel
     _hold_tick_values(trace, scenario.control_steps, tick_rows)
     if power:
         _power_columns(trace, power[0])
+        if scenario.drive.mode == "current":   # as on one wheel: ticks whose bridge ran out of bus voltage
+            saturated = saturated_ticks3d(trace, device, trace.n, scenario.control_steps, scenario)
     if outcome in ("diverged", "strategy_failed") and k < scenario.n_steps:
         for i in range(1, device.n_wheels + 1):
             getattr(trace, f"w{i}_voltage")[k] = 0.0

@@ -102,6 +102,8 @@ class Strategy:
        current at the starting supply). Only a class with `commands_current = True` may run there;
        it reads `self.device.drive_mode` ("voltage" or "current") and answers in the unit that
        says. `needs_current_mode = True` marks a law that commands amps only (`fixed_current`).
+       On a 3D device the same holds per wheel: one current per wheel, each clamped to its own
+       wheel's limit.
     7. Registration. Built-ins are named in `sim.strategies.BUILTIN`; a plug-in is any subclass
        named in a scenario by "file.py:Class" or "package.module:Class", or registered under the
        entry-point group "wheelbench.strategies". A plug-in file must lie in the scenario file's

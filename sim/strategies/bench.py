@@ -44,11 +44,11 @@ class FixedVoltage(Strategy):
 
 
 class FixedCurrent(Strategy):
-    """A constant current in the winding (a step at t = 0), A: for a current-mode drive only."""
+    """A constant current in the winding (a step at t = 0), A: for a current-mode drive only; on a 3D
+    device in every wheel's."""
 
     kind = "fixed_current"
     goal = None
-    planar_only = True   # a current-mode drive: one-wheel hinge devices only (refused for 3D at load)
     commands_current = True
     needs_current_mode = True
 
@@ -59,5 +59,6 @@ class FixedCurrent(Strategy):
         super().__init__(**kw)
         self.phase = "fixed current"
 
-    def decide(self, reading: Reading) -> float:
-        return self.params.amps
+    def decide(self, reading: Reading):
+        n = getattr(self.device, "n_wheels", 1)
+        return self.params.amps if n == 1 else (self.params.amps,) * n

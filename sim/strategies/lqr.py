@@ -3,6 +3,7 @@ speed] (`LqrBalance`), or one to three wheels on any axes, hinge or ball mount (
 
 from __future__ import annotations
 
+import math
 from typing import Annotated
 
 import numpy as np
@@ -93,7 +94,9 @@ class MultiWheelLqr(LqrBalance):
     commands applied since (each clamped to its wheel's supply, and to the bus the reading reports
     when a pack has sagged below it, as the bridges do), folded into
     gains on the reading and on the held commands once at construction.
-    `decide` returns a list of volts in wheel order.
+    `decide` returns a list of volts in wheel order. With a current-mode drive (`spec.drive_mode`
+    "current") the design's inputs are one current per wheel (`sim.model.linear3d`: torque k_t i) and
+    `decide` returns amps, the held commands clamped to each wheel's current limit (as on one wheel).
     """
 
     def __init__(self, *, device, params, rng) -> None:
@@ -109,8 +112,11 @@ class MultiWheelLqr(LqrBalance):
         kinds = [state_kind(name) for name in self.design.state_names]
         self._n_angles, self._n_rates, self._n_wheels = kinds.count(0), kinds.count(1), kinds.count(2)
         self.supplies_v = np.array([w.supply_v for w in self.spec.wheels], dtype=float)
-        self._supplies = self.supplies_v.tolist()
-        self._lowest_supply_v = min(self._supplies)
+        current = getattr(self.spec, "drive_mode", "voltage") == "current"
+        # the held commands' clamps: each wheel's supply, V, or its current limit, A (no bus to follow)
+        self._supplies = ([w.command_limit("current") for w in self.spec.wheels] if current
+                          else self.supplies_v.tolist())
+        self._lowest_supply_v = -math.inf if current else min(self._supplies)
         # one matrix on one buffer [measured state, held commands oldest first], so that a tick is a
         # few numpy calls whatever the delay (the same law as K times the predicted state)
         self._G = np.hstack([G_x, *G_u])
@@ -121,7 +127,7 @@ class MultiWheelLqr(LqrBalance):
         self.phase = "balance"
 
     def held_commands(self) -> np.ndarray:
-        """The commands the delay predictor holds, oldest first, as applied (clamped), V (rows: ticks)."""
+        """The commands the delay predictor holds, oldest first, as applied (clamped), V or A (rows: ticks)."""
         return np.array(self._held, dtype=float).reshape(-1, self._n_u)
 
     def _measured(self, reading: Reading) -> list:

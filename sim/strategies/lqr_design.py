@@ -78,7 +78,9 @@ def bryson_limits(spec, model) -> tuple[np.ndarray, np.ndarray]:
     """Largest acceptable excursion per state and per input of a multi-wheel design.
 
     The same rule as `bryson_weights`, per state: angles and tilts 3 deg, body rates 0.5 rad/s,
-    each wheel's speed half its own no-load speed; each wheel's voltage its own supply.
+    each wheel's speed half its own no-load speed; each wheel's voltage its own supply, or with a
+    current-mode drive (`spec.drive_mode`) each wheel's current its drive's limit (`command_limit`:
+    the current limit, or the stall current at the supply when that is lower).
     """
     wheels = spec.wheels
     x_max = []
@@ -89,7 +91,8 @@ def bryson_limits(spec, model) -> tuple[np.ndarray, np.ndarray]:
             x_max.append(WHEEL_SPEED_SHARE * wheels[index].supply_v / wheels[index].k_e_v_s_rad)
         else:
             x_max.append(ANGLE_LIMIT_RAD if kind == 0 else RATE_LIMIT_RAD_S)
-    return np.array(x_max), np.array([w.supply_v for w in wheels], dtype=float)
+    mode = getattr(spec, "drive_mode", "voltage")
+    return np.array(x_max), np.array([w.command_limit(mode) for w in wheels], dtype=float)
 
 
 def spec_weights(spec, model, *, weights=None, effort=None) -> tuple[np.ndarray, np.ndarray]:
@@ -97,7 +100,8 @@ def spec_weights(spec, model, *, weights=None, effort=None) -> tuple[np.ndarray,
 
     `weights`: None (Bryson's rule, `bryson_limits`), three numbers (one per kind of state: every
     angle or tilt, every body rate, every wheel speed; the one-wheel law's three weights mean the
-    same), or one number per state. `effort`: None (Bryson) or one number for every wheel's voltage.
+    same), or one number per state. `effort`: None (Bryson) or one number for every wheel's voltage,
+    1/V^2 (or current, 1/A^2, with a current-mode drive).
     """
     x_max, u_max = bryson_limits(spec, model)
     if weights is None:
@@ -143,8 +147,8 @@ def design_lqr_spec(spec, *, weights=None, effort=None) -> LqrDesign:
     """Continuous and discrete LQR gains of a multi-wheel device at its control rate.
 
     `spec`: anything with `linear_model()` (a `sim.model.linear3d.LinearModel`: A, B, state and
-    input names), `wheels` (each with `supply_v` and `k_e_v_s_rad`) and `control_rate_hz`, such as
-    a `LinearSpec`. Weights: `spec_weights`. K is (inputs x states); law volts = -K x.
+    input names), `wheels` (each a `WheelUnit`) and `control_rate_hz`, such as a `LinearSpec`.
+    Weights: `spec_weights`. K is (inputs x states); law volts = -K x (amps with `drive_mode` "current").
     Solved once per distinct input, like `design_lqr`.
     """
     model = spec.linear_model()

@@ -26,6 +26,10 @@ SIGN_CONVENTION = ("volts = -K x, one row per wheel; tilt_x, tilt_y: rotations a
                    "(right-hand rule); angle: about the hinge (body x); rates: the body's angular velocity in the "
                    "world frame; wheel speeds relative to the body about each wheel's axis; positive voltage "
                    "accelerates a wheel positively and turns the body the other way")
+# a current-mode (torque-mode) drive: the law answers in amps, the gains in A per state unit
+SIGN_CONVENTION_CURRENT = (SIGN_CONVENTION.replace("volts = -K x", "amps = -K x (one current per wheel, for a "
+                                                   "torque-mode driver's current loop)")
+                           .replace("positive voltage", "positive current"))
 
 
 def named(matrix, rows, columns) -> dict:
@@ -54,6 +58,8 @@ def multi_gains_report(spec: LinearSpec, *, source: str, weights=None, effort=No
                          f"|z| = {radius:.6g}); check world.gravity and strategy weights/effort")
     states, inputs = des.state_names, des.input_names
     units = [("rad" if state_kind(s) == 0 else "rad/s") for s in states]
+    current = getattr(spec, "drive_mode", "voltage") == "current"
+    u = "A" if current else "V"
     x_max, u_max = bryson_limits(spec, spec.linear_model())
     G_x, G_u = pred.folded_gains(des.K_discrete)
     held = [f"u[k-{pred.n + 1 - i}]" for i in range(len(G_u))]
@@ -63,14 +69,16 @@ def multi_gains_report(spec: LinearSpec, *, source: str, weights=None, effort=No
         "mount": "floor" if getattr(spec, "floor", None) is not None else spec.mount,
         # a body on the floor is designed as on a hinge at its balance edge or a ball at its corner
         **({"design_mount": spec.mount} if getattr(spec, "floor", None) is not None else {}),
-        "state": [{"name": s, "unit": u} for s, u in zip(states, units)],
-        "input": [{"name": name, "unit": "V", "limit_v": w.supply_v} for name, w in zip(inputs, spec.wheels)],
-        "sign_convention": SIGN_CONVENTION,
+        **({"drive_mode": "current"} if current else {}),
+        "state": [{"name": s, "unit": unit} for s, unit in zip(states, units)],
+        "input": ([{"name": name, "unit": "A", "limit_a": lim} for name, lim in zip(inputs, u_max.tolist())] if current
+                  else [{"name": name, "unit": "V", "limit_v": w.supply_v} for name, w in zip(inputs, spec.wheels)]),
+        "sign_convention": SIGN_CONVENTION_CURRENT if current else SIGN_CONVENTION,
         "upright_rotation": named(upright_rotation(spec), ("world_x", "world_y", "world_z"),
                                   ("body_x", "body_y", "body_z")),
         "discrete": named(des.K_discrete, inputs, states),
         "continuous": named(des.K_continuous, inputs, states),
-        "gain_units": ["V/rad" if u == "rad" else "V s/rad" for u in units],
+        "gain_units": [f"{u}/rad" if unit == "rad" else f"{u} s/rad" for unit in units],
         "rate_hz": spec.control_rate_hz,
         "period_s": des.period_s,
         "closed_loop_poles": {"continuous_rad_s": _complex_list(des.poles_continuous),
@@ -84,20 +92,22 @@ def multi_gains_report(spec: LinearSpec, *, source: str, weights=None, effort=No
                     "source": ("Bryson's rule" if weights is None and effort is None
                                else "scenario (strategy.weights / strategy.effort)"),
                     "bryson_limits": {**dict(zip(states, x_max.tolist())), **dict(zip(inputs, u_max.tolist()))},
+                    **({"effort_unit": "1/A^2"} if current else {}),
                     "bryson_rule": (f"angles {math.degrees(ANGLE_LIMIT_RAD):g} deg, body rates {RATE_LIMIT_RAD_S:g} "
                                     f"rad/s, wheel speeds {WHEEL_SPEED_SHARE:g} of each no-load speed, each "
-                                    "wheel's supply")},
+                                    + ("wheel's current limit (or stall current)" if current else "wheel's supply"))},
         "delay": {
             "delay_s": spec.delay_s, "whole_periods": pred.n if pred.active else 0,
             "fraction_s": spec.delay_s - pred.n * des.period_s if pred.active else 0.0,
             "handling": ("the gains act on the present state predicted from the delayed measurement and the "
-                         "commands applied since (clamped to each supply); equivalent to LQR on the "
+                         f"commands applied since (clamped to each {'current limit' if current else 'supply'}); "
+                         "equivalent to LQR on the "
                          "delay-augmented state" if pred.active else "none needed: the gains act on the measured state"),
         },
         "folded": {"on_reading": named(G_x, inputs, states),
                    "on_held_commands": [named(G, inputs, inputs) | {"command": h} for G, h in zip(G_u, held)],
-                   "meaning": ("volts = -(on_reading x_measured + sum over the held commands, oldest first, of "
-                               "on_held_commands u), the commands as applied (clamped)")},
+                   "meaning": (f"{'amps' if current else 'volts'} = -(on_reading x_measured + sum over the held "
+                               "commands, oldest first, of on_held_commands u), the commands as applied (clamped)")},
         "model": {"A": named(des.A, states, states), "B": named(des.B, states, inputs),
                   "Ad": named(des.Ad, states, states), "Bd": named(des.Bd, states, inputs)},
         "caution": CAUTION,
@@ -126,7 +136,7 @@ def to_text(report: dict) -> str:
     width = max(12, *(len(c) for c in K["columns"]))
     lines = [f"balance law: lqr, {len(K['rows'])} wheels, {_mount_text(report)}, at {report['rate_hz']:g} Hz "
              f"({report['scenario']})", f"sign convention: {report['sign_convention']}",
-             "discrete gains K (volts = -K x):",
+             f"discrete gains K ({_quantity(report)} = -K x):",
              " " * 16 + "".join(f"{c:>{width + 1}s}" for c in K["columns"]),
              " " * 16 + "".join(f"{'[' + u + ']':>{width + 1}s}" for u in report["gain_units"])]
     for name, row in zip(K["rows"], K["values"]):
@@ -144,10 +154,18 @@ def _c_matrix(values, fmt) -> str:
     return "{" + ", ".join("{" + ", ".join(fmt(v) for v in row) + "}" for row in values) + "}"
 
 
+def _quantity(report: dict) -> str:
+    """What the law answers in: "amps" for a current-mode drive, else "volts"."""
+    return "amps" if report.get("drive_mode") == "current" else "volts"
+
+
 def to_c_header(report: dict) -> str:
     """A C header: the named gain matrices and `wb_balance_volts`, the law exactly as the simulator
     runs it (discrete gains with the delay predictor folded in, each command clamped to its wheel's
-    supply), in double precision unless WB_REAL is defined as float before including it."""
+    supply), in double precision unless WB_REAL is defined as float before including it. For a
+    current-mode drive the function is `wb_balance_amps` and the clamp `WB_CURRENT_LIMIT_A`."""
+    q = _quantity(report)
+    limit, limit_key = ("WB_CURRENT_LIMIT_A", "limit_a") if q == "amps" else ("WB_SUPPLY_V", "limit_v")
     K = report["discrete"]
     states, wheels = K["columns"], K["rows"]
     n, m = len(states), len(wheels)
@@ -177,7 +195,7 @@ def to_c_header(report: dict) -> str:
         "#ifndef WB_REAL",
         "#define WB_REAL double   /* arithmetic of the reference function; define as float before including */",
         "#endif",
-        f"static const WB_REAL WB_SUPPLY_V[WB_N_WHEELS] = {{{', '.join(_c_double(i['limit_v']) for i in report['input'])}}};",
+        f"static const WB_REAL {limit}[WB_N_WHEELS] = {{{', '.join(_c_double(i[limit_key]) for i in report['input'])}}};",
         f"#define WB_HELD_COMMANDS {h}   /* commands the delay predictor remembers (0: no delay) */",
         "/* the law with the predictor folded in: gains on the reading, and on each held command, oldest first */",
         "static const WB_REAL WB_GAIN_ON_READING[WB_N_WHEELS][WB_N_STATES] = "
@@ -195,8 +213,9 @@ def to_c_header(report: dict) -> str:
          if h else "    s->unused = 0;"),
         "}",
         "",
-        "/* one control tick: the measured state x (order and units above) in, each wheel's voltage out (clamped) */",
-        "static inline void wb_balance_volts(wb_balance_state_t *s, const WB_REAL x[WB_N_STATES], WB_REAL volts[WB_N_WHEELS]) {",
+        f"/* one control tick: the measured state x (order and units above) in, each wheel's "
+        f"{'current' if q == 'amps' else 'voltage'} out (clamped) */",
+        f"static inline void wb_balance_{q}(wb_balance_state_t *s, const WB_REAL x[WB_N_STATES], WB_REAL {q}[WB_N_WHEELS]) {{",
         "    for (int j = 0; j < WB_N_WHEELS; ++j) {",
         "        WB_REAL v = 0;",
         "        for (int i = 0; i < WB_N_STATES; ++i) v -= WB_GAIN_ON_READING[j][i] * x[i];",
@@ -205,15 +224,15 @@ def to_c_header(report: dict) -> str:
         lines.append("        for (int k = 0; k < WB_HELD_COMMANDS; ++k) for (int i = 0; i < WB_N_WHEELS; ++i) "
                      "v -= WB_GAIN_ON_HELD[k][j][i] * s->held[k][i];")
     lines += [
-        "        if (v > WB_SUPPLY_V[j]) v = WB_SUPPLY_V[j];",
-        "        else if (v < -WB_SUPPLY_V[j]) v = -WB_SUPPLY_V[j];",
-        "        volts[j] = v;",
+        f"        if (v > {limit}[j]) v = {limit}[j];",
+        f"        else if (v < -{limit}[j]) v = -{limit}[j];",
+        f"        {q}[j] = v;",
         "    }",
     ]
     if h:
         lines += ["    for (int k = 0; k + 1 < WB_HELD_COMMANDS; ++k) for (int j = 0; j < WB_N_WHEELS; ++j) "
                   "s->held[k][j] = s->held[k + 1][j];",
-                  "    for (int j = 0; j < WB_N_WHEELS; ++j) s->held[WB_HELD_COMMANDS - 1][j] = volts[j];"]
+                  f"    for (int j = 0; j < WB_N_WHEELS; ++j) s->held[WB_HELD_COMMANDS - 1][j] = {q}[j];"]
     else:
         lines.append("    (void)s;")
     lines += ["}", "", "#endif /* WHEELBENCH_GAINS_H */"]

@@ -52,7 +52,8 @@ def braking_raw(raw: dict, sc) -> dict:
 def braking_raw3d(raw: dict, sc) -> dict:
     """The raw scenario of a 3D device's braking trial: every wheel at the fastest speed the wheel-speed
     margin allows (its own no-load speed times 1 - margin), all braked at once into the shared bus at
-    half their back-EMF (the same volts for every wheel: (1 - margin) supply / 2), the body locked upright
+    half their back-EMF (the same volts for every wheel: (1 - margin) supply / 2; a current-mode drive:
+    each wheel's full reverse current, as on one wheel), the body locked upright
     (`body.locked`: the clamp takes the wheels' reaction, so each wheel's spin energy goes back to the bus
     alone, as on a bench). A body on the floor is not clamped: it rests as the scenario starts it, free,
     and takes up part of the wheels' momentum."""
@@ -68,7 +69,10 @@ def braking_raw3d(raw: dict, sc) -> dict:
         start |= {"tilt": [0.0, 0.0]} if sc.design_mount == "ball" else {"angle": 0.0, "rate": 0.0}
         out.setdefault("body", {})["locked"] = True
     out["trial"] = {"duration": BRAKING_S, "start": start, "seed": sc.trial.seed}
-    out["strategy"] = {"kind": "fixed_voltage", "volts": 0.5 * share * sc.drive.supply}
+    if sc.drive.mode == "current":   # each wheel's full reverse current (the runner clamps to each wheel's limit)
+        out["strategy"] = {"kind": "fixed_current", "amps": -max(w.command_limit("current") for w in dev.wheels)}
+    else:
+        out["strategy"] = {"kind": "fixed_voltage", "volts": 0.5 * share * sc.drive.supply}
     return out
 
 

@@ -20,8 +20,9 @@ mean error is -q/2 for q = 2 pi / counts (`sim.physics.sensors` floors to whole 
 error on [-q, 0) for a body that moves at all; common practice, no source). A bearing's Coulomb
 torque T_c opposes the wheel's motion at a steady speed; since B's wheel column is the wheel-row
 torque per volt (k_t / R, the body row taking none: an internal torque), it is a voltage offset
-of -T_c sign(w) R / k_t on that wheel, with the sign of the wheel's steady speed found first
-without it.
+of -T_c sign(w) R / k_t on that wheel (with a current-mode drive a current offset of
+-T_c sign(w) / k_t, B's column being k_t per amp), with the sign of the wheel's steady speed found
+first without it.
 
 Steady state: (I - A_cl) x = f, with the conserved combinations C x = 0 (`lqr_design.
 conserved_directions`: the loop cannot move them, and a hold starts from rest), solved by least
@@ -121,8 +122,10 @@ def predict_bias_response3d(sc, device, *, angle_bias_rad, hold_s: float, horizo
     C = design.conserved if design.conserved is not None else np.zeros((0, len(d)))
     x_ss = _steady(A_cl, f, C)
     wheel_rows = [i for i, n in enumerate(design.state_names) if n.endswith("_speed")]
-    # a bearing's Coulomb torque: a voltage offset against the wheel's steady motion (module docstring)
-    friction = np.array([-w.coulomb_n_m * np.sign(x_ss[r]) * w.resistance_ohm / w.k_t_n_m_a
+    # a bearing's Coulomb torque: a voltage offset against the wheel's steady motion (module docstring),
+    # or with a current-mode drive a current offset, -T_c sign(w) / k_t
+    current = getattr(device, "drive_mode", "voltage") == "current"
+    friction = np.array([-w.coulomb_n_m * np.sign(x_ss[r]) * (1.0 if current else w.resistance_ohm) / w.k_t_n_m_a
                          for w, r in zip(device.wheels, wheel_rows)])
     if np.any(friction):
         f = f + design.Bd @ friction
@@ -140,7 +143,8 @@ def predict_bias_response3d(sc, device, *, angle_bias_rad, hold_s: float, horizo
         offsets={n: float(v) for n, v in zip(design.state_names, d) if v},
         steady_tilt_rad=angles, slowest_time_constant_s=-T / math.log(slowest) if slowest > 0 else 0.0,
         wheels=wheels, horizon_s=horizon_s, basis="final value of the discrete multi-wheel LQR loop on the linear model"
-                             + (", bearing Coulomb torque as a voltage offset" if np.any(friction) else ""))
+                             + ((", bearing Coulomb torque as a current offset" if current else
+                                 ", bearing Coulomb torque as a voltage offset") if np.any(friction) else ""))
 
 
 def _steady(A_cl: np.ndarray, f: np.ndarray, C: np.ndarray) -> np.ndarray:
