@@ -167,7 +167,9 @@ def validate(scenario: Path = typer.Argument(..., help="Scenario YAML file."),
         from .model.device3d import Device3D
         from .model.device_figures3d import figures3d_text, jump_rest_tilt
         device = Device3D.from_scenario(sc)
-        lines = figures3d_text(device, sc.strategy, rest_tilt_rad=jump_rest_tilt(sc, device))
+        lines = figures3d_text(device, sc.strategy, rest_tilt_rad=jump_rest_tilt(sc, device)) + power_text(sc)
+        if device.locked:
+            lines.append("body locked at its start attitude (a bench rig: the clamp takes the wheels' reaction)")
     typer.echo(f"{scenario}: valid.")
     for line in lines:
         typer.echo(f"  {line}")

@@ -50,3 +50,18 @@ def test_validate_prints_a_3d_devices_figures(capsys):
     assert main(["validate", str(demo)]) == 0
     out = capsys.readouterr().out
     assert "valid." in out and "wheel 3: axis" in out and "largest tilt the wheels can hold" in out
+
+
+def test_validate_prints_a_3d_devices_supply_drive_and_lock(capsys):
+    # The power chain's set-up and a locked body are told for a 3D device as for one wheel (the
+    # pack's figures are the scenario's own; no outside reference applies to the wording).
+    from pathlib import Path
+    demo = Path(__file__).resolve().parents[1] / "scenarios" / "cube_torque.yaml"
+    assert main(["validate", str(demo), "--set", "body.locked=true"]) == 0
+    out = capsys.readouterr().out
+    assert "supply: 3-cell lipo pack at 60% charge" in out
+    assert "drive: current mode, current loop 1000 Hz" in out
+    assert "body locked at its start attitude" in out
+    assert main(["validate", str(demo.parent / "cube_corner.yaml")]) == 0
+    out = capsys.readouterr().out
+    assert "supply:" not in out and "drive:" not in out and "locked" not in out   # the ideal source, free

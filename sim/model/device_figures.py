@@ -80,9 +80,14 @@ def power_text(sc) -> list[str]:
         parts.append(f"reversal {d.reversal_delay * 1e3:.3g} ms")
     if d.trip is not None:
         parts.append(f"trip above {d.trip.current:.3g} A for {d.trip.time * 1e3:.3g} ms")
-    if sc.motor.curve is not None:
-        parts.append(f"motor curve at {sc.motor.curve.voltage:.3g} V")
-    if sc.motor.thermal.coupled:
+    # the shared motor, or on a 3D device each wheel's own (`wheels[i].motor`)
+    motors = [("motor", sc.motor)] if sc.motor is not None else []
+    motors += [(f"wheel {i} motor", w.motor) for i, w in enumerate(getattr(sc, "wheels", None) or [], start=1)
+               if getattr(w, "motor", None) is not None]
+    for name, motor in motors:
+        if motor.curve is not None:
+            parts.append(f"{name} curve at {motor.curve.voltage:.3g} V")
+    if any(motor.thermal.coupled for _, motor in motors):
         parts.append("winding heat coupled")
     lines.append("drive: " + "; ".join(parts))
     return lines
