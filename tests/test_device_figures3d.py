@@ -64,4 +64,4 @@ def test_validate_prints_a_3d_devices_supply_drive_and_lock(capsys):
     assert "body locked at its start attitude" in out
     assert main(["validate", str(demo.parent / "cube_corner.yaml")]) == 0
     out = capsys.readouterr().out
-    assert "supply:" not in out and "drive:" not in out and "locked" not in out   # the ideal source, free
+    assert "supply:" not in out and "drive:" not in out and "body locked" not in out   # the ideal source, free
