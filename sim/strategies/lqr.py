@@ -4,6 +4,7 @@ speed] (`LqrBalance`), or one to three wheels on any axes, hinge or ball mount (
 from __future__ import annotations
 
 import math
+import struct
 from typing import Annotated
 
 import numpy as np
@@ -122,6 +123,10 @@ class MultiWheelLqr(LqrBalance):
         self._G = np.hstack([G_x, *G_u])
         self._minus_G = -self._G    # u = -G z as one product: negation is exact, so the same floats
         self._z = np.zeros(self._G.shape[1])
+        # each tick's [measured state, held commands] written into z's memory in one C call (the same
+        # doubles numpy's slice assignment stores, in half its instructions)
+        self._fill_z = struct.Struct(f"{self._G.shape[1]}d").pack_into
+        self._z_bytes = memoryview(self._z).cast("B")
         self._n_x, self._n_u = G_x.shape[1], len(self.supplies_v)
         self._held = [0.0] * (self._G.shape[1] - self._n_x)   # V, oldest tick first, plain floats
         self.phase = "balance"
@@ -147,9 +152,8 @@ class MultiWheelLqr(LqrBalance):
 
     def decide(self, reading: Reading) -> list[float]:
         held = self._held
-        z = self._z
-        z[:] = self._measured(reading) + held     # one assignment: [measured state, held commands]
-        v = self._minus_G.dot(z).tolist()
+        self._fill_z(self._z_bytes, 0, *self._measured(reading), *held)   # [measured state, held commands]
+        v = self._minus_G.dot(self._z).tolist()
         if held:            # a delay: drop the oldest held commands, append this tick's as the drive applies them
             del held[:self._n_u]
             caps, bus = self._supplies, reading.supply_v
