@@ -141,6 +141,29 @@ def test_a_current_step_rises_with_the_loops_time_constant_on_every_wheel():
                         rtol=1e-2)   # w is the speed at the step's start, the bridge's the step's mean
 
 
+def test_a_current_step_on_a_locked_body_spins_each_wheel_by_newtons_law():
+    # The bench set-up: body clamped (body.locked), fixed_current on every wheel. Each wheel's
+    # recorded current is the loop's first-order step mean as above, and with the body held its speed
+    # is k_t times the current's integral over its spin inertia alone (Newton's second law for
+    # rotation, any dynamics text; the engine holds each step's torque, so the sum is exact)
+    f_bw, dt, amps = 200.0, 1e-4, 2.0
+    raw = current_ball(world={"step": dt}, sensors={"rate": 1000.0}, strategy={"kind": "fixed_current", "amps": amps},
+                       drive={"supply": 12.0, "mode": "current", "current_bandwidth": f_bw},
+                       trial={"duration": 0.05, "start": {"tilt": [0.0, 0.0]}})
+    raw["body"]["locked"] = True
+    res = run_trial(validate_scenario(raw, where="<test>"))
+    tau = 1.0 / (2.0 * math.pi * f_bw)
+    k = np.arange(res.trace.n)
+    step_mean = amps * (1.0 - tau / dt * (np.exp(-k * dt / tau) - np.exp(-(k + 1) * dt / tau)))
+    assert np.ptp(res.trace.view("tilt")) == 0.0 and not np.any(res.trace.view("rate_x"))
+    for i in range(1, 4):
+        cur = res.trace.wheel(i, "current")
+        assert_allclose(cur, step_mean, rtol=1e-9)
+        dev = res.device.wheels[i - 1]
+        spun = np.concatenate([[0.0], np.cumsum(dev.k_t_n_m_a * cur[:-1]) * dt / dev.spin_inertia_kg_m2])
+        assert_allclose(res.trace.wheel(i, "speed"), spun, rtol=1e-9, atol=1e-12)
+
+
 def test_each_wheel_is_clamped_to_its_own_current_limit():
     # wheel 2 has its own motor with a 3 A limit; 10 A asked of every wheel gives 6, 3 and 6 A once the
     # loops have settled (the runner's clamp per wheel, as PowerChain.command_limit on one wheel)
