@@ -591,7 +591,7 @@ def test_a_firmware_reading_the_arrays_runs_the_same_trial_as_one_reading_the_sc
 
 def test_header_appends_the_per_wheel_arrays_after_the_one_wheel_fields():
     # the one-wheel fields keep their places: code and checks written against them still fit; what
-    # came later (the wheels' arrays, then the IMU's LSBs, then the 3D attitude) is appended, in that order
+    # came later (the wheels' arrays, then the IMU's LSBs, then the 3D attitude, then the bus) is appended, in that order
     import cffi
     ffi = cffi.FFI()
     ffi.cdef(fw_build.contract_cdef())
@@ -599,7 +599,7 @@ def test_header_appends_the_per_wheel_arrays_after_the_one_wheel_fields():
         "wb_config_t": (["period_us", "supply_v", "angle_counts_per_rev", "wheel_counts_per_rev", "pwm_max"],
                         ["n_wheels", "wheels_counts_per_rev", "gyro_rad_s_per_lsb", "accel_m_s2_per_lsb", "mount"]),
         "wb_input_t": (["t_us", "angle_rad", "rate_rad_s", "wheel_speed_rad_s", "angle_counts", "wheel_counts",
-                        "gyro_raw", "accel_raw"], ["wheels_speed_rad_s", "wheels_counts", "tilt_rad", "rates_rad_s"]),
+                        "gyro_raw", "accel_raw"], ["wheels_speed_rad_s", "wheels_counts", "tilt_rad", "rates_rad_s", "bus_v"]),
         "wb_output_t": (["volts", "duty", "brake", "phase"], ["wheels_volts", "wheels_duty", "wheels_brake"]),
     }
     for struct, (first, appended) in expected.items():

@@ -60,7 +60,7 @@ def test_header_appends_the_attitude_and_the_mount_last():
     ffi.cdef(fw_build.contract_cdef())
     assert [n for n, _ in ffi.typeof("wb_config_t").fields][-1] == "mount"
     fields = dict(ffi.typeof("wb_input_t").fields)
-    assert [n for n, _ in ffi.typeof("wb_input_t").fields][-2:] == ["tilt_rad", "rates_rad_s"]
+    assert [n for n, _ in ffi.typeof("wb_input_t").fields][-3:] == ["tilt_rad", "rates_rad_s", "bus_v"]   # the bus came after
     assert (fields["tilt_rad"].type.length, fields["rates_rad_s"].type.length) == (2, 3)
     text = fw_build.contract_cdef()
     assert "#define WB_MOUNT_HINGE 0" in text and "#define WB_MOUNT_BALL 1" in text

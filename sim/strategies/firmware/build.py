@@ -39,7 +39,7 @@ from pathlib import Path
 
 HEADER = Path(__file__).with_name("wheelbench.h")
 CACHE_ENV = "WHEELBENCH_FIRMWARE_CACHE"
-BUILD_RECIPE = "8"   # bump when the generated wrapper below changes: old builds are then not reused
+BUILD_RECIPE = "9"   # bump when the generated wrapper below changes: old builds are then not reused
 ERROR_LINES = 2
 
 # The wrapper cffi compiles around the firmware: one call per tick with the readings (cheaper
@@ -100,6 +100,7 @@ static void wbx_init(wb_config_t *cfg, double period_s, double supply_v) {
     wbx_angle_res = cfg->angle_counts_per_rev ? 6.283185307179586 / cfg->angle_counts_per_rev : 0.0;
     wbx_wheel_res = cfg->wheel_counts_per_rev ? 6.283185307179586 / cfg->wheel_counts_per_rev : 0.0;
     wbx_tick_n = 0;
+    wbx_in.bus_v = (float)supply_v;
     wb_init(cfg);
     fflush(stdout);
 }
@@ -111,6 +112,7 @@ static int16_t wbx_raw(double value, double lsb) {
     return (int16_t)(c > 32767.0 ? 32767.0 : (c < -32768.0 ? -32768.0 : c));
 }
 static int wbx_form_seen(void);
+void wbx_bus(double bus_v) { wbx_in.bus_v = (float)bus_v; }
 void wbx_imu(double gx, double gy, double gz, double ax, double ay, double az) {
     double g[3] = {gx, gy, gz}, a[3] = {ax, ay, az};
     int i;
@@ -201,6 +203,7 @@ void wbx_init(wb_config_t *cfg, double period_s, double supply_v);
 double wbx_tick(double angle_rad, double rate_rad_s, double wheel_speed_rad_s, wb_output_t *out);
 int wbx_form_seen(void);
 void wbx_imu(double gx, double gy, double gz, double ax, double ay, double az);
+void wbx_bus(double bus_v);
 int wbx_tick_wheels(const double *x, wb_output_t *out, double *volts);
 """
 

@@ -160,6 +160,8 @@ class FirmwareStrategy(Strategy):
         # pwm_max * the nominal supply) by the bus over the nominal supply (a battery's sag)
         self.commands_duty = self.pwm_max > 0
         self._imu = lib.wbx_imu if gyro_lsb > 0 else None
+        # the bus as the tick's reading gives it (wb_input_t.bus_v), passed on when it changes
+        self._bus, self._bus_v = lib.wbx_bus, d.supply_v
         self._out = ffi.new("wb_output_t *")
         self._tick, self._module = lib.wbx_tick, module   # the module keeps the loaded copy alive
         self._form_seen = lib.wbx_form_seen
@@ -187,6 +189,11 @@ class FirmwareStrategy(Strategy):
         return ("the firmware wrote a duty but no volts, and without drive.pwm (pwm_max 0) the runner reads its "
                 "volts: set drive.pwm.resolution_bits, or write volts (wheels_volts)")
 
+    def _pass_bus(self, volts: float) -> None:
+        """wb_input_t.bus_v from the reading's supply, V (a runner that sets none leaves the nominal)."""
+        self._bus_v = volts
+        self._bus(volts if math.isfinite(volts) else self.device.supply_v)
+
     def _redirect_printf(self) -> None:
         """In the isolation child only, send file descriptor 1 (C's stdout) to the log or nowhere, and
         turn Python's fault handler off; in the parent's own process (rendering) both are left alone."""
@@ -201,6 +208,8 @@ class FirmwareStrategy(Strategy):
 
     def decide(self, reading: Reading) -> float:
         out = self._out
+        if reading.supply_v != self._bus_v:
+            self._pass_bus(reading.supply_v)
         if self._imu is not None:
             self._imu(*reading.imu_gyro_rad_s, *reading.imu_accel_m_s2)
         volts = self._tick(reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s, out)
@@ -217,6 +226,8 @@ class FirmwareStrategy(Strategy):
         if pads is None:
             pads = self._pads = ((0.0,) * (2 - len(angles)), (0.0,) * (3 - len(rates)))
         self._x[0:5 + self._n] = angles + pads[0] + rates + pads[1] + reading.wheel_speeds_rad_s
+        if reading.supply_v != self._bus_v:
+            self._pass_bus(reading.supply_v)
         if self._imu is not None:
             self._imu(*reading.imu_gyro_rad_s, *reading.imu_accel_m_s2)
         brakes = self._tick_wheels(self._x, self._out, self._v)

@@ -73,6 +73,12 @@
  * devices as on one wheel (the IMU of sensors.imu, in its own axes). The one-wheel fields mirror the first
  * entries: angle_rad == tilt_rad[0], rate_rad_s == rates_rad_s[0], and angle_counts counts
  * tilt_rad[0]. Attitude and rates are given on one-wheel hinge devices too.
+ *
+ * The supply, appended last: wb_input_t.bus_v is the drive's supply voltage at the tick, V, as a
+ * controller measuring its bus would read it: through the power chain (battery or drive keys) the
+ * bus as it stands (a pack sags under load and rises with regeneration), else the nominal
+ * drive.supply. Firmware writing duties can scale them by supply_v / bus_v to give the volts it
+ * means on a sagging pack (a duty is a share of the bus as it is).
  */
 #ifndef WHEELBENCH_H
 #define WHEELBENCH_H
@@ -109,6 +115,8 @@ typedef struct {            /* given every tick: what the firmware would read */
     /* 3D devices: appended after the per-wheel fields */
     float tilt_rad[2];      /* tilt from upright about world x, y; [0] == angle_rad (a hinge: [1] == 0) */
     float rates_rad_s[3];   /* body rate about heading-frame x, y, z; [0] == rate_rad_s (a hinge: [1], [2] == 0) */
+    /* the supply: appended after the 3D fields */
+    float bus_v;            /* the drive's supply at the tick, as an ADC on the bus reads it (see above) */
 } wb_input_t;
 
 typedef struct {            /* filled by the firmware every tick */
