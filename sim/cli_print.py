@@ -114,6 +114,10 @@ def print_run(sc, m: dict, out: Path) -> None:
     console.print(Text(f"wrote {out}/metrics.json, trace.csv, summary.png"), soft_wrap=True)   # paths stay whole
 
 
+POWER_EVENT_WORDS = {"battery_cutoff": ("battery cut-off", "every bridge off"), "driver_tripped": ("driver tripped", ""),
+                     "bus_over_voltage": ("bus over-voltage", "every bridge off")}
+
+
 def _power_rows(m: dict) -> list[tuple[str, str]]:
     """The power chain's rows (only when it ran: its keys are in the metrics)."""
     if "min_supply_voltage_v" not in m:
@@ -123,6 +127,16 @@ def _power_rows(m: dict) -> list[tuple[str, str]]:
              + ("" if m["battery_state_of_charge_end"] is None else f" ({m['battery_state_of_charge_end']:.1%} left)"))]
     if m["driver_trips"]:
         rows.append(("driver trips", str(m["driver_trips"])))
+    events = m.get("power_events") or []
+    if events:      # told even when the body held (a locked bench body cannot fall when the drive stops)
+        shown = []
+        for e in events[:3]:
+            name, effect = POWER_EVENT_WORDS.get(e["cause"], (e["cause"], ""))
+            who = [f"wheel {e['wheel']}"] if e.get("wheel") is not None else []
+            shown.append(f"{name} at {e['at_s']:.3f} s" + (f" ({', '.join(who + ([effect] if effect else []))})"
+                                                           if who or effect else ""))
+        more = len(events) - len(shown)
+        rows.append(("power events", "; ".join(shown) + (f"; {more} more in metrics.json" if more else "")))
     if m["pwm_dead_band_fraction"] is not None:
         rows.append(("PWM dead band", f"{100 * m['pwm_dead_band_fraction']:.1f}% of steps"))
     if m.get("reversals") is not None:
