@@ -28,6 +28,7 @@ from numpy.testing import assert_allclose
 from conftest import write_scenario
 from sim.cli import main
 from sim.model.device3d import Device3D
+from sim.model.scenario_yaml import load_scenario
 from sim.model.linear3d import linearise
 from sim.model.scenario import validate_scenario
 from sim.run.metrics3d import trial_metrics3d
@@ -255,3 +256,15 @@ def test_check_in_current_mode_shows_the_power_criteria_and_brakes_with_amps(tmp
     assert crit["peak_bus_voltage_v"]["value"] > validate_scenario(raw, where="x").drive.supply
     assert crit["max_push_survived_n_m_s"]["value"] > 0.0
     assert code in (0, 1)
+
+
+def test_tune_names_the_effort_as_a_weight_on_the_current():
+    # In current mode the LQR's effort weighs amps (1/A^2), not volts: tune's explanation of the key
+    # says so (our wording; no outside reference applies)
+    from sim.studies.tune import default_space
+    sc = load_scenario(DEMO)
+    texts = {p.key: p.does for p in default_space(sc, Device3D.from_scenario(sc))}
+    assert "weight on the current" in texts["strategy.effort"]
+    voltage = load_scenario(DEMO, overrides=("drive.mode=voltage", "drive.current_bandwidth=null"))
+    texts = {p.key: p.does for p in default_space(voltage, Device3D.from_scenario(voltage))}
+    assert "weight on the voltage" in texts["strategy.effort"]

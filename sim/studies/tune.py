@@ -118,8 +118,9 @@ def _law_space(spec, device, prefix: tuple) -> list[Param]:
                      + (" (bleeds wheel speed: without it the wheel creeps to its limit under a sensor bias)"
                         if i == 2 else ""))
                for i, q in enumerate(q0)]
+        command = "current" if getattr(device, "drive_mode", "voltage") == "current" else "voltage"   # the law's input
         return out + [Param(f"{key}.effort", prefix + ("effort",), r0 / 30.0, r0 * 30.0, True, float(r0),
-                            "weight on the voltage: higher gives softer gains that saturate less")]
+                            f"weight on the {command}: higher gives softer gains that saturate less")]
     if spec.kind == "pid":
         kp0, ki0, kd0 = default_pd_gains(device)
         hold = device.gravity_torque_coeff_n_m * device.resistance_ohm / device.k_t_n_m_a
