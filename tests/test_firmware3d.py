@@ -157,12 +157,44 @@ def test_bundled_cube_gains_header_is_the_gains_commands_output(capsys):
     assert bundled == fresh, "regenerate scenarios/firmware/cube_gains.h with `wheelbench gains ... --format c`"
 
 
-def test_cube_scenario_is_the_corner_cube_but_for_its_strategy():
-    # the firmware example simulates the same device and trial as scenarios/cube_corner.yaml
-    cube, fw = (yaml.safe_load(p.read_text()) for p in (EXAMPLE_DIR.parent / "cube_corner.yaml", CUBE))
-    for raw in (cube, fw):
+def without_strategy(*paths: Path) -> list[dict]:
+    """Each scenario file's mapping without its name, description and strategy (a demo that differs
+    from another only in its law)."""
+    raws = [yaml.safe_load(p.read_text()) for p in paths]
+    for raw in raws:
         for key in ("name", "description", "strategy"):
             raw.pop(key)
+    return raws
+
+
+def twin_law_commands(path: Path, overrides: list[str], twin: str, *, supply_v: float | None = None):
+    """The firmware of scenario `path` and its Python twin (`twin`: a strategy override) fed the same
+    readings, tick by tick: those of the twin's trial with `overrides`. Returns (the readings at the
+    ticks, one row per state in the design's order; the twin law; (the firmware's commands, the
+    twin's), one row per tick, unclamped). `supply_v`: the readings' supply (default: none set)."""
+    fw = load_scenario(path, overrides=overrides)
+    lq = load_scenario(path, overrides=overrides + [twin])
+    trace = run_trial(lq).trace
+    rng = np.random.default_rng(0)
+    firmware, python = (sc.strategy.build(Device3D.from_scenario(sc), rng=rng) for sc in (fw, lq))
+    x_ticks = np.array([trace.m_tilt_x, trace.m_tilt_y, trace.m_rate_x, trace.m_rate_y, trace.m_rate_z,
+                        trace.m_w1, trace.m_w2, trace.m_w3])[:, :trace.n:fw.control_steps]
+
+    def commands(law) -> np.ndarray:
+        reading, out = Reading(), np.empty((x_ticks.shape[1], 3))
+        if supply_v is not None:
+            reading.supply_v = supply_v
+        for j, x in enumerate(x_ticks.T.tolist()):
+            reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = tuple(x[:2]), tuple(x[2:5]), tuple(x[5:])
+            out[j] = law.command_vector(reading, 3)
+        return out
+
+    return x_ticks, python, (commands(firmware), commands(python))
+
+
+def test_cube_scenario_is_the_corner_cube_but_for_its_strategy():
+    # the firmware example simulates the same device and trial as scenarios/cube_corner.yaml
+    cube, fw = without_strategy(EXAMPLE_DIR.parent / "cube_corner.yaml", CUBE)
     assert fw == cube
 
 
@@ -175,23 +207,9 @@ def test_cube_law_matches_python_lqr_tick_by_tick():
     # to a float): gamma_(m+3). The held commands carry earlier ticks' differences through the gains on
     # them (row sums rho < 1): the per-tick bound over 1 - rho (a geometric series).
     short = ["trial.duration=2 s", "trial.pushes=[{at: 1 s, impulse: [50 mN*m*s, 0, 0]}]"]
-    fw = load_scenario(CUBE, overrides=short)
-    lq = load_scenario(CUBE, overrides=short + [LQR_TWIN])
-    trace = run_trial(lq).trace
-    rng = np.random.default_rng(0)
-    firmware, python = (sc.strategy.build(Device3D.from_scenario(sc), rng=rng) for sc in (fw, lq))
-    # the readings, one row per state in the design's order, at the control ticks
-    x_ticks = np.array([trace.m_tilt_x, trace.m_tilt_y, trace.m_rate_x, trace.m_rate_y, trace.m_rate_z,
-                        trace.m_w1, trace.m_w2, trace.m_w3])[:, :trace.n:fw.control_steps]
-
-    def commands(law) -> np.ndarray:
-        """The law's volts at every tick, clamped to the supply as the drive does (sim/run/trial3d.py)."""
-        reading, out = Reading(), np.empty((x_ticks.shape[1], 3))
-        for j, x in enumerate(x_ticks.T.tolist()):
-            reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = tuple(x[:2]), tuple(x[2:5]), tuple(x[5:])
-            out[j] = law.command_vector(reading, 3)
-        return np.clip(out, -24.0, 24.0)
-
+    x_ticks, python, (fw_v, py_v) = twin_law_commands(CUBE, short, LQR_TWIN)
+    # the laws' volts clamped to the supply as the drive does (sim/run/trial3d.py)
+    fw_v, py_v = np.clip(fw_v, -24.0, 24.0), np.clip(py_v, -24.0, 24.0)
     g = np.abs(python._G)                                     # the Python law's gains on [reading, held commands]
     n_x = 8
     z_max = np.concatenate([np.abs(x_ticks).max(axis=1), np.full(g.shape[1] - n_x, 24.0)])
@@ -200,7 +218,7 @@ def test_cube_law_matches_python_lqr_tick_by_tick():
     assert rho < 1
     bound = (m * F32 / (1 - m * F32)) * (g @ z_max).max() / (1 - rho)
     assert bound < 0.01                                       # small enough for the check to mean something
-    diff = np.abs(commands(firmware) - commands(python)).max()
+    diff = np.abs(fw_v - py_v).max()
     assert diff <= bound, (diff, bound)
     assert diff > 0                                           # the firmware really ran in float32
 

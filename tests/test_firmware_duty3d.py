@@ -18,7 +18,7 @@ from sim.cli import main
 from sim.model.device3d import Device3D
 from sim.model.scenario_yaml import load_scenario
 from sim.run.trial import run_trial
-from sim.strategies.base import Reading
+from test_firmware3d import twin_law_commands, without_strategy
 
 pytestmark = pytest.mark.skipif(shutil.which("cc") is None and shutil.which("gcc") is None,
                                 reason="needs a C compiler (.ci/run installs one)")
@@ -133,10 +133,7 @@ def test_bundled_pack_gains_header_is_the_gains_commands_output(capsys):
 
 
 def test_demo_is_the_pack_cube_but_for_its_strategy_and_pwm_resolution():
-    pack, demo = (yaml.safe_load(p.read_text()) for p in (EXAMPLE_DIR.parent / "cube_pack.yaml", DEMO))
-    for raw in (pack, demo):
-        for key in ("name", "description", "strategy"):
-            raw.pop(key)
+    pack, demo = without_strategy(EXAMPLE_DIR.parent / "cube_pack.yaml", DEMO)
     assert (pack["drive"]["pwm"].pop("resolution_bits"), demo["drive"]["pwm"].pop("resolution_bits")) == (8, 10)
     assert demo == pack
 
@@ -156,24 +153,9 @@ def test_example_duties_match_python_lqr_within_the_pwm_quantisation_tick_by_tic
     #   sixteenth of a count (1/32), then to a whole count (1/2); Python's duty rounded once (1/2).
     # |applied_fw - applied_py| <= D + (1 + 1/32) s/1023 + max|v| 2^-17 / s.
     short = ["trial.duration=2 s", "trial.pushes=[{at: 1 s, impulse: [30 mN*m*s, 0, 0]}]"]
-    fw = load_scenario(DEMO, overrides=short)
-    lq = load_scenario(DEMO, overrides=short + [LQR_TWIN])
-    trace = run_trial(lq).trace
-    rng = np.random.default_rng(0)
-    firmware, python = (sc.strategy.build(Device3D.from_scenario(sc), rng=rng) for sc in (fw, lq))
-    s = float(lq.drive.supply)
-    x_ticks = np.array([trace.m_tilt_x, trace.m_tilt_y, trace.m_rate_x, trace.m_rate_y, trace.m_rate_z,
-                        trace.m_w1, trace.m_w2, trace.m_w3])[:, :trace.n:fw.control_steps]
-
-    def commands(law) -> np.ndarray:
-        reading, out = Reading(), np.empty((x_ticks.shape[1], 3))
-        reading.supply_v = s        # the bus at the supply: no sag for the Python law's clamps either
-        for j, x in enumerate(x_ticks.T.tolist()):
-            reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = tuple(x[:2]), tuple(x[2:5]), tuple(x[5:])
-            out[j] = law.command_vector(reading, 3)
-        return out
-
-    fw_v, py_v = commands(firmware), commands(python)
+    s = float(load_scenario(DEMO, overrides=short).drive.supply)
+    # the bus at the supply: no sag for the Python law's clamps either
+    x_ticks, python, (fw_v, py_v) = twin_law_commands(DEMO, short, LQR_TWIN, supply_v=s)
     quantised = np.round(np.clip(py_v, -s, s) / s * PWM_MAX) * s / PWM_MAX
     g = np.abs(python._G)
     n_x, n_held = 8, g.shape[1] - 8
