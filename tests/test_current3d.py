@@ -22,7 +22,6 @@ from pathlib import Path
 import control
 import numpy as np
 import pytest
-import yaml
 from numpy.testing import assert_allclose
 
 from conftest import write_scenario
@@ -37,6 +36,7 @@ from sim.strategies.base import Reading
 from sim.strategies.lqr import MultiWheelLqr
 from sim.strategies.lqr_design import bryson_limits, design_lqr_spec
 from test_check3d import ball_raw
+from test_drive3d import demo_raw
 from test_linear3d import corner_cube, kane_reference
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -214,11 +214,7 @@ def test_lqr_in_current_mode_balances_the_hinge_and_floor_demos(demo):
 # ----------------------------------------------------------------------------- CLI
 
 def _demo_raw(**trial) -> dict:
-    raw = yaml.safe_load(DEMO.read_text())
-    raw["trial"].update(trial)
-    end = float(str(raw["trial"]["duration"]).split()[0])
-    raw["trial"]["pushes"] = [p for p in raw["trial"].get("pushes", []) if float(str(p["at"]).split()[0]) < end]
-    return raw
+    return demo_raw(DEMO, **trial)
 
 
 def test_run_and_gains_on_the_demo(tmp_path, capsys):

@@ -8,7 +8,6 @@ Devices: conftest's planar test device (invented numbers) for the bus on its own
 
 from __future__ import annotations
 
-import copy
 import json
 import math
 from dataclasses import replace
@@ -35,8 +34,9 @@ DT = 1e-3
 PACK = {"cells": 3, "chemistry": "lipo", "capacity": "850 mA*h", "internal_resistance": 0.2, "state_of_charge": 0.6}
 
 
-def demo_raw(**trial) -> dict:
-    raw = yaml.safe_load(DEMO.read_text())
+def demo_raw(path: Path = DEMO, **trial) -> dict:
+    """A 3D demo's mapping (the pack cube's by default) with `trial` keys set, pushes past its end left out."""
+    raw = yaml.safe_load(path.read_text())
     raw["trial"].update(trial)
     end = float(str(raw["trial"]["duration"]).split()[0])
     raw["trial"]["pushes"] = [p for p in raw["trial"].get("pushes", []) if float(str(p["at"]).split()[0]) < end]
