@@ -13,6 +13,9 @@ Units and frames of the calls:
 - `read()` -> (tilt_x, tilt_y, heading, tilt_rad, body rate (wx, wy, wz) rad/s in the heading frame
   (the world frame turned about the vertical by the heading; the world frame at heading 0),
   wheel angles rad, wheel speeds rad/s relative to the body); see `io`.
+- `raw_io()` (a free ball mount) reads the ball joint's raw state instead, which `attitude_map`
+  (`sim.physics.joint_attitude`) turns into what `read()` gives, for a caller that needs it on some
+  steps only.
 - `advance(push_world, wheel_torques)`: each wheel's net torque about its axis, N m (the reaction acts
   on the body), and a push's torque on the body about the pivot, N m in the world frame, or None (a
   hinge takes its x component); the pivot's viscous friction is applied here; one physics step.
@@ -34,6 +37,7 @@ from ..model.device3d import Device3D
 from ..model.massprops3d import wheel_tensor
 from .ball_friction import BallFriction
 from .engine import MAX_JOINT_SPEED, give_back_client, take_client, import_pybullet
+from .joint_attitude import AttitudeMap, relative_attitude  # noqa: F401 - the floor engine imports it from here
 
 BODY = 0
 
@@ -95,6 +99,7 @@ class Engine3D(OneClient):
         # (inertial) axes P: q = P^T R P, w = P^T w_body, tau = P^T tau_body (seen on pybullet 3.2.7;
         # tests/test_trial3d.py's momentum and precession checks hold the conversion)
         self.principal_axes = quat_to_matrix(body_q)
+        self.attitude_map = AttitudeMap(self.principal_axes, dev.upright())    # a ball's raw state -> attitude, rates
         diags, quats = [body_diag], [body_q]
         for w in dev.wheels:
             d, q = principal(wheel_tensor(w.spin_inertia_kg_m2, w.transverse_inertia_kg_m2, w.axis))
@@ -173,68 +178,71 @@ class Engine3D(OneClient):
         """
         if self.held:
             return self._held_io()
+        if self.ball:
+            read, _, advance = self._ball_io()
+            return read, advance
         pb, cid, body, dev = self.pb, self.client, self.body_id, self.device
         states, torques, step = pb.getJointStates, pb.setJointMotorControlArray, pb.stepSimulation
         mode, wheels, bp = pb.TORQUE_CONTROL, self.wheel_joints, dev.pivot_viscous_n_m_s
-        atan2, fabs, pi, cos, sin = math.atan2, math.fabs, math.pi, math.cos, math.sin
-        n = len(wheels)
-        unused = (0.0,) * n
+        atan2, fabs, pi = math.atan2, math.fabs, math.pi
         r0 = dev.upright()
-        if not self.ball:
-            joints, unused_all = (BODY,) + wheels, (0.0,) * (n + 1)
-            a0 = atan2(r0[2][1], r0[2][2])
-            last = [0.0]
-
-            def read():
-                ss = states(body, joints, cid)
-                tx, thd = ss[0][0] - a0, ss[0][1]
-                last[0] = thd
-                wrapped = fabs(tx) if -pi < tx <= pi else fabs((tx + pi) % (2 * pi) - pi)
-                return (tx, 0.0, 0.0, wrapped, (thd, 0.0, 0.0), [s[0] for s in ss[1:]], [s[1] for s in ss[1:]])
-
-            def advance(push_world, wheel_torques):
-                pivot = -bp * last[0] + (push_world[0] if push_world is not None else 0.0)
-                torques(body, joints, mode, unused_all, unused_all, (pivot, *wheel_torques), unused_all, unused_all, cid)
-                step(cid)
-            return read, advance
-
-        multi, multi_torque, joints = pb.getJointStatesMultiDof, pb.setJointMotorControlMultiDof, (BODY,) + wheels
-        p = self.principal_axes
-        (p00, p01, p02), (p10, p11, p12), (p20, p21, p22) = p
-        cx, cy, cz, cw = matrix_to_quat(r0)
-        cx, cy, cz = -cx, -cy, -cz                          # conj(q0): relative to upright
-        state = [(0.0, 0.0, 0.0, 1.0), (0.0, 0.0, 0.0)]    # the last read: body quaternion, principal-axes rate
-        skip_pivot = bp == 0.0
-        friction = self.ball_friction
-        relative = relative_attitude
+        joints, unused_all = (BODY,) + wheels, (0.0,) * (len(wheels) + 1)
+        a0 = atan2(r0[2][1], r0[2][2])
+        last = [0.0]
 
         def read():
+            ss = states(body, joints, cid)
+            tx, thd = ss[0][0] - a0, ss[0][1]
+            last[0] = thd
+            wrapped = fabs(tx) if -pi < tx <= pi else fabs((tx + pi) % (2 * pi) - pi)
+            return (tx, 0.0, 0.0, wrapped, (thd, 0.0, 0.0), [s[0] for s in ss[1:]], [s[1] for s in ss[1:]])
+
+        def advance(push_world, wheel_torques):
+            pivot = -bp * last[0] + (push_world[0] if push_world is not None else 0.0)
+            torques(body, joints, mode, unused_all, unused_all, (pivot, *wheel_torques), unused_all, unused_all, cid)
+            step(cid)
+        return read, advance
+
+    def raw_io(self):
+        """(read_raw, advance) on a free ball mount (`io` otherwise has no raw form): read_raw() ->
+        (the ball joint's quaternion (qx, qy, qz, w) and rate (u0, u1, u2) rad/s, both as pybullet
+        gives them, in the body's principal axes; wheel angles rad; wheel speeds rad/s), the state
+        `io`'s read works its attitude and rates out of with `attitude_map.row` (for a caller that
+        needs them on some steps only); `advance` as `io`'s."""
+        if self.held or not self.ball:
+            raise ValueError("raw_io needs a free ball mount")
+        _, read_raw, advance = self._ball_io()
+        return read_raw, advance
+
+    def _ball_io(self):
+        """(read, read_raw, advance) of a free ball mount, sharing the last read's state."""
+        pb, cid, body, dev = self.pb, self.client, self.body_id, self.device
+        torques, step, mode = pb.setJointMotorControlArray, pb.stepSimulation, pb.TORQUE_CONTROL
+        wheels, bp, n = self.wheel_joints, dev.pivot_viscous_n_m_s, len(self.wheel_joints)
+        unused = (0.0,) * n
+        multi, multi_torque, joints = pb.getJointStatesMultiDof, pb.setJointMotorControlMultiDof, (BODY,) + wheels
+        p = self.principal_axes
+        state = [(0.0, 0.0, 0.0, 1.0), (0.0, 0.0, 0.0)]    # the last read: joint quaternion and rate (principal axes)
+        skip_pivot = bp == 0.0
+        friction = self.ball_friction
+        wheel_values = _multi_dof_wheels(n)
+        row = self.attitude_map.row
+
+        def read_raw():
             ss = multi(body, joints, cid)     # the ball and every wheel in one request (one state copy)
             ball = ss[0]
-            qx, qy, qz, w = ball[0]
-            wp = ball[1]
-            u0, u1, u2 = wp
-            # pybullet's joint quaternion is in the principal axes P: q_wb = (P v, w) (det P = 1)
-            x = p00 * qx + p01 * qy + p02 * qz
-            y = p10 * qx + p11 * qy + p12 * qz
-            z = p20 * qx + p21 * qy + p22 * qz
-            state[0], state[1] = (x, y, z, w), wp
-            # body rate: P wp in the body frame, turned to the world by q_wb (v + 2w u x v + 2 u x (u x v))
-            bx = p00 * u0 + p01 * u1 + p02 * u2
-            by = p10 * u0 + p11 * u1 + p12 * u2
-            bz = p20 * u0 + p21 * u1 + p22 * u2
-            tx_, ty_, tz_ = 2.0 * (y * bz - z * by), 2.0 * (z * bx - x * bz), 2.0 * (x * by - y * bx)
-            rx = bx + w * tx_ + y * tz_ - z * ty_
-            ry = by + w * ty_ + z * tx_ - x * tz_
-            tilt_x, tilt_y, heading, tilt = relative(x, y, z, w, cx, cy, cz, cw)
-            # the rate in the heading frame (the world turned about the vertical by the heading): the
-            # tilts' own rates at any heading, so a law designed at heading 0 holds at every heading
-            ch, sh = cos(heading), sin(heading)
-            rate = (ch * rx + sh * ry, ch * ry - sh * rx, bz + w * tz_ + x * ty_ - y * tx_)
-            return (tilt_x, tilt_y, heading, tilt, rate, [s[0][0] for s in ss[1:]], [s[1][0] for s in ss[1:]])
+            q, wp = ball[0], ball[1]
+            state[0], state[1] = q, wp
+            angles, speeds = wheel_values(ss)
+            return q, wp, angles, speeds
+
+        def read():
+            (qx, qy, qz, w), (u0, u1, u2), angles, speeds = read_raw()
+            tilt_x, tilt_y, heading, tilt, rate = row(qx, qy, qz, w, u0, u1, u2)
+            return tilt_x, tilt_y, heading, tilt, rate, angles, speeds
 
         if friction is not None:
-            return read, self._advance_with_friction(state, bp, friction)
+            return read, read_raw, self._advance_with_friction(state, bp, friction)
 
         def advance(push_world, wheel_torques):
             # viscous pivot friction -bp w is -bp wp in the principal axes: no turning needed
@@ -248,7 +256,7 @@ class Engine3D(OneClient):
                 multi_torque(body, BODY, mode, force=(-bp * wp[0], -bp * wp[1], -bp * wp[2]), physicsClientId=cid)
             torques(body, wheels, mode, unused, unused, wheel_torques, unused, unused, cid)
             step(cid)
-        return read, advance
+        return read, read_raw, advance
 
     def _advance_with_friction(self, state, bp: float, friction):
         """`advance` on a ball mount with Coulomb friction: the sliding torque joins the pivot's other
@@ -333,30 +341,35 @@ class Engine3D(OneClient):
         return out
 
 
+def _multi_dof_wheels(n: int):
+    """`f(states) -> (wheel angles rad, wheel speeds rad/s)` from a getJointStatesMultiDof answer whose
+    first entry is the body's joint and the next `n` the wheels' (each a revolute: one-element
+    position and velocity). Up to three wheels the entries are unpacked by position: a list
+    comprehension per step costs more than the rest of the unpacking."""
+    if n == 1:
+        def values(ss):
+            a = ss[1]
+            return (a[0][0],), (a[1][0],)
+    elif n == 2:
+        def values(ss):
+            a, b = ss[1], ss[2]
+            return (a[0][0], b[0][0]), (a[1][0], b[1][0])
+    elif n == 3:
+        def values(ss):
+            a, b, c = ss[1], ss[2], ss[3]
+            return (a[0][0], b[0][0], c[0][0]), (a[1][0], b[1][0], c[1][0])
+    else:
+        def values(ss):
+            return tuple(s[0][0] for s in ss[1:]), tuple(s[1][0] for s in ss[1:])
+    return values
+
+
 def _ball_hold(pb, body: int, cid: int, cap_n_m: float) -> None:
     """The spherical joint's velocity motor: target rate 0, force capped at `cap_n_m` (N m; pybullet
     applies the first of the three caps to every axis), 0 to release it."""
     pb.setJointMotorControlMultiDof(body, BODY, pb.POSITION_CONTROL, targetPosition=[0, 0, 0, 1],
                                     targetVelocity=[0, 0, 0], positionGain=0, velocityGain=1,
                                     force=[cap_n_m] * 3, physicsClientId=cid)
-
-
-def relative_attitude(x: float, y: float, z: float, w: float, cx: float, cy: float, cz: float, cw: float,
-                      atan2=math.atan2, asin=math.asin, acos=math.acos, pi=math.pi) -> tuple[float, float, float, float]:
-    """(tilt_x, tilt_y, heading, tilt_rad) of the body quaternion q = (x, y, z, w) relative to upright:
-    q_rel = q conj(q0) with conj(q0) = (cx, cy, cz, cw), decomposed as R = Rz(heading) Ry(tilt_y) Rx(tilt_x)
-    (`sim.core.frames`); tilt_rad is the angle of the body's upright axis from the vertical. Plain floats:
-    both 3D engines call it every physics step."""
-    rx = w * cx + x * cw + y * cz - z * cy
-    ry = w * cy - x * cz + y * cw + z * cx
-    rz = w * cz + x * cy - y * cx + z * cw
-    rw = w * cw - x * cx - y * cy - z * cz
-    r22 = 1.0 - 2.0 * (rx * rx + ry * ry)
-    r20 = 2.0 * (rx * rz - ry * rw)
-    s20 = -r20 if -1.0 < -r20 < 1.0 else (1.0 if r20 <= -1.0 else -1.0)
-    tilt = acos(r22) if -1.0 < r22 < 1.0 else (0.0 if r22 >= 1.0 else pi)
-    heading = atan2(2.0 * (rx * ry + rz * rw), 1.0 - 2.0 * (ry * ry + rz * rz))
-    return atan2(2.0 * (ry * rz + rx * rw), r22), asin(s20), heading, tilt
 
 
 def principal(inertia: np.ndarray) -> tuple[list[float], list[float]]:
@@ -368,9 +381,11 @@ def principal(inertia: np.ndarray) -> tuple[list[float], list[float]]:
     return [float(max(v, 0.0)) for v in vals], list(matrix_to_quat(rows))
 
 
-def _to_principal(p, q_wb, v_world) -> tuple[float, float, float]:
-    """A world-frame vector in the body's principal axes: P^T R_wb^T v."""
-    return _mat_vec(transpose(p), _mat_vec(transpose(quat_to_matrix(q_wb)), v_world))
+def _to_principal(p, q_joint, v_world) -> tuple[float, float, float]:
+    """A world-frame vector in the body's principal axes: P^T R_wb^T v, with q_wb = (P v_q, w) from the
+    ball joint's quaternion q_joint = (v_q, w) (pybullet's, in the principal axes)."""
+    x, y, z = _mat_vec(p, q_joint[:3])
+    return _mat_vec(transpose(p), _mat_vec(transpose(quat_to_matrix((x, y, z, q_joint[3]))), v_world))
 
 
 def _mat_vec(m, v) -> tuple[float, float, float]:

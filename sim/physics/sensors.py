@@ -141,28 +141,34 @@ class _ChannelLimits:
 
 def axes_reader(suites: list[SensorSuite], columns: list[tuple], *, used=None):
     """One call per control tick for several suites built from the same sensors (the 3D runner's
-    one suite per axis): `read(k) -> [(angle, rate, wheel speed) per suite]`, the numbers each
-    suite's `read(k, *columns[i])` gives, in the same order, from the same noise streams.
+    one suite per axis): `read(k) -> (angles, rates, wheel speeds)`, tuples of the numbers each
+    suite's `read(k, *columns[i])` gives (suite i's angle, rate and wheel speed at position i), from
+    the same noise streams.
 
     `columns[i]`: suite i's (angle, rate, wheel angle, wheel speed) histories, memoryviews of floats.
     `used`: (angles, rates, wheels), how many leading suites' angles, rates and wheel speeds the
-    caller reads; the others are not worked out (NaN in their place; each suite's noise is its own
-    stream, so the rest are the same numbers). An angle feeding a rate (no gyro) is always worked
-    out. With an encoder bus (latency, update rate or tracking limit) each suite reads on its own;
-    otherwise the reads are done here in one pass (the per-suite calls and attribute lookups cost
-    as much as the sums).
+    caller reads (default: every suite's); only those are returned, and the others are not worked
+    out (each suite's noise is its own stream, so the rest are the same numbers). An angle feeding
+    a rate (no gyro) is always worked out. With an encoder bus (latency, update rate or tracking
+    limit) each suite reads on its own; otherwise the reads are done here in one pass (the
+    per-suite calls and attribute lookups cost as much as the sums).
     """
+    n_axes = len(suites)
+    n_angles, n_rates, n_wheels = used if used is not None else (n_axes,) * 3
     if any(s.limited for s in suites):
         reads = [(s.read, *c) for s, c in zip(suites, columns)]
-        return lambda k: [r(k, a, w, wa, ws) for r, a, w, wa, ws in reads]
+
+        def read_each(k: int) -> tuple:
+            rows = [r(k, a, w, wa, ws) for r, a, w, wa, ws in reads]
+            return (tuple(r[0] for r in rows[:n_angles]), tuple(r[1] for r in rows[:n_rates]),
+                    tuple(r[2] for r in rows[:n_wheels]))
+        return read_each
     s0 = suites[0]
     delay, period = s0.delay_steps, s0.period_s
     angle_res, angle_noise, has_gyro = s0.angle_res, s0.angle_noise, s0.has_gyro
     gyro_bias, gyro_noise, wheel_res, wheel_noise = s0.gyro_bias, s0.gyro_noise, s0.wheel_res, s0.wheel_noise
-    n_axes = len(suites)
-    n_angles, n_rates, n_wheels = used if used is not None else (n_axes,) * 3
-    axes = [(i, s.angle_bias, *c, i < n_angles or (not has_gyro and i < n_rates), i < n_rates, i < n_wheels)
-            for i, (s, c) in enumerate(zip(suites, columns))]
+    axes = [(i, s.angle_bias, *c, i < n_angles or (not has_gyro and i < n_rates), i < n_angles, i < n_rates,
+             i < n_wheels) for i, (s, c) in enumerate(zip(suites, columns))]
     prev_angle: list = [None] * n_axes
     prev_counts = [0.0] * n_axes
     floor, fmod, pi, two_pi, nan = math.floor, math.fmod, math.pi, 2 * math.pi, math.nan
@@ -180,16 +186,17 @@ def axes_reader(suites: list[SensorSuite], columns: list[tuple], *, used=None):
         noise[1], noise[2] = s._chunk_end - len(s._chunk), s._chunk_end
         return out
 
-    def read(k: int) -> list:
+    def read(k: int) -> tuple:
         j = k - delay
         if j < 0:
             j = 0
         chunks, first, end, tick = noise
         noise[3] = tick + 1
         rows = [c[tick - first] for c in chunks] if tick < end else refill(tick)
-        out = []
-        for (i, bias, angle, rate, wheel_angle, wheel_speed, with_angle, with_rate, with_wheel), n in zip(axes, rows):
-            theta_m = rate_m = wheel_m = nan
+        angles, rates, wheels = [], [], []
+        for (i, bias, angle, rate, wheel_angle, wheel_speed, with_angle, angle_out, with_rate, with_wheel), n in zip(
+                axes, rows):
+            theta_m = nan
             if with_angle:
                 theta = angle[j]
                 if angle_res:
@@ -198,23 +205,23 @@ def axes_reader(suites: list[SensorSuite], columns: list[tuple], *, used=None):
                 if a <= 0.0:
                     a += two_pi
                 theta_m = a - pi
+                if angle_out:
+                    angles.append(theta_m)
             if has_gyro:
                 if with_rate:
-                    rate_m = rate[j] + gyro_bias + gyro_noise * n[1]
-            elif prev_angle[i] is None:
-                rate_m = 0.0
+                    rates.append(rate[j] + gyro_bias + gyro_noise * n[1])
             else:
-                rate_m = wrap_angle(theta_m - prev_angle[i]) / period
-            prev_angle[i] = theta_m
+                if with_rate:
+                    rates.append(0.0 if prev_angle[i] is None else wrap_angle(theta_m - prev_angle[i]) / period)
+                prev_angle[i] = theta_m
             if with_wheel:
                 if wheel_res:
                     counts = floor(wheel_angle[j] / wheel_res)
                     if tick == 0:
                         prev_counts[i] = floor(wheel_angle[j] / wheel_res - wheel_speed[j] * period / wheel_res)
-                    wheel_m = (counts - prev_counts[i]) * wheel_res / period + wheel_noise * n[2]
+                    wheels.append((counts - prev_counts[i]) * wheel_res / period + wheel_noise * n[2])
                     prev_counts[i] = counts
                 else:
-                    wheel_m = wheel_speed[j] + wheel_noise * n[2]
-            out.append((theta_m, rate_m, wheel_m))
-        return out
+                    wheels.append(wheel_speed[j] + wheel_noise * n[2])
+        return tuple(angles), tuple(rates), tuple(wheels)
     return read

@@ -46,6 +46,7 @@ from ..strategies import plugins_in
 from ..strategies.base import Reading
 from .floor_contact import FloorWatch, floor_cause
 from .metrics3d import saturated_ticks3d
+from . import attitude_rows
 from .trace3d import Trace3D
 from .trial_common import (TrialResult, close_trace, describe, describe_unread, final_outcome, held_rows,
                            with_strategy)
@@ -293,9 +294,9 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     ws_c, wa_c, v_c, i_c, tq_c = ([col[f"w{i}_{q}"] for i in range(1, nw + 1)]
                                   for q in ("speed", "angle", "voltage", "current", "torque"))
     n_angles, n_rates = (2, 3) if ball else (1, 1)
-    m_angle = [col["m_tilt_x"]] + ([col["m_tilt_y"]] if ball else [])
-    m_rate = [col["m_rate_x"]] + ([col["m_rate_y"], col["m_rate_z"]] if ball else [])
-    m_wheel = [col[f"m_w{i}"] for i in range(1, nw + 1)]
+    # the measured columns in the order of a tick's readings: angles, rates, wheel speeds
+    measured_cols = ([col["m_tilt_x"]] + ([col["m_tilt_y"]] if ball else []) + [col["m_rate_x"]]
+                     + ([col["m_rate_y"], col["m_rate_z"]] if ball else []) + [col[f"m_w{i}"] for i in range(1, nw + 1)])
     zeros = memoryview(np.zeros(max(n, 1)))
     mode_c = memoryview(trace.mode)       # an int16 column: a Python int in costs less than numpy's item store
     # each sensor suite reads one angle, one rate and one wheel (sensors.py applies its noise, bias,
@@ -306,7 +307,16 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                                       sense_rate[j] if j < len(sense_rate) else zeros, wa_c[j] if j < nw else zeros,
                                       ws_c[j] if j < nw else zeros) for j in range(len(suites))],
                             used=(n_angles, n_rates, nw))
-    io = engine.io()
+    # a free ball keeps the rows its loop does not need raw until the loop ends (`attitude_rows`)
+    lazy = None
+    if ball and attitude_rows.wanted(engine=engine, imu=imu, suites=suites, shared=isinstance(trace, PublishedTrace3D)):
+        lazy = attitude_rows.LazyAttitude(trace, engine.attitude_map)
+        io = engine.raw_io()
+        done, row, ensure = lazy.done, engine.attitude_map.row, lazy.row
+        delay = suites[0].delay_steps
+        calm = (0.5 * ABSURD_RATE_RAD_S) ** 2   # |body rate|^2 below which no axis's rate can be absurd
+    else:
+        io = engine.io()
     read, advance = io[0], io[1]
     watch = FloorWatch(io[2], trace, device.floor, stop_early) if len(io) > 2 else None
     see = watch.stepper() if watch is not None else None
@@ -318,19 +328,34 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     timed = schedule is not None
     tick_k, change_k, pending, tick_rows = (schedule.first(), -1, None, []) if timed else (0, -1, None, None)
     lim = ABSURD_RATE_RAD_S
+    need_k = max(tick_k - delay, 0) if lazy is not None else -1    # the next row the sensors will read
     k = 0
     wall0 = time.perf_counter()
     while k < n and outcome is None:
-        tx, ty, hd, tilt, rate, wang, wspd = read()
-        wx, wy, wz = rate
-        tilt_c[k], tx_c[k], rx_c[k] = tilt, tx, wx
-        if ball:
-            ty_c[k], hd_c[k], ry_c[k], rz_c[k] = ty, hd, wy, wz
-        elif ty_c is not None:   # a floor body on its edge: free in 3D, its whole attitude recorded
-            ty_c[k], hd_c[k] = ty, hd
-            if ry_c is not None:     # and with an IMU its whole rate
-                ry_c[k], rz_c[k] = wy, wz
-        bad = not (-lim < wx < lim and -lim < wy < lim and -lim < wz < lim and tilt == tilt)
+        if lazy is None:
+            tx, ty, hd, tilt, rate, wang, wspd = read()
+            wx, wy, wz = rate
+            tilt_c[k], tx_c[k], rx_c[k] = tilt, tx, wx
+            if ball:
+                ty_c[k], hd_c[k], ry_c[k], rz_c[k] = ty, hd, wy, wz
+            elif ty_c is not None:   # a floor body on its edge: free in 3D, its whole attitude recorded
+                ty_c[k], hd_c[k] = ty, hd
+                if ry_c is not None:     # and with an IMU its whole rate
+                    ry_c[k], rz_c[k] = wy, wz
+            bad = not (-lim < wx < lim and -lim < wy < lim and -lim < wz < lim and tilt == tilt)
+        else:
+            (qx, qy, qz, qw), (u0, u1, u2), wang, wspd = read()
+            if (k == tick_k or k == need_k
+                    or not (u0 * u0 + u1 * u1 + u2 * u2 < calm and 0.5 < qx * qx + qy * qy + qz * qz + qw * qw < 2.0)):
+                # a tick's row (its tilt is judged), a row the sensors will read, or a fast or odd state
+                # (judged on its worked-out rates)
+                tx, ty, hd, tilt, (wx, wy, wz) = row(qx, qy, qz, qw, u0, u1, u2)
+                tilt_c[k], tx_c[k], ty_c[k], hd_c[k], rx_c[k], ry_c[k], rz_c[k] = tilt, tx, ty, hd, wx, wy, wz
+                done[k] = 1
+                bad = not (-lim < wx < lim and -lim < wy < lim and -lim < wz < lim and tilt == tilt)
+            else:       # raw until the loop ends (no rate can be absurd, the quaternion is finite)
+                tilt_c[k], tx_c[k], ty_c[k], hd_c[k], rx_c[k], ry_c[k], rz_c[k] = qx, qy, qz, qw, u0, u1, u2
+                bad = False
         for s, a, s_col, a_col, w_lim in zip(wspd, wang, ws_c, wa_c, wheel_limit):
             s_col[k], a_col[k] = s, a
             if not -w_lim < s < w_lim:
@@ -348,25 +373,16 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
         if k == change_k:
             volts, change_k = pending, -1
         if k == tick_k:
+            if lazy is not None and not done[k - delay if k > delay else 0]:
+                ensure(k - delay if k > delay else 0)   # a row already passed raw (a delay past a control period)
             t = k * dt
-            meas = read_axes(k)
-            m0 = meas[0]
-            if ball:
-                m1, m2 = meas[1], meas[2]
-                angles, rates = (m0[0], m1[0]), (m0[1], m1[1], m2[1])
-            else:
-                angles, rates = (m0[0],), (m0[1],)
-            speeds = tuple([m[2] for m in meas[:nw]])
+            angles, rates, speeds = read_axes(k)
             reading.t_s, reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = t, angles, rates, speeds
             reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = angles[0], rates[0], speeds[0]
             if bus_supply is not None:
                 reading.supply_v = bus_supply.volts
-            for j in range(n_angles):
-                m_angle[j][k] = angles[j]
-            for j in range(n_rates):
-                m_rate[j][k] = rates[j]
-            for j in wheels:
-                m_wheel[j][k] = speeds[j]
+            for m_col, m in zip(measured_cols, angles + rates + speeds):
+                m_col[k] = m
             ticks += 1
             try:
                 clock.enter(k)
@@ -375,8 +391,11 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                 if cap is None:     # wheels with different limits (current mode, a wheel's own motor)
                     if not all(-c <= v <= c for v, c in zip(volts, limits)):
                         volts = tuple(v if -c <= v <= c else math.copysign(c, v) for v, c in zip(volts, limits))
-                elif min(volts) < -cap or max(volts) > cap:   # the drive's limit, whatever the law did
-                    volts = tuple(v if -cap <= v <= cap else math.copysign(cap, v) for v in volts)
+                else:
+                    for v in volts:     # the drive's limit, whatever the law did
+                        if not -cap <= v <= cap:
+                            volts = tuple(v if -cap <= v <= cap else math.copysign(cap, v) for v in volts)
+                            break
                 if strategy.phase != phase:
                     phase = strategy.phase
                     name = str(phase)
@@ -410,6 +429,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
                     pending, volts, change_k = volts, held, apply_k
             else:
                 tick_k += cs
+            if lazy is not None:
+                need_k = tick_k - delay
             if wants_balance:   # once fallen, the body stays fallen, unless the law gets it up again (a jump)
                 if tilt <= release and strategy.balancing:
                     if catch_k is None and (fell_k is None or again):
@@ -440,6 +461,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
         if on_step is not None:
             on_step(k, engine)
         k += 1
+    if lazy is not None:
+        lazy.finish(k + 1)      # rows 0..k (a stopped loop's last row included)
     wall = time.perf_counter() - wall0
     if watch is not None:
         outcome = watch.outcome(outcome, fell_k)

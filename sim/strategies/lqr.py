@@ -118,6 +118,7 @@ class MultiWheelLqr(LqrBalance):
         self._supplies = ([w.command_limit("current") for w in self.spec.wheels] if current
                           else self.supplies_v.tolist())
         self._lowest_supply_v = -math.inf if current else min(self._supplies)
+        self._min_cap = min(self._supplies)
         # one matrix on one buffer [measured state, held commands oldest first], so that a tick is a
         # few numpy calls whatever the delay (the same law as K times the predicted state)
         self._G = np.hstack([G_x, *G_u])
@@ -152,12 +153,23 @@ class MultiWheelLqr(LqrBalance):
 
     def decide(self, reading: Reading) -> list[float]:
         held = self._held
-        self._fill_z(self._z_bytes, 0, *self._measured(reading), *held)   # [measured state, held commands]
+        angles, rates, wheels = reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s
+        if len(angles) == self._n_angles and len(rates) == self._n_rates and len(wheels) == self._n_wheels:
+            self._fill_z(self._z_bytes, 0, *angles, *rates, *wheels, *held)   # [measured state, held commands]
+        else:       # a reading with more axes than the design's states (or a wrong one: `_measured` says so)
+            self._fill_z(self._z_bytes, 0, *self._measured(reading), *held)
         v = self._minus_G.dot(self._z).tolist()
         if held:            # a delay: drop the oldest held commands, append this tick's as the drive applies them
             del held[:self._n_u]
-            caps, bus = self._supplies, reading.supply_v
+            caps, bus, lo = self._supplies, reading.supply_v, self._min_cap
             if bus < self._lowest_supply_v:     # a sagging pack: the bridges give at most the bus
                 caps = [c if c < bus else bus for c in caps]
+            else:
+                for x in v:
+                    if not -lo <= x <= lo:
+                        break
+                else:       # every command within every clamp (the usual tick): held as it is
+                    held += v
+                    return v
             held += [s if x > s else (-s if x < -s else x) for x, s in zip(v, caps)]
         return v
