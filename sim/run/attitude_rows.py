@@ -37,17 +37,13 @@ class LazyAttitude:
         self.cols = [memoryview(getattr(trace, a)) for a in COLUMNS]
         self.done = bytearray(len(trace.tilt))
 
-    def row(self, j: int):
-        """Row j's (tilt_x, tilt_y, heading, tilt, rate) from its raw values, written into the trace
-        (a row already worked out is read back)."""
+    def work_out(self, j: int) -> None:
+        """Work out raw row j in place (the loop's own rows it works out as it reads them)."""
         c = self.cols
-        if self.done[j]:
-            return c[1][j], c[2][j], c[3][j], c[0][j], (c[4][j], c[5][j], c[6][j])
         tx, ty, hd, tilt, rate = self.map.row(c[0][j], c[1][j], c[2][j], c[3][j], c[4][j], c[5][j], c[6][j])
         c[0][j], c[1][j], c[2][j], c[3][j] = tilt, tx, ty, hd
         c[4][j], c[5][j], c[6][j] = rate
         self.done[j] = 1
-        return tx, ty, hd, tilt, rate
 
     def finish(self, rows: int) -> None:
         """Work out every raw row of the first `rows` (the loop has ended)."""

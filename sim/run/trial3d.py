@@ -312,7 +312,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     if ball and attitude_rows.wanted(engine=engine, imu=imu, suites=suites, shared=isinstance(trace, PublishedTrace3D)):
         lazy = attitude_rows.LazyAttitude(trace, engine.attitude_map)
         io = engine.raw_io()
-        done, row, ensure = lazy.done, engine.attitude_map.row, lazy.row
+        done, row, work_out = lazy.done, engine.attitude_map.row, lazy.work_out
         delay = suites[0].delay_steps
         calm = (0.5 * ABSURD_RATE_RAD_S) ** 2   # |body rate|^2 below which no axis's rate can be absurd
     else:
@@ -374,7 +374,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
             volts, change_k = pending, -1
         if k == tick_k:
             if lazy is not None and not done[k - delay if k > delay else 0]:
-                ensure(k - delay if k > delay else 0)   # a row already passed raw (a delay past a control period)
+                work_out(k - delay if k > delay else 0)   # a row already passed raw (a delay past a control period)
             t = k * dt
             angles, rates, speeds = read_axes(k)
             reading.t_s, reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = t, angles, rates, speeds
