@@ -56,11 +56,7 @@ class MotorDrive:
         end = ei * self.current + ew * wheel_speed_rad_s + ev * volts
         lim = self.i_max
         if end > lim or end < -lim:
-            held = lim if end > lim else -lim
-            # reached mid-step from inside the limit: exact up to the crossing, held after it
-            if self.crossing is not None and (self.current < lim if held > 0 else self.current > -lim):
-                i = self.crossing.mean_current(self.current, wheel_speed_rad_s, volts, held)
-            self.current = held
+            i = self.limited(i, end, wheel_speed_rad_s, volts)
         else:
             self.current = end
         if i > lim:
@@ -68,6 +64,18 @@ class MotorDrive:
         elif i < -lim:
             i = -lim
         return i, self.k_t * i
+
+    def limited(self, mean: float, end: float, wheel_speed_rad_s: float, volts: float) -> float:
+        """A step whose unclamped end current `end` (A) lies past the limit: `current` held at the
+        limit, and the step's mean current (A, before `update`'s final clamp) returned: `mean`, the
+        unclamped mean, or, when the limit was reached mid-step from inside it, the exact mean up to
+        the crossing and held after it."""
+        lim = self.i_max
+        held = lim if end > lim else -lim
+        if self.crossing is not None and (self.current < lim if held > 0 else self.current > -lim):
+            mean = self.crossing.mean_current(self.current, wheel_speed_rad_s, volts, held)
+        self.current = held
+        return mean
 
 
 def step_coefficients(inductance: float, r: float, k_e: float, k_t: float, inertia: float,

@@ -25,6 +25,7 @@ import math
 import numpy as np
 
 from ..core.angles import wrap_angle
+from ..core.unrolled import unrolled
 
 NOISE_CHUNK = 4096  # control ticks of noise drawn and converted to Python floats at a time
 
@@ -164,14 +165,12 @@ def axes_reader(suites: list[SensorSuite], columns: list[tuple], *, used=None):
                     tuple(r[2] for r in rows[:n_wheels]))
         return read_each
     s0 = suites[0]
-    delay, period = s0.delay_steps, s0.period_s
-    angle_res, angle_noise, has_gyro = s0.angle_res, s0.angle_noise, s0.has_gyro
-    gyro_bias, gyro_noise, wheel_res, wheel_noise = s0.gyro_bias, s0.gyro_noise, s0.wheel_res, s0.wheel_noise
-    axes = [(i, s.angle_bias, *c, i < n_angles or (not has_gyro and i < n_rates), i < n_angles, i < n_rates,
-             i < n_wheels) for i, (s, c) in enumerate(zip(suites, columns))]
-    prev_angle: list = [None] * n_axes
-    prev_counts = [0.0] * n_axes
-    floor, fmod, pi, two_pi, nan = math.floor, math.fmod, math.pi, 2 * math.pi, math.nan
+    has_gyro = s0.has_gyro
+    names = {"delay": s0.delay_steps, "period": s0.period_s, "angle_res": s0.angle_res, "angle_noise": s0.angle_noise,
+             "gyro_bias": s0.gyro_bias, "gyro_noise": s0.gyro_noise, "wheel_res": s0.wheel_res,
+             "wheel_noise": s0.wheel_noise, "floor": math.floor, "fmod": math.fmod, "pi": math.pi,
+             "two_pi": 2 * math.pi, "wrap_angle": wrap_angle, "prev_angle": [None] * n_axes,
+             "prev_counts": [0.0] * n_axes}
     noise = [[], 0, 0, 0]     # the suites' current chunks of noise rows, the chunk's first and end tick, the tick
 
     def refill(i: int) -> list:
@@ -186,42 +185,64 @@ def axes_reader(suites: list[SensorSuite], columns: list[tuple], *, used=None):
         noise[1], noise[2] = s._chunk_end - len(s._chunk), s._chunk_end
         return out
 
-    def read(k: int) -> tuple:
-        j = k - delay
-        if j < 0:
-            j = 0
-        chunks, first, end, tick = noise
-        noise[3] = tick + 1
-        rows = [c[tick - first] for c in chunks] if tick < end else refill(tick)
-        angles, rates, wheels = [], [], []
-        for (i, bias, angle, rate, wheel_angle, wheel_speed, with_angle, angle_out, with_rate, with_wheel), n in zip(
-                axes, rows):
-            theta_m = nan
-            if with_angle:
-                theta = angle[j]
-                if angle_res:
-                    theta = floor(theta / angle_res) * angle_res
-                a = fmod(theta + bias + angle_noise * n[0] + pi, two_pi)   # wrap_angle, inline
-                if a <= 0.0:
-                    a += two_pi
-                theta_m = a - pi
-                if angle_out:
-                    angles.append(theta_m)
-            if has_gyro:
-                if with_rate:
-                    rates.append(rate[j] + gyro_bias + gyro_noise * n[1])
-            else:
-                if with_rate:
-                    rates.append(0.0 if prev_angle[i] is None else wrap_angle(theta_m - prev_angle[i]) / period)
-                prev_angle[i] = theta_m
-            if with_wheel:
-                if wheel_res:
-                    counts = floor(wheel_angle[j] / wheel_res)
-                    if tick == 0:
-                        prev_counts[i] = floor(wheel_angle[j] / wheel_res - wheel_speed[j] * period / wheel_res)
-                    wheels.append((counts - prev_counts[i]) * wheel_res / period + wheel_noise * n[2])
-                    prev_counts[i] = counts
-                else:
-                    wheels.append(wheel_speed[j] + wheel_noise * n[2])
-        return tuple(angles), tuple(rates), tuple(wheels)
-    return read
+    names.update(noise=noise, refill=refill)
+    code, out = [], {"theta": [], "rate": [], "wheel": []}     # the lines; the returned values, per kind
+    for i, (s, (angle, rate, wheel_angle, wheel_speed)) in enumerate(zip(suites, columns)):
+        names.update({f"bias{i}": s.angle_bias, f"angle_col{i}": angle, f"rate_col{i}": rate,
+                      f"wheel_angle_col{i}": wheel_angle, f"wheel_speed_col{i}": wheel_speed})
+        with_rate, with_wheel, axis = i < n_rates, i < n_wheels, []
+        if i < n_angles or (not has_gyro and with_rate):    # an angle feeding a rate (no gyro) is worked out too
+            axis.append(_ANGLE_READ if s0.angle_res else _ANGLE_READ.replace(_ANGLE_COUNTS, ""))
+            if not has_gyro:
+                axis.append(_RATE_FROM_ANGLES if with_rate else "    prev_angle[{i}] = theta{i}\n")
+        if has_gyro and with_rate:
+            axis.append(_RATE_READ)
+        if with_wheel:
+            axis.append(_WHEEL_FROM_COUNTS if s0.wheel_res else _WHEEL_READ)
+        code += [c.format(i=i) for c in axis]
+        for kind, used_here in zip(out, (i < n_angles, with_rate, with_wheel)):
+            if used_here:
+                out[kind].append(f"{kind}{i}")
+    source = _AXES_READ.format(unpack=", ".join(f"n{i}" for i in range(n_axes)) + ("," if n_axes == 1 else ""),
+                               rows="".join(f"        n{i} = chunks[{i}][r]\n" for i in range(n_axes)), body="".join(code),
+                               out=", ".join("(" + "".join(f"{v}, " for v in values) + ")" for values in out.values()))
+    return unrolled(source, names, f"sensors of {n_axes} axes")["read"]
+
+
+# `axes_reader`'s code, written out per axis (`sim.core.unrolled`): `SensorSuite.read`'s rules with its
+# constants bound, the noise row n{i} of axis i's stream, j the row read (the delay applied), the
+# histories of axis i as *_col{i}
+_AXES_READ = """
+def read(k):
+    j = k - delay
+    if j < 0:
+        j = 0
+    chunks, first, end, tick = noise
+    noise[3] = tick + 1
+    if tick < end:
+        r = tick - first
+{rows}    else:
+        {unpack} = refill(tick)
+{body}    return {out}
+"""
+_ANGLE_COUNTS = """    theta = floor(theta / angle_res) * angle_res
+"""
+_ANGLE_READ = """    theta = angle_col{i}[j]
+""" + _ANGLE_COUNTS + """    a = fmod(theta + bias{i} + angle_noise * n{i}[0] + pi, two_pi)   # wrap_angle, inline
+    if a <= 0.0:
+        a += two_pi
+    theta{i} = a - pi
+"""
+_RATE_READ = """    rate{i} = rate_col{i}[j] + gyro_bias + gyro_noise * n{i}[1]
+"""
+_RATE_FROM_ANGLES = """    rate{i} = 0.0 if prev_angle[{i}] is None else wrap_angle(theta{i} - prev_angle[{i}]) / period
+    prev_angle[{i}] = theta{i}
+"""
+_WHEEL_READ = """    wheel{i} = wheel_speed_col{i}[j] + wheel_noise * n{i}[2]
+"""
+_WHEEL_FROM_COUNTS = """    counts = floor(wheel_angle_col{i}[j] / wheel_res)
+    if tick == 0:
+        prev_counts[{i}] = floor(wheel_angle_col{i}[j] / wheel_res - wheel_speed_col{i}[j] * period / wheel_res)
+    wheel{i} = (counts - prev_counts[{i}]) * wheel_res / period + wheel_noise * n{i}[2]
+    prev_counts[{i}] = counts
+"""

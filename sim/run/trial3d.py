@@ -48,6 +48,7 @@ from .floor_contact import FloorWatch, floor_cause
 from .metrics3d import saturated_ticks3d
 from . import attitude_rows
 from .trace3d import Trace3D
+from .wheel_steps import motor_steps, wheel_records
 from .trial_common import (TrialResult, close_trace, describe, describe_unread, final_outcome, held_rows,
                            with_strategy)
 from .trial_isolated import PublishedTrace3D, WatchedClock, lost_child_message, run_watched
@@ -298,6 +299,9 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     measured_cols = ([col["m_tilt_x"]] + ([col["m_tilt_y"]] if ball else []) + [col["m_rate_x"]]
                      + ([col["m_rate_y"], col["m_rate_z"]] if ball else []) + [col[f"m_w{i}"] for i in range(1, nw + 1)])
     zeros = memoryview(np.zeros(max(n, 1)))
+    # each wheel's per-step records, checks and motor steps, written out for this many wheels
+    record = wheel_records(speed_limits_rad_s=wheel_limit, angle_columns=wa_c, speed_columns=ws_c)
+    drive = None if power else motor_steps(motors, viscous_n_m_s=bw, current_columns=i_c, torque_columns=tq_c)
     mode_c = memoryview(trace.mode)       # an int16 column: a Python int in costs less than numpy's item store
     # each sensor suite reads one angle, one rate and one wheel (sensors.py applies its noise, bias,
     # delay and quantisation per axis); suites past the axes or wheels read zeros for those
@@ -356,10 +360,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
             else:       # raw until the loop ends (no rate can be absurd, the quaternion is finite)
                 tilt_c[k], tx_c[k], ty_c[k], hd_c[k], rx_c[k], ry_c[k], rz_c[k] = qx, qy, qz, qw, u0, u1, u2
                 bad = False
-        for s, a, s_col, a_col, w_lim in zip(wspd, wang, ws_c, wa_c, wheel_limit):
-            s_col[k], a_col[k] = s, a
-            if not -w_lim < s < w_lim:
-                bad = True
+        if not record(k, wang, wspd):
+            bad = True
         if bad:
             if fell_k is not None and catch_k is None:   # after a fall: the fall stays the outcome, its cause found
                 outcome, message = "fell", (f"after the fall the simulated motion became non-finite or absurd at "
@@ -442,6 +444,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
             for i in wheels:
                 i_c[i][k], tq_c[i][k] = floats[i]()
             net = [-b * s for b, s in zip(bw, wspd)]
+        elif drive is not None:
+            net = drive(k, volts, wspd)
         else:
             net = []
             for update, v, s, c_col, t_col, b in zip(updates, volts, wspd, i_c, tq_c, bw):
