@@ -52,8 +52,9 @@ def test_fused_reads_equal_the_suites_own_reads(name, used):
     biases = (0.003, -0.002, 0.0)
     plain, rng_a = _suites(sensors, n_ticks, biases)
     fused_suites, rng_b = _suites(sensors, n_ticks, biases)
-    read_all = axes_reader(fused_suites, columns, used=used)
     n_used = used if used is not None else (3, 3, 3)
+    recorded = [np.full(n, np.nan) for _ in range(sum(n_used))]   # the measured columns it writes as it reads
+    read_all = axes_reader(fused_suites, columns, used=used, record=[memoryview(r) for r in recorded])
     for tick in range(ticks):
         k = tick * cs
         expected = [s.read(k, *c) for s, c in zip(plain, columns)]
@@ -63,5 +64,13 @@ def test_fused_reads_equal_the_suites_own_reads(name, used):
         for q, values in enumerate(got):
             for i, x in enumerate(values):
                 assert x == expected[i][q] and isinstance(x, float), (name, tick, i, q)
+        assert [r[k] for r in recorded] == [x for values in got for x in values], (name, tick)
     # the trial's generator is moved past the same draws either way
     assert rng_a.standard_normal() == rng_b.standard_normal()
+
+
+def test_record_needs_a_column_per_number_read():
+    suites, _ = _suites(Sensors.model_validate(CONFIGS["noise-free, no delay"]), 10, (0.0, 0.0))
+    columns = [tuple(memoryview(np.zeros(20)) for _ in range(4))] * 2
+    with pytest.raises(ValueError, match="3 columns for 6 numbers"):
+        axes_reader(suites, columns, record=[memoryview(np.zeros(20))] * 3)

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 
 from sim.physics.motor import MotorDrive
-from sim.run.wheel_steps import motor_steps, wheel_records
+from sim.run.wheel_steps import command_records, motor_steps, wheel_records
 
 # windings of our own: with inductance (the limit's crossing solved mid-step), with none (a
 # quasi-static current), and one that rings (complex eigenvalues of the winding and its inertia)
@@ -81,3 +81,17 @@ def test_lengths_must_agree():
         wheel_records(speed_limits_rad_s=[1.0, 2.0], angle_columns=[None], speed_columns=[None, None])
     with pytest.raises(ValueError, match="one entry per wheel"):
         motor_steps([], viscous_n_m_s=[], current_columns=[], torque_columns=[])
+
+
+def test_command_records_store_and_flag_the_supply():
+    columns = np.full((2, 4), np.nan)
+    record = command_records(at_supply_v=12.0, voltage_columns=[memoryview(c) for c in columns])
+    assert record(0, (3.0, -11.9), False) is False and columns[:, 0].tolist() == [3.0, -11.9]
+    assert record(1, (3.0, -12.0), False) is True                  # at the supply counts
+    assert record(2, (12.5, 0.0), True) is True and columns[:, 2].tolist() == [0.0, 0.0]   # open: 0 recorded
+    # the plain loop it stands for (each command, the tick saturated if any is at the supply), on random ticks
+    rng = np.random.default_rng(4)
+    for k in range(200):
+        volts = tuple(float(v) for v in rng.uniform(-13.0, 13.0, 2))
+        at_limit = any(v >= 12.0 or v <= -12.0 for v in volts)
+        assert record(3, volts, False) is at_limit and columns[:, 3].tolist() == list(volts)

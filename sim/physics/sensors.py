@@ -140,7 +140,7 @@ class _ChannelLimits:
         return (j // self.every) * self.every
 
 
-def axes_reader(suites: list[SensorSuite], columns: list[tuple], *, used=None):
+def axes_reader(suites: list[SensorSuite], columns: list[tuple], *, used=None, record=None):
     """One call per control tick for several suites built from the same sensors (the 3D runner's
     one suite per axis): `read(k) -> (angles, rates, wheel speeds)`, tuples of the numbers each
     suite's `read(k, *columns[i])` gives (suite i's angle, rate and wheel speed at position i), from
@@ -150,7 +150,9 @@ def axes_reader(suites: list[SensorSuite], columns: list[tuple], *, used=None):
     `used`: (angles, rates, wheels), how many leading suites' angles, rates and wheel speeds the
     caller reads (default: every suite's); only those are returned, and the others are not worked
     out (each suite's noise is its own stream, so the rest are the same numbers). An angle feeding
-    a rate (no gyro) is always worked out. With an encoder bus (latency, update rate or tracking
+    a rate (no gyro) is always worked out. `record`: columns (item assignment by row) that `read(k)`
+    writes the returned numbers into at row k, in the order returned (angles, rates, wheel speeds).
+    With an encoder bus (latency, update rate or tracking
     limit) each suite reads on its own; otherwise the reads are done here in one pass (the
     per-suite calls and attribute lookups cost as much as the sums).
     """
@@ -161,8 +163,11 @@ def axes_reader(suites: list[SensorSuite], columns: list[tuple], *, used=None):
 
         def read_each(k: int) -> tuple:
             rows = [r(k, a, w, wa, ws) for r, a, w, wa, ws in reads]
-            return (tuple(r[0] for r in rows[:n_angles]), tuple(r[1] for r in rows[:n_rates]),
-                    tuple(r[2] for r in rows[:n_wheels]))
+            out = (tuple(r[0] for r in rows[:n_angles]), tuple(r[1] for r in rows[:n_rates]),
+                   tuple(r[2] for r in rows[:n_wheels]))
+            for c, x in zip(record or (), out[0] + out[1] + out[2]):
+                c[k] = x
+            return out
         return read_each
     s0 = suites[0]
     has_gyro = s0.has_gyro
@@ -203,6 +208,12 @@ def axes_reader(suites: list[SensorSuite], columns: list[tuple], *, used=None):
         for kind, used_here in zip(out, (i < n_angles, with_rate, with_wheel)):
             if used_here:
                 out[kind].append(f"{kind}{i}")
+    returned = [v for values in out.values() for v in values]
+    if record is not None:
+        if len(record) != len(returned):
+            raise ValueError(f"record: {len(record)} columns for {len(returned)} numbers read")
+        names.update({f"record{i}": c for i, c in enumerate(record)})
+        code += [f"    record{i}[k] = {v}\n" for i, v in enumerate(returned)]
     source = _AXES_READ.format(unpack=", ".join(f"n{i}" for i in range(n_axes)) + ("," if n_axes == 1 else ""),
                                rows="".join(f"        n{i} = chunks[{i}][r]\n" for i in range(n_axes)), body="".join(code),
                                out=", ".join("(" + "".join(f"{v}, " for v in values) + ")" for values in out.values()))

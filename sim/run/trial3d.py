@@ -48,7 +48,7 @@ from .floor_contact import FloorWatch, floor_cause
 from .metrics3d import saturated_ticks3d
 from . import attitude_rows
 from .trace3d import Trace3D
-from .wheel_steps import motor_steps, wheel_records
+from .wheel_steps import command_records, motor_steps, wheel_records
 from .trial_common import (TrialResult, close_trace, describe, describe_unread, final_outcome, held_rows,
                            with_strategy)
 from .trial_isolated import PublishedTrace3D, WatchedClock, lost_child_message, run_watched
@@ -295,12 +295,13 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     ws_c, wa_c, v_c, i_c, tq_c = ([col[f"w{i}_{q}"] for i in range(1, nw + 1)]
                                   for q in ("speed", "angle", "voltage", "current", "torque"))
     n_angles, n_rates = (2, 3) if ball else (1, 1)
-    # the measured columns in the order of a tick's readings: angles, rates, wheel speeds
+    # the measured columns in the order of a tick's readings (angles, rates, wheel speeds): the reader writes them
     measured_cols = ([col["m_tilt_x"]] + ([col["m_tilt_y"]] if ball else []) + [col["m_rate_x"]]
                      + ([col["m_rate_y"], col["m_rate_z"]] if ball else []) + [col[f"m_w{i}"] for i in range(1, nw + 1)])
     zeros = memoryview(np.zeros(max(n, 1)))
     # each wheel's per-step records, checks and motor steps, written out for this many wheels
     record = wheel_records(speed_limits_rad_s=wheel_limit, angle_columns=wa_c, speed_columns=ws_c)
+    record_commands = command_records(at_supply_v=at_supply, voltage_columns=v_c)
     drive = None if power else motor_steps(motors, viscous_n_m_s=bw, current_columns=i_c, torque_columns=tq_c)
     mode_c = memoryview(trace.mode)       # an int16 column: a Python int in costs less than numpy's item store
     # each sensor suite reads one angle, one rate and one wheel (sensors.py applies its noise, bias,
@@ -310,7 +311,7 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
     read_axes = axes_reader(suites, [(sense_angle[j] if j < len(sense_angle) else zeros,
                                       sense_rate[j] if j < len(sense_rate) else zeros, wa_c[j] if j < nw else zeros,
                                       ws_c[j] if j < nw else zeros) for j in range(len(suites))],
-                            used=(n_angles, n_rates, nw))
+                            used=(n_angles, n_rates, nw), record=measured_cols)
     # a free ball keeps the rows its loop does not need raw until the loop ends (`attitude_rows`)
     lazy = None
     if ball and attitude_rows.wanted(engine=engine, imu=imu, suites=suites, shared=isinstance(trace, PublishedTrace3D)):
@@ -383,8 +384,6 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
             reading.angle_rad, reading.rate_rad_s, reading.wheel_speed_rad_s = angles[0], rates[0], speeds[0]
             if bus_supply is not None:
                 reading.supply_v = bus_supply.volts
-            for m_col, m in zip(measured_cols, angles + rates + speeds):
-                m_col[k] = m
             ticks += 1
             try:
                 clock.enter(k)
@@ -417,13 +416,8 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
             if name is not None:
                 mode, name = trace.phase_code(name), None
             mode_c[k] = mode
-            at_limit = False
-            for i in wheels:     # every wheel's command recorded; the tick counts once if any is at the supply
-                v = volts[i]
-                v_c[i][k] = 0.0 if open_circuit else v
-                if v >= at_supply or v <= -at_supply:
-                    at_limit = True
-            saturated += at_limit
+            if record_commands(k, volts, open_circuit):   # the tick counts once if any wheel is at the supply
+                saturated += 1
             if timed:
                 tick_rows.append(k)
                 apply_k, tick_k = schedule.after(k)

@@ -33,6 +33,16 @@ def record(k, angles, speeds):
     return {inside}
 """
 
+_COMMANDS = """
+def record(k, volts, open_circuit):
+    {unpack_v} = volts
+    if open_circuit:
+{zeros}
+    else:
+{stores}
+    return {at_supply}
+"""
+
 _MOTOR = """
     c = m{j}.current
     i{j} = ci{j} * c + cw{j} * s{j} + cv{j} * v{j}
@@ -72,6 +82,20 @@ def wheel_records(*, speed_limits_rad_s: Sequence[float], angle_columns, speed_c
         stores="\n".join(f"    angle{j}[k] = a{j}\n    speed{j}[k] = s{j}" for j in range(n)),
         inside=" and ".join(f"nL{j} < s{j} < L{j}" for j in range(n)))
     return unrolled(source, names, f"records of {n} wheels")["record"]
+
+
+def command_records(*, at_supply_v: float, voltage_columns) -> Callable:
+    """`record(k, volts, open_circuit) -> bool`: stores each wheel's command (V, or A in current mode;
+    0 with the winding open) at row k of its column; true when any command is at or past
+    `at_supply_v` in size (the tick counts as saturated)."""
+    n = len(voltage_columns)
+    _same_length(n, voltage_columns)
+    names = {"hi": at_supply_v, "lo": -at_supply_v, **{f"voltage{j}": c for j, c in enumerate(voltage_columns)}}
+    source = _COMMANDS.format(
+        unpack_v=_unpack("v", n), zeros="\n".join(f"        voltage{j}[k] = 0.0" for j in range(n)),
+        stores="\n".join(f"        voltage{j}[k] = v{j}" for j in range(n)),
+        at_supply=" or ".join(f"v{j} >= hi or v{j} <= lo" for j in range(n)))
+    return unrolled(source, names, f"commands of {n} wheels")["record"]
 
 
 def motor_steps(motors: Sequence[MotorDrive], *, viscous_n_m_s: Sequence[float], current_columns,
