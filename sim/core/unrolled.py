@@ -10,12 +10,14 @@ as the loop it stands for, so the same doubles (each such module's tests pin it 
 from __future__ import annotations
 
 import linecache
+import zlib
 
 
 def unrolled(source: str, names: dict, what: str) -> dict:
     """`source` (our own template's output) run in the namespace `names`, which it returns with the
-    functions it defined; its lines are kept under a name saying `what`, for tracebacks."""
-    filename = f"<unrolled: {what}>"
+    functions it defined; its lines are kept for tracebacks under a name saying `what` (and the
+    source's checksum: one entry per distinct text, however many trials write it out)."""
+    filename = f"<unrolled: {what}, {zlib.crc32(source.encode()):08x}>"
     linecache.cache[filename] = (len(source), None, source.splitlines(True), filename)
     exec(compile(source, filename, "exec"), names)      # noqa: S102 - our own template and constants
     return names

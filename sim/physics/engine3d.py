@@ -223,7 +223,7 @@ class Engine3D(OneClient):
         multi, multi_torque, joints = pb.getJointStatesMultiDof, pb.setJointMotorControlMultiDof, (BODY,) + wheels
         p = self.principal_axes
         state = [(0.0, 0.0, 0.0, 1.0), (0.0, 0.0, 0.0)]    # the last read: joint quaternion and rate (principal axes)
-        skip_pivot = bp == 0.0
+        skip_pivot, minus_bp = bp == 0.0, -bp
         friction = self.ball_friction
         wheel_values = _multi_dof_wheels(n)
         row = self.attitude_map.row
@@ -252,8 +252,9 @@ class Engine3D(OneClient):
                 multi_torque(body, BODY, mode, force=(push[0] - bp * wp[0], push[1] - bp * wp[1], push[2] - bp * wp[2]),
                              physicsClientId=cid)
             elif not skip_pivot:
-                wp = state[1]
-                multi_torque(body, BODY, mode, force=(-bp * wp[0], -bp * wp[1], -bp * wp[2]), physicsClientId=cid)
+                wp = state[1]   # -bp w as (-bp) w: Python negates first, so the same doubles
+                multi_torque(body, BODY, mode, force=(minus_bp * wp[0], minus_bp * wp[1], minus_bp * wp[2]),
+                             physicsClientId=cid)
             torques(body, wheels, mode, unused, unused, wheel_torques, unused, unused, cid)
             step(cid)
         return read, read_raw, advance
