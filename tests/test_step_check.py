@@ -48,3 +48,42 @@ def test_the_corner_cube_demo_converges_at_its_step():
     conv = step_convergence(sc)
     assert conv["converged"], step_note(conv)
     assert conv["outcomes"] == ["balanced", "balanced"]
+
+
+def test_a_fall_is_compared_up_to_the_fall():
+    # The corner cube knocked over by a push it cannot take: both steps fall at the same time; after the
+    # fall the cube tumbles on its socket with its wheels spinning, a chaotic path that parts at any step
+    # (measured: the whole traces 30.5 deg apart, which flagged the step before this rule), so only the
+    # motion up to the earlier fall is compared (measured: 0.02 deg apart, fell at 1.108 s both).
+    from sim.model.scenario_yaml import load_scenario
+    from pathlib import Path
+    sc = load_scenario(Path(__file__).resolve().parents[1] / "scenarios" / "cube_corner.yaml",
+                       overrides=("trial.duration=3.0", "trial.pushes=[{at: 1 s, impulse: [0.2, 0.1, 0]}]"))
+    conv = step_convergence(sc)
+    assert conv["outcomes"] == ["fell", "fell"]
+    assert conv["compared_until_s"] == pytest.approx(1.108, abs=0.01)
+    assert conv["converged"], step_note(conv)
+    assert conv["peak_tilt_rad"][0] < math.radians(35)     # the peaks up to the fall (release angle 30 deg)
+    assert "the motion after a fall is not compared" in step_note(conv)
+
+
+def test_a_fall_at_another_time_is_flagged(monkeypatch):
+    # a fine-step trial whose fall comes 0.2 s later than the coarse one's (stood in for by the same cube
+    # pushed 0.2 s later, at the half step) parts the tilt traces before the earlier fall: flagged
+    from sim.model.scenario_yaml import load_scenario
+    import sim.run.trial as trial_module
+    from pathlib import Path
+    path = Path(__file__).resolve().parents[1] / "scenarios" / "cube_corner.yaml"
+    sc = load_scenario(path, overrides=("trial.duration=3.0", "trial.pushes=[{at: 1 s, impulse: [0.2, 0.1, 0]}]"))
+    later = trial_module.run_trial(load_scenario(path, overrides=(
+        "trial.duration=3.0", "trial.pushes=[{at: 1.2 s, impulse: [0.2, 0.1, 0]}]", "world.step=0.0005")))
+    original, steps = trial_module.run_trial, []
+
+    def run_trial(scenario, **kw):
+        steps.append(scenario.world.step)
+        return later if scenario.world.step < 1e-3 else original(scenario, **kw)
+    monkeypatch.setattr(trial_module, "run_trial", run_trial)
+    conv = step_convergence(sc)
+    assert steps == [1e-3, 5e-4]
+    assert conv["outcomes"] == ["fell", "fell"] and conv["fell_at_s"][1] > conv["fell_at_s"][0] + 0.15
+    assert not conv["converged"] and "shorten world.step" in step_note(conv)
