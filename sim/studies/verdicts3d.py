@@ -14,7 +14,8 @@ Criteria (each a value against a `requirements` limit; a value that could not be
 - `wheel_burst_safety_factor`: each wheel's parts at its own runaway speed (its no-load speed at
   full supply), the weakest judged;
 - `monte_carlo_pass_fraction`;
-- `step_halving_change`: the scenario's own trial again at half the physics step (`sim.studies.step_check`);
+- `step_halving_change`: the scenario's own trial again at half the physics step (`sim.studies.step_check`;
+  two trials that both fell are compared up to the earlier fall);
 - through the power chain (a battery or a drive model), the one-wheel power criteria over the shared bus
   (`sim.studies.power_checks`): run time on a charge, the sag margin of the worst wheel, the bus's peak in
   a braking trial with every wheel braked at once, and the drivers' trips.
