@@ -169,6 +169,13 @@ def axes_reader(suites: list[SensorSuite], columns: list[tuple], *, used=None, r
                 c[k] = x
             return out
         return read_each
+    return _written_out_read(suites, columns, (n_angles, n_rates, n_wheels), record)
+
+
+def _written_out_read(suites: list[SensorSuite], columns: list[tuple], used: tuple[int, int, int], record):
+    """`axes_reader`'s one-pass read for suites without an encoder bus, written out per axis from the
+    templates below (`sim.core.unrolled`): `SensorSuite.read`'s rules, the same doubles."""
+    n_axes, (n_angles, n_rates, n_wheels) = len(suites), used
     s0 = suites[0]
     has_gyro = s0.has_gyro
     names = {"delay": s0.delay_steps, "period": s0.period_s, "angle_res": s0.angle_res, "angle_noise": s0.angle_noise,

@@ -8,11 +8,12 @@ torque about its axis (the motor's less the bearing's viscous friction b w, N m)
 
 As a loop over one to three wheels in Python, the zip, the unpacking, the method calls and the
 appends cost more than the arithmetic (on the three-wheel cube about 26,000 of the trial's own
-~80,000 instructions a step). `wheel_records` and `motor_steps` write the code out once per trial for the device's
-number of wheels (`sim.core.unrolled`), every motor's coefficients bound as constants: the same operations in the same
-order as `MotorDrive.update`, so the very same doubles (tests/test_wheel_steps.py pins the two
-together, the current limit's crossing included: that rare step calls `MotorDrive.limited`, the one
-place its rule is written).
+~80,000 instructions a step). `wheel_records`, `motor_steps` and `command_records` (each tick's
+commands) write the code out once per trial for the device's number of wheels (`sim.core.unrolled`),
+every motor's coefficients bound as constants: the same operations in the same order as
+`MotorDrive.update`, so the very same doubles (tests/test_wheel_steps.py pins the two together, the
+current limit's crossing included: that rare step calls `MotorDrive.limited`, the one place its rule
+is written).
 
 The motors' end-of-step currents stay in each `MotorDrive.current`, so that code which sets them
 (an open winding) and the next step agree.
