@@ -33,11 +33,12 @@ import numpy as np
 
 from ..core.angles import wrap_angle
 from ..core.frames import matmul, matrix_to_quat, quat_to_matrix, transpose
+from ..core.unrolled import unrolled
 from ..model.device3d import Device3D
 from ..model.massprops3d import wheel_tensor
 from .ball_friction import BallFriction
 from .engine import MAX_JOINT_SPEED, give_back_client, take_client, import_pybullet
-from .joint_attitude import AttitudeMap, relative_attitude  # noqa: F401 - the floor engine imports it from here
+from .joint_attitude import AttitudeMap, relative_attitude
 
 BODY = 0
 
@@ -345,24 +346,14 @@ class Engine3D(OneClient):
 def _multi_dof_wheels(n: int):
     """`f(states) -> (wheel angles rad, wheel speeds rad/s)` from a getJointStatesMultiDof answer whose
     first entry is the body's joint and the next `n` the wheels' (each a revolute: one-element
-    position and velocity). Up to three wheels the entries are unpacked by position: a list
-    comprehension per step costs more than the rest of the unpacking."""
-    if n == 1:
-        def values(ss):
-            a = ss[1]
-            return (a[0][0],), (a[1][0],)
-    elif n == 2:
-        def values(ss):
-            a, b = ss[1], ss[2]
-            return (a[0][0], b[0][0]), (a[1][0], b[1][0])
-    elif n == 3:
-        def values(ss):
-            a, b, c = ss[1], ss[2], ss[3]
-            return (a[0][0], b[0][0], c[0][0]), (a[1][0], b[1][0], c[1][0])
-    else:
-        def values(ss):
-            return tuple(s[0][0] for s in ss[1:]), tuple(s[1][0] for s in ss[1:])
-    return values
+    position and velocity), the entries unpacked by position, written out for n wheels
+    (`sim.core.unrolled`: a list comprehension per step costs more than the rest of the unpacking)."""
+    one = "," if n == 1 else ""
+    source = ("def values(ss):\n"
+              + "".join(f"    w{j} = ss[{j + 1}]\n" for j in range(n))
+              + f"    return ({', '.join(f'w{j}[0][0]' for j in range(n))}{one}), "
+              + f"({', '.join(f'w{j}[1][0]' for j in range(n))}{one})\n")
+    return unrolled(source, {}, f"joint states of {n} wheels")["values"]
 
 
 def _ball_hold(pb, body: int, cid: int, cap_n_m: float) -> None:

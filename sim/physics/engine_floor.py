@@ -40,7 +40,8 @@ from ..model.device3d import Device3D
 from ..model.floor import lowest_z
 from ..model.massprops3d import wheel_tensor
 from .engine import MAX_JOINT_SPEED, import_pybullet
-from .engine3d import OneClient, principal, relative_attitude
+from .engine3d import OneClient, principal
+from .joint_attitude import relative_attitude
 
 BASE = -1
 

@@ -376,8 +376,10 @@ def _loop(scenario, device, engine, suites, trace, strategy, failure, stop_early
         if k == change_k:
             volts, change_k = pending, -1
         if k == tick_k:
-            if lazy is not None and not done[k - delay if k > delay else 0]:
-                work_out(k - delay if k > delay else 0)   # a row already passed raw (a delay past a control period)
+            if lazy is not None:
+                j = k - delay if k > delay else 0
+                if not done[j]:     # a row already passed raw (a delay past a control period)
+                    work_out(j)
             t = k * dt
             angles, rates, speeds = read_axes(k)
             reading.t_s, reading.angles_rad, reading.rates_rad_s, reading.wheel_speeds_rad_s = t, angles, rates, speeds
